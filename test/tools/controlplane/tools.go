@@ -1,0 +1,11 @@
+//go:build tools
+
+// Package controlplane pins the commands built by `make controlplane`.
+package controlplane
+
+import (
+	_ "go.etcd.io/etcd/server/v3"
+	_ "k8s.io/kubernetes/cmd/kube-apiserver"
+	_ "k8s.io/kubernetes/cmd/kube-controller-manager"
+	_ "k8s.io/kubernetes/cmd/kubectl"
+)

@@ -1,0 +1,102 @@
+package models
+
+import (
+	"fmt"
+	"sort"
+	"sync"
+)
+
+// Family identifiers used in specs and outputs. Each family file registers its constructor.
+const (
+	FamilyMean                  = "Mean"
+	FamilyNaive                 = "Naive"
+	FamilySeasonalNaive         = "SeasonalNaive"
+	FamilyDrift                 = "Drift"
+	FamilySeasonalAdjustedNaive = "SeasonalAdjustedNaive"
+	FamilyETS                   = "ETS"
+	FamilyTheta                 = "Theta"
+	FamilyCroston               = "Croston"
+	FamilySBA                   = "SBA"
+	FamilyTSB                   = "TSB"
+)
+
+// Spec declares one zoo member: a family and its optional settings.
+type Spec struct {
+	// Family is one of the registered family identifiers.
+	Family string `json:"family"`
+	// Name is the member's unique name in the zoo; empty means Family.
+	Name string `json:"name,omitempty"`
+	// SeasonLength overrides the season length implied by the series frequency; 0 keeps it.
+	SeasonLength int `json:"seasonLength,omitempty"`
+	// ETS restricts the exponential-smoothing search space (nil: the full admissible set).
+	ETS *ETSOptions `json:"ets,omitempty"`
+	// Smoothing fixes the smoothing weights of the intermittent-demand families (nil: estimated).
+	Smoothing *SmoothingOptions `json:"smoothing,omitempty"`
+}
+
+// ETSOptions restricts which ETS(error, trend, season) forms the automatic search considers.
+// Each list holds component codes: error "A", "M"; trend "N", "A", "Ad"; season "N", "A", "M".
+// An empty list means every code for that component.
+type ETSOptions struct {
+	Errors  []string `json:"errors,omitempty"`
+	Trends  []string `json:"trends,omitempty"`
+	Seasons []string `json:"seasons,omitempty"`
+}
+
+// SmoothingOptions fixes smoothing weights in (0,1]; a zero weight means "estimate it".
+type SmoothingOptions struct {
+	Alpha float64 `json:"alpha,omitempty"`
+	Beta  float64 `json:"beta,omitempty"`
+}
+
+// DisplayName returns Name, or Family when Name is empty.
+func (s Spec) DisplayName() string {
+	if s.Name != "" {
+		return s.Name
+	}
+	return s.Family
+}
+
+// Constructor builds a Model from its spec, or reports which setting is invalid.
+type Constructor func(Spec) (Model, error)
+
+var (
+	registryMu sync.RWMutex
+	registry   = map[string]Constructor{}
+)
+
+// Register makes a family available to New. It panics if the family is registered twice.
+func Register(family string, c Constructor) {
+	registryMu.Lock()
+	defer registryMu.Unlock()
+	if _, dup := registry[family]; dup {
+		panic("models: family registered twice: " + family)
+	}
+	registry[family] = c
+}
+
+// New builds the model a spec declares.
+func New(s Spec) (Model, error) {
+	registryMu.RLock()
+	c, ok := registry[s.Family]
+	registryMu.RUnlock()
+	if !ok {
+		return nil, fmt.Errorf("models: unknown family %q (known: %v)", s.Family, Families())
+	}
+	if s.SeasonLength < 0 {
+		return nil, fmt.Errorf("models: %s: seasonLength must be >= 0, got %d", s.DisplayName(), s.SeasonLength)
+	}
+	return c(s)
+}
+
+// Families lists the registered family identifiers in sorted order.
+func Families() []string {
+	registryMu.RLock()
+	defer registryMu.RUnlock()
+	out := make([]string, 0, len(registry))
+	for f := range registry {
+		out = append(out, f)
+	}
+	sort.Strings(out)
+	return out
+}
