@@ -1,0 +1,160 @@
+// Package runconfig is the resolved configuration of one forecast run: the controller renders it
+// into the run's ConfigMap (config.json), every trainer pod reads it, and a run can be reproduced
+// from it alone. It is plain JSON with no Kubernetes types, so the trainer stays independent of
+// the API machinery.
+package runconfig
+
+import (
+	"encoding/json"
+	"fmt"
+	"os"
+	"time"
+
+	"almanac.dev/almanac/trainer/models"
+)
+
+// FileName is the name of the rendered configuration inside the ConfigMap and under runs/<run>/.
+const FileName = "config.json"
+
+// Config is everything one run needs.
+type Config struct {
+	// Portfolio and Namespace identify the ForecastPortfolio the run belongs to.
+	Portfolio string `json:"portfolio"`
+	Namespace string `json:"namespace"`
+	// Run is the ForecastRun name; outputs go under runs/<Run>/ of the output URI.
+	Run string `json:"run"`
+	// Generation is the portfolio's metadata.generation the run was resolved from.
+	Generation int64 `json:"generation"`
+	// Trigger is Schedule, Manual or Drift.
+	Trigger string `json:"trigger"`
+	// ScheduledTime is the schedule time the run stands for (zero for manual runs).
+	ScheduledTime time.Time `json:"scheduledTime,omitempty"`
+	// PreviousRun is the last successfully published run, whose forecasts this run evaluates and
+	// carries forward for failed shards. Empty: read latest.json, and if absent this is the first run.
+	PreviousRun string `json:"previousRun,omitempty"`
+
+	Source    Source        `json:"source"`
+	Output    Output        `json:"output"`
+	Horizon   int           `json:"horizon"`
+	Quantiles []float64     `json:"quantiles"`
+	Zoo       []models.Spec `json:"zoo"`
+	Selection Selection     `json:"selection"`
+	Sharding  Sharding      `json:"sharding"`
+	Drift     Drift         `json:"drift"`
+}
+
+// Source says where the input series live and how to read them.
+type Source struct {
+	// URI is a blob URL (file://, s3://, gs://, azblob://, mem://) of one object or a prefix ending in "/".
+	URI string `json:"uri"`
+	// Format is "csv" or "parquet".
+	Format string `json:"format"`
+	// Columns maps the input table's columns.
+	Columns Columns `json:"columns"`
+	// Frequency is one of the series.Frequency values.
+	Frequency string `json:"frequency"`
+	// WeekAnchor is the weekday weekly periods start on ("Monday".."Sunday").
+	WeekAnchor string `json:"weekAnchor,omitempty"`
+	// DateLayout is a Go time layout for the date column; empty means ISO 8601 (date or date-time).
+	DateLayout string `json:"dateLayout,omitempty"`
+	// NonNegative marks the values as demand: negative values are treated per the cleaning rules.
+	NonNegative bool `json:"nonNegative"`
+}
+
+// Columns names the input table's columns.
+type Columns struct {
+	// Series are the key columns; their values joined with "/" form the series key.
+	Series []string `json:"series"`
+	// Date is the period column.
+	Date string `json:"date"`
+	// Value is the observation column.
+	Value string `json:"value"`
+	// Covariates are extra numeric columns carried along with the series.
+	Covariates []string `json:"covariates,omitempty"`
+}
+
+// Output says where results go.
+type Output struct {
+	// URI is the blob URL prefix the run layout is written under.
+	URI string `json:"uri"`
+	// Format of the per-unit tables: "parquet" (default) or "csv".
+	Format string `json:"format"`
+}
+
+// Selection configures backtest and per-series choice.
+type Selection struct {
+	Metric        string `json:"metric"`
+	Origins       int    `json:"origins"`
+	Step          int    `json:"step"`
+	CombineTop    int    `json:"combineTop,omitempty"`
+	CombineMethod string `json:"combineMethod,omitempty"`
+}
+
+// Sharding configures how plan cuts units into shards.
+type Sharding struct {
+	// TargetSeriesPerShard is the number of series a shard should hold, approximately.
+	TargetSeriesPerShard int `json:"targetSeriesPerShard"`
+}
+
+// Drift configures how the trainer flags a series whose realized accuracy slipped.
+type Drift struct {
+	// Metric used for expected and realized error (same as selection unless set).
+	Metric string `json:"metric"`
+	// ThresholdRatio: a series drifts when realized / expected > ThresholdRatio.
+	ThresholdRatio float64 `json:"thresholdRatio"`
+	// MinEvaluatedPoints is the fewest new actuals a series needs before it is judged.
+	MinEvaluatedPoints int `json:"minEvaluatedPoints"`
+}
+
+// Load reads and validates a configuration file.
+func Load(path string) (*Config, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, fmt.Errorf("runconfig: %w", err)
+	}
+	return Parse(b, path)
+}
+
+// Parse decodes and validates a configuration; name is used in error messages.
+func Parse(b []byte, name string) (*Config, error) {
+	var c Config
+	if err := json.Unmarshal(b, &c); err != nil {
+		return nil, fmt.Errorf("runconfig: %s: %w", name, err)
+	}
+	if err := c.Validate(); err != nil {
+		return nil, fmt.Errorf("runconfig: %s: %w", name, err)
+	}
+	return &c, nil
+}
+
+// Validate checks the fields the trainer cannot work without; errors name the JSON field.
+func (c *Config) Validate() error {
+	switch {
+	case c.Run == "":
+		return fmt.Errorf("run: must be set")
+	case c.Source.URI == "":
+		return fmt.Errorf("source.uri: must be set")
+	case c.Source.Format != "csv" && c.Source.Format != "parquet":
+		return fmt.Errorf("source.format: %q is not csv or parquet", c.Source.Format)
+	case len(c.Source.Columns.Series) == 0:
+		return fmt.Errorf("source.columns.series: at least one key column")
+	case c.Source.Columns.Date == "" || c.Source.Columns.Value == "":
+		return fmt.Errorf("source.columns: date and value must be named")
+	case c.Output.URI == "":
+		return fmt.Errorf("output.uri: must be set")
+	case c.Output.Format != "" && c.Output.Format != "csv" && c.Output.Format != "parquet":
+		return fmt.Errorf("output.format: %q is not csv or parquet", c.Output.Format)
+	case c.Horizon < 1:
+		return fmt.Errorf("horizon: must be >= 1, got %d", c.Horizon)
+	case len(c.Zoo) == 0:
+		return fmt.Errorf("zoo: at least one model")
+	case c.Sharding.TargetSeriesPerShard < 1:
+		return fmt.Errorf("sharding.targetSeriesPerShard: must be >= 1, got %d", c.Sharding.TargetSeriesPerShard)
+	}
+	for i, q := range c.Quantiles {
+		if !(q > 0 && q < 1) || (i > 0 && q <= c.Quantiles[i-1]) {
+			return fmt.Errorf("quantiles[%d]: %v must be in (0,1) and strictly increasing", i, q)
+		}
+	}
+	return nil
+}

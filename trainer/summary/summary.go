@@ -1,0 +1,110 @@
+// Package summary defines the compact JSON each trainer pod writes to its termination message
+// (at most MaxBytes), the only channel by which results reach the controller, which never reads
+// storage. Sums rather than means are reported so that the controller aggregates accuracy exactly
+// across shards: mean = sum / count over all folded shards.
+package summary
+
+import (
+	"encoding/json"
+	"fmt"
+)
+
+// MaxBytes is the Kubernetes limit on a termination message.
+const MaxBytes = 4096
+
+// Kinds of summary, one per trainer command.
+const (
+	KindPlan    = "plan"
+	KindTrain   = "train"
+	KindPublish = "publish"
+)
+
+// Summary is one command's result. Fields a kind does not use stay zero and are omitted.
+type Summary struct {
+	Kind string `json:"kind"`
+	// Error, when set, is the reason the command failed (trimmed to fit).
+	Error string `json:"error,omitempty"`
+
+	// Plan: units and shards cut, series and input bytes seen.
+	Units  int   `json:"units,omitempty"`
+	Shards int   `json:"shards,omitempty"`
+	Bytes  int64 `json:"bytes,omitempty"`
+
+	// Train: which shard, and its counts.
+	Shard    int `json:"shard,omitempty"`
+	Series   int `json:"series,omitempty"`
+	Trained  int `json:"trained,omitempty"`
+	Rejected int `json:"rejected,omitempty"`
+	// Models counts series by chosen model family (bounded cardinality: families, not configs).
+	Models map[string]int `json:"models,omitempty"`
+	// Accuracy holds the error sums of this shard's evaluation of the previous run's forecasts.
+	Accuracy *Accuracy `json:"accuracy,omitempty"`
+	// DurationSeconds is the command's wall time; SeriesPerSecond its training throughput.
+	DurationSeconds float64 `json:"durationSeconds,omitempty"`
+	SeriesPerSecond float64 `json:"seriesPerSecond,omitempty"`
+
+	// Publish: units whose previous forecast was carried forward because their shard failed.
+	CarriedForward int    `json:"carriedForward,omitempty"`
+	Manifest       string `json:"manifest,omitempty"`
+}
+
+// Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,
+// realized = RealizedSum/Evaluated, both in Metric.
+type Accuracy struct {
+	Metric          string  `json:"metric"`
+	Evaluated       int     `json:"evaluated"`
+	EvaluatedPoints int     `json:"evaluatedPoints"`
+	ExpectedSum     float64 `json:"expectedSum"`
+	RealizedSum     float64 `json:"realizedSum"`
+	Drifted         int     `json:"drifted"`
+}
+
+// Add folds b into a; both must use the same metric.
+func (a *Accuracy) Add(b Accuracy) {
+	if a.Metric == "" {
+		a.Metric = b.Metric
+	}
+	a.Evaluated += b.Evaluated
+	a.EvaluatedPoints += b.EvaluatedPoints
+	a.ExpectedSum += b.ExpectedSum
+	a.RealizedSum += b.RealizedSum
+	a.Drifted += b.Drifted
+}
+
+// Encode marshals s, dropping the model counts and then trimming the error text if needed to
+// stay within MaxBytes.
+func Encode(s Summary) ([]byte, error) {
+	b, err := json.Marshal(s)
+	if err != nil {
+		return nil, err
+	}
+	if len(b) <= MaxBytes {
+		return b, nil
+	}
+	if len(s.Error) > 1024 {
+		s.Error = s.Error[:1024] + "..."
+	}
+	if b, err = json.Marshal(s); err == nil && len(b) <= MaxBytes {
+		return b, nil
+	}
+	s.Models = map[string]int{"(truncated)": s.Trained}
+	if b, err = json.Marshal(s); err != nil {
+		return nil, err
+	}
+	if len(b) > MaxBytes {
+		return nil, fmt.Errorf("summary: %d bytes after trimming, limit %d", len(b), MaxBytes)
+	}
+	return b, nil
+}
+
+// Decode parses a termination message.
+func Decode(b []byte) (Summary, error) {
+	var s Summary
+	if err := json.Unmarshal(b, &s); err != nil {
+		return s, fmt.Errorf("summary: %w", err)
+	}
+	if s.Kind != KindPlan && s.Kind != KindTrain && s.Kind != KindPublish {
+		return s, fmt.Errorf("summary: unknown kind %q", s.Kind)
+	}
+	return s, nil
+}
