@@ -1,0 +1,692 @@
+package v1alpha1
+
+import (
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+)
+
+// ConcurrencyPolicy says what to do when a run is due while another run of the portfolio is active.
+// +kubebuilder:validation:Enum=Forbid;Replace
+type ConcurrencyPolicy string
+
+const (
+	// ForbidConcurrent skips the due run while another is active and records that in an Event.
+	ForbidConcurrent ConcurrencyPolicy = "Forbid"
+	// ReplaceConcurrent stops the active run (its Jobs are deleted) and starts the due one.
+	ReplaceConcurrent ConcurrencyPolicy = "Replace"
+)
+
+// DataFormat is the encoding of input or output tables.
+// +kubebuilder:validation:Enum=csv;parquet
+type DataFormat string
+
+const (
+	// FormatCSV is comma-separated text with a header row.
+	FormatCSV DataFormat = "csv"
+	// FormatParquet is Apache Parquet.
+	FormatParquet DataFormat = "parquet"
+)
+
+// Frequency is the regular spacing of the input series.
+// +kubebuilder:validation:Enum=Hourly;Daily;Weekly;Monthly;Quarterly;Yearly
+type Frequency string
+
+// The supported frequencies.
+const (
+	Hourly    Frequency = "Hourly"
+	Daily     Frequency = "Daily"
+	Weekly    Frequency = "Weekly"
+	Monthly   Frequency = "Monthly"
+	Quarterly Frequency = "Quarterly"
+	Yearly    Frequency = "Yearly"
+)
+
+// Weekday anchors weekly periods.
+// +kubebuilder:validation:Enum=Monday;Tuesday;Wednesday;Thursday;Friday;Saturday;Sunday
+type Weekday string
+
+// ModelFamily names a family of forecasting models in the zoo.
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB
+type ModelFamily string
+
+// The model families.
+const (
+	FamilyMean                  ModelFamily = "Mean"
+	FamilyNaive                 ModelFamily = "Naive"
+	FamilySeasonalNaive         ModelFamily = "SeasonalNaive"
+	FamilyDrift                 ModelFamily = "Drift"
+	FamilySeasonalAdjustedNaive ModelFamily = "SeasonalAdjustedNaive"
+	FamilyETS                   ModelFamily = "ETS"
+	FamilyTheta                 ModelFamily = "Theta"
+	FamilyCroston               ModelFamily = "Croston"
+	FamilySBA                   ModelFamily = "SBA"
+	FamilyTSB                   ModelFamily = "TSB"
+)
+
+// ErrorMetric is a forecast accuracy measure.
+// +kubebuilder:validation:Enum=MASE;RMSSE;sMAPE;MAPE;MAE;RMSE;WAPE
+type ErrorMetric string
+
+// The error metrics.
+const (
+	MetricMASE  ErrorMetric = "MASE"
+	MetricRMSSE ErrorMetric = "RMSSE"
+	MetricSMAPE ErrorMetric = "sMAPE"
+	MetricMAPE  ErrorMetric = "MAPE"
+	MetricMAE   ErrorMetric = "MAE"
+	MetricRMSE  ErrorMetric = "RMSE"
+	MetricWAPE  ErrorMetric = "WAPE"
+)
+
+// CombineMethod is how the forecasts of the best members are combined.
+// +kubebuilder:validation:Enum=Mean;Median
+type CombineMethod string
+
+// The combination methods.
+const (
+	CombineMean   CombineMethod = "Mean"
+	CombineMedian CombineMethod = "Median"
+)
+
+// DriftAction is what the controller does when accuracy drifts.
+// +kubebuilder:validation:Enum=Report;Retrain
+type DriftAction string
+
+const (
+	// DriftReport only sets the AccuracyDrift condition and emits an Event.
+	DriftReport DriftAction = "Report"
+	// DriftRetrain also starts a run with trigger Drift, at most once per cooldown.
+	DriftRetrain DriftAction = "Retrain"
+)
+
+// ForecastPortfolioSpec is the desired state of a portfolio: where its series live, when to
+// retrain, which models to try, how to choose, how to shard the work and when to call accuracy slipped.
+// +kubebuilder:validation:XValidation:rule="!has(self.selection) || !has(self.selection.combine) || self.selection.combine.top <= size(self.models)",message="selection.combine.top must not exceed the number of models"
+type ForecastPortfolioSpec struct {
+	// schedule is when to retrain, a 5-field cron expression (minute hour day-of-month month
+	// day-of-week) or a macro such as @daily, evaluated in timeZone. Time zones go in timeZone,
+	// not in the schedule.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=128
+	// +kubebuilder:validation:XValidation:rule="!self.contains('TZ')",message="schedule must not set a time zone (TZ= or CRON_TZ=); use spec.timeZone"
+	// +kubebuilder:validation:XValidation:rule="self.matches('^\\\\s*(@(yearly|annually|monthly|weekly|daily|midnight|hourly)|\\\\S+(\\\\s+\\\\S+){4})\\\\s*$')",message="schedule must have 5 fields (minute hour day-of-month month day-of-week) or be a macro like @daily"
+	Schedule string `json:"schedule"`
+
+	// timeZone is the IANA time zone the schedule is read in, e.g. "Europe/Berlin". Default UTC.
+	// Daylight-saving gaps and repeats are handled as Kubernetes CronJob handles them.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	// +kubebuilder:validation:Pattern=`^[A-Za-z][A-Za-z0-9_+\-]*(/[A-Za-z0-9_+\-]+)*$`
+	TimeZone *string `json:"timeZone,omitempty"`
+
+	// suspend stops new scheduled and drift runs; an active run finishes. Default false.
+	// +optional
+	Suspend *bool `json:"suspend,omitempty"`
+
+	// startingDeadlineSeconds is how late a scheduled run may start, e.g. after controller
+	// downtime; a run later than this is skipped and reported as missed. Unset: no deadline.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	StartingDeadlineSeconds *int64 `json:"startingDeadlineSeconds,omitempty"`
+
+	// concurrencyPolicy says what happens when a run is due while another is active:
+	// Forbid (default) skips it, Replace stops the active run and starts the new one.
+	// +optional
+	// +kubebuilder:default=Forbid
+	ConcurrencyPolicy ConcurrencyPolicy `json:"concurrencyPolicy,omitempty"`
+
+	// successfulRunsHistoryLimit is how many succeeded ForecastRuns to keep. Default 3.
+	// +optional
+	// +kubebuilder:default=3
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	SuccessfulRunsHistoryLimit *int32 `json:"successfulRunsHistoryLimit,omitempty"`
+
+	// failedRunsHistoryLimit is how many failed ForecastRuns to keep. Default 1.
+	// +optional
+	// +kubebuilder:default=1
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	FailedRunsHistoryLimit *int32 `json:"failedRunsHistoryLimit,omitempty"`
+
+	// source says where the input series live and how to read them.
+	// +required
+	Source DataSource `json:"source"`
+
+	// output says where forecasts are published.
+	// +required
+	Output DataOutput `json:"output"`
+
+	// horizon is how many periods ahead to forecast.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=1000
+	Horizon int32 `json:"horizon"`
+
+	// quantilePercents are the forecast quantiles to publish, as integer percents strictly
+	// increasing in 1..99, e.g. [10, 50, 90]. Default [10, 50, 90].
+	// +optional
+	// +kubebuilder:default={10,50,90}
+	// +kubebuilder:validation:MaxItems=19
+	// +kubebuilder:validation:items:Minimum=1
+	// +kubebuilder:validation:items:Maximum=99
+	// +kubebuilder:validation:XValidation:rule="self.all(i, self.exists_one(j, j == i)) && self.isSorted()",message="quantilePercents must be strictly increasing"
+	QuantilePercents []int32 `json:"quantilePercents,omitempty"`
+
+	// models is the zoo: every member is fitted to every series and backtested; the best per
+	// series (or a combination) is published. Listed from simplest to most complex: ties go to
+	// the earlier member.
+	// +required
+	// +kubebuilder:validation:MinItems=1
+	// +kubebuilder:validation:MaxItems=32
+	// +kubebuilder:validation:XValidation:rule="self.all(m, self.exists_one(n, (has(n.name) ? n.name : n.family) == (has(m.name) ? m.name : m.family)))",message="models must have unique names (name defaults to family)"
+	Models []ModelSpec `json:"models"`
+
+	// selection says how the best model per series is chosen.
+	// +optional
+	Selection SelectionSpec `json:"selection,omitempty"`
+
+	// sharding limits how the work is cut and how many trainer pods run at once.
+	// +optional
+	Sharding ShardingSpec `json:"sharding,omitempty"`
+
+	// trainer describes the trainer pods.
+	// +required
+	Trainer TrainerSpec `json:"trainer"`
+
+	// drift says when realized accuracy counts as slipped against what the backtest promised.
+	// +optional
+	Drift DriftSpec `json:"drift,omitempty"`
+}
+
+// DataSource locates the input table (long format: one row per series and period).
+type DataSource struct {
+	// uri is a blob URL of one object or a prefix ending in "/": file://, s3://, gs://, azblob://
+	// or mem://. For s3 an endpoint may be given as a query parameter.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=2048
+	// +kubebuilder:validation:XValidation:rule="self.matches('^(file|s3|gs|azblob|mem)://')",message="uri must start with file://, s3://, gs://, azblob:// or mem://"
+	// +kubebuilder:validation:XValidation:rule="!self.contains('/../') && !self.endsWith('/..')",message="uri must not contain '..' path segments"
+	URI string `json:"uri"`
+
+	// format is the input encoding: csv (with a header row) or parquet. Default csv.
+	// +optional
+	// +kubebuilder:default=csv
+	Format DataFormat `json:"format,omitempty"`
+
+	// columns maps the input table's columns.
+	// +optional
+	Columns ColumnMapping `json:"columns,omitempty"`
+
+	// frequency is the spacing of the periods.
+	// +required
+	Frequency Frequency `json:"frequency"`
+
+	// weekAnchor is the weekday weekly periods start on. Default Monday. Only for Weekly.
+	// +optional
+	WeekAnchor Weekday `json:"weekAnchor,omitempty"`
+
+	// dateLayout is the layout of the date column as a Go reference-time layout, e.g.
+	// "02/01/2006". Default: ISO 8601 dates or date-times.
+	// +optional
+	// +kubebuilder:validation:MaxLength=64
+	DateLayout string `json:"dateLayout,omitempty"`
+
+	// nonNegative marks the values as demand that cannot be negative: negative values are
+	// cleaned and forecasts and quantiles are clipped at zero. Default true.
+	// +optional
+	// +kubebuilder:default=true
+	NonNegative *bool `json:"nonNegative,omitempty"`
+
+	// credentialsSecretRef names a Secret in the portfolio's namespace whose keys are passed to
+	// the trainer pods as environment variables (e.g. AWS_ACCESS_KEY_ID). The controller only
+	// checks that it exists; it never reads the data.
+	// +optional
+	CredentialsSecretRef *SecretReference `json:"credentialsSecretRef,omitempty"`
+}
+
+// SecretReference names a Secret in the same namespace as the referring object.
+type SecretReference struct {
+	// name of the Secret.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=253
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$`
+	Name string `json:"name"`
+}
+
+// ColumnMapping names the input columns.
+// +kubebuilder:validation:XValidation:rule="!has(self.series) || !has(self.covariates) || self.covariates.all(c, !(c in self.series))",message="covariates must not repeat a series key column"
+// +kubebuilder:validation:XValidation:rule="(has(self.date) ? self.date : 'date') != (has(self.value) ? self.value : 'value')",message="date and value must be different columns"
+type ColumnMapping struct {
+	// series are the key columns; together they identify a series (e.g. ["item", "depot"]).
+	// Default ["series"].
+	// +optional
+	// +kubebuilder:default={series}
+	// +kubebuilder:validation:MinItems=1
+	// +kubebuilder:validation:MaxItems=8
+	// +kubebuilder:validation:items:MinLength=1
+	// +kubebuilder:validation:XValidation:rule="self.all(c, self.exists_one(d, d == c))",message="series key columns must be unique"
+	Series []string `json:"series,omitempty"`
+
+	// date is the period column. Default "date".
+	// +optional
+	// +kubebuilder:default=date
+	// +kubebuilder:validation:MinLength=1
+	Date string `json:"date,omitempty"`
+
+	// value is the observation column. Default "value".
+	// +optional
+	// +kubebuilder:default=value
+	// +kubebuilder:validation:MinLength=1
+	Value string `json:"value,omitempty"`
+
+	// covariates are extra numeric columns carried with each series (prices, promotions).
+	// +optional
+	// +kubebuilder:validation:MaxItems=64
+	// +kubebuilder:validation:items:MinLength=1
+	Covariates []string `json:"covariates,omitempty"`
+}
+
+// DataOutput says where and how results are written.
+type DataOutput struct {
+	// uri is the blob URL prefix runs are written under (runs/<run>/..., latest.json).
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=2048
+	// +kubebuilder:validation:XValidation:rule="self.matches('^(file|s3|gs|azblob|mem)://')",message="uri must start with file://, s3://, gs://, azblob:// or mem://"
+	// +kubebuilder:validation:XValidation:rule="!self.contains('/../') && !self.endsWith('/..')",message="uri must not contain '..' path segments"
+	URI string `json:"uri"`
+
+	// format of the published tables: parquet (default) or csv.
+	// +optional
+	// +kubebuilder:default=parquet
+	Format DataFormat `json:"format,omitempty"`
+}
+
+// ModelSpec is one member of the zoo.
+// +kubebuilder:validation:XValidation:rule="!has(self.ets) || self.family == 'ETS'",message="ets settings are only for family ETS"
+// +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || self.family in ['Croston', 'SBA', 'TSB']",message="smoothing settings are only for families Croston, SBA and TSB"
+// +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || !has(self.smoothing.beta) || self.family == 'TSB'",message="smoothing.beta is only for family TSB"
+type ModelSpec struct {
+	// family of the model.
+	// +required
+	Family ModelFamily `json:"family"`
+
+	// name is the member's unique name in the zoo and in outputs. Default: the family.
+	// +optional
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[A-Za-z][A-Za-z0-9_.-]*$`
+	Name string `json:"name,omitempty"`
+
+	// seasonLength overrides the season length implied by the frequency (Hourly 24, Daily 7,
+	// Weekly 52, Monthly 12, Quarterly 4, Yearly 1). 1 means no season.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=8784
+	SeasonLength *int32 `json:"seasonLength,omitempty"`
+
+	// ets restricts the exponential-smoothing forms searched. Default: every admissible form.
+	// +optional
+	ETS *ETSSettings `json:"ets,omitempty"`
+
+	// smoothing fixes the smoothing weights of the intermittent-demand families. Default: estimated.
+	// +optional
+	Smoothing *SmoothingSettings `json:"smoothing,omitempty"`
+}
+
+// ETSComponent is the code of one ETS component form.
+// +kubebuilder:validation:Enum=N;A;Ad;M
+type ETSComponent string
+
+// ETSSettings restricts the forms of the automatic ETS search (Hyndman et al. 2008 taxonomy).
+type ETSSettings struct {
+	// errors lists the error forms to try: A (additive), M (multiplicative). Default both.
+	// +optional
+	// +kubebuilder:validation:MaxItems=2
+	// +kubebuilder:validation:XValidation:rule="self.all(c, c in ['A', 'M'])",message="errors may only be A or M"
+	Errors []ETSComponent `json:"errors,omitempty"`
+
+	// trends lists the trend forms: N (none), A (additive), Ad (damped additive). Default all.
+	// +optional
+	// +kubebuilder:validation:MaxItems=3
+	// +kubebuilder:validation:XValidation:rule="self.all(c, c in ['N', 'A', 'Ad'])",message="trends may only be N, A or Ad"
+	Trends []ETSComponent `json:"trends,omitempty"`
+
+	// seasons lists the season forms: N (none), A (additive), M (multiplicative). Default all.
+	// +optional
+	// +kubebuilder:validation:MaxItems=3
+	// +kubebuilder:validation:XValidation:rule="self.all(c, c in ['N', 'A', 'M'])",message="seasons may only be N, A or M"
+	Seasons []ETSComponent `json:"seasons,omitempty"`
+}
+
+// SmoothingSettings fixes smoothing weights, as decimal strings in (0, 1].
+type SmoothingSettings struct {
+	// alpha smooths demand sizes (and intervals for Croston and SBA), e.g. "0.1".
+	// +optional
+	// +kubebuilder:validation:Pattern=`^(0?\.[0-9]{1,6}|1(\.0{1,6})?)$`
+	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0",message="alpha must be greater than 0"
+	Alpha string `json:"alpha,omitempty"`
+
+	// beta smooths the demand probability of TSB, e.g. "0.05".
+	// +optional
+	// +kubebuilder:validation:Pattern=`^(0?\.[0-9]{1,6}|1(\.0{1,6})?)$`
+	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0",message="beta must be greater than 0"
+	Beta string `json:"beta,omitempty"`
+}
+
+// SelectionSpec says how each series' model is chosen.
+type SelectionSpec struct {
+	// metric ranks the zoo members by backtest error. Default MASE (Hyndman & Koehler 2006).
+	// +optional
+	// +kubebuilder:default=MASE
+	Metric ErrorMetric `json:"metric,omitempty"`
+
+	// backtestOrigins is the number of rolling forecast origins per series. Default 3.
+	// +optional
+	// +kubebuilder:default=3
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=52
+	BacktestOrigins int32 `json:"backtestOrigins,omitempty"`
+
+	// backtestStep is the number of periods between rolling origins. Default 1.
+	// +optional
+	// +kubebuilder:default=1
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=366
+	BacktestStep int32 `json:"backtestStep,omitempty"`
+
+	// combine, when set, also scores the combination of the best members and publishes it
+	// for series where it backtests best.
+	// +optional
+	Combine *CombineSpec `json:"combine,omitempty"`
+}
+
+// CombineSpec configures forecast combination.
+type CombineSpec struct {
+	// top is how many of the best members to combine.
+	// +required
+	// +kubebuilder:validation:Minimum=2
+	// +kubebuilder:validation:Maximum=10
+	Top int32 `json:"top"`
+
+	// method combines their forecasts: Mean (default) or Median.
+	// +optional
+	// +kubebuilder:default=Mean
+	Method CombineMethod `json:"method,omitempty"`
+}
+
+// ShardingSpec limits how work is cut and run.
+type ShardingSpec struct {
+	// targetSeriesPerShard is about how many series one trainer pod trains. Default 2000.
+	// +optional
+	// +kubebuilder:default=2000
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=10000000
+	TargetSeriesPerShard int32 `json:"targetSeriesPerShard,omitempty"`
+
+	// maxParallel caps how many trainer pods of a run run at once. The controller gives each
+	// active run parallelism = min(maxParallel, unfinished shards, its weighted share of the
+	// manager's budget). Default 8.
+	// +optional
+	// +kubebuilder:default=8
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=10000
+	MaxParallel int32 `json:"maxParallel,omitempty"`
+
+	// shareWeight is this portfolio's weight when active runs share the manager's budget of
+	// concurrent shards. Default 1.
+	// +optional
+	// +kubebuilder:default=1
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=100
+	ShareWeight int32 `json:"shareWeight,omitempty"`
+
+	// retriesPerShard is how many times a failing shard is retried (per-index backoff limit).
+	// Default 2.
+	// +optional
+	// +kubebuilder:default=2
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=20
+	RetriesPerShard *int32 `json:"retriesPerShard,omitempty"`
+
+	// maxFailedShards is how many shards may fail for good while the run still publishes,
+	// carrying forward their previous forecasts (the run is then Degraded). Default 0.
+	// +optional
+	// +kubebuilder:default=0
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100000
+	MaxFailedShards *int32 `json:"maxFailedShards,omitempty"`
+
+	// activeDeadlineSeconds bounds each of the run's Jobs. Unset: no bound.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	ActiveDeadlineSeconds *int64 `json:"activeDeadlineSeconds,omitempty"`
+}
+
+// TrainerSpec describes the trainer pods.
+type TrainerSpec struct {
+	// image is the almanac-trainer container image.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=512
+	Image string `json:"image"`
+
+	// imagePullPolicy of the trainer container. Default IfNotPresent.
+	// +optional
+	ImagePullPolicy corev1.PullPolicy `json:"imagePullPolicy,omitempty"`
+
+	// resources of the trainer container.
+	// +optional
+	Resources corev1.ResourceRequirements `json:"resources,omitempty"`
+
+	// nodeSelector constrains the trainer pods to matching nodes.
+	// +optional
+	NodeSelector map[string]string `json:"nodeSelector,omitempty"`
+
+	// tolerations of the trainer pods.
+	// +optional
+	// +listType=atomic
+	Tolerations []corev1.Toleration `json:"tolerations,omitempty"`
+
+	// priorityClassName of the trainer pods.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	PriorityClassName string `json:"priorityClassName,omitempty"`
+
+	// serviceAccountName runs the trainer pods under this ServiceAccount of the namespace (no
+	// API token is mounted). Default: the namespace's default ServiceAccount.
+	// +optional
+	// +kubebuilder:validation:MaxLength=253
+	ServiceAccountName string `json:"serviceAccountName,omitempty"`
+
+	// ttlSecondsAfterFinished deletes the run's finished Jobs after this long. Default 86400.
+	// +optional
+	// +kubebuilder:default=86400
+	// +kubebuilder:validation:Minimum=0
+	TTLSecondsAfterFinished *int32 `json:"ttlSecondsAfterFinished,omitempty"`
+}
+
+// DriftSpec says when accuracy counts as slipped. Realized error is measured on the new actuals
+// that arrived since the previous run's forecasts; expected error is what that run's backtest
+// promised, in the same metric. Drift is realized/expected above thresholdPercent/100.
+type DriftSpec struct {
+	// metric compares expected and realized error. Default: the selection metric.
+	// +optional
+	Metric ErrorMetric `json:"metric,omitempty"`
+
+	// thresholdPercent: accuracy drifts when realized error exceeds this percent of expected
+	// error (e.g. 130 = 30% worse than promised). Must be above 100. Default 130.
+	// +optional
+	// +kubebuilder:default=130
+	// +kubebuilder:validation:Minimum=101
+	// +kubebuilder:validation:Maximum=10000
+	ThresholdPercent int32 `json:"thresholdPercent,omitempty"`
+
+	// minEvaluatedPoints is the fewest new (series, period) actuals needed before the
+	// portfolio's drift is judged. Default 100.
+	// +optional
+	// +kubebuilder:default=100
+	// +kubebuilder:validation:Minimum=1
+	MinEvaluatedPoints int32 `json:"minEvaluatedPoints,omitempty"`
+
+	// action on drift: Report (default) or Retrain.
+	// +optional
+	// +kubebuilder:default=Report
+	Action DriftAction `json:"action,omitempty"`
+
+	// cooldownSeconds is the least time between two drift-triggered runs. Default 21600.
+	// +optional
+	// +kubebuilder:default=21600
+	// +kubebuilder:validation:Minimum=0
+	CooldownSeconds *int64 `json:"cooldownSeconds,omitempty"`
+}
+
+// Condition types of a ForecastPortfolio.
+const (
+	// PortfolioReady is True when the spec is valid and the last run published.
+	PortfolioReady = "Ready"
+	// PortfolioReconciling is True while a run is active.
+	PortfolioReconciling = "Reconciling"
+	// PortfolioStalled is True when the controller cannot make progress without a user fix.
+	PortfolioStalled = "Stalled"
+	// PortfolioAccuracyDrift is True when realized accuracy slipped past the threshold.
+	PortfolioAccuracyDrift = "AccuracyDrift"
+)
+
+// Condition reasons of a ForecastPortfolio, shared with Events.
+const (
+	ReasonInvalidSchedule  = "InvalidSchedule"
+	ReasonInvalidTimeZone  = "InvalidTimeZone"
+	ReasonMissingSecret    = "MissingSecret"
+	ReasonRunActive        = "RunActive"
+	ReasonRunSucceeded     = "RunSucceeded"
+	ReasonRunFailed        = "RunFailed"
+	ReasonNoRunYet         = "NoRunYet"
+	ReasonSuspended        = "Suspended"
+	ReasonWithinThreshold  = "WithinThreshold"
+	ReasonAboveThreshold   = "AboveThreshold"
+	ReasonTooFewPoints     = "TooFewPoints"
+	ReasonNotEvaluated     = "NotEvaluated"
+	ReasonSpecValid        = "SpecValid"
+	ReasonMissedSchedule   = "MissedSchedule"
+	ReasonSkippedForbidden = "SkippedForbidden"
+)
+
+// ForecastPortfolioStatus is the observed state of a portfolio.
+type ForecastPortfolioStatus struct {
+	// observedGeneration is the spec generation this status was computed from.
+	// +optional
+	ObservedGeneration int64 `json:"observedGeneration,omitempty"`
+
+	// conditions: Ready, Reconciling, Stalled, AccuracyDrift.
+	// +optional
+	// +listType=map
+	// +listMapKey=type
+	Conditions []metav1.Condition `json:"conditions,omitempty"`
+
+	// lastScheduleTime is the schedule time of the last run started by the schedule.
+	// +optional
+	LastScheduleTime *metav1.Time `json:"lastScheduleTime,omitempty"`
+
+	// nextScheduleTime is when the next scheduled run is due.
+	// +optional
+	NextScheduleTime *metav1.Time `json:"nextScheduleTime,omitempty"`
+
+	// lastSuccessfulRun is the name of the newest run that published.
+	// +optional
+	LastSuccessfulRun string `json:"lastSuccessfulRun,omitempty"`
+
+	// lastSuccessfulTime is when that run completed.
+	// +optional
+	LastSuccessfulTime *metav1.Time `json:"lastSuccessfulTime,omitempty"`
+
+	// active lists the runs in progress.
+	// +optional
+	// +listType=atomic
+	Active []corev1.LocalObjectReference `json:"active,omitempty"`
+
+	// backlog is the work still to do in active runs.
+	// +optional
+	Backlog Backlog `json:"backlog,omitempty"`
+
+	// accuracy is expected vs realized accuracy as of the newest run that evaluated any.
+	// +optional
+	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
+
+	// lastDriftRunTime is when the last drift-triggered run was started (for the cooldown).
+	// +optional
+	LastDriftRunTime *metav1.Time `json:"lastDriftRunTime,omitempty"`
+}
+
+// Backlog is the work still to do.
+type Backlog struct {
+	// shards not yet finished in active runs.
+	Shards int32 `json:"shards"`
+	// series not yet trained in active runs (from the plan's estimate).
+	Series int64 `json:"series"`
+}
+
+// AccuracyStatus compares the accuracy a run's backtest promised with what it achieved on the
+// actuals that arrived afterwards. Values are decimal strings (no floats in the API).
+type AccuracyStatus struct {
+	// metric of both values.
+	Metric ErrorMetric `json:"metric,omitempty"`
+	// expected is the mean backtest error of the evaluated series' published models.
+	Expected string `json:"expected,omitempty"`
+	// realized is their mean error on the new actuals.
+	Realized string `json:"realized,omitempty"`
+	// ratio is realized / expected.
+	Ratio string `json:"ratio,omitempty"`
+	// evaluatedSeries is how many series had new actuals to compare.
+	EvaluatedSeries int64 `json:"evaluatedSeries,omitempty"`
+	// evaluatedPoints is how many (series, period) actuals were compared.
+	EvaluatedPoints int64 `json:"evaluatedPoints,omitempty"`
+	// driftedSeries is how many series were individually above the threshold.
+	DriftedSeries int64 `json:"driftedSeries,omitempty"`
+	// run is the run that measured these values.
+	Run string `json:"run,omitempty"`
+}
+
+// +kubebuilder:object:root=true
+// +kubebuilder:subresource:status
+// +kubebuilder:resource:shortName=fp,categories=almanac
+// +kubebuilder:printcolumn:name="Ready",type=string,JSONPath=`.status.conditions[?(@.type=="Ready")].status`
+// +kubebuilder:printcolumn:name="Schedule",type=string,JSONPath=`.spec.schedule`
+// +kubebuilder:printcolumn:name="Suspend",type=boolean,JSONPath=`.spec.suspend`,priority=1
+// +kubebuilder:printcolumn:name="Last Schedule",type=date,JSONPath=`.status.lastScheduleTime`
+// +kubebuilder:printcolumn:name="Last Run",type=string,JSONPath=`.status.lastSuccessfulRun`
+// +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
+// +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
+// +kubebuilder:printcolumn:name="Drift",type=string,JSONPath=`.status.conditions[?(@.type=="AccuracyDrift")].status`
+// +kubebuilder:printcolumn:name="Next",type=date,JSONPath=`.status.nextScheduleTime`,priority=1
+// +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
+
+// ForecastPortfolio declares a portfolio of series to keep forecast: where they live, when to
+// retrain, the model zoo, the selection rule, sharding limits and drift thresholds.
+type ForecastPortfolio struct {
+	metav1.TypeMeta   `json:",inline"`
+	metav1.ObjectMeta `json:"metadata,omitempty"`
+
+	// spec is the desired state.
+	// +required
+	Spec ForecastPortfolioSpec `json:"spec"`
+	// status is the observed state, written by the controller only.
+	// +optional
+	Status ForecastPortfolioStatus `json:"status,omitempty"`
+}
+
+// +kubebuilder:object:root=true
+
+// ForecastPortfolioList is a list of ForecastPortfolio.
+type ForecastPortfolioList struct {
+	metav1.TypeMeta `json:",inline"`
+	metav1.ListMeta `json:"metadata,omitempty"`
+	Items           []ForecastPortfolio `json:"items"`
+}
+
+func init() {
+	SchemeBuilder.Register(&ForecastPortfolio{}, &ForecastPortfolioList{})
+}

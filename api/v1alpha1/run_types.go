@@ -1,0 +1,235 @@
+package v1alpha1
+
+import (
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+)
+
+// RunTrigger says why a run was started.
+// +kubebuilder:validation:Enum=Schedule;Manual;Drift
+type RunTrigger string
+
+const (
+	// TriggerSchedule: the portfolio's schedule was due.
+	TriggerSchedule RunTrigger = "Schedule"
+	// TriggerManual: a user created the run.
+	TriggerManual RunTrigger = "Manual"
+	// TriggerDrift: the previous run reported accuracy drift and the drift action is Retrain.
+	TriggerDrift RunTrigger = "Drift"
+)
+
+// RunPhase is a one-word summary of a run for `kubectl get`. It is derived from the conditions
+// and never read back by the controller.
+// +kubebuilder:validation:Enum=Pending;Planning;Training;Publishing;Succeeded;Failed
+type RunPhase string
+
+// The run phases.
+const (
+	PhasePending    RunPhase = "Pending"
+	PhasePlanning   RunPhase = "Planning"
+	PhaseTraining   RunPhase = "Training"
+	PhasePublishing RunPhase = "Publishing"
+	PhaseSucceeded  RunPhase = "Succeeded"
+	PhaseFailed     RunPhase = "Failed"
+)
+
+// ForecastRunSpec identifies one retraining of a portfolio. It is immutable.
+// +kubebuilder:validation:XValidation:rule="self == oldSelf",message="spec is immutable"
+// +kubebuilder:validation:XValidation:rule="self.trigger != 'Schedule' || has(self.scheduledTime)",message="scheduledTime is required when trigger is Schedule"
+type ForecastRunSpec struct {
+	// portfolioName is the ForecastPortfolio, in the same namespace, this run retrains.
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=253
+	// +kubebuilder:validation:Pattern=`^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$`
+	PortfolioName string `json:"portfolioName"`
+
+	// trigger says why the run exists: Schedule, Manual (default: a user created it) or Drift.
+	// +optional
+	// +kubebuilder:default=Manual
+	Trigger RunTrigger `json:"trigger,omitempty"`
+
+	// scheduledTime is the schedule time the run stands for (required for trigger Schedule).
+	// +optional
+	ScheduledTime *metav1.Time `json:"scheduledTime,omitempty"`
+}
+
+// Condition types of a ForecastRun.
+const (
+	// RunSucceeded is True when the run published, False when it failed for good.
+	RunSucceeded = "Succeeded"
+	// RunDegraded is True when some shards failed and their previous forecasts were carried forward.
+	RunDegraded = "Degraded"
+	// RunProgressing is True while the run's Jobs are working.
+	RunProgressing = "Progressing"
+)
+
+// Condition reasons of a ForecastRun, shared with Events.
+const (
+	ReasonConfigRendered    = "ConfigRendered"
+	ReasonPlanning          = "Planning"
+	ReasonPlanFailed        = "PlanFailed"
+	ReasonTraining          = "Training"
+	ReasonTooManyFailures   = "TooManyShardFailures"
+	ReasonPublishing        = "Publishing"
+	ReasonPublishFailed     = "PublishFailed"
+	ReasonPublished         = "Published"
+	ReasonShardsFailed      = "ShardsFailed"
+	ReasonAllShardsTrained  = "AllShardsTrained"
+	ReasonPortfolioNotFound = "PortfolioNotFound"
+	ReasonReplaced          = "Replaced"
+	ReasonDeadlineExceeded  = "DeadlineExceeded"
+)
+
+// ForecastRunStatus is the observed state of a run.
+type ForecastRunStatus struct {
+	// observedGeneration is the spec generation this status was computed from.
+	// +optional
+	ObservedGeneration int64 `json:"observedGeneration,omitempty"`
+
+	// phase is a one-word summary derived from the conditions, for display.
+	// +optional
+	Phase RunPhase `json:"phase,omitempty"`
+
+	// conditions: Succeeded, Progressing, Degraded.
+	// +optional
+	// +listType=map
+	// +listMapKey=type
+	Conditions []metav1.Condition `json:"conditions,omitempty"`
+
+	// portfolioGeneration is the portfolio generation the run's configuration was resolved from.
+	// +optional
+	PortfolioGeneration int64 `json:"portfolioGeneration,omitempty"`
+
+	// configMapName holds the resolved run configuration mounted into every trainer pod.
+	// +optional
+	ConfigMapName string `json:"configMapName,omitempty"`
+
+	// startTime is when the controller started working on the run.
+	// +optional
+	StartTime *metav1.Time `json:"startTime,omitempty"`
+
+	// completionTime is when the run succeeded or failed.
+	// +optional
+	CompletionTime *metav1.Time `json:"completionTime,omitempty"`
+
+	// shards counts the run's shards.
+	// +optional
+	Shards ShardCounts `json:"shards,omitempty"`
+
+	// series counts the run's series.
+	// +optional
+	Series SeriesCounts `json:"series,omitempty"`
+
+	// parallelism is the number of trainer pods the controller last allowed at once.
+	// +optional
+	Parallelism int32 `json:"parallelism,omitempty"`
+
+	// models counts series by chosen model family.
+	// +optional
+	// +listType=map
+	// +listMapKey=model
+	Models []ModelCount `json:"models,omitempty"`
+
+	// accuracy compares the previous run's promised and realized accuracy on this run's new actuals.
+	// +optional
+	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
+
+	// accuracySums holds the exact error sums the accuracy block is computed from, as decimal
+	// strings, so that folding more shards stays exact.
+	// +optional
+	AccuracySums *AccuracySums `json:"accuracySums,omitempty"`
+
+	// output is where the run's results are.
+	// +optional
+	Output string `json:"output,omitempty"`
+}
+
+// ShardCounts counts shards of a run.
+type ShardCounts struct {
+	// total shards in the plan.
+	Total int32 `json:"total"`
+	// active shards with a running pod.
+	Active int32 `json:"active"`
+	// succeeded shards.
+	Succeeded int32 `json:"succeeded"`
+	// failed shards (out of retries).
+	Failed int32 `json:"failed"`
+	// folded is the set of shard indexes whose summaries are in this status, as ranges like "0-4,7".
+	// +optional
+	Folded string `json:"folded,omitempty"`
+	// failedIndexes is the set of shard indexes that failed for good, as ranges.
+	// +optional
+	FailedIndexes string `json:"failedIndexes,omitempty"`
+}
+
+// SeriesCounts counts series of a run.
+type SeriesCounts struct {
+	// total series seen by the shards folded so far.
+	Total int64 `json:"total"`
+	// trained series that got a forecast.
+	Trained int64 `json:"trained"`
+	// rejected series that could not be used (reasons in the run's rejected.csv files).
+	Rejected int64 `json:"rejected"`
+	// carriedForward units whose previous forecast was republished because their shard failed.
+	// +optional
+	CarriedForward int64 `json:"carriedForward,omitempty"`
+}
+
+// ModelCount is how many series chose one model family.
+type ModelCount struct {
+	// model family.
+	Model string `json:"model"`
+	// series that chose it.
+	Series int64 `json:"series"`
+}
+
+// AccuracySums are running sums (decimal strings) behind an AccuracyStatus.
+type AccuracySums struct {
+	Metric          string `json:"metric,omitempty"`
+	Evaluated       int64  `json:"evaluated"`
+	EvaluatedPoints int64  `json:"evaluatedPoints"`
+	ExpectedSum     string `json:"expectedSum"`
+	RealizedSum     string `json:"realizedSum"`
+	Drifted         int64  `json:"drifted"`
+}
+
+// +kubebuilder:object:root=true
+// +kubebuilder:subresource:status
+// +kubebuilder:resource:shortName=frun,categories=almanac
+// +kubebuilder:printcolumn:name="Portfolio",type=string,JSONPath=`.spec.portfolioName`
+// +kubebuilder:printcolumn:name="Trigger",type=string,JSONPath=`.spec.trigger`
+// +kubebuilder:printcolumn:name="Phase",type=string,JSONPath=`.status.phase`
+// +kubebuilder:printcolumn:name="Shards",type=integer,JSONPath=`.status.shards.total`
+// +kubebuilder:printcolumn:name="Done",type=integer,JSONPath=`.status.shards.succeeded`
+// +kubebuilder:printcolumn:name="Failed",type=integer,JSONPath=`.status.shards.failed`,priority=1
+// +kubebuilder:printcolumn:name="Series",type=integer,JSONPath=`.status.series.trained`
+// +kubebuilder:printcolumn:name="Parallel",type=integer,JSONPath=`.status.parallelism`,priority=1
+// +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
+// +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
+// +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
+
+// ForecastRun is one retraining of a ForecastPortfolio: plan, train shards, publish.
+type ForecastRun struct {
+	metav1.TypeMeta   `json:",inline"`
+	metav1.ObjectMeta `json:"metadata,omitempty"`
+
+	// spec identifies the run; immutable.
+	// +required
+	Spec ForecastRunSpec `json:"spec"`
+	// status is the observed state, written by the controller only.
+	// +optional
+	Status ForecastRunStatus `json:"status,omitempty"`
+}
+
+// +kubebuilder:object:root=true
+
+// ForecastRunList is a list of ForecastRun.
+type ForecastRunList struct {
+	metav1.TypeMeta `json:",inline"`
+	metav1.ListMeta `json:"metadata,omitempty"`
+	Items           []ForecastRun `json:"items"`
+}
+
+func init() {
+	SchemeBuilder.Register(&ForecastRun{}, &ForecastRunList{})
+}
