@@ -1,0 +1,106 @@
+package models
+
+import (
+	"fmt"
+	"math"
+)
+
+func init() {
+	Register(FamilySeasonalAdjustedNaive, func(s Spec) (Model, error) { return adjNaiveModel{spec: s}, nil })
+}
+
+// adjNaiveModel is the M3 competition's Naive2 benchmark (Makridakis & Hibon 2000): naive
+// forecasts of the seasonally adjusted series, reseasonalised.
+//
+//	a_t = y_t / S_{t mod m}                 (SeasonalIndices; S ≡ 1 when not seasonal)
+//	ŷ_{n+h} = a_n · S_{(n+h−1) mod m}       (t counted from 0)
+//	σ̂_h  = σ̂_a √h · S_{(n+h−1) mod m},     σ̂_a² = Σ (a_t − a_{t−1})² / (n−1)
+//
+// The band is the naive band of the adjusted series scaled by the index, which is exact when
+// the indices are taken as known. Series shorter than 3m or failing the 90% test are modelled
+// unadjusted; Params()["seasonal"] records 1 or 0 and the Name carries "(seasonal m=...)" only
+// when adjustment was applied. Needs n >= 2.
+type adjNaiveModel struct{ spec Spec }
+
+func (adjNaiveModel) Family() string      { return FamilySeasonalAdjustedNaive }
+func (adjNaiveModel) MinLength(m int) int { return 2 }
+
+func (a adjNaiveModel) Fit(y []float64, m int) (Fitted, error) {
+	const family = FamilySeasonalAdjustedNaive
+	n := len(y)
+	if n < 2 {
+		return nil, tooShort(family, n, 2)
+	}
+	if err := checkFinite(family, y); err != nil {
+		return nil, err
+	}
+	m = seasonFor(a.spec, m)
+	idx, seasonal := SeasonalIndices(y, m)
+	f := &adjNaiveFit{name: a.spec.DisplayName(), n: n, idx: idx, fitted: nanSlice(n)}
+	prev := y[0]
+	if seasonal {
+		prev /= idx[0]
+	}
+	var ss float64
+	for t := 1; t < n; t++ {
+		cur, s := y[t], 1.0
+		if seasonal {
+			s = idx[t%m]
+			cur /= s
+		}
+		e := cur - prev
+		ss += e * e
+		f.fitted[t] = prev * s
+		prev = cur
+	}
+	f.last = prev
+	f.sigma = math.Sqrt(ss / float64(n-1))
+	return f, nil
+}
+
+type adjNaiveFit struct {
+	name   string
+	n      int
+	idx    []float64 // nil when not seasonal
+	last   float64   // a_n
+	sigma  float64   // σ̂_a
+	fitted []float64
+}
+
+func (f *adjNaiveFit) Name() string {
+	if f.idx != nil {
+		return fmt.Sprintf("%s(seasonal m=%d)", f.name, len(f.idx))
+	}
+	return f.name
+}
+
+// Params returns "seasonal" (1 or 0), "sigma" (σ̂_a of the adjusted series), "level" (a_n) and
+// "index<j>" for each seasonal index when seasonal.
+func (f *adjNaiveFit) Params() map[string]float64 {
+	p := map[string]float64{"sigma": f.sigma, "level": f.last, "seasonal": 0}
+	if f.idx != nil {
+		p["seasonal"] = 1
+		for j, s := range f.idx {
+			p[fmt.Sprintf("index%d", j)] = s
+		}
+	}
+	return p
+}
+
+// InSample returns a_{t−1} · S_{t mod m} (NaN at t = 0).
+func (f *adjNaiveFit) InSample() []float64 { return append([]float64(nil), f.fitted...) }
+
+func (f *adjNaiveFit) Forecast(h int, levels []float64) Forecast {
+	checkForecastArgs(h, levels)
+	buf := make([]float64, 2*h)
+	mean, se := buf[:h:h], buf[h:]
+	for k := range mean {
+		s := 1.0
+		if f.idx != nil {
+			s = f.idx[(f.n+k)%len(f.idx)]
+		}
+		mean[k] = f.last * s
+		se[k] = f.sigma * math.Sqrt(float64(k+1)) * s
+	}
+	return Forecast{Mean: mean, Levels: copyLevels(levels), Quantiles: gaussianBands(mean, se, levels, zQuantile)}
+}
