@@ -153,3 +153,16 @@ func deseasonalize(dst, y, idx []float64) {
 		dst[t] = v / idx[t%m]
 	}
 }
+
+// addSeasonParams records p["seasonal"] = 1 and p["index<j>"] = idx[j] when idx is non-nil,
+// p["seasonal"] = 0 otherwise.
+func addSeasonParams(p map[string]float64, idx []float64) {
+	if idx == nil {
+		p["seasonal"] = 0
+		return
+	}
+	p["seasonal"] = 1
+	for j, s := range idx {
+		p[fmt.Sprintf("index%d", j)] = s
+	}
+}

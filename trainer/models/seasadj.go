@@ -77,13 +77,8 @@ func (f *adjNaiveFit) Name() string {
 // Params returns "seasonal" (1 or 0), "sigma" (σ̂_a of the adjusted series), "level" (a_n) and
 // "index<j>" for each seasonal index when seasonal.
 func (f *adjNaiveFit) Params() map[string]float64 {
-	p := map[string]float64{"sigma": f.sigma, "level": f.last, "seasonal": 0}
-	if f.idx != nil {
-		p["seasonal"] = 1
-		for j, s := range f.idx {
-			p[fmt.Sprintf("index%d", j)] = s
-		}
-	}
+	p := map[string]float64{"sigma": f.sigma, "level": f.last}
+	addSeasonParams(p, f.idx)
 	return p
 }
 

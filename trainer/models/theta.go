@@ -195,14 +195,9 @@ func (f *thetaFit) Name() string {
 // "seasonal" (1 or 0) and "index<j>" for each seasonal index when seasonal.
 func (f *thetaFit) Params() map[string]float64 {
 	p := map[string]float64{
-		"alpha": f.alpha, "l0": f.l0, "level": f.level, "drift": f.b, "sigma2": f.sigma2, "seasonal": 0,
+		"alpha": f.alpha, "l0": f.l0, "level": f.level, "drift": f.b, "sigma2": f.sigma2,
 	}
-	if f.idx != nil {
-		p["seasonal"] = 1
-		for j, s := range f.idx {
-			p[fmt.Sprintf("index%d", j)] = s
-		}
-	}
+	addSeasonParams(p, f.idx)
 	return p
 }
 
