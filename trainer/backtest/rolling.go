@@ -1,0 +1,159 @@
+package backtest
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"almanac.dev/almanac/trainer/models"
+)
+
+// ErrNoOrigin is returned by NewPlan when the series is too short for even one origin.
+var ErrNoOrigin = errors.New("backtest: series too short for a rolling origin")
+
+// Plan is a rolling-origin evaluation design (Tashman 2000, "Out-of-sample tests of forecasting
+// accuracy: an analysis and review", IJF 16, section 3: rolling origin, non-updated fits
+// re-estimated at each origin). Origins[i] is the number of observations the model is fitted
+// on at origin i, latest first; every origin forecasts the next Horizon observations.
+type Plan struct {
+	Origins []int
+	Horizon int
+}
+
+// NewPlan lays out up to k origins on a series of n observations for horizon h, step apart:
+//
+//	t_i = n − h' − i·step,  i = 0..k−1,  kept while t_i >= minTrain,
+//	h'  = min(h, n − minTrain)
+//
+// so the latest origin's window ends at the last observation, and the horizon is shortened
+// when the series cannot hold minTrain training points plus h test points. It returns
+// ErrNoOrigin when h' < 1. NewPlan panics when h, k or step is below 1.
+func NewPlan(n, h, k, step, minTrain int) (Plan, error) {
+	if h < 1 || k < 1 || step < 1 {
+		panic(fmt.Sprintf("backtest: NewPlan needs h, k, step >= 1 (got %d, %d, %d)", h, k, step))
+	}
+	if minTrain < 1 {
+		minTrain = 1
+	}
+	hh := min(h, n-minTrain)
+	if hh < 1 {
+		return Plan{}, ErrNoOrigin
+	}
+	p := Plan{Horizon: hh}
+	for i := 0; i < k; i++ {
+		t := n - hh - i*step
+		if t < minTrain {
+			break
+		}
+		p.Origins = append(p.Origins, t)
+	}
+	return p, nil
+}
+
+// Forecasts runs the plan for one model on y with season length m: at each origin t the model
+// is fitted on y[:t] and forecasts Horizon steps. out[i] is origin i's mean forecast. A failed
+// fit or a non-finite forecast at any origin is an error naming the origin.
+func Forecasts(mod models.Model, y []float64, m int, p Plan) ([][]float64, error) {
+	out := make([][]float64, len(p.Origins))
+	for i, t := range p.Origins {
+		fit, err := mod.Fit(y[:t], m)
+		if err != nil {
+			return nil, fmt.Errorf("origin %d (fitted on %d observations): %w", i, t, err)
+		}
+		f := fit.Forecast(p.Horizon, nil).Mean
+		if len(f) != p.Horizon {
+			return nil, fmt.Errorf("origin %d: model returned %d steps, want %d", i, len(f), p.Horizon)
+		}
+		for k, v := range f {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil, fmt.Errorf("origin %d: forecast step %d is %v", i, k+1, v)
+			}
+		}
+		out[i] = f
+	}
+	return out, nil
+}
+
+// Assessment is a scored rolling-origin run.
+type Assessment struct {
+	// Overall is the mean over origins of Score at each origin (origins where the metric is
+	// undefined are left out; NaN when all are).
+	Overall float64
+	// Steps[k] is the metric over all origins' step k+1 forecasts (see Assess).
+	Steps []float64
+	// Errors[i][k] is actual minus forecast at origin i, step k+1.
+	Errors [][]float64
+}
+
+// Assess scores the forecasts of one plan against y. At origin i the in-sample history for
+// the scaled metrics is y[:Origins[i]]. Steps[k] pools the step-(k+1) points of every origin
+// under the metric's own aggregation: a mean of |e|/scale_i for MASE, sqrt of the mean of
+// e²/scale²_i for RMSSE, 100 Σ|e|/Σ|y| for WAPE, and the metric's formula for the others.
+// Assess panics when forecasts does not match the plan.
+func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) Assessment {
+	if len(forecasts) != len(p.Origins) {
+		panic("backtest: Assess needs one forecast per origin")
+	}
+	a := Assessment{Steps: make([]float64, p.Horizon), Errors: make([][]float64, len(p.Origins))}
+	sum, cnt := 0.0, 0
+	scale1 := make([]float64, len(p.Origins))
+	scale2 := make([]float64, len(p.Origins))
+	for i, t := range p.Origins {
+		if len(forecasts[i]) != p.Horizon {
+			panic("backtest: Assess forecast length differs from the plan horizon")
+		}
+		act := y[t : t+p.Horizon]
+		s := Score(metric, act, forecasts[i], y[:t], m)
+		if !math.IsNaN(s) {
+			sum += s
+			cnt++
+		}
+		e := make([]float64, p.Horizon)
+		for k := range e {
+			e[k] = act[k] - forecasts[i][k]
+		}
+		a.Errors[i] = e
+		scale1[i] = NaiveScale(y[:t], m, 1)
+		scale2[i] = NaiveScale(y[:t], m, 2)
+	}
+	a.Overall = math.NaN()
+	if cnt > 0 {
+		a.Overall = sum / float64(cnt)
+	}
+	ys := make([]float64, len(p.Origins))
+	fs := make([]float64, len(p.Origins))
+	for k := 0; k < p.Horizon; k++ {
+		for i, t := range p.Origins {
+			ys[i] = y[t+k]
+			fs[i] = forecasts[i][k]
+		}
+		a.Steps[k] = pooled(metric, ys, fs, scale1, scale2)
+	}
+	return a
+}
+
+// pooled scores points that come from different origins, each with its own in-sample scales.
+func pooled(metric Metric, y, f, scale1, scale2 []float64) float64 {
+	switch metric {
+	case MASE, RMSSE:
+		s, n := 0.0, 0
+		for i := range y {
+			e := math.Abs(y[i] - f[i])
+			if metric == MASE && scale1[i] > 0 {
+				s += e / scale1[i]
+				n++
+			} else if metric == RMSSE && scale2[i] > 0 {
+				s += e * e / scale2[i]
+				n++
+			}
+		}
+		if n == 0 {
+			return math.NaN()
+		}
+		if metric == RMSSE {
+			return math.Sqrt(s / float64(n))
+		}
+		return s / float64(n)
+	}
+	return Score(metric, y, f, nil, 1)
+}

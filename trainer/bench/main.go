@@ -1,0 +1,312 @@
+package bench
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"runtime"
+	"sort"
+	"strings"
+	"syscall"
+	"time"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// EnvM3Dir names the environment variable --m3 reads the data directory from.
+const EnvM3Dir = "ALMANAC_M3_DIR"
+
+// Options is one benchmark run's design.
+type Options struct {
+	Families      []string // empty: every registered family
+	Origins, Step int
+	CombineTop    int
+	CombineMethod string
+	Metric        backtest.Metric
+	Workers       int
+}
+
+// Run forecasts every entry with the selection design in o and scores it. It returns the
+// report and the per-entry results. CPU time (user + system, getrusage) covers the
+// forecasting only and is reported per series in All.CPUMilliseconds. A series whose
+// forecast fails is scored with the naive forecast (last value) and counted in Failed.
+func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.Result, error) {
+	zoo, err := selection.Zoo(o.Families...)
+	if err != nil {
+		return nil, nil, err
+	}
+	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
+		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod}
+	byH := map[int][]int{}
+	var hs []int
+	for i, e := range entries {
+		if _, ok := byH[e.Horizon]; !ok {
+			hs = append(hs, e.Horizon)
+		}
+		byH[e.Horizon] = append(byH[e.Horizon], i)
+	}
+	sort.Ints(hs)
+	results := make([]selection.Result, len(entries))
+	errs := make([]error, len(entries))
+	cpu0 := cpuTime()
+	for _, h := range hs {
+		cfg := base
+		cfg.Horizon = h
+		idx := byH[h]
+		in := make([]series.Series, len(idx))
+		for j, i := range idx {
+			in[j] = entries[i].Series()
+		}
+		err := selection.ForecastMany(ctx, in, cfg, o.Workers, func(j int, r selection.Result, err error) {
+			results[idx[j]], errs[idx[j]] = r, err
+		})
+		if err != nil {
+			return nil, nil, err
+		}
+	}
+	cpu := cpuTime() - cpu0
+	rep := newReport("almanac " + describe(o, zoo))
+	for i, e := range entries {
+		f := results[i].Mean
+		t := rep.tally(e.Category)
+		if errs[i] != nil || len(f) != e.Horizon {
+			f = make([]float64, e.Horizon)
+			for k := range f {
+				f[k] = e.Train[len(e.Train)-1]
+			}
+			t.Failed++
+			rep.All.Failed++
+		} else if x := results[i].Expected; !math.IsNaN(x) {
+			t.Expected += x
+			t.ExpectedN++
+			rep.All.Expected += x
+			rep.All.ExpectedN++
+		}
+		rep.add(e, f)
+	}
+	if len(entries) > 0 {
+		rep.All.CPUMilliseconds = float64(cpu.Microseconds()) / 1000 / float64(len(entries))
+	}
+	return rep, results, nil
+}
+
+func describe(o Options, zoo []models.Spec) string {
+	names := make([]string, len(zoo))
+	for i, s := range zoo {
+		names[i] = s.DisplayName()
+	}
+	return fmt.Sprintf("zoo=%s origins=%d step=%d combine=%d/%s metric=%s", strings.Join(names, ","),
+		o.Origins, o.Step, o.CombineTop, o.CombineMethod, o.Metric)
+}
+
+// cpuTime is this process's user plus system CPU time (getrusage RUSAGE_SELF).
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
+
+// Main is the `bench` command: it loads the M3 data, runs the selection design, prints sMAPE
+// and MASE per category and overall and the CPU milliseconds per series, and ends with exactly
+// one line
+//
+//	all: smape=S mase=M cpu_ms_per_series=C series=N
+//
+// With --json the report is first printed as one JSON line. It returns the process exit code
+// (0 success, 1 failure, 2 usage).
+func Main(args []string, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	dataDir := fs.String("data", "", "directory in the M3 CSV layout (train.csv, test.csv, series.csv, published_forecasts.csv)")
+	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
+	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
+	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
+	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
+	refR := fs.Bool("reference-r", false, "run R forecast's ets and thetaf on the same series and compare (needs Rscript)")
+	limit := fs.Int("limit", 0, "use only the first N series (0: all)")
+	workers := fs.Int("workers", 0, "parallel workers (0: GOMAXPROCS)")
+	origins := fs.Int("origins", selection.DefaultOrigins, "rolling origins per series")
+	step := fs.Int("step", selection.DefaultStep, "distance between origins")
+	combine := fs.Int("combine", 0, "also score the combination of the best N members (0/1: none)")
+	combineMethod := fs.String("combine-method", selection.CombineMean, "combination: mean or median")
+	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
+	if err := fs.Parse(args); err != nil {
+		return 2
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "bench: unexpected arguments %v\n", fs.Args())
+		return 2
+	}
+	dir := *dataDir
+	if dir == "" && *m3 {
+		dir = defaultM3Dir()
+	}
+	if dir == "" {
+		fmt.Fprintln(stderr, "bench: give --data DIR or --m3")
+		return 2
+	}
+	entries, err := Load(dir, *limit)
+	if err != nil {
+		fmt.Fprintf(stderr, "bench: %v\n", err)
+		return 1
+	}
+	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
+		Metric: backtest.Metric(*metric), Workers: *workers}
+	if *zooFlag != "" {
+		for _, f := range strings.Split(*zooFlag, ",") {
+			o.Families = append(o.Families, strings.TrimSpace(f))
+		}
+	}
+	var pubs []*Report
+	if *published {
+		if pubs, err = ScorePublished(dir, entries); err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 1
+		}
+		for _, r := range pubs {
+			writeTable(stdout, r)
+		}
+	}
+	rep, results, err := Run(context.Background(), entries, o)
+	if err != nil {
+		fmt.Fprintf(stderr, "bench: %v\n", err)
+		return 1
+	}
+	writeTable(stdout, rep)
+	writeChoices(stdout, results)
+	fmt.Fprintf(stdout, "  failed=%d cpu_ms_per_series=%.2f workers=%d\n", rep.All.Failed, rep.All.CPUMilliseconds, effectiveWorkers(*workers))
+	if rep.All.ExpectedN > 0 {
+		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
+			o.Metric, rep.All.Expected/float64(rep.All.ExpectedN), rep.All.ExpectedN)
+	}
+	var refs []*Report
+	if *refR {
+		refs, err = ReferenceR(context.Background(), entries, stdout)
+		if err != nil {
+			fmt.Fprintf(stderr, "bench: reference-r: %v\n", err)
+			return 1
+		}
+		for _, r := range refs {
+			writeTable(stdout, r)
+			fmt.Fprintf(stdout, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.3f\n", r.Method,
+				rep.All.MeanSMAPE()/r.All.MeanSMAPE(), rep.All.MeanMASE()/r.All.MeanMASE(),
+				rep.All.CPUMilliseconds/r.All.CPUMilliseconds)
+		}
+	}
+	if *asJSON {
+		doc := map[string]any{"ours": jsonReport(rep)}
+		if pubs != nil {
+			doc["published"] = jsonReports(pubs)
+		}
+		if refs != nil {
+			doc["referenceR"] = jsonReports(refs)
+		}
+		b, err := json.Marshal(doc)
+		if err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 1
+		}
+		fmt.Fprintf(stdout, "%s\n", b)
+	}
+	fmt.Fprintf(stdout, "all: smape=%.3f mase=%.4f cpu_ms_per_series=%.2f series=%d\n",
+		rep.All.MeanSMAPE(), rep.All.MeanMASE(), rep.All.CPUMilliseconds, rep.All.N)
+	return 0
+}
+
+func effectiveWorkers(w int) int {
+	if w <= 0 {
+		return runtime.GOMAXPROCS(0)
+	}
+	return w
+}
+
+// writeChoices prints how often each member was chosen.
+func writeChoices(w io.Writer, rs []selection.Result) {
+	count := map[string]int{}
+	for _, r := range rs {
+		if r.Chosen != "" {
+			count[r.Chosen]++
+		}
+	}
+	names := make([]string, 0, len(count))
+	for n := range count {
+		names = append(names, n)
+	}
+	sort.Slice(names, func(i, j int) bool {
+		if count[names[i]] != count[names[j]] {
+			return count[names[i]] > count[names[j]]
+		}
+		return names[i] < names[j]
+	})
+	fmt.Fprintf(w, "  chosen:")
+	for _, n := range names {
+		fmt.Fprintf(w, " %s=%d", n, count[n])
+	}
+	fmt.Fprintln(w)
+}
+
+type jsonTally struct {
+	Series   int     `json:"series"`
+	SMAPE    float64 `json:"smape"`
+	MASE     float64 `json:"mase"`
+	Failed   int     `json:"failed,omitempty"`
+	CPUMsPer float64 `json:"cpuMsPerSeries,omitempty"`
+}
+
+func jsonReport(r *Report) map[string]any {
+	cats := map[string]jsonTally{}
+	for c, t := range r.By {
+		cats[c] = jsonTally{Series: t.N, SMAPE: t.MeanSMAPE(), MASE: t.MeanMASE(), Failed: t.Failed}
+	}
+	return map[string]any{"method": r.Method, "categories": cats,
+		"all": jsonTally{Series: r.All.N, SMAPE: r.All.MeanSMAPE(), MASE: r.All.MeanMASE(), Failed: r.All.Failed, CPUMsPer: r.All.CPUMilliseconds}}
+}
+
+func jsonReports(rs []*Report) []map[string]any {
+	out := make([]map[string]any, len(rs))
+	for i, r := range rs {
+		out[i] = jsonReport(r)
+	}
+	return out
+}
+
+// defaultM3Dir is $ALMANAC_M3_DIR, else ../shared/datasets/m3 beside the repository root
+// (the directory holding go.mod, searched upwards from the working directory).
+func defaultM3Dir() string {
+	if d := os.Getenv(EnvM3Dir); d != "" {
+		return d
+	}
+	root, err := repoRoot()
+	if err != nil {
+		return filepath.Join("..", "shared", "datasets", "m3")
+	}
+	return filepath.Join(root, "..", "shared", "datasets", "m3")
+}
+
+func repoRoot() (string, error) {
+	d, err := os.Getwd()
+	if err != nil {
+		return "", err
+	}
+	for {
+		if _, err := os.Stat(filepath.Join(d, "go.mod")); err == nil {
+			return d, nil
+		}
+		p := filepath.Dir(d)
+		if p == d {
+			return "", errors.New("bench: no go.mod above the working directory")
+		}
+		d = p
+	}
+}

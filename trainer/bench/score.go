@@ -1,0 +1,135 @@
+package bench
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"path/filepath"
+	"sort"
+	"strconv"
+
+	"almanac.dev/almanac/trainer/backtest"
+)
+
+// Tally accumulates per-series accuracy: Mean returns the averages over series, the way the
+// M3 results are reported (Makridakis & Hibon 2000, tables: mean sMAPE over series).
+type Tally struct {
+	N               int
+	SMAPE, MASE     float64 // sums over series
+	MASEN           int     // series with a defined MASE
+	Expected        float64 // sum of backtest expectations (in the selection metric)
+	ExpectedN       int
+	Failed          int
+	CPUMilliseconds float64
+}
+
+func (t *Tally) add(smape, mase float64) {
+	t.N++
+	t.SMAPE += smape
+	if !math.IsNaN(mase) {
+		t.MASE += mase
+		t.MASEN++
+	}
+}
+
+// MeanSMAPE is the mean sMAPE over series.
+func (t Tally) MeanSMAPE() float64 { return t.SMAPE / float64(t.N) }
+
+// MeanMASE is the mean MASE over series with a defined scale.
+func (t Tally) MeanMASE() float64 { return t.MASE / float64(t.MASEN) }
+
+// Report is the accuracy of one method by category and overall.
+type Report struct {
+	Method     string
+	Categories []string // in first-seen order
+	By         map[string]*Tally
+	All        Tally
+}
+
+func newReport(method string) *Report { return &Report{Method: method, By: map[string]*Tally{}} }
+
+func (r *Report) tally(cat string) *Tally {
+	t, ok := r.By[cat]
+	if !ok {
+		t = &Tally{}
+		r.By[cat] = t
+		r.Categories = append(r.Categories, cat)
+	}
+	return t
+}
+
+// Accuracy scores forecast f of one entry: sMAPE as in M3 (backtest.SymmetricMAPE) and MASE
+// with the in-sample seasonal-naive scale, m = the data's frequency (1 for OTHER; Hyndman &
+// Koehler 2006).
+func Accuracy(e Entry, f []float64) (smape, mase float64) {
+	return backtest.Score(backtest.SMAPE, e.Test, f, e.Train, e.Frequency),
+		backtest.Score(backtest.MASE, e.Test, f, e.Train, e.Frequency)
+}
+
+func (r *Report) add(e Entry, f []float64) {
+	s, m := Accuracy(e, f)
+	r.tally(e.Category).add(s, m)
+	r.All.add(s, m)
+}
+
+// ScorePublished scores every method in dir/published_forecasts.csv on the given entries with
+// Accuracy. A method missing forecasts for some entries is scored on the ones it has (its
+// report's N says how many). Methods come back sorted by name.
+func ScorePublished(dir string, entries []Entry) ([]*Report, error) {
+	byID := map[string]int{}
+	for i, e := range entries {
+		byID[e.ID] = i
+	}
+	fc := map[string][][]float64{} // method -> entry -> forecast
+	path := filepath.Join(dir, "published_forecasts.csv")
+	err := readCSV(path, []string{"method", "series", "step", "value"}, func(line int, rec map[string]string) error {
+		i, ok := byID[rec["series"]]
+		if !ok {
+			return nil
+		}
+		step, err := atoiField(rec, "step")
+		if err != nil {
+			return err
+		}
+		v, err := strconv.ParseFloat(rec["value"], 64)
+		if err != nil {
+			return fmt.Errorf("field value: %w", err)
+		}
+		mf := fc[rec["method"]]
+		if mf == nil {
+			mf = make([][]float64, len(entries))
+			fc[rec["method"]] = mf
+		}
+		if step != len(mf[i])+1 || step > entries[i].Horizon {
+			return fmt.Errorf("field step: %d out of order or past horizon %d", step, entries[i].Horizon)
+		}
+		mf[i] = append(mf[i], v)
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	var out []*Report
+	for method, mf := range fc {
+		r := newReport(method)
+		for i, e := range entries {
+			if len(mf[i]) == e.Horizon {
+				r.add(e, mf[i])
+			}
+		}
+		out = append(out, r)
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Method < out[j].Method })
+	return out, nil
+}
+
+// writeTable prints a report as aligned text.
+func writeTable(w io.Writer, r *Report) {
+	fmt.Fprintf(w, "%s\n", r.Method)
+	fmt.Fprintf(w, "  %-10s %6s %8s %8s\n", "category", "series", "sMAPE", "MASE")
+	for _, c := range r.Categories {
+		t := r.By[c]
+		fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f\n", c, t.N, t.MeanSMAPE(), t.MeanMASE())
+	}
+	fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f\n", "ALL", r.All.N, r.All.MeanSMAPE(), r.All.MeanMASE())
+}

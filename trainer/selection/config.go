@@ -1,0 +1,152 @@
+// Package selection chooses, per series, the zoo member (or combination of members) with the
+// best rolling-origin backtest, forecasts with it and attaches quantiles.
+package selection
+
+import (
+	"fmt"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// Defaults applied to zero-valued Config fields.
+const (
+	DefaultOrigins = 3
+	DefaultStep    = 1
+	DefaultMetric  = backtest.MASE
+)
+
+// Combination methods.
+const (
+	CombineMean   = "mean"
+	CombineMedian = "median"
+)
+
+// Config is one selection design, shared by every series of a run.
+type Config struct {
+	// Horizon is the number of steps to forecast (>= 1).
+	Horizon int
+	// Levels are the quantile levels, strictly increasing inside (0,1); may be empty.
+	Levels []float64
+	// Zoo lists the candidate members in simplicity order: the earlier of two members with equal
+	// backtest scores wins (Occam's razor; common practice).
+	Zoo []models.Spec
+	// Metric ranks candidates ("" means DefaultMetric). Bias ranks by its absolute value.
+	Metric backtest.Metric
+	// Origins is the number of rolling origins and Step the distance between them (0: defaults).
+	Origins, Step int
+	// CombineTop > 1 also scores the combination of the CombineTop best members; it is chosen
+	// only when its own backtest score beats the best member's. CombineMethod is "mean" (the
+	// default) or "median".
+	CombineTop    int
+	CombineMethod string
+	// SeasonLength is the season length m; 0 takes s.Freq.SeasonLength().
+	SeasonLength int
+	// NonNegative clips the mean and the quantiles at 0.
+	NonNegative bool
+	// Clean is applied to every series before selection (zero value: see series.CleanRules).
+	Clean series.CleanRules
+	// RouteIntermittent restricts intermittent and lumpy series (Syntetos, Boylan & Croston 2005
+	// classes, see Classify) to the zoo's intermittent-demand members (Croston, SBA, TSB) when the
+	// zoo has any.
+	RouteIntermittent bool
+}
+
+// withDefaults fills the zero-valued fields.
+func (c Config) withDefaults() Config {
+	if c.Metric == "" {
+		c.Metric = DefaultMetric
+	}
+	if c.Origins == 0 {
+		c.Origins = DefaultOrigins
+	}
+	if c.Step == 0 {
+		c.Step = DefaultStep
+	}
+	if c.CombineMethod == "" {
+		c.CombineMethod = CombineMean
+	}
+	return c
+}
+
+// Validate reports the first invalid field, by name.
+func (c Config) Validate() error {
+	c = c.withDefaults()
+	if c.Horizon < 1 {
+		return fmt.Errorf("selection: horizon must be >= 1, got %d", c.Horizon)
+	}
+	for j, l := range c.Levels {
+		if !(l > 0 && l < 1) {
+			return fmt.Errorf("selection: levels[%d] = %v is outside (0,1)", j, l)
+		}
+		if j > 0 && !(l > c.Levels[j-1]) {
+			return fmt.Errorf("selection: levels must be strictly increasing (levels[%d] = %v after %v)", j, l, c.Levels[j-1])
+		}
+	}
+	if len(c.Zoo) == 0 {
+		return fmt.Errorf("selection: zoo is empty")
+	}
+	seen := map[string]bool{}
+	for i, sp := range c.Zoo {
+		if _, err := models.New(sp); err != nil {
+			return fmt.Errorf("selection: zoo[%d]: %w", i, err)
+		}
+		if seen[sp.DisplayName()] {
+			return fmt.Errorf("selection: zoo[%d]: duplicate member name %q", i, sp.DisplayName())
+		}
+		seen[sp.DisplayName()] = true
+	}
+	if !c.Metric.Valid() {
+		return fmt.Errorf("selection: unknown metric %q (known: %v)", c.Metric, backtest.Metrics())
+	}
+	if c.Origins < 1 || c.Step < 1 {
+		return fmt.Errorf("selection: origins and step must be >= 1, got %d and %d", c.Origins, c.Step)
+	}
+	if c.CombineMethod != CombineMean && c.CombineMethod != CombineMedian {
+		return fmt.Errorf("selection: combineMethod must be %q or %q, got %q", CombineMean, CombineMedian, c.CombineMethod)
+	}
+	if c.CombineTop < 0 {
+		return fmt.Errorf("selection: combineTop must be >= 0, got %d", c.CombineTop)
+	}
+	if c.SeasonLength < 0 {
+		return fmt.Errorf("selection: seasonLength must be >= 0, got %d", c.SeasonLength)
+	}
+	if c.Clean.MaxGapFraction < 0 || c.Clean.MaxGapFraction > 1 || c.Clean.MinLength < 0 {
+		return fmt.Errorf("selection: clean rules out of range (maxGapFraction %v, minLength %d)", c.Clean.MaxGapFraction, c.Clean.MinLength)
+	}
+	return nil
+}
+
+// Result is the forecast of one series and how it was made.
+type Result struct {
+	Key string
+	// Chosen is the chosen member's zoo name (a key of Scores), or the combination's name.
+	Chosen string
+	// Family is the chosen member's family, or FamilyCombination.
+	Family string
+	// Model is the fitted model's own name with its configuration, e.g. "ETS(M,Ad,N)".
+	Model  string
+	Params map[string]float64
+	// Mean is the point forecast, Horizon steps.
+	Mean []float64
+	// Levels echoes Config.Levels; Quantiles[j][k] is the level-j quantile at step k+1.
+	Levels    []float64
+	Quantiles [][]float64
+	// QuantileSource says where the quantiles came from: "model", "empirical" or "members".
+	QuantileSource string
+	// StepErrors is the chosen member's backtest error per horizon step, in Metric; it is
+	// shorter than Horizon when the backtest horizon had to be shortened, nil without backtest.
+	StepErrors []float64
+	// Expected is the chosen member's overall backtest score (NaN without backtest).
+	Expected float64
+	// Scores holds every candidate's backtest score (NaN if it could not be fitted).
+	Scores map[string]float64
+	// Class is the demand class of Classify.
+	Class string
+	// Notes lists the cleaning and fallback decisions, in order.
+	Notes []string
+}
+
+// FamilyCombination is Result.Family for a combination of members.
+const FamilyCombination = "Combination"

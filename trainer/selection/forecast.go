@@ -1,0 +1,488 @@
+package selection
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+	"strings"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// FallbackOrder is the order in which families are tried when no zoo member can be backtested
+// (the series is too short): zoo members of these families first, in this order, then the
+// families themselves with default settings when registered, even if outside the zoo.
+var FallbackOrder = []string{models.FamilyETS, models.FamilyTheta, models.FamilySeasonalNaive, models.FamilyNaive, models.FamilyMean}
+
+// constantOrder is the fallback order for a constant series, whose backtest is uninformative.
+var constantOrder = []string{models.FamilyNaive, models.FamilyMean}
+
+// candidate is one zoo member during selection.
+type candidate struct {
+	idx   int // position in the zoo (simplicity rank)
+	spec  models.Spec
+	model models.Model
+	m     int // season length the member uses
+	fcs   [][]float64
+	a     backtest.Assessment
+	score float64 // ranking score (|Bias| for Bias); NaN if not backtested
+}
+
+// Forecast cleans s with cfg.Clean, backtests every zoo member on a common rolling-origin plan,
+// picks the best (ties to the earlier member), optionally a combination, refits on the whole
+// series and forecasts cfg.Horizon steps with quantiles. The procedure, with every decision in
+// Result.Notes:
+//
+//   - A constant series is forecast by the first of Naive, Mean that fits (no backtest).
+//   - With RouteIntermittent, intermittent and lumpy series keep only intermittent members.
+//   - Members whose MinLength exceeds the series length get score NaN. The plan uses the largest
+//     remaining MinLength as minimum training length, so every member sees the same origins;
+//     when not even one origin fits, the most demanding members are left out of the backtest.
+//   - Scores are backtest.Assess's Overall in cfg.Metric. If the metric is undefined for every
+//     member (e.g. a zero MASE scale) members are ranked by MAE instead.
+//   - With no backtestable member, FallbackOrder applies and Expected is NaN.
+//   - If the chosen member fails to refit on the whole series, the next best is used.
+//
+// Quantiles come from the model when it returns them, otherwise from empiricalQuantiles. The
+// error, when the series is unusable, gives the reason; Result then carries Key and Notes.
+func Forecast(s series.Series, cfg Config) (Result, error) {
+	if err := cfg.Validate(); err != nil {
+		return Result{Key: s.Key}, err
+	}
+	return forecast(s, cfg.withDefaults())
+}
+
+func forecast(s series.Series, cfg Config) (out Result, err error) {
+	s.Values = append([]float64(nil), s.Values...)
+	s.Notes = append([]string(nil), s.Notes...)
+	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN()}
+	if err := series.Clean(&s, cfg.Clean); err != nil {
+		res.Notes = s.Notes
+		return res, err
+	}
+	y := s.Values
+	n := len(y)
+	m := cfg.SeasonLength
+	if m == 0 {
+		m = s.Freq.SeasonLength()
+	}
+	notes := s.Notes
+	note := func(format string, a ...any) { notes = append(notes, fmt.Sprintf(format, a...)) }
+	defer func() { out.Notes = notes }()
+
+	class, _, _ := Classify(y)
+	res.Class = class
+
+	var cands []*candidate
+	for i, sp := range cfg.Zoo {
+		mod, err := models.New(sp)
+		if err != nil { // Validate built it once; a constructor that now fails is a bug
+			panic("selection: zoo member no longer builds: " + err.Error())
+		}
+		mm := m
+		if sp.SeasonLength > 0 {
+			mm = sp.SeasonLength
+		}
+		cands = append(cands, &candidate{idx: i, spec: sp, model: mod, m: mm, score: math.NaN()})
+		res.Scores[sp.DisplayName()] = math.NaN()
+	}
+
+	if _, isConst := constantValue(y); isConst {
+		note("constant series: backtest skipped")
+		return finishFallback(&res, cands, y, cfg, constantOrder, note)
+	}
+
+	if cfg.RouteIntermittent && (class == ClassIntermittent || class == ClassLumpy) {
+		var keep []*candidate
+		for _, c := range cands {
+			if intermittentFamily(c.spec.Family) {
+				keep = append(keep, c)
+			}
+		}
+		if len(keep) > 0 {
+			note("%s demand: only intermittent-demand members considered", class)
+			cands = keep
+		}
+	}
+
+	// Members that cannot even be fitted on the whole series.
+	var fit []*candidate
+	for _, c := range cands {
+		if ml := c.model.MinLength(c.m); ml > n {
+			note("%s: needs %d observations, series has %d", c.spec.DisplayName(), ml, n)
+			continue
+		}
+		fit = append(fit, c)
+	}
+
+	// Common plan: drop the most demanding members until one origin fits.
+	bt := append([]*candidate(nil), fit...)
+	var plan backtest.Plan
+	for len(bt) > 0 {
+		floor := 0
+		for _, c := range bt {
+			floor = max(floor, c.model.MinLength(c.m))
+		}
+		p, err := backtest.NewPlan(n, cfg.Horizon, cfg.Origins, cfg.Step, floor)
+		if err == nil {
+			plan = p
+			break
+		}
+		var keep []*candidate
+		for _, c := range bt {
+			if c.model.MinLength(c.m) < floor {
+				keep = append(keep, c)
+			} else {
+				note("%s: too short to backtest (needs %d observations plus one to test)", c.spec.DisplayName(), floor)
+			}
+		}
+		bt = keep
+	}
+	if len(bt) > 0 && plan.Horizon < cfg.Horizon {
+		note("backtest horizon shortened to %d (series has %d observations)", plan.Horizon, n)
+	}
+
+	var ok []*candidate
+	for _, c := range bt {
+		fcs, err := safeForecasts(c, y, plan)
+		if err != nil {
+			note("%s: backtest failed: %v", c.spec.DisplayName(), err)
+			continue
+		}
+		c.fcs = fcs
+		c.a = backtest.Assess(cfg.Metric, y, m, plan, fcs)
+		c.score = rankScore(cfg.Metric, c.a.Overall)
+		ok = append(ok, c)
+	}
+	if len(ok) == 0 {
+		note("no member could be backtested: fallback order %s", strings.Join(FallbackOrder, ", "))
+		return finishFallback(&res, fit, y, cfg, FallbackOrder, note)
+	}
+	metric := cfg.Metric
+	if allNaN(ok) {
+		note("%s undefined on this series for every member: ranked by MAE", cfg.Metric)
+		metric = backtest.MAE
+		for _, c := range ok {
+			c.a = backtest.Assess(metric, y, m, plan, c.fcs)
+			c.score = c.a.Overall
+		}
+	}
+	for _, c := range ok {
+		res.Scores[c.spec.DisplayName()] = c.score
+	}
+	ranked := rank(ok)
+
+	if cfg.CombineTop > 1 && len(ranked) >= 2 {
+		top := ranked[:min(cfg.CombineTop, len(ranked))]
+		cfc := combineAll(cfg.CombineMethod, top, func(c *candidate) [][]float64 { return c.fcs })
+		ca := backtest.Assess(metric, y, m, plan, cfc)
+		cs := rankScore(metric, ca.Overall)
+		name := comboName(cfg.CombineMethod, top)
+		res.Scores[name] = cs
+		if cs < ranked[0].score {
+			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
+				return res, nil
+			} else {
+				note("%s: refit failed, using the best single member: %v", name, err)
+			}
+		}
+	}
+	for _, c := range ranked {
+		if err := finishSingle(&res, c, c.a, y, cfg); err != nil {
+			note("%s: refit on the whole series failed: %v", c.spec.DisplayName(), err)
+			continue
+		}
+		return res, nil
+	}
+	note("every backtested member failed to refit: fallback order %s", strings.Join(FallbackOrder, ", "))
+	return finishFallback(&res, fit, y, cfg, FallbackOrder, note)
+}
+
+// rankScore turns a metric value into a lower-is-better score.
+func rankScore(metric backtest.Metric, v float64) float64 {
+	if metric == backtest.Bias {
+		return math.Abs(v)
+	}
+	return v
+}
+
+func allNaN(cs []*candidate) bool {
+	for _, c := range cs {
+		if !math.IsNaN(c.score) {
+			return false
+		}
+	}
+	return true
+}
+
+// rank orders the candidates with a finite score by score, ties to the earlier zoo member.
+func rank(cs []*candidate) []*candidate {
+	var out []*candidate
+	for _, c := range cs {
+		if !math.IsNaN(c.score) {
+			out = append(out, c)
+		}
+	}
+	sort.SliceStable(out, func(i, j int) bool {
+		if out[i].score != out[j].score {
+			return out[i].score < out[j].score
+		}
+		return out[i].idx < out[j].idx
+	})
+	return out
+}
+
+// safeForecasts runs the backtest of one member, turning a model panic into an error so one
+// faulty family cannot sink the series.
+func safeForecasts(c *candidate, y []float64, p backtest.Plan) (f [][]float64, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("model panicked: %v", r)
+		}
+	}()
+	return backtest.Forecasts(c.model, y, c.m, p)
+}
+
+// refit fits c on the whole series and forecasts h steps at levels.
+func refit(c *candidate, y []float64, h int, levels []float64) (fitted models.Fitted, fc models.Forecast, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("model panicked: %v", r)
+		}
+	}()
+	fitted, err = c.model.Fit(y, c.m)
+	if err != nil {
+		return nil, fc, err
+	}
+	fc = fitted.Forecast(h, levels)
+	if len(fc.Mean) != h {
+		return nil, fc, fmt.Errorf("model returned %d steps, want %d", len(fc.Mean), h)
+	}
+	for k, v := range fc.Mean {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, fc, fmt.Errorf("forecast step %d is %v", k+1, v)
+		}
+	}
+	if fc.Quantiles != nil && !validQuantiles(fc.Quantiles, len(levels), h) {
+		fc.Quantiles = nil
+	}
+	return fitted, fc, nil
+}
+
+// validQuantiles checks shape, finiteness and non-crossing of model quantiles.
+func validQuantiles(q [][]float64, nl, h int) bool {
+	if len(q) != nl {
+		return false
+	}
+	for j := range q {
+		if len(q[j]) != h {
+			return false
+		}
+		for k, v := range q[j] {
+			if math.IsNaN(v) || math.IsInf(v, 0) || (j > 0 && v < q[j-1][k]) {
+				return false
+			}
+		}
+	}
+	return true
+}
+
+func finishSingle(res *Result, c *candidate, a backtest.Assessment, y []float64, cfg Config) error {
+	fitted, fc, err := refit(c, y, cfg.Horizon, cfg.Levels)
+	if err != nil {
+		return err
+	}
+	res.Chosen = c.spec.DisplayName()
+	res.Family = c.spec.Family
+	res.Model = fitted.Name()
+	res.Params = fitted.Params()
+	res.Mean = fc.Mean
+	res.Expected = a.Overall
+	res.StepErrors = a.Steps
+	switch {
+	case len(cfg.Levels) == 0:
+	case fc.Quantiles != nil:
+		res.Quantiles, res.QuantileSource = fc.Quantiles, "model"
+	default:
+		res.Quantiles, res.QuantileSource = empiricalQuantiles(fc.Mean, cfg.Levels, a.Errors, residuals(y, fitted)), "empirical"
+	}
+	clip(res, cfg.NonNegative)
+	return nil
+}
+
+func finishCombination(res *Result, name string, top []*candidate, a backtest.Assessment, y []float64, cfg Config) error {
+	fcs := make([]models.Forecast, len(top))
+	for i, c := range top {
+		_, fc, err := refit(c, y, cfg.Horizon, cfg.Levels)
+		if err != nil {
+			return fmt.Errorf("%s: %w", c.spec.DisplayName(), err)
+		}
+		fcs[i] = fc
+	}
+	means := make([][]float64, len(top))
+	allQ := len(cfg.Levels) > 0
+	for i := range fcs {
+		means[i] = fcs[i].Mean
+		allQ = allQ && fcs[i].Quantiles != nil
+	}
+	res.Chosen, res.Family, res.Model, res.Params = name, FamilyCombination, name, nil
+	res.Mean = combine(cfg.CombineMethod, means)
+	res.Expected, res.StepErrors = a.Overall, a.Steps
+	switch {
+	case len(cfg.Levels) == 0:
+	case allQ:
+		// Quantile averaging (Lichtendahl, Grushka-Cockayne & Winkler 2013, "Is it better to
+		// average probabilities or quantiles?", Management Science 59): level by level.
+		res.Quantiles = make([][]float64, len(cfg.Levels))
+		for j := range cfg.Levels {
+			qs := make([][]float64, len(fcs))
+			for i := range fcs {
+				qs[i] = fcs[i].Quantiles[j]
+			}
+			res.Quantiles[j] = combine(CombineMean, qs)
+		}
+		res.QuantileSource = "members"
+	default:
+		res.Quantiles, res.QuantileSource = empiricalQuantiles(res.Mean, cfg.Levels, a.Errors, nil), "empirical"
+	}
+	clip(res, cfg.NonNegative)
+	return nil
+}
+
+// finishFallback forecasts with the first family of order that fits: zoo members of the
+// family first, then the family's default spec when registered.
+func finishFallback(res *Result, zoo []*candidate, y []float64, cfg Config, order []string, note func(string, ...any)) (Result, error) {
+	known := map[string]bool{}
+	for _, f := range models.Families() {
+		known[f] = true
+	}
+	var tries []*candidate
+	for _, fam := range order {
+		for _, c := range zoo {
+			if c.spec.Family == fam {
+				tries = append(tries, c)
+			}
+		}
+		if known[fam] {
+			if mod, err := models.New(models.Spec{Family: fam}); err == nil {
+				mm := cfg.SeasonLength
+				tries = append(tries, &candidate{spec: models.Spec{Family: fam}, model: mod, m: fallbackSeason(mm, zoo)})
+			}
+		}
+	}
+	for _, c := range tries {
+		if c.model.MinLength(c.m) > len(y) {
+			continue
+		}
+		if err := finishSingle(res, c, backtest.Assessment{Overall: math.NaN()}, y, cfg); err != nil {
+			note("fallback %s failed: %v", c.spec.DisplayName(), err)
+			continue
+		}
+		note("fallback: %s (not backtested)", c.spec.DisplayName())
+		return *res, nil
+	}
+	return *res, errors.New("no model in the zoo or the fallback order can forecast this series")
+}
+
+// fallbackSeason is the season length for a default-spec fallback member.
+func fallbackSeason(cfgM int, zoo []*candidate) int {
+	if cfgM > 0 {
+		return cfgM
+	}
+	for _, c := range zoo {
+		if c.spec.SeasonLength == 0 {
+			return c.m
+		}
+	}
+	return 1
+}
+
+// residuals returns y − fitted one-step values (NaN where the model has none).
+func residuals(y []float64, f models.Fitted) []float64 {
+	in := f.InSample()
+	if len(in) != len(y) {
+		return nil
+	}
+	r := make([]float64, len(y))
+	for i := range y {
+		r[i] = y[i] - in[i]
+	}
+	return r
+}
+
+func clip(res *Result, on bool) {
+	if !on {
+		return
+	}
+	for k, v := range res.Mean {
+		res.Mean[k] = math.Max(v, 0)
+	}
+	for _, q := range res.Quantiles {
+		for k, v := range q {
+			q[k] = math.Max(v, 0)
+		}
+	}
+}
+
+func constantValue(x []float64) (float64, bool) {
+	for _, v := range x[1:] {
+		if v != x[0] {
+			return 0, false
+		}
+	}
+	return x[0], true
+}
+
+func comboName(method string, top []*candidate) string {
+	names := make([]string, len(top))
+	for i, c := range top {
+		names[i] = c.spec.DisplayName()
+	}
+	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", "))
+}
+
+// combineAll combines per-origin forecasts of the members.
+func combineAll(method string, top []*candidate, get func(*candidate) [][]float64) [][]float64 {
+	no := len(get(top[0]))
+	out := make([][]float64, no)
+	for i := range out {
+		paths := make([][]float64, len(top))
+		for j, c := range top {
+			paths[j] = get(c)[i]
+		}
+		out[i] = combine(method, paths)
+	}
+	return out
+}
+
+// combine is the step-wise mean or median of equal-length paths (equal weights: Clemen 1989,
+// "Combining forecasts: a review and annotated bibliography", IJF 5).
+func combine(method string, paths [][]float64) []float64 {
+	h := len(paths[0])
+	out := make([]float64, h)
+	col := make([]float64, len(paths))
+	for k := 0; k < h; k++ {
+		for j := range paths {
+			col[j] = paths[j][k]
+		}
+		if method == CombineMedian {
+			sort.Float64s(col)
+			nn := len(col)
+			if nn%2 == 1 {
+				out[k] = col[nn/2]
+			} else {
+				out[k] = (col[nn/2-1] + col[nn/2]) / 2
+			}
+			continue
+		}
+		s := 0.0
+		for _, v := range col {
+			s += v
+		}
+		out[k] = s / float64(len(col))
+	}
+	return out
+}

@@ -1,0 +1,51 @@
+package selection
+
+import (
+	"fmt"
+	"slices"
+	"strings"
+
+	"almanac.dev/almanac/trainer/models"
+)
+
+// SimplicityOrder ranks the known families from simplest to most complex; Zoo uses it so that
+// backtest ties go to the simpler family. Registered families not listed here come last, in
+// sorted order.
+var SimplicityOrder = []string{
+	models.FamilyMean, models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyDrift,
+	models.FamilySeasonalAdjustedNaive, models.FamilyCroston, models.FamilySBA, models.FamilyTSB,
+	models.FamilyTheta, models.FamilyETS,
+}
+
+// Zoo returns default-setting specs for the given families in simplicity order, or for every
+// registered family when none is given. An unregistered family is an error naming it.
+func Zoo(families ...string) ([]models.Spec, error) {
+	reg := models.Families()
+	if len(families) == 0 {
+		families = reg
+	}
+	for _, f := range families {
+		if !slices.Contains(reg, f) {
+			return nil, fmt.Errorf("selection: unknown family %q (registered: %s)", f, strings.Join(reg, ", "))
+		}
+	}
+	rankOf := func(f string) int {
+		if i := slices.Index(SimplicityOrder, f); i >= 0 {
+			return i
+		}
+		return len(SimplicityOrder)
+	}
+	fs := slices.Clone(families)
+	slices.SortStableFunc(fs, func(a, b string) int {
+		if ra, rb := rankOf(a), rankOf(b); ra != rb {
+			return ra - rb
+		}
+		return strings.Compare(a, b)
+	})
+	fs = slices.Compact(fs)
+	out := make([]models.Spec, len(fs))
+	for i, f := range fs {
+		out[i] = models.Spec{Family: f}
+	}
+	return out, nil
+}
