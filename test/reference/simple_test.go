@@ -344,8 +344,9 @@ func loadM3(t *testing.T, dir string) map[string]*m3Series {
 // (logged) plus margin.
 // Bounds for TestThetaAgainstM3Published. Measured on all 3003 series (go test ./test/reference/
 // -run M3 -v): |rel diff| median 0.0086, p90 0.059 (yearly median 0.028, quarterly 0.010,
-// monthly 0.0070, other 0.0032). The largest differences are yearly: the original method chose α
-// by fitting SES to the θ = 2 line, 2y_t − (a + b t), where we (like R's thetaf) fit it to y_t.
+// monthly 0.0070, other 0.0032). The largest differences are yearly; a likely cause (from
+// memory, not verified against the original code) is that the original fitted SES, and chose α,
+// on the θ = 2 line 2y_t − (a + b t), where we (like R's thetaf) fit it to y_t.
 // With the seasonal adjustment switched off the same run gives median 0.018 and p90 0.15, so
 // the bounds do detect a broken decomposition.
 const (

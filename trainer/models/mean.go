@@ -15,7 +15,7 @@ func init() { Register(FamilyMean, newMean) }
 //	σ̂_h    = s · √(1 + 1/n),   s² = Σ (y_t − ȳ)² / (n − 1)
 //
 // The bands use Student's t with n−1 degrees of freedom, as R forecast's meanf does (checked
-// against forecast 8.x in test/reference); FPP3 quotes the normal approximation, which the t
+// against forecast 8.20 in test/reference); FPP3 quotes the normal approximation, which the t
 // quantile approaches for large n. Needs n >= 2 so that s is defined.
 type meanModel struct{ spec Spec }
 
