@@ -1,0 +1,87 @@
+package bench
+
+import (
+	"bytes"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	_ "almanac.dev/almanac/trainer/models"
+)
+
+func m3Dir(t *testing.T) string {
+	d := defaultM3Dir()
+	if _, err := os.Stat(filepath.Join(d, "published_forecasts.csv")); err != nil {
+		t.Skipf("M3 data not found at %s (set %s): %v", d, EnvM3Dir, err)
+	}
+	return d
+}
+
+// Scoring the submitted THETA forecasts (Makridakis & Hibon 2000; data from the Mcomp R
+// package's M3Forecast) with the M3 sMAPE and in-sample MASE gives overall 12.76 and 1.395.
+// The paper's 13.01 uses the competition's own sMAPE variant. The figures are those the issue
+// gives, which this scoring reproduces; NAIVE2 on non-seasonal YEARLY equals the naive
+// forecast, a second check of the same path.
+func TestScorePublishedTheta(t *testing.T) {
+	d := m3Dir(t)
+	entries, err := Load(d, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(entries) != 3003 {
+		t.Fatalf("%d series, want 3003", len(entries))
+	}
+	reps, err := ScorePublished(d, entries)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range reps {
+		if r.Method != "THETA" {
+			continue
+		}
+		if r.All.N != 3003 || math.Abs(r.All.MeanSMAPE()-12.76) > 0.005 || math.Abs(r.All.MeanMASE()-1.395) > 0.0005 {
+			t.Errorf("THETA: n=%d sMAPE %.4f MASE %.4f, want 3003, 12.76, 1.395", r.All.N, r.All.MeanSMAPE(), r.All.MeanMASE())
+		}
+		return
+	}
+	t.Fatal("THETA not in published_forecasts.csv")
+}
+
+func TestMainSummaryLine(t *testing.T) {
+	d := m3Dir(t)
+	var out, errb bytes.Buffer
+	if code := Main([]string{"--data", d, "--limit", "30", "--zoo", "Naive", "--json"}, &out, &errb); code != 0 {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
+	last := lines[len(lines)-1]
+	if !strings.HasPrefix(last, "all: smape=") || !strings.HasSuffix(last, "series=30") {
+		t.Errorf("last line %q", last)
+	}
+	if strings.Count(out.String(), "all: ") != 1 {
+		t.Errorf("want exactly one summary line:\n%s", out.String())
+	}
+}
+
+// Bad input names the file, line and field.
+func TestLoadErrors(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name, body string) {
+		if err := os.WriteFile(filepath.Join(dir, name), []byte(body), 0o600); err != nil {
+			t.Fatal(err)
+		}
+	}
+	write("series.csv", "series,category,frequency,horizon,n_train,start\nA1,YEARLY,1,2,3,2001-1\n")
+	write("train.csv", "series,category,frequency,index,value\nA1,YEARLY,1,1,5\nA1,YEARLY,1,2,x\n")
+	write("test.csv", "series,category,frequency,index,value\n")
+	_, err := Load(dir, 0)
+	if err == nil || !strings.Contains(err.Error(), "train.csv:3: field value") {
+		t.Errorf("err %v, want train.csv:3: field value", err)
+	}
+	var out, errb bytes.Buffer
+	if code := Main([]string{"--data", dir}, &out, &errb); code != 1 || !strings.Contains(errb.String(), "train.csv:3") {
+		t.Errorf("Main exit %d stderr %q", code, errb.String())
+	}
+}

@@ -1,0 +1,265 @@
+package selection
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"strings"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/series"
+)
+
+func specs(fams ...string) []models.Spec {
+	out := make([]models.Spec, len(fams))
+	for i, f := range fams {
+		out[i] = models.Spec{Family: f}
+	}
+	return out
+}
+
+func yearly(key string, y ...float64) series.Series {
+	return series.Series{Key: key, Start: time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC), Freq: series.Yearly, Values: y}
+}
+
+// An exact straight line is forecast without error by the line member, so its backtest MASE
+// is 0 and it wins; the naive member's MASE is 1 at step 1 (its error equals the naive scale;
+// hand-worked from Hyndman & Koehler 2006 eq. (6)).
+func TestChoosesBestMember(t *testing.T) {
+	s := yearly("line", 1, 3, 5, 7, 9, 11, 13, 15, 17, 19)
+	r, err := Forecast(s, Config{Horizon: 2, Zoo: specs(famLast, famLine, famFail, famPanic), Levels: []float64{0.1, 0.5, 0.9}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Chosen != famLine || r.Expected != 0 {
+		t.Fatalf("chosen %s expected %v, want %s with 0; notes %v", r.Chosen, r.Expected, famLine, r.Notes)
+	}
+	if got := r.Mean; math.Abs(got[0]-21) > 1e-9 || math.Abs(got[1]-23) > 1e-9 {
+		t.Errorf("mean %v, want [21 23]", got)
+	}
+	// naive at step k errs by 2k against a naive scale of 2: MASE per step = k, overall 1.5.
+	if got := r.Scores[famLast]; math.Abs(got-1.5) > 1e-12 {
+		t.Errorf("naive score %v, want 1.5", got)
+	}
+	for _, f := range []string{famFail, famPanic} {
+		if !math.IsNaN(r.Scores[f]) {
+			t.Errorf("%s score %v, want NaN", f, r.Scores[f])
+		}
+	}
+	if len(r.StepErrors) != 2 || r.StepErrors[0] != 0 {
+		t.Errorf("step errors %v", r.StepErrors)
+	}
+	if r.QuantileSource != "empirical" || len(r.Quantiles) != 3 {
+		t.Errorf("quantiles %v from %q", r.Quantiles, r.QuantileSource)
+	}
+}
+
+// Equal scores go to the earlier zoo member (the documented simplicity order).
+func TestTieGoesToEarlierMember(t *testing.T) {
+	s := yearly("walk", 1, 2, 4, 3, 5, 6, 4, 7)
+	zoo := []models.Spec{{Family: famLast, Name: "b"}, {Family: famLast, Name: "a"}}
+	r, err := Forecast(s, Config{Horizon: 2, Zoo: zoo})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Chosen != "b" {
+		t.Errorf("chosen %s, want b (listed first)", r.Chosen)
+	}
+}
+
+// On a series alternating 100, 100.2 the members last±1 miss by about 1 while their mean (the
+// last value) misses by 0.2, so the combination's backtest wins and is chosen.
+func TestCombinationChosenOnlyWhenBetter(t *testing.T) {
+	var y []float64
+	for i := 0; i < 12; i++ {
+		y = append(y, 100+0.2*float64(i%2))
+	}
+	cfg := Config{Horizon: 1, Zoo: specs(famUp, famDown), CombineTop: 2, Levels: []float64{0.5}}
+	r, err := Forecast(yearly("alt", y...), cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Family != FamilyCombination || math.Abs(r.Mean[0]-y[len(y)-1]) > 1e-12 {
+		t.Fatalf("got %s mean %v, want the combination at %v", r.Chosen, r.Mean, y[len(y)-1])
+	}
+	// A line through an exact line is perfect: the combination with a worse member must lose.
+	r, err = Forecast(yearly("line", 1, 2, 3, 4, 5, 6, 7, 8), Config{Horizon: 2, Zoo: specs(famLine, famLast), CombineTop: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Chosen != famLine {
+		t.Errorf("chosen %s, want %s", r.Chosen, famLine)
+	}
+}
+
+// With no backtestable member the documented fallback order is used and noted.
+func TestFallbackWhenTooShort(t *testing.T) {
+	r, err := Forecast(yearly("short", 4, 6), Config{Horizon: 3, Zoo: specs(famLong)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Chosen == "" || !math.IsNaN(r.Expected) || !strings.Contains(strings.Join(r.Notes, ";"), "fallback") {
+		t.Errorf("chosen %q expected %v notes %v", r.Chosen, r.Expected, r.Notes)
+	}
+}
+
+func TestConstantAndBadSeries(t *testing.T) {
+	r, err := Forecast(yearly("flat", 3, 3, 3, 3), Config{Horizon: 2, Zoo: specs(famLast), Levels: []float64{0.1, 0.9}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, v := range append(r.Mean, r.Quantiles[0]...) {
+		if v != 3 {
+			t.Errorf("constant series forecast %v / %v, want all 3", r.Mean, r.Quantiles)
+		}
+	}
+	_, err = Forecast(yearly("holes", 1, math.NaN(), math.NaN(), math.NaN(), 5), Config{Horizon: 1, Zoo: specs(famLast)})
+	if err == nil || !strings.Contains(err.Error(), "holes") {
+		t.Errorf("mostly missing series: err %v, want a reason naming the series", err)
+	}
+}
+
+func TestValidate(t *testing.T) {
+	good := Config{Horizon: 1, Zoo: specs(famLast)}
+	bad := map[string]Config{
+		"horizon": {Zoo: specs(famLast)},
+		"levels":  {Horizon: 1, Zoo: specs(famLast), Levels: []float64{0.5, 0.5}},
+		"level 1": {Horizon: 1, Zoo: specs(famLast), Levels: []float64{1}},
+		"zoo":     {Horizon: 1},
+		"family":  {Horizon: 1, Zoo: specs("test.NoSuch")},
+		"dup":     {Horizon: 1, Zoo: specs(famLast, famLast)},
+		"metric":  {Horizon: 1, Zoo: specs(famLast), Metric: "R2"},
+		"combine": {Horizon: 1, Zoo: specs(famLast), CombineMethod: "max"},
+		"origins": {Horizon: 1, Zoo: specs(famLast), Origins: -1},
+		"season":  {Horizon: 1, Zoo: specs(famLast), SeasonLength: -2},
+	}
+	if err := good.Validate(); err != nil {
+		t.Errorf("good config: %v", err)
+	}
+	for name, c := range bad {
+		if err := c.Validate(); err == nil {
+			t.Errorf("%s: no error", name)
+		}
+	}
+}
+
+// Hand-worked: step-1 errors {−1, +1} give s = 1 and pool {−1, 1}; N = 2, w = 2/22.
+// Level 0.9: c_emp = −1 + 0.9·2 = 0.8 (Hyndman & Fan 1996 type 7), z = 1.2815515655446004
+// (standard normal table), c = (w·0.8 + (1−w)·z)·sqrt(1 + 1/2). Level 0.5: c_emp = 0, z = 0.
+func TestEmpiricalQuantilesByHand(t *testing.T) {
+	q := empiricalQuantiles([]float64{10, 10}, []float64{0.5, 0.9}, [][]float64{{-1}, {1}}, nil)
+	w := 2.0 / 22
+	c := (w*0.8 + (1-w)*1.2815515655446004) * math.Sqrt(1.5)
+	if q[0][0] != 10 || math.Abs(q[1][0]-(10+c)) > 1e-12 {
+		t.Errorf("step 1: got %v %v, want 10 and %v", q[0][0], q[1][0], 10+c)
+	}
+	// step 2 lies past the backtest horizon: spread grows by sqrt(2) (random-walk rule).
+	if math.Abs(q[1][1]-(10+c*math.Sqrt2)) > 1e-12 {
+		t.Errorf("step 2: got %v, want %v", q[1][1], 10+c*math.Sqrt2)
+	}
+}
+
+// Classes of Syntetos, Boylan & Croston (2005), worked by hand: ADI = n / non-zero count,
+// CV² of the non-zero sizes (population variance).
+func TestClassify(t *testing.T) {
+	cases := []struct {
+		y    []float64
+		want string
+	}{
+		{[]float64{5, 5, 6, 5}, ClassSmooth},             // ADI 1, CV² ≈ 0.008
+		{[]float64{1, 9, 1, 9}, ClassErratic},            // ADI 1, mean 5, var 16, CV² 0.64
+		{[]float64{0, 5, 0, 5, 0, 6}, ClassIntermittent}, // ADI 2, CV² ≈ 0.008
+		{[]float64{0, 1, 0, 9, 0, 0}, ClassLumpy},        // ADI 3, CV² 0.64
+	}
+	for _, c := range cases {
+		if got, _, _ := Classify(c.y); got != c.want {
+			t.Errorf("Classify(%v) = %s, want %s", c.y, got, c.want)
+		}
+	}
+}
+
+// ForecastMany gives the same results, in input order, whatever the number of workers; a
+// failing series gets its own error without stopping the others.
+func TestForecastManyDeterministic(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	var in []series.Series
+	for i := 0; i < 40; i++ {
+		y := make([]float64, 8+rng.IntN(30))
+		lvl := 50.0
+		for k := range y {
+			lvl += rng.NormFloat64()
+			y[k] = lvl + 3*math.Sin(float64(k))
+		}
+		in = append(in, yearly(fmt.Sprintf("s%02d", i), y...))
+	}
+	in[7].Values = []float64{math.Inf(1), 1, 2}
+	zoo, err := Zoo()
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := Config{Horizon: 4, Zoo: zoo, Levels: []float64{0.05, 0.5, 0.95}, CombineTop: 3}
+	run := func(workers int) []string {
+		var out []string
+		err := ForecastMany(context.Background(), in, cfg, workers, func(i int, r Result, err error) {
+			if len(out) != i {
+				t.Fatalf("emitted %d at position %d", i, len(out))
+			}
+			out = append(out, fmt.Sprintf("%v|%v", r, err))
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return out
+	}
+	one, four := run(1), run(4)
+	for i := range one {
+		if one[i] != four[i] {
+			t.Errorf("series %d differs between 1 and 4 workers:\n%s\n%s", i, one[i], four[i])
+		}
+	}
+	if !strings.Contains(one[7], "infinite") {
+		t.Errorf("series 7: %s, want the infinite-value error", one[7])
+	}
+}
+
+func TestForecastManyCancel(t *testing.T) {
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	in := []series.Series{yearly("a", 1, 2, 3), yearly("b", 1, 2, 3)}
+	err := ForecastMany(ctx, in, Config{Horizon: 1, Zoo: specs(famLast)}, 2, func(int, Result, error) {})
+	if err != context.Canceled {
+		t.Errorf("err %v, want context.Canceled", err)
+	}
+}
+
+// BenchmarkForecast is the selection cost of one monthly series (n = 120, h = 18) with the
+// full registered zoo, 3 origins and a top-3 combination.
+func BenchmarkForecast(b *testing.B) {
+	zoo, err := Zoo()
+	if err != nil {
+		b.Fatal(err)
+	}
+	var fams []models.Spec
+	for _, s := range zoo {
+		if !strings.HasPrefix(s.Family, "test.") {
+			fams = append(fams, s)
+		}
+	}
+	rng := rand.New(rand.NewPCG(3, 4))
+	y := make([]float64, 120)
+	for k := range y {
+		y[k] = 200 + float64(k) + 30*math.Sin(2*math.Pi*float64(k)/12) + 5*rng.NormFloat64()
+	}
+	s := series.Series{Key: "bench", Start: time.Date(2015, 1, 1, 0, 0, 0, 0, time.UTC), Freq: series.Monthly, Values: y}
+	cfg := Config{Horizon: 18, Zoo: fams, Levels: []float64{0.1, 0.5, 0.9}, CombineTop: 3, Metric: backtest.MASE}
+	b.ResetTimer()
+	for b.Loop() {
+		if _, err := Forecast(s, cfg); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
