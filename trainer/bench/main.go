@@ -31,6 +31,7 @@ type Options struct {
 	Origins, Step int
 	CombineTop    int
 	CombineMethod string
+	CombineMargin float64
 	Metric        backtest.Metric
 	Workers       int
 }
@@ -45,7 +46,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		return nil, nil, err
 	}
 	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
-		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod}
+		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin}
 	byH := map[int][]int{}
 	var hs []int
 	for i, e := range entries {
@@ -104,8 +105,8 @@ func describe(o Options, zoo []models.Spec) string {
 	for i, s := range zoo {
 		names[i] = s.DisplayName()
 	}
-	return fmt.Sprintf("zoo=%s origins=%d step=%d combine=%d/%s metric=%s", strings.Join(names, ","),
-		o.Origins, o.Step, o.CombineTop, o.CombineMethod, o.Metric)
+	return fmt.Sprintf("zoo=%s origins=%d step=%d combine=%d/%s margin=%g metric=%s", strings.Join(names, ","),
+		o.Origins, o.Step, o.CombineTop, o.CombineMethod, o.CombineMargin, o.Metric)
 }
 
 // cpuTime is this process's user plus system CPU time (getrusage RUSAGE_SELF).
@@ -140,6 +141,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	step := fs.Int("step", selection.DefaultStep, "distance between origins")
 	combine := fs.Int("combine", 0, "also score the combination of the best N members (0/1: none)")
 	combineMethod := fs.String("combine-method", selection.CombineMean, "combination: mean or median")
+	margin := fs.Float64("combine-margin", 0, "choose the combination unless the best member beats it by more than this relative margin")
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
 	if err := fs.Parse(args); err != nil {
 		return 2
@@ -162,7 +164,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		return 1
 	}
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
-		Metric: backtest.Metric(*metric), Workers: *workers}
+		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers}
 	if *zooFlag != "" {
 		for _, f := range strings.Split(*zooFlag, ",") {
 			o.Families = append(o.Families, strings.TrimSpace(f))

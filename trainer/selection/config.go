@@ -4,6 +4,7 @@ package selection
 
 import (
 	"fmt"
+	"math"
 
 	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/models"
@@ -41,6 +42,12 @@ type Config struct {
 	// default) or "median".
 	CombineTop    int
 	CombineMethod string
+	// CombineMargin >= 0 prefers the combination: it is chosen unless the best single member's
+	// score is lower than the combination's by more than this relative margin, i.e. when
+	// combined <= best·(1 + CombineMargin). 0 means strictly better. Combinations are robust
+	// against the selection noise of a few origins (Clemen 1989; Makridakis, Spiliotis &
+	// Assimakopoulos 2020 on M4), which is why a margin can pay.
+	CombineMargin float64
 	// SeasonLength is the season length m; 0 takes s.Freq.SeasonLength().
 	SeasonLength int
 	// NonNegative clips the mean and the quantiles at 0.
@@ -105,6 +112,9 @@ func (c Config) Validate() error {
 	}
 	if c.CombineMethod != CombineMean && c.CombineMethod != CombineMedian {
 		return fmt.Errorf("selection: combineMethod must be %q or %q, got %q", CombineMean, CombineMedian, c.CombineMethod)
+	}
+	if c.CombineMargin < 0 || math.IsNaN(c.CombineMargin) {
+		return fmt.Errorf("selection: combineMargin must be >= 0, got %v", c.CombineMargin)
 	}
 	if c.CombineTop < 0 {
 		return fmt.Errorf("selection: combineTop must be >= 0, got %d", c.CombineTop)

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 	"strings"
 
@@ -182,7 +183,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 		cs := rankScore(metric, ca.Overall)
 		name := comboName(cfg.CombineMethod, top)
 		res.Scores[name] = cs
-		if cs < ranked[0].score {
+		if better := cs < ranked[0].score; better || (cfg.CombineMargin > 0 && cs <= ranked[0].score*(1+cfg.CombineMargin)) {
 			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
 				return res, nil
 			} else {
@@ -436,9 +437,13 @@ func constantValue(x []float64) (float64, bool) {
 	return x[0], true
 }
 
+// comboName names a combination by its members in zoo order, so the same set always has the
+// same name.
 func comboName(method string, top []*candidate) string {
-	names := make([]string, len(top))
-	for i, c := range top {
+	byZoo := slices.Clone(top)
+	slices.SortFunc(byZoo, func(a, b *candidate) int { return a.idx - b.idx })
+	names := make([]string, len(byZoo))
+	for i, c := range byZoo {
 		names[i] = c.spec.DisplayName()
 	}
 	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", "))

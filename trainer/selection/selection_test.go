@@ -263,3 +263,24 @@ func BenchmarkForecast(b *testing.B) {
 		}
 	}
 }
+
+// On the alternating series the naive member misses by 0.2 (MASE 1) and the combination with
+// last+1 by 0.3 or 0.7 (MASE 1.5 to 3.5): without a margin the member wins, with margin 2
+// (threshold 3·1) the combination does.
+func TestCombineMargin(t *testing.T) {
+	var y []float64
+	for i := 0; i < 12; i++ {
+		y = append(y, 100+0.2*float64(i%2))
+	}
+	cfg := Config{Horizon: 1, Zoo: specs(famLast, famUp), CombineTop: 2}
+	for margin, want := range map[float64]string{0: famLast, 2: "Combination(mean: test.Last, test.Up)"} {
+		cfg.CombineMargin = margin
+		r, err := Forecast(yearly("alt", y...), cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if r.Chosen != want {
+			t.Errorf("margin %v: chosen %s, want %s (scores %v)", margin, r.Chosen, want, r.Scores)
+		}
+	}
+}
