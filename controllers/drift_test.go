@@ -1,0 +1,140 @@
+package controllers
+
+import (
+	"math"
+	"testing"
+
+	"github.com/google/go-cmp/cmp"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/summary"
+)
+
+// TestAddAccuracyIsExactAndOrderFree folds the same shard sums in two orders. 0.1+0.2+0.3 in
+// float64 differs by order ((0.1+0.2)+0.3 = 0.6000000000000001, 0.1+(0.2+0.3) = 0.6); the
+// exact sums must not.
+func TestAddAccuracyIsExactAndOrderFree(t *testing.T) {
+	shards := []summary.Accuracy{
+		{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 70, ExpectedSum: 0.1, RealizedSum: 1.5, Drifted: 1},
+		{Metric: "MASE", Evaluated: 20, EvaluatedPoints: 140, ExpectedSum: 0.2, RealizedSum: 2.25},
+		{Metric: "MASE", Evaluated: 30, EvaluatedPoints: 210, ExpectedSum: 0.3, RealizedSum: 3, Drifted: 2},
+	}
+	fold := func(order []int) *forecastingv1alpha1.AccuracySums {
+		var sums *forecastingv1alpha1.AccuracySums
+		for _, i := range order {
+			var err error
+			if sums, err = addAccuracy(sums, shards[i]); err != nil {
+				t.Fatalf("addAccuracy: %v", err)
+			}
+		}
+		return sums
+	}
+	a, b := fold([]int{0, 1, 2}), fold([]int{2, 1, 0})
+	if diff := cmp.Diff(a, b); diff != "" {
+		t.Errorf("order matters (-012,+210):\n%s", diff)
+	}
+	want := &forecastingv1alpha1.AccuracySums{
+		Metric: "MASE", Evaluated: 60, EvaluatedPoints: 420, Drifted: 3, RealizedSum: "6.75",
+		// The exact sum of the three binary doubles nearest 0.1, 0.2 and 0.3.
+		ExpectedSum: "0.6000000000000000055511151231257827021181583404541015625",
+	}
+	if diff := cmp.Diff(want, a); diff != "" {
+		t.Errorf("sums (-want,+got):\n%s", diff)
+	}
+}
+
+func TestAddAccuracyRejects(t *testing.T) {
+	start := &forecastingv1alpha1.AccuracySums{Metric: "MASE", Evaluated: 1, ExpectedSum: "1", RealizedSum: "1"}
+	tests := map[string]summary.Accuracy{
+		"other metric": {Metric: "RMSSE", Evaluated: 1, ExpectedSum: 1, RealizedSum: 1},
+		"infinite sum": {Metric: "MASE", Evaluated: 1, ExpectedSum: math.Inf(1), RealizedSum: 1},
+		"not a number": {Metric: "MASE", Evaluated: 1, ExpectedSum: 1, RealizedSum: math.NaN()},
+	}
+	for name, a := range tests {
+		t.Run(name, func(t *testing.T) {
+			got, err := addAccuracy(start, a)
+			if err == nil {
+				t.Fatalf("no error")
+			}
+			if diff := cmp.Diff(start, got); diff != "" {
+				t.Errorf("sums changed on error (-want,+got):\n%s", diff)
+			}
+		})
+	}
+}
+
+func TestAccuracyStatus(t *testing.T) {
+	tests := map[string]struct {
+		sums *forecastingv1alpha1.AccuracySums
+		want *forecastingv1alpha1.AccuracyStatus
+	}{
+		"nothing evaluated": {sums: &forecastingv1alpha1.AccuracySums{ExpectedSum: "0", RealizedSum: "0"}},
+		"nil":               {},
+		"means and ratio": {
+			// expected 48/60 = 0.8, realized 66/60 = 1.1, ratio 66/48 = 1.375.
+			sums: &forecastingv1alpha1.AccuracySums{Metric: "MASE", Evaluated: 60, EvaluatedPoints: 420, ExpectedSum: "48", RealizedSum: "66", Drifted: 9},
+			want: &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8000", Realized: "1.1000", Ratio: "1.375",
+				EvaluatedSeries: 60, EvaluatedPoints: 420, DriftedSeries: 9, Run: "r1"},
+		},
+		"zero expected error has no ratio": {
+			sums: &forecastingv1alpha1.AccuracySums{Metric: "MAE", Evaluated: 2, EvaluatedPoints: 4, ExpectedSum: "0", RealizedSum: "1"},
+			want: &forecastingv1alpha1.AccuracyStatus{Metric: "MAE", Expected: "0.0000", Realized: "0.5000",
+				EvaluatedSeries: 2, EvaluatedPoints: 4, Run: "r1"},
+		},
+	}
+	for name, tc := range tests {
+		t.Run(name, func(t *testing.T) {
+			if diff := cmp.Diff(tc.want, accuracyStatus(tc.sums, "r1")); diff != "" {
+				t.Errorf("accuracyStatus (-want,+got):\n%s", diff)
+			}
+		})
+	}
+}
+
+func TestDriftVerdict(t *testing.T) {
+	type verdict struct {
+		Status metav1.ConditionStatus
+		Reason string
+	}
+	spec := forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100}
+	tests := map[string]struct {
+		sums *forecastingv1alpha1.AccuracySums
+		spec forecastingv1alpha1.DriftSpec
+		want verdict
+	}{
+		"not evaluated": {spec: spec, want: verdict{metav1.ConditionUnknown, forecastingv1alpha1.ReasonNotEvaluated}},
+		"too few points": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 99, ExpectedSum: "1", RealizedSum: "9"},
+			spec: spec, want: verdict{metav1.ConditionUnknown, forecastingv1alpha1.ReasonTooFewPoints},
+		},
+		"exactly at the threshold is within": {
+			// 1.3 is not a binary double, so use sums whose ratio is exactly 13/10.
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 100, ExpectedSum: "10", RealizedSum: "13"},
+			spec: spec, want: verdict{metav1.ConditionFalse, forecastingv1alpha1.ReasonWithinThreshold},
+		},
+		"just above the threshold": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 100, ExpectedSum: "10", RealizedSum: "13.0000001"},
+			spec: spec, want: verdict{metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold},
+		},
+		"defaults apply when the spec is empty": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 100, ExpectedSum: "10", RealizedSum: "14"},
+			want: verdict{metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold},
+		},
+		"better than promised": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 500, ExpectedSum: "10", RealizedSum: "8"},
+			spec: spec, want: verdict{metav1.ConditionFalse, forecastingv1alpha1.ReasonWithinThreshold},
+		},
+	}
+	for name, tc := range tests {
+		t.Run(name, func(t *testing.T) {
+			status, reason, msg := driftVerdict(tc.sums, tc.spec)
+			if diff := cmp.Diff(tc.want, verdict{status, reason}); diff != "" {
+				t.Errorf("driftVerdict (-want,+got):\n%s\nmessage: %s", diff, msg)
+			}
+			if msg == "" {
+				t.Errorf("empty message")
+			}
+		})
+	}
+}
