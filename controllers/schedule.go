@@ -4,6 +4,9 @@ import (
 	"fmt"
 	"strings"
 	"time"
+	// The IANA zone database is embedded so that spec.timeZone works without zoneinfo files
+	// in the image.
+	_ "time/tzdata"
 
 	"github.com/robfig/cron/v3"
 
@@ -23,8 +26,8 @@ const maxScheduleSteps = 100
 //     ReasonInvalidTimeZone;
 //   - message, a sentence for the Stalled condition and the Warning Event.
 //
-// The zone is loaded from the IANA database (the binary embeds time/tzdata, so no file on the
-// node is needed). Like a Kubernetes CronJob, the schedule is read in the zone's wall clock:
+// The zone is loaded from the IANA database (this package embeds time/tzdata, so no file in
+// the image is needed). Like a Kubernetes CronJob, the schedule is read in the zone's wall clock:
 // a time that falls in a daylight-saving gap does not occur that day, and a time in a repeated
 // hour occurs twice, once per UTC offset (the behaviour of github.com/robfig/cron/v3, which
 // the CronJob controller also uses; pinned by the tests in schedule_test.go).
