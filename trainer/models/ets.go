@@ -302,6 +302,40 @@ func etsFinish(y []float64, m int, form ETSForm, errT, trend, season int8, st *e
 	return fit, nil
 }
 
+// etsStage1 is the evaluation budget per weight and start of the weights-only first stage.
+const etsStage1 = 40
+
+// etsSeedCount returns how many seed states a form estimates: l0, b0 and m-1 seasonal seeds.
+func etsSeedCount(trend, season int8, m int) int {
+	c := 1
+	if trend != etsNone {
+		c++
+	}
+	if season != etsNone {
+		c += m - 1
+	}
+	return c
+}
+
+// etsLivelyStart overwrites starting weights [alpha, beta, gamma, phi] (those present) with a
+// second start far from R's: alpha 0.5, beta 0.05, gamma 0.1, phi 0.9.
+func etsLivelyStart(w []float64, trend, season int8) {
+	i := 0
+	w[i] = 0.5
+	i++
+	if trend != etsNone {
+		w[i] = 0.05
+		i++
+	}
+	if season != etsNone {
+		w[i] = 0.1
+		i++
+	}
+	if trend == etsDamped {
+		w[i] = 0.9
+	}
+}
+
 // etsBudget is the number of likelihood evaluations allowed per form and free parameter;
 // the Nelder-Mead search restarts once from its best point while budget remains.
 const etsBudget = 120
@@ -316,6 +350,9 @@ type etsFitter struct {
 	buf      []float64
 	poly     []float64
 	x0, step []float64
+	full     []float64
+	wStart   []float64
+	wTry     []float64
 	nm       nmWork
 	st       etsState
 	scale    float64
@@ -466,21 +503,58 @@ func (ft *etsFitter) fit(form ETSForm, errT, trend, season int8) (*ETSFit, error
 		c, _ := etsPass(ft.y, m, errT, trend, season, &ft.st, ft.buf, nil, nil, nil)
 		return c
 	}
-	budget := etsBudget * (d + 1)
-	res := nelderMead(eval, x0, step, budget, 1e-8, &ft.nm)
-	evals := res.Evals
+	// Stage 1: the weights alone, seeds held at the heuristic values, from R's starting
+	// weights and from a second, livelier start (alpha 0.5); the better result seeds stage 2.
+	dw := d - etsSeedCount(trend, season, m)
+	full := ft.full[:0]
+	full = append(full, x0...)
+	ft.full = full
+	evalW := func(xw []float64) float64 {
+		copy(full[:dw], xw)
+		return eval(full)
+	}
+	evals := 0
+	bestW := math.Inf(1)
+	wStart := ft.wStart[:0]
+	wStart = append(wStart, x0[:dw]...)
+	ft.wStart = wStart
+	for try := 0; try < 2; try++ {
+		start := append(ft.wTry[:0], wStart...)
+		ft.wTry = start
+		if try == 1 {
+			etsLivelyStart(start, trend, season)
+		}
+		r := nelderMead(evalW, start, step[:dw], etsStage1*(dw+1), 1e-8, &ft.nm)
+		evals += r.Evals
+		if r.F < bestW {
+			bestW = r.F
+			copy(x0[:dw], r.X)
+		}
+	}
+	if math.IsInf(bestW, 1) {
+		return nil, fmt.Errorf("models: ETS: %s: the likelihood is not finite at the starting values", form)
+	}
+	// Stage 2: weights and seeds jointly.
+	budget := etsBudget*(d+1) + evals
+	res := nelderMead(eval, x0, step, budget-evals, 1e-8, &ft.nm)
+	evals += res.Evals
 	if res.Status == nmNoFiniteSeed {
 		return nil, fmt.Errorf("models: ETS: %s: the likelihood is not finite at the starting values", form)
 	}
-	// One restart from the best point with a fresh simplex guards against the simplex having
+	// Up to three restarts from the best point with a fresh simplex, while they still improve,
+	// guard against the simplex having
 	// collapsed on a ridge (common practice with Nelder-Mead).
-	if evals < budget {
+	for restart := 0; restart < 3 && evals < budget; restart++ {
 		copy(x0, res.X)
 		f0 := res.F
 		res = nelderMead(eval, x0, step, budget-evals, 1e-8, &ft.nm)
 		evals += res.Evals
-		if res.F > f0 {
+		if res.F >= f0 {
 			res.X, res.F = x0, f0
+			break
+		}
+		if f0-res.F < 1e-6*math.Abs(f0) {
+			break
 		}
 	}
 	if !ft.decode(res.X, trend, season) {
