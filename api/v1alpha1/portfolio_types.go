@@ -185,10 +185,12 @@ type ForecastPortfolioSpec struct {
 
 	// selection says how the best model per series is chosen.
 	// +optional
+	// +kubebuilder:default={}
 	Selection SelectionSpec `json:"selection,omitempty"`
 
 	// sharding limits how the work is cut and how many trainer pods run at once.
 	// +optional
+	// +kubebuilder:default={}
 	Sharding ShardingSpec `json:"sharding,omitempty"`
 
 	// trainer describes the trainer pods.
@@ -197,6 +199,7 @@ type ForecastPortfolioSpec struct {
 
 	// drift says when realized accuracy counts as slipped against what the backtest promised.
 	// +optional
+	// +kubebuilder:default={}
 	Drift DriftSpec `json:"drift,omitempty"`
 }
 
@@ -218,6 +221,7 @@ type DataSource struct {
 
 	// columns maps the input table's columns.
 	// +optional
+	// +kubebuilder:default={}
 	Columns ColumnMapping `json:"columns,omitempty"`
 
 	// frequency is the spacing of the periods.
@@ -268,6 +272,7 @@ type ColumnMapping struct {
 	// +kubebuilder:validation:MinItems=1
 	// +kubebuilder:validation:MaxItems=8
 	// +kubebuilder:validation:items:MinLength=1
+	// +kubebuilder:validation:items:MaxLength=128
 	// +kubebuilder:validation:XValidation:rule="self.all(c, self.exists_one(d, d == c))",message="series key columns must be unique"
 	Series []string `json:"series,omitempty"`
 
@@ -275,18 +280,21 @@ type ColumnMapping struct {
 	// +optional
 	// +kubebuilder:default=date
 	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=128
 	Date string `json:"date,omitempty"`
 
 	// value is the observation column. Default "value".
 	// +optional
 	// +kubebuilder:default=value
 	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=128
 	Value string `json:"value,omitempty"`
 
 	// covariates are extra numeric columns carried with each series (prices, promotions).
 	// +optional
 	// +kubebuilder:validation:MaxItems=64
 	// +kubebuilder:validation:items:MinLength=1
+	// +kubebuilder:validation:items:MaxLength=128
 	Covariates []string `json:"covariates,omitempty"`
 }
 
@@ -339,6 +347,7 @@ type ModelSpec struct {
 
 // ETSComponent is the code of one ETS component form.
 // +kubebuilder:validation:Enum=N;A;Ad;M
+// +kubebuilder:validation:MaxLength=2
 type ETSComponent string
 
 // ETSSettings restricts the forms of the automatic ETS search (Hyndman et al. 2008 taxonomy).
@@ -350,6 +359,7 @@ type ETSSettings struct {
 	Errors []ETSComponent `json:"errors,omitempty"`
 
 	// trends lists the trend forms: N (none), A (additive), Ad (damped additive). Default all.
+	// Quote the codes in YAML ("N"): unquoted N is read as a boolean by YAML 1.1 parsers.
 	// +optional
 	// +kubebuilder:validation:MaxItems=3
 	// +kubebuilder:validation:XValidation:rule="self.all(c, c in ['N', 'A', 'Ad'])",message="trends may only be N, A or Ad"
@@ -367,12 +377,14 @@ type SmoothingSettings struct {
 	// alpha smooths demand sizes (and intervals for Croston and SBA), e.g. "0.1".
 	// +optional
 	// +kubebuilder:validation:Pattern=`^(0?\.[0-9]{1,6}|1(\.0{1,6})?)$`
+	// +kubebuilder:validation:MaxLength=8
 	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0",message="alpha must be greater than 0"
 	Alpha string `json:"alpha,omitempty"`
 
 	// beta smooths the demand probability of TSB, e.g. "0.05".
 	// +optional
 	// +kubebuilder:validation:Pattern=`^(0?\.[0-9]{1,6}|1(\.0{1,6})?)$`
+	// +kubebuilder:validation:MaxLength=8
 	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0",message="beta must be greater than 0"
 	Beta string `json:"beta,omitempty"`
 }

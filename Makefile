@@ -1,0 +1,92 @@
+# almanac: build, generate, test. Every tool runs through `go run` at a pinned version, so a new
+# machine needs only Go; `make controlplane` builds the Kubernetes binaries the tests use.
+
+SHELL := /usr/bin/env bash
+.SHELLFLAGS := -eu -o pipefail -c
+
+K8S_VERSION      ?= v1.37.2
+CONTROLLER_GEN   ?= go run sigs.k8s.io/controller-tools/cmd/controller-gen@v0.23.0
+KUBEBUILDER_ASSETS ?= $(CURDIR)/bin/k8s/$(K8S_VERSION)
+export KUBEBUILDER_ASSETS
+
+VERSION ?= $(shell git describe --tags --always --dirty 2>/dev/null || echo dev)
+COMMIT  ?= $(shell git rev-parse --short HEAD 2>/dev/null || echo unknown)
+# The same flags the Dockerfile uses (test/packaging checks they agree).
+GO_BUILD_FLAGS ?= -trimpath -ldflags "-s -w -X main.version=$(VERSION) -X main.commit=$(COMMIT)"
+
+# Fuzz targets run briefly as part of `make test` (each for FUZZTIME).
+FUZZTIME ?= 5s
+
+.PHONY: all
+all: build
+
+##@ Build
+
+.PHONY: build
+build: ## Build the controller and the trainer into bin/.
+	CGO_ENABLED=0 go build $(GO_BUILD_FLAGS) -o bin/almanac-controller .
+	CGO_ENABLED=0 go build $(GO_BUILD_FLAGS) -o bin/almanac-trainer ./trainer/cmd/almanac-trainer
+
+.PHONY: generate
+generate: ## Generate deepcopy code for the API types.
+	$(CONTROLLER_GEN) object paths=./api/...
+
+.PHONY: manifests
+manifests: ## Generate CRDs and RBAC from the markers, and copy the CRDs into the Helm chart.
+	$(CONTROLLER_GEN) crd paths=./api/... output:crd:artifacts:config=config/crd/bases
+	@if grep -rqs 'kubebuilder:rbac' controllers; then \
+	  $(CONTROLLER_GEN) rbac:roleName=manager paths=./controllers/... output:rbac:artifacts:config=config/rbac; fi
+	@if [ -d charts/almanac/crds ]; then cp config/crd/bases/*.yaml charts/almanac/crds/; fi
+
+.PHONY: controlplane
+controlplane: ## Build etcd, kube-apiserver, kube-controller-manager, kubectl into bin/k8s/<version>/ (skips what exists).
+	bash test/tools/controlplane/build.sh
+
+.PHONY: s3server
+s3server: ## Build the S3-compatible test server into bin/.
+	@if [ -f test/tools/s3server/go.mod ]; then cd test/tools/s3server && go build -o ../../../bin/s3server . ; fi
+
+##@ Check
+
+.PHONY: lint
+lint: ## gofmt and go vet.
+	@out=$$(gofmt -l $$(git ls-files '*.go')); if [ -n "$$out" ]; then echo "gofmt needed:"; echo "$$out"; exit 1; fi
+	go vet ./...
+
+.PHONY: check-generated
+check-generated: generate manifests ## Fail if generated files are stale.
+	@git diff --exit-code -- api config charts || { echo "generated files are stale: run make generate manifests"; exit 1; }
+
+.PHONY: test
+test: controlplane s3server lint test-unit test-fuzz test-e2e ## Everything CI runs.
+
+.PHONY: test-unit
+test-unit: ## Unit, reference and envtest suites against the self-built control plane.
+	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server go test -count=1 -timeout 30m ./...
+
+.PHONY: test-fuzz
+test-fuzz: ## Run every fuzz target briefly.
+	@for f in $$(grep -rlE '^func Fuzz' --include='*_test.go' api controllers trainer test 2>/dev/null | sort); do \
+	  for t in $$(grep -oE '^func Fuzz[A-Za-z0-9_]+' $$f | sed 's/^func //'); do \
+	    echo "fuzz ./$$(dirname $$f) $$t ($(FUZZTIME))"; \
+	    go test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZTIME) ./$$(dirname $$f) || exit 1; done; done
+
+.PHONY: test-e2e
+test-e2e: ## End-to-end tests with the real Job controller (when present).
+	@if [ -d test/e2e ]; then go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi
+
+.PHONY: bench
+bench: ## Benchmarks (speed and memory figures for README).
+	go test -run '^$$' -bench . -benchmem ./trainer/... ./controllers/...
+
+.PHONY: demo
+demo: ## Run the demo on a local control plane.
+	@if [ -f test/e2e/demo/main.go ]; then go run ./test/e2e/demo; else echo "make demo lands with the end-to-end issue; see README"; exit 1; fi
+
+.PHONY: clean
+clean:
+	rm -rf bin/almanac-* demo-output
+
+.PHONY: help
+help:
+	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z_-]+:.*?##/ { printf "  %-16s %s\n", $$1, $$2 }' $(MAKEFILE_LIST)

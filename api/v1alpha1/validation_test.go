@@ -1,0 +1,340 @@
+package v1alpha1_test
+
+import (
+	"bytes"
+	"os"
+	"os/exec"
+	"path/filepath"
+
+	. "github.com/onsi/ginkgo/v2"
+	. "github.com/onsi/gomega"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	"k8s.io/apimachinery/pkg/apis/meta/v1/unstructured"
+	"k8s.io/apimachinery/pkg/util/yaml"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/envtest"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+)
+
+// validPortfolio returns a minimal valid portfolio as an unstructured object, so each invalid
+// case can break exactly one thing without the Go types' omitempty hiding it.
+func validPortfolio(name string) *unstructured.Unstructured {
+	u := &unstructured.Unstructured{Object: map[string]any{
+		"apiVersion": "forecasting.almanac.dev/v1alpha1",
+		"kind":       "ForecastPortfolio",
+		"metadata":   map[string]any{"name": name, "namespace": "default"},
+		"spec": map[string]any{
+			"schedule": "0 3 * * *",
+			"source": map[string]any{
+				"uri":       "file:///data/demand/",
+				"frequency": "Daily",
+				"columns":   map[string]any{"series": []any{"item", "depot"}},
+			},
+			"output":  map[string]any{"uri": "file:///data/forecasts/"},
+			"horizon": int64(14),
+			"models": []any{
+				map[string]any{"family": "Naive"},
+				map[string]any{"family": "ETS"},
+				map[string]any{"family": "Croston"},
+			},
+			"trainer": map[string]any{"image": "almanac-trainer:test"},
+		},
+	}}
+	return u
+}
+
+func validRun(name string) *unstructured.Unstructured {
+	return &unstructured.Unstructured{Object: map[string]any{
+		"apiVersion": "forecasting.almanac.dev/v1alpha1",
+		"kind":       "ForecastRun",
+		"metadata":   map[string]any{"name": name, "namespace": "default"},
+		"spec":       map[string]any{"portfolioName": "demand", "trigger": "Manual"},
+	}}
+}
+
+// set writes value at the dotted path under the object (creating maps on the way).
+func set(u *unstructured.Unstructured, value any, path ...string) {
+	Expect(unstructured.SetNestedField(u.Object, value, path...)).To(Succeed())
+}
+
+func del(u *unstructured.Unstructured, path ...string) {
+	unstructured.RemoveNestedField(u.Object, path...)
+}
+
+type invalidCase struct {
+	mutate func(u *unstructured.Unstructured)
+	// want are substrings the apiserver's message must contain: the field path and the reason.
+	want []string
+	run  bool
+}
+
+var _ = Describe("CRD validation", func() {
+	It("accepts a minimal portfolio and fills the documented defaults", func() {
+		u := validPortfolio("minimal")
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		var fp forecastingv1alpha1.ForecastPortfolio
+		Expect(k8sClient.Get(ctx, client.ObjectKey{Namespace: "default", Name: "minimal"}, &fp)).To(Succeed())
+		Expect(fp.Spec.ConcurrencyPolicy).To(Equal(forecastingv1alpha1.ForbidConcurrent))
+		Expect(fp.Spec.QuantilePercents).To(Equal([]int32{10, 50, 90}))
+		Expect(*fp.Spec.SuccessfulRunsHistoryLimit).To(Equal(int32(3)))
+		Expect(*fp.Spec.FailedRunsHistoryLimit).To(Equal(int32(1)))
+		Expect(fp.Spec.Source.Format).To(Equal(forecastingv1alpha1.FormatCSV))
+		Expect(fp.Spec.Source.Columns.Date).To(Equal("date"))
+		Expect(fp.Spec.Source.Columns.Value).To(Equal("value"))
+		Expect(fp.Spec.Output.Format).To(Equal(forecastingv1alpha1.FormatParquet))
+		Expect(fp.Spec.Selection.Metric).To(Equal(forecastingv1alpha1.MetricMASE))
+		Expect(fp.Spec.Selection.BacktestOrigins).To(Equal(int32(3)))
+		Expect(fp.Spec.Sharding.TargetSeriesPerShard).To(Equal(int32(2000)))
+		Expect(fp.Spec.Sharding.MaxParallel).To(Equal(int32(8)))
+		Expect(fp.Spec.Drift.ThresholdPercent).To(Equal(int32(130)))
+		Expect(fp.Spec.Drift.Action).To(Equal(forecastingv1alpha1.DriftReport))
+	})
+
+	It("accepts every sample in config/samples", func() {
+		files, err := filepath.Glob(filepath.Join(repoRoot, "config", "samples", "forecasting_*.yaml"))
+		Expect(err).NotTo(HaveOccurred())
+		Expect(files).NotTo(BeEmpty())
+		for _, f := range files {
+			b, err := os.ReadFile(f)
+			Expect(err).NotTo(HaveOccurred())
+			dec := yaml.NewYAMLOrJSONDecoder(bytes.NewReader(b), 4096)
+			for {
+				u := &unstructured.Unstructured{}
+				if err := dec.Decode(&u.Object); err != nil {
+					break
+				}
+				if len(u.Object) == 0 {
+					continue
+				}
+				_, hasStatus := u.Object["status"]
+				Expect(hasStatus).To(BeFalse(), "%s: samples carry no status", f)
+				Expect(k8sClient.Create(ctx, u)).To(Succeed(), "sample %s (%s)", f, u.GetName())
+			}
+		}
+	})
+
+	DescribeTable("rejects invalid objects with a message naming the field",
+		func(c invalidCase) {
+			u := validPortfolio("invalid")
+			if c.run {
+				u = validRun("invalid-run")
+			}
+			c.mutate(u)
+			err := k8sClient.Create(ctx, u, client.DryRunAll)
+			Expect(err).To(HaveOccurred(), "the apiserver accepted %v", u.Object["spec"])
+			Expect(apierrors.IsInvalid(err)).To(BeTrue(), "want an Invalid error, got %v", err)
+			for _, w := range c.want {
+				Expect(err.Error()).To(ContainSubstring(w))
+			}
+		},
+		Entry("schedule with four fields", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "0 3 * *", "spec", "schedule") },
+			want:   []string{"spec.schedule", "5 fields"}}),
+		Entry("schedule carrying a time zone", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "CRON_TZ=UTC 0 3 * * *", "spec", "schedule") },
+			want:   []string{"spec.schedule", "use spec.timeZone"}}),
+		Entry("schedule missing", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "schedule") },
+			want:   []string{"spec.schedule", "Required"}}),
+		Entry("time zone with a space", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Europe/New York", "spec", "timeZone") },
+			want:   []string{"spec.timeZone"}}),
+		Entry("unknown concurrency policy", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Allow", "spec", "concurrencyPolicy") },
+			want:   []string{"spec.concurrencyPolicy", `"Forbid", "Replace"`}}),
+		Entry("zero starting deadline", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "startingDeadlineSeconds") },
+			want:   []string{"spec.startingDeadlineSeconds", "greater than or equal to 1"}}),
+		Entry("negative history limit", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(-1), "spec", "successfulRunsHistoryLimit") },
+			want:   []string{"spec.successfulRunsHistoryLimit"}}),
+		Entry("source over http", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "http://example.com/d.csv", "spec", "source", "uri") },
+			want:   []string{"spec.source.uri", "must start with file://"}}),
+		Entry("source with a parent path segment", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "file:///data/../etc/", "spec", "source", "uri") },
+			want:   []string{"spec.source.uri", "'..'"}}),
+		Entry("unknown input format", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "xlsx", "spec", "source", "format") },
+			want:   []string{"spec.source.format", `"csv", "parquet"`}}),
+		Entry("unknown frequency", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Fortnightly", "spec", "source", "frequency") },
+			want:   []string{"spec.source.frequency"}}),
+		Entry("repeated series key column", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{"item", "item"}, "spec", "source", "columns", "series")
+			},
+			want: []string{"spec.source.columns.series", "must be unique"}}),
+		Entry("covariate repeating a key column", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{"price", "depot"}, "spec", "source", "columns", "covariates")
+			},
+			want: []string{"spec.source.columns", "covariates must not repeat a series key column"}}),
+		Entry("date and value the same column", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "date", "spec", "source", "columns", "value") },
+			want:   []string{"spec.source.columns", "date and value must be different"}}),
+		Entry("secret reference with an invalid name", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, "Other_NS/creds", "spec", "source", "credentialsSecretRef", "name")
+			},
+			want: []string{"spec.source.credentialsSecretRef.name"}}),
+		Entry("output missing", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "output", "uri") },
+			want:   []string{"spec.output.uri", "Required"}}),
+		Entry("zero horizon", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "horizon") },
+			want:   []string{"spec.horizon", "greater than or equal to 1"}}),
+		Entry("horizon too long", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(5000), "spec", "horizon") },
+			want:   []string{"spec.horizon", "less than or equal to 1000"}}),
+		Entry("quantiles out of order", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, []any{int64(90), int64(10)}, "spec", "quantilePercents") },
+			want:   []string{"spec.quantilePercents", "strictly increasing"}}),
+		Entry("repeated quantile", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, []any{int64(50), int64(50)}, "spec", "quantilePercents") },
+			want:   []string{"spec.quantilePercents", "strictly increasing"}}),
+		Entry("quantile at 0 percent", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, []any{int64(0), int64(50)}, "spec", "quantilePercents") },
+			want:   []string{"spec.quantilePercents[0]", "greater than or equal to 1"}}),
+		Entry("quantile at 100 percent", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, []any{int64(50), int64(100)}, "spec", "quantilePercents") },
+			want:   []string{"spec.quantilePercents[1]", "less than or equal to 99"}}),
+		Entry("empty zoo", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, []any{}, "spec", "models") },
+			want:   []string{"spec.models"}}),
+		Entry("two members with one name", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "ETS"}, map[string]any{"family": "ETS"}}, "spec", "models")
+			},
+			want: []string{"spec.models", "unique names"}}),
+		Entry("unknown model family", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "NeuralNet"}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].family", "Unsupported value"}}),
+		Entry("ETS settings on Theta", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Theta", "ets": map[string]any{"trends": []any{"N"}}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0]", "ets settings are only for family ETS"}}),
+		Entry("multiplicative ETS trend", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "ETS", "ets": map[string]any{"trends": []any{"M"}}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].ets.trends", "N, A or Ad"}}),
+		Entry("smoothing weight above one", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Croston", "smoothing": map[string]any{"alpha": "1.5"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].smoothing.alpha"}}),
+		Entry("zero smoothing weight", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "SBA", "smoothing": map[string]any{"alpha": "0.0"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].smoothing.alpha", "greater than 0"}}),
+		Entry("beta on Croston", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Croston", "smoothing": map[string]any{"beta": "0.1"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0]", "smoothing.beta is only for family TSB"}}),
+		Entry("zero season length", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "ETS", "seasonLength": int64(0)}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].seasonLength"}}),
+		Entry("no backtest origins", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "selection", "backtestOrigins") },
+			want:   []string{"spec.selection.backtestOrigins"}}),
+		Entry("combining one member", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(1), "spec", "selection", "combine", "top") },
+			want:   []string{"spec.selection.combine.top", "greater than or equal to 2"}}),
+		Entry("combining more members than the zoo has", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(5), "spec", "selection", "combine", "top") },
+			want:   []string{"spec", "selection.combine.top must not exceed the number of models"}}),
+		Entry("no parallel pods", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "sharding", "maxParallel") },
+			want:   []string{"spec.sharding.maxParallel"}}),
+		Entry("no series per shard", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "sharding", "targetSeriesPerShard") },
+			want:   []string{"spec.sharding.targetSeriesPerShard"}}),
+		Entry("drift threshold not above 100 percent", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(100), "spec", "drift", "thresholdPercent") },
+			want:   []string{"spec.drift.thresholdPercent", "greater than or equal to 101"}}),
+		Entry("unknown drift action", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Page", "spec", "drift", "action") },
+			want:   []string{"spec.drift.action", `"Report", "Retrain"`}}),
+		Entry("no trainer image", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "trainer", "image") },
+			want:   []string{"spec.trainer.image", "Required"}}),
+		Entry("run without portfolio", invalidCase{run: true,
+			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "portfolioName") },
+			want:   []string{"spec.portfolioName", "Required"}}),
+		Entry("run naming a portfolio in another namespace", invalidCase{run: true,
+			mutate: func(u *unstructured.Unstructured) { set(u, "other/demand", "spec", "portfolioName") },
+			want:   []string{"spec.portfolioName"}}),
+		Entry("scheduled run without a time", invalidCase{run: true,
+			mutate: func(u *unstructured.Unstructured) { set(u, "Schedule", "spec", "trigger") },
+			want:   []string{"spec", "scheduledTime is required when trigger is Schedule"}}),
+		Entry("unknown trigger", invalidCase{run: true,
+			mutate: func(u *unstructured.Unstructured) { set(u, "Cron", "spec", "trigger") },
+			want:   []string{"spec.trigger", `"Schedule", "Manual", "Drift"`}}),
+	)
+
+	It("keeps a run's spec immutable", func() {
+		u := validRun("immutable")
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		set(u, "another", "spec", "portfolioName")
+		err := k8sClient.Update(ctx, u)
+		Expect(err).To(HaveOccurred())
+		Expect(err.Error()).To(ContainSubstring("spec is immutable"))
+	})
+
+	It("keeps status out of the main resource (status subresource)", func() {
+		u := validPortfolio("status-sub")
+		set(u, map[string]any{"lastSuccessfulRun": "forged"}, "status")
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		var fp forecastingv1alpha1.ForecastPortfolio
+		Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), &fp)).To(Succeed())
+		Expect(fp.Status.LastSuccessfulRun).To(BeEmpty())
+		fp.Status.LastSuccessfulRun = "r1"
+		fp.Status.ObservedGeneration = fp.Generation
+		Expect(k8sClient.Status().Update(ctx, &fp)).To(Succeed())
+		Expect(fp.Status.LastSuccessfulRun).To(Equal("r1"))
+	})
+
+	It("documents the spec for kubectl explain", func() {
+		kubectl := filepath.Join(os.Getenv("KUBEBUILDER_ASSETS"), "kubectl")
+		if _, err := os.Stat(kubectl); err != nil {
+			Skip("kubectl not built in KUBEBUILDER_ASSETS")
+		}
+		kubeconfig := writeKubeconfig()
+		out := explain(kubectl, kubeconfig, "forecastportfolio.spec")
+		for _, field := range []string{"schedule", "timeZone", "concurrencyPolicy", "source", "models", "selection", "sharding", "drift", "quantilePercents", "horizon"} {
+			Expect(out).To(ContainSubstring(field + "\t"))
+		}
+		Expect(out).To(ContainSubstring("5-field cron expression"))
+		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.drift.thresholdPercent")).
+			To(ContainSubstring("realized error exceeds this percent"))
+		Expect(explain(kubectl, kubeconfig, "frun.status.shards")).To(ContainSubstring("folded"))
+	})
+})
+
+func explain(kubectl, kubeconfig, path string) string {
+	cmd := exec.Command(kubectl, "--kubeconfig", kubeconfig, "explain", path)
+	out, err := cmd.CombinedOutput()
+	Expect(err).NotTo(HaveOccurred(), "kubectl explain %s: %s", path, out)
+	GinkgoWriter.Printf("kubectl explain %s:\n%s\n", path, out)
+	return string(out)
+}
+
+// writeKubeconfig writes the envtest admin credentials for kubectl.
+func writeKubeconfig() string {
+	user, err := testEnv.ControlPlane.AddUser(envtest.User{Name: "almanac-test-admin", Groups: []string{"system:masters"}}, nil)
+	Expect(err).NotTo(HaveOccurred())
+	b, err := user.KubeConfig()
+	Expect(err).NotTo(HaveOccurred())
+	p := filepath.Join(GinkgoT().TempDir(), "kubeconfig")
+	Expect(os.WriteFile(p, b, 0o600)).To(Succeed())
+	return p
+}
