@@ -90,3 +90,8 @@ clean:
 .PHONY: help
 help:
 	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z_-]+:.*?##/ { printf "  %-16s %s\n", $$1, $$2 }' $(MAKEFILE_LIST)
+
+.PHONY: fixtures
+fixtures: ## Regenerate the R forecast 8.20 fixtures (needs Debian's r-cran-forecast; CI does not run R).
+	Rscript test/reference/r/simple.R | gofmt > test/reference/simple_fixtures_test.go
+	Rscript test/reference/r/ets.R | gofmt > test/reference/ets_fixtures_test.go
