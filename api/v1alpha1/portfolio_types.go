@@ -585,6 +585,10 @@ const (
 	ReasonSpecValid        = "SpecValid"
 	ReasonMissedSchedule   = "MissedSchedule"
 	ReasonSkippedForbidden = "SkippedForbidden"
+	// ReasonIdle: no run is active (the Reconciling condition is False).
+	ReasonIdle = "Idle"
+	// ReasonRunsReplaced: concurrencyPolicy Replace is stopping the active runs for a due one.
+	ReasonRunsReplaced = "ReplacingRuns"
 )
 
 // ForecastPortfolioStatus is the observed state of a portfolio.

@@ -78,6 +78,8 @@ const (
 	ReasonPortfolioNotFound = "PortfolioNotFound"
 	ReasonReplaced          = "Replaced"
 	ReasonDeadlineExceeded  = "DeadlineExceeded"
+	// ReasonNameTooLong: the run's name leaves no room for its Job names (63 characters).
+	ReasonNameTooLong = "NameTooLong"
 )
 
 // ForecastRunStatus is the observed state of a run.
@@ -164,6 +166,10 @@ type ShardCounts struct {
 
 // SeriesCounts counts series of a run.
 type SeriesCounts struct {
+	// planned is the plan's count of series in the input (an estimate when the input is not
+	// partitioned by series); the portfolio's backlog is planned minus total.
+	// +optional
+	Planned int64 `json:"planned,omitempty"`
 	// total series seen by the shards folded so far.
 	Total int64 `json:"total"`
 	// trained series that got a forecast.
