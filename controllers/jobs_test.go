@@ -1,0 +1,125 @@
+package controllers
+
+import (
+	"testing"
+
+	"github.com/google/go-cmp/cmp"
+	batchv1 "k8s.io/api/batch/v1"
+	corev1 "k8s.io/api/core/v1"
+	"k8s.io/apimachinery/pkg/api/resource"
+	"k8s.io/utils/ptr"
+)
+
+func TestBuildTrainJob(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Sharding.MaxFailedShards = ptr.To[int32](5)
+	fp.Spec.Sharding.RetriesPerShard = ptr.To[int32](3)
+	fp.Spec.Sharding.MaxParallel = 6
+	fp.Spec.Trainer.PriorityClassName = "batch-low"
+	fp.Spec.Trainer.NodeSelector = map[string]string{"pool": "forecast"}
+	fp.Spec.Trainer.Resources.Requests = corev1.ResourceList{corev1.ResourceCPU: resource.MustParse("500m")}
+	run := fenwickRun("fenwick-weekly-29407950")
+	job := buildJob(fp, run, stepTrain, jobParams{Shards: 3, Parallelism: 2})
+
+	if job.Name != "fenwick-weekly-29407950-train" {
+		t.Errorf("name = %q", job.Name)
+	}
+	checks := map[string]struct{ got, want any }{
+		"completion mode":    {*job.Spec.CompletionMode, batchv1.IndexedCompletion},
+		"completions":        {*job.Spec.Completions, int32(3)},
+		"parallelism":        {*job.Spec.Parallelism, int32(2)},
+		"backoff per index":  {*job.Spec.BackoffLimitPerIndex, int32(3)},
+		"max failed indexes": {*job.Spec.MaxFailedIndexes, int32(3)}, // capped at completions
+		"no job backoff":     {job.Spec.BackoffLimit, (*int32)(nil)},
+		"ttl":                {*job.Spec.TTLSecondsAfterFinished, int32(86400)},
+		"run label":          {job.Spec.Template.Labels[LabelRun], run.Name},
+		"step label":         {job.Spec.Template.Labels[LabelStep], "train"},
+		"max parallel note":  {job.Annotations[annotationMaxParallel], "6"},
+		"permanent action":   {job.Spec.PodFailurePolicy.Rules[0].Action, batchv1.PodFailurePolicyActionFailIndex},
+		"permanent codes":    {job.Spec.PodFailurePolicy.Rules[0].OnExitCodes.Values, []int32{2, 3}},
+		"disruption ignored": {job.Spec.PodFailurePolicy.Rules[1].Action, batchv1.PodFailurePolicyActionIgnore},
+		"disruption type":    {job.Spec.PodFailurePolicy.Rules[1].OnPodConditions[0].Type, corev1.DisruptionTarget},
+	}
+	for name, c := range checks {
+		if diff := cmp.Diff(c.want, c.got); diff != "" {
+			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+	maxParallel, weight := jobShareLimits(job)
+	if maxParallel != 6 || weight != 1 {
+		t.Errorf("jobShareLimits = %d, %d; want 6, 1", maxParallel, weight)
+	}
+}
+
+func TestBuildPlanJobAndPod(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Trainer.PriorityClassName = "batch-low"
+	fp.Spec.Trainer.NodeSelector = map[string]string{"pool": "forecast"}
+	run := fenwickRun("fenwick-weekly-29407950")
+	job := buildJob(fp, run, stepPlan, jobParams{})
+	if job.Spec.CompletionMode != nil || *job.Spec.Completions != 1 || *job.Spec.BackoffLimit != 2 {
+		t.Errorf("plan job spec: mode %v completions %d backoff %d", job.Spec.CompletionMode, *job.Spec.Completions, *job.Spec.BackoffLimit)
+	}
+	if a := job.Spec.PodFailurePolicy.Rules[0].Action; a != batchv1.PodFailurePolicyActionFailJob {
+		t.Errorf("permanent exit codes action = %s, want FailJob", a)
+	}
+	pod := job.Spec.Template.Spec
+	c := pod.Containers[0]
+	wantArgs := []string{"plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log"}
+	if diff := cmp.Diff(wantArgs, c.Args); diff != "" {
+		t.Errorf("args (-want,+got):\n%s", diff)
+	}
+	if c.Command != nil {
+		t.Errorf("command = %v, want the image entrypoint", c.Command)
+	}
+	// Restricted Pod Security Standard (Kubernetes docs, "Pod Security Standards", restricted
+	// profile): non-root, no privilege escalation, all capabilities dropped, RuntimeDefault seccomp.
+	sc := c.SecurityContext
+	checks := map[string]struct{ got, want any }{
+		"restart":          {pod.RestartPolicy, corev1.RestartPolicyNever},
+		"no token":         {*pod.AutomountServiceAccountToken, false},
+		"non-root pod":     {*pod.SecurityContext.RunAsNonRoot, true},
+		"pod seccomp":      {pod.SecurityContext.SeccompProfile.Type, corev1.SeccompProfileTypeRuntimeDefault},
+		"non-root":         {*sc.RunAsNonRoot, true},
+		"read-only root":   {*sc.ReadOnlyRootFilesystem, true},
+		"no escalation":    {*sc.AllowPrivilegeEscalation, false},
+		"caps dropped":     {sc.Capabilities.Drop, []corev1.Capability{"ALL"}},
+		"termination path": {c.TerminationMessagePath, "/dev/termination-log"},
+		"message policy":   {c.TerminationMessagePolicy, corev1.TerminationMessageReadFile},
+		"env from secret":  {c.EnvFrom[0].SecretRef.Name, "fenwick-s3"},
+		"env run":          {c.Env[0], corev1.EnvVar{Name: "ALMANAC_RUN", Value: run.Name}},
+		"env portfolio":    {c.Env[1], corev1.EnvVar{Name: "ALMANAC_PORTFOLIO", Value: "fenwick-weekly"}},
+		"config mount":     {c.VolumeMounts[0], corev1.VolumeMount{Name: configVolume, MountPath: "/etc/almanac/run", ReadOnly: true}},
+		"tmp mount":        {c.VolumeMounts[1].MountPath, "/tmp"},
+		"config volume":    {pod.Volumes[0].ConfigMap.Name, "fenwick-weekly-29407950-config"},
+		"tmp volume":       {pod.Volumes[1].EmptyDir != nil, true},
+		"node selector":    {pod.NodeSelector, map[string]string{"pool": "forecast"}},
+		"priority":         {pod.PriorityClassName, "batch-low"},
+		"pull policy":      {c.ImagePullPolicy, corev1.PullIfNotPresent},
+	}
+	for name, ch := range checks {
+		if diff := cmp.Diff(ch.want, ch.got); diff != "" {
+			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+}
+
+func TestBuildJobWithoutSecret(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Source.CredentialsSecretRef = nil
+	job := buildJob(fp, fenwickRun("r"), stepPublish, jobParams{})
+	if got := job.Spec.Template.Spec.Containers[0].EnvFrom; got != nil {
+		t.Errorf("envFrom = %v, want none", got)
+	}
+	if got := job.Spec.Template.Spec.Containers[0].Args[0]; got != "publish" {
+		t.Errorf("first arg = %q, want publish", got)
+	}
+}
+
+func TestJobShareLimitsFallBack(t *testing.T) {
+	job := &batchv1.Job{}
+	job.Annotations = map[string]string{annotationMaxParallel: "zero", annotationShareWeight: "-3"}
+	if p, w := jobShareLimits(job); p != defaultMaxParallel || w != defaultShareWeight {
+		t.Errorf("jobShareLimits = %d, %d; want the defaults", p, w)
+	}
+}

@@ -1,0 +1,161 @@
+package controllers
+
+import (
+	"fmt"
+	"strconv"
+	"strings"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
+)
+
+// Defaults the API documents for fields a client may leave out when the apiserver did not fill
+// them (objects built in Go, or created before a default was added). They match the
+// +kubebuilder:default markers in api/v1alpha1.
+const (
+	defaultSeriesPerShard   = 2000
+	defaultMaxParallel      = 8
+	defaultShareWeight      = 1
+	defaultRetriesPerShard  = 2
+	defaultThresholdPercent = 130
+	defaultMinPoints        = 100
+	defaultOrigins          = 3
+	defaultStep             = 1
+	defaultTTLSeconds       = 86400
+)
+
+// renderConfig resolves a portfolio's spec, at its current generation, into the configuration
+// of one run: the JSON the trainer reads from the run's ConfigMap.
+//
+// Percentages become fractions (quantilePercents 10 -> 0.1, thresholdPercent 130 -> ratio
+// 1.3), the API's enum spellings become the trainer's (Weekly -> "weekly"), defaults the
+// apiserver fills are applied again for objects that lack them, and smoothing weights are parsed
+// from their decimal strings. previousRun is the last published run (empty for the first run).
+// The result is checked with runconfig.Config.Validate; an error names the spec field.
+func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha1.ForecastRun, previousRun string) (runconfig.Config, error) {
+	spec := &fp.Spec
+	c := runconfig.Config{
+		Portfolio:   fp.Name,
+		Namespace:   fp.Namespace,
+		Run:         run.Name,
+		Generation:  fp.Generation,
+		Trigger:     string(orDefault(run.Spec.Trigger, forecastingv1alpha1.TriggerManual)),
+		PreviousRun: previousRun,
+		Source: runconfig.Source{
+			URI:        spec.Source.URI,
+			Format:     string(orDefault(spec.Source.Format, forecastingv1alpha1.FormatCSV)),
+			Frequency:  strings.ToLower(string(spec.Source.Frequency)),
+			WeekAnchor: string(spec.Source.WeekAnchor),
+			DateLayout: spec.Source.DateLayout,
+			Columns: runconfig.Columns{
+				Series:     spec.Source.Columns.Series,
+				Date:       orDefault(spec.Source.Columns.Date, "date"),
+				Value:      orDefault(spec.Source.Columns.Value, "value"),
+				Covariates: spec.Source.Columns.Covariates,
+			},
+			NonNegative: spec.Source.NonNegative == nil || *spec.Source.NonNegative,
+		},
+		Output: runconfig.Output{
+			URI:    spec.Output.URI,
+			Format: string(orDefault(spec.Output.Format, forecastingv1alpha1.FormatParquet)),
+		},
+		Horizon: int(spec.Horizon),
+		Selection: runconfig.Selection{
+			Metric:  string(orDefault(spec.Selection.Metric, forecastingv1alpha1.MetricMASE)),
+			Origins: int(orDefault(spec.Selection.BacktestOrigins, defaultOrigins)),
+			Step:    int(orDefault(spec.Selection.BacktestStep, defaultStep)),
+		},
+		Sharding: runconfig.Sharding{
+			TargetSeriesPerShard: int(orDefault(spec.Sharding.TargetSeriesPerShard, defaultSeriesPerShard)),
+		},
+	}
+	if run.Spec.ScheduledTime != nil {
+		c.ScheduledTime = run.Spec.ScheduledTime.UTC()
+	}
+	if len(c.Source.Columns.Series) == 0 {
+		c.Source.Columns.Series = []string{"series"}
+	}
+	if spec.Source.Frequency == forecastingv1alpha1.Weekly && c.Source.WeekAnchor == "" {
+		c.Source.WeekAnchor = "Monday"
+	}
+	percents := spec.QuantilePercents
+	if len(percents) == 0 {
+		percents = []int32{10, 50, 90}
+	}
+	for _, p := range percents {
+		c.Quantiles = append(c.Quantiles, float64(p)/100)
+	}
+	if cb := spec.Selection.Combine; cb != nil {
+		c.Selection.CombineTop = int(cb.Top)
+		c.Selection.CombineMethod = string(orDefault(cb.Method, forecastingv1alpha1.CombineMean))
+	}
+	for i, m := range spec.Models {
+		ms, err := renderModel(m)
+		if err != nil {
+			return c, fmt.Errorf("spec.models[%d].%w", i, err)
+		}
+		c.Zoo = append(c.Zoo, ms)
+	}
+	c.Drift = runconfig.Drift{
+		Metric:             orDefault(string(spec.Drift.Metric), c.Selection.Metric),
+		ThresholdRatio:     float64(orDefault(spec.Drift.ThresholdPercent, defaultThresholdPercent)) / 100,
+		MinEvaluatedPoints: int(orDefault(spec.Drift.MinEvaluatedPoints, defaultMinPoints)),
+	}
+	if err := c.Validate(); err != nil {
+		return c, fmt.Errorf("portfolio %s/%s: %w", fp.Namespace, fp.Name, err)
+	}
+	return c, nil
+}
+
+// renderModel maps one zoo member; errors start with the field below spec.models[i].
+func renderModel(m forecastingv1alpha1.ModelSpec) (models.Spec, error) {
+	out := models.Spec{Family: string(m.Family), Name: m.Name}
+	if m.SeasonLength != nil {
+		out.SeasonLength = int(*m.SeasonLength)
+	}
+	if e := m.ETS; e != nil {
+		out.ETS = &models.ETSOptions{Errors: codes(e.Errors), Trends: codes(e.Trends), Seasons: codes(e.Seasons)}
+	}
+	if s := m.Smoothing; s != nil {
+		alpha, err := weight(s.Alpha)
+		if err != nil {
+			return out, fmt.Errorf("smoothing.alpha: %w", err)
+		}
+		beta, err := weight(s.Beta)
+		if err != nil {
+			return out, fmt.Errorf("smoothing.beta: %w", err)
+		}
+		out.Smoothing = &models.SmoothingOptions{Alpha: alpha, Beta: beta}
+	}
+	return out, nil
+}
+
+// weight parses a smoothing weight in (0, 1]; the empty string is 0, "estimate it".
+func weight(s string) (float64, error) {
+	if s == "" {
+		return 0, nil
+	}
+	w, err := strconv.ParseFloat(s, 64)
+	if err != nil || !(w > 0 && w <= 1) {
+		return 0, fmt.Errorf("%q is not a decimal in (0, 1]", s)
+	}
+	return w, nil
+}
+
+func codes(in []forecastingv1alpha1.ETSComponent) []string {
+	var out []string
+	for _, c := range in {
+		out = append(out, string(c))
+	}
+	return out
+}
+
+// orDefault returns v, or def when v is the zero value.
+func orDefault[T comparable](v, def T) T {
+	var zero T
+	if v == zero {
+		return def
+	}
+	return v
+}

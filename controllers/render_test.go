@@ -1,0 +1,159 @@
+package controllers
+
+import (
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/google/go-cmp/cmp"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/utils/ptr"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
+)
+
+// fenwickPortfolio is the demo scenario's portfolio (Fenwick Lane Provisions, an invented
+// regional distributor): weekly demand per item and depot. Only fields a test needs are set;
+// the rest rely on the documented defaults.
+func fenwickPortfolio() *forecastingv1alpha1.ForecastPortfolio {
+	return &forecastingv1alpha1.ForecastPortfolio{
+		ObjectMeta: metav1.ObjectMeta{Name: "fenwick-weekly", Namespace: "planning", Generation: 4},
+		Spec: forecastingv1alpha1.ForecastPortfolioSpec{
+			Schedule: "30 4 * * 1",
+			TimeZone: ptr.To("Europe/London"),
+			Source: forecastingv1alpha1.DataSource{
+				URI:       "s3://fenwick-planning/demand/weekly/",
+				Frequency: forecastingv1alpha1.Weekly,
+				Columns: forecastingv1alpha1.ColumnMapping{
+					Series: []string{"item", "depot"}, Date: "week_start", Value: "units",
+				},
+				CredentialsSecretRef: &forecastingv1alpha1.SecretReference{Name: "fenwick-s3"},
+			},
+			Output:           forecastingv1alpha1.DataOutput{URI: "s3://fenwick-planning/forecasts/"},
+			Horizon:          12,
+			QuantilePercents: []int32{5, 50, 95},
+			Models: []forecastingv1alpha1.ModelSpec{
+				{Family: forecastingv1alpha1.FamilyNaive},
+				{Family: forecastingv1alpha1.FamilyETS, ETS: &forecastingv1alpha1.ETSSettings{Trends: []forecastingv1alpha1.ETSComponent{"N", "Ad"}}},
+				{Family: forecastingv1alpha1.FamilyTSB, Name: "tsb-slow", SeasonLength: ptr.To[int32](1),
+					Smoothing: &forecastingv1alpha1.SmoothingSettings{Alpha: "0.1", Beta: ".05"}},
+			},
+			Selection: forecastingv1alpha1.SelectionSpec{Combine: &forecastingv1alpha1.CombineSpec{Top: 2}},
+			Drift:     forecastingv1alpha1.DriftSpec{ThresholdPercent: 125},
+			Trainer:   forecastingv1alpha1.TrainerSpec{Image: "registry.example/almanac-trainer:test"},
+		},
+		Status: forecastingv1alpha1.ForecastPortfolioStatus{LastSuccessfulRun: "fenwick-weekly-29000000"},
+	}
+}
+
+func fenwickRun(name string) *forecastingv1alpha1.ForecastRun {
+	return &forecastingv1alpha1.ForecastRun{
+		ObjectMeta: metav1.ObjectMeta{Name: name, Namespace: "planning"},
+		Spec: forecastingv1alpha1.ForecastRunSpec{
+			PortfolioName: "fenwick-weekly",
+			Trigger:       forecastingv1alpha1.TriggerSchedule,
+			ScheduledTime: &metav1.Time{Time: time.Date(2026, 11, 30, 4, 30, 0, 0, time.UTC)},
+		},
+	}
+}
+
+func TestRenderConfig(t *testing.T) {
+	fp := fenwickPortfolio()
+	got, err := renderConfig(fp, fenwickRun("fenwick-weekly-29407950"), "fenwick-weekly-29000000")
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := runconfig.Config{
+		Portfolio: "fenwick-weekly", Namespace: "planning", Run: "fenwick-weekly-29407950",
+		Generation: 4, Trigger: "Schedule",
+		ScheduledTime: time.Date(2026, 11, 30, 4, 30, 0, 0, time.UTC),
+		PreviousRun:   "fenwick-weekly-29000000",
+		Source: runconfig.Source{
+			URI: "s3://fenwick-planning/demand/weekly/", Format: "csv", Frequency: "weekly", WeekAnchor: "Monday",
+			Columns:     runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units"},
+			NonNegative: true,
+		},
+		Output:    runconfig.Output{URI: "s3://fenwick-planning/forecasts/", Format: "parquet"},
+		Horizon:   12,
+		Quantiles: []float64{0.05, 0.5, 0.95},
+		Zoo: []models.Spec{
+			{Family: "Naive"},
+			{Family: "ETS", ETS: &models.ETSOptions{Trends: []string{"N", "Ad"}}},
+			{Family: "TSB", Name: "tsb-slow", SeasonLength: 1, Smoothing: &models.SmoothingOptions{Alpha: 0.1, Beta: 0.05}},
+		},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "Mean"},
+		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 2000},
+		Drift:     runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 100},
+	}
+	if diff := cmp.Diff(want, got); diff != "" {
+		t.Errorf("renderConfig (-want,+got):\n%s", diff)
+	}
+}
+
+func TestRenderConfigErrors(t *testing.T) {
+	tests := map[string]struct {
+		mutate func(*forecastingv1alpha1.ForecastPortfolio)
+		want   string
+	}{
+		"smoothing weight is not a decimal": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Models[2].Smoothing.Alpha = "one" },
+			want:   `spec.models[2].smoothing.alpha: "one" is not a decimal in (0, 1]`,
+		},
+		"smoothing weight above one": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Models[2].Smoothing.Beta = "1.5" },
+			want:   `spec.models[2].smoothing.beta`,
+		},
+		"no horizon": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Horizon = 0 },
+			want:   "portfolio planning/fenwick-weekly: horizon: must be >= 1",
+		},
+		"no models": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Models = nil },
+			want:   "zoo: at least one model",
+		},
+	}
+	for name, tc := range tests {
+		t.Run(name, func(t *testing.T) {
+			fp := fenwickPortfolio()
+			tc.mutate(fp)
+			_, err := renderConfig(fp, fenwickRun("r"), "")
+			if err == nil || !strings.Contains(err.Error(), tc.want) {
+				t.Fatalf("err = %v, want it to contain %q", err, tc.want)
+			}
+		})
+	}
+}
+
+func TestRenderConfigDefaults(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Source.Columns = forecastingv1alpha1.ColumnMapping{}
+	fp.Spec.Source.Frequency = forecastingv1alpha1.Daily
+	fp.Spec.Source.NonNegative = ptr.To(false)
+	fp.Spec.QuantilePercents = nil
+	fp.Spec.Selection = forecastingv1alpha1.SelectionSpec{Metric: forecastingv1alpha1.MetricRMSSE}
+	run := fenwickRun("r")
+	run.Spec.Trigger, run.Spec.ScheduledTime = "", nil
+	got, err := renderConfig(fp, run, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if diff := cmp.Diff(runconfig.Columns{Series: []string{"series"}, Date: "date", Value: "value"}, got.Source.Columns); diff != "" {
+		t.Errorf("columns (-want,+got):\n%s", diff)
+	}
+	checks := map[string]struct{ got, want any }{
+		"quantiles":      {got.Quantiles, []float64{0.1, 0.5, 0.9}},
+		"trigger":        {got.Trigger, "Manual"},
+		"scheduled time": {got.ScheduledTime, time.Time{}},
+		"week anchor":    {got.Source.WeekAnchor, ""},
+		"non-negative":   {got.Source.NonNegative, false},
+		"drift metric":   {got.Drift.Metric, "RMSSE"},
+		"combine":        {got.Selection.CombineTop, 0},
+	}
+	for name, c := range checks {
+		if diff := cmp.Diff(c.want, c.got); diff != "" {
+			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+}
