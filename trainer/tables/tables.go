@@ -1,0 +1,371 @@
+package tables
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+)
+
+// Header describes the variable columns of a forecasts table.
+type Header struct {
+	// Quantiles are the probability levels in (0,1), strictly increasing; each is a column
+	// named by QuantileColumn.
+	Quantiles []float64
+}
+
+// ForecastRow is one forecast period of one series.
+type ForecastRow struct {
+	Series string
+	Period time.Time
+	// Step is the horizon step, 1 for the first forecast period.
+	Step  int
+	Model string
+	Mean  float64
+	// Quantiles holds one value per Header.Quantiles level.
+	Quantiles []float64
+}
+
+// ModelRow is the chosen model of one series.
+type ModelRow struct {
+	Series, Model, Params string
+	// BacktestErrors holds the backtest error by horizon step (index 0 is step 1), in Metric.
+	BacktestErrors []float64
+	Metric         string
+	Score          float64
+	Notes          string
+}
+
+// EvaluationRow compares a series' realized error on new actuals with the error the
+// previous run expected.
+type EvaluationRow struct {
+	Series             string
+	Points             int
+	Metric             string
+	Expected, Realized float64
+	Drifted            bool
+	PreviousRun        string
+}
+
+// RejectedRow is a series that could not be used, with the reason.
+type RejectedRow struct{ Series, Reason string }
+
+// Column names.
+const (
+	colSeries   = "series"
+	colPeriod   = "period"
+	colStep     = "step"
+	colModel    = "model"
+	colMean     = "mean"
+	colParams   = "params"
+	colMetric   = "metric"
+	colScore    = "score"
+	colNotes    = "notes"
+	colPoints   = "points"
+	colExpected = "expected"
+	colRealized = "realized"
+	colDrifted  = "drifted"
+	colPrevious = "previous_run"
+	colReason   = "reason"
+	// errPrefix starts the models table's per-step error columns: err_h1, err_h2, ...
+	errPrefix = "err_h"
+	// quantilePrefix starts a forecasts table's quantile columns (see QuantileColumn).
+	quantilePrefix = "q"
+)
+
+// QuantileColumn names the column of level q: "q" followed by the level in percent, written
+// in the shortest decimal form (0.1 -> q10, 0.5 -> q50, 0.05 -> q5, 0.975 -> q97.5).
+func QuantileColumn(q float64) string {
+	pct := math.Round(q*100*1e6) / 1e6 // 0.07*100 is 7.000000000000001 in binary floating point
+	return quantilePrefix + strconv.FormatFloat(pct, 'f', -1, 64)
+}
+
+// ParseQuantileColumn returns the level a quantile column name stands for.
+func ParseQuantileColumn(name string) (float64, bool) {
+	s, ok := strings.CutPrefix(name, quantilePrefix)
+	if !ok || s == "" || s[0] < '0' || s[0] > '9' {
+		return 0, false
+	}
+	// Parse the percent as a decimal scaled by 1e-2, so "q99.9" gives the double nearest 0.999
+	// (99.9/100 would round to 0.9990000000000001).
+	q, err := strconv.ParseFloat(s+"e-2", 64)
+	if err != nil || !(q > 0 && q < 1) || QuantileColumn(q) != name {
+		return 0, false
+	}
+	return q, true
+}
+
+func forecastColumns(h Header) ([]column, error) {
+	cols := []column{{colSeries, text}, {colPeriod, instant}, {colStep, integer}, {colModel, text}, {colMean, number}}
+	seen := map[string]bool{}
+	for i, q := range h.Quantiles {
+		if !(q > 0 && q < 1) || (i > 0 && q <= h.Quantiles[i-1]) {
+			return nil, fmt.Errorf("quantile %v (index %d) must be in (0,1) and strictly increasing", q, i)
+		}
+		name := QuantileColumn(q)
+		if seen[name] {
+			return nil, fmt.Errorf("quantiles %v: two levels share the column %q", h.Quantiles, name)
+		}
+		seen[name] = true
+		cols = append(cols, column{name, number})
+	}
+	return cols, nil
+}
+
+// WriteForecasts writes a forecasts table: series, period, step, model, mean and one column per
+// quantile level. Each row must carry len(h.Quantiles) quantiles.
+func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) error {
+	cols, err := forecastColumns(h)
+	if err != nil {
+		return fmt.Errorf("tables: forecasts: %w", err)
+	}
+	g := grid{cols: cols, rows: make([][]cell, len(rows))}
+	for i, r := range rows {
+		if len(r.Quantiles) != len(h.Quantiles) {
+			return fmt.Errorf("tables: forecasts row %d (series %q step %d): %d quantiles, header has %d",
+				i, r.Series, r.Step, len(r.Quantiles), len(h.Quantiles))
+		}
+		c := []cell{{s: r.Series}, {t: r.Period}, {n: int64(r.Step)}, {s: r.Model}, {f: r.Mean}}
+		for _, q := range r.Quantiles {
+			c = append(c, cell{f: q})
+		}
+		g.rows[i] = c
+	}
+	return wrap("forecasts", write(w, format, g))
+}
+
+// ReadForecasts reads a table written by WriteForecasts (columns in any order).
+func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
+	g, err := read(r, format, "forecasts", func(name string) (kind, bool) {
+		switch name {
+		case colSeries, colModel:
+			return text, true
+		case colPeriod:
+			return instant, true
+		case colStep:
+			return integer, true
+		case colMean:
+			return number, true
+		}
+		_, ok := ParseQuantileColumn(name)
+		return number, ok
+	})
+	if err != nil {
+		return Header{}, nil, err
+	}
+	pos, err := g.need(colSeries, colPeriod, colStep, colModel, colMean)
+	if err != nil {
+		return Header{}, nil, wrap("forecasts", err)
+	}
+	type qcol struct {
+		level float64
+		at    int
+	}
+	var qs []qcol
+	for i, c := range g.cols {
+		if q, ok := ParseQuantileColumn(c.name); ok {
+			qs = append(qs, qcol{q, i})
+		}
+	}
+	sort.Slice(qs, func(a, b int) bool { return qs[a].level < qs[b].level })
+	var h Header
+	for _, q := range qs {
+		h.Quantiles = append(h.Quantiles, q.level)
+	}
+	if _, err := forecastColumns(h); err != nil {
+		return Header{}, nil, wrap("forecasts", err)
+	}
+	out := make([]ForecastRow, len(g.rows))
+	for i, c := range g.rows {
+		out[i] = ForecastRow{Series: c[pos[colSeries]].s, Period: c[pos[colPeriod]].t, Step: int(c[pos[colStep]].n),
+			Model: c[pos[colModel]].s, Mean: c[pos[colMean]].f}
+		if len(qs) > 0 {
+			out[i].Quantiles = make([]float64, len(qs))
+			for j, q := range qs {
+				out[i].Quantiles[j] = c[q.at].f
+			}
+		}
+	}
+	return h, out, nil
+}
+
+// WriteModels writes a models table: series, model, params, metric, score, err_h1..err_hN,
+// notes, where N is the longest BacktestErrors; a shorter row leaves its last columns absent.
+func WriteModels(w io.Writer, format string, rows []ModelRow) error {
+	steps := 0
+	for _, r := range rows {
+		steps = max(steps, len(r.BacktestErrors))
+	}
+	cols := []column{{colSeries, text}, {colModel, text}, {colParams, text}, {colMetric, text}, {colScore, number}}
+	for h := 1; h <= steps; h++ {
+		cols = append(cols, column{errPrefix + strconv.Itoa(h), optNumber})
+	}
+	cols = append(cols, column{colNotes, text})
+	g := grid{cols: cols, rows: make([][]cell, len(rows))}
+	for i, r := range rows {
+		c := []cell{{s: r.Series}, {s: r.Model}, {s: r.Params}, {s: r.Metric}, {f: r.Score}}
+		for h := 0; h < steps; h++ {
+			if h < len(r.BacktestErrors) {
+				c = append(c, cell{f: r.BacktestErrors[h]})
+			} else {
+				c = append(c, cell{null: true})
+			}
+		}
+		g.rows[i] = append(c, cell{s: r.Notes})
+	}
+	return wrap("models", write(w, format, g))
+}
+
+// errStep returns h for a column named err_h<h>.
+func errStep(name string) (int, bool) {
+	s, ok := strings.CutPrefix(name, errPrefix)
+	if !ok {
+		return 0, false
+	}
+	h, err := strconv.Atoi(s)
+	return h, err == nil && h >= 1 && strconv.Itoa(h) == s
+}
+
+// ReadModels reads a table written by WriteModels. Error columns must be err_h1..err_hN without
+// holes; in a row, an absent value may only be followed by absent values.
+func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
+	g, err := read(r, format, "models", func(name string) (kind, bool) {
+		switch name {
+		case colSeries, colModel, colParams, colMetric, colNotes:
+			return text, true
+		case colScore:
+			return number, true
+		}
+		_, ok := errStep(name)
+		return optNumber, ok
+	})
+	if err != nil {
+		return nil, err
+	}
+	pos, err := g.need(colSeries, colModel, colParams, colMetric, colScore, colNotes)
+	if err != nil {
+		return nil, wrap("models", err)
+	}
+	var steps []int // column position of err_h1, err_h2, ...
+	for h := 1; ; h++ {
+		at, ok := pos[errPrefix+strconv.Itoa(h)]
+		if !ok {
+			break
+		}
+		steps = append(steps, at)
+	}
+	errCols := 0
+	for _, c := range g.cols {
+		if _, ok := errStep(c.name); ok {
+			errCols++
+		}
+	}
+	if errCols != len(steps) {
+		return nil, fmt.Errorf("tables: models: error columns are not %s1..%s%d without holes", errPrefix, errPrefix, len(steps))
+	}
+	out := make([]ModelRow, len(g.rows))
+	for i, c := range g.rows {
+		m := ModelRow{Series: c[pos[colSeries]].s, Model: c[pos[colModel]].s, Params: c[pos[colParams]].s,
+			Metric: c[pos[colMetric]].s, Score: c[pos[colScore]].f, Notes: c[pos[colNotes]].s}
+		for h, at := range steps {
+			if c[at].null {
+				for _, later := range steps[h:] {
+					if !c[later].null {
+						return nil, fmt.Errorf("tables: models row %d (series %q): %s%d absent but a later step is set", i+1, m.Series, errPrefix, h+1)
+					}
+				}
+				break
+			}
+			m.BacktestErrors = append(m.BacktestErrors, c[at].f)
+		}
+		out[i] = m
+	}
+	return out, nil
+}
+
+var evaluationColumns = []column{{colSeries, text}, {colPoints, integer}, {colMetric, text}, {colExpected, number},
+	{colRealized, number}, {colDrifted, flag}, {colPrevious, text}}
+
+// WriteEvaluation writes an evaluation table: series, points, metric, expected, realized,
+// drifted, previous_run.
+func WriteEvaluation(w io.Writer, format string, rows []EvaluationRow) error {
+	g := grid{cols: evaluationColumns, rows: make([][]cell, len(rows))}
+	for i, r := range rows {
+		g.rows[i] = []cell{{s: r.Series}, {n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
+	}
+	return wrap("evaluation", write(w, format, g))
+}
+
+// ReadEvaluation reads a table written by WriteEvaluation.
+func ReadEvaluation(r io.Reader, format string) ([]EvaluationRow, error) {
+	g, pos, err := readFixed(r, format, "evaluation", evaluationColumns)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]EvaluationRow, len(g.rows))
+	for i, c := range g.rows {
+		out[i] = EvaluationRow{Series: c[pos[colSeries]].s, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
+			Expected: c[pos[colExpected]].f, Realized: c[pos[colRealized]].f, Drifted: c[pos[colDrifted]].b,
+			PreviousRun: c[pos[colPrevious]].s}
+	}
+	return out, nil
+}
+
+var rejectedColumns = []column{{colSeries, text}, {colReason, text}}
+
+// WriteRejected writes a rejected table: series, reason. The run layout always uses CSV for it,
+// so a person can read it without tools.
+func WriteRejected(w io.Writer, format string, rows []RejectedRow) error {
+	g := grid{cols: rejectedColumns, rows: make([][]cell, len(rows))}
+	for i, r := range rows {
+		g.rows[i] = []cell{{s: r.Series}, {s: r.Reason}}
+	}
+	return wrap("rejected", write(w, format, g))
+}
+
+// ReadRejected reads a table written by WriteRejected.
+func ReadRejected(r io.Reader, format string) ([]RejectedRow, error) {
+	g, pos, err := readFixed(r, format, "rejected", rejectedColumns)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]RejectedRow, len(g.rows))
+	for i, c := range g.rows {
+		out[i] = RejectedRow{Series: c[pos[colSeries]].s, Reason: c[pos[colReason]].s}
+	}
+	return out, nil
+}
+
+// readFixed reads a table whose columns are exactly cols (in any order).
+func readFixed(r io.Reader, format, name string, cols []column) (grid, map[string]int, error) {
+	g, err := read(r, format, name, func(n string) (kind, bool) {
+		for _, c := range cols {
+			if c.name == n {
+				return c.kind, true
+			}
+		}
+		return 0, false
+	})
+	if err != nil {
+		return grid{}, nil, err
+	}
+	names := make([]string, len(cols))
+	for i, c := range cols {
+		names[i] = c.name
+	}
+	pos, err := g.need(names...)
+	if err != nil {
+		return grid{}, nil, wrap(name, err)
+	}
+	return g, pos, nil
+}
+
+func wrap(table string, err error) error {
+	if err == nil || strings.HasPrefix(err.Error(), "tables: ") {
+		return err
+	}
+	return fmt.Errorf("tables: %s: %w", table, err)
+}
