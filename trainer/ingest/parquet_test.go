@@ -168,14 +168,15 @@ func TestScanParquetStorageError(t *testing.T) {
 	}
 }
 
-// failingReaderAt fails every read that starts in the first half of the file (the pages).
+// failingReaderAt fails every read that starts in the first half of the file after the 4-byte
+// magic number (the pages).
 type failingReaderAt struct {
 	b   []byte
 	err error
 }
 
 func (f failingReaderAt) ReadAt(p []byte, off int64) (int, error) {
-	if off < int64(len(f.b))/2 {
+	if off >= 4 && off < int64(len(f.b))/2 {
 		return 0, f.err
 	}
 	return bytes.NewReader(f.b).ReadAt(p, off)
