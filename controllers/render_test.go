@@ -61,12 +61,12 @@ func fenwickRun(name string) *forecastingv1alpha1.ForecastRun {
 
 func TestRenderConfig(t *testing.T) {
 	fp := fenwickPortfolio()
-	got, err := renderConfig(fp, fenwickRun("fenwick-weekly-29407950"), "fenwick-weekly-29000000")
+	got, err := renderConfig(fp, fenwickRun("fenwick-weekly-29933550"), "fenwick-weekly-29000000")
 	if err != nil {
 		t.Fatal(err)
 	}
 	want := runconfig.Config{
-		Portfolio: "fenwick-weekly", Namespace: "planning", Run: "fenwick-weekly-29407950",
+		Portfolio: "fenwick-weekly", Namespace: "planning", Run: "fenwick-weekly-29933550",
 		Generation: 4, Trigger: "Schedule",
 		ScheduledTime: time.Date(2026, 11, 30, 4, 30, 0, 0, time.UTC),
 		PreviousRun:   "fenwick-weekly-29000000",

@@ -589,6 +589,8 @@ const (
 	ReasonIdle = "Idle"
 	// ReasonRunsReplaced: concurrencyPolicy Replace is stopping the active runs for a due one.
 	ReasonRunsReplaced = "ReplacingRuns"
+	// ReasonRunCreated: the controller started a scheduled or drift run (Event only).
+	ReasonRunCreated = "RunCreated"
 )
 
 // ForecastPortfolioStatus is the observed state of a portfolio.

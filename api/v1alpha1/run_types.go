@@ -80,6 +80,8 @@ const (
 	ReasonDeadlineExceeded  = "DeadlineExceeded"
 	// ReasonNameTooLong: the run's name leaves no room for its Job names (63 characters).
 	ReasonNameTooLong = "NameTooLong"
+	// ReasonInvalidConfig: the portfolio spec could not be rendered into a run configuration.
+	ReasonInvalidConfig = "InvalidConfig"
 )
 
 // ForecastRunStatus is the observed state of a run.

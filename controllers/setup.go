@@ -1,0 +1,120 @@
+package controllers
+
+import (
+	"context"
+	"fmt"
+
+	batchv1 "k8s.io/api/batch/v1"
+	corev1 "k8s.io/api/core/v1"
+	"k8s.io/apimachinery/pkg/labels"
+	"k8s.io/apimachinery/pkg/selection"
+	"k8s.io/apimachinery/pkg/types"
+	"k8s.io/utils/clock"
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/cache"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/controller"
+	"sigs.k8s.io/controller-runtime/pkg/handler"
+	"sigs.k8s.io/controller-runtime/pkg/manager"
+	"sigs.k8s.io/controller-runtime/pkg/reconcile"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+)
+
+// IndexRunPortfolio is the cache field index of ForecastRuns by spec.portfolioName.
+const IndexRunPortfolio = "spec.portfolioName"
+
+// Options configure the manager's two controllers.
+type Options struct {
+	// MaxConcurrentShards is the budget of train pods shared by all active runs (0: unlimited).
+	MaxConcurrentShards int32
+	// Clock is where the reconcilers get the time; nil means the real clock. Tests inject a
+	// fake one to move schedules forward.
+	Clock clock.PassiveClock
+	// Metrics, when set, receive the run and accuracy series.
+	Metrics *Metrics
+	// RunWorkers is the number of concurrent run reconciles (default 2).
+	RunWorkers int
+}
+
+// CacheOptions restrict the manager's cache to what the controllers need: the given namespaces
+// (none: all), and only the Jobs, pods and ConfigMaps that carry the run label, so that a
+// cluster's other pods never fill the controller's memory.
+func CacheOptions(namespaces []string) (cache.Options, error) {
+	req, err := labels.NewRequirement(LabelRun, selection.Exists, nil)
+	if err != nil {
+		return cache.Options{}, err
+	}
+	owned := cache.ByObject{Label: labels.NewSelector().Add(*req)}
+	opts := cache.Options{ByObject: map[client.Object]cache.ByObject{
+		&corev1.Pod{}:       owned,
+		&batchv1.Job{}:      owned,
+		&corev1.ConfigMap{}: owned,
+	}}
+	if len(namespaces) > 0 {
+		opts.DefaultNamespaces = map[string]cache.Config{}
+		for _, ns := range namespaces {
+			opts.DefaultNamespaces[ns] = cache.Config{}
+		}
+	}
+	return opts, nil
+}
+
+// SetupWithManager registers the field index and both controllers.
+func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error {
+	if o.Clock == nil {
+		o.Clock = clock.RealClock{}
+	}
+	if o.RunWorkers < 1 {
+		o.RunWorkers = 2
+	}
+	if err := mgr.GetFieldIndexer().IndexField(ctx, &forecastingv1alpha1.ForecastRun{}, IndexRunPortfolio,
+		func(obj client.Object) []string {
+			return []string{obj.(*forecastingv1alpha1.ForecastRun).Spec.PortfolioName}
+		}); err != nil {
+		return fmt.Errorf("index runs by portfolio: %w", err)
+	}
+	runs := &RunReconciler{
+		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
+		Recorder: mgr.GetEventRecorder("almanac-run"), Clock: o.Clock, Metrics: o.Metrics,
+		MaxConcurrentShards: o.MaxConcurrentShards,
+	}
+	// A portfolio change (created late, history limits, ...) wakes its unfinished runs.
+	portfolioToRuns := handler.EnqueueRequestsFromMapFunc(func(ctx context.Context, obj client.Object) []reconcile.Request {
+		var list forecastingv1alpha1.ForecastRunList
+		if err := mgr.GetClient().List(ctx, &list, client.InNamespace(obj.GetNamespace()),
+			client.MatchingFields{IndexRunPortfolio: obj.GetName()}); err != nil {
+			return nil
+		}
+		var out []reconcile.Request
+		for i := range list.Items {
+			if !runFinished(&list.Items[i].Status) {
+				out = append(out, reconcile.Request{NamespacedName: client.ObjectKeyFromObject(&list.Items[i])})
+			}
+		}
+		return out
+	})
+	if err := ctrl.NewControllerManagedBy(mgr).
+		For(&forecastingv1alpha1.ForecastRun{}).
+		Owns(&batchv1.Job{}).
+		Watches(&forecastingv1alpha1.ForecastPortfolio{}, portfolioToRuns).
+		WithOptions(controller.Options{MaxConcurrentReconciles: o.RunWorkers}).
+		Named("forecastrun").
+		Complete(runs); err != nil {
+		return err
+	}
+	portfolios := &PortfolioReconciler{
+		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
+		Recorder: mgr.GetEventRecorder("almanac-portfolio"), Clock: o.Clock, Metrics: o.Metrics,
+	}
+	// Every run, manual ones included before they are adopted, wakes its portfolio.
+	runToPortfolio := handler.EnqueueRequestsFromMapFunc(func(_ context.Context, obj client.Object) []reconcile.Request {
+		run := obj.(*forecastingv1alpha1.ForecastRun)
+		return []reconcile.Request{{NamespacedName: types.NamespacedName{Namespace: run.Namespace, Name: run.Spec.PortfolioName}}}
+	})
+	return ctrl.NewControllerManagedBy(mgr).
+		For(&forecastingv1alpha1.ForecastPortfolio{}).
+		Watches(&forecastingv1alpha1.ForecastRun{}, runToPortfolio).
+		Named("forecastportfolio").
+		Complete(portfolios)
+}
