@@ -183,7 +183,7 @@ func parquetColumns(s *parquet.Schema, c runconfig.Columns) ([]*pcol, error) {
 		for _, f := range s.Fields() {
 			names = append(names, f.Name())
 		}
-		return nil, fmt.Errorf("missing column %v (the file has %s)", missing, quoteList(names, 20))
+		return nil, fmt.Errorf("missing column %s (the file has %s)", strings.Join(missing, ", "), quoteList(names, 20))
 	}
 	return cols, nil
 }
