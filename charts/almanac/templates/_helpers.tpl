@@ -39,9 +39,13 @@ which controller-gen writes from the +kubebuilder:rbac markers in controllers/
 ClusterRole (all namespaces) or one Role per watched namespace.
 */}}
 {{- define "almanac.managerRules" -}}
-# Portfolios and runs: the controller creates runs, prunes old ones and writes both statuses.
+# Portfolios: read, and write their status. Runs: created on schedule or drift, pruned by the
+# history limits, status written as shards finish.
 - apiGroups: [forecasting.almanac.dev]
-  resources: [forecastportfolios, forecastruns]
+  resources: [forecastportfolios]
+  verbs: [get, list, watch]
+- apiGroups: [forecasting.almanac.dev]
+  resources: [forecastruns]
   verbs: [create, delete, get, list, patch, update, watch]
 - apiGroups: [forecasting.almanac.dev]
   resources: [forecastportfolios/status, forecastruns/status]
@@ -49,13 +53,13 @@ ClusterRole (all namespaces) or one Role per watched namespace.
 - apiGroups: [forecasting.almanac.dev]
   resources: [forecastportfolios/finalizers, forecastruns/finalizers]
   verbs: [update]
-# The run's Jobs and its resolved-configuration ConfigMap.
+# The run's Jobs, and its resolved-configuration ConfigMap (written once, never changed).
 - apiGroups: [batch]
   resources: [jobs]
-  verbs: [create, delete, get, list, patch, update, watch]
+  verbs: [create, delete, get, list, patch, watch]
 - apiGroups: [""]
   resources: [configmaps]
-  verbs: [create, delete, get, list, patch, update, watch]
+  verbs: [create, get, list, watch]
 # Trainer pods: read for their termination messages (the shard summaries).
 - apiGroups: [""]
   resources: [pods]
@@ -65,9 +69,6 @@ ClusterRole (all namespaces) or one Role per watched namespace.
 - apiGroups: [""]
   resources: [secrets]
   verbs: [get]
-- apiGroups: [""]
-  resources: [events]
-  verbs: [create, patch]
 - apiGroups: [events.k8s.io]
   resources: [events]
   verbs: [create, patch]
