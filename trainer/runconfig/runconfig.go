@@ -59,7 +59,22 @@ type Source struct {
 	DateLayout string `json:"dateLayout,omitempty"`
 	// NonNegative marks the values as demand: negative values are treated per the cleaning rules.
 	NonNegative bool `json:"nonNegative"`
+	// Partitioning says how the input is laid out, which decides the units plan cuts:
+	// PartitionNone ("", the default) makes no promise, and units are hash buckets of the series
+	// key (every train shard reads all input and keeps its buckets' rows); PartitionObject
+	// promises that all rows of a series are in one object, and each object is a unit;
+	// PartitionRowGroup (Parquet only) promises that all rows of a series are in one row group,
+	// and each row group is a unit. A broken promise makes a series appear in two units, each
+	// forecasting it from part of its history, so the default is the safe one.
+	Partitioning string `json:"partitioning,omitempty"`
 }
+
+// Input layouts for Source.Partitioning.
+const (
+	PartitionNone     = ""
+	PartitionObject   = "object"
+	PartitionRowGroup = "rowGroup"
+)
 
 // Columns names the input table's columns.
 type Columns struct {
@@ -94,7 +109,13 @@ type Selection struct {
 type Sharding struct {
 	// TargetSeriesPerShard is the number of series a shard should hold, approximately.
 	TargetSeriesPerShard int `json:"targetSeriesPerShard"`
+	// Buckets fixes the number of hash buckets for unpartitioned input (a power of two, at most
+	// MaxBuckets). 0 lets plan keep the previous run's count, or choose one on the first run.
+	Buckets int `json:"buckets,omitempty"`
 }
+
+// MaxBuckets bounds Sharding.Buckets.
+const MaxBuckets = 1 << 16
 
 // Drift configures how the trainer flags a series whose realized accuracy slipped.
 type Drift struct {
@@ -150,6 +171,14 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("zoo: at least one model")
 	case c.Sharding.TargetSeriesPerShard < 1:
 		return fmt.Errorf("sharding.targetSeriesPerShard: must be >= 1, got %d", c.Sharding.TargetSeriesPerShard)
+	case c.Sharding.Buckets < 0 || c.Sharding.Buckets > MaxBuckets || c.Sharding.Buckets&(c.Sharding.Buckets-1) != 0:
+		return fmt.Errorf("sharding.buckets: %d is not 0 or a power of two up to %d", c.Sharding.Buckets, MaxBuckets)
+	case c.Source.Partitioning != PartitionNone && c.Source.Partitioning != PartitionObject && c.Source.Partitioning != PartitionRowGroup:
+		return fmt.Errorf("source.partitioning: %q is not %q, %q or %q", c.Source.Partitioning, PartitionNone, PartitionObject, PartitionRowGroup)
+	case c.Source.Partitioning == PartitionRowGroup && c.Source.Format != "parquet":
+		return fmt.Errorf("source.partitioning: %q needs source.format parquet", PartitionRowGroup)
+	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
+		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
 	}
 	for i, q := range c.Quantiles {
 		if !(q > 0 && q < 1) || (i > 0 && q <= c.Quantiles[i-1]) {

@@ -46,6 +46,9 @@ type Summary struct {
 	// Publish: units whose previous forecast was carried forward because their shard failed.
 	CarriedForward int    `json:"carriedForward,omitempty"`
 	Manifest       string `json:"manifest,omitempty"`
+	// Missing counts units with neither this run's output nor a previous forecast; the
+	// manifest then says the run is incomplete.
+	Missing int `json:"missing,omitempty"`
 }
 
 // Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,

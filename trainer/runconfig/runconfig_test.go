@@ -1,0 +1,80 @@
+package runconfig
+
+import (
+	"strings"
+	"testing"
+
+	"almanac.dev/almanac/trainer/models"
+)
+
+// valid returns a configuration that passes Validate (Fenwick Lane Provisions' daily demand).
+func valid() Config {
+	return Config{
+		Run: "flp-daily-0001",
+		Source: Source{URI: "file:///data/flp/in/", Format: "csv", Frequency: "daily",
+			Columns: Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units"}},
+		Output:    Output{URI: "file:///data/flp/out/", Format: "csv"},
+		Horizon:   14,
+		Quantiles: []float64{0.1, 0.5, 0.9},
+		Zoo:       []models.Spec{{Family: "Naive"}},
+		Sharding:  Sharding{TargetSeriesPerShard: 500},
+	}
+}
+
+func TestValidate(t *testing.T) {
+	cases := map[string]struct {
+		edit  func(*Config)
+		field string // "" means valid
+	}{
+		"valid":                   {func(*Config) {}, ""},
+		"no run":                  {func(c *Config) { c.Run = "" }, "run:"},
+		"bad source format":       {func(c *Config) { c.Source.Format = "xlsx" }, "source.format"},
+		"no key column":           {func(c *Config) { c.Source.Columns.Series = nil }, "source.columns.series"},
+		"zero horizon":            {func(c *Config) { c.Horizon = 0 }, "horizon"},
+		"empty zoo":               {func(c *Config) { c.Zoo = nil }, "zoo"},
+		"quantiles unordered":     {func(c *Config) { c.Quantiles = []float64{0.9, 0.1} }, "quantiles[1]"},
+		"buckets power of two":    {func(c *Config) { c.Sharding.Buckets = 64 }, ""},
+		"buckets not pow2":        {func(c *Config) { c.Sharding.Buckets = 48 }, "sharding.buckets"},
+		"buckets too many":        {func(c *Config) { c.Sharding.Buckets = MaxBuckets * 2 }, "sharding.buckets"},
+		"buckets negative":        {func(c *Config) { c.Sharding.Buckets = -1 }, "sharding.buckets"},
+		"partition object":        {func(c *Config) { c.Source.Partitioning = PartitionObject }, ""},
+		"partition unknown":       {func(c *Config) { c.Source.Partitioning = "series" }, "source.partitioning"},
+		"row groups need parquet": {func(c *Config) { c.Source.Partitioning = PartitionRowGroup }, "source.partitioning"},
+		"row groups parquet": {func(c *Config) {
+			c.Source.Partitioning = PartitionRowGroup
+			c.Source.Format = "parquet"
+		}, ""},
+		"negative drift ratio": {func(c *Config) { c.Drift.ThresholdRatio = -1 }, "drift"},
+	}
+	for name, tc := range cases {
+		t.Run(name, func(t *testing.T) {
+			c := valid()
+			tc.edit(&c)
+			err := c.Validate()
+			switch {
+			case tc.field == "" && err != nil:
+				t.Fatalf("Validate() = %v, want nil", err)
+			case tc.field != "" && (err == nil || !strings.HasPrefix(err.Error(), tc.field)):
+				t.Fatalf("Validate() = %v, want an error starting with %q", err, tc.field)
+			}
+		})
+	}
+}
+
+func TestParseNamesTheFile(t *testing.T) {
+	_, err := Parse([]byte(`{"run": "x"`), "/etc/almanac/run/config.json")
+	if err == nil || !strings.Contains(err.Error(), "/etc/almanac/run/config.json") {
+		t.Fatalf("Parse(truncated) = %v, want the file named", err)
+	}
+	b := []byte(`{"run":"r1","source":{"uri":"mem://in/","format":"csv","partitioning":"object",
+		"columns":{"series":["item"],"date":"date","value":"units"},"frequency":"daily"},
+		"output":{"uri":"mem://out/"},"horizon":7,"zoo":[{"family":"Naive"}],
+		"sharding":{"targetSeriesPerShard":10,"buckets":8}}`)
+	c, err := Parse(b, "inline")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Source.Partitioning != PartitionObject || c.Sharding.Buckets != 8 {
+		t.Fatalf("new fields not decoded: %+v %+v", c.Source, c.Sharding)
+	}
+}
