@@ -679,7 +679,7 @@ type AccuracyStatus struct {
 // +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
 // +kubebuilder:printcolumn:name="Drift",type=string,JSONPath=`.status.conditions[?(@.type=="AccuracyDrift")].status`
-// +kubebuilder:printcolumn:name="Next",type=date,JSONPath=`.status.nextScheduleTime`,priority=1
+// +kubebuilder:printcolumn:name="Next",type=string,JSONPath=`.status.nextScheduleTime`,priority=1
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 
 // ForecastPortfolio declares a portfolio of series to keep forecast: where they live, when to

@@ -126,7 +126,7 @@ type ForecastRunStatus struct {
 
 	// parallelism is the number of trainer pods the controller last allowed at once.
 	// +optional
-	Parallelism int32 `json:"parallelism,omitempty"`
+	Parallelism int32 `json:"parallelism"`
 
 	// models counts series by chosen model family.
 	// +optional
