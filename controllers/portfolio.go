@@ -142,8 +142,11 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 		earliest = st.LastScheduleTime.Time
 	}
 	for i := range runs {
+		// The newest scheduled run is the record of the last schedule time even when the status
+		// write that should have recorded it was lost.
 		if t := runs[i].Spec.ScheduledTime; runs[i].Spec.Trigger == forecastingv1alpha1.TriggerSchedule && t != nil && t.After(earliest) {
 			earliest = t.Time
+			st.LastScheduleTime = t.DeepCopy()
 		}
 	}
 	due := mostRecentScheduleTime(sched, earliest, now, fp.Spec.StartingDeadlineSeconds)

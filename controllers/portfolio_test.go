@@ -62,6 +62,7 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 		wantReplace []string
 		wantEvents  []string
 		wantNext    time.Time
+		wantLast    *time.Time
 	}{
 		"nothing due yet": {
 			lastSchedule: ptr.To(monday), now: monday.Add(time.Hour),
@@ -103,7 +104,7 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 				r.Spec.Trigger, r.Spec.ScheduledTime = forecastingv1alpha1.TriggerSchedule, &metav1.Time{Time: monday}
 				return []forecastingv1alpha1.ForecastRun{r}
 			}(),
-			wantNext: monday.AddDate(0, 0, 7),
+			wantNext: monday.AddDate(0, 0, 7), wantLast: ptr.To(monday),
 		},
 	}
 	for name, tc := range tests {
@@ -128,6 +129,9 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 				if !p.Status.LastScheduleTime.Equal(&metav1.Time{Time: monday}) {
 					t.Errorf("lastScheduleTime = %v, want %v", p.Status.LastScheduleTime, monday)
 				}
+			}
+			if tc.wantLast != nil && !p.Status.LastScheduleTime.Equal(&metav1.Time{Time: *tc.wantLast}) {
+				t.Errorf("lastScheduleTime = %v, want %v (rebuilt from the run)", p.Status.LastScheduleTime, *tc.wantLast)
 			}
 			if gotCreate != tc.wantCreate {
 				t.Errorf("create = %q, want %q", gotCreate, tc.wantCreate)

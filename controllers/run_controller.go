@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"slices"
 	"strings"
 	"time"
 
@@ -475,6 +476,9 @@ func (r *RunReconciler) rebalance(ctx context.Context, run *forecastingv1alpha1.
 	self := run.Namespace + "/" + jobName(run.Name, stepTrain)
 	reqs := trainDemands(jobs.Items)
 	if newShards > 0 {
+		// The Job may exist already (a reconcile whose status write conflicted created it):
+		// count this run once.
+		reqs = slices.DeleteFunc(reqs, func(q shareRequest) bool { return q.Key == self })
 		reqs = append(reqs, shareRequest{
 			Key:    self,
 			Weight: orDefault(fp.Spec.Sharding.ShareWeight, defaultShareWeight),

@@ -1,0 +1,190 @@
+package controllers
+
+import (
+	"encoding/json"
+	"fmt"
+	"strconv"
+	"time"
+
+	. "github.com/onsi/gomega"
+	batchv1 "k8s.io/api/batch/v1"
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/types"
+	"k8s.io/utils/ptr"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/summary"
+)
+
+// This file plays the Job controller and the kubelet for the envtest suite: it creates the pods
+// of a Job from its template (labels, the completion-index annotation), moves them to a final
+// phase with a termination message, and updates Job status the way the Job controller does
+// (startTime; completedIndexes and failedIndexes; SuccessCriteriaMet then Complete, or
+// FailureTarget then Failed, with completionTime), satisfying the apiserver's Job status
+// validation.
+
+// getJob waits for a step's Job to exist and returns it.
+func getJob(ns, run string, s step) *batchv1.Job {
+	var job batchv1.Job
+	EventuallyWithOffset(1, func() error {
+		return k8sClient.Get(ctx(), types.NamespacedName{Namespace: ns, Name: jobName(run, s)}, &job)
+	}, 20*time.Second, 100*time.Millisecond).Should(Succeed())
+	return &job
+}
+
+// getRun reads a run.
+func getRun(ns, name string) *forecastingv1alpha1.ForecastRun {
+	var run forecastingv1alpha1.ForecastRun
+	ExpectWithOffset(1, k8sClient.Get(ctx(), types.NamespacedName{Namespace: ns, Name: name}, &run)).To(Succeed())
+	return &run
+}
+
+// getPortfolio reads a portfolio.
+func getPortfolio(ns, name string) *forecastingv1alpha1.ForecastPortfolio {
+	var fp forecastingv1alpha1.ForecastPortfolio
+	ExpectWithOffset(1, k8sClient.Get(ctx(), types.NamespacedName{Namespace: ns, Name: name}, &fp)).To(Succeed())
+	return &fp
+}
+
+// runPod creates the pod of index i of job and ends it with the exit code and termination
+// message, as the kubelet would report them.
+func runPod(job *batchv1.Job, i int, attempt int, exitCode int32, message string) {
+	pod := &corev1.Pod{
+		ObjectMeta: metav1.ObjectMeta{
+			Name:        fmt.Sprintf("%s-%d-%d", job.Name, i, attempt),
+			Namespace:   job.Namespace,
+			Labels:      job.Spec.Template.Labels,
+			Annotations: map[string]string{completionIndexAnnotation: strconv.Itoa(i)},
+		},
+		Spec: job.Spec.Template.Spec,
+	}
+	ExpectWithOffset(1, k8sClient.Create(ctx(), pod)).To(Succeed())
+	phase, reason := corev1.PodSucceeded, "Completed"
+	if exitCode != 0 {
+		phase, reason = corev1.PodFailed, "Error"
+	}
+	now := metav1.Now()
+	pod.Status = corev1.PodStatus{
+		Phase: phase,
+		ContainerStatuses: []corev1.ContainerStatus{{
+			Name: trainerContainer, Image: pod.Spec.Containers[0].Image,
+			State: corev1.ContainerState{Terminated: &corev1.ContainerStateTerminated{
+				ExitCode: exitCode, Reason: reason, Message: message, StartedAt: now, FinishedAt: now,
+			}},
+		}},
+	}
+	ExpectWithOffset(1, k8sClient.Status().Update(ctx(), pod)).To(Succeed())
+}
+
+// updateJobStatus applies mutate to the Job's status, retrying on conflicts (the controller
+// patches the Job's parallelism meanwhile).
+func updateJobStatus(job *batchv1.Job, mutate func(*batchv1.JobStatus)) {
+	EventuallyWithOffset(1, func() error {
+		var cur batchv1.Job
+		if err := k8sClient.Get(ctx(), client.ObjectKeyFromObject(job), &cur); err != nil {
+			return err
+		}
+		if cur.Status.StartTime == nil {
+			cur.Status.StartTime = ptr.To(metav1.Now())
+		}
+		mutate(&cur.Status)
+		if err := k8sClient.Status().Update(ctx(), &cur); err != nil {
+			return err
+		}
+		*job = cur
+		return nil
+	}, 10*time.Second, 50*time.Millisecond).Should(Succeed())
+}
+
+func jobCondition(t batchv1.JobConditionType, reason string) batchv1.JobCondition {
+	now := metav1.Now()
+	return batchv1.JobCondition{Type: t, Status: corev1.ConditionTrue, Reason: reason, Message: "set by the test", LastProbeTime: now, LastTransitionTime: now}
+}
+
+// completeJob marks a Job Complete.
+func completeJob(job *batchv1.Job) {
+	updateJobStatus(job, func(st *batchv1.JobStatus) {
+		st.Active, st.Ready = 0, ptr.To[int32](0)
+		st.Conditions = append(st.Conditions,
+			jobCondition(batchv1.JobSuccessCriteriaMet, batchv1.JobReasonCompletionsReached),
+			jobCondition(batchv1.JobComplete, batchv1.JobReasonCompletionsReached))
+		st.CompletionTime = ptr.To(metav1.Now())
+	})
+}
+
+// failJob marks a Job Failed with the reason.
+func failJob(job *batchv1.Job, reason string) {
+	updateJobStatus(job, func(st *batchv1.JobStatus) {
+		st.Active, st.Ready = 0, ptr.To[int32](0)
+		st.Conditions = append(st.Conditions, jobCondition(batchv1.JobFailureTarget, reason), jobCondition(batchv1.JobFailed, reason))
+	})
+}
+
+// message encodes a summary as a trainer termination message.
+func message(s summary.Summary) string {
+	b, err := summary.Encode(s)
+	Expect(err).NotTo(HaveOccurred())
+	return string(b)
+}
+
+// succeedSingle plays a plan or publish Job that succeeds with the summary.
+func succeedSingle(ns, run string, s step, sum summary.Summary) {
+	job := getJob(ns, run, s)
+	runPod(job, 0, 0, 0, message(sum))
+	updateJobStatus(job, func(st *batchv1.JobStatus) { st.Succeeded = 1 })
+	completeJob(job)
+}
+
+// finishShards ends the given train indexes: succeeded ones with a train summary from mk,
+// failed ones with exit code 3 (broken input data) and an error summary. The Job status
+// lists them in completedIndexes / failedIndexes; the Job stays running.
+func finishShards(job *batchv1.Job, succeeded, failed []int, mk func(i int) summary.Summary) {
+	for _, i := range succeeded {
+		s := mk(i)
+		s.Kind, s.Shard = summary.KindTrain, i
+		runPod(job, i, 0, 0, message(s))
+	}
+	for _, i := range failed {
+		runPod(job, i, 0, 3, message(summary.Summary{Kind: summary.KindTrain, Shard: i, Error: fmt.Sprintf("units/%04d.csv: line 1: no date column", i)}))
+	}
+	updateJobStatus(job, func(st *batchv1.JobStatus) {
+		done, _ := parseIndexSet(st.CompletedIndexes)
+		for _, i := range succeeded {
+			done[i] = struct{}{}
+		}
+		st.CompletedIndexes, st.Succeeded = done.String(), int32(len(done))
+		if len(failed) > 0 {
+			bad := indexSet{}
+			if st.FailedIndexes != nil {
+				bad, _ = parseIndexSet(*st.FailedIndexes)
+			}
+			for _, i := range failed {
+				bad[i] = struct{}{}
+			}
+			st.FailedIndexes, st.Failed = ptr.To(bad.String()), int32(len(bad))
+		} else if st.FailedIndexes == nil {
+			st.FailedIndexes = ptr.To("")
+		}
+	})
+}
+
+// shardSummary is the train summary the lifecycle tests give shard i: 100 + i series, all but
+// one trained, and MASE sums expected 0.5*n and realized 0.6*n over n = 10 evaluated series.
+func shardSummary(i int) summary.Summary {
+	return summary.Summary{
+		Series: 100 + i, Trained: 99 + i, Rejected: 1,
+		Models:   map[string]int{"ETS": 60, "Theta": 39 + i},
+		Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 50, ExpectedSum: 5, RealizedSum: 6, Drifted: 1},
+	}
+}
+
+// configOf decodes the run's rendered configuration.
+func configOf(ns, run string) map[string]any {
+	var cm corev1.ConfigMap
+	Expect(k8sClient.Get(ctx(), types.NamespacedName{Namespace: ns, Name: configMapName(run)}, &cm)).To(Succeed())
+	var out map[string]any
+	Expect(json.Unmarshal([]byte(cm.Data["config.json"]), &out)).To(Succeed())
+	return out
+}

@@ -1,0 +1,136 @@
+package controllers
+
+import (
+	"context"
+	"fmt"
+	"os"
+	"path/filepath"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	. "github.com/onsi/ginkgo/v2"
+	. "github.com/onsi/gomega"
+	"github.com/prometheus/client_golang/prometheus"
+	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
+	"k8s.io/apimachinery/pkg/runtime"
+	clientgoscheme "k8s.io/client-go/kubernetes/scheme"
+	"k8s.io/client-go/rest"
+	testingclock "k8s.io/utils/clock/testing"
+	"k8s.io/utils/ptr"
+	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/client"
+	"sigs.k8s.io/controller-runtime/pkg/config"
+	"sigs.k8s.io/controller-runtime/pkg/envtest"
+	logf "sigs.k8s.io/controller-runtime/pkg/log"
+	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+	metricsserver "sigs.k8s.io/controller-runtime/pkg/metrics/server"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+)
+
+// The suite runs the manager in-process against a real kube-apiserver and etcd (self-built, see
+// test/tools/controlplane). No Job controller or kubelet runs: the tests play their part by
+// creating the pods of each Job and setting pod and Job status as they would (jobplay_test.go).
+
+const suiteBudget = 4
+
+var (
+	testEnv   *envtest.Environment
+	cfg       *rest.Config
+	k8sClient client.Client
+	scheme    = runtime.NewScheme()
+	fakeClock *testingclock.FakeClock
+	// current is the running manager (restart tests stop it and start another).
+	current *testManager
+	nsSeq   atomic.Int32
+)
+
+func TestControllers(t *testing.T) {
+	if os.Getenv("KUBEBUILDER_ASSETS") == "" {
+		t.Skip("KUBEBUILDER_ASSETS is not set: run `make controlplane` and `make test` (CI always sets it)")
+	}
+	RegisterFailHandler(Fail)
+	RunSpecs(t, "Controller suite")
+}
+
+var _ = BeforeSuite(func() {
+	logf.SetLogger(zap.New(zap.WriteTo(GinkgoWriter), zap.UseDevMode(true)))
+	Expect(clientgoscheme.AddToScheme(scheme)).To(Succeed())
+	Expect(forecastingv1alpha1.AddToScheme(scheme)).To(Succeed())
+	testEnv = &envtest.Environment{
+		CRDDirectoryPaths:     []string{filepath.Join("..", "config", "crd", "bases")},
+		ErrorIfCRDPathMissing: true,
+	}
+	var err error
+	cfg, err = testEnv.Start()
+	Expect(err).NotTo(HaveOccurred())
+	k8sClient, err = client.New(cfg, client.Options{Scheme: scheme})
+	Expect(err).NotTo(HaveOccurred())
+	fakeClock = testingclock.NewFakeClock(time.Now().Truncate(time.Second))
+	current = startManager(suiteBudget)
+})
+
+var _ = AfterSuite(func() {
+	if current != nil {
+		current.stop()
+	}
+	if testEnv != nil {
+		Expect(testEnv.Stop()).To(Succeed())
+	}
+})
+
+// testManager is one in-process manager with its own metrics registry.
+type testManager struct {
+	cancel   context.CancelFunc
+	done     chan struct{}
+	registry *prometheus.Registry
+	metrics  *Metrics
+}
+
+// startManager starts the controllers with the given shard budget and the suite's fake clock.
+func startManager(budget int32) *testManager {
+	cacheOpts, err := CacheOptions(nil)
+	Expect(err).NotTo(HaveOccurred())
+	mgr, err := ctrl.NewManager(cfg, ctrl.Options{
+		Scheme:  scheme,
+		Cache:   cacheOpts,
+		Metrics: metricsserver.Options{BindAddress: "0"},
+		// Restart tests start a second manager with the same controller names in this process.
+		Controller: config.Controller{SkipNameValidation: ptr.To(true)},
+	})
+	Expect(err).NotTo(HaveOccurred())
+	reg := prometheus.NewRegistry()
+	m, err := NewMetrics(reg)
+	Expect(err).NotTo(HaveOccurred())
+	ctx, cancel := context.WithCancel(context.Background())
+	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: m})).To(Succeed())
+	tm := &testManager{cancel: cancel, done: make(chan struct{}), registry: reg, metrics: m}
+	go func() {
+		defer GinkgoRecover()
+		defer close(tm.done)
+		Expect(mgr.Start(ctx)).To(Succeed())
+	}()
+	return tm
+}
+
+func (tm *testManager) stop() {
+	tm.cancel()
+	Eventually(tm.done, 30*time.Second).Should(BeClosed())
+}
+
+// newNamespace creates a namespace of its own for one test, with the default ServiceAccount
+// (no controller-manager runs to create it).
+func newNamespace() string {
+	name := fmt.Sprintf("fenwick-%d", nsSeq.Add(1))
+	Expect(k8sClient.Create(ctx(), &corev1.Namespace{ObjectMeta: metav1.ObjectMeta{Name: name}})).To(Succeed())
+	sa := &corev1.ServiceAccount{ObjectMeta: metav1.ObjectMeta{Name: "default", Namespace: name}}
+	if err := k8sClient.Create(ctx(), sa); err != nil && !apierrors.IsAlreadyExists(err) {
+		Expect(err).NotTo(HaveOccurred())
+	}
+	return name
+}
+
+func ctx() context.Context { return context.Background() }
