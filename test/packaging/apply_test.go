@@ -241,6 +241,27 @@ func TestServerSideApply(t *testing.T) {
 		})
 	}
 
+	// A namespaced install grants the markers' rules through Roles, which only work for
+	// namespaced resources; the API server's discovery says which ones are.
+	t.Run("marker rules are all namespaced", func(t *testing.T) {
+		for _, r := range markerRules(t) {
+			for _, g := range r.APIGroups {
+				for _, res := range r.Resources {
+					base, _, _ := strings.Cut(res, "/") // status and finalizers share the scope
+					gvk, err := c.mapper.KindFor(schema.GroupVersionResource{Group: g, Resource: base})
+					if err != nil {
+						t.Errorf("%s/%s: %v", g, base, err)
+						continue
+					}
+					m, err := c.mapper.RESTMapping(gvk.GroupKind(), gvk.Version)
+					if err != nil || m.Scope.Name() != meta.RESTScopeNameNamespace {
+						t.Errorf("%s/%s is not namespaced (err %v): a Role cannot grant it, so watchNamespaces installs lack it", g, base, err)
+					}
+				}
+			}
+		}
+	})
+
 	t.Run("samples", func(t *testing.T) {
 		files, _ := filepath.Glob(filepath.Join(repoRoot, "config", "samples", "forecasting_*.yaml"))
 		if len(files) == 0 {
