@@ -190,3 +190,14 @@ func TestManagerSecurityContextAgrees(t *testing.T) {
 		}
 	}
 }
+
+// README (GitOps) promises that a sync never fights the controller over a portfolio's spec:
+// the controller writes only the status subresource.
+func TestControllerNeverWritesPortfolioSpec(t *testing.T) {
+	for _, g := range grants(markerRules(t)) {
+		res, verb, _ := strings.Cut(g, " ")
+		if res == "forecasting.almanac.dev/forecastportfolios" && slices.Contains([]string{"create", "update", "patch", "delete", "deletecollection"}, verb) {
+			t.Errorf("the controller's markers grant %s on forecastportfolios; README's GitOps section says it never writes their spec", verb)
+		}
+	}
+}
