@@ -100,6 +100,50 @@ func stepSummary(pods []corev1.Pod, kind string) (s summary.Summary, ok bool, er
 	return s, true, nil
 }
 
+// unfoldedIndexes are the indexes the Job reports completed or failed that
+// status.shards.folded does not hold yet, in increasing order.
+func unfoldedIndexes(st *forecastingv1alpha1.ForecastRunStatus, job *batchv1.Job) ([]int, error) {
+	folded, err := parseIndexSet(st.Shards.Folded)
+	if err != nil {
+		return nil, fmt.Errorf("status.shards.folded: %w", err)
+	}
+	done, err := parseIndexSet(job.Status.CompletedIndexes)
+	if err != nil {
+		return nil, fmt.Errorf("job %s status.completedIndexes: %w", job.Name, err)
+	}
+	if job.Status.FailedIndexes != nil {
+		failed, err := parseIndexSet(*job.Status.FailedIndexes)
+		if err != nil {
+			return nil, fmt.Errorf("job %s status.failedIndexes: %w", job.Name, err)
+		}
+		for i := range failed {
+			done[i] = struct{}{}
+		}
+	}
+	var out []int
+	for _, i := range done.sorted() {
+		if !folded.has(i) {
+			out = append(out, i)
+		}
+	}
+	return out, nil
+}
+
+// podShardKey is the IndexPodShard value of the pods of one index of one step of a run.
+func podShardKey(run string, s step, index int) string {
+	return run + "/" + string(s) + "/" + strconv.Itoa(index)
+}
+
+// podShardKeys is the IndexPodShard extractor: the key of a pod that carries the run and step
+// labels and the completion-index annotation, none otherwise.
+func podShardKeys(pod *corev1.Pod) []string {
+	run, s, i := pod.Labels[LabelRun], pod.Labels[LabelStep], podIndex(pod)
+	if run == "" || s == "" || i < 0 {
+		return nil
+	}
+	return []string{podShardKey(run, step(s), i)}
+}
+
 // foldResult reports what foldShards did.
 type foldResult struct {
 	// Folded are the indexes folded by this call.

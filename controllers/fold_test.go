@@ -189,3 +189,28 @@ func TestJobResult(t *testing.T) {
 		})
 	}
 }
+
+func TestUnfoldedIndexes(t *testing.T) {
+	st := forecastingv1alpha1.ForecastRunStatus{Shards: forecastingv1alpha1.ShardCounts{Folded: "0-2,5"}}
+	got, err := unfoldedIndexes(&st, trainJob("0-4", "5-7"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if diff := cmp.Diff([]int{3, 4, 6, 7}, got); diff != "" {
+		t.Errorf("unfolded (-want,+got):\n%s", diff)
+	}
+	if _, err := unfoldedIndexes(&st, trainJob("0-x", "")); err == nil || !strings.Contains(err.Error(), "completedIndexes") {
+		t.Errorf("bad completedIndexes: err = %v", err)
+	}
+}
+
+func TestPodShardKeys(t *testing.T) {
+	pod := finishedPod(7, corev1.PodSucceeded, "", time.Time{})
+	if got := podShardKeys(&pod); got != nil {
+		t.Errorf("pod without run labels: keys %v", got)
+	}
+	pod.Labels = map[string]string{LabelRun: "fenwick-weekly-29933550", LabelStep: "train"}
+	if diff := cmp.Diff([]string{"fenwick-weekly-29933550/train/7"}, podShardKeys(&pod)); diff != "" {
+		t.Errorf("keys (-want,+got):\n%s", diff)
+	}
+}

@@ -320,29 +320,40 @@ func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.Fore
 	return nil
 }
 
-// fold folds the train Job's finished indexes. Pods the cache has not seen yet are read from
-// the API server; when the Job has ended, an index with no pod there either is folded as lost.
+// fold folds the train Job's newly finished indexes, reading only their pods from the cache
+// (through the per-index field index, so a reconcile costs O(new shards), not O(shards)). A pod
+// the cache has not seen yet is waited for; once the Job has ended, the pods are listed from the
+// API server and an index with no pod there either is folded as lost.
 func (r *RunReconciler) fold(ctx context.Context, run *forecastingv1alpha1.ForecastRun, job *batchv1.Job, w *runWork, ended bool) error {
-	pods, err := r.stepPods(ctx, r.Client, run, stepTrain)
+	fresh, err := unfoldedIndexes(w.status, job)
 	if err != nil {
 		return err
+	}
+	var pods []corev1.Pod
+	for _, i := range fresh {
+		var list corev1.PodList
+		if err := r.List(ctx, &list, client.InNamespace(run.Namespace),
+			client.MatchingFields{IndexPodShard: podShardKey(run.Name, stepTrain, i)}); err != nil {
+			return err
+		}
+		pods = append(pods, list.Items...)
 	}
 	res, err := foldShards(w.status, job, pods, false)
 	if err != nil {
 		return err
 	}
-	if len(res.Waiting) > 0 {
+	if len(res.Waiting) > 0 && !ended {
+		w.requeue = 250 * time.Millisecond
+	}
+	if len(res.Waiting) > 0 && ended {
 		if pods, err = r.stepPods(ctx, r.APIReader, run, stepTrain); err != nil {
 			return err
 		}
-		more, err := foldShards(w.status, job, pods, ended)
+		more, err := foldShards(w.status, job, pods, true)
 		if err != nil {
 			return err
 		}
 		res.Problems = append(res.Problems, more.Problems...)
-		if len(more.Waiting) > 0 {
-			w.requeue = time.Second
-		}
 	}
 	if len(res.Problems) > 0 {
 		w.event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonShardsFailed, "%s", joinLimited(res.Problems, 1000))

@@ -21,8 +21,13 @@ import (
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
 
-// IndexRunPortfolio is the cache field index of ForecastRuns by spec.portfolioName.
-const IndexRunPortfolio = "spec.portfolioName"
+// Cache field indexes.
+const (
+	// IndexRunPortfolio indexes ForecastRuns by spec.portfolioName.
+	IndexRunPortfolio = "spec.portfolioName"
+	// IndexPodShard indexes trainer pods by "<run>/<step>/<completion index>".
+	IndexPodShard = "almanac.shard"
+)
 
 // Options configure the manager's two controllers.
 type Options struct {
@@ -35,6 +40,9 @@ type Options struct {
 	Metrics *Metrics
 	// RunWorkers is the number of concurrent run reconciles (default 2).
 	RunWorkers int
+	// Wrap, when set, wraps each reconciler (named "forecastrun" or "forecastportfolio"), e.g.
+	// to time reconciles in the benchmark.
+	Wrap func(name string, r reconcile.Reconciler) reconcile.Reconciler
 }
 
 // CacheOptions restrict the manager's cache to what the controllers need: the given namespaces
@@ -68,11 +76,18 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 	if o.RunWorkers < 1 {
 		o.RunWorkers = 2
 	}
+	if o.Wrap == nil {
+		o.Wrap = func(_ string, r reconcile.Reconciler) reconcile.Reconciler { return r }
+	}
 	if err := mgr.GetFieldIndexer().IndexField(ctx, &forecastingv1alpha1.ForecastRun{}, IndexRunPortfolio,
 		func(obj client.Object) []string {
 			return []string{obj.(*forecastingv1alpha1.ForecastRun).Spec.PortfolioName}
 		}); err != nil {
 		return fmt.Errorf("index runs by portfolio: %w", err)
+	}
+	if err := mgr.GetFieldIndexer().IndexField(ctx, &corev1.Pod{}, IndexPodShard,
+		func(obj client.Object) []string { return podShardKeys(obj.(*corev1.Pod)) }); err != nil {
+		return fmt.Errorf("index pods by shard: %w", err)
 	}
 	runs := &RunReconciler{
 		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
@@ -100,7 +115,7 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 		Watches(&forecastingv1alpha1.ForecastPortfolio{}, portfolioToRuns).
 		WithOptions(controller.Options{MaxConcurrentReconciles: o.RunWorkers}).
 		Named("forecastrun").
-		Complete(runs); err != nil {
+		Complete(o.Wrap("forecastrun", runs)); err != nil {
 		return err
 	}
 	portfolios := &PortfolioReconciler{
@@ -116,5 +131,5 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 		For(&forecastingv1alpha1.ForecastPortfolio{}).
 		Watches(&forecastingv1alpha1.ForecastRun{}, runToPortfolio).
 		Named("forecastportfolio").
-		Complete(portfolios)
+		Complete(o.Wrap("forecastportfolio", portfolios))
 }
