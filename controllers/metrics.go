@@ -67,7 +67,7 @@ func (m *Metrics) runEnded(run *forecastingv1alpha1.ForecastRun, result string, 
 	if seconds >= 0 {
 		m.duration.WithLabelValues(run.Namespace, run.Spec.PortfolioName, result).Observe(seconds)
 	}
-	m.forgetRun(run.Namespace, run.Spec.PortfolioName, run.Name)
+	m.forgetRun(run.Namespace, run.Name)
 }
 
 // runProgress sets the gauges of an active run.
@@ -80,12 +80,13 @@ func (m *Metrics) runProgress(run *forecastingv1alpha1.ForecastRun, pending, par
 }
 
 // forgetRun drops an ended or deleted run's gauges.
-func (m *Metrics) forgetRun(namespace, portfolio, run string) {
+func (m *Metrics) forgetRun(namespace, run string) {
 	if m == nil {
 		return
 	}
-	m.shardsPending.DeleteLabelValues(namespace, portfolio, run)
-	m.parallelism.DeleteLabelValues(namespace, portfolio, run)
+	labels := prometheus.Labels{"namespace": namespace, "run": run}
+	m.shardsPending.DeletePartialMatch(labels)
+	m.parallelism.DeletePartialMatch(labels)
 }
 
 // accuracy sets a portfolio's accuracy gauges from its status block (nil: drop them).

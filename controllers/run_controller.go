@@ -77,7 +77,7 @@ func (r *RunReconciler) Reconcile(ctx context.Context, req reconcile.Request) (r
 	var run forecastingv1alpha1.ForecastRun
 	if err := r.Get(ctx, req.NamespacedName, &run); err != nil {
 		if apierrors.IsNotFound(err) {
-			r.Metrics.forgetRun(req.Namespace, "", req.Name)
+			r.Metrics.forgetRun(req.Namespace, req.Name)
 		}
 		return reconcile.Result{}, client.IgnoreNotFound(err)
 	}
