@@ -1,0 +1,123 @@
+// Package pipeline is the trainer's data work as library functions: Plan lists the input and
+// cuts units into shards, Train forecasts one shard, Publish verifies every unit, carries
+// forward the previous forecast where a shard failed and moves the latest pointer, Local runs
+// all three in one process and Inspect reports a published run. Each takes the run
+// configuration and an Env (clock and log) and returns the summary.Summary the command writes
+// to its termination message.
+//
+// Crash safety rests on three rules. Every object is written whole or not at all
+// (store.Write). Within a unit, train writes unit.json last, listing the unit's files with
+// their SHA-256; publish trusts a unit only when unit.json exists and every checksum
+// matches. Publish writes MANIFEST.json only after verifying every unit and moves
+// latest.json only after that, so a reader following latest.json always finds a complete
+// manifest whose files all exist. Every output is a pure function of the input, the
+// configuration and the previous run, so a rerun after a crash writes identical bytes.
+package pipeline
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"time"
+
+	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/ingest"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+)
+
+// Env is what the commands take from the process.
+type Env struct {
+	// Now is the clock (time.Now in main, fixed in tests). Train uses the run's scheduled time
+	// when set, so that reruns agree, and Now only for manual runs and durations.
+	Now func() time.Time
+	// Log receives progress lines (stderr in main); nil discards them.
+	Log io.Writer
+	// Workers is the number of forecasting goroutines; <= 0 means GOMAXPROCS.
+	Workers int
+}
+
+func (e Env) logf(format string, a ...any) {
+	if e.Log != nil {
+		fmt.Fprintf(e.Log, format+"\n", a...)
+	}
+}
+
+func (e Env) now() time.Time {
+	if e.Now == nil {
+		return time.Now()
+	}
+	return e.Now()
+}
+
+// ExitCode maps an error from this package to the trainer's exit code: configuration errors
+// (ErrConfig, a bad URI or key, refused credentials) 2, broken input 3, storage failures that
+// may pass 4, anything else 1. Refused credentials count as configuration: retrying with the
+// same Secret cannot help.
+func ExitCode(err error) int {
+	switch {
+	case err == nil:
+		return exitcode.OK
+	case errors.Is(err, ErrConfig), errors.Is(err, store.ErrBadURI), errors.Is(err, store.ErrBadKey),
+		errors.Is(err, store.ErrPermission):
+		return exitcode.Config
+	case errors.Is(err, ingest.ErrBrokenInput):
+		return exitcode.Data
+	case errors.Is(err, ErrStorage), errors.Is(err, context.DeadlineExceeded):
+		return exitcode.Transient
+	}
+	return exitcode.Internal
+}
+
+// openOutput opens the output store.
+func openOutput(ctx context.Context, cfg *runconfig.Config) (*store.Store, error) {
+	if err := store.CheckName("run", cfg.Run); err != nil {
+		return nil, fmt.Errorf("run: %w: %w", ErrConfig, err)
+	}
+	st, err := store.Open(ctx, cfg.Output.URI)
+	if err != nil {
+		return nil, fmt.Errorf("output.uri: %w", storageErr(err))
+	}
+	return st, nil
+}
+
+// tableFormat is the output table format (parquet unless csv is configured).
+func tableFormat(cfg *runconfig.Config) string {
+	if cfg.Output.Format == "csv" {
+		return "csv"
+	}
+	return "parquet"
+}
+
+// previous finds the run this one follows: cfg.PreviousRun, else the run latest.json points
+// at, else none (first run; prev is nil). The previous run must be another run with a
+// manifest; the one latest.json names is verified against its checksum.
+func previous(ctx context.Context, out *store.Store, cfg *runconfig.Config) (*Manifest, error) {
+	run := cfg.PreviousRun
+	if run == "" {
+		p, ok, err := out.ReadLatest(ctx)
+		if err != nil {
+			return nil, storageErr(err)
+		}
+		if !ok {
+			return nil, nil
+		}
+		run = p.Run
+	}
+	if run == cfg.Run {
+		// A rerun of a run already published: its own predecessor is recorded in its manifest.
+		m, err := readManifest(ctx, out, run)
+		if err != nil {
+			return nil, err
+		}
+		if m.PreviousRun == "" {
+			return nil, nil
+		}
+		run = m.PreviousRun
+	}
+	if err := store.CheckName("run", run); err != nil {
+		return nil, fmt.Errorf("previousRun: %w: %w", ErrConfig, err)
+	}
+	return readManifest(ctx, out, run)
+}

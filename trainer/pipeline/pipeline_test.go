@@ -1,0 +1,451 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"sort"
+	"strings"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/tables"
+)
+
+// anchor is the fixed clock of these tests: the morning after the last day of history.
+var anchor = time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC)
+
+func testEnv() Env { return Env{Now: func() time.Time { return anchor }, Workers: 2} }
+
+// testConfig is a daily run over Fenwick Lane Provisions' depots (invented data).
+func testConfig(run, in, out string) *runconfig.Config {
+	return &runconfig.Config{
+		Portfolio: "flp-daily", Namespace: "planning", Run: run, Trigger: "Manual",
+		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true,
+			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}},
+		Output:    runconfig.Output{URI: out, Format: "csv"},
+		Horizon:   7,
+		Quantiles: []float64{0.1, 0.5, 0.9},
+		Zoo:       []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 2, Step: 1},
+		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 3},
+		Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 3},
+	}
+}
+
+// depotCSV is one depot's history: items x days of weekly-seasonal demand ending the day
+// before anchor. bad names an item whose third row has an unparsable value.
+func depotCSV(depot string, items []string, days int, bad string) []byte {
+	var b bytes.Buffer
+	b.WriteString("item,depot,date,units,promo\n")
+	end := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	for n, item := range items {
+		for d := days - 1; d >= 0; d-- {
+			day := end.AddDate(0, 0, -d)
+			v := fmt.Sprintf("%d", 10+n+3*int(day.Weekday())+(d%5))
+			if item == bad && d == days-3 {
+				v = "n/a"
+			}
+			fmt.Fprintf(&b, "%s,%s,%s,%s,%d\n", item, depot, day.Format("2006-01-02"), v, d%9/8)
+		}
+	}
+	return b.Bytes()
+}
+
+// putInput writes three depot objects (7 series, one of them bad) through st.
+func putInput(t *testing.T, st *store.Store) {
+	t.Helper()
+	ctx := context.Background()
+	for _, o := range []struct {
+		key   string
+		items []string
+		bad   string
+	}{
+		{"in/depot-ashby.csv", []string{"FLP-OATS-1KG", "FLP-TEA-80"}, ""},
+		{"in/depot-brill.csv", []string{"FLP-OATS-1KG", "FLP-JAM-340", "FLP-HONEY-454"}, "FLP-JAM-340"},
+		{"in/depot-corrie.csv", []string{"FLP-TEA-80", "FLP-FLOUR-1500"}, ""},
+	} {
+		if err := st.Put(ctx, o.key, depotCSV(strings.TrimSuffix(strings.TrimPrefix(o.key, "in/depot-"), ".csv"), o.items, 42, o.bad)); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
+func mustOpen(t *testing.T, uri string) *store.Store {
+	t.Helper()
+	st, err := store.Open(context.Background(), uri)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { st.Close() })
+	return st
+}
+
+// objectRun writes the input under a temporary directory and returns it with the first run's
+// configuration, one unit per object.
+func objectRun(t *testing.T) (string, *runconfig.Config) {
+	dir := t.TempDir()
+	putInput(t, mustOpen(t, "file://"+dir))
+	cfg := testConfig("flp-0001", "file://"+dir+"/in/", "file://"+dir+"/out")
+	cfg.Source.Partitioning = runconfig.PartitionObject
+	return dir, cfg
+}
+
+// runAll plans, trains every shard and publishes; it returns the shard count and each
+// shard's error.
+func runAll(t *testing.T, cfg *runconfig.Config) (int, []error) {
+	t.Helper()
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatalf("plan: %v", err)
+	}
+	errs := make([]error, ps.Shards)
+	for i := range errs {
+		_, errs[i] = RunTrain(ctx, cfg, i, testEnv())
+	}
+	if _, err := RunPublish(ctx, cfg, testEnv()); err != nil {
+		t.Fatalf("publish: %v", err)
+	}
+	return ps.Shards, errs
+}
+
+// checkPublished follows latest.json and checks the run it names is complete and verified.
+func checkPublished(t *testing.T, out *store.Store, run string) *Manifest {
+	t.Helper()
+	ctx := context.Background()
+	p, ok, err := out.ReadLatest(ctx)
+	if err != nil || !ok || p.Run != run {
+		t.Fatalf("latest = %+v %v %v, want run %s", p, ok, err, run)
+	}
+	m, err := readManifest(ctx, out, run)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, u := range m.Units {
+		if u.State == StateMissing {
+			continue
+		}
+		if bad, err := verifyFiles(ctx, out, u.Files); err != nil || bad != "" {
+			t.Fatalf("unit %s: %s %v", u.ID, bad, err)
+		}
+	}
+	return m
+}
+
+func TestEndToEndObjectsOnFile(t *testing.T) {
+	dir, cfg := objectRun(t)
+	shards, errs := runAll(t, cfg)
+	if shards != 3 { // 7 series / 3 per shard -> 3 shards of the 3 objects
+		t.Fatalf("%d shards, want 3", shards)
+	}
+	for i, err := range errs {
+		if err != nil {
+			t.Fatalf("shard %d: %v", i, err)
+		}
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, "flp-0001")
+	if !m.Complete || m.Totals.Trained != 3 || m.Totals.Series.Series != 7 || m.Totals.Series.Trained != 6 || m.Totals.Series.Rejected != 1 {
+		t.Fatalf("totals = %+v complete %v", m.Totals, m.Complete)
+	}
+	// The bad series is rejected with a reason naming the object and line.
+	unit := ObjectID("depot-brill.csv", nil)
+	b, err := out.Get(context.Background(), store.UnitKey("flp-0001", unit, store.RejectedName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	rej, err := tables.ReadRejected(bytes.NewReader(b), tables.CSV)
+	if err != nil || len(rej) != 1 || rej[0].Series != "FLP-JAM-340/brill" ||
+		!strings.Contains(rej[0].Reason, "depot-brill.csv line") || !strings.Contains(rej[0].Reason, `"n/a"`) {
+		t.Fatalf("rejected = %+v, %v", rej, err)
+	}
+	// Forecasts: 7 steps per trained series, starting the day after the last actual.
+	fb, _ := out.Get(context.Background(), store.UnitKey("flp-0001", unit, "forecasts.csv"))
+	h, fc, err := tables.ReadForecasts(bytes.NewReader(fb), tables.CSV)
+	if err != nil || len(fc) != 2*7 || len(h.Quantiles) != 3 {
+		t.Fatalf("forecasts: %d rows, header %+v, %v", len(fc), h, err)
+	}
+	if first := fc[0]; !first.Period.Equal(time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)) || first.Step != 1 {
+		t.Fatalf("first forecast row %+v", first)
+	}
+	for _, r := range fc {
+		if !(r.Quantiles[0] <= r.Quantiles[1] && r.Quantiles[1] <= r.Quantiles[2]) || r.Quantiles[0] < 0 {
+			t.Fatalf("quantiles out of order or negative: %+v", r)
+		}
+	}
+
+	// Idempotence: rerunning a shard rewrites identical bytes.
+	before := snapshot(t, dir+"/out/runs/flp-0001/units")
+	if _, err := RunTrain(context.Background(), cfg, 1, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	if after := snapshot(t, dir+"/out/runs/flp-0001/units"); !equalFiles(before, after) {
+		t.Fatal("rerunning shard 1 changed its outputs")
+	}
+	var sb strings.Builder
+	if err := Inspect(context.Background(), cfg.Output.URI, "", &sb); err != nil {
+		t.Fatal(err)
+	}
+	for _, want := range []string{"run flp-0001 (complete)", "units: 3 (3 trained, 0 carried forward, 0 missing)", "series: 7 (6 forecast, 1 rejected)"} {
+		if !strings.Contains(sb.String(), want) {
+			t.Errorf("inspect output lacks %q:\n%s", want, sb.String())
+		}
+	}
+}
+
+func TestEndToEndBucketsOnMem(t *testing.T) {
+	in := mustOpen(t, "mem://flp-buckets-in/")
+	putInput(t, in)
+	cfg := testConfig("flp-0001", "mem://flp-buckets-in/in/", "mem://flp-buckets-out/")
+	s, err := RunLocal(context.Background(), cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, "flp-0001")
+	// 7 series, target 3 -> 3 shards -> 16 buckets (ChooseBuckets); every series in one bucket.
+	if m.Buckets != 16 || !m.Complete || m.Totals.Series.Series != 7 || m.Totals.Series.Rejected != 1 || s.Shards != 3 {
+		t.Fatalf("manifest buckets %d complete %v totals %+v, summary %+v", m.Buckets, m.Complete, m.Totals, s)
+	}
+	// A second run keeps the bucket count, so unit ids stay stable.
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Sharding.TargetSeriesPerShard = 1
+	if _, err := RunLocal(context.Background(), cfg2, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	m2 := checkPublished(t, out, "flp-0002")
+	if m2.Buckets != 16 || m2.PreviousRun != "flp-0001" {
+		t.Fatalf("second run: buckets %d previous %q", m2.Buckets, m2.PreviousRun)
+	}
+}
+
+func TestVanishedObjectIsCarriedForward(t *testing.T) {
+	dir, cfg := objectRun(t)
+	if _, errs := runAll(t, cfg); errs[0] != nil || errs[1] != nil || errs[2] != nil {
+		t.Fatalf("first run: %v", errs)
+	}
+	// Second run: plan sees all three objects, then depot-corrie vanishes before train.
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Source.Partitioning = runconfig.PartitionObject
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Remove(filepath.Join(dir, "in", "depot-corrie.csv")); err != nil {
+		t.Fatal(err)
+	}
+	failed := 0
+	for i := 0; i < ps.Shards; i++ {
+		_, err := RunTrain(ctx, cfg2, i, testEnv())
+		if err != nil {
+			failed++
+			if ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "depot-corrie.csv") {
+				t.Fatalf("shard %d: exit %d, %v; want exit 3 naming the object", i, ExitCode(err), err)
+			}
+		}
+	}
+	if failed != 1 {
+		t.Fatalf("%d shards failed, want 1", failed)
+	}
+	ss, err := RunPublish(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, "flp-0002")
+	e, _ := m.unit(ObjectID("depot-corrie.csv", nil))
+	if ss.CarriedForward != 1 || ss.Missing != 0 || !m.Complete || e.State != StateCarried || e.Source != "flp-0001" ||
+		!strings.HasPrefix(e.Files[0].Key, "runs/flp-0001/") {
+		t.Fatalf("summary %+v, entry %+v", ss, e)
+	}
+	// A third run with the object still gone carries it forward again, from the original run.
+	cfg3 := testConfig("flp-0003", cfg.Source.URI, cfg.Output.URI)
+	cfg3.Source.Partitioning = runconfig.PartitionObject
+	if _, err := RunLocal(ctx, cfg3, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	m3 := checkPublished(t, out, "flp-0003")
+	if len(m3.Units) != 2 {
+		t.Fatalf("run 3 planned %d units, want 2 (the object is gone at plan time)", len(m3.Units))
+	}
+}
+
+func TestFailedShardOnFirstRunIsMissing(t *testing.T) {
+	dir, cfg := objectRun(t)
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(dir, "in", "depot-ashby.csv"), []byte("item,depot\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < ps.Shards; i++ {
+		RunTrain(ctx, cfg, i, testEnv())
+	}
+	s, err := RunPublish(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, "flp-0001")
+	e, _ := m.unit(ObjectID("depot-ashby.csv", nil))
+	if s.Missing != 1 || m.Complete || e.State != StateMissing || !strings.Contains(e.Reason, "no unit.json") {
+		t.Fatalf("summary %+v complete %v entry %+v", s, m.Complete, e)
+	}
+}
+
+func TestBadURIAndPermission(t *testing.T) {
+	ctx := context.Background()
+	cfg := testConfig("flp-0001", "ftp://depot.example/in/", "mem://flp-perm-out/")
+	if _, err := RunPlan(ctx, cfg, testEnv()); ExitCode(err) != exitcode.Config || !strings.Contains(err.Error(), `scheme "ftp"`) {
+		t.Fatalf("bad source scheme: exit %d, %v", ExitCode(err), err)
+	}
+	cfg = testConfig("flp-0001", "mem://x/in/", "gopher://x/out")
+	if _, err := RunPlan(ctx, cfg, testEnv()); ExitCode(err) != exitcode.Config || !strings.Contains(err.Error(), "output.uri") {
+		t.Fatalf("bad output scheme: exit %d, %v", ExitCode(err), err)
+	}
+
+	dir := t.TempDir()
+	in := mustOpen(t, "file://"+dir)
+	putInput(t, in)
+	locked := filepath.Join(dir, "in", "depot-brill.csv")
+	if err := os.Chmod(locked, 0); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { os.Chmod(locked, 0o644) })
+	if f, err := os.Open(locked); err == nil { // root ignores file modes
+		f.Close()
+		t.Skip("running with privileges that ignore chmod 000")
+	}
+	cfg = testConfig("flp-0001", "file://"+dir+"/in/", "file://"+dir+"/out")
+	_, err := RunPlan(ctx, cfg, testEnv())
+	if ExitCode(err) != exitcode.Config || !strings.Contains(err.Error(), "depot-brill.csv") || !strings.Contains(err.Error(), "permission denied") {
+		t.Fatalf("unreadable object: exit %d, %v", ExitCode(err), err)
+	}
+}
+
+func TestUnknownModelIsConfigError(t *testing.T) {
+	cfg := testConfig("flp-0001", "mem://x/in/", "mem://flp-model-out/")
+	cfg.Zoo = []models.Spec{{Family: "Prophecy"}}
+	_, err := RunTrain(context.Background(), cfg, 0, testEnv())
+	if ExitCode(err) != exitcode.Config || !strings.Contains(err.Error(), "Prophecy") {
+		t.Fatalf("exit %d, %v", ExitCode(err), err)
+	}
+}
+
+// TestSecondRunEvaluatesFirst checks the accuracy sums on a dataset small enough to work by
+// hand. Two daily series, Naive only, horizon 3, one backtest origin, MASE with the weekly
+// seasonal-naive scale (m = 7; Hyndman & Koehler 2006, eq. (5)-(6)):
+//
+//	run 1, 14 days: A_t = t, B_t = 2t (t = 0..13)
+//	  backtest origin at 11: Naive repeats y_10; A errors 1,2,3 -> MAE 2, scale |x_t - x_{t-7}| = 7
+//	  -> expected MASE_A = 2/7; B errors 2,4,6 -> MAE 4, scale 14 -> expected MASE_B = 2/7
+//	  forecasts for days 14..16: A 13,13,13; B 26,26,26
+//	run 2 adds days 14..16: A 20,20,20; B 28,30,32
+//	  realized A: errors 7,7,7 -> MAE 7 / scale 7 (history days 0..13) = 1 -> 1/(2/7) = 3.5 > 1.3: drifted
+//	  realized B: errors 2,4,6 -> MAE 4 / scale 14 = 2/7 -> ratio 1: not drifted
+//	sums: evaluated 2, points 6, expected 4/7, realized 9/7, drifted 1
+func TestSecondRunEvaluatesFirst(t *testing.T) {
+	ctx := context.Background()
+	in := mustOpen(t, "mem://flp-eval-in/")
+	write := func(extra bool) {
+		var b strings.Builder
+		b.WriteString("item,depot,date,units,promo\n")
+		start := time.Date(2026, 2, 1, 0, 0, 0, 0, time.UTC)
+		for _, s := range []struct {
+			item  string
+			slope int
+			more  []int
+		}{{"A", 1, []int{20, 20, 20}}, {"B", 2, []int{28, 30, 32}}} {
+			for d := 0; d < 14; d++ {
+				fmt.Fprintf(&b, "%s,north,%s,%d,0\n", s.item, start.AddDate(0, 0, d).Format("2006-01-02"), s.slope*d)
+			}
+			for i, v := range s.more {
+				if extra {
+					fmt.Fprintf(&b, "%s,north,%s,%d,0\n", s.item, start.AddDate(0, 0, 14+i).Format("2006-01-02"), v)
+				}
+			}
+		}
+		if err := in.Put(ctx, "history.csv", []byte(b.String())); err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := func(run string) *runconfig.Config {
+		c := testConfig(run, "mem://flp-eval-in/history.csv", "mem://flp-eval-out/")
+		c.Horizon = 3
+		c.Zoo = []models.Spec{{Family: models.FamilyNaive}}
+		c.Selection.Origins = 1
+		return c
+	}
+	write(false)
+	if _, err := RunLocal(ctx, cfg("flp-0001"), testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	write(true)
+	s, err := RunLocal(ctx, cfg("flp-0002"), testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := s.Accuracy
+	if a == nil || a.Metric != "MASE" || a.Evaluated != 2 || a.EvaluatedPoints != 6 || a.Drifted != 1 ||
+		math.Abs(a.ExpectedSum-4.0/7) > 1e-12 || math.Abs(a.RealizedSum-9.0/7) > 1e-12 {
+		t.Fatalf("accuracy = %+v, want evaluated 2, points 6, expected 4/7, realized 9/7, drifted 1", a)
+	}
+	out := mustOpen(t, "mem://flp-eval-out/")
+	m := checkPublished(t, out, "flp-0002")
+	var rows []tables.EvaluationRow
+	for _, e := range m.Units { // A and B may sit in different buckets
+		f, _ := e.file(TableEvaluation)
+		b, _ := out.Get(ctx, f.Key)
+		r, err := tables.ReadEvaluation(bytes.NewReader(b), tables.CSV)
+		if err != nil {
+			t.Fatal(err)
+		}
+		rows = append(rows, r...)
+	}
+	sort.Slice(rows, func(i, j int) bool { return rows[i].Series < rows[j].Series })
+	if len(rows) != 2 || !rows[0].Drifted || rows[1].Drifted || rows[0].PreviousRun != "flp-0001" ||
+		math.Abs(rows[0].Realized-1) > 1e-12 || math.Abs(rows[1].Expected-2.0/7) > 1e-12 {
+		t.Fatalf("evaluation rows %+v", rows)
+	}
+}
+
+// snapshot reads every file under dir.
+func snapshot(t *testing.T, dir string) map[string][]byte {
+	t.Helper()
+	files := map[string][]byte{}
+	err := filepath.Walk(dir, func(p string, info os.FileInfo, err error) error {
+		if err != nil || info.IsDir() {
+			return err
+		}
+		b, err := os.ReadFile(p)
+		files[strings.TrimPrefix(p, dir)] = b
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return files
+}
+
+func equalFiles(a, b map[string][]byte) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	for k, v := range a {
+		if !bytes.Equal(v, b[k]) {
+			return false
+		}
+	}
+	return true
+}

@@ -1,0 +1,163 @@
+package pipeline
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"sort"
+
+	"almanac.dev/almanac/trainer/ingest"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/summary"
+)
+
+// RunPlan is the plan command. It lists the input, reads every object once counting rows
+// and distinct series keys (the counts weigh the units and size the shards), builds the units
+// the source's partitioning calls for, cuts them into shards (Cut), and writes
+// runs/<run>/config.json and then runs/<run>/plan.json. The summary carries units, shards,
+// series and input bytes. A broken object fails the plan naming it (exit 3): the shard count
+// cannot be known without it.
+//
+// Reading everything once costs one pass over the input, the same as training it; it buys
+// exact series counts for the controller and for balancing. Memory is a set of 64-bit key
+// hashes per object (all keys for hash buckets), not the rows.
+func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
+	sum := summary.Summary{Kind: summary.KindPlan}
+	out, err := openOutput(ctx, cfg)
+	if err != nil {
+		return sum, err
+	}
+	defer out.Close()
+	p, err := buildPlan(ctx, cfg, out, env)
+	if err != nil {
+		return sum, err
+	}
+	for _, o := range p.Objects {
+		sum.Bytes += o.Size
+	}
+	sum.Units, sum.Shards, sum.Series = len(p.Units), len(p.Shards), p.Series
+	cb, err := json.MarshalIndent(cfg, "", "  ")
+	if err != nil {
+		return sum, err
+	}
+	if err := out.Put(ctx, store.RunKey(cfg.Run, store.ConfigName), append(cb, '\n')); err != nil {
+		return sum, storageErr(err)
+	}
+	pb, err := EncodePlan(p)
+	if err != nil {
+		return sum, err
+	}
+	if err := out.Put(ctx, store.RunKey(cfg.Run, store.PlanName), pb); err != nil {
+		return sum, storageErr(err)
+	}
+	env.logf("plan: %d objects, %d series, %d units, %d shards", len(p.Objects), p.Series, len(p.Units), len(p.Shards))
+	return sum, nil
+}
+
+// buildPlan does RunPlan's work short of writing.
+func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env Env) (*Plan, error) {
+	src, err := openSource(ctx, cfg.Source)
+	if err != nil {
+		return nil, err
+	}
+	defer src.st.Close()
+	objs, err := src.list(ctx)
+	if err != nil {
+		return nil, err
+	}
+	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs}
+	switch cfg.Source.Partitioning {
+	case runconfig.PartitionObject:
+		for _, o := range objs {
+			u := Unit{ID: ObjectID(o.Key, nil), Object: o.Key}
+			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil); err != nil {
+				return nil, err
+			}
+			p.Units = append(p.Units, u)
+		}
+	case runconfig.PartitionRowGroup:
+		for _, o := range objs {
+			groups, err := src.rowGroups(ctx, o.Key)
+			if err != nil {
+				return nil, err
+			}
+			for g, info := range groups {
+				if info.Rows == 0 {
+					continue
+				}
+				gr := &ingest.GroupRange{From: g, To: g + 1}
+				u := Unit{ID: ObjectID(o.Key, gr), Object: o.Key, Groups: gr}
+				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr); err != nil {
+					return nil, err
+				}
+				p.Units = append(p.Units, u)
+			}
+		}
+	default:
+		rows := map[uint64]int64{}
+		for _, o := range objs {
+			err := src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
+				rows[KeyHash(r.Key)]++
+				return nil
+			})
+			if err != nil {
+				return nil, err
+			}
+		}
+		prevBuckets := 0
+		if cfg.Sharding.Buckets == 0 {
+			prev, err := previous(ctx, out, cfg)
+			if err != nil {
+				return nil, err
+			}
+			if prev != nil && prev.Partitioning == runconfig.PartitionNone {
+				prevBuckets = prev.Buckets
+			}
+		}
+		p.Buckets = ChooseBuckets(cfg.Sharding.Buckets, prevBuckets, len(rows), cfg.Sharding.TargetSeriesPerShard)
+		p.Units = bucketUnits(rows, p.Buckets)
+	}
+	sort.Slice(p.Units, func(i, j int) bool { return p.Units[i].ID < p.Units[j].ID })
+	for _, u := range p.Units {
+		p.Series += u.Series
+		p.Rows += u.Rows
+	}
+	if len(p.Units) == 0 {
+		return nil, fmt.Errorf("%s: the input has no rows: %w", store.Redact(cfg.Source.URI), ingest.ErrBrokenInput)
+	}
+	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
+	if err := p.Validate(); err != nil {
+		return nil, fmt.Errorf("pipeline: built an invalid plan: %w", err)
+	}
+	return p, nil
+}
+
+// bucketUnits turns row counts by key hash into the non-empty bucket units.
+func bucketUnits(rows map[uint64]int64, buckets int) []Unit {
+	us := make([]Unit, buckets)
+	for h, n := range rows {
+		b := int(h & uint64(buckets-1))
+		us[b].Series++
+		us[b].Rows += n
+	}
+	var out []Unit
+	for b, u := range us {
+		if u.Series > 0 {
+			u.ID, u.Bucket = BucketID(b, buckets), b
+			out = append(out, u)
+		}
+	}
+	return out
+}
+
+// countKeys counts the rows and distinct series keys of one object or row-group range.
+func countKeys(ctx context.Context, src *source, key string, groups *ingest.GroupRange) (series int, rows int64, err error) {
+	seen := map[uint64]struct{}{}
+	err = src.scan(ctx, key, groups, func(r ingest.Row) error {
+		seen[KeyHash(r.Key)] = struct{}{}
+		rows++
+		return nil
+	})
+	return len(seen), rows, err
+}

@@ -1,0 +1,156 @@
+package pipeline
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/summary"
+)
+
+// RunPublish is the publish command. For every unit of the plan it checks this run's
+// unit.json and the checksum of every file it lists. A unit that passes is trained; one that
+// does not (its shard failed or was killed) takes the previous manifest's entry for the same
+// unit, whose files are verified the same way, and is carried forward; a unit with neither is
+// missing. Then it writes MANIFEST.json and, only after that, replaces latest.json.
+//
+// Missing units do not fail publish: the other units' forecasts are good and are published,
+// and the manifest says complete: false, lists the missing units and the summary counts them
+// (summary.Missing), so nothing claims a completeness it lacks. Publish fails (and moves
+// nothing) when the plan cannot be read or storage fails; rerunning it gives the same bytes.
+func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
+	sum := summary.Summary{Kind: summary.KindPublish}
+	out, p, prev, err := openRun(ctx, cfg)
+	if err != nil {
+		return sum, err
+	}
+	defer out.Close()
+	m := Manifest{Version: ManifestVersion, Run: cfg.Run, Partitioning: p.Partitioning, Buckets: p.Buckets}
+	if prev != nil {
+		m.PreviousRun = prev.Run
+	}
+	for _, u := range p.Units {
+		e, err := publishUnit(ctx, out, cfg.Run, prev, u.ID)
+		if err != nil {
+			return sum, err
+		}
+		m.Units = append(m.Units, e)
+		m.Totals.add(e)
+	}
+	m.Complete = m.Totals.Missing == 0
+	key := store.RunKey(cfg.Run, store.ManifestName)
+	b, err := out.PutJSON(ctx, key, m)
+	if err != nil {
+		return sum, storageErr(err)
+	}
+	if err := out.WriteLatest(ctx, store.Pointer{Run: cfg.Run, Manifest: key, ManifestSHA256: store.SHA256(b)}); err != nil {
+		return sum, storageErr(err)
+	}
+	sum.Units = m.Totals.Units
+	sum.CarriedForward = m.Totals.CarriedForward
+	sum.Missing = m.Totals.Missing
+	sum.Series = m.Totals.Series.Series
+	sum.Trained = m.Totals.Series.Trained
+	sum.Rejected = m.Totals.Series.Rejected
+	sum.Accuracy = m.Totals.Accuracy
+	sum.Manifest = key
+	env.logf("publish: %s: %d units (%d carried forward, %d missing)", cfg.Run, sum.Units, sum.CarriedForward, sum.Missing)
+	return sum, nil
+}
+
+// publishUnit decides one unit's manifest entry.
+func publishUnit(ctx context.Context, out *store.Store, run string, prev *Manifest, id string) (ManifestUnit, error) {
+	done, reason, err := verifyUnit(ctx, out, run, id)
+	if err != nil {
+		return ManifestUnit{}, err
+	}
+	if reason == "" {
+		return ManifestUnit{ID: id, State: StateTrained, Source: run, Files: done.Files, Counts: done.Counts, Accuracy: done.Accuracy}, nil
+	}
+	if prev != nil {
+		if e, ok := prev.unit(id); ok && e.State != StateMissing {
+			bad, err := verifyFiles(ctx, out, e.Files)
+			if err != nil {
+				return ManifestUnit{}, err
+			}
+			if bad == "" {
+				// The previous accuracy belongs to the previous run, not this one.
+				return ManifestUnit{ID: id, State: StateCarried, Source: e.Source, Files: e.Files, Counts: e.Counts,
+					Reason: reason}, nil
+			}
+			reason += "; the previous forecast from " + e.Source + " is unusable: " + bad
+		}
+	}
+	return ManifestUnit{ID: id, State: StateMissing, Reason: reason}, nil
+}
+
+// verifyUnit reads runs/<run>/units/<id>/unit.json and checks its files. reason is non-empty
+// when the unit is not usable; err only for storage failures.
+func verifyUnit(ctx context.Context, out *store.Store, run, id string) (UnitDone, string, error) {
+	key := store.UnitKey(run, id, store.UnitDoneName)
+	b, err := out.Get(ctx, key)
+	if errors.Is(err, store.ErrNotFound) {
+		return UnitDone{}, "its shard did not finish (no unit.json)", nil
+	}
+	if err != nil {
+		return UnitDone{}, "", storageErr(err)
+	}
+	var d UnitDone
+	if err := json.Unmarshal(b, &d); err != nil || d.Version != ManifestVersion || d.Run != run || d.Unit != id {
+		return d, fmt.Sprintf("%s is not this unit's record", key), nil
+	}
+	bad, err := verifyFiles(ctx, out, d.Files)
+	return d, bad, err
+}
+
+// verifyFiles checks that every file exists with its recorded size and checksum; it returns
+// the first problem, or "".
+func verifyFiles(ctx context.Context, out *store.Store, files []File) (string, error) {
+	if len(files) == 0 {
+		return "no files listed", nil
+	}
+	for _, f := range files {
+		b, err := out.Get(ctx, f.Key)
+		if errors.Is(err, store.ErrNotFound) {
+			return f.Key + " is gone", nil
+		}
+		if err != nil {
+			return "", storageErr(err)
+		}
+		if int64(len(b)) != f.Bytes || store.SHA256(b) != f.SHA256 {
+			return fmt.Sprintf("%s does not match its checksum", f.Key), nil
+		}
+	}
+	return "", nil
+}
+
+// add counts one entry into the totals.
+func (t *Totals) add(e ManifestUnit) {
+	t.Units++
+	switch e.State {
+	case StateTrained:
+		t.Trained++
+	case StateCarried:
+		t.CarriedForward++
+	case StateMissing:
+		t.Missing++
+	}
+	t.Series.Series += e.Counts.Series
+	t.Series.Trained += e.Counts.Trained
+	t.Series.Rejected += e.Counts.Rejected
+	for f, n := range e.Counts.Models {
+		if t.Series.Models == nil {
+			t.Series.Models = map[string]int{}
+		}
+		t.Series.Models[f] += n
+	}
+	if e.Accuracy != nil {
+		if t.Accuracy == nil {
+			t.Accuracy = &summary.Accuracy{}
+		}
+		t.Accuracy.Add(*e.Accuracy)
+	}
+}

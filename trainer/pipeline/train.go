@@ -1,0 +1,409 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/ingest"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/tables"
+)
+
+// Table names, as in the manifest and the file names under runs/<run>/units/<unit>/.
+const (
+	TableForecasts  = "forecasts"
+	TableModels     = "models"
+	TableEvaluation = "evaluation"
+	TableRejected   = "rejected"
+)
+
+// readPlan reads runs/<run>/plan.json.
+func readPlan(ctx context.Context, out *store.Store, run string) (*Plan, error) {
+	key := store.RunKey(run, store.PlanName)
+	b, err := out.Get(ctx, key)
+	if err != nil {
+		if errors.Is(err, store.ErrNotFound) {
+			return nil, fmt.Errorf("run %s has no plan (run plan first): %w: %w", run, ErrConfig, err)
+		}
+		return nil, storageErr(err)
+	}
+	return DecodePlan(b, out.Describe(key))
+}
+
+// openRun opens the output and reads the run's plan and the previous run's manifest (nil on
+// a first run); the caller closes out.
+func openRun(ctx context.Context, cfg *runconfig.Config) (out *store.Store, p *Plan, prev *Manifest, err error) {
+	if out, err = openOutput(ctx, cfg); err != nil {
+		return nil, nil, nil, err
+	}
+	if p, err = readPlan(ctx, out, cfg.Run); err == nil {
+		prev, err = previous(ctx, out, cfg)
+	}
+	if err != nil {
+		out.Close()
+		return nil, nil, nil, err
+	}
+	return out, p, prev, nil
+}
+
+// selectionConfig maps the run configuration onto selection's; errors are configuration errors.
+func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
+	sc := selection.Config{
+		Horizon: cfg.Horizon, Levels: cfg.Quantiles, Zoo: cfg.Zoo,
+		Metric: backtest.Metric(cfg.Selection.Metric), Origins: cfg.Selection.Origins, Step: cfg.Selection.Step,
+		CombineTop: cfg.Selection.CombineTop, CombineMethod: cfg.Selection.CombineMethod,
+		NonNegative: cfg.Source.NonNegative,
+		Clean:       series.CleanRules{NonNegative: cfg.Source.NonNegative},
+	}
+	if err := sc.Validate(); err != nil {
+		return sc, fmt.Errorf("%w: %w", ErrConfig, err)
+	}
+	if sc.Metric == "" {
+		sc.Metric = selection.DefaultMetric
+	}
+	return sc, nil
+}
+
+// driftMetric is the metric of evaluation: drift.metric, else the selection metric.
+func driftMetric(cfg *runconfig.Config, sc selection.Config) backtest.Metric {
+	if cfg.Drift.Metric != "" {
+		return backtest.Metric(cfg.Drift.Metric)
+	}
+	return sc.Metric
+}
+
+// loaded is one unit's input after collection.
+type loaded struct {
+	unit     Unit
+	series   []series.Series
+	rejected []ingest.Rejected
+	err      error
+}
+
+// RunTrain is the train command for one shard. It reads the shard's units (an object unit
+// reads its object or row groups; bucket units share one pass over every input object that
+// keeps only their buckets' rows, so memory grows with the shard, not the input), collects
+// and cleans the series, evaluates the previous run's forecasts against the new actuals,
+// forecasts every series with selection.ForecastMany and writes each unit's tables and then
+// its unit.json. A series that cannot be used goes to rejected.csv with the reason. A unit
+// whose input is broken or gone is not written; the others are, and RunTrain then returns
+// the first such error (exit 3) so the shard counts as failed and publish carries it forward.
+func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (summary.Summary, error) {
+	start := env.now()
+	sum := summary.Summary{Kind: summary.KindTrain, Shard: shard}
+	sc, err := selectionConfig(cfg)
+	if err != nil {
+		return sum, err
+	}
+	out, p, prev, err := openRun(ctx, cfg)
+	if err != nil {
+		return sum, err
+	}
+	defer out.Close()
+	if shard < 0 || shard >= len(p.Shards) {
+		return sum, fmt.Errorf("shard %d: the plan has shards 0..%d: %w", shard, len(p.Shards)-1, ErrConfig)
+	}
+	now := cfg.ScheduledTime
+	if now.IsZero() {
+		now = start
+	}
+	units, err := loadShard(ctx, cfg, p, shard, now)
+	if err != nil {
+		return sum, err
+	}
+
+	var all []series.Series
+	for _, u := range units {
+		all = append(all, u.series...)
+	}
+	results := make([]selection.Result, len(all))
+	errs := make([]error, len(all))
+	t0 := env.now()
+	err = selection.ForecastMany(ctx, all, sc, env.Workers, func(i int, r selection.Result, err error) {
+		results[i], errs[i] = r, err
+	})
+	if err != nil {
+		return sum, fmt.Errorf("%w: %w", ErrConfig, err)
+	}
+	fitSeconds := env.now().Sub(t0).Seconds()
+
+	var firstErr error
+	acc := summary.Accuracy{Metric: string(driftMetric(cfg, sc))}
+	off := 0
+	for _, u := range units {
+		if u.err != nil {
+			env.logf("train: shard %d unit %s: %v", shard, u.unit.ID, u.err)
+			if firstErr == nil {
+				firstErr = u.err
+			}
+			continue
+		}
+		n := len(u.series)
+		done, err := writeUnit(ctx, out, cfg, sc, prev, u, results[off:off+n], errs[off:off+n])
+		off += n
+		if err != nil {
+			return sum, err
+		}
+		sum.Series += done.Counts.Series
+		sum.Trained += done.Counts.Trained
+		sum.Rejected += done.Counts.Rejected
+		for f, c := range done.Counts.Models {
+			if sum.Models == nil {
+				sum.Models = map[string]int{}
+			}
+			sum.Models[f] += c
+		}
+		if done.Accuracy != nil {
+			acc.Add(*done.Accuracy)
+		}
+	}
+	if acc.Evaluated > 0 {
+		sum.Accuracy = &acc
+	}
+	sum.DurationSeconds = env.now().Sub(start).Seconds()
+	if fitSeconds > 0 {
+		sum.SeriesPerSecond = math.Round(float64(len(all))/fitSeconds*10) / 10
+	}
+	env.logf("train: shard %d: %d series, %d trained, %d rejected in %.1fs", shard, sum.Series, sum.Trained, sum.Rejected, sum.DurationSeconds)
+	return sum, firstErr
+}
+
+// loadShard reads and collects the shard's units. A unit's broken input is kept in its err.
+// Configuration errors (frequency, layout) end the shard.
+func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, now time.Time) ([]*loaded, error) {
+	src, err := openSource(ctx, cfg.Source)
+	if err != nil {
+		return nil, err
+	}
+	defer src.st.Close()
+	var units []*loaded
+	collectors := map[string]*ingest.Collector{}
+	byBucket := map[int]*loaded{}
+	for _, id := range p.Shards[shard].Units {
+		u, _ := p.unit(id)
+		c, err := ingest.NewCollector(cfg.Source, now)
+		if err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrConfig, err)
+		}
+		l := &loaded{unit: u}
+		units = append(units, l)
+		collectors[id] = c
+		if u.Object == "" {
+			byBucket[u.Bucket] = l
+			continue
+		}
+		l.err = src.scan(ctx, u.Object, u.Groups, func(r ingest.Row) error { c.Add(r); return nil })
+		if err := fatal(ctx, l.err); err != nil {
+			return nil, err
+		}
+	}
+	if len(byBucket) > 0 {
+		var scanErr error
+		for _, o := range p.Objects {
+			scanErr = src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
+				if l, ok := byBucket[BucketOf(r.Key, p.Buckets)]; ok {
+					collectors[l.unit.ID].Add(r)
+				}
+				return nil
+			})
+			if scanErr != nil {
+				break
+			}
+		}
+		if err := fatal(ctx, scanErr); err != nil {
+			return nil, err
+		}
+		for _, l := range byBucket {
+			l.err = scanErr
+		}
+	}
+	for _, l := range units {
+		if l.err == nil {
+			l.series, l.rejected = collectors[l.unit.ID].Finish()
+		}
+		delete(collectors, l.unit.ID)
+	}
+	return units, nil
+}
+
+// fatal returns the errors that end the whole shard rather than one unit: anything that is
+// not broken input (storage outages, refused credentials, cancellation).
+func fatal(ctx context.Context, err error) error {
+	if err == nil || errors.Is(err, ingest.ErrBrokenInput) {
+		return ctx.Err()
+	}
+	return err
+}
+
+// writeUnit evaluates, builds and writes one unit's tables and then its unit.json.
+func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest,
+	u *loaded, results []selection.Result, errs []error) (UnitDone, error) {
+	format := tableFormat(cfg)
+	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
+	var rejected []tables.RejectedRow
+	for _, r := range u.rejected {
+		rejected = append(rejected, tables.RejectedRow{Series: r.Key, Reason: r.Reason})
+	}
+	var fc []tables.ForecastRow
+	var mr []tables.ModelRow
+	models := map[string]int{}
+	for i, s := range u.series {
+		r := results[i]
+		if errs[i] != nil {
+			rejected = append(rejected, tables.RejectedRow{Series: s.Key, Reason: errs[i].Error()})
+			continue
+		}
+		last := s.Len() - 1
+		for k := 0; k < len(r.Mean); k++ {
+			row := tables.ForecastRow{Series: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k]}
+			for j := range r.Levels {
+				row.Quantiles = append(row.Quantiles, r.Quantiles[j][k])
+			}
+			fc = append(fc, row)
+		}
+		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r), BacktestErrors: r.StepErrors,
+			Metric: string(sc.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; ")})
+		models[r.Family]++
+	}
+	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Series < rejected[j].Series })
+
+	evals, acc, prevRun, err := evaluateUnit(ctx, out, cfg, sc, prev, u)
+	if err != nil {
+		return done, err
+	}
+	done.PreviousRun = prevRun
+	if acc.Evaluated > 0 {
+		done.Accuracy = &acc
+	}
+	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected)}
+	if len(models) > 0 {
+		done.Counts.Models = models
+	}
+
+	writers := []struct {
+		table, name string
+		fn          func(w io.Writer) error
+	}{
+		{TableForecasts, TableForecasts + "." + format, func(w io.Writer) error {
+			return tables.WriteForecasts(w, format, tables.Header{Quantiles: cfg.Quantiles}, fc)
+		}},
+		{TableModels, TableModels + "." + format, func(w io.Writer) error { return tables.WriteModels(w, format, mr) }},
+		{TableEvaluation, TableEvaluation + "." + format, func(w io.Writer) error { return tables.WriteEvaluation(w, format, evals) }},
+		{TableRejected, store.RejectedName, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, rejected) }},
+	}
+	for _, wr := range writers {
+		var buf bytes.Buffer
+		if err := wr.fn(&buf); err != nil {
+			return done, fmt.Errorf("unit %s: %s: %w", u.unit.ID, wr.table, err)
+		}
+		key := store.UnitKey(cfg.Run, u.unit.ID, wr.name)
+		if err := out.Put(ctx, key, buf.Bytes()); err != nil {
+			return done, storageErr(err)
+		}
+		done.Files = append(done.Files, File{Table: wr.table, Key: key, Bytes: int64(buf.Len()), SHA256: store.SHA256(buf.Bytes())})
+	}
+	if _, err := out.PutJSON(ctx, store.UnitKey(cfg.Run, u.unit.ID, store.UnitDoneName), done); err != nil {
+		return done, storageErr(err)
+	}
+	return done, nil
+}
+
+// paramsText renders the fitted model and its parameters, sorted by name:
+// "ETS(A,N,N) alpha=0.31 level0=12.5".
+func paramsText(r selection.Result) string {
+	names := make([]string, 0, len(r.Params))
+	for k := range r.Params {
+		names = append(names, k)
+	}
+	sort.Strings(names)
+	parts := []string{r.Model}
+	for _, k := range names {
+		parts = append(parts, k+"="+strconv.FormatFloat(r.Params[k], 'g', 6, 64))
+	}
+	return strings.TrimSpace(strings.Join(parts, " "))
+}
+
+// evaluateUnit evaluates the previous run's forecast of the unit's series (the previous
+// manifest's entry for the same unit id, which may itself be carried forward from an older
+// run). A unit the previous run did not have is not evaluated.
+func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest, u *loaded) (
+	[]tables.EvaluationRow, summary.Accuracy, string, error) {
+	metric := driftMetric(cfg, sc)
+	acc := summary.Accuracy{Metric: string(metric)}
+	if prev == nil {
+		return nil, acc, "", nil
+	}
+	entry, ok := prev.unit(u.unit.ID)
+	ff, okf := entry.file(TableForecasts)
+	mf, okm := entry.file(TableModels)
+	if !ok || !okf || !okm {
+		return nil, acc, prev.Run, nil
+	}
+	format := strings.TrimPrefix(ff.Key[strings.LastIndex(ff.Key, "."):], ".")
+	var fcs []tables.ForecastRow
+	var mrs []tables.ModelRow
+	err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format); return })
+	if err == nil {
+		err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format); return })
+	}
+	if errors.Is(err, store.ErrNotFound) {
+		// The previous run's files were pruned: nothing to evaluate, which is not a failure.
+		return nil, acc, prev.Run, nil
+	}
+	if err != nil {
+		return nil, acc, "", err
+	}
+	bySeries := map[string][]tables.ForecastRow{}
+	for _, r := range fcs {
+		bySeries[r.Series] = append(bySeries[r.Series], r)
+	}
+	expected := map[string]float64{}
+	for _, m := range mrs {
+		if m.Metric == string(metric) {
+			expected[m.Series] = m.Score
+		}
+	}
+	var rows []tables.EvaluationRow
+	for _, s := range u.series {
+		exp, ok := expected[s.Key]
+		if !ok {
+			continue
+		}
+		row, ok := Evaluate(s, bySeries[s.Key], exp, metric, cfg.Drift, cfg.Source.NonNegative)
+		if !ok {
+			continue
+		}
+		row.PreviousRun = entry.Source
+		rows = append(rows, row)
+		accumulate(&acc, row)
+	}
+	return rows, acc, prev.Run, nil
+}
+
+// readTable reads a listed file, checks its checksum and decodes it.
+func readTable(ctx context.Context, out *store.Store, f File, decode func(io.Reader) error) error {
+	b, err := out.Get(ctx, f.Key)
+	if err != nil {
+		return storageErr(err)
+	}
+	if store.SHA256(b) != f.SHA256 {
+		return fmt.Errorf("%s: checksum %s, the manifest says %s: %w", out.Describe(f.Key), store.SHA256(b), f.SHA256, ErrStorage)
+	}
+	if err := decode(bytes.NewReader(b)); err != nil {
+		return fmt.Errorf("%s: %w", out.Describe(f.Key), err)
+	}
+	return nil
+}
