@@ -277,6 +277,40 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Eventually(conditionOf(getPortfolio(ns, "fenwick-strict"), forecastingv1alpha1.PortfolioReady)).Should(Equal("False/RunFailed"))
 	})
 
+	It("starts one drift run when realized accuracy slips past the threshold and the action is Retrain", func() {
+		ns := newNamespace()
+		createSecret(ns)
+		testPortfolio(ns, "fenwick-drift", yearly, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 110, MinEvaluatedPoints: 100,
+				Action: forecastingv1alpha1.DriftRetrain, CooldownSeconds: ptr.To[int64](3600)}
+		})
+		manualRun(ns, "fenwick-drift-1", "fenwick-drift")
+		succeedSingle(ns, "fenwick-drift-1", stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 2})
+		train := getJob(ns, "fenwick-drift-1", stepTrain)
+		// Two shards of shardSummary: realized 12 / expected 10 = 1.2 > 1.10, on 100 points.
+		finishShards(train, []int{0, 1}, nil, shardSummary)
+		completeJob(train)
+		succeedSingle(ns, "fenwick-drift-1", stepPublish, summary.Summary{Kind: summary.KindPublish})
+		fp := getPortfolio(ns, "fenwick-drift")
+		Eventually(conditionOf(fp, forecastingv1alpha1.PortfolioAccuracyDrift)).Should(Equal("True/AboveThreshold"))
+		driftRuns := func() []string {
+			var list forecastingv1alpha1.ForecastRunList
+			Expect(k8sClient.List(ctx(), &list, client.InNamespace(ns))).To(Succeed())
+			var names []string
+			for _, r := range list.Items {
+				if r.Spec.Trigger == forecastingv1alpha1.TriggerDrift {
+					names = append(names, r.Name)
+				}
+			}
+			return names
+		}
+		Eventually(driftRuns).Should(HaveLen(1))
+		Expect(driftRuns()[0]).To(Equal(fmt.Sprintf("fenwick-drift-%d", fakeClock.Now().Unix()/60)))
+		Expect(getPortfolio(ns, "fenwick-drift").Status.LastDriftRunTime).NotTo(BeNil())
+		Eventually(eventReasonsFor(ns, "fenwick-drift")).Should(ContainElements(forecastingv1alpha1.ReasonAboveThreshold, forecastingv1alpha1.ReasonRunCreated))
+		Consistently(driftRuns, 2*time.Second).Should(HaveLen(1))
+	})
+
 	It("counts each shard once across a manager restart mid-run", func() {
 		ns := newNamespace()
 		createSecret(ns)

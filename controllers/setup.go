@@ -53,12 +53,15 @@ func CacheOptions(namespaces []string) (cache.Options, error) {
 	if err != nil {
 		return cache.Options{}, err
 	}
-	owned := cache.ByObject{Label: labels.NewSelector().Add(*req)}
-	opts := cache.Options{ByObject: map[client.Object]cache.ByObject{
-		&corev1.Pod{}:       owned,
-		&batchv1.Job{}:      owned,
-		&corev1.ConfigMap{}: owned,
-	}}
+	owned := labels.NewSelector().Add(*req)
+	opts := cache.Options{
+		DefaultTransform: cache.TransformStripManagedFields(),
+		ByObject: map[client.Object]cache.ByObject{
+			&corev1.Pod{}:       {Label: owned, Transform: slimPod},
+			&batchv1.Job{}:      {Label: owned},
+			&corev1.ConfigMap{}: {Label: owned},
+		},
+	}
 	if len(namespaces) > 0 {
 		opts.DefaultNamespaces = map[string]cache.Config{}
 		for _, ns := range namespaces {
@@ -66,6 +69,24 @@ func CacheOptions(namespaces []string) (cache.Options, error) {
 		}
 	}
 	return opts, nil
+}
+
+// slimPod keeps only what the run controller reads from a trainer pod (metadata without
+// managed fields, the phase and each container's terminated state), so a run of many shards
+// costs the cache little memory per pod.
+func slimPod(obj any) (any, error) {
+	pod, ok := obj.(*corev1.Pod)
+	if !ok {
+		return obj, nil
+	}
+	slim := &corev1.Pod{TypeMeta: pod.TypeMeta, ObjectMeta: pod.ObjectMeta}
+	slim.ManagedFields = nil
+	slim.Status.Phase = pod.Status.Phase
+	for _, cs := range pod.Status.ContainerStatuses {
+		slim.Status.ContainerStatuses = append(slim.Status.ContainerStatuses,
+			corev1.ContainerStatus{Name: cs.Name, State: corev1.ContainerState{Terminated: cs.State.Terminated}})
+	}
+	return slim, nil
 }
 
 // SetupWithManager registers the field index and both controllers.
