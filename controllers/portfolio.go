@@ -188,6 +188,12 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 			return p
 		}
 	}
+	for i := range runs {
+		// As for schedule times, the newest drift run is the record even if a status write was lost.
+		if r := &runs[i]; r.Spec.Trigger == forecastingv1alpha1.TriggerDrift && (st.LastDriftRunTime == nil || st.LastDriftRunTime.Before(&r.CreationTimestamp)) {
+			st.LastDriftRunTime = r.CreationTimestamp.DeepCopy()
+		}
+	}
 	if len(active) == 0 && driftStatus == metav1.ConditionTrue && fp.Spec.Drift.Action == forecastingv1alpha1.DriftRetrain {
 		cooldown := time.Duration(ptr.Deref(fp.Spec.Drift.CooldownSeconds, 21600)) * time.Second
 		last := st.LastDriftRunTime

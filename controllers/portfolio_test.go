@@ -269,15 +269,18 @@ func TestPlanPortfolioDriftRun(t *testing.T) {
 	tests := map[string]struct {
 		action    forecastingv1alpha1.DriftAction
 		lastDrift *time.Time
-		runDone   time.Time
-		now       time.Time
-		wantRun   bool
+		// driftRunAt, when set, adds a finished drift run created then (without accuracy).
+		driftRunAt *time.Time
+		runDone    time.Time
+		now        time.Time
+		wantRun    bool
 	}{
-		"retrain":                        {action: forecastingv1alpha1.DriftRetrain, runDone: t0, now: t0.Add(time.Minute), wantRun: true},
-		"report only":                    {action: forecastingv1alpha1.DriftReport, runDone: t0, now: t0.Add(time.Minute)},
-		"within cooldown":                {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(-time.Hour)), runDone: t0, now: t0.Add(time.Minute)},
-		"after cooldown, newer evidence": {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(-7 * time.Hour)), runDone: t0, now: t0.Add(time.Minute), wantRun: true},
-		"after cooldown, same evidence":  {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(time.Hour)), runDone: t0, now: t0.Add(8 * time.Hour)},
+		"retrain":                                     {action: forecastingv1alpha1.DriftRetrain, runDone: t0, now: t0.Add(time.Minute), wantRun: true},
+		"report only":                                 {action: forecastingv1alpha1.DriftReport, runDone: t0, now: t0.Add(time.Minute)},
+		"within cooldown":                             {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(-time.Hour)), runDone: t0, now: t0.Add(time.Minute)},
+		"after cooldown, newer evidence":              {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(-7 * time.Hour)), runDone: t0, now: t0.Add(time.Minute), wantRun: true},
+		"after cooldown, same evidence":               {action: forecastingv1alpha1.DriftRetrain, lastDrift: ptr.To(t0.Add(time.Hour)), runDone: t0, now: t0.Add(8 * time.Hour)},
+		"drift run exists, its status write was lost": {action: forecastingv1alpha1.DriftRetrain, driftRunAt: ptr.To(t0.Add(30 * time.Minute)), runDone: t0, now: t0.Add(8 * time.Hour)},
 	}
 	for name, tc := range tests {
 		t.Run(name, func(t *testing.T) {
@@ -288,7 +291,13 @@ func TestPlanPortfolioDriftRun(t *testing.T) {
 			if tc.lastDrift != nil {
 				fp.Status.LastDriftRunTime = &metav1.Time{Time: *tc.lastDrift}
 			}
-			p := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{drifting(tc.runDone)}, tc.now, "")
+			runs := []forecastingv1alpha1.ForecastRun{drifting(tc.runDone)}
+			if tc.driftRunAt != nil {
+				r := runAt("fenwick-weekly-drift", *tc.driftRunAt, "ok", *tc.driftRunAt)
+				r.Spec.Trigger = forecastingv1alpha1.TriggerDrift
+				runs = append(runs, r)
+			}
+			p := planPortfolio(fp, runs, tc.now, "")
 			c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
 			if c == nil || c.Status != metav1.ConditionTrue {
 				t.Fatalf("AccuracyDrift = %+v, want True", c)
