@@ -121,7 +121,7 @@ func readManifest(ctx context.Context, out *store.Store, run string) (*Manifest,
 	b, err := out.Get(ctx, key)
 	if err != nil {
 		if errors.Is(err, store.ErrNotFound) {
-			return nil, fmt.Errorf("previous run %s has no manifest: %w: %w", run, ErrConfig, err)
+			return nil, fmt.Errorf("run %s has no manifest (not published): %w: %w", run, ErrConfig, err)
 		}
 		return nil, storageErr(err)
 	}
