@@ -509,3 +509,25 @@ func (tm *testManager) runsCounter(ns, portfolio, result string) prometheus.Coll
 func (tm *testManager) expectedGauge(ns, portfolio, metric string) prometheus.Collector {
 	return tm.metrics.expected.WithLabelValues(ns, portfolio, metric)
 }
+
+var _ = Describe("Pod Security", func() {
+	It("admits the trainer pods in a namespace that enforces the restricted standard", func() {
+		ns := newNamespace()
+		// A pod that breaks the standard is refused, so the admission really runs here.
+		bad := &corev1.Pod{
+			ObjectMeta: metav1.ObjectMeta{Name: "privileged", Namespace: ns},
+			Spec:       corev1.PodSpec{Containers: []corev1.Container{{Name: "c", Image: "registry.example/tool:1"}}},
+		}
+		err := k8sClient.Create(ctx(), bad)
+		Expect(err).To(HaveOccurred())
+		Expect(err.Error()).To(ContainSubstring("violates PodSecurity"))
+		// The trainer pods of all three steps are admitted.
+		fp, run := fenwickPortfolio(), fenwickRun("fenwick-pss-1")
+		fp.Namespace, run.Namespace = ns, ns
+		for _, s := range []step{stepPlan, stepTrain, stepPublish} {
+			job := buildJob(fp, run, s, jobParams{Shards: 2, Parallelism: 1})
+			pod := &corev1.Pod{ObjectMeta: metav1.ObjectMeta{Name: job.Name, Namespace: ns}, Spec: job.Spec.Template.Spec}
+			Expect(k8sClient.Create(ctx(), pod)).To(Succeed(), string(s))
+		}
+	})
+})

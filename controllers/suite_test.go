@@ -122,10 +122,15 @@ func (tm *testManager) stop() {
 }
 
 // newNamespace creates a namespace of its own for one test, with the default ServiceAccount
-// (no controller-manager runs to create it).
+// (no controller-manager runs to create it). The namespace enforces the restricted Pod Security
+// Standard, so the apiserver's PodSecurity admission rejects any pod the tests create from a Job
+// template that is not restricted.
 func newNamespace() string {
 	name := fmt.Sprintf("fenwick-%d", nsSeq.Add(1))
-	Expect(k8sClient.Create(ctx(), &corev1.Namespace{ObjectMeta: metav1.ObjectMeta{Name: name}})).To(Succeed())
+	Expect(k8sClient.Create(ctx(), &corev1.Namespace{ObjectMeta: metav1.ObjectMeta{Name: name, Labels: map[string]string{
+		"pod-security.kubernetes.io/enforce":         "restricted",
+		"pod-security.kubernetes.io/enforce-version": "latest",
+	}}})).To(Succeed())
 	sa := &corev1.ServiceAccount{ObjectMeta: metav1.ObjectMeta{Name: "default", Namespace: name}}
 	if err := k8sClient.Create(ctx(), sa); err != nil && !apierrors.IsAlreadyExists(err) {
 		Expect(err).NotTo(HaveOccurred())
