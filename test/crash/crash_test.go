@@ -1,0 +1,236 @@
+// Package crash kills the trainer binary with SIGKILL at random points of train and publish,
+// reruns the killed step, and checks after every kill and at the end that latest.json always
+// points at a complete, verified run and that the outputs equal those of an uninterrupted
+// run byte for byte.
+package crash
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/pipeline"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/synth"
+)
+
+// kills bounds the loop; the seed fixes the kill points.
+const (
+	kills = 10
+	seed  = 20261202
+)
+
+func build(t *testing.T) string {
+	t.Helper()
+	bin := filepath.Join(t.TempDir(), "almanac-trainer")
+	cmd := exec.Command("go", "build", "-o", bin, "almanac.dev/almanac/trainer/cmd/almanac-trainer")
+	if out, err := cmd.CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	return bin
+}
+
+// dataset writes Fenwick Lane Provisions data: 4 depots x 150 items, extra days of history.
+func dataset(t *testing.T, dir string, extra int) {
+	t.Helper()
+	st, err := store.Open(context.Background(), "file://"+dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	o := synth.Options{Items: 150, Depots: 4, Periods: 400 + extra, End: time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC).AddDate(0, 0, extra), Bad: 2}
+	if _, err := o.Write(context.Background(), st, "", synth.CSV); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// writeConfig writes a run configuration file and returns its path.
+func writeConfig(t *testing.T, dir, run, in, out string) string {
+	t.Helper()
+	c := runconfig.Config{Run: run, Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC),
+		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true, Partitioning: runconfig.PartitionObject,
+			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}},
+		Output:    runconfig.Output{URI: out, Format: "parquet"},
+		Horizon:   14,
+		Quantiles: []float64{0.1, 0.5, 0.9},
+		Zoo:       []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 7},
+		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 150},
+		Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 5},
+	}
+	b, _ := json.Marshal(c)
+	p := dir + run + ".json"
+	if err := os.WriteFile(p, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// trainer runs one step to completion and returns its wall time.
+func trainer(t *testing.T, bin string, args ...string) time.Duration {
+	t.Helper()
+	start := time.Now()
+	cmd := exec.Command(bin, append(args, "--termination-log", "")...)
+	if out, err := cmd.CombinedOutput(); err != nil {
+		t.Fatalf("%v: %v\n%s", args, err, out)
+	}
+	return time.Since(start)
+}
+
+// killed starts a step and kills it after delay; it reports whether the kill came first.
+func killed(t *testing.T, bin string, delay time.Duration, args ...string) bool {
+	t.Helper()
+	cmd := exec.Command(bin, append(args, "--termination-log", "")...)
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	done := make(chan error, 1)
+	go func() { done <- cmd.Wait() }()
+	select {
+	case <-done:
+		return false
+	case <-time.After(delay):
+		_ = cmd.Process.Signal(syscall.SIGKILL)
+		<-done
+		return true
+	}
+}
+
+// steps runs a whole run: plan, every train shard, publish; it returns each step's time.
+func steps(t *testing.T, bin, cfg string, shards int) map[string]time.Duration {
+	d := map[string]time.Duration{"plan": trainer(t, bin, "plan", "--config", cfg)}
+	for i := 0; i < shards; i++ {
+		d["train-"+itoa(i)] = trainer(t, bin, "train", "--config", cfg, "--shard", itoa(i))
+	}
+	d["publish"] = trainer(t, bin, "publish", "--config", cfg)
+	return d
+}
+
+func itoa(i int) string { return string(rune('0' + i)) }
+
+// checkLatest follows latest.json (if any) and verifies the run it names is complete.
+func checkLatest(t *testing.T, out string, when string) string {
+	t.Helper()
+	ctx := context.Background()
+	st, err := store.Open(ctx, out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer st.Close()
+	p, ok, err := st.ReadLatest(ctx)
+	if err != nil || !ok {
+		t.Fatalf("%s: latest.json: ok %v, %v", when, ok, err)
+	}
+	var m pipeline.Manifest
+	if err := st.GetJSON(ctx, p.Manifest, &m); err != nil {
+		t.Fatalf("%s: %v", when, err)
+	}
+	if !m.Complete || m.Totals.Missing != 0 {
+		t.Fatalf("%s: latest points at %s, which is incomplete", when, p.Run)
+	}
+	for _, u := range m.Units {
+		for _, f := range u.Files {
+			b, err := st.Get(ctx, f.Key)
+			if err != nil || store.SHA256(b) != f.SHA256 {
+				t.Fatalf("%s: latest run %s: %s: %v (checksum mismatch or missing)", when, p.Run, f.Key, err)
+			}
+		}
+	}
+	return p.Run
+}
+
+// files reads every output file except the in-flight temporaries a killed write leaves and
+// config.json (it names the output URI, which differs between the two trees).
+func files(t *testing.T, root string) map[string][]byte {
+	t.Helper()
+	got := map[string][]byte{}
+	err := filepath.Walk(root, func(p string, info os.FileInfo, err error) error {
+		if err != nil || info.IsDir() || strings.HasSuffix(p, ".tmp") || filepath.Base(p) == store.ConfigName {
+			return err
+		}
+		b, err := os.ReadFile(p)
+		got[strings.TrimPrefix(p, root)] = b
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return got
+}
+
+func TestKillAndRerun(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the trainer and runs it about 30 times")
+	}
+	bin := build(t)
+	dir := t.TempDir()
+	in1, in2 := filepath.Join(dir, "in1"), filepath.Join(dir, "in2")
+	dataset(t, in1, 0)
+	dataset(t, in2, 10) // the second run sees 10 new days and evaluates the first run
+	ref, crash := "file://"+filepath.Join(dir, "ref"), "file://"+filepath.Join(dir, "crash")
+	const shards = 4 // 600 series, 150 per shard, one depot object per shard
+
+	// Reference: two uninterrupted runs.
+	steps(t, bin, writeConfig(t, dir+"/", "flp-r1", "file://"+in1+"/", ref), shards)
+	times := steps(t, bin, writeConfig(t, dir+"/", "flp-r2", "file://"+in2+"/", ref), shards)
+	checkLatest(t, ref, "reference")
+
+	// Crash tree: run 1 uninterrupted, then run 2 with kills during train and publish.
+	steps(t, bin, writeConfig(t, dir+"/crash-", "flp-r1", "file://"+in1+"/", crash), shards)
+	checkLatest(t, crash, "after run 1")
+	cfg2 := writeConfig(t, dir+"/crash-", "flp-r2", "file://"+in2+"/", crash)
+	trainer(t, bin, "plan", "--config", cfg2)
+
+	rng := rand.New(rand.NewPCG(seed, 1))
+	landed := 0
+	for k := 0; k < kills; k++ {
+		step := rng.IntN(shards + 1) // shards 0..3 train, 4 publish
+		args := []string{"publish", "--config", cfg2}
+		name := "publish"
+		if step < shards {
+			args = []string{"train", "--config", cfg2, "--shard", itoa(step)}
+			name = "train-" + itoa(step)
+		}
+		delay := time.Duration(rng.Float64() * 1.1 * float64(times[name]))
+		if killed(t, bin, delay, args...) {
+			landed++
+		}
+		run := checkLatest(t, crash, "after kill "+itoa(k)+" of "+name)
+		t.Logf("kill %d: %s after %v (step takes %v); latest -> %s", k, name, delay.Round(time.Millisecond), times[name].Round(time.Millisecond), run)
+		if step < shards { // rerun the killed shard so that the next kills hit later steps too
+			trainer(t, bin, args...)
+		}
+	}
+	if landed < kills/2 {
+		t.Fatalf("only %d of %d kills landed before the step ended; the delays are too long", landed, kills)
+	}
+	// Finish: every shard and publish, as the Job controller's retries would.
+	for i := 0; i < shards; i++ {
+		trainer(t, bin, "train", "--config", cfg2, "--shard", itoa(i))
+	}
+	trainer(t, bin, "publish", "--config", cfg2)
+	if run := checkLatest(t, crash, "final"); run != "flp-r2" {
+		t.Fatalf("latest -> %s, want flp-r2", run)
+	}
+	want, got := files(t, filepath.Join(dir, "ref")), files(t, filepath.Join(dir, "crash"))
+	for k, v := range want {
+		if !bytes.Equal(v, got[k]) {
+			t.Errorf("%s differs from the uninterrupted run (%d vs %d bytes)", k, len(got[k]), len(v))
+		}
+	}
+	for k := range got {
+		if _, ok := want[k]; !ok {
+			t.Errorf("%s exists only in the crashed tree", k)
+		}
+	}
+}
