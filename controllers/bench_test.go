@@ -255,53 +255,17 @@ func (d *benchDriver) single(ctx context.Context, ns, run string, s step, sum su
 }
 
 func (d *benchDriver) finish(ctx context.Context, job *batchv1.Job) {
-	d.jobStatus(ctx, job, func(st *batchv1.JobStatus) {
-		st.Active, st.Ready = 0, ptr.To[int32](0)
-		st.Conditions = append(st.Conditions,
-			jobCondition(batchv1.JobSuccessCriteriaMet, batchv1.JobReasonCompletionsReached),
-			jobCondition(batchv1.JobComplete, batchv1.JobReasonCompletionsReached))
-		st.CompletionTime = ptr.To(metav1.Now())
-	})
+	d.jobStatus(ctx, job, markComplete)
 }
 
 // pod creates the pod of index i and reports it Succeeded with the termination message.
 func (d *benchDriver) pod(ctx context.Context, job *batchv1.Job, i int, message string) error {
-	pod := &corev1.Pod{
-		ObjectMeta: metav1.ObjectMeta{
-			Name: job.Name + "-" + strconv.Itoa(i), Namespace: job.Namespace, Labels: job.Spec.Template.Labels,
-			Annotations: map[string]string{completionIndexAnnotation: strconv.Itoa(i)},
-		},
-		Spec: job.Spec.Template.Spec,
-	}
-	if err := d.c.Create(ctx, pod); err != nil {
-		return err
-	}
-	now := metav1.Now()
-	pod.Status = corev1.PodStatus{Phase: corev1.PodSucceeded, ContainerStatuses: []corev1.ContainerStatus{{
-		Name: trainerContainer, Image: pod.Spec.Containers[0].Image,
-		State: corev1.ContainerState{Terminated: &corev1.ContainerStateTerminated{Reason: "Completed", Message: message, StartedAt: now, FinishedAt: now}},
-	}}}
-	return d.c.Status().Update(ctx, pod)
+	return playPod(ctx, d.c, job, i, 0, 0, message)
 }
 
 // jobStatus updates a Job's status, retrying on conflicts with the manager's parallelism patches.
 func (d *benchDriver) jobStatus(ctx context.Context, job *batchv1.Job, mutate func(*batchv1.JobStatus)) {
-	for attempt := 0; ; attempt++ {
-		var cur batchv1.Job
-		d.must(d.c.Get(ctx, client.ObjectKeyFromObject(job), &cur))
-		if cur.Status.StartTime == nil {
-			cur.Status.StartTime = ptr.To(metav1.Now())
-		}
-		mutate(&cur.Status)
-		err := d.c.Status().Update(ctx, &cur)
-		if err == nil {
-			*job = cur
-			return
-		}
-		if attempt > 50 {
-			d.b.Fatal(err)
-		}
-	}
+	d.must(playJobStatus(ctx, d.c, job, mutate))
 }
 
 func benchPortfolio(ns string, i int) *forecastingv1alpha1.ForecastPortfolio {

@@ -1,6 +1,7 @@
 package controllers
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"strconv"
@@ -9,6 +10,7 @@ import (
 	. "github.com/onsi/gomega"
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
+	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/utils/ptr"
@@ -51,6 +53,11 @@ func getPortfolio(ns, name string) *forecastingv1alpha1.ForecastPortfolio {
 // runPod creates the pod of index i of job and ends it with the exit code and termination
 // message, as the kubelet would report them.
 func runPod(job *batchv1.Job, i int, attempt int, exitCode int32, message string) {
+	ExpectWithOffset(1, playPod(ctx(), k8sClient, job, i, attempt, exitCode, message)).To(Succeed())
+}
+
+// playPod is runPod returning its error (the benchmark uses it from several goroutines).
+func playPod(ctx context.Context, c client.Client, job *batchv1.Job, i int, attempt int, exitCode int32, message string) error {
 	pod := &corev1.Pod{
 		ObjectMeta: metav1.ObjectMeta{
 			Name:        fmt.Sprintf("%s-%d-%d", job.Name, i, attempt),
@@ -60,7 +67,9 @@ func runPod(job *batchv1.Job, i int, attempt int, exitCode int32, message string
 		},
 		Spec: job.Spec.Template.Spec,
 	}
-	ExpectWithOffset(1, k8sClient.Create(ctx(), pod)).To(Succeed())
+	if err := c.Create(ctx, pod); err != nil {
+		return err
+	}
 	phase, reason := corev1.PodSucceeded, "Completed"
 	if exitCode != 0 {
 		phase, reason = corev1.PodFailed, "Error"
@@ -75,27 +84,38 @@ func runPod(job *batchv1.Job, i int, attempt int, exitCode int32, message string
 			}},
 		}},
 	}
-	ExpectWithOffset(1, k8sClient.Status().Update(ctx(), pod)).To(Succeed())
+	return c.Status().Update(ctx, pod)
 }
 
 // updateJobStatus applies mutate to the Job's status, retrying on conflicts (the controller
 // patches the Job's parallelism meanwhile).
 func updateJobStatus(job *batchv1.Job, mutate func(*batchv1.JobStatus)) {
-	EventuallyWithOffset(1, func() error {
+	ExpectWithOffset(1, playJobStatus(ctx(), k8sClient, job, mutate)).To(Succeed())
+}
+
+// playJobStatus is updateJobStatus returning its error; it sets startTime on the first update,
+// as the Job controller does, and gives up after 100 conflicts.
+func playJobStatus(ctx context.Context, c client.Client, job *batchv1.Job, mutate func(*batchv1.JobStatus)) error {
+	var err error
+	for range 100 {
 		var cur batchv1.Job
-		if err := k8sClient.Get(ctx(), client.ObjectKeyFromObject(job), &cur); err != nil {
+		if err = c.Get(ctx, client.ObjectKeyFromObject(job), &cur); err != nil {
 			return err
 		}
 		if cur.Status.StartTime == nil {
 			cur.Status.StartTime = ptr.To(metav1.Now())
 		}
 		mutate(&cur.Status)
-		if err := k8sClient.Status().Update(ctx(), &cur); err != nil {
+		if err = c.Status().Update(ctx, &cur); err == nil {
+			*job = cur
+			return nil
+		}
+		if !apierrors.IsConflict(err) {
 			return err
 		}
-		*job = cur
-		return nil
-	}, 10*time.Second, 50*time.Millisecond).Should(Succeed())
+		time.Sleep(20 * time.Millisecond)
+	}
+	return err
 }
 
 func jobCondition(t batchv1.JobConditionType, reason string) batchv1.JobCondition {
@@ -103,18 +123,19 @@ func jobCondition(t batchv1.JobConditionType, reason string) batchv1.JobConditio
 	return batchv1.JobCondition{Type: t, Status: corev1.ConditionTrue, Reason: reason, Message: "set by the test", LastProbeTime: now, LastTransitionTime: now}
 }
 
-// completeJob marks a Job Complete.
-func completeJob(job *batchv1.Job) {
-	updateJobStatus(job, func(st *batchv1.JobStatus) {
-		st.Active, st.Ready = 0, ptr.To[int32](0)
-		st.Conditions = append(st.Conditions,
-			jobCondition(batchv1.JobSuccessCriteriaMet, batchv1.JobReasonCompletionsReached),
-			jobCondition(batchv1.JobComplete, batchv1.JobReasonCompletionsReached))
-		st.CompletionTime = ptr.To(metav1.Now())
-	})
+// markComplete ends a Job status as Complete (SuccessCriteriaMet first, as the apiserver requires).
+func markComplete(st *batchv1.JobStatus) {
+	st.Active, st.Ready = 0, ptr.To[int32](0)
+	st.Conditions = append(st.Conditions,
+		jobCondition(batchv1.JobSuccessCriteriaMet, batchv1.JobReasonCompletionsReached),
+		jobCondition(batchv1.JobComplete, batchv1.JobReasonCompletionsReached))
+	st.CompletionTime = ptr.To(metav1.Now())
 }
 
-// failJob marks a Job Failed with the reason.
+// completeJob marks a Job Complete.
+func completeJob(job *batchv1.Job) { updateJobStatus(job, markComplete) }
+
+// failJob marks a Job Failed with the reason (FailureTarget first, as the apiserver requires).
 func failJob(job *batchv1.Job, reason string) {
 	updateJobStatus(job, func(st *batchv1.JobStatus) {
 		st.Active, st.Ready = 0, ptr.To[int32](0)

@@ -293,17 +293,9 @@ var _ = Describe("ForecastRun life cycle", func() {
 		succeedSingle(ns, "fenwick-drift-1", stepPublish, summary.Summary{Kind: summary.KindPublish})
 		fp := getPortfolio(ns, "fenwick-drift")
 		Eventually(conditionOf(fp, forecastingv1alpha1.PortfolioAccuracyDrift)).Should(Equal("True/AboveThreshold"))
-		driftRuns := func() []string {
-			var list forecastingv1alpha1.ForecastRunList
-			Expect(k8sClient.List(ctx(), &list, client.InNamespace(ns))).To(Succeed())
-			var names []string
-			for _, r := range list.Items {
-				if r.Spec.Trigger == forecastingv1alpha1.TriggerDrift {
-					names = append(names, r.Name)
-				}
-			}
-			return names
-		}
+		driftRuns := runsIn(ns, func(r *forecastingv1alpha1.ForecastRun) bool {
+			return r.Spec.Trigger == forecastingv1alpha1.TriggerDrift
+		})
 		Eventually(driftRuns).Should(HaveLen(1))
 		Expect(driftRuns()[0]).To(Equal(fmt.Sprintf("fenwick-drift-%d", fakeClock.Now().Unix()/60)))
 		Expect(getPortfolio(ns, "fenwick-drift").Status.LastDriftRunTime).NotTo(BeNil())
@@ -449,17 +441,8 @@ var _ = Describe("ForecastPortfolio", func() {
 			manualRun(ns, name, "fenwick-history")
 			forceFinish(ns, name, outcome, t0.Add(time.Duration(i)*time.Minute))
 		}
-		Eventually(func() []string {
-			var list forecastingv1alpha1.ForecastRunList
-			Expect(k8sClient.List(ctx(), &list, client.InNamespace(ns))).To(Succeed())
-			var names []string
-			for _, r := range list.Items {
-				if r.DeletionTimestamp == nil {
-					names = append(names, r.Name)
-				}
-			}
-			return names
-		}).Should(ConsistOf("fenwick-history-2", "fenwick-history-3"))
+		Eventually(runsIn(ns, func(r *forecastingv1alpha1.ForecastRun) bool { return r.DeletionTimestamp == nil })).
+			Should(ConsistOf("fenwick-history-2", "fenwick-history-3"))
 	})
 
 	It("reports invalid references as Stalled with a message naming the field", func() {
@@ -489,6 +472,21 @@ var _ = Describe("ForecastPortfolio", func() {
 		Expect(orphan.Status.Phase).To(Equal(forecastingv1alpha1.PhasePending))
 	})
 })
+
+// runsIn is a poller for the names of the runs in ns that keep says to keep.
+func runsIn(ns string, keep func(*forecastingv1alpha1.ForecastRun) bool) func() []string {
+	return func() []string {
+		var list forecastingv1alpha1.ForecastRunList
+		Expect(k8sClient.List(ctx(), &list, client.InNamespace(ns))).To(Succeed())
+		var names []string
+		for i := range list.Items {
+			if keep(&list.Items[i]) {
+				names = append(names, list.Items[i].Name)
+			}
+		}
+		return names
+	}
+}
 
 // forceFinish sets a run's Succeeded condition directly (the run controller then leaves it
 // alone), retrying while the controller writes the same status.
