@@ -184,6 +184,9 @@ var _ = Describe("ForecastRun life cycle", func() {
 		finishShards(train, []int{0, 1}, nil, shardSummary)
 		Eventually(func() string { return getRun(ns, name).Status.Shards.Folded }).Should(Equal("0-1"))
 		Eventually(parallelismOf(train)).Should(Equal(int32(2)))
+		Eventually(current.scrape).Should(And(
+			ContainSubstring(fmt.Sprintf(`almanac_shards_pending{namespace=%q,portfolio="fenwick-daily",run=%q} 2`, ns, name)),
+			ContainSubstring(fmt.Sprintf(`almanac_run_parallelism{namespace=%q,portfolio="fenwick-daily",run=%q} 2`, ns, name))))
 		finishShards(train, []int{2, 3}, nil, shardSummary)
 		// Every shard finished: the backlog is empty and no trainer pod may start.
 		Eventually(parallelismOf(train)).Should(Equal(int32(0)))
@@ -220,6 +223,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Eventually(eventReasonsFor(ns, name)).Should(ContainElements("Planning", "Training", "Publishing", "Published"))
 		Expect(testutil.ToFloat64(current.runsCounter(ns, "fenwick-daily", "succeeded"))).To(Equal(1.0))
 		Expect(testutil.ToFloat64(current.expectedGauge(ns, "fenwick-daily", "MASE"))).To(Equal(0.5))
+		scraped := current.scrape()
+		Expect(scraped).To(ContainSubstring(fmt.Sprintf(`almanac_runs_total{namespace=%q,portfolio="fenwick-daily",result="succeeded"} 1`, ns)))
+		Expect(scraped).To(ContainSubstring(fmt.Sprintf(`almanac_accuracy_realized{metric="MASE",namespace=%q,portfolio="fenwick-daily"} 0.6`, ns)))
+		Expect(scraped).To(ContainSubstring(fmt.Sprintf(`almanac_run_duration_seconds_count{namespace=%q,portfolio="fenwick-daily",result="succeeded"} 1`, ns)))
+		Expect(scraped).NotTo(ContainSubstring(fmt.Sprintf(`almanac_shards_pending{namespace=%q,portfolio="fenwick-daily"`, ns)))
 
 		// kubectl shows date columns relative to the real clock: wait until the schedule time
 		// the fake clock ran ahead to has really passed (at most a minute).

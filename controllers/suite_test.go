@@ -3,6 +3,9 @@ package controllers
 import (
 	"context"
 	"fmt"
+	"io"
+	"net"
+	"net/http"
 	"os"
 	"path/filepath"
 	"sync/atomic"
@@ -11,7 +14,6 @@ import (
 
 	. "github.com/onsi/ginkgo/v2"
 	. "github.com/onsi/gomega"
-	"github.com/prometheus/client_golang/prometheus"
 	corev1 "k8s.io/api/core/v1"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
@@ -26,6 +28,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/envtest"
 	logf "sigs.k8s.io/controller-runtime/pkg/log"
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+	"sigs.k8s.io/controller-runtime/pkg/metrics"
 	metricsserver "sigs.k8s.io/controller-runtime/pkg/metrics/server"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
@@ -82,38 +85,68 @@ var _ = AfterSuite(func() {
 	}
 })
 
-// testManager is one in-process manager with its own metrics registry.
+// testManager is one in-process manager. All managers of the suite share suiteMetrics, which
+// is registered once on controller-runtime's metrics.Registry (as main.go does), so the
+// manager's metrics endpoint serves them.
 type testManager struct {
-	cancel   context.CancelFunc
-	done     chan struct{}
-	registry *prometheus.Registry
-	metrics  *Metrics
+	cancel      context.CancelFunc
+	done        chan struct{}
+	metrics     *Metrics
+	metricsAddr string
 }
+
+var suiteMetrics *Metrics
 
 // startManager starts the controllers with the given shard budget and the suite's fake clock.
 func startManager(budget int32) *testManager {
+	if suiteMetrics == nil {
+		m, err := NewMetrics(metrics.Registry)
+		Expect(err).NotTo(HaveOccurred())
+		suiteMetrics = m
+	}
 	cacheOpts, err := CacheOptions(nil)
 	Expect(err).NotTo(HaveOccurred())
+	addr := freeAddress()
 	mgr, err := ctrl.NewManager(cfg, ctrl.Options{
 		Scheme:  scheme,
 		Cache:   cacheOpts,
-		Metrics: metricsserver.Options{BindAddress: "0"},
+		Metrics: metricsserver.Options{BindAddress: addr},
 		// Restart tests start a second manager with the same controller names in this process.
 		Controller: config.Controller{SkipNameValidation: ptr.To(true)},
 	})
 	Expect(err).NotTo(HaveOccurred())
-	reg := prometheus.NewRegistry()
-	m, err := NewMetrics(reg)
-	Expect(err).NotTo(HaveOccurred())
 	ctx, cancel := context.WithCancel(context.Background())
-	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: m})).To(Succeed())
-	tm := &testManager{cancel: cancel, done: make(chan struct{}), registry: reg, metrics: m}
+	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: suiteMetrics})).To(Succeed())
+	tm := &testManager{cancel: cancel, done: make(chan struct{}), metrics: suiteMetrics, metricsAddr: addr}
 	go func() {
 		defer GinkgoRecover()
 		defer close(tm.done)
 		Expect(mgr.Start(ctx)).To(Succeed())
 	}()
 	return tm
+}
+
+// freeAddress is a loopback address with a port nobody listens on right now.
+func freeAddress() string {
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	Expect(err).NotTo(HaveOccurred())
+	defer l.Close()
+	return l.Addr().String()
+}
+
+// scrape fetches the manager's metrics endpoint.
+func (tm *testManager) scrape() string {
+	var body []byte
+	Eventually(func() error {
+		resp, err := http.Get("http://" + tm.metricsAddr + "/metrics")
+		if err != nil {
+			return err
+		}
+		defer resp.Body.Close()
+		body, err = io.ReadAll(resp.Body)
+		return err
+	}, 10*time.Second).Should(Succeed())
+	return string(body)
 }
 
 func (tm *testManager) stop() {
