@@ -15,6 +15,8 @@ import (
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/tables"
 )
@@ -448,4 +450,32 @@ func equalFiles(a, b map[string][]byte) bool {
 		}
 	}
 	return true
+}
+
+// TestScoreMetricFollowsSelection: a series that repeats one week exactly has a zero
+// seasonal-naive scale, so MASE is undefined for every member (Hyndman & Koehler 2006: the
+// scale is the in-sample seasonal-naive MAE) and selection ranks by MAE; the models table
+// must then label the score MAE.
+func TestScoreMetricFollowsSelection(t *testing.T) {
+	var v []float64
+	for w := 0; w < 5; w++ {
+		v = append(v, 1, 2, 3, 4, 5, 6, 7)
+	}
+	cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
+	sc, err := selectionConfig(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := series.Series{Key: "FLP-TEA-80/ashby", Start: time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC), Freq: series.Daily, Values: v}
+	r, err := selection.Forecast(s, sc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := scoreMetric(sc.Metric, r); got != "MAE" {
+		t.Fatalf("scoreMetric = %s (notes %q), want MAE", got, r.Notes)
+	}
+	v[3] = 9 // breaks the exact repeat: MASE is defined again
+	if r, _ = selection.Forecast(s, sc); scoreMetric(sc.Metric, r) != "MASE" {
+		t.Fatalf("scoreMetric = %s, want MASE (notes %q)", scoreMetric(sc.Metric, r), r.Notes)
+	}
 }
