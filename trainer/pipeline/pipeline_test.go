@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"fmt"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -18,6 +19,7 @@ import (
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/synth"
 	"almanac.dev/almanac/trainer/tables"
 )
 
@@ -477,5 +479,33 @@ func TestScoreMetricFollowsSelection(t *testing.T) {
 	v[3] = 9 // breaks the exact repeat: MASE is defined again
 	if r, _ = selection.Forecast(s, sc); scoreMetric(sc.Metric, r) != "MASE" {
 		t.Fatalf("scoreMetric = %s, want MASE (notes %q)", scoreMetric(sc.Metric, r), r.Notes)
+	}
+}
+
+func TestEndToEndRowGroupsOnMem(t *testing.T) {
+	ctx := context.Background()
+	in := mustOpen(t, "mem://flp-rowgroups-in/")
+	o := synth.Options{Items: 10, Depots: 2, Periods: 90, SpareShare: 0.2, End: anchor.Truncate(24 * time.Hour).AddDate(0, 0, -1)}
+	for d := 0; d < 2; d++ {
+		err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*90) })
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := testConfig("flp-0001", "mem://flp-rowgroups-in/", "mem://flp-rowgroups-out/")
+	cfg.Source.Format, cfg.Source.Partitioning = "parquet", runconfig.PartitionRowGroup
+	cfg.Output.Format = "parquet"
+	cfg.Sharding.TargetSeriesPerShard = 4
+	s, err := RunLocal(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := checkPublished(t, mustOpen(t, cfg.Output.URI), "flp-0001")
+	// 10 items in groups of 4 series -> 3 row groups (4, 4, 2) per depot -> 6 units, 5 shards.
+	if len(m.Units) != 6 || s.Shards != 5 || m.Totals.Series.Trained != 20 || !strings.HasSuffix(m.Units[0].ID, "-g0") {
+		t.Fatalf("units %d shards %d totals %+v first %s", len(m.Units), s.Shards, m.Totals, m.Units[0].ID)
+	}
+	if f, _ := m.Units[0].file(TableForecasts); !strings.HasSuffix(f.Key, "forecasts.parquet") {
+		t.Fatalf("forecasts file %s", f.Key)
 	}
 }
