@@ -485,7 +485,7 @@ func TestScoreMetricFollowsSelection(t *testing.T) {
 func TestEndToEndRowGroupsOnMem(t *testing.T) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-rowgroups-in/")
-	o := synth.Options{Items: 10, Depots: 2, Periods: 90, SpareShare: 0.2, End: anchor.Truncate(24 * time.Hour).AddDate(0, 0, -1)}
+	o := synth.Options{Items: 10, Depots: 2, Periods: 90, SpareShare: 0.2, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}
 	for d := 0; d < 2; d++ {
 		err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*90) })
 		if err != nil {
