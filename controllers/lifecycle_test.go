@@ -537,3 +537,20 @@ var _ = Describe("Pod Security", func() {
 		}
 	})
 })
+
+var _ = Describe("Manager RBAC", func() {
+	It("runs the suite's managers with only the generated role: Secrets can be read one by one, never listed", func() {
+		c, err := client.New(managerCfg, client.Options{Scheme: scheme})
+		Expect(err).NotTo(HaveOccurred())
+		ns := newNamespace()
+		createSecret(ns)
+		var meta metav1.PartialObjectMetadata
+		meta.SetGroupVersionKind(corev1.SchemeGroupVersion.WithKind("Secret"))
+		Expect(c.Get(ctx(), types.NamespacedName{Namespace: ns, Name: "fenwick-s3"}, &meta)).To(Succeed())
+		Expect(apierrors.IsForbidden(c.List(ctx(), &corev1.SecretList{}, client.InNamespace(ns)))).To(BeTrue())
+		Expect(apierrors.IsForbidden(c.Create(ctx(), &corev1.Pod{
+			ObjectMeta: metav1.ObjectMeta{Name: "x", Namespace: ns},
+			Spec:       corev1.PodSpec{Containers: []corev1.Container{{Name: "c", Image: "i"}}},
+		}))).To(BeTrue())
+	})
+})

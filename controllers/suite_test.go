@@ -15,6 +15,7 @@ import (
 	. "github.com/onsi/ginkgo/v2"
 	. "github.com/onsi/gomega"
 	corev1 "k8s.io/api/core/v1"
+	rbacv1 "k8s.io/api/rbac/v1"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
@@ -30,6 +31,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 	"sigs.k8s.io/controller-runtime/pkg/metrics"
 	metricsserver "sigs.k8s.io/controller-runtime/pkg/metrics/server"
+	"sigs.k8s.io/yaml"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
@@ -44,8 +46,11 @@ var (
 	testEnv   *envtest.Environment
 	cfg       *rest.Config
 	k8sClient client.Client
-	scheme    = runtime.NewScheme()
-	fakeClock *testingclock.FakeClock
+	// managerCfg authenticates the manager as a user bound to config/rbac/role.yaml only, so a
+	// missing RBAC rule fails the suite.
+	managerCfg *rest.Config
+	scheme     = runtime.NewScheme()
+	fakeClock  *testingclock.FakeClock
 	// current is the running manager (restart tests stop it and start another).
 	current *testManager
 	nsSeq   atomic.Int32
@@ -73,6 +78,7 @@ var _ = BeforeSuite(func() {
 	k8sClient, err = client.New(cfg, client.Options{Scheme: scheme})
 	Expect(err).NotTo(HaveOccurred())
 	fakeClock = testingclock.NewFakeClock(time.Now().Truncate(time.Second))
+	managerCfg = managerUser()
 	current = startManager(suiteBudget)
 })
 
@@ -84,6 +90,25 @@ var _ = AfterSuite(func() {
 		Expect(testEnv.Stop()).To(Succeed())
 	}
 })
+
+// managerUser creates the ClusterRole generated from the RBAC markers (config/rbac/role.yaml),
+// binds it to a new envtest user and returns that user's rest config.
+func managerUser() *rest.Config {
+	b, err := os.ReadFile(filepath.Join("..", "config", "rbac", "role.yaml"))
+	Expect(err).NotTo(HaveOccurred())
+	var role rbacv1.ClusterRole
+	Expect(yaml.Unmarshal(b, &role)).To(Succeed())
+	role.Name = "almanac-manager"
+	Expect(k8sClient.Create(ctx(), &role)).To(Succeed())
+	Expect(k8sClient.Create(ctx(), &rbacv1.ClusterRoleBinding{
+		ObjectMeta: metav1.ObjectMeta{Name: "almanac-manager"},
+		RoleRef:    rbacv1.RoleRef{APIGroup: rbacv1.GroupName, Kind: "ClusterRole", Name: role.Name},
+		Subjects:   []rbacv1.Subject{{Kind: rbacv1.UserKind, APIGroup: rbacv1.GroupName, Name: "almanac-manager"}},
+	})).To(Succeed())
+	user, err := testEnv.AddUser(envtest.User{Name: "almanac-manager"}, nil)
+	Expect(err).NotTo(HaveOccurred())
+	return user.Config()
+}
 
 // testManager is one in-process manager. All managers of the suite share suiteMetrics, which
 // is registered once on controller-runtime's metrics.Registry (as main.go does), so the
@@ -107,7 +132,7 @@ func startManager(budget int32) *testManager {
 	cacheOpts, err := CacheOptions(nil)
 	Expect(err).NotTo(HaveOccurred())
 	addr := freeAddress()
-	mgr, err := ctrl.NewManager(cfg, ctrl.Options{
+	mgr, err := ctrl.NewManager(managerCfg, ctrl.Options{
 		Scheme:  scheme,
 		Cache:   cacheOpts,
 		Metrics: metricsserver.Options{BindAddress: addr},
