@@ -16,6 +16,7 @@ package ingest
 import (
 	"bytes"
 	"context"
+	"encoding/binary"
 	"errors"
 	"math"
 	"os"
@@ -179,6 +180,25 @@ func badCases() []badCase {
 			pq:     func(t *testing.T) []byte { b := fenwickParquet(t, 2); return b[:len(b)-7] },
 			src:    func(runconfig.Source) runconfig.Source { return fenwickSource() },
 			broken: []string{"demand.csv", "not a readable Parquet file"}},
+		{name: "Parquet: footer length larger than the file / broken before anything is allocated",
+			pq: func(t *testing.T) []byte {
+				b := bytes.Clone(fenwickParquet(t, 2))
+				binary.LittleEndian.PutUint32(b[len(b)-8:], 1<<31)
+				return b
+			},
+			broken: []string{"footer of 2147483648 bytes"}},
+		{name: "Parquet: footer declaring a list of a billion row groups / broken, no allocation",
+			pq: func(t *testing.T) []byte {
+				// FileMetaData with field 4 (row_groups) as a list of 10^9 structs, then the
+				// footer length and magic.
+				footer := []byte{0x49, 0xfc}
+				footer = binary.AppendUvarint(footer, 1_000_000_000)
+				footer = append(footer, 0x00)
+				b := append([]byte("PAR1"), footer...)
+				b = binary.LittleEndian.AppendUint32(b, uint32(len(footer)))
+				return append(b, "PAR1"...)
+			},
+			broken: []string{"list of 1000000000 elements"}},
 		{name: "Parquet: a CSV file given as Parquet / broken, names the object",
 			pq:     func(*testing.T) []byte { return []byte(header + good) },
 			broken: []string{"demand.csv", "not a readable Parquet file"}},

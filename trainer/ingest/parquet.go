@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
@@ -43,12 +44,19 @@ func RowGroups(ra io.ReaderAt, size int64, object string) ([]GroupInfo, error) {
 
 // watchedReaderAt remembers the first real read error, so a storage failure is reported as
 // such and not as a broken file (the Parquet library does not always wrap the errors it sees).
+// A read outside the object (a corrupt offset) is refused without touching storage.
 type watchedReaderAt struct {
-	ra  io.ReaderAt
-	err error
+	ra   io.ReaderAt
+	size int64
+	err  error
 }
 
+var errOutside = errors.New("read outside the object (corrupt offset)")
+
 func (w *watchedReaderAt) ReadAt(p []byte, off int64) (int, error) {
+	if off < 0 || off > w.size {
+		return 0, errOutside
+	}
 	n, err := w.ra.ReadAt(p, off)
 	if err != nil && err != io.EOF && w.err == nil {
 		w.err = err
@@ -64,18 +72,59 @@ func (w *watchedReaderAt) failure(object string, broken error) error {
 	return broken
 }
 
-func openParquet(ra io.ReaderAt, size int64, object string) (f *parquet.File, wr *watchedReaderAt, err error) {
-	wr = &watchedReaderAt{ra: ra}
-	defer func() {
-		if p := recover(); p != nil {
-			f, err = nil, wr.failure(object, brokenf("%s: not a readable Parquet file (%v)", object, p))
-		}
-	}()
-	f, err = parquet.OpenFile(wr, size, parquet.SkipPageIndex(true), parquet.SkipBloomFilters(true))
+func openParquet(ra io.ReaderAt, size int64, object string) (*parquet.File, *watchedReaderAt, error) {
+	wr := &watchedReaderAt{ra: ra, size: size}
+	if err := checkFooter(wr, size, object); err != nil {
+		return nil, wr, err
+	}
+	var f *parquet.File
+	err := guard(func() (err error) {
+		f, err = parquet.OpenFile(wr, size, parquet.SkipPageIndex(true), parquet.SkipBloomFilters(true))
+		return err
+	})
 	if err != nil {
 		return nil, wr, wr.failure(object, brokenf("%s: not a readable Parquet file: %v", object, err))
 	}
 	return f, wr, nil
+}
+
+// guard runs fn, a call into the Parquet library on untrusted bytes, and turns a panic (the
+// library panics on some corrupt metadata) into an error.
+func guard(fn func() error) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("corrupt data (%v)", p)
+		}
+	}()
+	return fn()
+}
+
+// checkFooter checks the file's last 8 bytes (footer length and magic) and the footer's
+// declared lengths (checkThrift) before the library trusts them: a corrupt length would
+// otherwise make it allocate up to several GiB.
+func checkFooter(wr *watchedReaderAt, size int64, object string) error {
+	if size < 12 {
+		return brokenf("%s: not a readable Parquet file (%d bytes)", object, size)
+	}
+	var tail [8]byte
+	if _, err := wr.ReadAt(tail[:], size-8); err != nil && !(err == io.EOF && wr.err == nil) {
+		return wr.failure(object, brokenf("%s: not a readable Parquet file: %v", object, err))
+	}
+	if m := string(tail[4:]); m != "PAR1" {
+		return brokenf("%s: not a readable Parquet file (trailing magic %q, want \"PAR1\")", object, m)
+	}
+	n := int64(binary.LittleEndian.Uint32(tail[:4]))
+	if n > size-12 {
+		return brokenf("%s: not a readable Parquet file (footer of %d bytes in a %d-byte file)", object, n, size)
+	}
+	footer := make([]byte, n)
+	if _, err := wr.ReadAt(footer, size-8-n); err != nil && !(err == io.EOF && wr.err == nil) {
+		return wr.failure(object, brokenf("%s: not a readable Parquet file: %v", object, err))
+	}
+	if err := checkThrift(footer); err != nil {
+		return brokenf("%s: not a readable Parquet file: %v", object, err)
+	}
+	return nil
 }
 
 // role is what a mapped column is used for.
@@ -118,7 +167,11 @@ func ScanParquet(ctx context.Context, ra io.ReaderAt, size int64, object string,
 	if err != nil {
 		return err
 	}
-	cols, err := parquetColumns(f.Schema(), src.Columns)
+	var cols []*pcol
+	err = guard(func() (err error) {
+		cols, err = parquetColumns(f.Schema(), src.Columns)
+		return err
+	})
 	if err != nil {
 		return brokenf("%s: %v", object, err)
 	}
@@ -257,22 +310,32 @@ type parquetScan struct {
 
 // group scans one row group.
 func (sc *parquetScan) group(ctx context.Context, rg parquet.RowGroup, g int, object string, wr *watchedReaderAt, fn func(Row) error) error {
-	chunks := rg.ColumnChunks()
-	for _, c := range sc.cols {
-		if c.index >= len(chunks) {
-			return brokenf("%s row group %d: column %q has no chunk", object, g, c.name)
-		}
-		c.vr = parquet.NewColumnChunkValueReader(chunks[c.index])
-	}
-	defer func() {
+	var total int64
+	defer guard(func() error {
 		for _, c := range sc.cols {
-			c.vr.Close()
-			c.vr = nil
+			if c.vr != nil {
+				c.vr.Close()
+				c.vr = nil
+			}
 		}
-	}()
+		return nil
+	})
+	err := guard(func() error {
+		chunks := rg.ColumnChunks()
+		for _, c := range sc.cols {
+			if c.index >= len(chunks) {
+				return fmt.Errorf("column %q has no chunk", c.name)
+			}
+			c.vr = parquet.NewColumnChunkValueReader(chunks[c.index])
+		}
+		total = rg.NumRows()
+		return nil
+	})
+	if err != nil {
+		return wr.failure(object, brokenf("%s row group %d: %v", object, g, err))
+	}
 	nk := len(sc.src.Columns.Series)
 	ncov := len(sc.src.Columns.Covariates)
-	total := rg.NumRows()
 	var row int64
 	for {
 		if err := ctx.Err(); err != nil {
@@ -284,6 +347,9 @@ func (sc *parquetScan) group(ctx context.Context, rg parquet.RowGroup, g int, ob
 		}
 		if n == 0 {
 			break
+		}
+		if row+int64(n) > total {
+			return brokenf("%s row group %d: more than the %d rows the footer declares", object, g, total)
 		}
 		for i := 0; i < n; i++ {
 			r := sc.build(i, nk, ncov)
@@ -303,17 +369,16 @@ func (sc *parquetScan) group(ctx context.Context, rg parquet.RowGroup, g int, ob
 }
 
 // fill reads the next batch of values from every column and returns the batch length; the
-// columns must agree. Library panics on corrupt pages become broken input.
+// columns must agree.
 func (sc *parquetScan) fill(g int, object string) (n int, err error) {
-	defer func() {
-		if p := recover(); p != nil {
-			n, err = 0, brokenf("%s row group %d: corrupt data (%v)", object, g, p)
-		}
-	}()
 	for ci, c := range sc.cols {
 		got := 0
 		for got < parquetBatch {
-			k, err := c.vr.ReadValues(c.vals[got:])
+			var k int
+			var err error
+			if perr := guard(func() error { k, err = c.vr.ReadValues(c.vals[got:]); return nil }); perr != nil {
+				return 0, brokenf("%s row group %d column %q: %v", object, g, c.name, perr)
+			}
 			got += k
 			if errors.Is(err, io.EOF) {
 				break

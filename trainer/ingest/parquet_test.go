@@ -3,6 +3,7 @@ package ingest
 import (
 	"bytes"
 	"context"
+	"encoding/binary"
 	"errors"
 	"math"
 	"strings"
@@ -180,4 +181,26 @@ func (f failingReaderAt) ReadAt(p []byte, off int64) (int, error) {
 		return 0, f.err
 	}
 	return bytes.NewReader(f.b).ReadAt(p, off)
+}
+
+// The footer walker accepts every footer parquet-go writes (here: several shapes) and its
+// byte count matches the footer length.
+func TestCheckThriftAcceptsRealFooters(t *testing.T) {
+	type wide struct {
+		A string   `parquet:"a,dict"`
+		B *float64 `parquet:"b,optional"`
+		C []int32  `parquet:"c,list"`
+		D bool     `parquet:"d"`
+	}
+	x := 1.5
+	files := [][]byte{fenwickParquet(t, 2), fenwickParquet(t, 100),
+		writeParquet(t, []wide{{"a", &x, []int32{1, 2}, true}, {"b", nil, nil, false}})}
+	for i, b := range files {
+		n := int(binary.LittleEndian.Uint32(b[len(b)-8:]))
+		footer := b[len(b)-8-n : len(b)-8]
+		w := thriftWalker{b: footer}
+		if err := w.structure(0); err != nil || w.i != n {
+			t.Errorf("file %d: walked %d of %d footer bytes, err %v", i, w.i, n, err)
+		}
+	}
 }
