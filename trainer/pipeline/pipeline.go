@@ -29,8 +29,8 @@ import (
 
 // Env is what the commands take from the process.
 type Env struct {
-	// Now is the clock (time.Now in main, fixed in tests). Train uses the run's scheduled time
-	// when set, so that reruns agree, and Now only for manual runs and durations.
+	// Now is the clock (time.Now in main, fixed in tests). Plan takes the history cutoff from
+	// it for manual runs (see Plan.Cutoff); otherwise it only times the commands.
 	Now func() time.Time
 	// Log receives progress lines (stderr in main); nil discards them.
 	Log io.Writer

@@ -10,6 +10,7 @@ import (
 	"regexp"
 	"sort"
 	"strings"
+	"time"
 
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -29,6 +30,10 @@ type Plan struct {
 	Partitioning string `json:"partitioning"`
 	// Buckets is the hash bucket count when Partitioning is runconfig.PartitionNone, else 0.
 	Buckets int `json:"buckets,omitempty"`
+	// Cutoff bounds history: rows dated after it are plans, not actuals, and are dropped. It
+	// is the run's scheduled time, or the time plan ran for a manual run, fixed here so that
+	// every shard and every rerun uses the same one.
+	Cutoff time.Time `json:"cutoff"`
 	// Objects are the input objects (keys relative to the source store), sorted by key.
 	Objects []Object `json:"objects"`
 	// Units are sorted by ID.
@@ -194,6 +199,9 @@ func (p *Plan) Validate() error {
 	}
 	if err := store.CheckName("run", p.Run); err != nil {
 		return err
+	}
+	if p.Cutoff.IsZero() {
+		return fmt.Errorf("cutoff must be set")
 	}
 	hashed := p.Partitioning == runconfig.PartitionNone
 	switch p.Partitioning {

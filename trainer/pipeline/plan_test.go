@@ -4,6 +4,7 @@ import (
 	"reflect"
 	"strings"
 	"testing"
+	"time"
 
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -105,7 +106,7 @@ func TestObjectIDIsSafeAndDistinct(t *testing.T) {
 // validPlan is a small consistent plan for the decoder tests.
 func validPlan() *Plan {
 	units := []Unit{{ID: BucketID(1, 4), Bucket: 1, Series: 2, Rows: 20}, {ID: BucketID(3, 4), Bucket: 3, Series: 1, Rows: 5}}
-	return &Plan{Version: PlanVersion, Run: "flp-0001", Buckets: 4, Objects: []Object{{Key: "in/a.csv", Size: 10}},
+	return &Plan{Version: PlanVersion, Run: "flp-0001", Buckets: 4, Cutoff: anchor, Objects: []Object{{Key: "in/a.csv", Size: 10}},
 		Units: units, Shards: Cut(units, 2), Series: 3, Rows: 25}
 }
 
@@ -115,6 +116,7 @@ func TestDecodePlanRejects(t *testing.T) {
 		want string
 	}{
 		"version":          {func(p *Plan) { p.Version = 2 }, "plan version 2"},
+		"no cutoff":        {func(p *Plan) { p.Cutoff = time.Time{} }, "cutoff"},
 		"bad run name":     {func(p *Plan) { p.Run = "Run One" }, "run name"},
 		"buckets not pow2": {func(p *Plan) { p.Buckets = 3 }, "buckets 3"},
 		"unit twice":       {func(p *Plan) { p.Shards = append(p.Shards, Shard{Units: []string{p.Units[0].ID}}) }, "already in shard"},

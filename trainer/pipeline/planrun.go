@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"sort"
+	"time"
 
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -66,7 +67,11 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	if err != nil {
 		return nil, err
 	}
-	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs}
+	cutoff := cfg.ScheduledTime
+	if cutoff.IsZero() {
+		cutoff = env.now()
+	}
+	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second)}
 	switch cfg.Source.Partitioning {
 	case runconfig.PartitionObject:
 		for _, o := range objs {

@@ -116,11 +116,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	if shard < 0 || shard >= len(p.Shards) {
 		return sum, fmt.Errorf("shard %d: the plan has shards 0..%d: %w", shard, len(p.Shards)-1, ErrConfig)
 	}
-	now := cfg.ScheduledTime
-	if now.IsZero() {
-		now = start
-	}
-	units, err := loadShard(ctx, cfg, p, shard, now)
+	units, err := loadShard(ctx, cfg, p, shard, p.Cutoff)
 	if err != nil {
 		return sum, err
 	}
