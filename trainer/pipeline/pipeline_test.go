@@ -509,3 +509,35 @@ func TestEndToEndRowGroupsOnMem(t *testing.T) {
 		t.Fatalf("forecasts file %s", f.Key)
 	}
 }
+
+func TestTamperedUnitIsNotTrusted(t *testing.T) {
+	dir, cfg := objectRun(t)
+	runAll(t, cfg)
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Source.Partitioning = runconfig.PartitionObject
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < ps.Shards; i++ {
+		if _, err := RunTrain(ctx, cfg2, i, testEnv()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	unit := ObjectID("depot-ashby.csv", nil)
+	f := filepath.Join(dir, "out", store.UnitKey("flp-0002", unit, "forecasts.csv"))
+	b, _ := os.ReadFile(f)
+	if err := os.WriteFile(f, bytes.Replace(b, []byte("FLP-TEA-80"), []byte("FLP-TEA-81"), 1), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	s, err := RunPublish(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := checkPublished(t, mustOpen(t, cfg.Output.URI), "flp-0002")
+	e, _ := m.unit(unit)
+	if s.CarriedForward != 1 || e.State != StateCarried || e.Source != "flp-0001" || !strings.Contains(e.Reason, "does not match its checksum") {
+		t.Fatalf("summary %+v entry %+v", s, e)
+	}
+}

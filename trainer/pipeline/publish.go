@@ -2,9 +2,12 @@ package pipeline
 
 import (
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
@@ -113,18 +116,33 @@ func verifyFiles(ctx context.Context, out *store.Store, files []File) (string, e
 		return "no files listed", nil
 	}
 	for _, f := range files {
-		b, err := out.Get(ctx, f.Key)
+		n, sum, err := hashObject(ctx, out, f.Key)
 		if errors.Is(err, store.ErrNotFound) {
 			return f.Key + " is gone", nil
 		}
 		if err != nil {
 			return "", storageErr(err)
 		}
-		if int64(len(b)) != f.Bytes || store.SHA256(b) != f.SHA256 {
+		if n != f.Bytes || sum != f.SHA256 {
 			return fmt.Sprintf("%s does not match its checksum", f.Key), nil
 		}
 	}
 	return "", nil
+}
+
+// hashObject streams an object through SHA-256 and returns its size and hex digest.
+func hashObject(ctx context.Context, out *store.Store, key string) (int64, string, error) {
+	r, err := out.Open(ctx, key)
+	if err != nil {
+		return 0, "", err
+	}
+	defer r.Close()
+	h := sha256.New()
+	n, err := io.Copy(h, r)
+	if err != nil {
+		return 0, "", err
+	}
+	return n, hex.EncodeToString(h.Sum(nil)), nil
 }
 
 // add counts one entry into the totals.
