@@ -1,0 +1,225 @@
+package report
+
+import (
+	_ "embed"
+	"fmt"
+	"html/template"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"gonum.org/v1/plot"
+	"gonum.org/v1/plot/vg"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/tables"
+)
+
+//go:embed page.html
+var pageHTML string
+
+var pageTmpl = template.Must(template.New("page").Funcs(template.FuncMap{
+	"score": func(v float64) string {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return "–"
+		}
+		return fmt.Sprintf("%.2f", v)
+	},
+	"join": strings.Join,
+}).Parse(pageHTML))
+
+// page is everything the template shows.
+type page struct {
+	Run                      *Run
+	Overview                 Overview
+	Metric                   string
+	MetricSentence           string
+	Unit, Noun               string
+	Horizon, Frequency       string
+	Quantiles                []string
+	Source                   string
+	Scheduled, Trigger       string
+	UnitsTrained, UnitsCarry int
+	UnitsMissing             []string
+	Complete                 bool
+	HasManifest              bool
+	DriftThreshold           string
+	HistoryProblem           string
+	ModelsPlot, FamilyPlot   string
+	EvalPlot                 string
+	Shown                    []shownSeries
+	Rejected                 []tables.RejectedRow
+	RejectedMore             int
+	Index                    []indexRow
+	IndexMore                int
+	IndexCap                 int
+}
+
+// shownSeries is one series of the per-series section.
+type shownSeries struct {
+	Key, Anchor, Plot, Title string
+	Why                      []string
+	Model, Params            string
+	Score                    float64
+	ScoreWords               string
+	Band                     string
+	Notes                    []string
+	Carried                  string
+	Eval                     *tables.EvaluationRow
+	NoHistory                bool
+}
+
+// indexRow is one line of the index of all series.
+type indexRow struct {
+	Key, Model, Anchor, Carried string
+	Score                       float64
+	Drifted                     bool
+}
+
+// render writes the plots and index.html of r into dir, drawing the series in picks with
+// their history hist, and returns the names of the files written. historyErr, when not nil,
+// is shown as a warning.
+func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, historyErr error, o Options) (files []string, err error) {
+	cfg := r.Config
+	freq := series.Frequency(cfg.Source.Frequency)
+	noun := periodNoun(freq)
+	metric := backtest.Metric(cfg.Selection.Metric)
+	if len(r.Models) > 0 && r.Models[0].Metric != "" {
+		metric = backtest.Metric(r.Models[0].Metric)
+	}
+	unit := cfg.Source.Columns.Value
+	pg := page{
+		Run: r, Overview: overview(r), Metric: string(metric), Unit: unit, Noun: noun,
+		MetricSentence: MetricSentence(metric, unit, noun, freq.SeasonLength()),
+		Horizon:        plural(cfg.Horizon, noun) + " ahead",
+		Frequency:      string(freq),
+		Source:         store.Redact(cfg.Source.URI),
+		Trigger:        cfg.Trigger,
+		HasManifest:    r.Manifest != nil,
+		UnitsMissing:   r.Missing,
+		IndexCap:       o.IndexCap,
+	}
+	for _, q := range cfg.Quantiles {
+		pg.Quantiles = append(pg.Quantiles, tables.QuantileColumn(q))
+	}
+	if !cfg.ScheduledTime.IsZero() {
+		pg.Scheduled = cfg.ScheduledTime.UTC().Format("Mon 2 Jan 2006 15:04 MST")
+	}
+	if cfg.Drift.ThresholdRatio > 0 {
+		pg.DriftThreshold = trimFloat(cfg.Drift.ThresholdRatio)
+	}
+	if m := r.Manifest; m != nil {
+		pg.Complete = m.Complete
+		pg.UnitsTrained, pg.UnitsCarry = m.Totals.Trained, m.Totals.CarriedForward
+	}
+	if historyErr != nil {
+		pg.HistoryProblem = historyErr.Error()
+	}
+
+	if len(pg.Overview.Models) > 0 {
+		p, err := countBars("Chosen model per series", "number of series", pg.Overview.Models)
+		if err != nil {
+			return nil, err
+		}
+		pg.ModelsPlot = "chosen-models.svg"
+		if files, err = svgTo(files, dir, pg.ModelsPlot, "Number of series by chosen model", p, plotWidth, barHeight(len(pg.Overview.Models))); err != nil {
+			return nil, err
+		}
+		fp, err := familyBars(metric, pg.Overview.Families)
+		if err != nil {
+			return nil, err
+		}
+		pg.FamilyPlot = "accuracy-by-family.svg"
+		if files, err = svgTo(files, dir, pg.FamilyPlot, "Median backtest "+string(metric)+" by chosen model family", fp, plotWidth, barHeight(len(pg.Overview.Families))+30); err != nil {
+			return nil, err
+		}
+	}
+	if len(r.Evaluation) > 0 {
+		p, err := evaluationPlot(r.Evaluation[0].Metric, r.Evaluation, cfg.Drift.ThresholdRatio)
+		if err != nil {
+			return nil, err
+		}
+		pg.EvalPlot = "previous-run-accuracy.svg"
+		if files, err = svgTo(files, dir, pg.EvalPlot, "Expected versus realized error of the previous run's forecasts", p, plotWidth, vg.Points(440)); err != nil {
+			return nil, err
+		}
+	}
+
+	models := map[string]tables.ModelRow{}
+	for _, m := range r.Models {
+		models[m.Series] = m
+	}
+	evals := map[string]*tables.EvaluationRow{}
+	for i := range r.Evaluation {
+		evals[r.Evaluation[i].Series] = &r.Evaluation[i]
+	}
+	anchors := map[string]string{}
+	window := historyWindow(freq, cfg.Horizon)
+	for i, pk := range picks {
+		m := models[pk.Key]
+		fc := r.Forecasts[pk.Key]
+		s := shownSeries{Key: pk.Key, Anchor: fmt.Sprintf("s%03d", i+1), Plot: fmt.Sprintf("series-%03d.svg", i+1), Why: pk.Why,
+			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, noun),
+			Band: BandSentence(fc.Levels, noun), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
+		if m.Notes != "" {
+			s.Notes = strings.Split(m.Notes, "; ")
+		}
+		h, ok := hist[pk.Key]
+		s.NoHistory = !ok
+		var hp *series.Series
+		if ok {
+			hp = &h
+		}
+		s.Title = fmt.Sprintf("%s: %s, forecast %s", pk.Key, m.Model, plural(len(fc.Rows), noun)+" ahead")
+		p, err := seriesPlot(s.Title, fmt.Sprintf("%s per %s", unit, noun), hp, fc, window)
+		if err != nil {
+			return nil, fmt.Errorf("report: %s: %w", pk.Key, err)
+		}
+		if files, err = svgTo(files, dir, s.Plot, "Demand history and forecast of "+pk.Key, p, plotWidth, vg.Points(330)); err != nil {
+			return nil, err
+		}
+		anchors[pk.Key] = s.Anchor
+		pg.Shown = append(pg.Shown, s)
+	}
+
+	pg.Rejected = r.Rejected
+	if len(pg.Rejected) > o.IndexCap {
+		pg.RejectedMore = len(pg.Rejected) - o.IndexCap
+		pg.Rejected = pg.Rejected[:o.IndexCap]
+	}
+	for i, m := range r.Models {
+		if i == o.IndexCap {
+			pg.IndexMore = len(r.Models) - o.IndexCap
+			break
+		}
+		row := indexRow{Key: m.Series, Model: m.Model, Score: m.Score, Anchor: anchors[m.Series], Carried: r.Carried[m.Series]}
+		if e := evals[m.Series]; e != nil {
+			row.Drifted = e.Drifted
+		}
+		pg.Index = append(pg.Index, row)
+	}
+
+	f, err := os.Create(filepath.Join(dir, "index.html"))
+	if err != nil {
+		return nil, err
+	}
+	if err := pageTmpl.Execute(f, pg); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("report: index.html: %w", err)
+	}
+	return append(files, "index.html"), f.Close()
+}
+
+// svgTo writes the plot with writeSVG and appends its name to files.
+func svgTo(files []string, dir, name, title string, p *plot.Plot, w, h vg.Length) ([]string, error) {
+	return append(files, name), writeSVG(dir, name, title, p, w, h)
+}
+
+// plotWidth is the width of every plot (the page's content width at 96 dpi is 960 px).
+const plotWidth = vg.Length(720)
+
+// barHeight is the height of a horizontal bar chart with n bars.
+func barHeight(n int) vg.Length { return vg.Length(70 + 22*max(n, 1)) }

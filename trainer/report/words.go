@@ -1,0 +1,150 @@
+package report
+
+import (
+	"fmt"
+	"math"
+	"strings"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/tables"
+)
+
+// periodNoun is the singular name of one period of f ("week").
+func periodNoun(f series.Frequency) string {
+	switch f {
+	case series.Hourly:
+		return "hour"
+	case series.Daily:
+		return "day"
+	case series.Weekly:
+		return "week"
+	case series.Monthly:
+		return "month"
+	case series.Quarterly:
+		return "quarter"
+	case series.Yearly:
+		return "year"
+	}
+	return "period"
+}
+
+// plural returns "n noun" or "n nouns".
+func plural(n int, noun string) string {
+	if n == 1 {
+		return fmt.Sprintf("%d %s", n, noun)
+	}
+	return fmt.Sprintf("%d %ss", n, noun)
+}
+
+// historyWindow is the number of history periods drawn before the forecast: two seasons of
+// weekly data, three of monthly and quarterly data, 13 weeks of daily data, a week of hourly
+// data, 20 years of yearly data, and never less than four horizons.
+func historyWindow(f series.Frequency, horizon int) int {
+	w := 2 * f.SeasonLength()
+	switch f {
+	case series.Daily:
+		w = 91
+	case series.Hourly:
+		w = 7 * 24
+	case series.Monthly, series.Quarterly:
+		w = 3 * f.SeasonLength()
+	case series.Yearly:
+		w = 20
+	}
+	return max(w, 4*horizon)
+}
+
+// benchmark names the naive forecast the scaled metrics divide by, for season length m.
+func benchmark(m int, noun string) string {
+	if m <= 1 {
+		return "the naive forecast that repeats the previous " + noun + "'s value"
+	}
+	return fmt.Sprintf("the seasonal naive forecast that repeats the value of one season (%s) earlier", plural(m, noun))
+}
+
+// MetricSentence explains a backtest metric in one plain sentence for a planner. unit is the
+// value column's name ("units"), noun the period noun ("week"), m the season length. The
+// definitions follow Hyndman & Koehler (2006), "Another look at measures of forecast
+// accuracy", IJF 22 (MASE: section 4; MAE, RMSE, MAPE: section 3), the M4 Competitor's Guide
+// (sMAPE), the M5 Competitor's Guide (RMSSE) and Kolassa & Schütz (2007) (WAPE), as
+// trainer/backtest implements them; Bias is forecast minus actual (common practice).
+func MetricSentence(metric backtest.Metric, unit, noun string, m int) string {
+	switch metric {
+	case backtest.MASE:
+		return fmt.Sprintf("MASE compares the forecast's average miss in the backtest with the average miss, over the history, of %s: "+
+			"1.0 is as good as that benchmark, below 1 is better (0.8 means misses about 20%% smaller) and above 1 is worse.", benchmark(m, noun))
+	case backtest.RMSSE:
+		return fmt.Sprintf("RMSSE compares the forecast's typical miss in the backtest (large misses weigh more) with that of %s over the history: "+
+			"below 1 is better than that benchmark, above 1 worse.", benchmark(m, noun))
+	case backtest.MAE:
+		return fmt.Sprintf("MAE is the average size of a miss in the backtest, in %s per %s.", unit, noun)
+	case backtest.RMSE:
+		return fmt.Sprintf("RMSE is the typical size of a miss in the backtest, in %s per %s, with large misses weighing more.", unit, noun)
+	case backtest.WAPE:
+		return "WAPE is the sum of the misses in the backtest as a percentage of the sum of actual demand."
+	case backtest.MAPE:
+		return "MAPE is the average miss in the backtest as a percentage of each period's actual demand."
+	case backtest.SMAPE:
+		return "sMAPE is the average miss in the backtest as a percentage of the average of forecast and actual (0 to 200%)."
+	case backtest.Bias:
+		return fmt.Sprintf("Bias is the average of forecast minus actual in the backtest, in %s per %s: positive means the forecast ran high.", unit, noun)
+	}
+	return string(metric) + " is the backtest error measure the run selected models by; lower is better."
+}
+
+// ScoreWords says what one series' backtest score means ("about 26% smaller misses than the
+// benchmark"). A NaN score means no backtest was possible.
+func ScoreWords(metric backtest.Metric, v float64, unit, noun string) string {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return "no backtest score: the history was too short (or constant) to test the models on, so a simple fallback model was used"
+	}
+	switch metric {
+	case backtest.MASE, backtest.RMSSE:
+		d := math.Round(math.Abs(1-v) * 100)
+		switch {
+		case d < 3:
+			return "about as good as the naive benchmark"
+		case v < 1:
+			return fmt.Sprintf("misses about %.0f%% smaller than the naive benchmark", d)
+		default:
+			return fmt.Sprintf("misses about %.0f%% larger than the naive benchmark", d)
+		}
+	case backtest.MAE, backtest.RMSE:
+		return fmt.Sprintf("a typical miss of %s %s per %s", num(v), unit, noun)
+	case backtest.WAPE, backtest.MAPE, backtest.SMAPE:
+		return fmt.Sprintf("an average miss of %.0f%%", v)
+	case backtest.Bias:
+		if v < 0 {
+			return fmt.Sprintf("the forecast ran %s %s per %s low on average", num(-v), unit, noun)
+		}
+		return fmt.Sprintf("the forecast ran %s %s per %s high on average", num(v), unit, noun)
+	}
+	return "lower is better"
+}
+
+// BandSentence explains the forecast band of a series with quantile levels, for a reader who
+// does not know quantiles; "" when the forecast has no band.
+func BandSentence(levels []float64, noun string) string {
+	b := bandOf(levels)
+	if b.Lo < 0 {
+		return "This forecast has no quantiles, so no band is drawn."
+	}
+	lo, hi := levels[b.Lo], levels[b.Hi]
+	s := fmt.Sprintf("The light band is the %s: %s%% of outcomes are expected inside it. Demand should fall below its lower edge (the %s%% quantile, %s) in about %s %ss out of 100 and above its upper edge (the %s%% quantile, %s) in about %s out of 100.",
+		bandLabel(levels, b.Lo, b.Hi), trimFloat(coverage(levels, b.Lo, b.Hi)),
+		trimFloat(lo*100), tables.QuantileColumn(lo), trimFloat(lo*100), noun,
+		trimFloat(hi*100), tables.QuantileColumn(hi), trimFloat((1-hi)*100))
+	if b.InnerLo >= 0 {
+		s += fmt.Sprintf(" The darker inner band is the %s.", bandLabel(levels, b.InnerLo, b.InnerHi))
+	}
+	return s
+}
+
+// num formats a quantity for a planner: no decimals above 100, one below.
+func num(v float64) string {
+	if math.Abs(v) >= 100 {
+		return fmt.Sprintf("%.0f", v)
+	}
+	return strings.TrimSuffix(strings.TrimRight(fmt.Sprintf("%.2f", v), "0"), ".")
+}
