@@ -2,7 +2,6 @@ package ingest
 
 import (
 	"fmt"
-	"math"
 	"strings"
 	"unicode/utf8"
 
@@ -77,52 +76,36 @@ func quoteList(names []string, max int) string {
 	return b.String()
 }
 
-// rowBuilder turns the text cells of one row into a Row; CSV and string-typed Parquet
-// columns share it.
+// rowBuilder turns the text cells of one CSV record into a Row.
 type rowBuilder struct {
 	m      mapping
 	layout string
-	key    strings.Builder
+	key    []byte
+	keys   map[string]string // interned keys, reset when large
 }
 
-// build reads cells through cell(i) (ok false: a null cell) and returns the Row; Problem is
-// set without a location, which the caller adds.
-func (b *rowBuilder) build(cell func(i int) (string, bool)) Row {
+// build returns the Row of rec; Problem is set without a location, which the caller adds.
+func (b *rowBuilder) build(rec []string) Row {
 	var r Row
-	r.Key, r.Problem = b.buildKey(cell)
+	r.Key, r.Problem = b.buildKey(rec)
 	if r.Problem != "" {
 		return r
 	}
-	ds, ok := cell(b.m.date)
-	if !ok {
-		r.Problem = "empty date"
-		return r
-	}
-	t, err := ParseDate(ds, b.layout)
+	t, err := ParseDate(rec[b.m.date], b.layout)
 	if err != nil {
 		r.Problem = err.Error()
 		return r
 	}
 	r.Date = t
-	vs, ok := cell(b.m.value)
-	if !ok {
-		r.Problem = "empty value"
-		return r
-	}
-	if r.Value, r.Problem = parseValue(vs); r.Problem != "" {
+	if r.Value, r.Problem = parseValue(rec[b.m.value]); r.Problem != "" {
 		r.Problem = fmt.Sprintf("column %q: %s", b.m.cols.Value, r.Problem)
 		return r
 	}
 	if len(b.m.covs) > 0 {
 		r.Covariates = make([]float64, len(b.m.covs))
 		for j, ci := range b.m.covs {
-			s, ok := cell(ci)
-			if !ok {
-				r.Covariates[j] = math.NaN()
-				continue
-			}
 			var p string
-			if r.Covariates[j], p = parseCovariate(s); p != "" {
+			if r.Covariates[j], p = parseCovariate(rec[ci]); p != "" {
 				r.Problem = fmt.Sprintf("column %q: %s", b.m.cols.Covariates[j], p)
 				return r
 			}
@@ -131,34 +114,48 @@ func (b *rowBuilder) build(cell func(i int) (string, bool)) Row {
 	return r
 }
 
-// buildKey joins the key cells; a problem is an empty or non-UTF-8 key cell.
-func (b *rowBuilder) buildKey(cell func(i int) (string, bool)) (string, string) {
-	if len(b.m.keys) == 1 {
-		s, ok := cell(b.m.keys[0])
-		return checkKeyCell(b.m.cols.Series[0], s, ok)
-	}
-	b.key.Reset()
+// buildKey joins the key cells into an interned string; a problem is an empty or non-UTF-8
+// key cell.
+func (b *rowBuilder) buildKey(rec []string) (string, string) {
+	k := b.key[:0]
 	problem := ""
 	for j, ci := range b.m.keys {
-		s, ok := cell(ci)
-		s, p := checkKeyCell(b.m.cols.Series[j], s, ok)
-		if p != "" && problem == "" {
+		if j > 0 {
+			k = append(k, KeySeparator...)
+		}
+		k = append(k, rec[ci]...)
+		if p := checkKeyCell(b.m.cols.Series[j], rec[ci]); p != "" && problem == "" {
 			problem = p
 		}
-		if j > 0 {
-			b.key.WriteString(KeySeparator)
-		}
-		b.key.WriteString(s)
 	}
-	return b.key.String(), problem
+	b.key = k
+	key := intern(&b.keys, k)
+	if problem != "" && !utf8.ValidString(key) {
+		key = strings.ToValidUTF8(key, "\uFFFD")
+	}
+	return key, problem
 }
 
-func checkKeyCell(col, s string, ok bool) (string, string) {
-	switch {
-	case !ok || s == "":
-		return s, fmt.Sprintf("column %q: empty series key", col)
-	case !utf8.ValidString(s):
-		return strings.ToValidUTF8(s, "\uFFFD"), fmt.Sprintf("column %q: series key is not valid UTF-8", col)
+// intern returns k as a string, reusing an earlier copy: rows of one series share one key.
+func intern(cache *map[string]string, k []byte) string {
+	if *cache == nil || len(*cache) >= 1<<16 {
+		*cache = make(map[string]string)
 	}
-	return s, ""
+	if s, ok := (*cache)[string(k)]; ok {
+		return s
+	}
+	s := string(k)
+	(*cache)[s] = s
+	return s
+}
+
+// checkKeyCell returns the problem with one key cell, if any.
+func checkKeyCell(col, s string) string {
+	switch {
+	case s == "":
+		return fmt.Sprintf("column %q: empty series key", col)
+	case !utf8.ValidString(s):
+		return fmt.Sprintf("column %q: series key is not valid UTF-8", col)
+	}
+	return ""
 }

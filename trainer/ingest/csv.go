@@ -66,7 +66,7 @@ func ScanCSV(ctx context.Context, r io.Reader, object string, src runconfig.Sour
 		if len(rec) != len(head) {
 			return brokenf("%s line %d: %d fields, the header has %d", object, line, len(rec), len(head))
 		}
-		row := rb.build(func(i int) (string, bool) { return rec[i], true })
+		row := rb.build(rec)
 		if row.Problem != "" {
 			row.Problem = fmt.Sprintf("%s line %d: %s", object, line, row.Problem)
 		}

@@ -113,13 +113,21 @@ func FuzzScanParquet(f *testing.F) {
 // the same calendar date.
 func FuzzParseDate(f *testing.F) {
 	for _, s := range []string{"2026-12-02", "2026-12-02T09:30:00Z", "2026-12-02 09:30", "2026-12-02T09:30:00.123456789+05:30",
-		"2026-02-30", "02/12/2026", "", " 2026-12-02 ", "2026-12-02T24:00:00", "+2026-12-02", "0000-01-01"} {
+		"2026-02-30", "02/12/2026", "", " 2026-12-02 ", "2026-12-02T24:00:00", "+2026-12-02", "0000-01-01", "2024-02-29", "2023-02-29", "2026-1-02"} {
 		f.Add(s, "")
 	}
 	f.Add("02/12/2026", "02/01/2006")
 	f.Add("Dec 2 2026", "Jan 2 2006")
 	f.Add("2026-W49", "2006-W01")
 	f.Fuzz(func(t *testing.T, s, layout string) {
+		// The YYYY-MM-DD fast path agrees with time.Parse.
+		if fast, ok := isoDay(s); ok {
+			if slow, err := time.Parse("2006-01-02", s); err != nil || !slow.Equal(fast) {
+				t.Fatalf("isoDay(%q) = %v, time.Parse gives %v, %v", s, fast, slow, err)
+			}
+		} else if slow, err := time.Parse("2006-01-02", s); err == nil && len(s) == 10 {
+			t.Fatalf("isoDay(%q) refused what time.Parse reads as %v", s, slow)
+		}
 		tm, err := ParseDate(s, layout)
 		if err != nil {
 			if err.Error() == "" {

@@ -183,7 +183,7 @@ func ScanParquet(ctx context.Context, ra io.ReaderAt, size int64, object string,
 			return brokenf("%s: row groups [%d,%d) outside the file's %d", object, from, to, len(rgs))
 		}
 	}
-	sc := parquetScan{src: src, cols: cols, keyCache: map[string]string{}}
+	sc := parquetScan{src: src, cols: cols}
 	for g := from; g < to; g++ {
 		if err := sc.group(ctx, rgs[g], g, object, wr, fn); err != nil {
 			return err
@@ -461,14 +461,7 @@ func (sc *parquetScan) key(i, nk int) (string, string) {
 		}
 	}
 	sc.keyBuf = b
-	k, ok := sc.keyCache[string(b)]
-	if !ok {
-		if len(sc.keyCache) >= 1<<16 {
-			clear(sc.keyCache)
-		}
-		k = string(b)
-		sc.keyCache[k] = k
-	}
+	k := intern(&sc.keyCache, b)
 	if problem == "" && !utf8.ValidString(k) {
 		return strings.ToValidUTF8(k, "\uFFFD"), "series key is not valid UTF-8"
 	}
