@@ -5,6 +5,7 @@ import (
 	"context"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -85,5 +86,56 @@ func TestLocalGenerateInspect(t *testing.T) {
 	}
 	if code := run(ctx, []string{"train", "--config", "/nonexistent.json"}, &out, &errb, noenv); code != exitcode.Config {
 		t.Fatalf("train without a config file: exit %d", code)
+	}
+}
+
+// TestJobSteps runs the three Job steps as the pods do: config file, termination log, and the
+// shard index from JOB_COMPLETION_INDEX.
+func TestJobSteps(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "mem://flp-job-in/", "--items", "4", "--depots", "2", "--periods", "60", "--end", "2026-11-01"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: %s", errb.String())
+	}
+	cfg := filepath.Join(dir, "config.json")
+	os.WriteFile(cfg, []byte(`{"run":"flp-job-1","scheduledTime":"2026-11-02T00:00:00Z",
+		"source":{"uri":"mem://flp-job-in/","format":"csv","frequency":"daily","nonNegative":true,"partitioning":"object",
+			"columns":{"series":["item","depot"],"date":"date","value":"units","covariates":["promo"]}},
+		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantiles":[0.1,0.9],
+		"zoo":[{"family":"Naive"},{"family":"SeasonalNaive"}],"selection":{"metric":"MASE","origins":2,"step":1},
+		"sharding":{"targetSeriesPerShard":4},"drift":{"thresholdRatio":1.3,"minEvaluatedPoints":3}}`), 0o644)
+	term := filepath.Join(dir, "term")
+	step := func(getenv func(string) string, args ...string) summary.Summary {
+		t.Helper()
+		if code := run(ctx, append(args, "--config", cfg, "--termination-log", term), &out, &errb, getenv); code != 0 {
+			t.Fatalf("%v: exit %d: %s", args, code, errb.String())
+		}
+		b, _ := os.ReadFile(term)
+		s, err := summary.Decode(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s
+	}
+	if s := step(noenv, "plan"); s.Kind != summary.KindPlan || s.Units != 2 || s.Shards != 2 || s.Series != 8 || s.Bytes == 0 {
+		t.Fatalf("plan summary %+v", s)
+	}
+	for _, idx := range []string{"0", "1"} {
+		s := step(func(k string) string {
+			if k == "JOB_COMPLETION_INDEX" {
+				return idx
+			}
+			return ""
+		}, "train")
+		if s.Kind != summary.KindTrain || strconv.Itoa(s.Shard) != idx || s.Series != 4 || s.Trained != 4 || len(s.Models) == 0 {
+			t.Fatalf("train %s summary %+v", idx, s)
+		}
+	}
+	if s := step(noenv, "publish"); s.Kind != summary.KindPublish || s.Manifest != "runs/flp-job-1/MANIFEST.json" || s.Units != 2 {
+		t.Fatalf("publish summary %+v", s)
+	}
+	if code := run(ctx, []string{"train", "--config", cfg, "--termination-log", ""}, &out, &errb, noenv); code != exitcode.Config {
+		t.Fatalf("train without a shard: exit %d", code)
 	}
 }
