@@ -57,10 +57,9 @@ func (o Options) WriteCSV(w io.Writer, d int) error {
 	return bw.Flush()
 }
 
-// parquetRow is the Parquet schema: date is a DATE, units a DOUBLE, promo an INT32. A defect
-// that needs text (a value that is not a number) is written as a null value, a defect stamp
-// as a date moved by a day is not possible in a DATE column, so Parquet output carries only
-// the duplicate and single-row defects faithfully.
+// parquetRow is the Parquet schema: date is a DATE, units an optional DOUBLE, promo an INT32.
+// Of the defects, "not-a-number" becomes a null value; "off-grid" cannot be written in a DATE
+// column, so in Parquet that series is clean; the duplicate and single-row defects are as in CSV.
 type parquetRow struct {
 	Item  string   `parquet:"item"`
 	Depot string   `parquet:"depot"`
