@@ -164,11 +164,15 @@ const (
 	WhyDrifted      = "drifted"
 )
 
-// intermittent reports whether a trained series has intermittent demand: its history's demand
-// class is intermittent or lumpy (class, "" when unknown), its chosen model is of an
-// intermittent-demand family, or selection noted an intermittent or lumpy demand class.
+// intermittent reports whether a trained series has intermittent demand. With the history's
+// demand class known (class != "") that decides: intermittent or lumpy. Without it, the chosen
+// model being of an intermittent-demand family, or selection's note of an intermittent or lumpy
+// class, stands in; it is weaker evidence, as Croston's method also wins on some smooth series.
 func intermittent(zoo []models.Spec, m modelInfo, class string) bool {
-	if class == selection.ClassIntermittent || class == selection.ClassLumpy || intermittentFamilies[familyOf(zoo, m.Model)] {
+	if class != "" {
+		return class == selection.ClassIntermittent || class == selection.ClassLumpy
+	}
+	if intermittentFamilies[familyOf(zoo, m.Model)] {
 		return true
 	}
 	return strings.Contains(m.Notes, selection.ClassIntermittent+" demand") || strings.Contains(m.Notes, selection.ClassLumpy+" demand")
