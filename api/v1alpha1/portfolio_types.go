@@ -46,7 +46,7 @@ const (
 type Weekday string
 
 // ModelFamily names a family of forecasting models in the zoo.
-// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta
 type ModelFamily string
 
 // The model families.
@@ -61,6 +61,11 @@ const (
 	FamilyCroston               ModelFamily = "Croston"
 	FamilySBA                   ModelFamily = "SBA"
 	FamilyTSB                   ModelFamily = "TSB"
+	// FamilyARIMA is seasonal ARIMA with automatic order selection (KPSS and seasonal-strength
+	// differencing, stepwise AICc search; Hyndman & Khandakar 2008).
+	FamilyARIMA ModelFamily = "ARIMA"
+	// FamilyETSARIMATheta is the equal-weight mean of the ETS, ARIMA and Theta families.
+	FamilyETSARIMATheta ModelFamily = "ETSARIMATheta"
 )
 
 // ErrorMetric is a forecast accuracy measure.
