@@ -37,6 +37,8 @@ type page struct {
 	Overview                 Overview
 	Metric                   string
 	MetricSentence           string
+	BandIntro                string
+	ModelRows                []modelRow
 	Unit, Noun               string
 	Horizon, Frequency       string
 	Quantiles                []string
@@ -47,15 +49,24 @@ type page struct {
 	Complete                 bool
 	HasManifest              bool
 	DriftThreshold           string
-	HistoryProblem           string
-	ModelsPlot, FamilyPlot   string
-	EvalPlot                 string
-	Shown                    []shownSeries
-	Rejected                 []tables.RejectedRow
-	RejectedMore             int
-	Index                    []indexRow
-	IndexMore                int
-	IndexCap                 int
+	// FewPoints is the mean number of new periods per evaluated series when it is under 8.
+	FewPoints              string
+	HistoryProblem         string
+	ModelsPlot, FamilyPlot string
+	EvalPlot               string
+	Shown                  []shownSeries
+	Rejected               []tables.RejectedRow
+	RejectedMore           int
+	Index                  []indexRow
+	IndexMore              int
+	IndexCap               int
+}
+
+// modelRow is one line of the chosen-models table.
+type modelRow struct {
+	Name, Family, Words string
+	Count               int
+	Share               string
 }
 
 // shownSeries is one series of the per-series section.
@@ -63,13 +74,16 @@ type shownSeries struct {
 	Key, Anchor, Plot, Title string
 	Why                      []string
 	Model, Params            string
+	Family, FamilyWords      string
 	Score                    float64
 	ScoreWords               string
-	Band                     string
-	Notes                    []string
-	Carried                  string
-	Eval                     *tables.EvaluationRow
-	NoHistory                bool
+	// Ratio is realized / expected error of the previous forecast ("" without evaluation).
+	Ratio     string
+	Band      string
+	Notes     []string
+	Carried   string
+	Eval      *tables.EvaluationRow
+	NoHistory bool
 }
 
 // indexRow is one line of the index of all series.
@@ -93,7 +107,8 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	unit := cfg.Source.Columns.Value
 	pg := page{
 		Run: r, Overview: overview(r), Metric: string(metric), Unit: unit, Noun: noun,
-		MetricSentence: MetricSentence(metric, unit, noun, freq.SeasonLength()),
+		MetricSentence: MetricSentence(metric, unit, freq, freq.SeasonLength()),
+		BandIntro:      BandSentence(cfg.Quantiles, noun),
 		Horizon:        plural(cfg.Horizon, noun) + " ahead",
 		Frequency:      string(freq),
 		Source:         store.Redact(cfg.Source.URI),
@@ -108,6 +123,9 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	if !cfg.ScheduledTime.IsZero() {
 		pg.Scheduled = cfg.ScheduledTime.UTC().Format("Mon 2 Jan 2006 15:04 MST")
 	}
+	if o := pg.Overview; o.Evaluated > 0 && o.EvaluatedPoints < 8*o.Evaluated {
+		pg.FewPoints = fmt.Sprintf("%.1f", float64(o.EvaluatedPoints)/float64(o.Evaluated))
+	}
 	if cfg.Drift.ThresholdRatio > 0 {
 		pg.DriftThreshold = trimFloat(cfg.Drift.ThresholdRatio)
 	}
@@ -119,6 +137,11 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		pg.HistoryProblem = historyErr.Error()
 	}
 
+	for _, c := range pg.Overview.Models {
+		f := familyOf(cfg.Zoo, c.Name)
+		pg.ModelRows = append(pg.ModelRows, modelRow{Name: c.Name, Family: f, Words: FamilyWords(f), Count: c.Count,
+			Share: fmt.Sprintf("%.0f%%", 100*float64(c.Count)/float64(pg.Overview.Trained))})
+	}
 	if len(pg.Overview.Models) > 0 {
 		p, err := countBars("Chosen model per series", "number of series", pg.Overview.Models)
 		if err != nil {
@@ -162,8 +185,13 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		m := models[pk.Key]
 		fc := r.Forecasts[pk.Key]
 		s := shownSeries{Key: pk.Key, Anchor: fmt.Sprintf("s%03d", i+1), Plot: fmt.Sprintf("series-%03d.svg", i+1), Why: pk.Why,
-			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, noun),
-			Band: BandSentence(fc.Levels, noun), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
+			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, freq, freq.SeasonLength()),
+			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
+		s.Family = familyOf(cfg.Zoo, m.Model)
+		s.FamilyWords = FamilyWords(s.Family)
+		if e := s.Eval; e != nil && e.Expected > 0 && finite(e.Realized) {
+			s.Ratio = fmt.Sprintf("%.1f", e.Realized/e.Expected)
+		}
 		if m.Notes != "" {
 			s.Notes = strings.Split(m.Notes, "; ")
 		}
@@ -178,7 +206,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		if err != nil {
 			return nil, fmt.Errorf("report: %s: %w", pk.Key, err)
 		}
-		if files, err = svgTo(files, dir, s.Plot, "Demand history and forecast of "+pk.Key, p, plotWidth, vg.Points(330)); err != nil {
+		if files, err = svgTo(files, dir, s.Plot, "Demand history and forecast of "+pk.Key, p, plotWidth, vg.Points(360)); err != nil {
 			return nil, err
 		}
 		anchors[pk.Key] = s.Anchor

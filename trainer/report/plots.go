@@ -8,6 +8,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"sort"
+	"strconv"
 	"strings"
 	"time"
 
@@ -47,6 +49,7 @@ func newPlot(title, xLabel, yLabel string) *plot.Plot {
 	for _, a := range []*plot.Axis{&p.X, &p.Y} {
 		a.Label.TextStyle.Font = font.From(sans, 11)
 		a.Tick.Label.Font = font.From(sans, 10)
+		a.Tick.Marker = numTicks{}
 	}
 	p.Legend.TextStyle.Font = font.From(sans, 10)
 	g := plotter.NewGrid()
@@ -128,6 +131,29 @@ func (dateTicks) Ticks(xmin, xmax float64) []plot.Tick {
 		ticks = append(ticks, t)
 	}
 	return ticks
+}
+
+// numTicks are plot.DefaultTicks with labels free of trailing zeros ("250", not "250.00").
+type numTicks struct{}
+
+// Ticks implements plot.Ticker.
+func (numTicks) Ticks(lo, hi float64) []plot.Tick {
+	ticks := plot.DefaultTicks{}.Ticks(lo, hi)
+	for i, t := range ticks {
+		if t.Label != "" {
+			ticks[i].Label = tickLabel(t.Value)
+		}
+	}
+	return ticks
+}
+
+// tickLabel formats a tick value: whole numbers without decimals, others with up to four
+// significant digits.
+func tickLabel(v float64) string {
+	if math.Abs(v) >= 1000 || v == math.Trunc(v) {
+		return strconv.FormatFloat(v, 'f', 0, 64)
+	}
+	return strconv.FormatFloat(v, 'g', 4, 64)
 }
 
 // Band is the forecast interval drawn around the mean: the outermost quantile levels and, when
@@ -261,8 +287,8 @@ func seriesPlot(title, yLabel string, hist *series.Series, fc Forecast, window i
 	if ymax <= 0 {
 		ymax = 1
 	}
-	// Headroom for the legend in the top-left corner.
-	p.Y.Max = ymax * 1.35
+	// Headroom for the legend in the top-left corner: the data use the lower two thirds.
+	p.Y.Max = ymax * 1.5
 	if !origin.IsZero() {
 		l, err := plotter.NewLine(plotter.XYs{{X: unix(origin), Y: 0}, {X: unix(origin), Y: p.Y.Max}})
 		if err != nil {
@@ -283,7 +309,7 @@ func countBars(title, xLabel string, counts []Count) (*plot.Plot, error) {
 	for i, c := range counts {
 		// NominalY puts the first name at the bottom: reverse, so the largest is on top.
 		vals[len(counts)-1-i] = float64(c.Count)
-		names[len(counts)-1-i] = c.Name
+		names[len(counts)-1-i] = fmt.Sprintf("%s (%d)", c.Name, c.Count)
 	}
 	if err := addBars(p, vals, names); err != nil {
 		return nil, err
@@ -316,8 +342,11 @@ func familyBars(metric backtest.Metric, fams []FamilyScore) (*plot.Plot, error) 
 		vals = append(vals, fams[i].Median)
 		names = append(names, fmt.Sprintf("%s (%d)", fams[i].Family, fams[i].Scored))
 	}
-	p := newPlot("Backtest "+string(metric)+" by chosen model family (median; lower is better)",
-		"median backtest "+string(metric)+" of the family's series", "")
+	xLabel := "median backtest " + string(metric) + " of the family's series"
+	if metric.Scaled() {
+		xLabel += " (dashed line: 1.0)"
+	}
+	p := newPlot("Backtest "+string(metric)+" by chosen model family (median, lower is better)", xLabel, "")
 	if len(vals) == 0 {
 		return p, nil
 	}
@@ -332,11 +361,12 @@ func familyBars(metric backtest.Metric, fams []FamilyScore) (*plot.Plot, error) 
 		}
 		l.Color, l.Dashes = colOrigin, []vg.Length{vg.Points(4), vg.Points(3)}
 		p.Add(l)
-		p.Legend.Add("1.0 = as good as the seasonal naive benchmark", l)
-		p.Legend.Top = true
 	}
 	return p, nil
 }
+
+// finite reports whether v is a number other than ±Inf.
+func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 // evaluationPlot draws each evaluated series' realized error against the error the previous
 // run expected, with the line where they are equal and the drift threshold.
@@ -344,23 +374,30 @@ func evaluationPlot(metric string, rows []tables.EvaluationRow, threshold float6
 	p := newPlot("Previous forecast: expected vs realized "+metric+" per series",
 		"expected "+metric+" (from the backtest)", "realized "+metric+" (on the new actuals)")
 	var ok, drifted plotter.XYs
-	top := 0.0
+	var vals []float64
 	for _, e := range rows {
-		if math.IsNaN(e.Expected) || math.IsNaN(e.Realized) || math.IsInf(e.Realized, 0) {
+		if finite(e.Expected) && finite(e.Realized) {
+			vals = append(vals, e.Expected, e.Realized)
+		}
+	}
+	// The frame ends a quarter above the 95th percentile of all values, so a few extreme
+	// series do not squash the rest; points beyond it are drawn on its edge.
+	top := 1.0
+	if len(vals) > 0 {
+		sort.Float64s(vals)
+		top = math.Max(vals[(len(vals)-1)*95/100]*1.25, 1e-9)
+	}
+	for _, e := range rows {
+		if !finite(e.Expected) || !finite(e.Realized) {
 			continue
 		}
-		xy := plotter.XY{X: e.Expected, Y: e.Realized}
-		top = math.Max(top, math.Max(e.Expected, e.Realized))
+		xy := plotter.XY{X: math.Min(e.Expected, top), Y: math.Min(e.Realized, top)}
 		if e.Drifted {
 			drifted = append(drifted, xy)
 		} else {
 			ok = append(ok, xy)
 		}
 	}
-	if top == 0 {
-		top = 1
-	}
-	top *= 1.05
 	same, err := plotter.NewLine(plotter.XYs{{X: 0, Y: 0}, {X: top, Y: top}})
 	if err != nil {
 		return nil, err
@@ -396,7 +433,9 @@ func evaluationPlot(metric string, rows []tables.EvaluationRow, threshold float6
 		p.Add(s)
 		p.Legend.Add(set.label, s)
 	}
-	p.Legend.Top, p.Legend.Left = true, true
+	// Bottom right: a series that expected a large error and realized a small one is rare.
+	p.Legend.Top, p.Legend.Left = false, false
+	p.Legend.YOffs = vg.Points(8)
 	p.X.Min, p.Y.Min, p.X.Max, p.Y.Max = 0, 0, top, top
 	return p, nil
 }

@@ -485,9 +485,9 @@ func TestReportOfPublishedRun(t *testing.T) {
 	for _, s := range []string{
 		"This forecast was carried forward from run " + prevRun,
 		"1 series drifted: their error on the new actuals was more than 1.5 times",
-		"misses about 26% smaller than the naive benchmark", // oat-flakes-1kg/harrow, MASE 0.74
+		"misses about 26% smaller than the history's typical change from the same week a year earlier", // oat-flakes-1kg/harrow, MASE 0.74
 		"no backtest score", // earl-grey-tea-250g/kelso, NaN
-		"seasonal naive forecast that repeats the value of one season (52 weeks) earlier",
+		"ETS (exponential smoothing: level, trend and season", "(2.6× expected): drifted", "Fitted parameters (for analysts): ETS alpha=0.3",
 	} {
 		if !strings.Contains(page, s) {
 			t.Errorf("page lacks %q", s)

@@ -6,6 +6,8 @@ import (
 	"strings"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/tables"
 )
@@ -55,28 +57,37 @@ func historyWindow(f series.Frequency, horizon int) int {
 	return max(w, 4*horizon)
 }
 
-// benchmark names the naive forecast the scaled metrics divide by, for season length m.
-func benchmark(m int, noun string) string {
+// yardstick names what the scaled metrics divide by, for season length m of frequency f: the
+// history's in-sample mean absolute change from one season (or, for m = 1, one period)
+// earlier, the seasonal-naive scale of Hyndman & Koehler (2006), section 4.
+func yardstick(f series.Frequency, m int) string {
+	noun := periodNoun(f)
 	if m <= 1 {
-		return "the naive forecast that repeats the previous " + noun + "'s value"
+		return "the history's typical change from one " + noun + " to the next"
 	}
-	return fmt.Sprintf("the seasonal naive forecast that repeats the value of one season (%s) earlier", plural(m, noun))
+	season := map[series.Frequency]string{series.Hourly: "a day", series.Daily: "a week", series.Weekly: "a year",
+		series.Monthly: "a year", series.Quarterly: "a year"}[f]
+	if f.SeasonLength() != m || season == "" {
+		season = "one season (" + plural(m, noun) + ")"
+	}
+	return fmt.Sprintf("the history's typical change from the same %s %s earlier", noun, season)
 }
 
 // MetricSentence explains a backtest metric in one plain sentence for a planner. unit is the
-// value column's name ("units"), noun the period noun ("week"), m the season length. The
+// value column's name ("units"), f the frequency, m the season length. The
 // definitions follow Hyndman & Koehler (2006), "Another look at measures of forecast
 // accuracy", IJF 22 (MASE: section 4; MAE, RMSE, MAPE: section 3), the M4 Competitor's Guide
 // (sMAPE), the M5 Competitor's Guide (RMSSE) and Kolassa & Schütz (2007) (WAPE), as
 // trainer/backtest implements them; Bias is forecast minus actual (common practice).
-func MetricSentence(metric backtest.Metric, unit, noun string, m int) string {
+func MetricSentence(metric backtest.Metric, unit string, f series.Frequency, m int) string {
+	noun := periodNoun(f)
 	switch metric {
 	case backtest.MASE:
-		return fmt.Sprintf("MASE compares the forecast's average miss in the backtest with the average miss, over the history, of %s: "+
-			"1.0 is as good as that benchmark, below 1 is better (0.8 means misses about 20%% smaller) and above 1 is worse.", benchmark(m, noun))
+		return fmt.Sprintf("MASE compares the forecast's average miss in the backtest with %s (the error of simply repeating last season): "+
+			"0.8 means misses about 20%% smaller than that, 1.0 as large, and above 1 larger, which happens on erratic series even with the best model.", yardstick(f, m))
 	case backtest.RMSSE:
-		return fmt.Sprintf("RMSSE compares the forecast's typical miss in the backtest (large misses weigh more) with that of %s over the history: "+
-			"below 1 is better than that benchmark, above 1 worse.", benchmark(m, noun))
+		return fmt.Sprintf("RMSSE compares the forecast's typical miss in the backtest (large misses weigh more) with %s: "+
+			"below 1 the misses are smaller than that, above 1 larger.", yardstick(f, m))
 	case backtest.MAE:
 		return fmt.Sprintf("MAE is the average size of a miss in the backtest, in %s per %s.", unit, noun)
 	case backtest.RMSE:
@@ -95,7 +106,8 @@ func MetricSentence(metric backtest.Metric, unit, noun string, m int) string {
 
 // ScoreWords says what one series' backtest score means ("about 26% smaller misses than the
 // benchmark"). A NaN score means no backtest was possible.
-func ScoreWords(metric backtest.Metric, v float64, unit, noun string) string {
+func ScoreWords(metric backtest.Metric, v float64, unit string, f series.Frequency, m int) string {
+	noun := periodNoun(f)
 	if math.IsNaN(v) || math.IsInf(v, 0) {
 		return "no backtest score: the history was too short (or constant) to test the models on, so a simple fallback model was used"
 	}
@@ -104,11 +116,11 @@ func ScoreWords(metric backtest.Metric, v float64, unit, noun string) string {
 		d := math.Round(math.Abs(1-v) * 100)
 		switch {
 		case d < 3:
-			return "about as good as the naive benchmark"
+			return "misses about as large as " + yardstick(f, m)
 		case v < 1:
-			return fmt.Sprintf("misses about %.0f%% smaller than the naive benchmark", d)
+			return fmt.Sprintf("misses about %.0f%% smaller than %s", d, yardstick(f, m))
 		default:
-			return fmt.Sprintf("misses about %.0f%% larger than the naive benchmark", d)
+			return fmt.Sprintf("misses about %.0f%% larger than %s", d, yardstick(f, m))
 		}
 	case backtest.MAE, backtest.RMSE:
 		return fmt.Sprintf("a typical miss of %s %s per %s", num(v), unit, noun)
@@ -141,6 +153,20 @@ func BandSentence(levels []float64, noun string) string {
 	return s
 }
 
+// BandShort names the bands of one series' plot in a line: "Light band: 80% band (q10–q90),
+// 80% of outcomes expected inside it. Darker band: 50% band (q25–q75)."
+func BandShort(levels []float64) string {
+	b := bandOf(levels)
+	if b.Lo < 0 {
+		return "No band: this forecast has no quantiles."
+	}
+	s := fmt.Sprintf("Light band: %s, %s%% of outcomes expected inside it.", bandLabel(levels, b.Lo, b.Hi), trimFloat(coverage(levels, b.Lo, b.Hi)))
+	if b.InnerLo >= 0 {
+		s += fmt.Sprintf(" Darker band: %s, %s%% of outcomes expected inside it.", bandLabel(levels, b.InnerLo, b.InnerHi), trimFloat(coverage(levels, b.InnerLo, b.InnerHi)))
+	}
+	return s
+}
+
 // num formats a quantity for a planner: no decimals above 100, one below.
 func num(v float64) string {
 	if math.Abs(v) >= 100 {
@@ -148,3 +174,25 @@ func num(v float64) string {
 	}
 	return strings.TrimSuffix(strings.TrimRight(fmt.Sprintf("%.2f", v), "0"), ".")
 }
+
+// familyWords describes each model family in a planner's words (common practice: the
+// methods as Hyndman & Athanasopoulos, Forecasting: Principles and Practice, 3rd ed., describe
+// them, chapters 5, 8 and 9; Croston 1972, Syntetos & Boylan 2005 and Teunter, Syntetos &
+// Babai 2011 for the intermittent-demand methods).
+var familyWords = map[string]string{
+	models.FamilyMean:                  "the average of the whole history",
+	models.FamilyNaive:                 "repeats the last actual",
+	models.FamilySeasonalNaive:         "repeats the actual of one season earlier",
+	models.FamilyDrift:                 "extends the straight line from the first to the last actual",
+	models.FamilySeasonalAdjustedNaive: "repeats the last actual with the seasonal pattern put back",
+	models.FamilyETS:                   "exponential smoothing: level, trend and season, weighted towards recent periods",
+	models.FamilyTheta:                 "the Theta method: a smoothed level with a damped long-run trend",
+	models.FamilyCroston:               "for intermittent demand: forecasts demand size and the interval between demands separately",
+	models.FamilySBA:                   "Croston's method with the Syntetos–Boylan bias correction, for intermittent demand",
+	models.FamilyTSB:                   "for intermittent demand: tracks the chance of a demand, so the forecast can fade for dying items",
+	"ARIMA":                            "ARIMA: a model of how each period depends on the ones before",
+	selection.FamilyCombination:        "the average of the best few models' forecasts",
+}
+
+// FamilyWords describes a model family for a planner ("" when unknown).
+func FamilyWords(family string) string { return familyWords[family] }
