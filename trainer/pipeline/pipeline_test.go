@@ -8,6 +8,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"reflect"
 	"sort"
 	"strings"
 	"testing"
@@ -360,8 +361,23 @@ func TestUnknownModelIsConfigError(t *testing.T) {
 //	  realized B: errors 2,4,6 -> MAE 4 / scale 14 = 2/7 -> ratio 1: not drifted
 //	sums: evaluated 2, points 6, expected 4/7, realized 9/7, drifted 1
 func TestSecondRunEvaluatesFirst(t *testing.T) {
+	cases := map[string]struct {
+		name          string
+		first, second int
+	}{
+		"buckets chosen and kept": {"kept", 0, 0},
+		// A bucket-count change maps the buckets (previousUnits), so the sums are the same.
+		"buckets 4 then 16": {"grow", 4, 16},
+		"buckets 16 then 2": {"shrink", 16, 2},
+	}
+	for name, tc := range cases {
+		t.Run(name, func(t *testing.T) { secondRunEvaluatesFirst(t, tc.name, tc.first, tc.second) })
+	}
+}
+
+func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int) {
 	ctx := context.Background()
-	in := mustOpen(t, "mem://flp-eval-in/")
+	in := mustOpen(t, "mem://flp-eval-in-"+name+"/")
 	write := func(extra bool) {
 		var b strings.Builder
 		b.WriteString("item,depot,date,units,promo\n")
@@ -384,19 +400,20 @@ func TestSecondRunEvaluatesFirst(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	cfg := func(run string) *runconfig.Config {
-		c := testConfig(run, "mem://flp-eval-in/history.csv", "mem://flp-eval-out/")
+	cfg := func(run string, buckets int) *runconfig.Config {
+		c := testConfig(run, "mem://flp-eval-in-"+name+"/history.csv", "mem://flp-eval-out-"+name+"/")
 		c.Horizon = 3
 		c.Zoo = []models.Spec{{Family: models.FamilyNaive}}
 		c.Selection.Origins = 1
+		c.Sharding.Buckets = buckets
 		return c
 	}
 	write(false)
-	if _, err := RunLocal(ctx, cfg("flp-0001"), testEnv()); err != nil {
+	if _, err := RunLocal(ctx, cfg("flp-0001", buckets1), testEnv()); err != nil {
 		t.Fatal(err)
 	}
 	write(true)
-	s, err := RunLocal(ctx, cfg("flp-0002"), testEnv())
+	s, err := RunLocal(ctx, cfg("flp-0002", buckets2), testEnv())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -405,7 +422,7 @@ func TestSecondRunEvaluatesFirst(t *testing.T) {
 		math.Abs(a.ExpectedSum-4.0/7) > 1e-12 || math.Abs(a.RealizedSum-9.0/7) > 1e-12 {
 		t.Fatalf("accuracy = %+v, want evaluated 2, points 6, expected 4/7, realized 9/7, drifted 1", a)
 	}
-	out := mustOpen(t, "mem://flp-eval-out/")
+	out := mustOpen(t, "mem://flp-eval-out-"+name+"/")
 	m := checkPublished(t, out, "flp-0002")
 	var rows []tables.EvaluationRow
 	for _, e := range m.Units { // A and B may sit in different buckets
@@ -539,5 +556,36 @@ func TestTamperedUnitIsNotTrusted(t *testing.T) {
 	e, _ := m.unit(unit)
 	if s.CarriedForward != 1 || e.State != StateCarried || e.Source != "flp-0001" || !strings.Contains(e.Reason, "does not match its checksum") {
 		t.Fatalf("summary %+v entry %+v", s, e)
+	}
+}
+
+func TestPreviousUnitsAcrossBucketCounts(t *testing.T) {
+	prev := &Manifest{Partitioning: runconfig.PartitionNone, Buckets: 4}
+	for b := 0; b < 4; b++ {
+		prev.Units = append(prev.Units, ManifestUnit{ID: BucketID(b, 4)})
+	}
+	ids := func(es []ManifestUnit) []string {
+		var out []string
+		for _, e := range es {
+			out = append(out, e.ID)
+		}
+		return out
+	}
+	// Growing 4 -> 16: bucket 13 of 16 holds keys with hash = 13 (mod 16), so hash = 1 (mod 4).
+	if got := ids(previousUnits(prev, Unit{ID: BucketID(13, 16), Bucket: 13}, 16)); !reflect.DeepEqual(got, []string{"b00001-of-00004"}) {
+		t.Errorf("4 -> 16: %v", got)
+	}
+	// Shrinking 4 -> 2: bucket 1 of 2 gathers buckets 1 and 3 of 4.
+	if got := ids(previousUnits(prev, Unit{ID: BucketID(1, 2), Bucket: 1}, 2)); !reflect.DeepEqual(got, []string{"b00001-of-00004", "b00003-of-00004"}) {
+		t.Errorf("4 -> 2: %v", got)
+	}
+	// The bucket arithmetic agrees with BucketOf for real keys.
+	for _, k := range []string{"FLP-OATS-00001/ashby", "FLP-SP-00042/brill", "FLP-TEA-00007/corrie"} {
+		if BucketOf(k, 16)%4 != BucketOf(k, 4) {
+			t.Errorf("%s: bucket of 16 mod 4 != bucket of 4", k)
+		}
+	}
+	if got := previousUnits(prev, Unit{ID: ObjectID("a.csv", nil), Object: "a.csv"}, 0); got != nil {
+		t.Errorf("object unit matched buckets: %v", ids(got))
 	}
 }

@@ -88,6 +88,7 @@ func driftMetric(cfg *runconfig.Config, sc selection.Config) backtest.Metric {
 // loaded is one unit's input after collection.
 type loaded struct {
 	unit     Unit
+	buckets  int // the plan's bucket count
 	series   []series.Series
 	rejected []ingest.Rejected
 	err      error
@@ -194,7 +195,7 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		if err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrConfig, err)
 		}
-		l := &loaded{unit: u}
+		l := &loaded{unit: u, buckets: p.Buckets}
 		units = append(units, l)
 		collectors[id] = c
 		if u.Object == "" {
@@ -345,9 +346,10 @@ func paramsText(r selection.Result) string {
 	return strings.TrimSpace(strings.Join(parts, " "))
 }
 
-// evaluateUnit evaluates the previous run's forecast of the unit's series (the previous
-// manifest's entry for the same unit id, which may itself be carried forward from an older
-// run). A unit the previous run did not have is not evaluated.
+// evaluateUnit evaluates the previous run's forecast of the unit's series, read from the
+// previous manifest's entries for the unit (previousUnits; an entry may itself be carried
+// forward from an older run). A unit the previous run did not have is not evaluated, nor are
+// units whose previous files were pruned.
 func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest, u *loaded) (
 	[]tables.EvaluationRow, summary.Accuracy, string, error) {
 	metric := driftMetric(cfg, sc)
@@ -355,34 +357,41 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 	if prev == nil {
 		return nil, acc, "", nil
 	}
-	entry, ok := prev.unit(u.unit.ID)
-	ff, okf := entry.file(TableForecasts)
-	mf, okm := entry.file(TableModels)
-	if !ok || !okf || !okm {
-		return nil, acc, prev.Run, nil
-	}
-	format := strings.TrimPrefix(ff.Key[strings.LastIndex(ff.Key, "."):], ".")
-	var fcs []tables.ForecastRow
-	var mrs []tables.ModelRow
-	err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format); return })
-	if err == nil {
-		err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format); return })
-	}
-	if errors.Is(err, store.ErrNotFound) {
-		// The previous run's files were pruned: nothing to evaluate, which is not a failure.
-		return nil, acc, prev.Run, nil
-	}
-	if err != nil {
-		return nil, acc, "", err
+	ours := make(map[string]bool, len(u.series))
+	for _, s := range u.series {
+		ours[s.Key] = true
 	}
 	bySeries := map[string][]tables.ForecastRow{}
-	for _, r := range fcs {
-		bySeries[r.Series] = append(bySeries[r.Series], r)
-	}
 	expected := map[string]float64{}
-	for _, m := range mrs {
-		if m.Metric == string(metric) {
-			expected[m.Series] = m.Score
+	source := map[string]string{}
+	for _, entry := range previousUnits(prev, u.unit, u.buckets) {
+		ff, okf := entry.file(TableForecasts)
+		mf, okm := entry.file(TableModels)
+		if !okf || !okm {
+			continue
+		}
+		format := strings.TrimPrefix(ff.Key[strings.LastIndex(ff.Key, "."):], ".")
+		var fcs []tables.ForecastRow
+		var mrs []tables.ModelRow
+		err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format); return })
+		if err == nil {
+			err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format); return })
+		}
+		if errors.Is(err, store.ErrNotFound) {
+			continue // pruned: nothing to evaluate, which is not a failure
+		}
+		if err != nil {
+			return nil, acc, "", err
+		}
+		for _, r := range fcs {
+			if ours[r.Series] {
+				bySeries[r.Series] = append(bySeries[r.Series], r)
+			}
+		}
+		for _, m := range mrs {
+			if ours[m.Series] && m.Metric == string(metric) {
+				expected[m.Series], source[m.Series] = m.Score, entry.Source
+			}
 		}
 	}
 	var rows []tables.EvaluationRow
@@ -395,11 +404,39 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 		if !ok {
 			continue
 		}
-		row.PreviousRun = entry.Source
+		row.PreviousRun = source[s.Key]
 		rows = append(rows, row)
 		accumulate(&acc, row)
 	}
 	return rows, acc, prev.Run, nil
+}
+
+// previousUnits returns the previous manifest's entries that hold the previous forecasts of
+// unit u's series: the entry with the same id; or, for a hash bucket b of a new power-of-two
+// count n when the previous run used count p, bucket b mod p when p <= n (one entry), or the
+// buckets b, b+n, b+2n, ... below p when p > n (a key's hash modulo the smaller count is the
+// bucket modulo that count, both being powers of two).
+func previousUnits(prev *Manifest, u Unit, buckets int) []ManifestUnit {
+	if e, ok := prev.unit(u.ID); ok {
+		return []ManifestUnit{e}
+	}
+	if u.Object != "" || buckets == 0 || prev.Partitioning != runconfig.PartitionNone || prev.Buckets == 0 {
+		return nil
+	}
+	var out []ManifestUnit
+	add := func(b int) {
+		if e, ok := prev.unit(BucketID(b, prev.Buckets)); ok {
+			out = append(out, e)
+		}
+	}
+	if prev.Buckets <= buckets {
+		add(u.Bucket % prev.Buckets)
+	} else {
+		for b := u.Bucket; b < prev.Buckets; b += buckets {
+			add(b)
+		}
+	}
+	return out
 }
 
 // readTable reads a listed file, checks its checksum and decodes it.
