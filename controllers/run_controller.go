@@ -389,6 +389,16 @@ func (r *RunReconciler) publish(ctx context.Context, run *forecastingv1alpha1.Fo
 	if c := w.status.Series.CarriedForward; c > 0 {
 		note += fmt.Sprintf("; %d units carried forward", c)
 	}
+	if ok && serr == nil && s.Missing > 0 {
+		// Units with neither a new nor a previous forecast: the manifest marks the run
+		// incomplete, and so does the Degraded condition.
+		msg := fmt.Sprintf("%d units have no forecast: their shards failed and no earlier run published them", s.Missing)
+		if c := meta.FindStatusCondition(w.status.Conditions, forecastingv1alpha1.RunDegraded); c != nil && c.Status == metav1.ConditionTrue {
+			msg = c.Message + "; " + msg
+		}
+		setCondition(run, &w.status.Conditions, forecastingv1alpha1.RunDegraded, metav1.ConditionTrue, forecastingv1alpha1.ReasonShardsFailed, msg, r.Clock.Now())
+		note += fmt.Sprintf("; %d units without a forecast", s.Missing)
+	}
 	r.finish(run, w, true, forecastingv1alpha1.ReasonPublished, note)
 	return nil
 }
