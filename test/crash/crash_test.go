@@ -222,6 +222,16 @@ func TestKillAndRerun(t *testing.T) {
 	if run := checkLatest(t, crash, "final"); run != "flp-r2" {
 		t.Fatalf("latest -> %s, want flp-r2", run)
 	}
+	// Run 2 saw 10 new days, so it evaluated run 1's Parquet forecasts.
+	var m pipeline.Manifest
+	st, _ := store.Open(context.Background(), crash)
+	defer st.Close()
+	if err := st.GetJSON(context.Background(), "runs/flp-r2/MANIFEST.json", &m); err != nil {
+		t.Fatal(err)
+	}
+	if a := m.Totals.Accuracy; a == nil || a.Evaluated < 500 || a.EvaluatedPoints != 10*a.Evaluated {
+		t.Fatalf("run 2 accuracy %+v, want about 600 series evaluated on 10 points each", a)
+	}
 	want, got := files(t, filepath.Join(dir, "ref")), files(t, filepath.Join(dir, "crash"))
 	for k, v := range want {
 		if !bytes.Equal(v, got[k]) {
