@@ -196,17 +196,10 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 		v   float64
 	}
 	var vols []vol
-	for k, fc := range r.Forecasts {
-		if _, ok := info[k]; !ok {
-			continue
+	for k, v := range r.Volume {
+		if _, ok := info[k]; ok {
+			vols = append(vols, vol{k, v})
 		}
-		s := 0.0
-		for _, row := range fc.Rows {
-			if !math.IsNaN(row.Mean) {
-				s += row.Mean
-			}
-		}
-		vols = append(vols, vol{k, s})
 	}
 	sort.Slice(vols, func(i, j int) bool {
 		if vols[i].v != vols[j].v {

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"net/url"
 	"path"
 	"slices"
@@ -38,13 +39,20 @@ type Forecast struct {
 	Rows   []tables.ForecastRow
 }
 
-// Run is a published run as the report reads it: the per-unit tables of every unit, the run's
-// configuration and, when present, its manifest.
+// Run is a published run as the report reads it: the run's configuration, its manifest when
+// present, and the per-unit tables of every unit. Forecast rows are kept only for the series
+// LoadForecasts asks for; for the others, LoadRun keeps their volume and origin, so memory
+// does not grow with horizon times quantiles times series.
 type Run struct {
 	Name   string
 	Config *runconfig.Config
 	// Manifest is nil when the run has no MANIFEST.json (tables listed from the unit folders).
-	Manifest   *pipeline.Manifest
+	Manifest *pipeline.Manifest
+	// Volume is each series' forecast volume: the sum of its mean over the horizon.
+	Volume map[string]float64
+	// Origin is each series' first forecast period.
+	Origin map[string]time.Time
+	// Forecasts holds the series loaded by LoadForecasts.
 	Forecasts  map[string]Forecast
 	Models     []tables.ModelRow
 	Evaluation []tables.EvaluationRow
@@ -53,6 +61,7 @@ type Run struct {
 	Carried map[string]string
 	// Missing lists the units the manifest has no files for, with the reason.
 	Missing []string
+	units   []unitFiles
 }
 
 // unitFiles is one unit's table files: table name -> key and expected SHA-256 ("" unknown).
@@ -84,18 +93,15 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 	if err != nil {
 		return nil, err
 	}
-	r := &Run{Name: run, Config: cfg, Forecasts: map[string]Forecast{}, Carried: map[string]string{}}
-	units, err := r.listUnits(ctx, st)
-	if err != nil {
+	r := &Run{Name: run, Config: cfg, Volume: map[string]float64{}, Origin: map[string]time.Time{},
+		Forecasts: map[string]Forecast{}, Carried: map[string]string{}}
+	if r.units, err = r.listUnits(ctx, st); err != nil {
 		return nil, err
 	}
-	for _, u := range units {
+	for _, u := range r.units {
 		if err := r.readUnit(ctx, st, u); err != nil {
 			return nil, err
 		}
-	}
-	for _, fc := range r.Forecasts {
-		sort.Slice(fc.Rows, func(i, j int) bool { return fc.Rows[i].Step < fc.Rows[j].Step })
 	}
 	sort.Slice(r.Models, func(i, j int) bool { return r.Models[i].Series < r.Models[j].Series })
 	sort.Slice(r.Rejected, func(i, j int) bool { return r.Rejected[i].Series < r.Rejected[j].Series })
@@ -168,34 +174,39 @@ func (r *Run) listUnits(ctx context.Context, st *store.Store) ([]unitFiles, erro
 	return out, nil
 }
 
-// readUnit reads a unit's tables into r. A table the unit does not have is skipped; a file
-// whose checksum differs from the manifest's is an error.
-func (r *Run) readUnit(ctx context.Context, st *store.Store, u unitFiles) error {
-	read := func(table string, decode func(io.Reader, string) error) error {
-		f, ok := u.files[table]
-		if !ok {
-			return nil
-		}
-		b, err := st.Get(ctx, f.Key)
-		if err != nil {
-			return fmt.Errorf("unit %s: %w", u.id, err)
-		}
-		if f.SHA256 != "" && store.SHA256(b) != f.SHA256 {
-			return fmt.Errorf("unit %s: %s: checksum differs from the manifest: %w", u.id, st.Describe(f.Key), errTable)
-		}
-		format := strings.TrimPrefix(path.Ext(f.Key), ".")
-		if err := decode(bytes.NewReader(b), format); err != nil {
-			return fmt.Errorf("unit %s: %s: %w: %w", u.id, st.Describe(f.Key), errTable, err)
-		}
+// read reads one of the unit's tables with decode; a table the unit does not have is skipped,
+// a file whose checksum differs from the manifest's is an error.
+func (u unitFiles) read(ctx context.Context, st *store.Store, table string, decode func(io.Reader, string) error) error {
+	f, ok := u.files[table]
+	if !ok {
 		return nil
 	}
-	err := read(pipeline.TableForecasts, func(rd io.Reader, format string) error {
-		h, rows, err := tables.ReadForecasts(rd, format)
+	b, err := st.Get(ctx, f.Key)
+	if err != nil {
+		return fmt.Errorf("unit %s: %w", u.id, err)
+	}
+	if f.SHA256 != "" && store.SHA256(b) != f.SHA256 {
+		return fmt.Errorf("unit %s: %s: checksum differs from the manifest: %w", u.id, st.Describe(f.Key), errTable)
+	}
+	format := strings.TrimPrefix(path.Ext(f.Key), ".")
+	if err := decode(bytes.NewReader(b), format); err != nil {
+		return fmt.Errorf("unit %s: %s: %w: %w", u.id, st.Describe(f.Key), errTable, err)
+	}
+	return nil
+}
+
+// readUnit reads a unit's tables into r (of the forecasts, only volume, origin and whether the
+// unit was carried forward).
+func (r *Run) readUnit(ctx context.Context, st *store.Store, u unitFiles) error {
+	err := u.read(ctx, st, pipeline.TableForecasts, func(rd io.Reader, format string) error {
+		_, rows, err := tables.ReadForecasts(rd, format)
 		for _, row := range rows {
-			fc := r.Forecasts[row.Series]
-			fc.Levels = h.Quantiles
-			fc.Rows = append(fc.Rows, row)
-			r.Forecasts[row.Series] = fc
+			if !math.IsNaN(row.Mean) {
+				r.Volume[row.Series] += row.Mean
+			}
+			if o, ok := r.Origin[row.Series]; !ok || row.Period.Before(o) {
+				r.Origin[row.Series] = row.Period
+			}
 			if u.source != "" {
 				r.Carried[row.Series] = u.source
 			}
@@ -203,27 +214,52 @@ func (r *Run) readUnit(ctx context.Context, st *store.Store, u unitFiles) error 
 		return err
 	})
 	if err == nil {
-		err = read(pipeline.TableModels, func(rd io.Reader, format string) error {
+		err = u.read(ctx, st, pipeline.TableModels, func(rd io.Reader, format string) error {
 			rows, err := tables.ReadModels(rd, format)
 			r.Models = append(r.Models, rows...)
 			return err
 		})
 	}
 	if err == nil {
-		err = read(pipeline.TableEvaluation, func(rd io.Reader, format string) error {
+		err = u.read(ctx, st, pipeline.TableEvaluation, func(rd io.Reader, format string) error {
 			rows, err := tables.ReadEvaluation(rd, format)
 			r.Evaluation = append(r.Evaluation, rows...)
 			return err
 		})
 	}
 	if err == nil {
-		err = read(pipeline.TableRejected, func(rd io.Reader, format string) error {
+		err = u.read(ctx, st, pipeline.TableRejected, func(rd io.Reader, format string) error {
 			rows, err := tables.ReadRejected(rd, format)
 			r.Rejected = append(r.Rejected, rows...)
 			return err
 		})
 	}
 	return err
+}
+
+// LoadForecasts reads the forecast rows of the series in keys into r.Forecasts, in step order.
+func (r *Run) LoadForecasts(ctx context.Context, st *store.Store, keys map[string]bool) error {
+	for _, u := range r.units {
+		err := u.read(ctx, st, pipeline.TableForecasts, func(rd io.Reader, format string) error {
+			h, rows, err := tables.ReadForecasts(rd, format)
+			for _, row := range rows {
+				if keys[row.Series] {
+					fc := r.Forecasts[row.Series]
+					fc.Levels = h.Quantiles
+					fc.Rows = append(fc.Rows, row)
+					r.Forecasts[row.Series] = fc
+				}
+			}
+			return err
+		})
+		if err != nil {
+			return err
+		}
+	}
+	for _, fc := range r.Forecasts {
+		sort.Slice(fc.Rows, func(i, j int) bool { return fc.Rows[i].Step < fc.Rows[j].Step })
+	}
+	return nil
 }
 
 // LoadHistory reads the run's input and returns the series named in keys, each cut to the

@@ -44,8 +44,10 @@ type Result struct {
 }
 
 // Write reads the run from the output URI outputURI and writes index.html and its plots into
-// dir (created if absent). A history that cannot be read is not fatal: the page says so and
-// Result.HistoryErr carries the reason.
+// dir (created if absent). It reads the run's tables once for the counts and each series'
+// volume, the input once for every series' demand class (a few numbers per series), then the
+// forecasts tables and the input again for the series it draws only. A history that cannot be
+// read is not fatal: the page says so and Result.HistoryErr carries the reason.
 func Write(ctx context.Context, outputURI, dir string, o Options) (*Result, error) {
 	lim := DefaultLimits
 	if o.Limits != nil {
@@ -66,25 +68,19 @@ func Write(ctx context.Context, outputURI, dir string, o Options) (*Result, erro
 	res := &Result{Run: r.Name}
 	var classes map[string]string
 	if !o.NoHistory {
-		origins := make(map[string]time.Time, len(r.Forecasts))
-		for k, fc := range r.Forecasts {
-			if len(fc.Rows) > 0 {
-				origins[k] = fc.Rows[0].Period
-			}
-		}
-		if classes, err = DemandClasses(ctx, r.Config.Source, origins); err != nil {
+		if classes, err = DemandClasses(ctx, r.Config.Source, r.Origin); err != nil {
 			res.HistoryErr = fmt.Errorf("%s: %w", store.Redact(r.Config.Source.URI), err)
 		}
 	}
 	picks := choose(r, lim, classes)
 	res.Series = len(picks)
 	keys := make(map[string]time.Time, len(picks))
+	want := make(map[string]bool, len(picks))
 	for _, p := range picks {
-		var first time.Time
-		if rows := r.Forecasts[p.Key].Rows; len(rows) > 0 {
-			first = rows[0].Period
-		}
-		keys[p.Key] = first
+		keys[p.Key], want[p.Key] = r.Origin[p.Key], true
+	}
+	if err := r.LoadForecasts(ctx, st, want); err != nil {
+		return nil, err
 	}
 	var h map[string]series.Series
 	if !o.NoHistory && res.HistoryErr == nil {

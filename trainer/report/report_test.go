@@ -130,8 +130,9 @@ func putTable(t *testing.T, ctx context.Context, st *store.Store, key, table str
 	return pipeline.File{Table: table, Key: key, Bytes: int64(b.Len()), SHA256: store.SHA256(b.Bytes())}
 }
 
-// writeUnit writes a unit's four tables under run and returns their manifest entries.
-func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit string) []pipeline.File {
+// writeUnit writes a unit's four tables under run in format (rejected is always CSV) and
+// returns their manifest entries.
+func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, format string) []pipeline.File {
 	t.Helper()
 	end, _ := time.Parse(time.DateOnly, lastWeek)
 	var fc []tables.ForecastRow
@@ -169,11 +170,11 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit str
 	}
 	key := func(name string) string { return store.UnitKey(run, unit, name) }
 	return []pipeline.File{
-		putTable(t, ctx, st, key("forecasts.csv"), pipeline.TableForecasts, func(w io.Writer) error {
-			return tables.WriteForecasts(w, tables.CSV, tables.Header{Quantiles: testLevels}, fc)
+		putTable(t, ctx, st, key("forecasts."+format), pipeline.TableForecasts, func(w io.Writer) error {
+			return tables.WriteForecasts(w, format, tables.Header{Quantiles: testLevels}, fc)
 		}),
-		putTable(t, ctx, st, key("models.csv"), pipeline.TableModels, func(w io.Writer) error { return tables.WriteModels(w, tables.CSV, mr) }),
-		putTable(t, ctx, st, key("evaluation.csv"), pipeline.TableEvaluation, func(w io.Writer) error { return tables.WriteEvaluation(w, tables.CSV, ev) }),
+		putTable(t, ctx, st, key("models."+format), pipeline.TableModels, func(w io.Writer) error { return tables.WriteModels(w, format, mr) }),
+		putTable(t, ctx, st, key("evaluation."+format), pipeline.TableEvaluation, func(w io.Writer) error { return tables.WriteEvaluation(w, format, ev) }),
 		putTable(t, ctx, st, key(store.RejectedName), pipeline.TableRejected, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, rj) }),
 	}
 }
@@ -197,11 +198,12 @@ func publish(t *testing.T, manifest bool) fixture {
 	if _, err := st.PutJSON(ctx, store.RunKey(testRun, store.ConfigName), cfg); err != nil {
 		t.Fatal(err)
 	}
-	trained := writeUnit(t, ctx, st, testRun, "b-0000")
+	trained := writeUnit(t, ctx, st, testRun, "b-0000", tables.CSV)
 	if !manifest {
 		return f
 	}
-	carried := writeUnit(t, ctx, st, prevRun, "b-0001")
+	// The earlier run wrote Parquet: the report reads each file in the format its name gives.
+	carried := writeUnit(t, ctx, st, prevRun, "b-0001", tables.Parquet)
 	m := pipeline.Manifest{Version: pipeline.ManifestVersion, Run: testRun, PreviousRun: prevRun, Partitioning: "hashBuckets", Buckets: 2, Complete: true,
 		Units: []pipeline.ManifestUnit{
 			{ID: "b-0000", State: pipeline.StateTrained, Source: testRun, Files: trained},
@@ -220,6 +222,7 @@ func publish(t *testing.T, manifest bool) fixture {
 }
 
 // readModels reads every models table of the store directly, as a check independent of LoadRun.
+// (Parquet tables are read too, by the format their name ends in.)
 func readModels(t *testing.T, st *store.Store) []tables.ModelRow {
 	t.Helper()
 	ctx := context.Background()
@@ -229,14 +232,15 @@ func readModels(t *testing.T, st *store.Store) []tables.ModelRow {
 	}
 	var out []tables.ModelRow
 	for _, o := range objs {
-		if !strings.HasSuffix(o.Key, "/models.csv") {
+		format := strings.TrimPrefix(filepath.Ext(o.Key), ".")
+		if !strings.HasSuffix(o.Key, "/models."+format) {
 			continue
 		}
 		b, err := st.Get(ctx, o.Key)
 		if err != nil {
 			t.Fatal(err)
 		}
-		rows, err := tables.ReadModels(bytes.NewReader(b), tables.CSV)
+		rows, err := tables.ReadModels(bytes.NewReader(b), format)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -495,6 +499,46 @@ func TestReportOfPublishedRun(t *testing.T) {
 	}
 	if idx := tableRows(byID(t, doc, "all-series")); len(idx) != len(portfolio) {
 		t.Errorf("index has %d rows, want %d", len(idx), len(portfolio))
+	}
+}
+
+func TestLoadRunKeepsForecastRowsOnlyWhenAsked(t *testing.T) {
+	f := publish(t, true)
+	ctx := context.Background()
+	r, err := LoadRun(ctx, f.out, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(r.Forecasts) != 0 || len(r.Volume) != len(portfolio) || len(r.Origin) != len(portfolio) {
+		t.Fatalf("after LoadRun: %d forecasts kept, %d volumes, %d origins; want 0, %d, %d",
+			len(r.Forecasts), len(r.Volume), len(r.Origin), len(portfolio), len(portfolio))
+	}
+	// The fixture's volume of oat-flakes-1kg/harrow is the sum of its 8 forecast means.
+	want := 0.0
+	for k := 1; k <= horizon; k++ {
+		want += portfolio[0].demandAt(103 + k)
+	}
+	if got := r.Volume[portfolio[0].key]; math.Abs(got-want) > 1e-9 {
+		t.Errorf("volume %v, want %v", got, want)
+	}
+	if got := r.Origin[portfolio[0].key].Format(time.DateOnly); got != "2026-12-07" {
+		t.Errorf("origin %s, want the week after %s", got, lastWeek)
+	}
+	key := "conveyor-belt-clip/kelso" // in the carried-forward Parquet unit
+	if err := r.LoadForecasts(ctx, f.out, map[string]bool{key: true}); err != nil {
+		t.Fatal(err)
+	}
+	fc := r.Forecasts[key]
+	if len(r.Forecasts) != 1 || len(fc.Rows) != horizon || fmt.Sprint(fc.Levels) != fmt.Sprint(testLevels) {
+		t.Fatalf("LoadForecasts kept %d series, %d rows, levels %v", len(r.Forecasts), len(fc.Rows), fc.Levels)
+	}
+	for i, row := range fc.Rows {
+		if row.Step != i+1 {
+			t.Errorf("row %d has step %d", i, row.Step)
+		}
+	}
+	if r.Carried[key] != prevRun {
+		t.Errorf("%s carried from %q, want %s", key, r.Carried[key], prevRun)
 	}
 }
 
