@@ -208,7 +208,11 @@ func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.Fore
 			r.finish(run, w, false, forecastingv1alpha1.ReasonInvalidConfig, rerr.Error())
 			return nil
 		}
-		b, _ := json.MarshalIndent(cfg, "", "  ")
+		b, merr := json.MarshalIndent(cfg, "", "  ")
+		if merr != nil {
+			r.finish(run, w, false, forecastingv1alpha1.ReasonInvalidConfig, fmt.Sprintf("encode the run configuration: %v", merr))
+			return nil
+		}
 		if err := r.createOwned(ctx, run, buildConfigMap(run, b)); err != nil {
 			return err
 		}
