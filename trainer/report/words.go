@@ -175,10 +175,11 @@ func num(v float64) string {
 	return strings.TrimSuffix(strings.TrimRight(fmt.Sprintf("%.2f", v), "0"), ".")
 }
 
-// familyWords describes each model family in a planner's words (common practice: the
-// methods as Hyndman & Athanasopoulos, Forecasting: Principles and Practice, 3rd ed., describe
-// them, chapters 5, 8 and 9; Croston 1972, Syntetos & Boylan 2005 and Teunter, Syntetos &
-// Babai 2011 for the intermittent-demand methods).
+// familyWords describes each model family in a planner's words. Common practice; the
+// references are from memory, not checked here: Hyndman & Athanasopoulos, Forecasting:
+// Principles and Practice, 3rd ed. (simple methods, exponential smoothing, ARIMA); Assimakopoulos
+// & Nikolopoulos 2000 (Theta); Croston 1972, Syntetos & Boylan 2005 (SBA) and Teunter, Syntetos &
+// Babai 2011 (TSB) for intermittent demand. trainer/models documents what each family computes.
 var familyWords = map[string]string{
 	models.FamilyMean:                  "the average of the whole history",
 	models.FamilyNaive:                 "repeats the last actual",
