@@ -155,14 +155,14 @@ func (ft *arimaFitter) ml(resid []float64) (float64, armaFilter) {
 }
 
 // arimaBudget is the evaluation budget per free parameter for each stage of the fit.
-const arimaBudget = 150
+const arimaBudget = 100
 
 // fit estimates the current order: the conditional sum of squares from zero coefficients
 // (and the mean of w as constant) gives starting values, then the exact likelihood is maximised
 // from there (the "CSS then ML" scheme of Box, Jenkins & Reinsel 2008, chapter 7), both with
 // Nelder-Mead in the unconstrained PACF parameterisation (pacfToCoef), which keeps every
-// candidate stationary and invertible. The search restarts from its best point while that
-// still improves (common practice with Nelder-Mead).
+// candidate stationary and invertible. The search restarts once from its best point with a
+// fresh simplex (common practice with Nelder-Mead).
 func (ft *arimaFitter) fit() (*ARIMAFit, error) {
 	o := ft.o
 	nw := len(ft.w)
@@ -205,15 +205,15 @@ func (ft *arimaFitter) fit() (*ARIMAFit, error) {
 		for i := range step {
 			step[i] = 0.1
 		}
-		res := nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-10, &ft.nm)
+		res := nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
 		evals += res.Evals
 		if res.Status == nmNoFiniteSeed {
 			return nil, fmt.Errorf("models: ARIMA: %s: the likelihood is not finite at the starting values", o.String(ft.m))
 		}
-		for restart := 0; restart < 3; restart++ {
+		for restart := 0; restart < 1; restart++ {
 			copy(u, res.X)
 			f0 := res.F
-			res = nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-10, &ft.nm)
+			res = nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
 			evals += res.Evals
 			if res.F >= f0 {
 				res.X, res.F = u, f0

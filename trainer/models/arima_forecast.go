@@ -47,7 +47,10 @@ func (f *ARIMAFit) forecastMoments(h int) (mean, vars []float64) {
 	}
 	P := make([]float64, N*N)
 	for i := 0; i < r; i++ {
-		copy(P[i*N:i*N+r], sp.P[i*r:(i+1)*r])
+		for j := i; j < r; j++ {
+			P[i*N+j] = sp.P[i*r+j] // filter keeps the upper triangle
+			P[j*N+i] = sp.P[i*r+j]
+		}
 	}
 	// Z* and T*.
 	Z := make([]float64, N)

@@ -22,7 +22,7 @@ type armaSpace struct {
 	phiNZ, thNZ []int     // lags k >= 1 with phi_k != 0, and lags k >= 0 with theta_k != 0
 	gamma, psi  []float64 // autocovariances gamma(0..r) and psi weights psi_0..psi_r
 	a, pa       []float64 // state and scratch
-	P, Pn       []float64 // r x r covariance, row-major, and scratch
+	P           []float64 // r x r covariance, row-major
 	sys         []float64 // (p+1) x (p+2) augmented system for the autocovariances
 }
 
@@ -41,13 +41,12 @@ func (s *armaSpace) setup(phi, theta []float64) {
 	}
 	if cap(s.P) < r*r {
 		s.P = make([]float64, r*r)
-		s.Pn = make([]float64, r*r)
 	}
 	s.r = r
 	s.phi, s.theta = s.phi[:r+1], s.theta[:r+1]
 	s.gamma, s.psi = s.gamma[:r+2], s.psi[:r+2]
 	s.a, s.pa = s.a[:r], s.pa[:r]
-	s.P, s.Pn = s.P[:r*r], s.Pn[:r*r]
+	s.P = s.P[:r*r]
 	clear(s.phi)
 	clear(s.theta)
 	s.theta[0] = 1
@@ -171,60 +170,49 @@ func abs(i int) int {
 
 // initCov sets s.P to the stationary covariance P_1 = E[a_t a_t'] of the state (unit innovation
 // variance), the solution of P = T P T' + R R' that Gardner, Harvey & Phillips (1980) compute.
-// It is computed directly from the representation of a_t[i] in armaSpace's doc comment, with
-// E[x_{t-u} x_{t-v}] = gamma(u-v), E[x_{t-u} e_{t-v}] = psi_{v-u} (v >= u, else 0) and
-// E[e_{t-u} e_{t-v}] = [u = v], summing over the non-zero coefficients only. It reports false
-// when the process is not stationary.
+// Here the first row comes from the representation in armaSpace's doc comment, with
+// E[x_t x_{t-u}] = gamma(u) and E[x_t e_{t-u}] = psi_u:
+//
+//	P[0,j] = sum_{k>j} phi_k gamma(k-j) + sum_{k>=j} theta_k psi_{k-j},
+//
+// and the rest from the same equation read element by element, upwards from the last row,
+//
+//	P[i,j] = phi_{i+1} phi_{j+1} P[0,0] + phi_{i+1} P[0,j+1] + phi_{j+1} P[0,i+1] + P[i+1,j+1] + theta_i theta_j
+//
+// (index r reads 0), O(r^2) work in all. It reports false when the process is not stationary.
 func (s *armaSpace) initCov() bool {
 	if !s.autocov() {
 		return false
 	}
 	r := s.r
-	phi, th, g, psi := s.phi, s.theta, s.gamma, s.psi
-	cxe := func(u, v int) float64 { // E[x_{t-u} e_{t-v}]
-		if v >= u {
-			return psi[v-u]
+	phi, th, g, psi, P := s.phi, s.theta, s.gamma, s.psi, s.P
+	for j := 0; j < r; j++ {
+		v := 0.0
+		for _, k := range s.phiNZ {
+			if k > j {
+				v += phi[k] * g[k-j]
+			}
 		}
-		return 0
+		for _, k := range s.thNZ {
+			if k >= j {
+				v += th[k] * psi[k-j]
+			}
+		}
+		P[j] = v
+		P[j*r] = v
 	}
-	for i := 0; i < r; i++ {
-		for j := i; j < r; j++ {
-			v := 0.0
-			for _, k := range s.phiNZ {
-				if k <= i {
-					continue
-				}
-				u := k - i
-				for _, l := range s.phiNZ {
-					if l <= j {
-						continue
-					}
-					v += phi[k] * phi[l] * g[abs(u-(l-j))]
-				}
-				for _, l := range s.thNZ {
-					if l < j {
-						continue
-					}
-					v += phi[k] * th[l] * cxe(u, l-j)
-				}
-			}
-			for _, k := range s.thNZ {
-				if k < i {
-					continue
-				}
-				u := k - i
-				for _, l := range s.phiNZ {
-					if l <= j {
-						continue
-					}
-					v += th[k] * phi[l] * cxe(l-j, u)
-				}
-				if l := u + j; l < r {
-					v += th[k] * th[l]
-				}
-			}
-			s.P[i*r+j] = v
-			s.P[j*r+i] = v
+	at := func(i, j int) float64 {
+		if i >= r || j >= r {
+			return 0
+		}
+		return P[i*r+j]
+	}
+	p00 := P[0]
+	for i := r - 1; i >= 1; i-- {
+		for j := r - 1; j >= i; j-- {
+			v := phi[i+1]*phi[j+1]*p00 + phi[i+1]*at(0, j+1) + phi[j+1]*at(0, i+1) + at(i+1, j+1) + th[i]*th[j]
+			P[i*r+j] = v
+			P[j*r+i] = v
 		}
 	}
 	return true
@@ -244,37 +232,40 @@ type armaFilter struct {
 const steadyTol = 1e-10
 
 // filter runs the Kalman filter (Durbin & Koopman 2012, section 4.3, eqs. 4.24-4.26) on the
-// zero-mean series x, from a_1 = 0 and P_1 = initCov(). For each t
+// zero-mean series x, from a_1 = 0 and P_1 = initCov(). For each t, with k = P_t[., 0],
 //
 //	v_t = x_t - a_t[0],  F_t = P_t[0,0],
-//	a_{t|t} = a_t + P_t[.,0] v_t / F_t,   P_{t|t} = P_t - P_t[.,0] P_t[0,.] / F_t,
-//	a_{t+1} = T a_{t|t},                 P_{t+1} = T P_{t|t} T' + R R',
+//	a_{t+1} = T (a_t + k v_t / F_t),   P_{t+1} = T (P_t - k k' / F_t) T' + R R'.
 //
-// with the products by T done in O(r^2) from its companion structure. When resid is non-nil it
-// receives v_t. The state a_{n+1} and P_{n+1} are left in s.a and s.P for forecasting. It
-// allocates nothing.
+// The updated covariance P_t - k k'/F_t has a zero first row and column (x_t is then known),
+// so with T's companion structure the covariance step needs neither phi nor a matrix product:
+//
+//	P_{t+1}[i,j] = P_t[i+1,j+1] - k_{i+1} k_{j+1} / F_t + theta_i theta_j   (index r reads 0),
+//
+// which is done in place on the upper triangle (only it is kept). When resid is non-nil it
+// receives v_t. The state a_{n+1} and P_{n+1} are left in s.a and s.P (upper triangle) for
+// forecasting. It allocates nothing.
 func (s *armaSpace) filter(x, resid []float64) armaFilter {
 	var out armaFilter
 	if !s.initCov() {
 		return out
 	}
 	r := s.r
-	a, P, Pn, phi, th := s.a, s.P, s.Pn, s.phi, s.theta
+	a, P, k, phi, th := s.a, s.P, s.pa, s.phi, s.theta
 	clear(a)
 	steady := false
 	for t, xt := range x {
 		if steady {
+			// F_t = 1 and k = R: a <- T (a + R v).
 			v := xt - a[0]
 			out.ssq += v * v
 			if resid != nil {
 				resid[t] = v
 			}
-			// a <- T (a + R v)
-			u0 := a[0] + v
 			for i := 0; i < r-1; i++ {
-				a[i] = phi[i+1]*u0 + a[i+1] + th[i+1]*v
+				a[i] = phi[i+1]*xt + a[i+1] + th[i+1]*v
 			}
-			a[r-1] = phi[r] * u0 // theta_r = 0 as q < r
+			a[r-1] = phi[r] * xt // theta_r = 0 as q < r
 			continue
 		}
 		F := P[0]
@@ -287,53 +278,33 @@ func (s *armaSpace) filter(x, resid []float64) armaFilter {
 		if resid != nil {
 			resid[t] = v
 		}
-		// Update: a += P[.,0] v / F; P -= P[.,0] P[0,.] / F.
-		for i := 0; i < r; i++ {
-			a[i] += P[i*r] * v / F
-		}
-		for i := 0; i < r; i++ {
-			pi0 := P[i*r] / F
-			for j := 0; j < r; j++ {
-				Pn[i*r+j] = P[i*r+j] - pi0*P[j*r]
-			}
-		}
-		// Predict: a <- T a; P <- T Pn T' + R R'. (T a)_i = phi_{i+1} a_0 + a_{i+1};
-		// (T Pn T')_{ij} = phi_{i+1} phi_{j+1} Pn00 + phi_{i+1} Pn_{0,j+1} + phi_{j+1} Pn_{i+1,0} + Pn_{i+1,j+1}.
-		a0 := a[0]
+		copy(k, P[:r]) // row 0 of the upper triangle is column 0
+		g := v / F
+		// a <- T (a + k g); the first element of a + k g is x_t.
 		for i := 0; i < r-1; i++ {
-			a[i] = phi[i+1]*a0 + a[i+1]
+			a[i] = phi[i+1]*xt + a[i+1] + k[i+1]*g
 		}
-		a[r-1] = phi[r] * a0
-		p00 := Pn[0]
+		a[r-1] = phi[r] * xt
 		tr := 0.0
 		for i := 0; i < r; i++ {
-			fi := phi[i+1]
-			var pi1 []float64
+			row := P[i*r : (i+1)*r]
 			if i+1 < r {
-				pi1 = Pn[(i+1)*r : (i+2)*r]
-			}
-			for j := i; j < r; j++ {
-				fj := phi[j+1]
-				v := fi*fj*p00 + th[i]*th[j]
-				if j+1 < r {
-					v += fi * Pn[j+1]
+				next := P[(i+1)*r : (i+2)*r]
+				ki := k[i+1] / F
+				for j := i; j < r-1; j++ {
+					row[j] = next[j+1] - ki*k[j+1] + th[i]*th[j]
 				}
-				if i+1 < r {
-					v += fj * pi1[0]
-					if j+1 < r {
-						v += pi1[j+1]
-					}
-				}
-				P[i*r+j] = v
-				P[j*r+i] = v
+				row[r-1] = th[i] * th[r-1]
+			} else {
+				row[r-1] = th[i] * th[r-1]
 			}
-			tr += P[i*r+i] - th[i]*th[i]
+			tr += row[i] - th[i]*th[i]
 		}
 		if tr < steadyTol {
 			steady = true
 			// Leave P at its limit R R' for forecasting.
 			for i := 0; i < r; i++ {
-				for j := 0; j < r; j++ {
+				for j := i; j < r; j++ {
 					P[i*r+j] = th[i] * th[j]
 				}
 			}

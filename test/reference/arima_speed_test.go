@@ -1,0 +1,176 @@
+package reference
+
+import (
+	"bufio"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/bench"
+	"almanac.dev/almanac/trainer/models"
+)
+
+// arimaSpeedR times R forecast's auto.arima(x) on every series of its input file in one R
+// process, with proc.time() (user + system CPU) around each call so R's start-up is excluded,
+// and writes the total CPU seconds and the chosen orders.
+const arimaSpeedR = `
+suppressPackageStartupMessages(library(forecast))
+args <- commandArgs(trailingOnly = TRUE)
+inp <- readLines(args[1]); out <- file(args[2], "w")
+cpu <- 0
+now <- function() { p <- proc.time(); p[[1]] + p[[2]] }
+for (line in inp) {
+  f <- strsplit(line, ",")[[1]]
+  x <- ts(as.numeric(strsplit(f[2], " ")[[1]]), frequency = 12)
+  t0 <- now(); fit <- auto.arima(x); cpu <- cpu + now() - t0
+  a <- fit$arma
+  writeLines(paste("order", f[1], paste(a[c(1, 6, 2, 3, 7, 4)], collapse = " "), sep = ","), out)
+}
+writeLines(paste("cpu", cpu, sep = ","), out); close(out)
+`
+
+// arimaSpeedSeries is how many M3 monthly series the speed benchmark uses (env
+// ALMANAC_ARIMA_SPEED_SERIES overrides; 0 means all 1428).
+func arimaSpeedSeries() int {
+	if v, err := strconv.Atoi(os.Getenv("ALMANAC_ARIMA_SPEED_SERIES")); err == nil {
+		return v
+	}
+	return 100
+}
+
+var arimaRSpeed struct {
+	once    sync.Once
+	seconds float64 // R CPU seconds per series
+	orders  map[string]string
+	err     error
+}
+
+// m3Monthly loads the M3 monthly training series (skips without the data set).
+func m3Monthly(tb testing.TB, limit int) []bench.Entry {
+	dir := os.Getenv(bench.EnvM3Dir)
+	if dir == "" {
+		dir = filepath.Join("..", "..", "..", "shared", "datasets", "m3")
+	}
+	all, err := bench.Load(dir, 0)
+	if err != nil {
+		tb.Skipf("M3 data not available: %v", err)
+	}
+	var out []bench.Entry
+	for _, e := range all {
+		if e.Category == "MONTHLY" && (limit <= 0 || len(out) < limit) {
+			out = append(out, e)
+		}
+	}
+	return out
+}
+
+// runRSpeed times auto.arima on the entries once per test binary.
+func runRSpeed(entries []bench.Entry) {
+	arimaRSpeed.once.Do(func() {
+		rs, err := exec.LookPath("Rscript")
+		if err != nil {
+			arimaRSpeed.err = err
+			return
+		}
+		dir, err := os.MkdirTemp("", "almanac-arima-speed")
+		if err != nil {
+			arimaRSpeed.err = err
+			return
+		}
+		defer os.RemoveAll(dir)
+		var sb strings.Builder
+		for _, e := range entries {
+			vals := make([]string, len(e.Train))
+			for i, v := range e.Train {
+				vals[i] = strconv.FormatFloat(v, 'g', -1, 64)
+			}
+			fmt.Fprintf(&sb, "%s,%s\n", e.ID, strings.Join(vals, " "))
+		}
+		in, script, out := filepath.Join(dir, "in.csv"), filepath.Join(dir, "speed.R"), filepath.Join(dir, "out.csv")
+		if err := os.WriteFile(in, []byte(sb.String()), 0o600); err != nil {
+			arimaRSpeed.err = err
+			return
+		}
+		if err := os.WriteFile(script, []byte(arimaSpeedR), 0o600); err != nil {
+			arimaRSpeed.err = err
+			return
+		}
+		if b, err := exec.Command(rs, script, in, out).CombinedOutput(); err != nil {
+			arimaRSpeed.err = fmt.Errorf("Rscript: %v: %s", err, b)
+			return
+		}
+		f, err := os.Open(out)
+		if err != nil {
+			arimaRSpeed.err = err
+			return
+		}
+		defer f.Close()
+		arimaRSpeed.orders = map[string]string{}
+		sc := bufio.NewScanner(f)
+		for sc.Scan() {
+			p := strings.Split(sc.Text(), ",")
+			switch p[0] {
+			case "order":
+				arimaRSpeed.orders[p[1]] = p[2]
+			case "cpu":
+				v, _ := strconv.ParseFloat(p[1], 64)
+				arimaRSpeed.seconds = v / float64(len(entries))
+			}
+		}
+	})
+}
+
+// BenchmarkARIMASelectionVsR times SelectARIMA per M3 monthly series (Makridakis & Hibon 2000;
+// the first arimaSpeedSeries() of them) and, in the same run and on the same series, R
+// forecast 8.20's auto.arima (CPU time inside one R process, start-up excluded). It reports
+// cpu-ns/series (ours, process CPU time), R-ms/series, speedup (R CPU time / ours) and
+// agree-% (orders identical to R's, constant aside). Run it with GOMAXPROCS=1, e.g.
+//
+//	GOMAXPROCS=1 go test ./test/reference -run '^$' -bench ARIMASelectionVsR -benchtime 1x
+//
+// It skips without the M3 data or Rscript.
+func BenchmarkARIMASelectionVsR(b *testing.B) {
+	entries := m3Monthly(b, arimaSpeedSeries())
+	runRSpeed(entries)
+	if arimaRSpeed.err != nil {
+		b.Skipf("R reference not available: %v", arimaRSpeed.err)
+	}
+	b.ResetTimer()
+	agree := 0
+	cpu0 := processCPU()
+	for b.Loop() {
+		agree = 0
+		for _, e := range entries {
+			fit, err := models.SelectARIMA(e.Train, 12, models.ARIMABounds{})
+			if err != nil {
+				b.Fatalf("%s: %v", e.ID, err)
+			}
+			o := fit.Order()
+			if fmt.Sprintf("%d %d %d %d %d %d", o.P, o.D, o.Q, o.SP, o.SD, o.SQ) == arimaRSpeed.orders[e.ID] {
+				agree++
+			}
+		}
+	}
+	// CPU time, as for R: the machine may be shared, and wall time would count the waits.
+	per := float64((processCPU() - cpu0).Nanoseconds()) / float64(b.N) / float64(len(entries))
+	b.ReportMetric(per, "cpu-ns/series")
+	b.ReportMetric(arimaRSpeed.seconds*1e3, "R-ms/series")
+	b.ReportMetric(arimaRSpeed.seconds*1e9/per, "speedup")
+	b.ReportMetric(100*float64(agree)/float64(len(entries)), "agree-%")
+}
+
+// processCPU returns the process's user plus system CPU time.
+func processCPU() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
