@@ -91,7 +91,8 @@ func tableFormat(cfg *runconfig.Config) string {
 }
 
 // previous finds the run this one follows: cfg.PreviousRun, else the run latest.json points
-// at, else none (first run; prev is nil). The previous run must be another run with a
+// at, else none (first run; prev is nil). When latest.json names this run, or a later run
+// built on it (a rerun after publish), this run's own manifest says which run it followed. The previous run must be another run with a
 // manifest; the one latest.json names is verified against its checksum.
 func previous(ctx context.Context, out *store.Store, cfg *runconfig.Config) (*Manifest, error) {
 	run := cfg.PreviousRun
@@ -104,6 +105,16 @@ func previous(ctx context.Context, out *store.Store, cfg *runconfig.Config) (*Ma
 			return nil, nil
 		}
 		run = p.Run
+		if run != cfg.Run {
+			// A rerun of an older run after newer ones were published follows its own record.
+			newer, err := descends(ctx, out, run, cfg.Run)
+			if err != nil {
+				return nil, err
+			}
+			if newer {
+				run = cfg.Run
+			}
+		}
 	}
 	if run == cfg.Run {
 		// A rerun of a run already published: its own predecessor is recorded in its manifest.
@@ -120,4 +131,26 @@ func previous(ctx context.Context, out *store.Store, cfg *runconfig.Config) (*Ma
 		return nil, fmt.Errorf("previousRun: %w: %w", ErrConfig, err)
 	}
 	return readManifest(ctx, out, run)
+}
+
+// maxChain bounds the walk along previousRun links.
+const maxChain = 1000
+
+// descends reports whether run from was built, through previousRun links, on run ancestor.
+// A link to a run without a manifest ends the walk.
+func descends(ctx context.Context, out *store.Store, from, ancestor string) (bool, error) {
+	for i := 0; i < maxChain && from != ""; i++ {
+		m, err := readManifest(ctx, out, from)
+		if errors.Is(err, store.ErrNotFound) {
+			return false, nil
+		}
+		if err != nil {
+			return false, err
+		}
+		if m.PreviousRun == ancestor {
+			return true, nil
+		}
+		from = m.PreviousRun
+	}
+	return false, nil
 }

@@ -589,3 +589,26 @@ func TestPreviousUnitsAcrossBucketCounts(t *testing.T) {
 		t.Errorf("object unit matched buckets: %v", ids(got))
 	}
 }
+
+func TestStaleRerunLeavesLatest(t *testing.T) {
+	dir, cfg := objectRun(t)
+	runAll(t, cfg)
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Source.Partitioning = runconfig.PartitionObject
+	ctx := context.Background()
+	if _, err := RunLocal(ctx, cfg2, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	before := snapshot(t, dir+"/out/runs/flp-0001")
+	// Run 1's Jobs rerun late (a retried pod): same bytes, and latest stays on run 2.
+	if _, err := RunTrain(ctx, cfg, 0, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := RunPublish(ctx, cfg, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	checkPublished(t, mustOpen(t, cfg.Output.URI), "flp-0002")
+	if !equalFiles(before, snapshot(t, dir+"/out/runs/flp-0001")) {
+		t.Fatal("a stale rerun of run 1 changed its files")
+	}
+}

@@ -23,7 +23,8 @@ import (
 // Missing units do not fail publish: the other units' forecasts are good and are published,
 // and the manifest says complete: false, lists the missing units and the summary counts them
 // (summary.Missing), so nothing claims a completeness it lacks. Publish fails (and moves
-// nothing) when the plan cannot be read or storage fails; rerunning it gives the same bytes.
+// nothing) when the plan cannot be read or storage fails; rerunning it gives the same bytes,
+// and a rerun after a later run was published leaves latest.json on the later run.
 func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPublish}
 	out, p, prev, err := openRun(ctx, cfg)
@@ -49,8 +50,12 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	if err != nil {
 		return sum, storageErr(err)
 	}
-	if err := out.WriteLatest(ctx, store.Pointer{Run: cfg.Run, Manifest: key, ManifestSHA256: store.SHA256(b)}); err != nil {
-		return sum, storageErr(err)
+	moved, err := moveLatest(ctx, out, cfg.Run, store.Pointer{Run: cfg.Run, Manifest: key, ManifestSHA256: store.SHA256(b)})
+	if err != nil {
+		return sum, err
+	}
+	if !moved {
+		env.logf("publish: %s: latest.json already names a later run built on this one; left as it is", cfg.Run)
 	}
 	sum.Units = m.Totals.Units
 	sum.CarriedForward = m.Totals.CarriedForward
@@ -62,6 +67,22 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	sum.Manifest = key
 	env.logf("publish: %s: %d units (%d carried forward, %d missing)", cfg.Run, sum.Units, sum.CarriedForward, sum.Missing)
 	return sum, nil
+}
+
+// moveLatest replaces latest.json with p unless it names a later run built on this one (a
+// stale rerun must not move the pointer back); it reports whether it moved.
+func moveLatest(ctx context.Context, out *store.Store, run string, p store.Pointer) (bool, error) {
+	cur, ok, err := out.ReadLatest(ctx)
+	if err != nil {
+		return false, storageErr(err)
+	}
+	if ok && cur.Run != run {
+		newer, err := descends(ctx, out, cur.Run, run)
+		if err != nil || newer {
+			return false, err
+		}
+	}
+	return true, storageErr(out.WriteLatest(ctx, p))
 }
 
 // publishUnit decides one unit's manifest entry.
