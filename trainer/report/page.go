@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 
 	"gonum.org/v1/plot"
@@ -124,7 +125,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		pg.Scheduled = cfg.ScheduledTime.UTC().Format("Mon 2 Jan 2006 15:04 MST")
 	}
 	if o := pg.Overview; o.Evaluated > 0 && o.EvaluatedPoints < 8*o.Evaluated {
-		pg.FewPoints = fmt.Sprintf("%.1f", float64(o.EvaluatedPoints)/float64(o.Evaluated))
+		pg.FewPoints = strconv.FormatFloat(math.Round(10*float64(o.EvaluatedPoints)/float64(o.Evaluated))/10, 'f', -1, 64)
 	}
 	if cfg.Drift.ThresholdRatio > 0 {
 		pg.DriftThreshold = trimFloat(cfg.Drift.ThresholdRatio)
