@@ -1,6 +1,6 @@
 // Command almanac-trainer is the trainer the almanac Jobs run: plan, train and publish, one
 // command per Job, plus local (all three in one process), inspect (read a published run),
-// generate (a synthetic dataset) and bench (the accuracy benchmark). The usage text lists the
+// generate (a synthetic dataset), report (an HTML page of a published run) and bench (the accuracy benchmark). The usage text lists the
 // flags and the exit codes, which are a stable contract with the controller.
 package main
 
@@ -21,6 +21,7 @@ import (
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
+	"almanac.dev/almanac/trainer/report"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/summary"
@@ -60,6 +61,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 		return synth.Main(ctx, args[1:], stdout, stderr)
 	case "bench":
 		return bench.Main(args[1:], stdout, stderr)
+	case "report":
+		return report.Main(args[1:])
 	case "version", "--version":
 		fmt.Fprintf(stdout, "almanac-trainer %s (%s)\n", version, commit)
 		return exitcode.OK
@@ -288,6 +291,7 @@ commands (people and tests):
             the flags listed by 'local -h'
   inspect   --output URI [--run NAME]: print a published run's manifest, counts and accuracy
   generate  write a synthetic Fenwick Lane Provisions dataset; 'generate -h' for flags
+  report    write an HTML report of a published run (--output URI [--run NAME] [--dir DIR]); --help for flags
   bench     score the model zoo on a dataset in the M3 layout (--data DIR or --m3); --help for flags
   version   print the version
 
