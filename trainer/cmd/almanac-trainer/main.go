@@ -1,7 +1,8 @@
 // Command almanac-trainer is the trainer the almanac Jobs run: plan, train and publish, one
 // command per Job, plus local (all three in one process), inspect (read a published run),
-// generate (a synthetic dataset), report (an HTML page of a published run) and bench (the accuracy benchmark). The usage text lists the
-// flags and the exit codes, which are a stable contract with the controller.
+// generate (a synthetic dataset), report (an HTML page of a published run) and bench (the
+// accuracy benchmark). The usage text lists the flags and the exit codes, which are a stable
+// contract with the controller.
 package main
 
 import (
