@@ -27,6 +27,7 @@ import (
 	"time"
 
 	"github.com/parquet-go/parquet-go"
+	"github.com/parquet-go/parquet-go/compress/lz4"
 
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/series"
@@ -199,6 +200,17 @@ func badCases() []badCase {
 				return append(b, "PAR1"...)
 			},
 			broken: []string{"list of 1000000000 elements"}},
+		{name: "Parquet: LZ4-compressed columns / broken: refused, its decoder cannot bound memory on damage",
+			pq: func(t *testing.T) []byte {
+				type r struct {
+					Depot string `parquet:"depot"`
+					Item  string `parquet:"item"`
+					Day   string `parquet:"day"`
+					Units int64  `parquet:"units"`
+				}
+				return writeParquet(t, []r{{"north", "oat", "2026-11-01", 1}}, parquet.Compression(&lz4.Codec{}))
+			},
+			broken: []string{"row group 0", "LZ4_RAW compression is not supported"}},
 		{name: "Parquet: a CSV file given as Parquet / broken, names the object",
 			pq:     func(*testing.T) []byte { return []byte(header + good) },
 			broken: []string{"demand.csv", "not a readable Parquet file"}},

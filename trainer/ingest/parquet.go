@@ -45,10 +45,18 @@ func RowGroups(ra io.ReaderAt, size int64, object string) ([]GroupInfo, error) {
 // watchedReaderAt remembers the first real read error, so a storage failure is reported as
 // such and not as a broken file (the Parquet library does not always wrap the errors it sees).
 // A read outside the object (a corrupt offset) is refused without touching storage.
+// It also serves reads from the column chunks loadChunks checked and keeps in memory.
 type watchedReaderAt struct {
-	ra   io.ReaderAt
-	size int64
-	err  error
+	ra     io.ReaderAt
+	size   int64
+	err    error
+	chunks []span
+}
+
+// span is a byte range of the object held in memory.
+type span struct {
+	off int64
+	b   []byte
 }
 
 var errOutside = errors.New("read outside the object (corrupt offset)")
@@ -56,6 +64,11 @@ var errOutside = errors.New("read outside the object (corrupt offset)")
 func (w *watchedReaderAt) ReadAt(p []byte, off int64) (int, error) {
 	if off < 0 || off > w.size {
 		return 0, errOutside
+	}
+	for _, c := range w.chunks {
+		if off >= c.off && off+int64(len(p)) <= c.off+int64(len(c.b)) {
+			return copy(p, c.b[off-c.off:]), nil
+		}
 	}
 	n, err := w.ra.ReadAt(p, off)
 	if err != nil && err != io.EOF && w.err == nil {
@@ -71,6 +84,19 @@ func (w *watchedReaderAt) failure(object string, broken error) error {
 	}
 	return broken
 }
+
+// OpenParquet opens a Parquet object from untrusted bytes: the footer length and its Thrift
+// encoding are checked before parquet-go sees them, and library panics become errors. Every
+// error wraps ErrBrokenInput and names object, except a read error of ra, which is returned as
+// such. The output tables reader uses it too.
+func OpenParquet(ra io.ReaderAt, size int64, object string) (*parquet.File, error) {
+	f, _, err := openParquet(ra, size, object)
+	return f, err
+}
+
+// Guard runs fn, a call into the Parquet library on untrusted bytes, and turns a panic into an
+// error (the library panics on some corrupt pages and schemas).
+func Guard(fn func() error) error { return guard(fn) }
 
 func openParquet(ra io.ReaderAt, size int64, object string) (*parquet.File, *watchedReaderAt, error) {
 	wr := &watchedReaderAt{ra: ra, size: size}
@@ -97,6 +123,62 @@ func guard(fn func() error) (err error) {
 		}
 	}()
 	return fn()
+}
+
+// loadChunks reads the given leaf columns' chunks of row group g into memory, one ranged read
+// each (the reads parquet-go would make anyway), and checks their page headers (checkPages)
+// before the library trusts them. Later reads inside those chunks are served from memory.
+func (w *watchedReaderAt) loadChunks(md *format.FileMetaData, g int, leaves []int, object string) error {
+	w.chunks = w.chunks[:0]
+	if g >= len(md.RowGroups) {
+		return brokenf("%s row group %d: not in the footer", object, g)
+	}
+	cols := md.RowGroups[g].Columns
+	for _, leaf := range leaves {
+		if leaf >= len(cols) {
+			return brokenf("%s row group %d: column %d has no chunk", object, g, leaf)
+		}
+		m := cols[leaf].MetaData
+		if m.Codec == format.Lz4 || m.Codec == format.Lz4Raw {
+			// parquet-go v0.32.0 doubles its output buffer without bound on corrupt LZ4 data.
+			return brokenf("%s row group %d column %d: %v compression is not supported (its decoder cannot bound memory on damaged data); write ZSTD, Snappy or gzip", object, g, leaf, m.Codec)
+		}
+		start := m.DataPageOffset
+		if d := m.DictionaryPageOffset; d > 0 && d < start {
+			start = d
+		}
+		n := m.TotalCompressedSize
+		if start < 4 || n < 0 || start > w.size-n {
+			return brokenf("%s row group %d column %d: chunk of %d bytes at %d lies outside the %d-byte file", object, g, leaf, n, start, w.size)
+		}
+		b := make([]byte, n)
+		if _, err := w.ReadAt(b, start); err != nil && !(err == io.EOF && w.err == nil) {
+			return w.failure(object, brokenf("%s row group %d column %d: %v", object, g, leaf, err))
+		}
+		if err := checkPages(b); err != nil {
+			return brokenf("%s row group %d column %d: %v", object, g, leaf, err)
+		}
+		w.chunks = append(w.chunks, span{off: start, b: b})
+	}
+	return nil
+}
+
+// CheckPages checks the page headers of every column chunk of an opened Parquet file (see
+// checkPages). ScanParquet does this row group by row group for the columns it reads; the output
+// tables reader, which holds the whole file, calls it once.
+func CheckPages(ra io.ReaderAt, f *parquet.File, object string) error {
+	w := &watchedReaderAt{ra: ra, size: f.Size()}
+	md := f.Metadata()
+	for g, rg := range md.RowGroups {
+		leaves := make([]int, len(rg.Columns))
+		for i := range leaves {
+			leaves[i] = i
+		}
+		if err := w.loadChunks(md, g, leaves, object); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // checkFooter checks the file's last 8 bytes (footer length and magic) and the footer's
@@ -183,7 +265,7 @@ func ScanParquet(ctx context.Context, ra io.ReaderAt, size int64, object string,
 			return brokenf("%s: row groups [%d,%d) outside the file's %d", object, from, to, len(rgs))
 		}
 	}
-	sc := parquetScan{src: src, cols: cols}
+	sc := parquetScan{src: src, cols: cols, md: f.Metadata()}
 	for g := from; g < to; g++ {
 		if err := sc.group(ctx, rgs[g], g, object, wr, fn); err != nil {
 			return err
@@ -303,6 +385,7 @@ func isTimestamp(lt format.LogicalTypeValue) bool {
 // parquetScan is the state of one ScanParquet call.
 type parquetScan struct {
 	src      runconfig.Source
+	md       *format.FileMetaData
 	cols     []*pcol
 	keyCache map[string]string // interned key strings, reset when large
 	keyBuf   []byte
@@ -310,6 +393,14 @@ type parquetScan struct {
 
 // group scans one row group.
 func (sc *parquetScan) group(ctx context.Context, rg parquet.RowGroup, g int, object string, wr *watchedReaderAt, fn func(Row) error) error {
+	leaves := make([]int, len(sc.cols))
+	for i, c := range sc.cols {
+		leaves[i] = c.index
+	}
+	if err := wr.loadChunks(sc.md, g, leaves, object); err != nil {
+		return err
+	}
+	defer func() { wr.chunks = nil }()
 	var total int64
 	defer guard(func() error {
 		for _, c := range sc.cols {

@@ -204,3 +204,34 @@ func TestCheckThriftAcceptsRealFooters(t *testing.T) {
 		}
 	}
 }
+
+// checkPages refuses page headers whose sizes do not fit the chunk or exceed the limits; the
+// headers are hand-encoded in the Thrift compact protocol (field header byte = delta<<4 | type,
+// i32 = 5, zigzag varints).
+func TestCheckPages(t *testing.T) {
+	header := func(unc, comp int64) []byte {
+		b := []byte{0x15, 0x00} // field 1 type: DATA_PAGE (0)
+		b = append(b, 0x15)
+		b = binary.AppendUvarint(b, uint64(unc)<<1)
+		b = append(b, 0x15)
+		b = binary.AppendUvarint(b, uint64(comp)<<1)
+		return append(b, 0x00)
+	}
+	ok := append(header(8, 4), 1, 2, 3, 4)
+	if err := checkPages(append(ok, ok...)); err != nil {
+		t.Errorf("two good pages: %v", err)
+	}
+	for name, c := range map[string]struct {
+		chunk []byte
+		want  string
+	}{
+		"overrun":   {append(header(8, 40), 1, 2, 3, 4), "overruns"},
+		"huge page": {append(header(1<<30, 4), 1, 2, 3, 4), "over the limits"},
+		"no sizes":  {[]byte{0x15, 0x00, 0x00}, "no sizes"},
+		"garbage":   {[]byte{0xff, 0xff}, "page header"},
+	} {
+		if err := checkPages(c.chunk); err == nil || !strings.Contains(err.Error(), c.want) {
+			t.Errorf("%s: %v, want %q", name, err, c.want)
+		}
+	}
+}

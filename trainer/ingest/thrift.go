@@ -19,8 +19,9 @@ func checkThrift(b []byte) error {
 type thriftWalker struct {
 	b []byte
 	i int
-	// onInt, when set, sees every integer field of the outermost struct (field id, value).
-	onInt func(field int, v int64)
+	// onInt, when set, sees every integer field of the outermost struct (depth 0) and of the
+	// structs directly inside it (depth 1), with its field id and value.
+	onInt func(depth, field int, v int64)
 }
 
 const maxThriftDepth = 64
@@ -84,12 +85,12 @@ func (w *thriftWalker) structure(depth int) error {
 			field = int(unzigzag(id))
 		}
 		t := h & 0x0f
-		if depth == 0 && w.onInt != nil && t >= 4 && t <= 6 {
+		if depth <= 1 && w.onInt != nil && t >= 4 && t <= 6 {
 			v, err := w.varint()
 			if err != nil {
 				return err
 			}
-			w.onInt(field, unzigzag(v))
+			w.onInt(depth, field, unzigzag(v))
 			continue
 		}
 		if err := w.value(t, depth, false); err != nil {
@@ -166,4 +167,46 @@ func (w *thriftWalker) value(t byte, depth int, inList bool) error {
 		return w.skip(16)
 	}
 	return fmt.Errorf("unknown type %d", t)
+}
+
+// Limits on one Parquet page, far above what writers produce (parquet-go writes pages of
+// 256 KiB by default, Arrow and Spark about 1 MiB) and low enough that a corrupt header cannot
+// make the library allocate gigabytes.
+const (
+	MaxPageBytes  = 256 << 20
+	MaxPageValues = 64 << 20
+)
+
+// checkPages walks the page headers of one column chunk held in memory (PageHeader in the
+// Parquet format's parquet.thrift: field 2 uncompressed_page_size, 3 compressed_page_size, and
+// num_values as field 1 of the data, dictionary and v2 data page headers) and reports a page
+// that does not fit in the chunk or exceeds MaxPageBytes or MaxPageValues.
+func checkPages(chunk []byte) error {
+	for off := 0; off < len(chunk); {
+		var unc, comp, vals int64 = -1, -1, 0
+		w := thriftWalker{b: chunk[off:], onInt: func(depth, field int, v int64) {
+			switch {
+			case depth == 0 && field == 2:
+				unc = v
+			case depth == 0 && field == 3:
+				comp = v
+			case depth == 1 && field == 1:
+				vals = max(vals, v)
+			}
+		}}
+		if err := w.structure(0); err != nil {
+			return fmt.Errorf("page header at chunk byte %d: %v", off, err)
+		}
+		off += w.i
+		switch {
+		case comp < 0 || unc < 0:
+			return fmt.Errorf("page header at chunk byte %d has no sizes", off-w.i)
+		case comp > int64(len(chunk)-off):
+			return fmt.Errorf("page of %d bytes at chunk byte %d overruns the %d-byte chunk", comp, off, len(chunk))
+		case unc > MaxPageBytes || vals > MaxPageValues || vals < 0:
+			return fmt.Errorf("page at chunk byte %d declares %d bytes and %d values, over the limits (%d, %d)", off, unc, vals, MaxPageBytes, MaxPageValues)
+		}
+		off += int(comp)
+	}
+	return nil
 }

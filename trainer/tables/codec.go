@@ -21,6 +21,8 @@ import (
 
 	"github.com/parquet-go/parquet-go"
 	"github.com/parquet-go/parquet-go/compress/zstd"
+
+	"almanac.dev/almanac/trainer/ingest"
 )
 
 // Formats a table can be written in.
@@ -290,33 +292,43 @@ func parquetValue(c cell, k kind) parquet.Value {
 	panic("tables: unknown kind")
 }
 
-// readParquet reads a whole Parquet table into memory (the per-unit tables are small).
+// readParquet reads a whole Parquet table into memory (the per-unit tables are small). The
+// bytes are checked as untrusted input (ingest.OpenParquet, ingest.CheckPages) first: a stored
+// file may have been damaged, and that must be an error, not a crash.
 func readParquet(r io.Reader, kinds kindOf) (grid, error) {
 	b, err := io.ReadAll(r)
 	if err != nil {
 		return grid{}, err
 	}
-	f, err := parquet.OpenFile(bytes.NewReader(b), int64(len(b)))
+	f, err := ingest.OpenParquet(bytes.NewReader(b), int64(len(b)), "data")
 	if err != nil {
 		return grid{}, err
 	}
+	if err := ingest.CheckPages(bytes.NewReader(b), f, "data"); err != nil {
+		return grid{}, err
+	}
 	var g grid
+	err = ingest.Guard(func() error { return readGrid(f, &g, kinds) })
+	return g, err
+}
+
+func readGrid(f *parquet.File, g *grid, kinds kindOf) error {
 	for _, field := range f.Schema().Fields() {
 		k, ok := kinds(field.Name())
 		if !ok {
-			return grid{}, fmt.Errorf("unexpected column %q", field.Name())
+			return fmt.Errorf("unexpected column %q", field.Name())
 		}
-		if got, want := field.Type().Kind(), parquetNode(k).Type().Kind(); !field.Leaf() || got != want || field.Optional() != (k == optNumber) {
-			return grid{}, fmt.Errorf("column %q: type %v, want %v", field.Name(), field.Type(), parquetNode(k).Type())
+		if !field.Leaf() || field.Type().Kind() != parquetNode(k).Type().Kind() || field.Optional() != (k == optNumber) {
+			return fmt.Errorf("column %q: type %v, want %v", field.Name(), field.Type(), parquetNode(k).Type())
 		}
 		g.cols = append(g.cols, column{field.Name(), k})
 	}
 	for gi, rg := range f.RowGroups() {
-		if err := readGroup(rg, &g); err != nil {
-			return grid{}, fmt.Errorf("row group %d: %w", gi, err)
+		if err := readGroup(rg, g); err != nil {
+			return fmt.Errorf("row group %d: %w", gi, err)
 		}
 	}
-	return g, nil
+	return nil
 }
 
 func readGroup(rg parquet.RowGroup, g *grid) error {
