@@ -612,3 +612,38 @@ func TestStaleRerunLeavesLatest(t *testing.T) {
 		t.Fatal("a stale rerun of run 1 changed its files")
 	}
 }
+
+// TestRepublishAfterLateShard: publish ran while a shard was still failing (latest names the
+// run, with that unit carried forward); the shard then succeeds and publish reruns. The new
+// manifest replaces the old one without latest.json ever naming a manifest it does not match.
+func TestRepublishAfterLateShard(t *testing.T) {
+	_, cfg := objectRun(t)
+	runAll(t, cfg)
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Source.Partitioning = runconfig.PartitionObject
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 1; i < ps.Shards; i++ {
+		if _, err := RunTrain(ctx, cfg2, i, testEnv()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s, err := RunPublish(ctx, cfg2, testEnv()); err != nil || s.CarriedForward != 1 {
+		t.Fatalf("first publish: %+v %v", s, err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	checkPublished(t, out, "flp-0002")
+	if _, err := RunTrain(ctx, cfg2, 0, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	s, err := RunPublish(ctx, cfg2, testEnv())
+	if err != nil || s.CarriedForward != 0 {
+		t.Fatalf("second publish: %+v %v", s, err)
+	}
+	if m := checkPublished(t, out, "flp-0002"); m.Totals.Trained != 3 || m.PreviousRun != "flp-0001" {
+		t.Fatalf("manifest %+v", m.Totals)
+	}
+}

@@ -46,11 +46,11 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	}
 	m.Complete = m.Totals.Missing == 0
 	key := store.RunKey(cfg.Run, store.ManifestName)
-	b, err := out.PutJSON(ctx, key, m)
+	b, err := json.MarshalIndent(m, "", "  ")
 	if err != nil {
-		return sum, storageErr(err)
+		return sum, err
 	}
-	moved, err := moveLatest(ctx, out, cfg.Run, store.Pointer{Run: cfg.Run, Manifest: key, ManifestSHA256: store.SHA256(b)})
+	moved, err := commit(ctx, out, cfg.Run, prev, key, append(b, '\n'))
 	if err != nil {
 		return sum, err
 	}
@@ -69,20 +69,49 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	return sum, nil
 }
 
-// moveLatest replaces latest.json with p unless it names a later run built on this one (a
-// stale rerun must not move the pointer back); it reports whether it moved.
-func moveLatest(ctx context.Context, out *store.Store, run string, p store.Pointer) (bool, error) {
-	cur, ok, err := out.ReadLatest(ctx)
-	if err != nil {
+// commit writes the manifest and then moves latest.json to it, so that no reader following
+// latest.json ever finds a manifest other than the one it names:
+//
+//   - If latest.json names this run and the manifest is about to change (a publish rerun after
+//     more shards finished), latest.json first goes back to the previous run (or is removed
+//     on a first run), then the manifest is replaced, then latest.json names it again. A
+//     reader in between sees the previous complete run.
+//   - If latest.json names a later run built on this one (a stale rerun), the manifest is
+//     written but latest.json is left alone; moved is false.
+func commit(ctx context.Context, out *store.Store, run string, prev *Manifest, key string, b []byte) (moved bool, err error) {
+	var cur store.Pointer
+	if err := out.GetJSON(ctx, store.LatestKey, &cur); err != nil && !errors.Is(err, store.ErrNotFound) {
 		return false, storageErr(err)
 	}
-	if ok && cur.Run != run {
+	sum := store.SHA256(b)
+	if cur.Run == run && cur.ManifestSHA256 != sum {
+		if err := stepBack(ctx, out, prev); err != nil {
+			return false, err
+		}
+	}
+	if err := out.Put(ctx, key, b); err != nil {
+		return false, storageErr(err)
+	}
+	if cur.Run != "" && cur.Run != run {
 		newer, err := descends(ctx, out, cur.Run, run)
 		if err != nil || newer {
 			return false, err
 		}
 	}
-	return true, storageErr(out.WriteLatest(ctx, p))
+	return true, storageErr(out.WriteLatest(ctx, store.Pointer{Run: run, Manifest: key, ManifestSHA256: sum}))
+}
+
+// stepBack points latest.json at the previous run's manifest, or removes it when there is none.
+func stepBack(ctx context.Context, out *store.Store, prev *Manifest) error {
+	if prev == nil {
+		return storageErr(out.Delete(ctx, store.LatestKey))
+	}
+	key := store.RunKey(prev.Run, store.ManifestName)
+	pb, err := out.Get(ctx, key)
+	if err != nil {
+		return storageErr(err)
+	}
+	return storageErr(out.WriteLatest(ctx, store.Pointer{Run: prev.Run, Manifest: key, ManifestSHA256: store.SHA256(pb)}))
 }
 
 // publishUnit decides one unit's manifest entry.
