@@ -61,6 +61,10 @@ func TestControllers(t *testing.T) {
 		t.Skip("KUBEBUILDER_ASSETS is not set: run `make controlplane` and `make test` (CI always sets it)")
 	}
 	RegisterFailHandler(Fail)
+	// Gomega's 1 s default is too short on a loaded 2-core CI machine: reconciles queue behind
+	// the apiserver. The waits end as soon as the condition holds, so a long ceiling costs nothing.
+	SetDefaultEventuallyTimeout(30 * time.Second)
+	SetDefaultEventuallyPollingInterval(50 * time.Millisecond)
 	RunSpecs(t, "Controller suite")
 }
 
