@@ -5,7 +5,8 @@
 // naming its completion index, the config's depot and its exit code. The exit code comes from
 // the config: "exit" maps an index to a code on every attempt, "firstAttempt" maps an index to
 // a code used only while INDEX_FAILURES (the Job controller's per-index failure count) is 0 or
-// unset. With --sleep it waits that long before exiting (SIGTERM ends it at once).
+// unset. With --sleep it waits that long before exiting (SIGTERM ends it at once unless
+// --ignore-sigterm); --report-env adds the named variables to the message.
 package main
 
 import (
@@ -13,8 +14,11 @@ import (
 	"flag"
 	"fmt"
 	"os"
+	"os/signal"
 	"path/filepath"
 	"strconv"
+	"strings"
+	"syscall"
 	"time"
 )
 
@@ -30,7 +34,12 @@ func main() {
 	scratch := flag.String("scratch", "", "directory to write a scratch file into")
 	pidDir := flag.String("pid-dir", "", "directory to record the PID in (file named after $POD_NAME)")
 	sleep := flag.Duration("sleep", 0, "time to wait before exiting")
+	reportEnv := flag.String("report-env", "", "comma-separated env names whose values are added to the message")
+	ignoreTerm := flag.Bool("ignore-sigterm", false, "ignore SIGTERM (only SIGKILL ends the sleep)")
 	flag.Parse()
+	if *ignoreTerm {
+		signal.Ignore(syscall.SIGTERM)
+	}
 
 	b, err := os.ReadFile(*configPath)
 	if err != nil {
@@ -59,6 +68,11 @@ func main() {
 	fmt.Printf("prog: index %s, failures %d, exit %d\n", index, failures, code)
 	time.Sleep(*sleep)
 	msg := fmt.Sprintf("index=%s depot=%s failures=%d exit=%d", index, c.Depot, failures, code)
+	for _, name := range strings.Split(*reportEnv, ",") {
+		if name != "" {
+			msg += fmt.Sprintf(" %s=%s", name, os.Getenv(name))
+		}
+	}
 	if err := os.WriteFile(*messagePath, []byte(msg), 0o644); err != nil {
 		fail("", 3, err)
 	}
