@@ -92,13 +92,20 @@ func (f *ARIMAFit) nearBoundary() bool {
 //     search ends when no variation improves.
 //
 // Fits with a root within arimaRootMargin of the unit circle are rejected. The fit's
-// Candidates lists every order tried.
+// Candidates lists every order tried. A constant series gets the mean model with sigma^2 = 0
+// (its likelihood is unbounded), so its forecast is the constant with empty intervals.
 func SelectARIMA(y []float64, m int, b ARIMABounds) (*ARIMAFit, error) {
 	if m < 1 {
 		panic("models: ARIMA: season length must be >= 1")
 	}
 	if err := checkFinite(FamilyARIMA, y); err != nil {
 		return nil, err
+	}
+	if constant(y) {
+		// No finite likelihood (zero innovation variance): the mean model with sigma^2 = 0.
+		n := len(y)
+		return &ARIMAFit{order: ARIMAOrder{Constant: true}, m: 1, y: y, w: y, c: y[0], nw: n,
+			coef: ARIMACoef{Constant: y[0]}, resid: make([]float64, n), loglik: math.Inf(1)}, nil
 	}
 	b = b.withDefaults()
 	seasonal := m >= 2 && m <= arimaMaxSeason

@@ -279,3 +279,32 @@ func TestInitialCovarianceSolvesLyapunov(t *testing.T) {
 		}
 	}
 }
+
+// TestSelectARIMAEdgeCases: short and constant series still get a model, bad input is an
+// error, and misuse panics.
+func TestSelectARIMAEdgeCases(t *testing.T) {
+	if fit, err := SelectARIMA([]float64{3, 5, 4, 6, 5}, 1, ARIMABounds{}); err != nil {
+		t.Errorf("five values: %v", err)
+	} else if fc := fit.Forecast(2, nil); math.IsNaN(fc.Mean[0]) {
+		t.Errorf("five values: forecast %v", fc.Mean)
+	}
+	if _, err := SelectARIMA([]float64{1, math.NaN(), 3, 4, 5, 6}, 1, ARIMABounds{}); err == nil {
+		t.Error("NaN accepted")
+	}
+	// A constant series: the likelihood grows without bound as the mean approaches the value,
+	// so the search stops with the mean at the constant (to the optimiser's tolerance).
+	if fit, err := SelectARIMA([]float64{2, 2, 2, 2, 2, 2, 2, 2}, 1, ARIMABounds{}); err != nil {
+		t.Errorf("constant series: %v", err)
+	} else if fc := fit.Forecast(3, []float64{0.1, 0.9}); math.Abs(fc.Mean[2]-2) > 1e-3 || fc.Quantiles[1][2]-fc.Quantiles[0][2] > 1e-2 {
+		t.Errorf("constant series: %s forecasts %v, bounds %v", fit.Name(), fc.Mean, fc.Quantiles)
+	}
+	if _, err := FitARIMA(depotDemand(), 12, ARIMAOrder{D: 1, SD: 1, Constant: true}); err == nil {
+		t.Error("constant with d + D = 2 accepted")
+	}
+	defer func() {
+		if recover() == nil {
+			t.Error("season length 0 did not panic")
+		}
+	}()
+	SelectARIMA(depotDemand(), 0, ARIMABounds{})
+}

@@ -112,7 +112,7 @@ func (s *armaSpace) autocov() bool {
 		row := A[k*w : (k+1)*w]
 		row[k] += 1
 		for _, i := range s.phiNZ {
-			row[abs(k-i)] -= phi[i]
+			row[iabs(k-i)] -= phi[i]
 		}
 		row[p+1] = rhs(k)
 	}
@@ -161,7 +161,7 @@ func (s *armaSpace) autocov() bool {
 	return g[0] > 0 && !math.IsInf(g[0], 0) && !math.IsNaN(g[0])
 }
 
-func abs(i int) int {
+func iabs(i int) int {
 	if i < 0 {
 		return -i
 	}
