@@ -76,8 +76,26 @@ test-e2e: ## End-to-end tests with the real Job controller (when present).
 	@if [ -d test/e2e ]; then go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi
 
 .PHONY: bench
-bench: ## Benchmarks (speed and memory figures for README).
-	go test -run '^$$' -bench . -benchmem ./trainer/... ./controllers/...
+bench: bench-engine bench-controller bench-scale bench-m3 ## All benchmarks behind README's figures (long: about an hour on 2 cores).
+
+.PHONY: bench-engine
+bench-engine: ## Model fits, selection, input readers (ns/op, allocs/op).
+	go test -run '^$$' -bench . -benchmem ./trainer/models/ ./trainer/selection/ ./trainer/ingest/
+
+.PHONY: bench-controller
+bench-controller: controlplane ## 1000 portfolios and one run of 10000 shards against envtest.
+	ALMANAC_BENCH_PORTFOLIOS=1000 ALMANAC_BENCH_SHARDS=10000 \
+	  go test -run '^$$' -bench BenchmarkPortfoliosAndRun -benchtime 1x -timeout 60m ./controllers/
+
+.PHONY: bench-scale
+bench-scale: ## almanac-trainer local on 100k generated daily series (peak RSS, series/s; 10k as reference).
+	go test -run '^$$' -bench BenchmarkLocalScale -benchtime 1x -timeout 60m ./trainer/cmd/almanac-trainer
+
+.PHONY: bench-m3
+bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast when Rscript is present.
+	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --reference-r; \
+	else echo "bench-m3: ../shared/datasets/m3 not present, skipped"; fi
+	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
 
 .PHONY: demo
 demo: ## Run the demo on a local control plane.
@@ -89,7 +107,7 @@ clean:
 
 .PHONY: help
 help:
-	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z_-]+:.*?##/ { printf "  %-16s %s\n", $$1, $$2 }' $(MAKEFILE_LIST)
+	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z0-9_-]+:.*?##/ { printf "  %-17s %s\n", $$1, $$2 }' $(MAKEFILE_LIST)
 
 .PHONY: fixtures
 fixtures: ## Regenerate the R forecast 8.20 fixtures (needs Debian's r-cran-forecast; CI does not run R).
