@@ -54,7 +54,8 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 				Value:      orDefault(spec.Source.Columns.Value, "value"),
 				Covariates: spec.Source.Columns.Covariates,
 			},
-			NonNegative: spec.Source.NonNegative == nil || *spec.Source.NonNegative,
+			NonNegative:  spec.Source.NonNegative == nil || *spec.Source.NonNegative,
+			Partitioning: partitioning[orDefault(spec.Source.Partitioning, forecastingv1alpha1.PartitionHashBuckets)],
 		},
 		Output: runconfig.Output{
 			URI:    spec.Output.URI,
@@ -68,6 +69,7 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 		},
 		Sharding: runconfig.Sharding{
 			TargetSeriesPerShard: int(orDefault(spec.Sharding.TargetSeriesPerShard, defaultSeriesPerShard)),
+			Buckets:              int(spec.Sharding.Buckets),
 		},
 	}
 	if run.Spec.ScheduledTime != nil {
@@ -158,4 +160,11 @@ func orDefault[T comparable](v, def T) T {
 		return def
 	}
 	return v
+}
+
+// partitioning maps the API's layout promise to the trainer's names (runconfig.Source.Partitioning).
+var partitioning = map[forecastingv1alpha1.Partitioning]string{
+	forecastingv1alpha1.PartitionHashBuckets: runconfig.PartitionNone,
+	forecastingv1alpha1.PartitionObjects:     runconfig.PartitionObject,
+	forecastingv1alpha1.PartitionRowGroups:   runconfig.PartitionRowGroup,
 }

@@ -150,10 +150,37 @@ func TestRenderConfigDefaults(t *testing.T) {
 		"non-negative":   {got.Source.NonNegative, false},
 		"drift metric":   {got.Drift.Metric, "RMSSE"},
 		"combine":        {got.Selection.CombineTop, 0},
+		"partitioning":   {got.Source.Partitioning, runconfig.PartitionNone},
+		"buckets":        {got.Sharding.Buckets, 0},
 	}
 	for name, c := range checks {
 		if diff := cmp.Diff(c.want, c.got); diff != "" {
 			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+}
+
+// TestRenderPartitioning checks the API's layout promise and bucket count reach the trainer
+// under the trainer's names, and that the rendered config passes the trainer's own validation.
+func TestRenderPartitioning(t *testing.T) {
+	for api, want := range map[forecastingv1alpha1.Partitioning]string{
+		forecastingv1alpha1.PartitionHashBuckets: runconfig.PartitionNone,
+		forecastingv1alpha1.PartitionObjects:     runconfig.PartitionObject,
+		forecastingv1alpha1.PartitionRowGroups:   runconfig.PartitionRowGroup,
+	} {
+		fp := fenwickPortfolio()
+		fp.Spec.Source.Format = forecastingv1alpha1.FormatParquet
+		fp.Spec.Source.Partitioning = api
+		fp.Spec.Sharding.Buckets = 64
+		got, err := renderConfig(fp, fenwickRun("r"), "")
+		if err != nil {
+			t.Fatalf("%s: %v", api, err)
+		}
+		if got.Source.Partitioning != want || got.Sharding.Buckets != 64 {
+			t.Errorf("%s: partitioning %q buckets %d, want %q and 64", api, got.Source.Partitioning, got.Sharding.Buckets, want)
+		}
+		if err := got.Validate(); err != nil {
+			t.Errorf("%s: rendered config refused by the trainer: %v", api, err)
 		}
 	}
 }

@@ -27,6 +27,22 @@ const (
 	FormatParquet DataFormat = "parquet"
 )
 
+// Partitioning is what the input's layout promises about where a series' rows are.
+// +kubebuilder:validation:Enum=HashBuckets;Objects;RowGroups
+type Partitioning string
+
+const (
+	// PartitionHashBuckets promises nothing: the units are hash buckets of the series key, and
+	// every train pod reads the whole input, keeping only its buckets' rows.
+	PartitionHashBuckets Partitioning = "HashBuckets"
+	// PartitionObjects promises that all rows of a series are in one object (e.g. one file per
+	// depot): each object is a unit, and a train pod reads only its own objects.
+	PartitionObjects Partitioning = "Objects"
+	// PartitionRowGroups (Parquet only) promises that all rows of a series are in one row group:
+	// row-group ranges are the units.
+	PartitionRowGroups Partitioning = "RowGroups"
+)
+
 // Frequency is the regular spacing of the input series.
 // +kubebuilder:validation:Enum=Hourly;Daily;Weekly;Monthly;Quarterly;Yearly
 type Frequency string
@@ -209,6 +225,7 @@ type ForecastPortfolioSpec struct {
 }
 
 // DataSource locates the input table (long format: one row per series and period).
+// +kubebuilder:validation:XValidation:rule="!has(self.partitioning) || self.partitioning != 'RowGroups' || (has(self.format) && self.format == 'parquet')",message="partitioning RowGroups needs format parquet"
 type DataSource struct {
 	// uri is a blob URL of one object or a prefix ending in "/": file://, s3://, gs://, azblob://
 	// or mem://. For s3 an endpoint may be given as a query parameter.
@@ -248,6 +265,15 @@ type DataSource struct {
 	// +optional
 	// +kubebuilder:default=true
 	NonNegative *bool `json:"nonNegative,omitempty"`
+
+	// partitioning says what the input's layout promises about where each series' rows are,
+	// which decides how the work is cut: HashBuckets (default; no promise, every train pod
+	// reads all input and keeps its share of series), Objects (each series lies wholly in one
+	// object; pods read only their objects) or RowGroups (Parquet; each series in one row group).
+	// A wrong promise splits a series across shards, so keep the default unless it holds.
+	// +optional
+	// +kubebuilder:default=HashBuckets
+	Partitioning Partitioning `json:"partitioning,omitempty"`
 
 	// credentialsSecretRef names a Secret in the portfolio's namespace whose keys are passed to
 	// the trainer pods as environment variables (e.g. AWS_ACCESS_KEY_ID). The controller only
@@ -476,6 +502,15 @@ type ShardingSpec struct {
 	// +kubebuilder:validation:Minimum=0
 	// +kubebuilder:validation:Maximum=100000
 	MaxFailedShards *int32 `json:"maxFailedShards,omitempty"`
+
+	// buckets fixes the number of series-key hash buckets for HashBuckets input (0 or a power
+	// of two up to 65536). Unset or 0: the trainer keeps the previous run's count and chooses
+	// one on the first run from the series count and targetSeriesPerShard.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=65536
+	// +kubebuilder:validation:XValidation:rule="self in [0, 1, 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096, 8192, 16384, 32768, 65536]",message="buckets must be 0 or a power of two"
+	Buckets int32 `json:"buckets,omitempty"`
 
 	// activeDeadlineSeconds bounds each of the run's Jobs. Unset: no bound.
 	// +optional

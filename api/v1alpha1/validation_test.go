@@ -140,6 +140,18 @@ var _ = Describe("CRD validation", func() {
 		Entry("time zone with a space", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, "Europe/New York", "spec", "timeZone") },
 			want:   []string{"spec.timeZone"}}),
+		Entry("row-group partitioning of CSV input", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, "csv", "spec", "source", "format")
+				set(u, "RowGroups", "spec", "source", "partitioning")
+			},
+			want: []string{"spec.source", "partitioning RowGroups needs format parquet"}}),
+		Entry("unknown partitioning", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "ByDepot", "spec", "source", "partitioning") },
+			want:   []string{"spec.source.partitioning", `"HashBuckets", "Objects", "RowGroups"`}}),
+		Entry("bucket count not a power of two", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(48), "spec", "sharding", "buckets") },
+			want:   []string{"spec.sharding.buckets", "power of two"}}),
 		Entry("unknown concurrency policy", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, "Allow", "spec", "concurrencyPolicy") },
 			want:   []string{"spec.concurrencyPolicy", `"Forbid", "Replace"`}}),
