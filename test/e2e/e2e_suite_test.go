@@ -17,6 +17,9 @@ import (
 	corev1 "k8s.io/api/core/v1"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
+	logf "sigs.k8s.io/controller-runtime/pkg/log"
+	"sigs.k8s.io/controller-runtime/pkg/log/zap"
+
 	"almanac.dev/almanac/test/e2e/harness"
 )
 
@@ -42,6 +45,7 @@ func TestE2E(t *testing.T) {
 }
 
 var _ = BeforeSuite(func(ctx SpecContext) {
+	logf.SetLogger(zap.New(zap.WriteTo(GinkgoWriter)))
 	var err error
 	suiteDir, err = os.MkdirTemp("", "almanac-e2e-")
 	Expect(err).NotTo(HaveOccurred())

@@ -76,6 +76,7 @@ type Cluster struct {
 	nodeLog   *os.File
 	logs      []*os.File // etcd and kube-apiserver logs, closed by Stop
 	mgrStop   func() error
+	lifetime  time.Duration
 	stopOnce  sync.Once
 	stopError error
 }
@@ -109,7 +110,7 @@ func Start(ctx context.Context, opts Options) (c *Cluster, err error) {
 	if opts.Lifetime == 0 {
 		opts.Lifetime = 15 * time.Minute
 	}
-	c = &Cluster{Dir: opts.Dir}
+	c = &Cluster{Dir: opts.Dir, lifetime: opts.Lifetime}
 	defer func() {
 		if err != nil {
 			_ = c.Stop()
@@ -165,7 +166,7 @@ func Start(ctx context.Context, opts Options) (c *Cluster, err error) {
 		return c, err
 	}
 
-	c.kcm, err = StartProcess(opts.Dir, "kube-controller-manager", opts.Lifetime, filepath.Join(opts.Assets, "kube-controller-manager"),
+	c.kcm, err = StartProcess(opts.Dir, "kube-controller-manager", opts.Lifetime, nil, filepath.Join(opts.Assets, "kube-controller-manager"),
 		"--kubeconfig="+c.Kubeconfig,
 		"--controllers="+strings.Join(opts.Controllers, ","),
 		"--leader-elect=false",
@@ -271,15 +272,40 @@ func lifetimeWrapper(dir, binary string, lifetime time.Duration) (string, error)
 	return path, os.WriteFile(path, []byte(script), 0o755)
 }
 
-// recordPIDs appends the PIDs of the processes running the wrapped binaries (found through
-// /proc, children of this process) to <dir>/pids.
+// recordPIDs appends to <dir>/pids the PIDs of this process's children that run one of the
+// wrapped binaries (the timeout(1) processes) and of their children (the binaries), found
+// through /proc.
 func recordPIDs(dir string, names ...string) error {
-	entries, err := os.ReadDir("/proc")
-	if err != nil {
-		return nil // not Linux: nothing to record
-	}
-	self := strconv.Itoa(os.Getpid())
+	parents := map[int]string{}
+	self := os.Getpid()
+	procs := listProcs()
 	var lines []string
+	for _, p := range procs {
+		for _, n := range names {
+			if p.ppid == self && strings.Contains(p.cmdline, "/"+n+"\x00") {
+				parents[p.pid] = n
+				lines = append(lines, fmt.Sprintf("%d %s (timeout)", p.pid, n))
+			}
+		}
+	}
+	for _, p := range procs {
+		if n, ok := parents[p.ppid]; ok {
+			lines = append(lines, fmt.Sprintf("%d %s", p.pid, n))
+		}
+	}
+	return appendPIDs(dir, lines...)
+}
+
+// proc is one entry of /proc.
+type proc struct {
+	pid, ppid int
+	cmdline   string
+}
+
+// listProcs reads pid, parent pid and command line of every process (none when /proc is absent).
+func listProcs() []proc {
+	entries, _ := os.ReadDir("/proc")
+	var out []proc
 	for _, e := range entries {
 		pid, err := strconv.Atoi(e.Name())
 		if err != nil {
@@ -291,17 +317,14 @@ func recordPIDs(dir string, names ...string) error {
 		}
 		// stat: pid (comm) state ppid ...
 		f := strings.Fields(string(stat[strings.LastIndexByte(string(stat), ')')+1:]))
-		if len(f) < 2 || f[1] != self {
+		if len(f) < 2 {
 			continue
 		}
+		ppid, _ := strconv.Atoi(f[1])
 		cmdline, _ := os.ReadFile(filepath.Join("/proc", e.Name(), "cmdline"))
-		for _, n := range names {
-			if strings.Contains(string(cmdline), "/"+n+"\x00") {
-				lines = append(lines, fmt.Sprintf("%d %s", pid, n))
-			}
-		}
+		out = append(out, proc{pid: pid, ppid: ppid, cmdline: string(cmdline)})
 	}
-	return appendPIDs(dir, lines...)
+	return out
 }
 
 func appendPIDs(dir string, lines ...string) error {

@@ -24,9 +24,9 @@ type Process struct {
 }
 
 // StartProcess starts binary with args as name, logging to <dir>/<name>.log, ended by SIGTERM
-// after lifetime (SIGKILL 10 s later) and by SIGTERM when the test process dies. Its PID is
-// appended to <dir>/pids.
-func StartProcess(dir, name string, lifetime time.Duration, binary string, args ...string) (*Process, error) {
+// after lifetime (SIGKILL 10 s later) and by SIGTERM when the test process dies. env, when not
+// nil, is added to this process's environment. Its PID is appended to <dir>/pids.
+func StartProcess(dir, name string, lifetime time.Duration, env []string, binary string, args ...string) (*Process, error) {
 	timeout, err := exec.LookPath("timeout")
 	if err != nil {
 		return nil, fmt.Errorf("harness: timeout(1) from coreutils is needed: %w", err)
@@ -39,6 +39,9 @@ func StartProcess(dir, name string, lifetime time.Duration, binary string, args 
 	full := append([]string{"--kill-after=10s", fmt.Sprintf("%ds", int(lifetime.Seconds())), binary}, args...)
 	p.cmd = exec.Command(timeout, full...)
 	p.cmd.Stdout, p.cmd.Stderr = log, log
+	if env != nil {
+		p.cmd.Env = append(os.Environ(), env...)
+	}
 	p.cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true, Pdeathsig: syscall.SIGTERM}
 	if err := p.cmd.Start(); err != nil {
 		log.Close()
