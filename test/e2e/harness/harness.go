@@ -7,7 +7,12 @@
 // killed; each is started in its own process group, its PID is written to <Dir>/pids, and Stop
 // ends the group (SIGTERM, then SIGKILL). The localnode agent runs in the test process (a
 // goroutine); the processes it starts get SIGKILL when the test process dies. Logs go to files
-// under Dir.
+// under Dir. Start returns once the Nodes are Ready.
+//
+// The almanac manager plugs in through Options.Manager in one of two kinds: InProcess (a
+// function run in the test process with the admin config, for tests that need the manager's
+// internals) or Binary (the built bin/almanac-controller as one more process, for tests of the
+// shipped binary).
 package harness
 
 import (
@@ -23,6 +28,8 @@ import (
 	"time"
 
 	"go.uber.org/zap/zapcore"
+	corev1 "k8s.io/api/core/v1"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/client-go/kubernetes"
 	"k8s.io/client-go/rest"
 	"sigs.k8s.io/controller-runtime/pkg/envtest"
@@ -208,7 +215,39 @@ func (c *Cluster) startNode(opts Options) error {
 	ctx, cancel := context.WithCancel(context.Background())
 	c.nodeStop, c.nodeDone = cancel, make(chan error, 1)
 	go func() { c.nodeDone <- agent.Run(ctx) }()
+	return c.waitNodes(opts.Nodes, 30*time.Second)
+}
+
+// waitNodes waits until every Node is registered with Ready=True, or the agent has failed.
+func (c *Cluster) waitNodes(nodes []localnode.NodeSpec, timeout time.Duration) error {
+	deadline := time.Now().Add(timeout)
+	for _, n := range nodes {
+		for {
+			node, err := c.Client.CoreV1().Nodes().Get(context.Background(), n.Name, metav1.GetOptions{})
+			if err == nil && nodeReady(node) {
+				break
+			}
+			select {
+			case err := <-c.nodeDone:
+				c.nodeDone <- err // Stop reads it again
+				return fmt.Errorf("harness: localnode stopped: %v", err)
+			case <-time.After(100 * time.Millisecond):
+			}
+			if time.Now().After(deadline) {
+				return fmt.Errorf("harness: node %s not Ready within %s (see localnode.log)", n.Name, timeout)
+			}
+		}
+	}
 	return nil
+}
+
+func nodeReady(n *corev1.Node) bool {
+	for _, c := range n.Status.Conditions {
+		if c.Type == corev1.NodeReady {
+			return c.Status == corev1.ConditionTrue
+		}
+	}
+	return false
 }
 
 // Stop ends the manager, localnode, kube-controller-manager, kube-apiserver and etcd, in that
