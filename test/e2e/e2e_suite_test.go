@@ -29,6 +29,8 @@ const progImage = "fenwick-lane/prog:e2e"
 var (
 	cluster  *harness.Cluster
 	suiteDir string
+	// anyFailed keeps suiteDir (logs, pod directories) for a look after a failed spec.
+	anyFailed bool
 )
 
 func TestE2E(t *testing.T) {
@@ -63,9 +65,11 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 	Expect(err).NotTo(HaveOccurred())
 	DeferCleanup(func() {
 		Expect(cluster.Stop()).To(Succeed())
-		if !CurrentSpecReport().Failed() {
-			_ = os.RemoveAll(suiteDir)
+		if anyFailed {
+			GinkgoWriter.Printf("a spec failed: logs and pod directories kept in %s\n", suiteDir)
+			return
 		}
+		_ = os.RemoveAll(suiteDir)
 	})
 	GinkgoWriter.Printf("cluster up in %s, logs in %s\n", time.Since(start).Round(time.Millisecond), suiteDir)
 }, NodeTimeout(3*time.Minute))
@@ -75,6 +79,7 @@ var _ = ReportAfterEach(func(r SpecReport) {
 	if !r.Failed() || cluster == nil {
 		return
 	}
+	anyFailed = true
 	for _, l := range cluster.Logs() {
 		b, _ := os.ReadFile(l)
 		if len(b) > 4000 {
