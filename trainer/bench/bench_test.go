@@ -2,6 +2,8 @@ package bench
 
 import (
 	"bytes"
+	"context"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -83,5 +85,41 @@ func TestLoadErrors(t *testing.T) {
 	var out, errb bytes.Buffer
 	if code := Main([]string{"--data", dir}, &out, &errb); code != 1 || !strings.Contains(errb.String(), "train.csv:3") {
 		t.Errorf("Main exit %d stderr %q", code, errb.String())
+	}
+}
+
+// R forecast 8.20's thetaf (Hyndman & Billah 2003 form) and our Theta give the same forecasts,
+// so --reference-r must score them alike on the same series; R's ets must come back for every
+// series with a CPU time above zero. Skipped without Rscript + forecast or the M3 data.
+func TestReferenceRThetaMatches(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs R")
+	}
+	d := m3Dir(t)
+	if !HaveR(context.Background()) {
+		t.Skip("Rscript with the forecast package not installed")
+	}
+	all, err := Load(d, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	entries := sample(all, 300, 0) // 11 series over all categories
+	refs, err := ReferenceR(context.Background(), entries, io.Discard)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ours, _, err := Run(context.Background(), entries, Options{Families: []string{"Theta"}, Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(refs) != 2 || refs[1].Method != "R forecast::thetaf" {
+		t.Fatalf("references %v", refs)
+	}
+	th := refs[1].All
+	if th.N != len(entries) || math.Abs(th.MeanSMAPE()-ours.All.MeanSMAPE()) > 1e-3 || math.Abs(th.MeanMASE()-ours.All.MeanMASE()) > 1e-4 {
+		t.Errorf("thetaf %.4f/%.5f, our Theta %.4f/%.5f over %d series", th.MeanSMAPE(), th.MeanMASE(), ours.All.MeanSMAPE(), ours.All.MeanMASE(), th.N)
+	}
+	if e := refs[0].All; e.N != len(entries) || !(e.CPUMilliseconds > 0) {
+		t.Errorf("ets: n=%d cpu %v", e.N, e.CPUMilliseconds)
 	}
 }

@@ -136,6 +136,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's ets and thetaf on the same series and compare (needs Rscript)")
 	limit := fs.Int("limit", 0, "use only the first N series (0: all)")
+	every := fs.Int("every", 1, "use every K-th series of series.csv (a spread sample over categories)")
 	workers := fs.Int("workers", 0, "parallel workers (0: GOMAXPROCS)")
 	origins := fs.Int("origins", selection.DefaultOrigins, "rolling origins per series")
 	step := fs.Int("step", selection.DefaultStep, "distance between origins")
@@ -158,11 +159,16 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "bench: give --data DIR or --m3")
 		return 2
 	}
-	entries, err := Load(dir, *limit)
+	if *every < 1 {
+		fmt.Fprintln(stderr, "bench: --every must be >= 1")
+		return 2
+	}
+	entries, err := Load(dir, 0)
 	if err != nil {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
 		return 1
 	}
+	entries = sample(entries, *every, *limit)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers}
 	if *zooFlag != "" {
@@ -195,15 +201,12 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	var refs []*Report
 	if *refR {
 		refs, err = ReferenceR(context.Background(), entries, stdout)
-		if err != nil {
+		if err != nil && !errors.Is(err, ErrNoR) {
 			fmt.Fprintf(stderr, "bench: reference-r: %v\n", err)
 			return 1
 		}
-		for _, r := range refs {
-			writeTable(stdout, r)
-			fmt.Fprintf(stdout, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.3f\n", r.Method,
-				rep.All.MeanSMAPE()/r.All.MeanSMAPE(), rep.All.MeanMASE()/r.All.MeanMASE(),
-				rep.All.CPUMilliseconds/r.All.CPUMilliseconds)
+		if len(refs) > 0 {
+			writeSideBySide(stdout, rep, refs)
 		}
 	}
 	if *asJSON {
@@ -311,4 +314,61 @@ func repoRoot() (string, error) {
 		}
 		d = p
 	}
+}
+
+// sample keeps every k-th entry, then the first limit of those (limit <= 0: all).
+func sample(es []Entry, k, limit int) []Entry {
+	var out []Entry
+	for i := 0; i < len(es); i += k {
+		if limit > 0 && len(out) == limit {
+			break
+		}
+		out = append(out, es[i])
+	}
+	return out
+}
+
+// writeSideBySide prints sMAPE and MASE per category for ours and each reference, then the
+// ratios ours/reference for sMAPE, MASE and CPU milliseconds per series.
+func writeSideBySide(w io.Writer, ours *Report, refs []*Report) {
+	all := append([]*Report{ours}, refs...)
+	fmt.Fprintf(w, "side by side (sMAPE / MASE)\n  %-10s", "category")
+	for _, r := range all {
+		fmt.Fprintf(w, " %24s", shortName(r.Method))
+	}
+	fmt.Fprintln(w)
+	row := func(name string, get func(*Report) Tally) {
+		fmt.Fprintf(w, "  %-10s", name)
+		for _, r := range all {
+			t := get(r)
+			fmt.Fprintf(w, " %24s", fmt.Sprintf("%.3f / %.4f", t.MeanSMAPE(), t.MeanMASE()))
+		}
+		fmt.Fprintln(w)
+	}
+	for _, c := range ours.Categories {
+		row(c, func(r *Report) Tally {
+			if t := r.By[c]; t != nil {
+				return *t
+			}
+			return Tally{}
+		})
+	}
+	row("ALL", func(r *Report) Tally { return r.All })
+	fmt.Fprintf(w, "  %-10s", "cpu ms/s")
+	for _, r := range all {
+		fmt.Fprintf(w, " %24.2f", r.All.CPUMilliseconds)
+	}
+	fmt.Fprintln(w)
+	for _, r := range refs {
+		fmt.Fprintf(w, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.4f (R %.1fx ours)\n", r.Method,
+			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(),
+			ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
+	}
+}
+
+func shortName(m string) string {
+	if strings.HasPrefix(m, "almanac") {
+		return "almanac"
+	}
+	return m
 }

@@ -11,46 +11,56 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"syscall"
+	"time"
 )
 
 // ErrNoR is returned by ReferenceR when Rscript or the forecast package is not installed.
 var ErrNoR = errors.New("bench: Rscript with the forecast package is not installed")
 
-// rScript fits forecast::ets and forecast::thetaf (R package forecast, Hyndman & Khandakar 2008)
-// to every series in one R process, timing each method with proc.time() (user + system), and
-// writes the forecasts as method,series,step,value and the times as method,cpu_seconds,series.
+// RMethods are the R forecast functions ReferenceR runs, each in its own R process.
+var RMethods = []string{"ets", "thetaf"}
+
+// rScript fits one method of R package forecast (Hyndman & Khandakar 2008) to every series:
+// forecast(ets(x), h) or thetaf(x, h); method "none" only loads the package and reads the
+// input, so its CPU time is R's start-up cost. It writes series,step,value lines, and the
+// number of failed fits (forecast by the last value) on stderr as "failed=N".
 const rScript = `
 suppressPackageStartupMessages(library(forecast))
 args <- commandArgs(trailingOnly = TRUE)
-inp <- readLines(args[1])
-fc <- file(args[2], "w"); tm <- file(args[3], "w")
-cpu <- c(ets = 0, thetaf = 0); failed <- c(ets = 0, thetaf = 0)
-now <- function() { p <- proc.time(); p[[1]] + p[[2]] }
+m <- args[1]
+inp <- readLines(args[2])
+fc <- file(args[3], "w")
+failed <- 0
 for (line in inp) {
   f <- strsplit(line, ",")[[1]]
   id <- f[1]; fr <- as.integer(f[2]); h <- as.integer(f[3])
   x <- ts(as.numeric(strsplit(f[4], " ")[[1]]), frequency = fr)
-  for (m in c("ets", "thetaf")) {
-    t0 <- now()
-    y <- tryCatch(if (m == "ets") forecast(ets(x), h = h)$mean else thetaf(x, h = h)$mean,
-                  error = function(e) { failed[m] <<- failed[m] + 1; rep(x[length(x)], h) })
-    cpu[m] <- cpu[m] + now() - t0
-    writeLines(paste(m, id, seq_len(h), format(as.numeric(y), digits = 17), sep = ","), fc)
-  }
+  if (m == "none") next
+  y <- tryCatch(if (m == "ets") forecast(ets(x), h = h)$mean else thetaf(x, h = h)$mean,
+                error = function(e) { failed <<- failed + 1; rep(x[length(x)], h) })
+  writeLines(paste(id, seq_len(h), format(as.numeric(y), digits = 17), sep = ","), fc)
 }
-for (m in names(cpu)) writeLines(paste(m, cpu[[m]], length(inp), failed[[m]], sep = ","), tm)
-close(fc); close(tm)
+close(fc)
+cat(sprintf("failed=%d\n", failed), file = stderr())
 `
 
-// ReferenceR runs R's ets and thetaf on the entries (see rScript) and scores their forecasts
-// with Accuracy, so the figures compare with ours one to one. CPUMilliseconds is R's own
-// per-series CPU time for the method, excluding R's start-up. It writes a note to w and
-// returns ErrNoR when R is not available.
-func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, error) {
+// HaveR reports whether Rscript and R's forecast package are installed.
+func HaveR(ctx context.Context) bool {
 	rs, err := exec.LookPath("Rscript")
-	if err != nil || exec.CommandContext(ctx, rs, "-e", `quit(status = !requireNamespace("forecast", quietly = TRUE))`).Run() != nil {
+	return err == nil && exec.CommandContext(ctx, rs, "-e", `quit(status = !requireNamespace("forecast", quietly = TRUE))`).Run() == nil
+}
+
+// ReferenceR runs each of RMethods on the entries in its own Rscript process (see rScript) and
+// scores the forecasts with Accuracy, so the figures compare with ours one to one. A report's
+// CPUMilliseconds is the child's user + system CPU time (rusage of the finished process, R is
+// single-threaded; BLAS threads are pinned to 1) minus that of a start-up-only child (method
+// "none": loads forecast and parses the input), divided by the number of series. It writes a
+// note to w and returns ErrNoR when R is not available.
+func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, error) {
+	if !HaveR(ctx) {
 		fmt.Fprintln(w, "reference-r: skipped (Rscript with the forecast package not found)")
-		return nil, nil
+		return nil, ErrNoR
 	}
 	tmp, err := os.MkdirTemp("", "almanac-bench-r")
 	if err != nil {
@@ -58,7 +68,6 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 	}
 	defer os.RemoveAll(tmp)
 	in, script := filepath.Join(tmp, "in.csv"), filepath.Join(tmp, "ref.R")
-	fcPath, tmPath := filepath.Join(tmp, "fc.csv"), filepath.Join(tmp, "times.csv")
 	var b strings.Builder
 	for _, e := range entries {
 		vals := make([]string, len(e.Train))
@@ -73,61 +82,80 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 	if err := os.WriteFile(script, []byte(rScript), 0o600); err != nil {
 		return nil, err
 	}
-	cmd := exec.CommandContext(ctx, rs, "--vanilla", script, in, fcPath, tmPath)
-	if out, err := cmd.CombinedOutput(); err != nil {
-		return nil, fmt.Errorf("Rscript: %v: %s", err, out)
+	run := func(method string) (time.Duration, int, string, error) {
+		out := filepath.Join(tmp, method+".csv")
+		cmd := exec.CommandContext(ctx, "Rscript", "--vanilla", script, method, in, out)
+		cmd.Env = append(os.Environ(), "OMP_NUM_THREADS=1", "OPENBLAS_NUM_THREADS=1")
+		var stderr strings.Builder
+		cmd.Stderr = &stderr
+		if err := cmd.Run(); err != nil {
+			return 0, 0, "", fmt.Errorf("Rscript %s: %v: %s", method, err, stderr.String())
+		}
+		ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage)
+		if !ok {
+			return 0, 0, "", errors.New("no rusage for the R child")
+		}
+		failed := 0
+		if i := strings.LastIndex(stderr.String(), "failed="); i >= 0 {
+			failed, _ = strconv.Atoi(strings.TrimSpace(stderr.String()[i+len("failed="):]))
+		}
+		return time.Duration(ru.Utime.Nano() + ru.Stime.Nano()), failed, out, nil
 	}
+	base, _, _, err := run("none")
+	if err != nil {
+		return nil, err
+	}
+	fmt.Fprintf(w, "reference-r: R start-up and input parsing %.0f ms CPU (subtracted)\n", float64(base.Microseconds())/1000)
 	byID := map[string]int{}
 	for i, e := range entries {
 		byID[e.ID] = i
 	}
-	fcs := map[string][][]float64{}
-	f, err := os.Open(fcPath)
+	var reps []*Report
+	for _, method := range RMethods {
+		cpu, failed, path, err := run(method)
+		if err != nil {
+			return nil, err
+		}
+		fcs, err := readRForecasts(path, byID, len(entries))
+		if err != nil {
+			return nil, err
+		}
+		r := newReport("R forecast::" + method)
+		for i, e := range entries {
+			if len(fcs[i]) != e.Horizon {
+				return nil, fmt.Errorf("R %s: series %s has %d steps, want %d", method, e.ID, len(fcs[i]), e.Horizon)
+			}
+			r.add(e, fcs[i])
+		}
+		r.All.Failed = failed
+		if len(entries) > 0 {
+			r.All.CPUMilliseconds = float64((cpu - base).Microseconds()) / 1000 / float64(len(entries))
+		}
+		reps = append(reps, r)
+	}
+	return reps, nil
+}
+
+// readRForecasts reads series,step,value lines into one path per entry.
+func readRForecasts(path string, byID map[string]int, n int) ([][]float64, error) {
+	f, err := os.Open(path)
 	if err != nil {
 		return nil, err
 	}
 	defer f.Close()
+	out := make([][]float64, n)
 	sc := bufio.NewScanner(f)
 	for line := 1; sc.Scan(); line++ {
 		p := strings.Split(sc.Text(), ",")
-		if len(p) != 4 {
-			return nil, fmt.Errorf("%s:%d: %d fields, want 4", fcPath, line, len(p))
+		if len(p) != 3 {
+			return nil, fmt.Errorf("%s:%d: %d fields, want 3", path, line, len(p))
 		}
-		i, ok := byID[p[1]]
-		v, err := strconv.ParseFloat(strings.TrimSpace(p[3]), 64)
+		i, ok := byID[p[0]]
+		v, err := strconv.ParseFloat(strings.TrimSpace(p[2]), 64)
 		if !ok || err != nil {
-			return nil, fmt.Errorf("%s:%d: bad series or value %q", fcPath, line, sc.Text())
+			return nil, fmt.Errorf("%s:%d: bad series or value %q", path, line, sc.Text())
 		}
-		if fcs[p[0]] == nil {
-			fcs[p[0]] = make([][]float64, len(entries))
-		}
-		fcs[p[0]][i] = append(fcs[p[0]][i], v)
+		out[i] = append(out[i], v)
 	}
-	if err := sc.Err(); err != nil {
-		return nil, err
-	}
-	times, err := os.ReadFile(tmPath)
-	if err != nil {
-		return nil, err
-	}
-	var out []*Report
-	for _, line := range strings.Split(strings.TrimSpace(string(times)), "\n") {
-		p := strings.Split(line, ",")
-		if len(p) != 4 {
-			return nil, fmt.Errorf("%s: bad line %q", tmPath, line)
-		}
-		sec, _ := strconv.ParseFloat(p[1], 64)
-		failed, _ := strconv.Atoi(p[3])
-		r := newReport("R forecast::" + p[0])
-		for i, e := range entries {
-			if len(fcs[p[0]][i]) != e.Horizon {
-				return nil, fmt.Errorf("R %s: series %s has %d steps, want %d", p[0], e.ID, len(fcs[p[0]][i]), e.Horizon)
-			}
-			r.add(e, fcs[p[0]][i])
-		}
-		r.All.Failed = failed
-		r.All.CPUMilliseconds = 1000 * sec / float64(len(entries))
-		out = append(out, r)
-	}
-	return out, nil
+	return out, sc.Err()
 }
