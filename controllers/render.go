@@ -90,7 +90,8 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 	}
 	if cb := spec.Selection.Combine; cb != nil {
 		c.Selection.CombineTop = int(cb.Top)
-		c.Selection.CombineMethod = string(orDefault(cb.Method, forecastingv1alpha1.CombineMean))
+		// The trainer names the methods in lower case (trainer/selection: "mean", "median").
+		c.Selection.CombineMethod = strings.ToLower(string(orDefault(cb.Method, forecastingv1alpha1.CombineMean)))
 	}
 	for i, m := range spec.Models {
 		ms, err := renderModel(m)

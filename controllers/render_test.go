@@ -83,7 +83,7 @@ func TestRenderConfig(t *testing.T) {
 			{Family: "ETS", ETS: &models.ETSOptions{Trends: []string{"N", "Ad"}}},
 			{Family: "TSB", Name: "tsb-slow", SeasonLength: 1, Smoothing: &models.SmoothingOptions{Alpha: 0.1, Beta: 0.05}},
 		},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "Mean"},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean"},
 		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 2000},
 		Drift:     runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 100},
 	}
