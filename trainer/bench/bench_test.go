@@ -54,7 +54,7 @@ func TestScorePublishedTheta(t *testing.T) {
 func TestMainSummaryLine(t *testing.T) {
 	d := m3Dir(t)
 	var out, errb bytes.Buffer
-	if code := Main([]string{"--data", d, "--limit", "30", "--zoo", "Naive", "--json"}, &out, &errb); code != 0 {
+	if code := Main([]string{"--data", d, "--limit", "30", "--zoo", "Naive", "--design", "fixed", "--json"}, &out, &errb); code != 0 {
 		t.Fatalf("exit %d: %s", code, errb.String())
 	}
 	lines := strings.Split(strings.TrimSpace(out.String()), "\n")

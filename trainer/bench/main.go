@@ -100,6 +100,131 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 	return rep, results, nil
 }
 
+// Design is one candidate way for the engine to choose forecasts: a zoo and a selection rule.
+type Design struct {
+	Name string
+	Opts Options
+}
+
+// InnerDesigns are the candidates ChooseByInnerHoldout weighs, fixed before any test score of
+// this list was seen (PROJECT-NOTES.md, 2026-12-02 second session):
+//
+//   - select: full zoo, best member per series by the rolling-origin backtest;
+//   - top3: full zoo, equal-weight mean of each series' 3 best members by backtest;
+//   - ets-arima-theta: the fixed mean of ETS, ARIMA and Theta (Petropoulos & Svetunkov 2020,
+//     "A simple combination of univariate models", IJF 36; the M4 "Comb" idea);
+//   - ets-theta: the fixed mean of ETS and Theta (this one entered the list after the last
+//     session had seen its M3 test score).
+func InnerDesigns(o Options) []Design {
+	sel := o
+	sel.Families, sel.CombineTop, sel.CombineMargin = nil, 0, 0
+	top := sel
+	top.CombineTop, top.CombineMargin = 3, 1000
+	eat := sel
+	eat.Families = []string{models.FamilyETSARIMATheta}
+	et := sel
+	et.Families, et.CombineTop, et.CombineMargin = []string{models.FamilyETS, models.FamilyTheta}, 2, 1000
+	return []Design{{"select", sel}, {"top3", top}, {"ets-arima-theta", eat}, {"ets-theta", et}}
+}
+
+// ChooseByInnerHoldout picks, per category, the design with the lowest mean MASE on an inner
+// holdout that uses training data only: every series' last h training observations are held
+// out, each design forecasts them from the rest, and the forecasts are scored with Accuracy
+// (in-sample scale from the shortened history). Series too short to lose h points (fewer than
+// h + 2m + 2 left) are left out of the inner holdout. It returns the chosen design per category
+// and the inner MASE of every design, and writes them to w. This is a validation-set choice
+// (Tashman 2000, section 2: hold out the end of the in-sample data); the test data of the
+// entries are never read.
+func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, w io.Writer) (map[string]Design, error) {
+	var inner []Entry
+	for _, e := range entries {
+		if len(e.Train)-e.Horizon < e.Horizon+2*e.Frequency+2 {
+			continue
+		}
+		ie := e
+		ie.Train = e.Train[:len(e.Train)-e.Horizon]
+		ie.Test = e.Train[len(e.Train)-e.Horizon:]
+		inner = append(inner, ie)
+	}
+	scores := make([]*Report, len(ds))
+	for i, d := range ds {
+		r, _, err := Run(ctx, inner, d.Opts)
+		if err != nil {
+			return nil, fmt.Errorf("inner holdout, design %s: %w", d.Name, err)
+		}
+		scores[i] = r
+	}
+	out := map[string]Design{}
+	cats := map[string]bool{}
+	for _, e := range entries {
+		cats[e.Category] = true
+	}
+	fmt.Fprintf(w, "inner holdout (last h training points, %d series), mean MASE per category:\n", len(inner))
+	for c := range cats {
+		best := -1
+		for i := range ds {
+			t := scores[i].By[c]
+			if t == nil || t.MASEN == 0 {
+				continue
+			}
+			fmt.Fprintf(w, "  %-10s %-16s %.4f\n", c, ds[i].Name, t.MeanMASE())
+			if best < 0 || t.MeanMASE() < scores[best].By[c].MeanMASE() {
+				best = i
+			}
+		}
+		if best < 0 {
+			best = 0
+		}
+		out[c] = ds[best]
+		fmt.Fprintf(w, "  %-10s chosen: %s\n", c, ds[best].Name)
+	}
+	return out, nil
+}
+
+// RunChosen runs, per category, the design chosen for it and merges the results into one
+// report (CPU time summed over the categories' runs).
+func RunChosen(ctx context.Context, entries []Entry, chosen map[string]Design) (*Report, []selection.Result, error) {
+	byCat := map[string][]int{}
+	var order []string
+	for i, e := range entries {
+		if _, ok := byCat[e.Category]; !ok {
+			order = append(order, e.Category)
+		}
+		byCat[e.Category] = append(byCat[e.Category], i)
+	}
+	rep := newReport("almanac inner-holdout choice per category")
+	results := make([]selection.Result, len(entries))
+	cpu := 0.0
+	for _, c := range order {
+		sub := make([]Entry, len(byCat[c]))
+		for j, i := range byCat[c] {
+			sub[j] = entries[i]
+		}
+		r, rs, err := Run(ctx, sub, chosen[c].Opts)
+		if err != nil {
+			return nil, nil, err
+		}
+		for j, i := range byCat[c] {
+			results[i] = rs[j]
+		}
+		t := r.By[c]
+		*rep.tally(c) = *t
+		rep.All.N += t.N
+		rep.All.SMAPE += t.SMAPE
+		rep.All.MASE += t.MASE
+		rep.All.MASEN += t.MASEN
+		rep.All.Failed += t.Failed
+		rep.All.Expected += t.Expected
+		rep.All.ExpectedN += t.ExpectedN
+		cpu += r.All.CPUMilliseconds * float64(len(sub))
+		rep.Method += " " + c + "=" + chosen[c].Name
+	}
+	if len(entries) > 0 {
+		rep.All.CPUMilliseconds = cpu / float64(len(entries))
+	}
+	return rep, results, nil
+}
+
 func describe(o Options, zoo []models.Spec) string {
 	names := make([]string, len(zoo))
 	for i, s := range zoo {
@@ -143,6 +268,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	combine := fs.Int("combine", 0, "also score the combination of the best N members (0/1: none)")
 	combineMethod := fs.String("combine-method", selection.CombineMean, "combination: mean or median")
 	margin := fs.Float64("combine-margin", 0, "choose the combination unless the best member beats it by more than this relative margin")
+	design := fs.String("design", "inner", `"inner": choose per category among InnerDesigns by an inner holdout on training data (the other flags shape the candidates); "fixed": run exactly the zoo and selection the flags give`)
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
 	if err := fs.Parse(args); err != nil {
 		return 2
@@ -186,7 +312,23 @@ func Main(args []string, stdout, stderr io.Writer) int {
 			writeTable(stdout, r)
 		}
 	}
-	rep, results, err := Run(context.Background(), entries, o)
+	var rep *Report
+	var results []selection.Result
+	if *design == "inner" {
+		var chosen map[string]Design
+		cpu0 := cpuTime()
+		if chosen, err = ChooseByInnerHoldout(context.Background(), entries, InnerDesigns(o), stdout); err == nil {
+			choiceCPU := cpuTime() - cpu0
+			rep, results, err = RunChosen(context.Background(), entries, chosen)
+			if err == nil {
+				fmt.Fprintf(stdout, "  inner-holdout choice: %.2f cpu ms/series, final run %.2f; cpu_ms_per_series below is their sum\n",
+					float64(choiceCPU.Microseconds())/1000/float64(len(entries)), rep.All.CPUMilliseconds)
+				rep.All.CPUMilliseconds += float64(choiceCPU.Microseconds()) / 1000 / float64(len(entries))
+			}
+		}
+	} else {
+		rep, results, err = Run(context.Background(), entries, o)
+	}
 	if err != nil {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
 		return 1
