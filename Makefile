@@ -98,8 +98,8 @@ bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast 
 	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
 
 .PHONY: demo
-demo: ## Run the demo on a local control plane.
-	@if [ -f test/e2e/demo/main.go ]; then go run ./test/e2e/demo; else echo "make demo lands with the end-to-end issue; see README"; exit 1; fi
+demo: controlplane build ## Local control plane, the sample portfolio on generated Fenwick Lane data, two runs, a report in demo-output/.
+	go run ./test/e2e/demo
 
 .PHONY: clean
 clean:
