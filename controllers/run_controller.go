@@ -192,6 +192,24 @@ func (r *RunReconciler) adopt(ctx context.Context, run *forecastingv1alpha1.Fore
 	return nil
 }
 
+// previousRun is the newest succeeded run of run's portfolio other than run, read from the
+// runs themselves: the portfolio's status.lastSuccessfulRun can lag behind in the cache (a
+// drift run created in the same reconcile that records the run before it saw the older name).
+func (r *RunReconciler) previousRun(ctx context.Context, run *forecastingv1alpha1.ForecastRun) (string, error) {
+	var list forecastingv1alpha1.ForecastRunList
+	if err := r.List(ctx, &list, client.InNamespace(run.Namespace),
+		client.MatchingFields{IndexRunPortfolio: run.Spec.PortfolioName}); err != nil {
+		return "", fmt.Errorf("list runs of portfolio %s: %w", run.Spec.PortfolioName, err)
+	}
+	_, succeeded, _ := sortRuns(list.Items)
+	for i := len(succeeded) - 1; i >= 0; i-- {
+		if succeeded[i].Name != run.Name {
+			return succeeded[i].Name, nil
+		}
+	}
+	return "", nil
+}
+
 // start renders the ConfigMap, checks the credentials Secret and creates the plan Job.
 func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
 	st := w.status
@@ -199,9 +217,9 @@ func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.Fore
 	err := r.Get(ctx, types.NamespacedName{Namespace: run.Namespace, Name: configMapName(run.Name)}, &cm)
 	switch {
 	case apierrors.IsNotFound(err):
-		previous := fp.Status.LastSuccessfulRun
-		if previous == run.Name {
-			previous = ""
+		previous, perr := r.previousRun(ctx, run)
+		if perr != nil {
+			return perr
 		}
 		cfg, rerr := renderConfig(fp, run, previous)
 		if rerr != nil {
