@@ -110,6 +110,10 @@ help:
 	@awk 'BEGIN {FS = ":.*##"} /^[a-zA-Z0-9_-]+:.*?##/ { printf "  %-17s %s\n", $$1, $$2 }' $(MAKEFILE_LIST)
 
 .PHONY: fixtures
-fixtures: ## Regenerate the R forecast 8.20 fixtures (needs Debian's r-cran-forecast; CI does not run R).
+fixtures: ## Regenerate the reference fixtures (Debian's r-cran-forecast 8.20 and python3-statsmodels; CI does not run them).
 	Rscript test/reference/r/simple.R | gofmt > test/reference/simple_fixtures_test.go
 	Rscript test/reference/r/ets.R | gofmt > test/reference/ets_fixtures_test.go
+	Rscript test/reference/arima.R > test/reference/testdata/arima_r.json
+	@if /usr/bin/python3 -c 'import statsmodels' 2>/dev/null; then \
+	  /usr/bin/python3 test/reference/arima_statsmodels.py > test/reference/testdata/arima_statsmodels.json; \
+	else echo "fixtures: Debian's python3-statsmodels not importable; arima_statsmodels.json kept"; fi
