@@ -42,7 +42,7 @@ func TestE2E(t *testing.T) {
 	}
 	RegisterFailHandler(Fail)
 	suite, reporter := GinkgoConfiguration()
-	suite.Timeout = 5 * time.Minute
+	suite.Timeout = 20 * time.Minute
 	RunSpecs(t, "End-to-end suite", suite, reporter)
 }
 
@@ -57,10 +57,15 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 	out, err := build.CombinedOutput()
 	Expect(err).NotTo(HaveOccurred(), "build test program: %s", out)
 
+	images, crds, err := almanacImages(ctx, suiteDir) // fixtures_test.go: trainer and its wrappers
+	Expect(err).NotTo(HaveOccurred())
+	images[progImage] = prog
+
 	start := time.Now()
 	cluster, err = harness.Start(ctx, harness.Options{
-		Dir:    suiteDir,
-		Images: map[string]string{progImage: prog},
+		Dir:     suiteDir,
+		Images:  images,
+		CRDDirs: crds,
 	})
 	Expect(err).NotTo(HaveOccurred())
 	DeferCleanup(func() {
@@ -72,7 +77,7 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 		_ = os.RemoveAll(suiteDir)
 	})
 	GinkgoWriter.Printf("cluster up in %s, logs in %s\n", time.Since(start).Round(time.Millisecond), suiteDir)
-}, NodeTimeout(3*time.Minute))
+}, NodeTimeout(10*time.Minute))
 
 // Print where the logs are, and the end of each, when a spec fails.
 var _ = ReportAfterEach(func(r SpecReport) {
