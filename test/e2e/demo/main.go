@@ -218,8 +218,11 @@ func run(ctx context.Context) (err error) {
 	}
 
 	reportDir := filepath.Join(out, "report")
-	say("writing the report page: almanac-trainer report --output %s --dir %s", fp.Spec.Output.URI, rel(root, reportDir))
-	if err := command(ctx, trainer, "report", "--output", fp.Spec.Output.URI, "--dir", reportDir); err != nil {
+	// The report is of the second run: it measured the first run's forecasts on the new
+	// actuals. A drift run that may follow trains on the same data and evaluates nothing new.
+	say("writing the report page of %s: almanac-trainer report --output %s --run %s --dir %s",
+		second.Name, fp.Spec.Output.URI, second.Name, rel(root, reportDir))
+	if err := command(ctx, trainer, "report", "--output", fp.Spec.Output.URI, "--run", second.Name, "--dir", reportDir); err != nil {
 		return err
 	}
 	say("done in %s", time.Since(started).Round(time.Second))
