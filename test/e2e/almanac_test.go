@@ -15,6 +15,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/controllers"
 	"almanac.dev/almanac/trainer/synth"
 )
 
@@ -296,6 +297,59 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		Expect(shifted.latestRun()).To(Equal(name))
 		Expect(shifted.readManifest(name).PreviousRun).To(Equal("fenwick-shift-2"), "the drift run follows the run that measured the drift")
 	}, SpecTimeout(4*time.Minute))
+
+	It("skips a due run with an Event while a run is active (Forbid), and deleting the portfolio deletes its runs and Jobs", func(ctx SpecContext) {
+		ns, d, fp := newPortfolio(ctx, c, "forbid", "fenwick-forbid", gatedImage, nil)
+		manualRun(ctx, c, fp, "fenwick-forbid-1")
+		Eventually(func(g Gomega) {
+			var run forecastingv1alpha1.ForecastRun
+			g.Expect(c.Get(ctx, client.ObjectKey{Namespace: ns, Name: "fenwick-forbid-1"}, &run)).To(Succeed())
+			g.Expect(run.Status.Phase).To(Equal(forecastingv1alpha1.PhaseTraining))
+		}).WithContext(ctx).WithTimeout(2 * time.Minute).Should(Succeed())
+
+		By("making a run due every minute while shards 1-3 are held")
+		editPortfolio(ctx, c, fp, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Schedule = "* * * * *"
+			fp.Spec.StartingDeadlineSeconds = ptr.To[int64](30)
+		})
+		Eventually(func(g Gomega) []string {
+			list, err := cluster.Client.EventsV1().Events(ns).List(ctx, metav1.ListOptions{})
+			g.Expect(err).NotTo(HaveOccurred())
+			var reasons []string
+			for _, e := range list.Items {
+				if e.Regarding.Name == fp.Name {
+					reasons = append(reasons, e.Reason)
+				}
+			}
+			return reasons
+		}).WithContext(ctx).WithTimeout(2 * time.Minute).WithPolling(time.Second).Should(ContainElement(forecastingv1alpha1.ReasonSkippedForbidden))
+		var runs forecastingv1alpha1.ForecastRunList
+		Expect(c.List(ctx, &runs, client.InNamespace(ns))).To(Succeed())
+		Expect(runs.Items).To(HaveLen(1), "no second run while the first is active")
+
+		By("suspending, releasing the held shards and letting the run finish")
+		editPortfolio(ctx, c, fp, func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Suspend = ptr.To(true) })
+		Expect(os.WriteFile(filepath.Join(gateDir, fp.Name), nil, 0o644)).To(Succeed())
+		expectClean(finishedRun(ctx, c, ns, "fenwick-forbid-1"))
+		Expect(d.latestRun()).To(Equal("fenwick-forbid-1"))
+
+		By("deleting the portfolio")
+		Expect(c.Delete(ctx, fp)).To(Succeed())
+		Eventually(func(g Gomega) {
+			var runs forecastingv1alpha1.ForecastRunList
+			g.Expect(c.List(ctx, &runs, client.InNamespace(ns))).To(Succeed())
+			g.Expect(runs.Items).To(BeEmpty())
+			jobs, err := cluster.Client.BatchV1().Jobs(ns).List(ctx, metav1.ListOptions{})
+			g.Expect(err).NotTo(HaveOccurred())
+			g.Expect(jobs.Items).To(BeEmpty())
+			pods, err := cluster.Client.CoreV1().Pods(ns).List(ctx, metav1.ListOptions{})
+			g.Expect(err).NotTo(HaveOccurred())
+			g.Expect(pods.Items).To(BeEmpty())
+			cms, err := cluster.Client.CoreV1().ConfigMaps(ns).List(ctx, metav1.ListOptions{LabelSelector: controllers.LabelPortfolio})
+			g.Expect(err).NotTo(HaveOccurred())
+			g.Expect(cms.Items).To(BeEmpty())
+		}).WithContext(ctx).WithTimeout(2 * time.Minute).WithPolling(time.Second).Should(Succeed())
+	}, SpecTimeout(5*time.Minute))
 })
 
 // findCondition returns the condition of type t, or nil.
