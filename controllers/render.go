@@ -103,7 +103,7 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 	c.Drift = runconfig.Drift{
 		Metric:             orDefault(string(spec.Drift.Metric), c.Selection.Metric),
 		ThresholdRatio:     float64(orDefault(spec.Drift.ThresholdPercent, defaultThresholdPercent)) / 100,
-		MinEvaluatedPoints: int(orDefault(spec.Drift.MinEvaluatedPoints, defaultMinPoints)),
+		MinEvaluatedPoints: seriesMinPoints(int(orDefault(spec.Drift.MinEvaluatedPoints, defaultMinPoints)), c.Horizon),
 	}
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("portfolio %s/%s: %w", fp.Namespace, fp.Name, err)
@@ -168,4 +168,14 @@ var partitioning = map[forecastingv1alpha1.Partitioning]string{
 	forecastingv1alpha1.PartitionHashBuckets: runconfig.PartitionNone,
 	forecastingv1alpha1.PartitionObjects:     runconfig.PartitionObject,
 	forecastingv1alpha1.PartitionRowGroups:   runconfig.PartitionRowGroup,
+}
+
+// seriesMinPoints is the fewest new actuals one series needs before the trainer flags it as
+// drifted. The portfolio's minEvaluatedPoints counts (series, period) actuals over the whole
+// portfolio (the controller applies it to the run's sums, see driftVerdict); applied to each
+// series it would make single-series flags impossible whenever it exceeds the horizon. A series
+// is judged on min(portfolio minimum, horizon) points: a full horizon of new actuals, or fewer
+// when the portfolio asks for fewer.
+func seriesMinPoints(portfolioMin, horizon int) int {
+	return max(1, min(portfolioMin, horizon))
 }

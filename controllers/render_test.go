@@ -85,7 +85,8 @@ func TestRenderConfig(t *testing.T) {
 		},
 		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean"},
 		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 2000},
-		Drift:     runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 100},
+		// Portfolio minimum 100 over all series; one series is judged on a full horizon (12).
+		Drift: runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 12},
 	}
 	if diff := cmp.Diff(want, got); diff != "" {
 		t.Errorf("renderConfig (-want,+got):\n%s", diff)
@@ -181,6 +182,19 @@ func TestRenderPartitioning(t *testing.T) {
 		}
 		if err := got.Validate(); err != nil {
 			t.Errorf("%s: rendered config refused by the trainer: %v", api, err)
+		}
+	}
+}
+
+func TestSeriesMinPoints(t *testing.T) {
+	for _, c := range []struct{ portfolio, horizon, want int }{
+		{100, 12, 12}, // the portfolio-wide count is larger than one series can reach in a horizon
+		{5, 12, 5},    // the portfolio asks for fewer
+		{1, 1, 1},
+		{0, 8, 1}, // never zero: a series with no new actuals is never judged
+	} {
+		if got := seriesMinPoints(c.portfolio, c.horizon); got != c.want {
+			t.Errorf("seriesMinPoints(%d, %d) = %d, want %d", c.portfolio, c.horizon, got, c.want)
 		}
 	}
 }

@@ -123,7 +123,9 @@ type Drift struct {
 	Metric string `json:"metric"`
 	// ThresholdRatio: a series drifts when realized / expected > ThresholdRatio.
 	ThresholdRatio float64 `json:"thresholdRatio"`
-	// MinEvaluatedPoints is the fewest new actuals a series needs before it is judged.
+	// MinEvaluatedPoints is the fewest new actuals a series needs before it is judged. The
+	// controller renders min(portfolio spec.drift.minEvaluatedPoints, horizon): the spec's value
+	// counts actuals across the whole portfolio and is applied by the controller to the sums.
 	MinEvaluatedPoints int `json:"minEvaluatedPoints"`
 }
 
