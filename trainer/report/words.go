@@ -192,7 +192,8 @@ var familyWords = map[string]string{
 	models.FamilySBA:                   "Croston's method with the Syntetos–Boylan bias correction, for intermittent demand",
 	models.FamilyTSB:                   "for intermittent demand: tracks the chance of a demand, so the forecast can fade for dying items",
 	"ARIMA":                            "ARIMA: a model of how each period depends on the ones before",
-	selection.FamilyCombination:        "the average of the best few models' forecasts",
+	models.FamilyETSARIMATheta:         "the equal-weight mean of the ETS, ARIMA and Theta forecasts",
+	selection.FamilyCombination:        "the mean or median (as the portfolio sets) of the best few models' forecasts",
 }
 
 // FamilyWords describes a model family for a planner ("" when unknown).
