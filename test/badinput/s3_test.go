@@ -8,58 +8,31 @@
 package badinput
 
 import (
-	"bufio"
 	"bytes"
 	"context"
 	"errors"
 	"fmt"
-	"os"
-	"os/exec"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"github.com/parquet-go/parquet-go"
 
+	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
 )
 
-// s3 starts the server and returns a store on a fresh prefix and the server process.
-func s3(t *testing.T) (*store.Store, *exec.Cmd) {
-	bin := os.Getenv("ALMANAC_S3_SERVER")
-	if bin == "" {
-		bin = filepath.Join("..", "..", "bin", "s3server")
-	}
-	if _, err := os.Stat(bin); err != nil {
-		t.Skipf("no S3 test server at %s: run `make s3server` or set ALMANAC_S3_SERVER", bin)
-	}
-	cmd := exec.Command(bin, "-addr", "127.0.0.1:0", "-bucket", "fenwick")
-	out, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { _ = cmd.Process.Kill(); _ = cmd.Wait() })
-	sc := bufio.NewScanner(out)
-	if !sc.Scan() {
-		t.Fatal("s3server printed nothing")
-	}
-	endpoint := strings.TrimPrefix(sc.Text(), "listening on ")
-	// Static credentials for the local server only, read by the SDK from the environment.
-	t.Setenv("AWS_ACCESS_KEY_ID", "fenwick-test")
-	t.Setenv("AWS_SECRET_ACCESS_KEY", "fenwick-test-secret")
-	t.Setenv("AWS_REGION", "us-east-1")
-	s, err := store.Open(context.Background(), "s3://fenwick/history/?endpoint="+endpoint+"&use_path_style=true&disable_https=true&region=us-east-1")
+// s3 starts the server and returns a store on a fresh prefix and the server.
+func s3(t *testing.T) (*store.Store, *s3test.Server) {
+	server := s3test.Start(t, "fenwick")
+	s, err := store.Open(context.Background(), server.URI("fenwick", "history/"))
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { s.Close() })
-	return s, cmd
+	return s, server
 }
 
 type demand struct {
@@ -174,8 +147,7 @@ func TestReadThroughS3(t *testing.T) {
 	seen := 0
 	err = ingest.ScanParquet(ctx, ra, size, s.Describe("weekly.parquet"), source(), nil, func(ingest.Row) error {
 		if seen++; seen == 1 {
-			_ = server.Process.Kill()
-			_ = server.Wait()
+			server.Kill()
 		}
 		return nil
 	})

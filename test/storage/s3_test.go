@@ -1,87 +1,24 @@
-// Package storage runs the trainer's store against a real S3-compatible server on 127.0.0.1.
-//
-// The server is test/tools/s3server: gofakes3 (MIT license, pure Go, in-memory backend) behind a
-// tiny main, built from the Go module proxy. versitygw was the first choice but the module proxy
-// does not serve it here. Build it with
-//
-//	cd test/tools/s3server && go build -o ../../../bin/s3server .
-//
-// and run with ALMANAC_S3_SERVER=bin/s3server (the test also looks in <repo>/bin/). Without the
-// binary the test skips and says so.
+// Package storage runs the trainer's store against a real S3-compatible server on 127.0.0.1
+// (test/s3test says which server and how tests find it; without it the test skips).
 package storage
 
 import (
-	"bufio"
 	"context"
 	"errors"
 	"io"
-	"os"
-	"os/exec"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/store"
 )
 
-func serverBinary(t *testing.T) string {
-	if p := os.Getenv("ALMANAC_S3_SERVER"); p != "" {
-		if abs, err := filepath.Abs(p); err == nil {
-			p = abs
-		}
-		if _, err := os.Stat(p); err == nil {
-			return p
-		}
-		// A relative path may be relative to the repo root rather than this package.
-		if _, err := os.Stat(filepath.Join("..", "..", os.Getenv("ALMANAC_S3_SERVER"))); err == nil {
-			return filepath.Join("..", "..", os.Getenv("ALMANAC_S3_SERVER"))
-		}
-		t.Fatalf("ALMANAC_S3_SERVER=%s does not exist", p)
-	}
-	p := filepath.Join("..", "..", "bin", "s3server")
-	if _, err := os.Stat(p); err != nil {
-		t.Skip("no S3 test server: build test/tools/s3server into bin/s3server or set ALMANAC_S3_SERVER")
-	}
-	return p
-}
-
-func startServer(t *testing.T) string {
-	cmd := exec.Command(serverBinary(t), "-addr", "127.0.0.1:0", "-bucket", "almanac-test")
-	out, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { _ = cmd.Process.Kill(); _ = cmd.Wait() })
-	line := make(chan string, 1)
-	go func() {
-		sc := bufio.NewScanner(out)
-		if sc.Scan() {
-			line <- sc.Text()
-		}
-	}()
-	select {
-	case l := <-line:
-		return strings.TrimPrefix(l, "listening on ")
-	case <-time.After(20 * time.Second):
-		t.Fatal("s3server did not start")
-	}
-	return ""
-}
-
 func TestS3Store(t *testing.T) {
-	endpoint := startServer(t)
-	// Static test credentials for the local server only; the SDK reads them from the environment
-	// exactly as a pod reads them from its Secret.
-	t.Setenv("AWS_ACCESS_KEY_ID", "almanac-test")
-	t.Setenv("AWS_SECRET_ACCESS_KEY", "almanac-test-secret")
-	t.Setenv("AWS_REGION", "us-east-1")
+	server := s3test.Start(t, "almanac-test")
 	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
 	defer cancel()
-	uri := "s3://almanac-test/portfolios/harrow-pike/?endpoint=" + endpoint + "&use_path_style=true&disable_https=true&region=us-east-1"
+	uri := server.URI("almanac-test", "portfolios/harrow-pike/")
 	s, err := store.Open(ctx, uri)
 	if err != nil {
 		t.Fatal(err)

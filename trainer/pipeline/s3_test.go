@@ -1,60 +1,18 @@
 package pipeline
 
 import (
-	"bufio"
 	"context"
-	"os"
-	"os/exec"
-	"path/filepath"
 	"strings"
 	"testing"
-	"time"
 
+	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/runconfig"
 )
 
-// s3Endpoint starts the S3-compatible test server (test/tools/s3server, gofakes3; see
-// test/storage) named by ALMANAC_S3_SERVER and returns its host:port; without the variable
-// the test is skipped.
-func s3Endpoint(t *testing.T) string {
-	bin := os.Getenv("ALMANAC_S3_SERVER")
-	if bin == "" {
-		t.Skip("ALMANAC_S3_SERVER is unset (make s3server; ALMANAC_S3_SERVER=$PWD/bin/s3server)")
-	}
-	if !filepath.IsAbs(bin) {
-		bin = filepath.Join("..", "..", bin) // relative to the repository root
-	}
-	cmd := exec.Command(bin, "-addr", "127.0.0.1:0", "-bucket", "flp-forecasts")
-	stdout, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { _ = cmd.Process.Kill(); _ = cmd.Wait() })
-	addr := make(chan string, 1)
-	go func() {
-		sc := bufio.NewScanner(stdout)
-		sc.Scan()
-		addr <- strings.TrimPrefix(sc.Text(), "listening on ")
-	}()
-	select {
-	case a := <-addr:
-		return a
-	case <-time.After(20 * time.Second):
-		t.Fatal("s3server did not report its address")
-		return ""
-	}
-}
-
 func TestEndToEndOnS3(t *testing.T) {
-	ep := s3Endpoint(t)
 	// Credentials reach the SDK from the environment only, as in a pod with envFrom.
-	t.Setenv("AWS_ACCESS_KEY_ID", "flp-test")
-	t.Setenv("AWS_SECRET_ACCESS_KEY", "flp-test-secret")
-	t.Setenv("AWS_REGION", "us-east-1")
-	q := "?endpoint=" + ep + "&use_path_style=true&disable_https=true&region=us-east-1"
+	server := s3test.Start(t, "flp-forecasts")
+	q := strings.TrimPrefix(server.URI("flp-forecasts", ""), "s3://flp-forecasts/")
 	in := mustOpen(t, "s3://flp-forecasts/"+q)
 	putInput(t, in)
 	cfg := testConfig("flp-0001", "s3://flp-forecasts/in/"+q, "s3://flp-forecasts/portfolio/"+q)
