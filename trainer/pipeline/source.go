@@ -47,6 +47,27 @@ func openSource(ctx context.Context, src runconfig.Source) (*source, error) {
 	return &source{st: st, single: single, cfg: src}, nil
 }
 
+// ScanInput streams every row of the input src names to fn, object by object in key order,
+// listed and read exactly as plan and train read them. It is for tools that read a run's
+// history outside the Jobs (the report page).
+func ScanInput(ctx context.Context, src runconfig.Source, fn func(ingest.Row) error) error {
+	s, err := openSource(ctx, src)
+	if err != nil {
+		return err
+	}
+	defer s.st.Close()
+	objs, err := s.list(ctx)
+	if err != nil {
+		return err
+	}
+	for _, o := range objs {
+		if err := s.scan(ctx, o.Key, nil, fn); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // list returns the input objects, sorted by key.
 func (s *source) list(ctx context.Context) ([]Object, error) {
 	if s.single != "" {

@@ -8,7 +8,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"net/url"
 	"path"
 	"slices"
 	"sort"
@@ -346,67 +345,7 @@ func (d *demand) class() string {
 	return selection.ClassLumpy
 }
 
-// scanInput streams every row of the run's input to fn.
+// scanInput streams every row of the run's input to fn, read as the trainer reads it.
 func scanInput(ctx context.Context, src runconfig.Source, fn func(ingest.Row)) error {
-	st, objects, err := openInput(ctx, src)
-	if err != nil {
-		return err
-	}
-	defer st.Close()
-	for _, key := range objects {
-		if err := scanObject(ctx, st, key, src, func(r ingest.Row) error { fn(r); return nil }); err != nil {
-			return err
-		}
-	}
-	return nil
-}
-
-// openInput opens the store of a source URI and lists its input objects: the one object the
-// URI names, or every object under a URI ending in "/" whose name ends in the format's
-// extension (any case), as the trainer reads them.
-func openInput(ctx context.Context, src runconfig.Source) (*store.Store, []string, error) {
-	u, err := url.Parse(src.URI)
-	if err != nil {
-		return nil, nil, fmt.Errorf("source.uri %s: %w", store.Redact(src.URI), store.ErrBadURI)
-	}
-	object := ""
-	if !strings.HasSuffix(u.Path, "/") {
-		u.Path, object = path.Split(u.Path)
-	}
-	st, err := store.Open(ctx, u.String())
-	if err != nil {
-		return nil, nil, err
-	}
-	if object != "" {
-		return st, []string{object}, nil
-	}
-	infos, err := st.List(ctx, "")
-	if err != nil {
-		st.Close()
-		return nil, nil, err
-	}
-	var keys []string
-	for _, o := range infos {
-		if strings.HasSuffix(strings.ToLower(o.Key), "."+src.Format) {
-			keys = append(keys, o.Key)
-		}
-	}
-	return st, keys, nil
-}
-
-// scanObject streams one input object's rows to fn.
-func scanObject(ctx context.Context, st *store.Store, key string, src runconfig.Source, fn func(ingest.Row) error) error {
-	if src.Format == "parquet" {
-		ra, size, err := st.NewReaderAt(ctx, key)
-		if err != nil {
-			return err
-		}
-		return ingest.ScanParquet(ctx, ra, size, st.Describe(key), src, nil, fn)
-	}
-	rd, err := st.Open(ctx, key)
-	if err != nil {
-		return err
-	}
-	defer rd.Close()
-	return ingest.ScanCSV(ctx, rd, st.Describe(key), src, fn)
+	return pipeline.ScanInput(ctx, src, func(r ingest.Row) error { fn(r); return nil })
 }
