@@ -490,12 +490,12 @@ func TestScoreMetricFollowsSelection(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if got := scoreMetric(sc.Metric, r); got != "MAE" {
-		t.Fatalf("scoreMetric = %s (notes %q), want MAE", got, r.Notes)
+	if got := r.Metric; got != "MAE" {
+		t.Fatalf("score metric = %s (notes %q), want MAE", got, r.Notes)
 	}
 	v[3] = 9 // breaks the exact repeat: MASE is defined again
-	if r, _ = selection.Forecast(s, sc); scoreMetric(sc.Metric, r) != "MASE" {
-		t.Fatalf("scoreMetric = %s, want MASE (notes %q)", scoreMetric(sc.Metric, r), r.Notes)
+	if r, _ = selection.Forecast(s, sc); r.Metric != "MASE" {
+		t.Fatalf("score metric = %s, want MASE (notes %q)", r.Metric, r.Notes)
 	}
 }
 

@@ -272,7 +272,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 			fc = append(fc, row)
 		}
 		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r), BacktestErrors: r.StepErrors,
-			Metric: scoreMetric(sc.Metric, r), Score: r.Expected, Notes: strings.Join(r.Notes, "; ")})
+			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; ")})
 		models[r.Family]++
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Series < rejected[j].Series })
@@ -316,19 +316,6 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 		return done, storageErr(err)
 	}
 	return done, nil
-}
-
-// scoreMetric is the metric r.Expected is in: the configured one, unless selection had to
-// rank by MAE because the metric was undefined for every member (selection says so only in
-// a note; Result has no metric field). A series scored in another metric is then not
-// evaluated against the configured one next run, rather than compared in the wrong unit.
-func scoreMetric(configured backtest.Metric, r selection.Result) string {
-	for _, n := range r.Notes {
-		if strings.HasSuffix(n, "ranked by MAE") {
-			return string(backtest.MAE)
-		}
-	}
-	return string(configured)
 }
 
 // paramsText renders the fitted model and its parameters, sorted by name:

@@ -150,6 +150,9 @@ type Result struct {
 	StepErrors []float64
 	// Expected is the chosen member's overall backtest score (NaN without backtest).
 	Expected float64
+	// Metric is the metric Expected, Scores and StepErrors are in: Config.Metric, or MAE when
+	// that was undefined on the series for every member.
+	Metric backtest.Metric
 	// Scores holds every candidate's backtest score (NaN if it could not be fitted).
 	Scores map[string]float64
 	// Class is the demand class of Classify.

@@ -59,7 +59,7 @@ func Forecast(s series.Series, cfg Config) (Result, error) {
 func forecast(s series.Series, cfg Config) (out Result, err error) {
 	s.Values = append([]float64(nil), s.Values...)
 	s.Notes = append([]string(nil), s.Notes...)
-	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN()}
+	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric}
 	if err := series.Clean(&s, cfg.Clean); err != nil {
 		res.Notes = s.Notes
 		return res, err
@@ -166,6 +166,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 	if allNaN(ok) {
 		note("%s undefined on this series for every member: ranked by MAE", cfg.Metric)
 		metric = backtest.MAE
+		res.Metric = metric
 		for _, c := range ok {
 			c.a = backtest.Assess(metric, y, m, plan, c.fcs)
 			c.score = c.a.Overall
