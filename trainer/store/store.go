@@ -66,7 +66,14 @@ var (
 // in-memory bucket shared by every Open of the same name (tests and the local demo). Query
 // parameters go to the driver (for S3-compatible servers: endpoint, use_path_style,
 // disable_https, region).
-func Open(ctx context.Context, uri string) (*Store, error) {
+func Open(ctx context.Context, uri string) (*Store, error) { return open(ctx, uri, true) }
+
+// OpenExisting opens the store a URI names for reading: like Open, but a file:// directory
+// that does not exist is ErrNotFound instead of being created, so a mistyped input folder is
+// reported as missing rather than read as empty.
+func OpenExisting(ctx context.Context, uri string) (*Store, error) { return open(ctx, uri, false) }
+
+func open(ctx context.Context, uri string, create bool) (*Store, error) {
 	u, err := url.Parse(uri)
 	if err != nil {
 		return nil, fmt.Errorf("store: %s: %w", Redact(uri), ErrBadURI)
@@ -81,8 +88,14 @@ func Open(ctx context.Context, uri string) (*Store, error) {
 		if dir == "" || !strings.HasPrefix(dir, "/") {
 			return nil, fmt.Errorf("store: %s: file uri needs an absolute path: %w", red, ErrBadURI)
 		}
-		if err := os.MkdirAll(dir, 0o755); err != nil {
+		if create {
+			if err := os.MkdirAll(dir, 0o755); err != nil {
+				return nil, fmt.Errorf("store: %s: %w", red, classify(err))
+			}
+		} else if fi, err := os.Stat(dir); err != nil {
 			return nil, fmt.Errorf("store: %s: %w", red, classify(err))
+		} else if !fi.IsDir() {
+			return nil, fmt.Errorf("store: %s: not a directory: %w", red, ErrBadURI)
 		}
 		b, err := fileblob.OpenBucket(dir, &fileblob.Options{Metadata: fileblob.MetadataDontWrite, NoTempDir: true})
 		if err != nil {

@@ -155,6 +155,30 @@ func TestFileStore(t *testing.T) {
 	}
 }
 
+func TestOpenExistingDoesNotCreate(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	missing := filepath.Join(dir, "typo")
+	if _, err := OpenExisting(ctx, "file://"+missing); !errors.Is(err, ErrNotFound) {
+		t.Fatalf("OpenExisting(missing dir) = %v, want ErrNotFound", err)
+	}
+	if _, err := os.Stat(missing); !errors.Is(err, os.ErrNotExist) {
+		t.Fatalf("OpenExisting created %s (stat: %v)", missing, err)
+	}
+	file := filepath.Join(dir, "plain")
+	if err := os.WriteFile(file, []byte("x"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := OpenExisting(ctx, "file://"+file); !errors.Is(err, ErrBadURI) {
+		t.Fatalf("OpenExisting(file) = %v, want ErrBadURI", err)
+	}
+	s, err := OpenExisting(ctx, "file://"+dir)
+	if err != nil {
+		t.Fatalf("OpenExisting(existing dir) = %v", err)
+	}
+	s.Close()
+}
+
 func TestMemStoreIsSharedByName(t *testing.T) {
 	ctx := context.Background()
 	a, err := Open(ctx, "mem://store-test/prefix/")
