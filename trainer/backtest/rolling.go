@@ -54,9 +54,17 @@ func NewPlan(n, h, k, step, minTrain int) (Plan, error) {
 // is fitted on y[:t] and forecasts Horizon steps. out[i] is origin i's mean forecast. A failed
 // fit or a non-finite forecast at any origin is an error naming the origin.
 func Forecasts(mod models.Model, y []float64, m int, p Plan) ([][]float64, error) {
+	return ForecastsWith(mod, y, m, p, nil)
+}
+
+// ForecastsWith is Forecasts for a model that may use dates and covariates: at each origin it
+// fits through models.FitWith with in, whose Start is the period of y[0]. The model sees y[:t]
+// only; covariates stay whole, as known future values (see models.Inputs). With in == nil it is
+// Forecasts.
+func ForecastsWith(mod models.Model, y []float64, m int, p Plan, in *models.Inputs) ([][]float64, error) {
 	out := make([][]float64, len(p.Origins))
 	for i, t := range p.Origins {
-		fit, err := mod.Fit(y[:t], m)
+		fit, err := models.FitWith(mod, y[:t], m, in)
 		if err != nil {
 			return nil, fmt.Errorf("origin %d (fitted on %d observations): %w", i, t, err)
 		}

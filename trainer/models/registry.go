@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"sort"
 	"sync"
+
+	"almanac.dev/almanac/trainer/features"
 )
 
 // Family identifiers used in specs and outputs. Each family file registers its constructor.
@@ -32,6 +34,21 @@ type Spec struct {
 	ETS *ETSOptions `json:"ets,omitempty"`
 	// Smoothing fixes the smoothing weights of the intermittent-demand families (nil: estimated).
 	Smoothing *SmoothingOptions `json:"smoothing,omitempty"`
+	// Features declares the features of a regression member (Ridge, Lasso, GradientBoosting);
+	// nil takes the run's features (selection.Config.Features), else features.Defaults.
+	Features *features.Config `json:"features,omitempty"`
+	// Regression sets a regression member's learner (nil: defaults).
+	Regression *RegressionOptions `json:"regression,omitempty"`
+}
+
+// RegressionOptions sets the learner of a regression member.
+type RegressionOptions struct {
+	// Penalty fixes the penalty weight alpha of Ridge and Lasso (objectives in trainer/learn);
+	// 0 chooses it by a backtest on the latest training rows.
+	Penalty float64 `json:"penalty,omitempty"`
+	// AcrossShard fits one model on every series of the shard together (targets scaled per
+	// series) instead of one model per series; it is still scored and chosen per series.
+	AcrossShard bool `json:"acrossShard,omitempty"`
 }
 
 // ETSOptions restricts which ETS(error, trend, season) forms the automatic search considers.

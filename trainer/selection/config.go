@@ -7,6 +7,7 @@ import (
 	"math"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/series"
 )
@@ -54,6 +55,10 @@ type Config struct {
 	NonNegative bool
 	// Clean is applied to every series before selection (zero value: see series.CleanRules).
 	Clean series.CleanRules
+	// Features declares the features of the regression members (Ridge, Lasso, GradientBoosting)
+	// whose models.Spec.Features is nil; nil leaves them to features.Defaults for the series'
+	// frequency. Other families ignore it.
+	Features *features.Config
 	// RouteIntermittent restricts intermittent and lumpy series (Syntetos, Boylan & Croston 2005
 	// classes, see Classify) to the zoo's intermittent-demand members (Croston, SBA, TSB) when the
 	// zoo has any.
@@ -119,6 +124,11 @@ func (c Config) Validate() error {
 	if c.CombineTop < 0 {
 		return fmt.Errorf("selection: combineTop must be >= 0, got %d", c.CombineTop)
 	}
+	if c.Features != nil {
+		if err := c.Features.Validate(); err != nil {
+			return fmt.Errorf("selection: %w", err)
+		}
+	}
 	if c.SeasonLength < 0 {
 		return fmt.Errorf("selection: seasonLength must be >= 0, got %d", c.SeasonLength)
 	}
@@ -157,6 +167,10 @@ type Result struct {
 	Scores map[string]float64
 	// Class is the demand class of Classify.
 	Class string
+	// Features lists, per member of the chosen forecast (the chosen member, or each member of
+	// the chosen combination) that is built on generated features, the features it kept after
+	// feature selection, by member name; nil when no such member is in the forecast.
+	Features map[string][]string
 	// Notes lists the cleaning and fallback decisions, in order.
 	Notes []string
 }

@@ -26,7 +26,8 @@ type candidate struct {
 	idx   int // position in the zoo (simplicity rank)
 	spec  models.Spec
 	model models.Model
-	m     int // season length the member uses
+	m     int            // season length the member uses
+	in    *models.Inputs // dates and covariates for members that use them (nil: none)
 	fcs   [][]float64
 	a     backtest.Assessment
 	score float64 // ranking score (|Bias| for Bias); NaN if not backtested
@@ -76,9 +77,13 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 
 	class, _, _ := Classify(y)
 	res.Class = class
+	in := models.InputsOf(s)
 
 	var cands []*candidate
 	for i, sp := range cfg.Zoo {
+		if sp.Features == nil {
+			sp.Features = cfg.Features
+		}
 		mod, err := models.New(sp)
 		if err != nil { // Validate built it once; a constructor that now fails is a bug
 			panic("selection: zoo member no longer builds: " + err.Error())
@@ -87,7 +92,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 		if sp.SeasonLength > 0 {
 			mm = sp.SeasonLength
 		}
-		cands = append(cands, &candidate{idx: i, spec: sp, model: mod, m: mm, score: math.NaN()})
+		cands = append(cands, &candidate{idx: i, spec: sp, model: mod, m: mm, in: &in, score: math.NaN()})
 		res.Scores[sp.DisplayName()] = math.NaN()
 	}
 
@@ -245,7 +250,7 @@ func safeForecasts(c *candidate, y []float64, p backtest.Plan) (f [][]float64, e
 			err = fmt.Errorf("model panicked: %v", r)
 		}
 	}()
-	return backtest.Forecasts(c.model, y, c.m, p)
+	return backtest.ForecastsWith(c.model, y, c.m, p, c.in)
 }
 
 // refit fits c on the whole series and forecasts h steps at levels.
@@ -255,7 +260,7 @@ func refit(c *candidate, y []float64, h int, levels []float64) (fitted models.Fi
 			err = fmt.Errorf("model panicked: %v", r)
 		}
 	}()
-	fitted, err = c.model.Fit(y, c.m)
+	fitted, err = models.FitWith(c.model, y, c.m, c.in)
 	if err != nil {
 		return nil, fc, err
 	}
@@ -304,6 +309,8 @@ func finishSingle(res *Result, c *candidate, a backtest.Assessment, y []float64,
 	res.Mean = fc.Mean
 	res.Expected = a.Overall
 	res.StepErrors = a.Steps
+	res.Features = nil
+	recordFeatures(res, c.spec.DisplayName(), fitted)
 	switch {
 	case len(cfg.Levels) == 0:
 	case fc.Quantiles != nil:
@@ -317,12 +324,17 @@ func finishSingle(res *Result, c *candidate, a backtest.Assessment, y []float64,
 
 func finishCombination(res *Result, name string, top []*candidate, a backtest.Assessment, y []float64, cfg Config) error {
 	fcs := make([]models.Forecast, len(top))
+	fitted := make([]models.Fitted, len(top))
 	for i, c := range top {
-		_, fc, err := refit(c, y, cfg.Horizon, cfg.Levels)
+		f, fc, err := refit(c, y, cfg.Horizon, cfg.Levels)
 		if err != nil {
 			return fmt.Errorf("%s: %w", c.spec.DisplayName(), err)
 		}
-		fcs[i] = fc
+		fcs[i], fitted[i] = fc, f
+	}
+	res.Features = nil
+	for i, c := range top {
+		recordFeatures(res, c.spec.DisplayName(), fitted[i])
 	}
 	means := make([][]float64, len(top))
 	allQ := len(cfg.Levels) > 0
@@ -491,4 +503,17 @@ func combine(method string, paths [][]float64) []float64 {
 		out[k] = s / float64(len(col))
 	}
 	return out
+}
+
+// recordFeatures adds the features a fitted member kept to res.Features under the member's name,
+// when the member is built on generated features.
+func recordFeatures(res *Result, member string, f models.Fitted) {
+	fr, ok := f.(models.FeatureReporter)
+	if !ok {
+		return
+	}
+	if res.Features == nil {
+		res.Features = map[string][]string{}
+	}
+	res.Features[member] = slices.Clone(fr.Features())
 }
