@@ -150,3 +150,43 @@ func ExampleETSAt() {
 	// week +2: 166.1 [164.2, 167.9]
 	// week +3: 170.3 [168.1, 172.4]
 }
+
+// TestETSScreenedSearch checks the two-stage search of SelectETS against refining every form
+// (our own design, see SelectETS): on AirPassengers (R datasets) and a generated monthly
+// series both must choose the same form with the same AICc, every allowed form must appear
+// once in Candidates, and exactly etsRefined of them must be refined.
+func TestETSScreenedSearch(t *testing.T) {
+	for name, y := range map[string][]float64{"AirPassengers": airPassengers, "generated": monthlyDemand(120)} {
+		got, err := SelectETS(y, 12, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		all, err := selectETS(y, 12, nil, len(etsForms(nil)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Name() != all.Name() || math.Abs(got.AICc()-all.AICc()) > 1e-9 {
+			t.Errorf("%s: screened search chose %s (AICc %.4f), refining every form %s (AICc %.4f)",
+				name, got.Name(), got.AICc(), all.Name(), all.AICc())
+		}
+		seen, refined := map[ETSForm]bool{}, 0
+		for _, c := range got.Candidates() {
+			if seen[c.Form] {
+				t.Errorf("%s: %s listed twice", name, c.Form)
+			}
+			seen[c.Form] = true
+			if !c.Screened {
+				refined++
+			}
+			if c.Screened && c.AICc < got.AICc() {
+				t.Errorf("%s: screened %s has AICc %.4f below the chosen %.4f", name, c.Form, c.AICc, got.AICc())
+			}
+		}
+		if len(seen) != len(etsForms(nil)) || refined != etsRefined {
+			t.Errorf("%s: %d forms listed (want %d), %d refined (want %d)", name, len(seen), len(etsForms(nil)), refined, etsRefined)
+		}
+		if got.Evaluations() >= all.Evaluations() {
+			t.Errorf("%s: screened search used %d evaluations, full %d", name, got.Evaluations(), all.Evaluations())
+		}
+	}
+}
