@@ -18,6 +18,18 @@ var ErrNoOrigin = errors.New("backtest: series too short for a rolling origin")
 type Plan struct {
 	Origins []int
 	Horizon int
+	// Update, when true, fits once at the earliest origin and, for fits that implement
+	// Updater, re-runs that fit with its estimates fixed over the history up to each later
+	// origin (Tashman 2000, section 3: "updating" rather than "recalibrating"); other fits are
+	// re-estimated at every origin as usual.
+	Update bool
+}
+
+// Updater is implemented by fitted models that can be carried forward to a longer history
+// without re-estimating: Update(y) returns the model with the same estimates filtered over y,
+// of which the fitted history is a prefix.
+type Updater interface {
+	Update(y []float64) (models.Fitted, error)
 }
 
 // NewPlan lays out up to k origins on a series of n observations for horizon h, step apart:
@@ -51,7 +63,8 @@ func NewPlan(n, h, k, step, minTrain int) (Plan, error) {
 }
 
 // Forecasts runs the plan for one model on y with season length m: at each origin t the model
-// is fitted on y[:t] and forecasts Horizon steps. out[i] is origin i's mean forecast. A failed
+// is fitted on y[:t] (or, with p.Update, carried forward from the earliest origin's fit) and
+// forecasts Horizon steps. out[i] is origin i's mean forecast. A failed
 // fit or a non-finite forecast at any origin is an error naming the origin.
 func Forecasts(mod models.Model, y []float64, m int, p Plan) ([][]float64, error) {
 	return ForecastsWith(mod, y, m, p, nil)
@@ -63,8 +76,19 @@ func Forecasts(mod models.Model, y []float64, m int, p Plan) ([][]float64, error
 // Forecasts.
 func ForecastsWith(mod models.Model, y []float64, m int, p Plan, in *models.Inputs) ([][]float64, error) {
 	out := make([][]float64, len(p.Origins))
-	for i, t := range p.Origins {
-		fit, err := models.FitWith(mod, y[:t], m, in)
+	var first Updater // the fit at the earliest origin, when p.Update and it can be updated
+	for i := len(p.Origins) - 1; i >= 0; i-- {
+		t := p.Origins[i]
+		var fit models.Fitted
+		var err error
+		if first != nil {
+			fit, err = first.Update(y[:t])
+		} else {
+			fit, err = models.FitWith(mod, y[:t], m, in)
+			if u, ok := fit.(Updater); ok && err == nil && p.Update {
+				first = u
+			}
+		}
 		if err != nil {
 			return nil, fmt.Errorf("origin %d (fitted on %d observations): %w", i, t, err)
 		}

@@ -5,6 +5,8 @@ import (
 	"math"
 	"slices"
 	"testing"
+
+	"almanac.dev/almanac/trainer/models"
 )
 
 // Origin layouts of NewPlan, worked by hand from t_i = n − h' − i·step (Tashman 2000 rolling
@@ -47,4 +49,51 @@ func TestScorePanicsOnMisuse(t *testing.T) {
 		}
 	}()
 	Score(MAE, []float64{1}, []float64{1, 2}, nil, 1)
+}
+
+// lastValue is a test model: it "estimates" the last training value and forecasts it flat.
+// Its fit can be updated, which keeps the estimate (the updating of Tashman 2000, section 3).
+type lastValue struct{ fits *int }
+
+type lastValueFit struct{ v float64 }
+
+func (l lastValue) Family() string    { return "LastValue" }
+func (l lastValue) MinLength(int) int { return 1 }
+func (l lastValue) Fit(y []float64, _ int) (models.Fitted, error) {
+	*l.fits++
+	return lastValueFit{y[len(y)-1]}, nil
+}
+func (f lastValueFit) Name() string                            { return "LastValue" }
+func (f lastValueFit) Params() map[string]float64              { return map[string]float64{"v": f.v} }
+func (f lastValueFit) InSample() []float64                     { return nil }
+func (f lastValueFit) Update([]float64) (models.Fitted, error) { return f, nil }
+func (f lastValueFit) Forecast(h int, _ []float64) models.Forecast {
+	m := make([]float64, h)
+	for k := range m {
+		m[k] = f.v
+	}
+	return models.Forecast{Mean: m}
+}
+
+// With Update the model is fitted once, at the earliest origin, and the later origins keep
+// that estimate; without it every origin re-estimates. y = 1..6, origins 4, 3, 2, horizon 2.
+func TestForecastsUpdate(t *testing.T) {
+	y := []float64{1, 2, 3, 4, 5, 6}
+	for _, c := range []struct {
+		update bool
+		fits   int
+		want   [][]float64
+	}{
+		{false, 3, [][]float64{{4, 4}, {3, 3}, {2, 2}}},
+		{true, 1, [][]float64{{2, 2}, {2, 2}, {2, 2}}},
+	} {
+		fits := 0
+		got, err := Forecasts(lastValue{&fits}, y, 1, Plan{Origins: []int{4, 3, 2}, Horizon: 2, Update: c.update})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if fits != c.fits || !slices.EqualFunc(got, c.want, slices.Equal[[]float64]) {
+			t.Errorf("update %v: %d fits, forecasts %v; want %d fits, %v", c.update, fits, got, c.fits, c.want)
+		}
+	}
 }

@@ -63,6 +63,10 @@ type Config struct {
 	// classes, see Classify) to the zoo's intermittent-demand members (Croston, SBA, TSB) when the
 	// zoo has any.
 	RouteIntermittent bool
+	// BacktestUpdate fits members once at the earliest backtest origin and carries the fit
+	// forward to the later origins without re-estimating, for families that support it
+	// (backtest.Plan.Update); the final fit on the whole series is always a full fit.
+	BacktestUpdate bool
 }
 
 // withDefaults fills the zero-valued fields.

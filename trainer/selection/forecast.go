@@ -134,6 +134,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 		}
 		p, err := backtest.NewPlan(n, cfg.Horizon, cfg.Origins, cfg.Step, floor)
 		if err == nil {
+			p.Update = cfg.BacktestUpdate
 			plan = p
 			break
 		}
