@@ -815,3 +815,13 @@ func (e *etsModel) Fit(y []float64, m int) (Fitted, error) {
 	}
 	return fit, nil
 }
+
+// Update returns the fit with the same weights and seed states filtered over y, a longer
+// history of which the fitted one is a prefix (the backtest's "updating", see
+// backtest.Updater). The criteria and residuals are those of y at the fixed estimates.
+func (f *ETSFit) Update(y []float64) (Fitted, error) {
+	if len(y) < f.n {
+		return nil, fmt.Errorf("models: ETS: update needs at least the %d fitted observations, got %d", f.n, len(y))
+	}
+	return ETSAt(y, f.m, f.form, f.par)
+}

@@ -190,3 +190,34 @@ func TestETSScreenedSearch(t *testing.T) {
 		}
 	}
 }
+
+// Update keeps the estimates: on the fitted history it reproduces the fit, and on a longer one
+// it equals ETSAt at the fit's parameters (the recursion of HKOS 2008 Table 2.3 run further).
+func TestETSUpdate(t *testing.T) {
+	y := airPassengers
+	fit, err := FitETS(y[:120], 12, ETSForm{"M", "A", "M"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	same, err := fit.Update(y[:120])
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := math.Abs(same.(*ETSFit).LogLik() - fit.LogLik()); d > 1e-9 {
+		t.Errorf("update on the fitted history changes the log likelihood by %g", d)
+	}
+	longer, err := fit.Update(y)
+	if err != nil {
+		t.Fatal(err)
+	}
+	at, err := ETSAt(y, 12, fit.Form(), fit.Parameters())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a, b := longer.Forecast(6, nil).Mean, at.Forecast(6, nil).Mean; fmt.Sprint(a) != fmt.Sprint(b) {
+		t.Errorf("updated forecast %v, ETSAt %v", a, b)
+	}
+	if _, err := fit.Update(y[:100]); err == nil {
+		t.Error("update on a shorter history: no error")
+	}
+}
