@@ -2,10 +2,12 @@ package controllers
 
 import (
 	"fmt"
+	"math"
 	"strconv"
 	"strings"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 )
@@ -100,6 +102,13 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 		}
 		c.Zoo = append(c.Zoo, ms)
 	}
+	if spec.Features != nil {
+		f, err := renderFeatures(spec.Features)
+		if err != nil {
+			return c, fmt.Errorf("spec.features.%w", err)
+		}
+		c.Features = &f
+	}
 	c.Drift = runconfig.Drift{
 		Metric:             orDefault(string(spec.Drift.Metric), c.Selection.Metric),
 		ThresholdRatio:     float64(orDefault(spec.Drift.ThresholdPercent, defaultThresholdPercent)) / 100,
@@ -131,7 +140,82 @@ func renderModel(m forecastingv1alpha1.ModelSpec) (models.Spec, error) {
 		}
 		out.Smoothing = &models.SmoothingOptions{Alpha: alpha, Beta: beta}
 	}
+	if r := m.Regression; r != nil {
+		out.Regression = &models.RegressionOptions{AcrossShard: r.Pooled != nil && *r.Pooled}
+		if r.Penalty != "" {
+			p, err := strconv.ParseFloat(r.Penalty, 64)
+			if err != nil || !(p > 0) || math.IsInf(p, 0) {
+				return out, fmt.Errorf("regression.penalty: %q is not a decimal above 0", r.Penalty)
+			}
+			out.Regression.Penalty = p
+		}
+	}
 	return out, nil
+}
+
+// renderFeatures maps spec.features onto the trainer's declaration (trainer/features.Config):
+// the API's CamelCase names become the trainer's lower camel case (WeekOfYear -> weekOfYear,
+// MutualInformation -> mutualInformation), event periodsBefore/periodsAfter become Lead/Lag,
+// Fourier periods are parsed from their decimal strings, and the documented defaults are
+// written out (windowStatistics Mean when windows are set, filter Correlation, embedded
+// Lasso), so the run config says what the trainer does. Errors start with the field below
+// spec.features.
+func renderFeatures(in *forecastingv1alpha1.FeaturesSpec) (features.Config, error) {
+	out := features.Config{
+		Lags: ints(in.Lags), Windows: ints(in.Windows),
+		Covariates: in.Covariates, CovariateLags: ints(in.CovariateLags),
+		Selection: features.Selection{Filter: features.FilterCorrelation, Embedded: features.EmbeddedLasso},
+	}
+	for _, c := range in.Calendar {
+		out.Calendar = append(out.Calendar, lowerFirst(string(c)))
+	}
+	for _, st := range in.WindowStatistics {
+		out.Stats = append(out.Stats, lowerFirst(string(st)))
+	}
+	if len(out.Windows) > 0 && len(out.Stats) == 0 {
+		out.Stats = []string{features.StatMean}
+	}
+	for _, e := range in.Events {
+		out.Events = append(out.Events, features.Event{Name: e.Name, Dates: e.Dates, Lead: int(e.PeriodsBefore), Lag: int(e.PeriodsAfter)})
+	}
+	for i, ft := range in.Fourier {
+		p, err := strconv.ParseFloat(ft.Period, 64)
+		if err != nil || !(p >= 2) || math.IsInf(p, 0) {
+			return out, fmt.Errorf("fourier[%d].period: %q is not a decimal of at least 2", i, ft.Period)
+		}
+		out.Fourier = append(out.Fourier, features.FourierTerm{Period: p, Order: int(ft.Order)})
+	}
+	if sel := in.Selection; sel != nil {
+		if sel.Filter != "" {
+			out.Selection.Filter = lowerFirst(string(sel.Filter))
+		}
+		if sel.Embedded != "" {
+			out.Selection.Embedded = lowerFirst(string(sel.Embedded))
+		}
+		if sel.FilterKeep != nil {
+			out.Selection.FilterKeep = int(*sel.FilterKeep)
+		}
+		if sel.MaxFeatures != nil {
+			out.Selection.MaxFeatures = int(*sel.MaxFeatures)
+		}
+	}
+	return out, nil
+}
+
+// lowerFirst lower-cases the first letter: the API's enum spelling to the trainer's.
+func lowerFirst(s string) string {
+	if s == "" {
+		return s
+	}
+	return strings.ToLower(s[:1]) + s[1:]
+}
+
+func ints(in []int32) []int {
+	var out []int
+	for _, v := range in {
+		out = append(out, int(v))
+	}
+	return out
 }
 
 // weight parses a smoothing weight in (0, 1]; the empty string is 0, "estimate it".

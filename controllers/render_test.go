@@ -10,6 +10,7 @@ import (
 	"k8s.io/utils/ptr"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 )
@@ -195,6 +196,131 @@ func TestSeriesMinPoints(t *testing.T) {
 	} {
 		if got := seriesMinPoints(c.portfolio, c.horizon); got != c.want {
 			t.Errorf("seriesMinPoints(%d, %d) = %d, want %d", c.portfolio, c.horizon, got, c.want)
+		}
+	}
+}
+
+// promotionFeatures is the features block of the promotion sample (Fenwick Lane Provisions'
+// weekly demand driven by promotions and price cuts).
+func promotionFeatures() *forecastingv1alpha1.FeaturesSpec {
+	return &forecastingv1alpha1.FeaturesSpec{
+		Calendar:      []forecastingv1alpha1.CalendarFeature{forecastingv1alpha1.CalendarWeekOfYear, forecastingv1alpha1.CalendarPositionInMonth},
+		Events:        []forecastingv1alpha1.EventSpec{{Name: "harvest-fair", Dates: []string{"2025-09-06", "2026-09-05"}, PeriodsBefore: 1}},
+		Fourier:       []forecastingv1alpha1.FourierSpec{{Period: "52.18", Order: 3}},
+		Lags:          []int32{1, 52},
+		Windows:       []int32{4},
+		Covariates:    []string{"promo_flag", "price"},
+		CovariateLags: []int32{1},
+		Selection: &forecastingv1alpha1.FeatureSelectionSpec{
+			Filter: forecastingv1alpha1.FilterMutualInformation, FilterKeep: ptr.To[int32](12), MaxFeatures: ptr.To[int32](6),
+		},
+	}
+}
+
+func TestRenderFeatures(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Source.Columns.Covariates = []string{"promo_flag", "price"}
+	fp.Spec.Features = promotionFeatures()
+	fp.Spec.Models = append(fp.Spec.Models,
+		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyRidge, Regression: &forecastingv1alpha1.RegressionSettings{Penalty: "0.25", Pooled: ptr.To(true)}},
+		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyGradientBoosting})
+	got, err := renderConfig(fp, fenwickRun("r"), "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := &features.Config{
+		Calendar:      []string{"weekOfYear", "positionInMonth"},
+		Events:        []features.Event{{Name: "harvest-fair", Dates: []string{"2025-09-06", "2026-09-05"}, Lead: 1}},
+		Fourier:       []features.FourierTerm{{Period: 52.18, Order: 3}},
+		Lags:          []int{1, 52},
+		Windows:       []int{4},
+		Stats:         []string{"mean"}, // the documented default when windows are set
+		Covariates:    []string{"promo_flag", "price"},
+		CovariateLags: []int{1},
+		Selection:     features.Selection{Filter: "mutualInformation", FilterKeep: 12, Embedded: "lasso", MaxFeatures: 6},
+	}
+	if diff := cmp.Diff(want, got.Features); diff != "" {
+		t.Errorf("features (-want,+got):\n%s", diff)
+	}
+	if diff := cmp.Diff(&models.RegressionOptions{Penalty: 0.25, AcrossShard: true}, got.Zoo[3].Regression); diff != "" {
+		t.Errorf("regression settings (-want,+got):\n%s", diff)
+	}
+	if got.Zoo[4].Regression != nil || got.Zoo[4].Features != nil {
+		t.Errorf("GradientBoosting member got settings it did not declare: %+v", got.Zoo[4])
+	}
+
+	fp.Spec.Features = nil
+	if got, err = renderConfig(fp, fenwickRun("r"), ""); err != nil || got.Features != nil {
+		t.Errorf("no spec.features: Features = %+v, err %v; want nil (the trainer's defaults apply)", got.Features, err)
+	}
+}
+
+func TestRenderFeaturesErrors(t *testing.T) {
+	tests := map[string]struct {
+		mutate func(*forecastingv1alpha1.ForecastPortfolio)
+		want   string
+	}{
+		"Fourier period not a decimal": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Features.Fourier[0].Period = "yearly" },
+			want:   `spec.features.fourier[0].period: "yearly" is not a decimal`,
+		},
+		"penalty not a decimal": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) {
+				fp.Spec.Models[0] = forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyLasso, Regression: &forecastingv1alpha1.RegressionSettings{Penalty: "-2"}}
+			},
+			want: `spec.models[0].regression.penalty: "-2" is not a decimal above 0`,
+		},
+		// The apiserver's CEL rule refuses this; objects that skipped admission (built in Go,
+		// or stored before the rule) still get a clear error instead of failing every shard.
+		"covariate the input does not carry": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) {
+				fp.Spec.Source.Columns.Covariates = []string{"promo_flag"}
+			},
+			want: `portfolio planning/fenwick-weekly: features.covariates[1]: "price" is not among source.columns.covariates`,
+		},
+		"order above half the period": {
+			mutate: func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Spec.Features.Fourier[0].Order = 30 },
+			want:   "features.fourier[0].order",
+		},
+	}
+	for name, tc := range tests {
+		t.Run(name, func(t *testing.T) {
+			fp := fenwickPortfolio()
+			fp.Spec.Source.Columns.Covariates = []string{"promo_flag", "price"}
+			fp.Spec.Features = promotionFeatures()
+			tc.mutate(fp)
+			_, err := renderConfig(fp, fenwickRun("r"), "")
+			if err == nil || !strings.Contains(err.Error(), tc.want) {
+				t.Fatalf("err = %v, want it to contain %q", err, tc.want)
+			}
+		})
+	}
+}
+
+// TestFeatureNamesMatchTheTrainer ties the API's enums to the trainer's names: every calendar
+// feature, window statistic, filter and embedded step the API accepts must render to a name
+// trainer/features knows (the API may not import the trainer, so the lists are written twice).
+func TestFeatureNamesMatchTheTrainer(t *testing.T) {
+	cal := []forecastingv1alpha1.CalendarFeature{forecastingv1alpha1.CalendarDayOfWeek, forecastingv1alpha1.CalendarWeekOfYear,
+		forecastingv1alpha1.CalendarMonth, forecastingv1alpha1.CalendarQuarter, forecastingv1alpha1.CalendarWeekend, forecastingv1alpha1.CalendarPositionInMonth}
+	spec := &forecastingv1alpha1.FeaturesSpec{
+		Calendar: cal, Windows: []int32{4},
+		WindowStatistics: []forecastingv1alpha1.WindowStatistic{forecastingv1alpha1.WindowMean, forecastingv1alpha1.WindowMin,
+			forecastingv1alpha1.WindowMax, forecastingv1alpha1.WindowStd},
+	}
+	for _, filter := range []forecastingv1alpha1.FeatureFilter{forecastingv1alpha1.FilterCorrelation, forecastingv1alpha1.FilterMutualInformation, forecastingv1alpha1.FilterNone} {
+		for _, emb := range []forecastingv1alpha1.EmbeddedSelection{forecastingv1alpha1.EmbeddedLasso, forecastingv1alpha1.EmbeddedNone} {
+			spec.Selection = &forecastingv1alpha1.FeatureSelectionSpec{Filter: filter, Embedded: emb}
+			f, err := renderFeatures(spec)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := f.Validate(); err != nil {
+				t.Errorf("filter %s, embedded %s: the trainer refuses the rendered names: %v", filter, emb, err)
+			}
+			if len(f.Calendar) != len(features.CalendarNames) || len(f.Stats) != len(features.StatNames) {
+				t.Errorf("rendered %v and %v, want all of %v and %v", f.Calendar, f.Stats, features.CalendarNames, features.StatNames)
+			}
 		}
 	}
 }

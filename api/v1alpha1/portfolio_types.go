@@ -62,7 +62,7 @@ const (
 type Weekday string
 
 // ModelFamily names a family of forecasting models in the zoo.
-// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting
 type ModelFamily string
 
 // The model families.
@@ -82,6 +82,13 @@ const (
 	FamilyARIMA ModelFamily = "ARIMA"
 	// FamilyETSARIMATheta is the equal-weight mean of the ETS, ARIMA and Theta families.
 	FamilyETSARIMATheta ModelFamily = "ETSARIMATheta"
+	// FamilyRidge is linear regression on the features of spec.features with an L2 penalty.
+	FamilyRidge ModelFamily = "Ridge"
+	// FamilyLasso is linear regression on the features with an L1 penalty (Tibshirani 1996).
+	FamilyLasso ModelFamily = "Lasso"
+	// FamilyGradientBoosting is an ensemble of shallow regression trees fitted stage by stage to
+	// the residuals (Friedman 2001), on the features.
+	FamilyGradientBoosting ModelFamily = "GradientBoosting"
 )
 
 // ErrorMetric is a forecast accuracy measure.
@@ -123,6 +130,8 @@ const (
 // ForecastPortfolioSpec is the desired state of a portfolio: where its series live, when to
 // retrain, which models to try, how to choose, how to shard the work and when to call accuracy slipped.
 // +kubebuilder:validation:XValidation:rule="!has(self.selection) || !has(self.selection.combine) || self.selection.combine.top <= size(self.models)",message="selection.combine.top must not exceed the number of models"
+// +kubebuilder:validation:XValidation:rule="!has(self.features) || !has(self.features.covariates) || self.features.covariates.all(c, has(self.source.columns) && has(self.source.columns.covariates) && c in self.source.columns.covariates)",message="features.covariates must be listed in source.columns.covariates"
+// +kubebuilder:validation:XValidation:rule="!has(self.features) || self.models.exists(m, m.family in ['Ridge', 'Lasso', 'GradientBoosting'])",message="features are used only by the regression families Ridge, Lasso and GradientBoosting: add one to models"
 type ForecastPortfolioSpec struct {
 	// schedule is when to retrain, a 5-field cron expression (minute hour day-of-month month
 	// day-of-week) or a macro such as @daily, evaluated in timeZone. Time zones go in timeZone,
@@ -203,6 +212,12 @@ type ForecastPortfolioSpec struct {
 	// +kubebuilder:validation:MaxItems=32
 	// +kubebuilder:validation:XValidation:rule="self.all(m, self.exists_one(n, (has(n.name) ? n.name : n.family) == (has(m.name) ? m.name : m.family)))",message="models must have unique names (name defaults to family)"
 	Models []ModelSpec `json:"models"`
+
+	// features declares what the regression members (Ridge, Lasso, GradientBoosting) learn
+	// from: calendar, events, seasonal waves, lags, trailing windows and covariates, and how
+	// they are narrowed down. Other families ignore it.
+	// +optional
+	Features *FeaturesSpec `json:"features,omitempty"`
 
 	// selection says how the best model per series is chosen.
 	// +optional
@@ -349,6 +364,8 @@ type DataOutput struct {
 // +kubebuilder:validation:XValidation:rule="!has(self.ets) || self.family == 'ETS'",message="ets settings are only for family ETS"
 // +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || self.family in ['Croston', 'SBA', 'TSB']",message="smoothing settings are only for families Croston, SBA and TSB"
 // +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || !has(self.smoothing.beta) || self.family == 'TSB'",message="smoothing.beta is only for family TSB"
+// +kubebuilder:validation:XValidation:rule="!has(self.regression) || self.family in ['Ridge', 'Lasso', 'GradientBoosting']",message="regression settings are only for families Ridge, Lasso and GradientBoosting"
+// +kubebuilder:validation:XValidation:rule="!has(self.regression) || !has(self.regression.penalty) || self.family in ['Ridge', 'Lasso']",message="regression.penalty is only for families Ridge and Lasso"
 type ModelSpec struct {
 	// family of the model.
 	// +required
@@ -374,6 +391,11 @@ type ModelSpec struct {
 	// smoothing fixes the smoothing weights of the intermittent-demand families. Default: estimated.
 	// +optional
 	Smoothing *SmoothingSettings `json:"smoothing,omitempty"`
+
+	// regression tunes the learner of the regression families. Default: penalty chosen per
+	// series, one model per series.
+	// +optional
+	Regression *RegressionSettings `json:"regression,omitempty"`
 }
 
 // ETSComponent is the code of one ETS component form.

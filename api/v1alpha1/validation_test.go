@@ -62,6 +62,17 @@ func del(u *unstructured.Unstructured, path ...string) {
 	unstructured.RemoveNestedField(u.Object, path...)
 }
 
+// withFeatures returns a mutation that declares spec.features as given on a zoo with a Ridge
+// member and an input carrying the promo_flag and price covariates, so that exactly the
+// features block is what may be wrong.
+func withFeatures(features map[string]any) func(u *unstructured.Unstructured) {
+	return func(u *unstructured.Unstructured) {
+		set(u, []any{"promo_flag", "price"}, "spec", "source", "columns", "covariates")
+		set(u, []any{map[string]any{"family": "ETS"}, map[string]any{"family": "Ridge"}}, "spec", "models")
+		set(u, features, "spec", "features")
+	}
+}
+
 type invalidCase struct {
 	mutate func(u *unstructured.Unstructured)
 	// want are substrings the apiserver's message must contain: the field path and the reason.
@@ -89,6 +100,32 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Sharding.MaxParallel).To(Equal(int32(8)))
 		Expect(fp.Spec.Drift.ThresholdPercent).To(Equal(int32(130)))
 		Expect(fp.Spec.Drift.Action).To(Equal(forecastingv1alpha1.DriftReport))
+	})
+
+	It("accepts a full features declaration and keeps it as written", func() {
+		u := validPortfolio("with-features")
+		withFeatures(map[string]any{
+			"calendar":         []any{"WeekOfYear", "Month"},
+			"events":           []any{map[string]any{"name": "harvest-fair", "dates": []any{"2025-09-06", "2026-09-05"}, "periodsBefore": int64(1)}},
+			"fourier":          []any{map[string]any{"period": "52.18", "order": int64(3)}},
+			"lags":             []any{int64(1), int64(52)},
+			"windows":          []any{int64(4), int64(13)},
+			"windowStatistics": []any{"Mean", "Std"},
+			"covariates":       []any{"promo_flag", "price"},
+			"covariateLags":    []any{int64(1)},
+			"selection":        map[string]any{"filter": "Correlation", "filterKeep": int64(12), "embedded": "Lasso", "maxFeatures": int64(8)},
+		})(u)
+		set(u, []any{map[string]any{"family": "ETS"}, map[string]any{"family": "Ridge", "regression": map[string]any{"penalty": "0.25", "pooled": true}},
+			map[string]any{"family": "GradientBoosting"}}, "spec", "models")
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		var fp forecastingv1alpha1.ForecastPortfolio
+		Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), &fp)).To(Succeed())
+		f := fp.Spec.Features
+		Expect(f).NotTo(BeNil())
+		Expect(f.Fourier).To(Equal([]forecastingv1alpha1.FourierSpec{{Period: "52.18", Order: 3}}))
+		Expect(f.Events[0].Dates).To(Equal([]string{"2025-09-06", "2026-09-05"}))
+		Expect(*f.Selection.MaxFeatures).To(Equal(int32(8)))
+		Expect(fp.Spec.Models[1].Regression.Penalty).To(Equal("0.25"))
 	})
 
 	It("accepts every sample in config/samples", func() {
@@ -279,6 +316,98 @@ var _ = Describe("CRD validation", func() {
 		Entry("no trainer image", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "trainer", "image") },
 			want:   []string{"spec.trainer.image", "Required"}}),
+		// spec.features and the regression settings (api/v1alpha1/features_types.go).
+		Entry("target lag of zero", invalidCase{
+			mutate: withFeatures(map[string]any{"lags": []any{int64(0), int64(52)}}),
+			want:   []string{"spec.features.lags[0]", "greater than or equal to 1"}}),
+		Entry("repeated target lag", invalidCase{
+			mutate: withFeatures(map[string]any{"lags": []any{int64(1), int64(1)}}),
+			want:   []string{"spec.features.lags[1]", "Duplicate value"}}),
+		Entry("window of one period", invalidCase{
+			mutate: withFeatures(map[string]any{"windows": []any{int64(1)}}),
+			want:   []string{"spec.features.windows[0]", "greater than or equal to 2"}}),
+		Entry("unknown window statistic", invalidCase{
+			mutate: withFeatures(map[string]any{"windows": []any{int64(4)}, "windowStatistics": []any{"Median"}}),
+			want:   []string{"spec.features.windowStatistics[0]", `"Mean", "Min", "Max", "Std"`}}),
+		Entry("window statistics without windows", invalidCase{
+			mutate: withFeatures(map[string]any{"windowStatistics": []any{"Mean"}}),
+			want:   []string{"spec.features", "windowStatistics needs windows"}}),
+		Entry("unknown calendar feature", invalidCase{
+			mutate: withFeatures(map[string]any{"calendar": []any{"Season"}}),
+			want:   []string{"spec.features.calendar[0]", "Unsupported value"}}),
+		Entry("Fourier order above half the period", invalidCase{
+			mutate: withFeatures(map[string]any{"fourier": []any{map[string]any{"period": "12", "order": int64(7)}}}),
+			want:   []string{"spec.features.fourier[0]", "order must be at most period/2"}}),
+		Entry("Fourier period below 2", invalidCase{
+			mutate: withFeatures(map[string]any{"fourier": []any{map[string]any{"period": "1.5", "order": int64(1)}}}),
+			want:   []string{"spec.features.fourier[0].period", "period must be at least 2"}}),
+		Entry("Fourier period not a decimal", invalidCase{
+			mutate: withFeatures(map[string]any{"fourier": []any{map[string]any{"period": "1e3", "order": int64(1)}}}),
+			want:   []string{"spec.features.fourier[0].period", "should match"}}),
+		Entry("event date that does not exist", invalidCase{
+			mutate: withFeatures(map[string]any{"events": []any{map[string]any{"name": "harvest-fair", "dates": []any{"2026-02-30"}}}}),
+			want:   []string{"spec.features.events[0].dates[0]", "date"}}),
+		Entry("event date not written YYYY-MM-DD", invalidCase{
+			mutate: withFeatures(map[string]any{"events": []any{map[string]any{"name": "harvest-fair", "dates": []any{"2026-9-5"}}}}),
+			want:   []string{"spec.features.events[0].dates[0]", "should match"}}),
+		Entry("two events with one name", invalidCase{
+			mutate: withFeatures(map[string]any{"events": []any{
+				map[string]any{"name": "harvest-fair", "dates": []any{"2026-09-05"}},
+				map[string]any{"name": "harvest-fair", "dates": []any{"2027-09-04"}}}}),
+			want: []string{"spec.features.events[1]", "Duplicate value"}}),
+		Entry("event without dates", invalidCase{
+			mutate: withFeatures(map[string]any{"events": []any{map[string]any{"name": "harvest-fair", "dates": []any{}}}}),
+			want:   []string{"spec.features.events[0].dates"}}),
+		Entry("feature covariate not among the input's covariates", invalidCase{
+			mutate: withFeatures(map[string]any{"covariates": []any{"promo_flag", "weather"}}),
+			want:   []string{"spec", "features.covariates must be listed in source.columns.covariates"}}),
+		Entry("covariate lags without covariates", invalidCase{
+			mutate: withFeatures(map[string]any{"covariateLags": []any{int64(1)}}),
+			want:   []string{"spec.features", "covariateLags needs covariates"}}),
+		Entry("filter keeping no features", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"filterKeep": int64(0)}}),
+			want:   []string{"spec.features.selection.filterKeep", "greater than or equal to 1"}}),
+		Entry("feature cap of zero", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"maxFeatures": int64(0)}}),
+			want:   []string{"spec.features.selection.maxFeatures", "greater than or equal to 1"}}),
+		Entry("feature cap above what the filter keeps", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"filterKeep": int64(5), "maxFeatures": int64(8)}}),
+			want:   []string{"spec.features.selection", "maxFeatures must not exceed filterKeep"}}),
+		Entry("filter count with no filter", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"filter": "None", "filterKeep": int64(5)}}),
+			want:   []string{"spec.features.selection", "filterKeep needs a filter other than None"}}),
+		Entry("unknown feature filter", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"filter": "Chi2"}}),
+			want:   []string{"spec.features.selection.filter", `"Correlation", "MutualInformation", "None"`}}),
+		Entry("unknown embedded selection", invalidCase{
+			mutate: withFeatures(map[string]any{"selection": map[string]any{"embedded": "Ridge"}}),
+			want:   []string{"spec.features.selection.embedded", `"Lasso", "None"`}}),
+		Entry("features with no regression member", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				withFeatures(map[string]any{"lags": []any{int64(1)}})(u)
+				set(u, []any{map[string]any{"family": "ETS"}}, "spec", "models")
+			},
+			want: []string{"spec", "features are used only by the regression families"}}),
+		Entry("regression settings on ETS", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "ETS", "regression": map[string]any{"pooled": true}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0]", "regression settings are only for families Ridge, Lasso and GradientBoosting"}}),
+		Entry("penalty on boosted trees", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "GradientBoosting", "regression": map[string]any{"penalty": "0.5"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0]", "regression.penalty is only for families Ridge and Lasso"}}),
+		Entry("zero penalty", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Ridge", "regression": map[string]any{"penalty": "0.000"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].regression.penalty", "penalty must be greater than 0"}}),
+		Entry("negative penalty", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Lasso", "regression": map[string]any{"penalty": "-1"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].regression.penalty", "should match"}}),
 		Entry("run without portfolio", invalidCase{run: true,
 			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "portfolioName") },
 			want:   []string{"spec.portfolioName", "Required"}}),
@@ -329,6 +458,10 @@ var _ = Describe("CRD validation", func() {
 		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.drift.thresholdPercent")).
 			To(ContainSubstring("realized error exceeds this percent"))
 		Expect(explain(kubectl, kubeconfig, "frun.status.shards")).To(ContainSubstring("folded"))
+		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.features")).
+			To(ContainSubstring("regression members"))
+		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.features.selection.maxFeatures")).
+			To(ContainSubstring("caps how many features"))
 	})
 })
 

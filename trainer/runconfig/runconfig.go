@@ -8,8 +8,10 @@ import (
 	"encoding/json"
 	"fmt"
 	"os"
+	"slices"
 	"time"
 
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 )
 
@@ -38,9 +40,12 @@ type Config struct {
 	Horizon   int           `json:"horizon"`
 	Quantiles []float64     `json:"quantiles"`
 	Zoo       []models.Spec `json:"zoo"`
-	Selection Selection     `json:"selection"`
-	Sharding  Sharding      `json:"sharding"`
-	Drift     Drift         `json:"drift"`
+	// Features declares the features of the zoo's regression members whose own Features is
+	// nil (the portfolio's spec.features); nil leaves them to features.Defaults.
+	Features  *features.Config `json:"features,omitempty"`
+	Selection Selection        `json:"selection"`
+	Sharding  Sharding         `json:"sharding"`
+	Drift     Drift            `json:"drift"`
 }
 
 // Source says where the input series live and how to read them.
@@ -185,6 +190,34 @@ func (c *Config) Validate() error {
 	for i, q := range c.Quantiles {
 		if !(q > 0 && q < 1) || (i > 0 && q <= c.Quantiles[i-1]) {
 			return fmt.Errorf("quantiles[%d]: %v must be in (0,1) and strictly increasing", i, q)
+		}
+	}
+	if err := c.checkFeatures(c.Features, ""); err != nil {
+		return err
+	}
+	for i, m := range c.Zoo {
+		if err := c.checkFeatures(m.Features, fmt.Sprintf("zoo[%d].", i)); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// checkFeatures validates a feature declaration (features.Config.Validate, whose errors start
+// with "features.") and checks that every covariate it uses is one the input carries
+// (source.columns.covariates): otherwise every series would fail the member at train time.
+// prefix is prepended to the field path.
+func (c *Config) checkFeatures(f *features.Config, prefix string) error {
+	if f == nil {
+		return nil
+	}
+	if err := f.Validate(); err != nil {
+		return fmt.Errorf("%s%w", prefix, err)
+	}
+	for i, name := range f.Covariates {
+		if !slices.Contains(c.Source.Columns.Covariates, name) {
+			return fmt.Errorf("%sfeatures.covariates[%d]: %q is not among source.columns.covariates %v",
+				prefix, i, name, c.Source.Columns.Covariates)
 		}
 	}
 	return nil

@@ -4,6 +4,7 @@ import (
 	"strings"
 	"testing"
 
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 )
 
@@ -45,6 +46,20 @@ func TestValidate(t *testing.T) {
 			c.Source.Format = "parquet"
 		}, ""},
 		"negative drift ratio": {func(c *Config) { c.Drift.ThresholdRatio = -1 }, "drift"},
+		"features with a known covariate": {func(c *Config) {
+			c.Source.Columns.Covariates = []string{"promo_flag", "price"}
+			c.Features = &features.Config{Lags: []int{1, 52}, Covariates: []string{"price"}}
+		}, ""},
+		"features with an unknown covariate": {func(c *Config) {
+			c.Source.Columns.Covariates = []string{"promo_flag"}
+			c.Features = &features.Config{Covariates: []string{"promo_flag", "weather"}}
+		}, "features.covariates[1]"},
+		"features with a zero lag": {func(c *Config) {
+			c.Features = &features.Config{Lags: []int{0}}
+		}, "features.lags[0]"},
+		"member features with an unknown covariate": {func(c *Config) {
+			c.Zoo = append(c.Zoo, models.Spec{Family: "Ridge", Features: &features.Config{Covariates: []string{"price"}}})
+		}, "zoo[1].features.covariates[0]"},
 	}
 	for name, tc := range cases {
 		t.Run(name, func(t *testing.T) {
@@ -76,5 +91,29 @@ func TestParseNamesTheFile(t *testing.T) {
 	}
 	if c.Source.Partitioning != PartitionObject || c.Sharding.Buckets != 8 {
 		t.Fatalf("new fields not decoded: %+v %+v", c.Source, c.Sharding)
+	}
+}
+
+// TestFeaturesRoundTrip: the features block survives the ConfigMap's JSON, and a bad one is
+// refused by Parse with the file and the field named.
+func TestFeaturesRoundTrip(t *testing.T) {
+	b := []byte(`{"run":"r1","source":{"uri":"mem://in/","format":"csv",
+		"columns":{"series":["item"],"date":"week_start","value":"units","covariates":["promo_flag","price"]},"frequency":"weekly"},
+		"output":{"uri":"mem://out/"},"horizon":8,"zoo":[{"family":"ETS"}],"sharding":{"targetSeriesPerShard":10},
+		"features":{"lags":[1,52],"covariates":["promo_flag","price"],"covariateLags":[1],
+			"events":[{"name":"harvest-fair","dates":["2026-09-05"],"lead":1}],
+			"fourier":[{"period":52.18,"order":3}],"selection":{"filter":"correlation","maxFeatures":8}}}`)
+	c, err := Parse(b, "inline")
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := c.Features
+	if f == nil || len(f.Lags) != 2 || f.Events[0].Lead != 1 || f.Fourier[0].Period != 52.18 || f.Selection.MaxFeatures != 8 {
+		t.Fatalf("features not decoded: %+v", f)
+	}
+	bad := strings.Replace(string(b), `"lead":1`, `"lead":-1`, 1)
+	if _, err := Parse([]byte(bad), "/etc/almanac/run/config.json"); err == nil ||
+		!strings.Contains(err.Error(), "/etc/almanac/run/config.json: features.events[0]") {
+		t.Fatalf("Parse(negative lead) = %v, want the file and features.events[0] named", err)
 	}
 }

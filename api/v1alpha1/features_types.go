@@ -1,0 +1,231 @@
+package v1alpha1
+
+// This file holds spec.features (what the regression members of the zoo learn from) and the
+// regression settings of a zoo member. The feature declaration sits at the portfolio level, not
+// in each member: the calendar, the events and the covariates are facts about the data, shared by
+// every learner, and one place to declare them is one place to check them against
+// spec.source.columns. What differs between members is the learner (models[].regression).
+
+// CalendarFeature names a feature derived from the period's date.
+// +kubebuilder:validation:Enum=DayOfWeek;WeekOfYear;Month;Quarter;Weekend;PositionInMonth
+type CalendarFeature string
+
+// The calendar features.
+const (
+	CalendarDayOfWeek       CalendarFeature = "DayOfWeek"
+	CalendarWeekOfYear      CalendarFeature = "WeekOfYear"
+	CalendarMonth           CalendarFeature = "Month"
+	CalendarQuarter         CalendarFeature = "Quarter"
+	CalendarWeekend         CalendarFeature = "Weekend"
+	CalendarPositionInMonth CalendarFeature = "PositionInMonth"
+)
+
+// WindowStatistic is a statistic of a trailing window of the series.
+// +kubebuilder:validation:Enum=Mean;Min;Max;Std
+type WindowStatistic string
+
+// The window statistics.
+const (
+	WindowMean WindowStatistic = "Mean"
+	WindowMin  WindowStatistic = "Min"
+	WindowMax  WindowStatistic = "Max"
+	WindowStd  WindowStatistic = "Std"
+)
+
+// FeatureFilter ranks generated features against the target before the learner sees them.
+// +kubebuilder:validation:Enum=Correlation;MutualInformation;None
+type FeatureFilter string
+
+// The filters.
+const (
+	FilterCorrelation       FeatureFilter = "Correlation"
+	FilterMutualInformation FeatureFilter = "MutualInformation"
+	FilterNone              FeatureFilter = "None"
+)
+
+// EmbeddedSelection narrows the features inside a fitted model.
+// +kubebuilder:validation:Enum=Lasso;None
+type EmbeddedSelection string
+
+// The embedded selection methods.
+const (
+	EmbeddedLasso EmbeddedSelection = "Lasso"
+	EmbeddedNone  EmbeddedSelection = "None"
+)
+
+// FeaturesSpec declares the features the regression members (Ridge, Lasso, GradientBoosting)
+// are built on and how they are narrowed down. Every feature uses only what is known at the
+// forecast origin; covariates must be known for the forecast periods too (planned prices,
+// promotion calendars), i.e. present in the input on rows dated after the history ends.
+// Unset: regression members use a broad default set for the frequency.
+// +kubebuilder:validation:XValidation:rule="!has(self.covariateLags) || (has(self.covariates) && size(self.covariates) > 0)",message="covariateLags needs covariates"
+// +kubebuilder:validation:XValidation:rule="!has(self.windowStatistics) || (has(self.windows) && size(self.windows) > 0)",message="windowStatistics needs windows"
+type FeaturesSpec struct {
+	// calendar lists features of the period's date: DayOfWeek, WeekOfYear, Month, Quarter,
+	// Weekend, PositionInMonth (early, middle or late in the month). Features finer than the
+	// frequency are skipped (DayOfWeek on monthly data).
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=6
+	Calendar []CalendarFeature `json:"calendar,omitempty"`
+
+	// events are the holidays and events of the business (a 0/1 flag per period each).
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	// +kubebuilder:validation:MaxItems=64
+	Events []EventSpec `json:"events,omitempty"`
+
+	// fourier adds sine/cosine pairs for long or non-integer seasonal cycles.
+	// +optional
+	// +listType=atomic
+	// +kubebuilder:validation:MaxItems=4
+	Fourier []FourierSpec `json:"fourier,omitempty"`
+
+	// lags are target lags in periods (1 = the previous period, 52 = a year ago in weekly data).
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=16
+	// +kubebuilder:validation:items:Minimum=1
+	// +kubebuilder:validation:items:Maximum=8784
+	Lags []int32 `json:"lags,omitempty"`
+
+	// windows are trailing-window lengths in periods, at least 2; each window gives every
+	// statistic in windowStatistics.
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=8
+	// +kubebuilder:validation:items:Minimum=2
+	// +kubebuilder:validation:items:Maximum=8784
+	Windows []int32 `json:"windows,omitempty"`
+
+	// windowStatistics are the statistics of each window: Mean, Min, Max, Std. Default Mean.
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=4
+	WindowStatistics []WindowStatistic `json:"windowStatistics,omitempty"`
+
+	// covariates names the input covariate columns used as features, each of which must be
+	// listed in spec.source.columns.covariates. Their values for the forecast periods must be
+	// in the input: rows dated after the history, with the covariates filled (their value
+	// column is not read).
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=64
+	// +kubebuilder:validation:items:MinLength=1
+	// +kubebuilder:validation:items:MaxLength=128
+	Covariates []string `json:"covariates,omitempty"`
+
+	// covariateLags adds each covariate shifted by these many periods (1 = last period's
+	// promotion, for the dip after it).
+	// +optional
+	// +listType=set
+	// +kubebuilder:validation:MaxItems=8
+	// +kubebuilder:validation:items:Minimum=1
+	// +kubebuilder:validation:items:Maximum=8784
+	CovariateLags []int32 `json:"covariateLags,omitempty"`
+
+	// selection narrows the generated features per series.
+	// +optional
+	Selection *FeatureSelectionSpec `json:"selection,omitempty"`
+}
+
+// EventSpec is one named holiday or event.
+type EventSpec struct {
+	// name identifies the event in outputs and in the report, e.g. "harvest-fair".
+	// +required
+	// +kubebuilder:validation:MinLength=1
+	// +kubebuilder:validation:MaxLength=63
+	// +kubebuilder:validation:Pattern=`^[A-Za-z][A-Za-z0-9_.-]*$`
+	Name string `json:"name"`
+
+	// dates are the event's days as YYYY-MM-DD, past ones (to learn the effect) and future ones
+	// (to forecast it). The period containing a date is flagged.
+	// +required
+	// +listType=set
+	// +kubebuilder:validation:MinItems=1
+	// +kubebuilder:validation:MaxItems=512
+	// +kubebuilder:validation:items:Pattern=`^[0-9]{4}-[0-9]{2}-[0-9]{2}$`
+	// +kubebuilder:validation:items:Format=date
+	// +kubebuilder:validation:items:MaxLength=10
+	Dates []string `json:"dates"`
+
+	// periodsBefore also flags this many periods before each date (stocking up). Default 0.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=52
+	PeriodsBefore int32 `json:"periodsBefore,omitempty"`
+
+	// periodsAfter also flags this many periods after each date (the dip after). Default 0.
+	// +optional
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=52
+	PeriodsAfter int32 `json:"periodsAfter,omitempty"`
+}
+
+// FourierSpec asks for order sine/cosine pairs of one cycle:
+// sin(2 pi k t / period), cos(2 pi k t / period) for k = 1..order, with t the period index
+// (Hyndman & Athanasopoulos, FPP 3rd ed., section 7.4).
+// +kubebuilder:validation:XValidation:rule="!self.period.matches('^[0-9]{1,5}(\\\\.[0-9]{1,4})?$') || double(self.order) * 2.0 <= double(self.period)",message="order must be at most period/2 (higher harmonics repeat lower ones)"
+type FourierSpec struct {
+	// period is the cycle length in periods of the series as a decimal string, at least 2,
+	// e.g. "365.25" for a yearly cycle in daily data, "52.18" in weekly data.
+	// +required
+	// +kubebuilder:validation:MaxLength=10
+	// +kubebuilder:validation:Pattern=`^[0-9]{1,5}(\.[0-9]{1,4})?$`
+	// +kubebuilder:validation:XValidation:rule="double(self) >= 2.0",message="period must be at least 2"
+	Period string `json:"period"`
+
+	// order is the number of sine/cosine pairs, 1 to period/2.
+	// +required
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=100
+	Order int32 `json:"order"`
+}
+
+// FeatureSelectionSpec is a two-step narrowing of the generated features: a filter ranks them
+// against the target and keeps the best filterKeep, then the embedded step (a lasso path whose
+// penalty is chosen on the latest training rows) drops those with no weight, and at most
+// maxFeatures remain.
+// +kubebuilder:validation:XValidation:rule="!has(self.filterKeep) || !has(self.maxFeatures) || self.maxFeatures <= self.filterKeep",message="maxFeatures must not exceed filterKeep"
+// +kubebuilder:validation:XValidation:rule="!has(self.filterKeep) || !has(self.filter) || self.filter != 'None'",message="filterKeep needs a filter other than None"
+type FeatureSelectionSpec struct {
+	// filter ranks the features by their relation to the target: Correlation (absolute Pearson
+	// correlation), MutualInformation, or None. Default Correlation.
+	// +optional
+	Filter FeatureFilter `json:"filter,omitempty"`
+
+	// filterKeep is how many of the best-ranked features the filter passes on. Unset: all.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=1000
+	FilterKeep *int32 `json:"filterKeep,omitempty"`
+
+	// embedded narrows the features inside the fit: Lasso or None. Default Lasso.
+	// +optional
+	Embedded EmbeddedSelection `json:"embedded,omitempty"`
+
+	// maxFeatures caps how many features a fitted member keeps. Unset: no cap.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=1000
+	MaxFeatures *int32 `json:"maxFeatures,omitempty"`
+}
+
+// RegressionSettings tunes the learner of a regression member (Ridge, Lasso, GradientBoosting).
+type RegressionSettings struct {
+	// penalty fixes the penalty weight of Ridge and Lasso as a decimal string above 0, e.g.
+	// "0.5" (the weight of the squared or absolute coefficient sum against the mean squared
+	// error). Unset: chosen per series on the latest training rows.
+	// +optional
+	// +kubebuilder:validation:MaxLength=16
+	// +kubebuilder:validation:Pattern=`^[0-9]{1,6}(\.[0-9]{1,8})?$`
+	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0",message="penalty must be greater than 0"
+	Penalty string `json:"penalty,omitempty"`
+
+	// pooled fits one model on all series of a shard together (each series' target scaled by
+	// its own level) instead of one per series, so short series borrow strength from the
+	// others; the member is still scored and chosen per series. Default false.
+	// +optional
+	Pooled *bool `json:"pooled,omitempty"`
+}
