@@ -9,8 +9,10 @@ import (
 	"io"
 	"math"
 	"os"
+	"os/signal"
 	"path/filepath"
 	"runtime"
+	"runtime/pprof"
 	"sort"
 	"strings"
 	"syscall"
@@ -34,6 +36,8 @@ type Options struct {
 	CombineMargin float64
 	Metric        backtest.Metric
 	Workers       int
+	// BacktestUpdate carries fits forward between backtest origins (selection.Config).
+	BacktestUpdate bool
 }
 
 // Run forecasts every entry with the selection design in o and scores it. It returns the
@@ -46,7 +50,8 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		return nil, nil, err
 	}
 	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
-		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin}
+		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin,
+		BacktestUpdate: o.BacktestUpdate}
 	byH := map[int][]int{}
 	var hs []int
 	for i, e := range entries {
@@ -127,18 +132,49 @@ func InnerDesigns(o Options) []Design {
 	return []Design{{"select", sel}, {"top3", top}, {"ets-arima-theta", eat}, {"ets-theta", et}}
 }
 
+// LeanFamilies is the zoo of LeanDesigns: every family of the first session's zoo, i.e. the
+// registered ones without ARIMA and the ETS+ARIMA+Theta member, whose fits cost about ten
+// times an ETS fit.
+var LeanFamilies = []string{models.FamilyMean, models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyDrift,
+	models.FamilySeasonalAdjustedNaive, models.FamilyCroston, models.FamilySBA, models.FamilyTSB,
+	models.FamilyTheta, models.FamilyETS}
+
+// LeanDesigns are the candidates of InnerDesigns without the ARIMA family, for a CPU budget
+// (chosen for cost, before any test score of select-lean or top3-lean was seen; ets-theta is
+// the same design as in InnerDesigns):
+//
+//   - select-lean: LeanFamilies, best member per series by the rolling-origin backtest;
+//   - top3-lean: LeanFamilies, equal-weight mean of each series' 3 best members;
+//   - ets-theta: the fixed mean of ETS and Theta.
+func LeanDesigns(o Options) []Design {
+	sel := o
+	sel.Families, sel.CombineTop, sel.CombineMargin = LeanFamilies, 0, 0
+	top := sel
+	top.CombineTop, top.CombineMargin = 3, 1000
+	et := sel
+	et.Families, et.CombineTop, et.CombineMargin = []string{models.FamilyETS, models.FamilyTheta}, 2, 1000
+	return []Design{{"select-lean", sel}, {"top3-lean", top}, {"ets-theta", et}}
+}
+
 // ChooseByInnerHoldout picks, per category, the design with the lowest mean MASE on an inner
 // holdout that uses training data only: every series' last h training observations are held
 // out, each design forecasts them from the rest, and the forecasts are scored with Accuracy
 // (in-sample scale from the shortened history). Series too short to lose h points (fewer than
-// h + 2m + 2 left) are left out of the inner holdout. It returns the chosen design per category
+// h + 2m + 2 left) are left out of the inner holdout; of the others, every k-th of each category
+// is used (k = every, at least 1; the choice is one design per category, so a spread sample
+// keeps most of its power at a fraction of the cost). It returns the chosen design per category
 // and the inner MASE of every design, and writes them to w. This is a validation-set choice
 // (Tashman 2000, section 2: hold out the end of the in-sample data); the test data of the
 // entries are never read.
-func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, w io.Writer) (map[string]Design, error) {
+func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, every int, w io.Writer) (map[string]Design, error) {
 	var inner []Entry
+	seen := map[string]int{}
 	for _, e := range entries {
 		if len(e.Train)-e.Horizon < e.Horizon+2*e.Frequency+2 {
+			continue
+		}
+		seen[e.Category]++
+		if (seen[e.Category]-1)%max(every, 1) != 0 {
 			continue
 		}
 		ie := e
@@ -257,6 +293,10 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	dataDir := fs.String("data", "", "directory in the M3 CSV layout (train.csv, test.csv, series.csv, published_forecasts.csv)")
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
 	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
+	candidates := fs.String("candidates", "lean", `with --design inner: "lean" (LeanDesigns, no ARIMA) or "full" (InnerDesigns)`)
+	innerEvery := fs.Int("inner-every", 4, "with --design inner: use every K-th eligible series of each category for the inner holdout")
+	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS fits forward (selection.Config.BacktestUpdate)")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's ets and thetaf on the same series and compare (needs Rscript)")
@@ -285,9 +325,35 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "bench: give --data DIR or --m3")
 		return 2
 	}
-	if *every < 1 {
-		fmt.Fprintln(stderr, "bench: --every must be >= 1")
+	if *every < 1 || *innerEvery < 1 {
+		fmt.Fprintln(stderr, "bench: --every and --inner-every must be >= 1")
 		return 2
+	}
+	var cands func(Options) []Design
+	switch *candidates {
+	case "lean":
+		cands = LeanDesigns
+	case "full":
+		cands = InnerDesigns
+	default:
+		fmt.Fprintf(stderr, "bench: --candidates %q: want lean or full\n", *candidates)
+		return 2
+	}
+	// SIGTERM or Ctrl-C cancels the run: the workers stop and any R child is killed.
+	ctx, stop := signal.NotifyContext(context.Background(), syscall.SIGTERM, os.Interrupt)
+	defer stop()
+	if *cpuProfile != "" {
+		f, err := os.Create(*cpuProfile)
+		if err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 1
+		}
+		defer f.Close()
+		if err := pprof.StartCPUProfile(f); err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 1
+		}
+		defer pprof.StopCPUProfile()
 	}
 	entries, err := Load(dir, 0)
 	if err != nil {
@@ -296,7 +362,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	entries = sample(entries, *every, *limit)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
-		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers}
+		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update}
 	if *zooFlag != "" {
 		for _, f := range strings.Split(*zooFlag, ",") {
 			o.Families = append(o.Families, strings.TrimSpace(f))
@@ -317,9 +383,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	if *design == "inner" {
 		var chosen map[string]Design
 		cpu0 := cpuTime()
-		if chosen, err = ChooseByInnerHoldout(context.Background(), entries, InnerDesigns(o), stdout); err == nil {
+		if chosen, err = ChooseByInnerHoldout(ctx, entries, cands(o), *innerEvery, stdout); err == nil {
 			choiceCPU := cpuTime() - cpu0
-			rep, results, err = RunChosen(context.Background(), entries, chosen)
+			rep, results, err = RunChosen(ctx, entries, chosen)
 			if err == nil {
 				fmt.Fprintf(stdout, "  inner-holdout choice: %.2f cpu ms/series, final run %.2f; cpu_ms_per_series below is their sum\n",
 					float64(choiceCPU.Microseconds())/1000/float64(len(entries)), rep.All.CPUMilliseconds)
@@ -327,7 +393,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 			}
 		}
 	} else {
-		rep, results, err = Run(context.Background(), entries, o)
+		rep, results, err = Run(ctx, entries, o)
 	}
 	if err != nil {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
@@ -342,7 +408,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	var refs []*Report
 	if *refR {
-		refs, err = ReferenceR(context.Background(), entries, stdout)
+		refs, err = ReferenceR(ctx, entries, stdout)
 		if err != nil && !errors.Is(err, ErrNoR) {
 			fmt.Fprintf(stderr, "bench: reference-r: %v\n", err)
 			return 1

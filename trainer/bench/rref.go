@@ -86,6 +86,9 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 		out := filepath.Join(tmp, method+".csv")
 		cmd := exec.CommandContext(ctx, "Rscript", "--vanilla", script, method, in, out)
 		cmd.Env = append(os.Environ(), "OMP_NUM_THREADS=1", "OPENBLAS_NUM_THREADS=1")
+		// Own process group, killed whole when ctx ends (Rscript may run R as a child).
+		cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
+		cmd.Cancel = func() error { return syscall.Kill(-cmd.Process.Pid, syscall.SIGKILL) }
 		var stderr strings.Builder
 		cmd.Stderr = &stderr
 		if err := cmd.Run(); err != nil {
