@@ -10,7 +10,7 @@ import (
 	"strings"
 	"testing"
 
-	_ "almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/models"
 )
 
 func m3Dir(t *testing.T) string {
@@ -121,5 +121,24 @@ func TestReferenceRThetaMatches(t *testing.T) {
 	}
 	if e := refs[0].All; e.N != len(entries) || !(e.CPUMilliseconds > 0) {
 		t.Errorf("ets: n=%d cpu %v", e.N, e.CPUMilliseconds)
+	}
+}
+
+// The lean candidates are InnerDesigns without any ARIMA fit: no design may name the ARIMA or
+// ETS+ARIMA+Theta families or leave its zoo to "every registered family".
+func TestLeanDesignsHaveNoARIMA(t *testing.T) {
+	ds := LeanDesigns(Options{})
+	if len(ds) != 3 {
+		t.Fatalf("%d lean designs, want 3", len(ds))
+	}
+	for _, d := range ds {
+		if len(d.Opts.Families) == 0 {
+			t.Errorf("%s: zoo is every registered family", d.Name)
+		}
+		for _, f := range d.Opts.Families {
+			if f == models.FamilyARIMA || f == models.FamilyETSARIMATheta {
+				t.Errorf("%s: zoo has %s", d.Name, f)
+			}
+		}
 	}
 }

@@ -147,13 +147,18 @@ var LeanFamilies = []string{models.FamilyMean, models.FamilyNaive, models.Family
 //   - top3-lean: LeanFamilies, equal-weight mean of each series' 3 best members;
 //   - ets-theta: the fixed mean of ETS and Theta.
 func LeanDesigns(o Options) []Design {
-	sel := o
-	sel.Families, sel.CombineTop, sel.CombineMargin = LeanFamilies, 0, 0
-	top := sel
-	top.CombineTop, top.CombineMargin = 3, 1000
-	et := sel
-	et.Families, et.CombineTop, et.CombineMargin = []string{models.FamilyETS, models.FamilyTheta}, 2, 1000
-	return []Design{{"select-lean", sel}, {"top3-lean", top}, {"ets-theta", et}}
+	var out []Design
+	for _, d := range InnerDesigns(o) {
+		switch d.Name {
+		case "select", "top3":
+			d.Name += "-lean"
+			d.Opts.Families = LeanFamilies
+		case "ets-arima-theta":
+			continue
+		}
+		out = append(out, d)
+	}
+	return out
 }
 
 // ChooseByInnerHoldout picks, per category, the design with the lowest mean MASE on an inner
