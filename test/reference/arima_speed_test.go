@@ -18,8 +18,10 @@ import (
 )
 
 // arimaSpeedR times R forecast's auto.arima(x) on every series of its input file in one R
-// process, with proc.time() (user + system CPU) around each call so R's start-up is excluded,
-// and writes the total CPU seconds and the chosen orders.
+// process, with proc.time() (user + system CPU) around each call so R's start-up is excluded.
+// It writes one line per series as soon as it is done (flushed, so a stopped run leaves the
+// completed prefix: "order,<id>,<p d q P D Q>,<cpu seconds>") and the total at the end
+// ("cpu,<seconds>").
 const arimaSpeedR = `
 suppressPackageStartupMessages(library(forecast))
 args <- commandArgs(trailingOnly = TRUE)
@@ -29,9 +31,10 @@ now <- function() { p <- proc.time(); p[[1]] + p[[2]] }
 for (line in inp) {
   f <- strsplit(line, ",")[[1]]
   x <- ts(as.numeric(strsplit(f[2], " ")[[1]]), frequency = 12)
-  t0 <- now(); fit <- auto.arima(x); cpu <- cpu + now() - t0
+  t0 <- now(); fit <- auto.arima(x); dt <- now() - t0; cpu <- cpu + dt
   a <- fit$arma
-  writeLines(paste("order", f[1], paste(a[c(1, 6, 2, 3, 7, 4)], collapse = " "), sep = ","), out)
+  writeLines(paste("order", f[1], paste(a[c(1, 6, 2, 3, 7, 4)], collapse = " "), dt, sep = ","), out)
+  flush(out)
 }
 writeLines(paste("cpu", cpu, sep = ","), out); close(out)
 `
@@ -45,6 +48,16 @@ func arimaSpeedSeries() int {
 	return 100
 }
 
+// arimaSpeedEvery is the spread of the sample (env ALMANAC_ARIMA_SPEED_EVERY=k takes every
+// k-th M3 monthly series, the 1st, (k+1)th, ...; default 1). With k > 1 the series limit
+// applies to the spread sample.
+func arimaSpeedEvery() int {
+	if v, err := strconv.Atoi(os.Getenv("ALMANAC_ARIMA_SPEED_EVERY")); err == nil && v > 1 {
+		return v
+	}
+	return 1
+}
+
 var arimaRSpeed struct {
 	once    sync.Once
 	seconds float64 // R CPU seconds per series
@@ -52,8 +65,9 @@ var arimaRSpeed struct {
 	err     error
 }
 
-// m3Monthly loads the M3 monthly training series (skips without the data set).
-func m3Monthly(tb testing.TB, limit int) []bench.Entry {
+// m3Monthly loads every k-th M3 monthly training series, at most limit of them (limit <= 0: no
+// limit; skips without the data set).
+func m3Monthly(tb testing.TB, limit, every int) []bench.Entry {
 	dir := os.Getenv(bench.EnvM3Dir)
 	if dir == "" {
 		dir = filepath.Join("..", "..", "..", "shared", "datasets", "m3")
@@ -63,15 +77,23 @@ func m3Monthly(tb testing.TB, limit int) []bench.Entry {
 		tb.Skipf("M3 data not available: %v", err)
 	}
 	var out []bench.Entry
+	i := 0
 	for _, e := range all {
-		if e.Category == "MONTHLY" && (limit <= 0 || len(out) < limit) {
+		if e.Category != "MONTHLY" {
+			continue
+		}
+		if i%every == 0 && (limit <= 0 || len(out) < limit) {
 			out = append(out, e)
 		}
+		i++
 	}
 	return out
 }
 
-// runRSpeed times auto.arima on the entries once per test binary.
+// runRSpeed times auto.arima on the entries once per test binary. R's input, script and
+// per-series output go to a temporary directory, or to the directory named by env
+// ALMANAC_ARIMA_SPEED_DIR, which is kept (to watch a long run, or read the completed prefix of
+// a stopped one).
 func runRSpeed(entries []bench.Entry) {
 	arimaRSpeed.once.Do(func() {
 		rs, err := exec.LookPath("Rscript")
@@ -79,12 +101,17 @@ func runRSpeed(entries []bench.Entry) {
 			arimaRSpeed.err = err
 			return
 		}
-		dir, err := os.MkdirTemp("", "almanac-arima-speed")
-		if err != nil {
+		dir := os.Getenv("ALMANAC_ARIMA_SPEED_DIR")
+		if dir == "" {
+			if dir, err = os.MkdirTemp("", "almanac-arima-speed"); err != nil {
+				arimaRSpeed.err = err
+				return
+			}
+			defer os.RemoveAll(dir)
+		} else if err := os.MkdirAll(dir, 0o755); err != nil {
 			arimaRSpeed.err = err
 			return
 		}
-		defer os.RemoveAll(dir)
 		var sb strings.Builder
 		for _, e := range entries {
 			vals := make([]string, len(e.Train))
@@ -102,7 +129,10 @@ func runRSpeed(entries []bench.Entry) {
 			arimaRSpeed.err = err
 			return
 		}
-		if b, err := exec.Command(rs, script, in, out).CombinedOutput(); err != nil {
+		cmd := exec.Command(rs, script, in, out)
+		// One BLAS thread, as our side runs with GOMAXPROCS=1.
+		cmd.Env = append(os.Environ(), "OPENBLAS_NUM_THREADS=1", "OMP_NUM_THREADS=1")
+		if b, err := cmd.CombinedOutput(); err != nil {
 			arimaRSpeed.err = fmt.Errorf("Rscript: %v: %s", err, b)
 			return
 		}
@@ -137,7 +167,7 @@ func runRSpeed(entries []bench.Entry) {
 //
 // It skips without the M3 data or Rscript.
 func BenchmarkARIMASelectionVsR(b *testing.B) {
-	entries := m3Monthly(b, arimaSpeedSeries())
+	entries := m3Monthly(b, arimaSpeedSeries(), arimaSpeedEvery())
 	runRSpeed(entries)
 	if arimaRSpeed.err != nil {
 		b.Skipf("R reference not available: %v", arimaRSpeed.err)

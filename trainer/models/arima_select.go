@@ -81,8 +81,9 @@ func (f *ARIMAFit) nearBoundary() bool {
 // SelectARIMA chooses and fits an order for y with season length m by the stepwise algorithm
 // of Hyndman & Khandakar (2008, section 3.2):
 //
-//  1. D = SeasonalDiffs(y, m) (0 when m < 2 or m > arimaMaxSeason), then d = Diffs of the
-//     seasonally differenced series (KPSS, Kwiatkowski et al. 1992).
+//  1. D = SeasonalDiffs(y, m) (the STL seasonal strength above 0.64; 0 when m < 2 or
+//     m > arimaMaxSeason), then d = Diffs of the seasonally differenced series (KPSS,
+//     Kwiatkowski et al. 1992).
 //  2. Fit ARIMA(2,d,2)(1,D,1), (0,d,0)(0,D,0), (1,d,0)(1,D,0) and (0,d,1)(0,D,1) (seasonal
 //     parts dropped without season), with a constant when d + D <= 1; the smallest AICc is
 //     the current model.

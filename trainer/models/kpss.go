@@ -83,62 +83,35 @@ func constant(x []float64) bool {
 	return true
 }
 
-// SeasonalStrength returns F_S = max(0, 1 - Var(R) / Var(S + R)) (Wang, Smith & Hyndman 2006,
-// Data Min. Knowl. Discov. 13(3); Hyndman & Athanasopoulos, FPP3 section 4.3) from a classical
-// additive decomposition: trend T by the centred moving average of order m (2 x m for even
-// m), S the mean of y - T per season position centred to sum zero, R = y - T - S, over the
-// periods where T is defined. It returns 0 when n < 2m or m < 2.
+// SeasonalStrength returns F_S = max(0, min(1, 1 - Var(R) / Var(S + R))) (Wang, Smith &
+// Hyndman 2006, Data Min. Knowl. Discov. 13(3); Hyndman & Athanasopoulos, FPP3 section 4.3;
+// both from memory) with S and R the seasonal and remainder of STL(y, m) with seasonal span
+// seasonalStrengthWindow, no robustness loop and the other spans at their defaults: the
+// decomposition R forecast 8.20's nsdiffs uses (seas.heuristic on mstl(x)). Variances have
+// the n - 1 denominator. It returns 0 when m < 2 or n <= 2m (STL needs more than two periods).
 func SeasonalStrength(y []float64, m int) float64 {
-	n := len(y)
-	if m < 2 || n < 2*m {
+	if m < 2 || len(y) <= 2*m {
 		return 0
 	}
-	half := m / 2
-	det := make([]float64, n)
-	ok := make([]bool, n)
-	for t := half; t < n-half; t++ {
-		var tr float64
-		if m%2 == 0 {
-			tr = 0.5*y[t-half] + 0.5*y[t+half]
-			for k := t - half + 1; k < t+half; k++ {
-				tr += y[k]
-			}
-		} else {
-			for k := t - half; k <= t+half; k++ {
-				tr += y[k]
-			}
-		}
-		det[t] = y[t] - tr/float64(m)
-		ok[t] = true
+	d, err := STL(y, m, STLOptions{SeasonalWindow: seasonalStrengthWindow})
+	if err != nil {
+		return 0
 	}
-	idx := make([]float64, m)
-	cnt := make([]float64, m)
-	for t := range y {
-		if ok[t] {
-			idx[t%m] += det[t]
-			cnt[t%m]++
-		}
+	sr := make([]float64, len(y))
+	for t := range sr {
+		sr[t] = d.Seasonal[t] + d.Remainder[t]
 	}
-	avg := 0.0
-	for j := range idx {
-		idx[j] /= cnt[j]
-		avg += idx[j]
-	}
-	avg /= float64(m)
-	var rs, sr []float64
-	for t := range y {
-		if ok[t] {
-			s := idx[t%m] - avg
-			rs = append(rs, det[t]-s)
-			sr = append(sr, det[t])
-		}
-	}
-	vr, vsr := variance(rs), variance(sr)
+	vr, vsr := variance(d.Remainder), variance(sr)
 	if !(vsr > 0) {
 		return 0
 	}
-	return math.Max(0, 1-vr/vsr)
+	return math.Max(0, math.Min(1, 1-vr/vsr))
 }
+
+// seasonalStrengthWindow is the STL seasonal span of the seasonal-strength test: R forecast
+// 8.20's mstl defaults s.window to 7 + 4 * seq(6) and takes its first element, 11, for a
+// series with one season (read from the installed package's R source).
+const seasonalStrengthWindow = 11
 
 func variance(x []float64) float64 {
 	mean := 0.0
@@ -157,10 +130,11 @@ func variance(x []float64) float64 {
 // (0.64, the threshold of R forecast 8.20's nsdiffs seasonal-strength test, from memory).
 const SeasonalStrengthThreshold = 0.64
 
-// SeasonalDiffs returns 1 when SeasonalStrength(y, m) exceeds SeasonalStrengthThreshold and y
-// has at least 2m observations after the difference would be taken, else 0.
+// SeasonalDiffs returns 1 when SeasonalStrength(y, m) exceeds SeasonalStrengthThreshold,
+// else 0; 0 as well when m < 2, y is constant or n <= 2m (R forecast 8.20's auto.arima takes
+// D = 0 for n <= 2m; its nsdiffs tests at most once for max.D = 1).
 func SeasonalDiffs(y []float64, m int) int {
-	if m < 2 || len(y) < 3*m || constant(y) {
+	if m < 2 || len(y) <= 2*m || constant(y) {
 		return 0
 	}
 	if SeasonalStrength(y, m) > SeasonalStrengthThreshold {
