@@ -359,10 +359,13 @@ type etsFitter struct {
 	nm       nmWork
 	st       etsState
 	scale    float64
+	// screenTol is the relative stopping tolerance of the screening stage (see screen).
+	screenTol float64
 }
 
 func (ft *etsFitter) init(y []float64, m int) {
 	ft.y, ft.m = y, m
+	ft.screenTol = 1e-8
 	ft.adj = make([]float64, len(y))
 	ft.buf = make([]float64, max(m, 1))
 	ft.poly = make([]float64, 2*(m+2))
@@ -558,7 +561,7 @@ func (ft *etsFitter) screen(form ETSForm, errT, trend, season int8) (crit float6
 		if try == 1 {
 			etsLivelyStart(start, trend, season)
 		}
-		r := nelderMead(evalW, start, step[:dw], etsStage1*(dw+1), 1e-8, &ft.nm)
+		r := nelderMead(evalW, start, step[:dw], etsStage1*(dw+1), ft.screenTol, &ft.nm)
 		evals += r.Evals
 		if r.F < bestW {
 			bestW = r.F
@@ -641,6 +644,13 @@ func etsForms(opts *ETSOptions) []ETSForm {
 // etsRefined is how many forms SelectETS refines fully after screening.
 const etsRefined = 2
 
+// etsScreenTol is the relative stopping tolerance of SelectETS's screening stage (FitETS's
+// first stage uses 1e-8). Ranking forms needs the criterion to about 0.1 AICc units, not to
+// 1e-8: on every 15th M3 series (training data) it cut the search's evaluations by about 40%
+// against 1e-8 with the same mean AICc of the chosen forms (0.42 vs 0.48 above refining every
+// form).
+const etsScreenTol = 1e-4
+
 // etsScreened is one form after the screening stage of SelectETS.
 type etsScreened struct {
 	form                ETSForm
@@ -655,8 +665,8 @@ type etsScreened struct {
 // most of the cost of the joint search:
 //
 //  1. screen: every form gets the weights-only first stage of FitETS (seeds held at the
-//     heuristic values of etsSeedStates) and is scored by the AICc there, counting the seeds
-//     as estimated;
+//     heuristic values of etsSeedStates, stopping tolerance etsScreenTol) and is scored by
+//     the AICc there, counting the seeds as estimated;
 //  2. refine: the etsRefined best-screened forms get the full joint search of FitETS, from
 //     their screened weights, and the one with the smallest AICc is returned.
 //
@@ -678,6 +688,7 @@ func selectETS(y []float64, m int, opts *ETSOptions, refine int) (*ETSFit, error
 	}
 	var ft etsFitter
 	ft.init(y, m)
+	ft.screenTol = etsScreenTol
 	var cands []ETSCandidate
 	var screened []etsScreened
 	evals := 0
