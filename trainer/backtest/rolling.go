@@ -75,6 +75,11 @@ func Forecasts(mod models.Model, y []float64, m int, p Plan) ([][]float64, error
 // only; covariates stay whole, as known future values (see models.Inputs). With in == nil it is
 // Forecasts.
 func ForecastsWith(mod models.Model, y []float64, m int, p Plan, in *models.Inputs) ([][]float64, error) {
+	if in != nil {
+		c := *in
+		c.Horizon = p.Horizon
+		in = &c
+	}
 	out := make([][]float64, len(p.Origins))
 	var first Updater // the fit at the earliest origin, when p.Update and it can be updated
 	for i := len(p.Origins) - 1; i >= 0; i-- {

@@ -139,7 +139,7 @@ func Choose(X *mat.Dense, y []float64, split Split, sel Selection, forceLasso bo
 // lassoChoose runs the embedded step on the columns cand.
 func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures int) ([]int, float64, error) {
 	sub := Columns(X, cand)
-	trRows, vaRows := rowsWith(split, RowTrain), rowsWith(split, RowValidate)
+	trRows, vaRows := RowsWith(split, RowTrain), RowsWith(split, RowValidate)
 	trX, trY := Rows(sub, y, trRows)
 	sc := learn.FitScaler(trX)
 	trS := sc.Transform(trX)
@@ -162,12 +162,7 @@ func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures
 		if maxFeatures > 0 && fit.NonZero() > maxFeatures {
 			break // further down the path only more columns enter (in practice; stop here)
 		}
-		e := 0.0
-		for r := range vaY {
-			d := vaY[r] - fit.Predict(vaS.RawRowView(r))
-			e += d * d
-		}
-		if e < bestErr {
+		if e := fit.SquaredError(vaS, vaY); e < bestErr {
 			best, bestErr = i, e
 		}
 	}
@@ -199,7 +194,8 @@ func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures
 	return keep, gridAll[i], nil
 }
 
-func rowsWith(s Split, role int8) []int {
+// RowsWith lists the rows of s with the given role, ascending.
+func RowsWith(s Split, role int8) []int {
 	var out []int
 	for i, r := range s {
 		if r == role {

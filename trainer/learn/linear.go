@@ -213,3 +213,13 @@ func (mo moments) ridge(alpha float64) (Linear, error) {
 	}
 	return mo.intercept(coef), nil
 }
+
+// SquaredError is Σ_i (y_i − Predict(X_i))², the holdout score the penalty choices use.
+func (l Linear) SquaredError(X *mat.Dense, y []float64) float64 {
+	e := 0.0
+	for i := range y {
+		d := y[i] - l.Predict(X.RawRowView(i))
+		e += d * d
+	}
+	return e
+}

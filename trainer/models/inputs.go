@@ -11,6 +11,10 @@ import (
 // i < len(y)); values past len(y) are known future values (planned prices, promotions) that a
 // forecast of those periods may use. The families that use Inputs implement InputModel.
 type Inputs struct {
+	// Horizon, when > 0, is the number of steps the fit will be asked to forecast, so a
+	// direct multi-horizon model can fit them all (and report a missing future covariate) at
+	// fit time; 0 leaves it to Forecast.
+	Horizon    int
 	Key        string
 	Start      time.Time
 	Freq       series.Frequency

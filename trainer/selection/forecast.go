@@ -261,7 +261,13 @@ func refit(c *candidate, y []float64, h int, levels []float64) (fitted models.Fi
 			err = fmt.Errorf("model panicked: %v", r)
 		}
 	}()
-	fitted, err = models.FitWith(c.model, y, c.m, c.in)
+	in := c.in
+	if in != nil {
+		cp := *in
+		cp.Horizon = h
+		in = &cp
+	}
+	fitted, err = models.FitWith(c.model, y, c.m, in)
 	if err != nil {
 		return nil, fc, err
 	}

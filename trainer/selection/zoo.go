@@ -14,15 +14,24 @@ import (
 var SimplicityOrder = []string{
 	models.FamilyMean, models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyDrift,
 	models.FamilySeasonalAdjustedNaive, models.FamilyCroston, models.FamilySBA, models.FamilyTSB,
-	models.FamilyTheta, models.FamilyETS,
+	models.FamilyTheta, models.FamilyETS, models.FamilyRidge, models.FamilyLasso,
 }
 
+// ByNameOnly lists the families Zoo includes only when they are named: the regression families,
+// which need a feature declaration to be useful and cost far more than the others, so that the
+// default zoo stays what it was before they existed.
+var ByNameOnly = []string{models.FamilyRidge, models.FamilyLasso}
+
 // Zoo returns default-setting specs for the given families in simplicity order, or for every
-// registered family when none is given. An unregistered family is an error naming it.
+// registered family except ByNameOnly when none is given. An unregistered family is an error naming it.
 func Zoo(families ...string) ([]models.Spec, error) {
 	reg := models.Families()
 	if len(families) == 0 {
-		families = reg
+		for _, f := range reg {
+			if !slices.Contains(ByNameOnly, f) {
+				families = append(families, f)
+			}
+		}
 	}
 	for _, f := range families {
 		if !slices.Contains(reg, f) {

@@ -1,0 +1,151 @@
+package models
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/features"
+	"almanac.dev/almanac/trainer/series"
+)
+
+var fenwickStart = time.Date(2024, 1, 1, 0, 0, 0, 0, time.UTC) // a Monday
+
+// promoSeries is weekly demand of 10 units plus 5 in promotion weeks (no noise), with the
+// promotion plan known 8 weeks past the history.
+func promoSeries(n int) ([]float64, map[string][]float64) {
+	promo := make([]float64, n+8)
+	for i := range promo {
+		if i%5 == 0 || i%7 == 0 {
+			promo[i] = 1
+		}
+	}
+	y := make([]float64, n)
+	for i := range y {
+		y[i] = 10 + 5*promo[i]
+	}
+	return y, map[string][]float64{"promo": promo}
+}
+
+// A noiseless y = 10 + 5·promo: both learners forecast the planned promotion weeks at 15 and
+// the others at 10 (the exact answer; penalties shrink it slightly, tolerance 0.3).
+func TestRegressionPromotionKnownAnswer(t *testing.T) {
+	y, cov := promoSeries(60)
+	cfg := &features.Config{Covariates: []string{"promo"}, Lags: []int{1}}
+	for _, fam := range []string{FamilyRidge, FamilyLasso} {
+		mod, err := New(Spec{Family: fam, Features: cfg})
+		if err != nil {
+			t.Fatal(err)
+		}
+		fit, err := FitWith(mod, y, 52, &Inputs{Key: "fenwick/oats/bristol", Start: fenwickStart, Freq: series.Weekly, Covariates: cov, Horizon: 8})
+		if err != nil {
+			t.Fatal(fam, err)
+		}
+		fc := fit.Forecast(8, nil)
+		for k, v := range fc.Mean {
+			want := 10 + 5*cov["promo"][60+k]
+			if math.Abs(v-want) > 0.3 {
+				t.Errorf("%s step %d: %v, want %v", fam, k+1, v, want)
+			}
+		}
+		if got := fit.(FeatureReporter).Features(); !slices.Contains(got, "covariate:promo") {
+			t.Errorf("%s kept %v, want covariate:promo among them", fam, got)
+		}
+	}
+}
+
+// Direct strategy on an AR(1) y_t = 0.8·y_{t−1} + e_t: the best step-2 predictor from the
+// origin is E[y_{t+1} | y_{t−1}] = 0.8²·y_{t−1} (AR(1) forecast function, Box & Jenkins; Hyndman
+// & Athanasopoulos, FPP 3rd ed., section 9.8, from memory), so the step-2 model's weight on lag
+// 2 is about 0.64 and the step-1 model's weight on lag 1 about 0.8.
+func TestRegressionDirectAR1(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	y := make([]float64, 3000)
+	for i := 1; i < len(y); i++ {
+		y[i] = 0.8*y[i-1] + rng.NormFloat64()
+	}
+	cfg := &features.Config{Lags: []int{1, 2}}
+	mod, _ := New(Spec{Family: FamilyRidge, Features: cfg, Regression: &RegressionOptions{Penalty: 1e-6}})
+	fit, err := FitWith(mod, y, 1, &Inputs{Key: "ar1", Start: fenwickStart, Freq: series.Yearly, Horizon: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rf := fit.(*regressionFit)
+	names := rf.set.Names()
+	coef := func(step int, name string) float64 {
+		st := rf.steps[step-1]
+		for k, j := range st.cols {
+			if names[j] == name {
+				return st.lin.Coef[k]
+			}
+		}
+		return 0
+	}
+	if got := coef(1, "lag1"); math.Abs(got-0.8) > 0.04 {
+		t.Errorf("step 1 lag1 weight %v, want about 0.8", got)
+	}
+	if got := coef(2, "lag2"); math.Abs(got-0.64) > 0.04 {
+		t.Errorf("step 2 lag2 weight %v, want about 0.64", got)
+	}
+	if slices.Contains(rf.steps[1].cols, slices.Index(names, "lag1")) {
+		t.Error("step 2 used lag1, which is not known at the origin")
+	}
+}
+
+// A forecast from history y[:t] does not change when the covariate values after the forecast
+// periods change, and the forecast needs the covariate's known future values: without them the
+// fit fails naming the series and the covariate.
+func TestRegressionFitNoLeakage(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 22))
+	y, cov := promoSeries(70)
+	for i := range y {
+		y[i] += rng.NormFloat64()
+	}
+	cfg := &features.Config{Covariates: []string{"promo"}, CovariateLags: []int{1}, Lags: []int{1, 2}, Windows: []int{4}, Stats: features.StatNames, Calendar: features.CalendarNames}
+	mod, _ := New(Spec{Family: FamilyLasso, Features: cfg})
+	in := Inputs{Key: "fenwick/tea/leeds", Start: fenwickStart, Freq: series.Weekly, Covariates: cov, Horizon: 4}
+	a, err := FitWith(mod, y[:60], 52, &in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c2 := slices.Clone(cov["promo"])
+	for i := 64; i < len(c2); i++ {
+		c2[i] = 1 - c2[i]
+	}
+	in2 := in
+	in2.Covariates = map[string][]float64{"promo": c2}
+	b, err := FitWith(mod, y[:60], 52, &in2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !slices.Equal(a.Forecast(4, nil).Mean, b.Forecast(4, nil).Mean) {
+		t.Error("forecast changed when covariates after the forecast periods changed")
+	}
+	short := Inputs{Key: "fenwick/tea/leeds", Start: fenwickStart, Freq: series.Weekly, Covariates: map[string][]float64{"promo": cov["promo"][:70]}, Horizon: 4}
+	_, err = FitWith(mod, y, 52, &short)
+	if err == nil || !strings.Contains(err.Error(), `fenwick/tea/leeds: covariate "promo" has no known value`) {
+		t.Errorf("missing future covariate: %v", err)
+	}
+}
+
+// MinLength is the longest lag or window plus MinRegressionRows; a shorter series is
+// ErrTooShort, as for the other families.
+func TestRegressionMinLength(t *testing.T) {
+	mod, _ := New(Spec{Family: FamilyRidge, Features: &features.Config{Lags: []int{1, 13}, Windows: []int{4}, Stats: []string{"mean"}}})
+	if got := mod.MinLength(52); got != 13+MinRegressionRows {
+		t.Errorf("MinLength = %d", got)
+	}
+	if _, err := mod.Fit(make([]float64, 20), 52); !errors.Is(err, ErrTooShort) {
+		t.Errorf("short series: %v", err)
+	}
+	if def, _ := New(Spec{Family: FamilyLasso}); def.MinLength(12) != 12+MinRegressionRows {
+		t.Errorf("default monthly MinLength = %d (lag 12 is the longest default)", def.MinLength(12))
+	}
+	if _, err := New(Spec{Family: FamilyRidge, Regression: &RegressionOptions{Penalty: -1}}); err == nil {
+		t.Error("negative penalty accepted")
+	}
+}
