@@ -299,7 +299,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
 	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
 	candidates := fs.String("candidates", "lean", `with --design inner: "lean" (LeanDesigns, no ARIMA) or "full" (InnerDesigns)`)
-	innerEvery := fs.Int("inner-every", 4, "with --design inner: use every K-th eligible series of each category for the inner holdout")
+	innerEvery := fs.Int("inner-every", 2, "with --design inner: use every K-th eligible series of each category for the inner holdout")
 	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
