@@ -60,6 +60,7 @@ type Selection struct {
 	FilterKeep int `json:"filterKeep,omitempty"`
 	// Embedded is "lasso" (penalty chosen by backtest along the path) or "none".
 	Embedded string `json:"embedded,omitempty"`
-	// MaxFeatures caps the features a model keeps (0: no cap).
+	// MaxFeatures caps the features a model keeps (0: no cap). Under the direct strategy the
+	// cap holds for each step's model; the member's recorded list is the union over its steps.
 	MaxFeatures int `json:"maxFeatures,omitempty"`
 }

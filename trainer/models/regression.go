@@ -316,13 +316,13 @@ func (f *regressionFit) Name() string {
 }
 
 // Params gives the step-1 model: its intercept, penalty and one coefficient per kept feature.
-func (f *regressionFit) Params() map[string]float64 {
-	st := f.steps[0]
+func (f *regressionFit) Params() map[string]float64 { return stepParams(f.steps[0], f.set.Names()) }
+
+func stepParams(st directStep, names []string) map[string]float64 {
 	p := map[string]float64{"intercept": st.lin.Intercept}
 	if !math.IsNaN(st.penalty) {
 		p["penalty"] = st.penalty
 	}
-	names := f.set.Names()
 	for k, j := range st.cols {
 		p[names[j]] = st.lin.Coef[k]
 	}
@@ -330,15 +330,17 @@ func (f *regressionFit) Params() map[string]float64 {
 }
 
 // Features lists every feature some step model kept, in generation order.
-func (f *regressionFit) Features() []string {
+func (f *regressionFit) Features() []string { return keptNames(f.steps, f.set.Names()) }
+
+func keptNames(steps []directStep, names []string) []string {
 	used := map[int]bool{}
-	for _, st := range f.steps {
+	for _, st := range steps {
 		for _, j := range st.cols {
 			used[j] = true
 		}
 	}
 	var out []string
-	for j, n := range f.set.Names() {
+	for j, n := range names {
 		if used[j] {
 			out = append(out, n)
 		}

@@ -67,6 +67,9 @@ type Config struct {
 	// forward to the later origins without re-estimating, for families that support it
 	// (backtest.Plan.Update); the final fit on the whole series is always a full fit.
 	BacktestUpdate bool
+
+	// shard holds the members fitted across all series of the call (set by ForecastMany).
+	shard *shardModels
 }
 
 // withDefaults fills the zero-valued fields.
@@ -107,6 +110,9 @@ func (c Config) Validate() error {
 	for i, sp := range c.Zoo {
 		if _, err := models.New(sp); err != nil {
 			return fmt.Errorf("selection: zoo[%d]: %w", i, err)
+		}
+		if acrossShard(sp) && !models.CanShare(sp.Family) {
+			return fmt.Errorf("selection: zoo[%d] (%s): regression.acrossShard is only for %v", i, sp.DisplayName(), models.SharedFamilies)
 		}
 		if seen[sp.DisplayName()] {
 			return fmt.Errorf("selection: zoo[%d]: duplicate member name %q", i, sp.DisplayName())

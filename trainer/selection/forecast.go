@@ -58,6 +58,7 @@ func Forecast(s series.Series, cfg Config) (Result, error) {
 }
 
 func forecast(s series.Series, cfg Config) (out Result, err error) {
+	orig := s
 	s.Values = append([]float64(nil), s.Values...)
 	s.Notes = append([]string(nil), s.Notes...)
 	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric}
@@ -87,6 +88,12 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 		mod, err := models.New(sp)
 		if err != nil { // Validate built it once; a constructor that now fails is a bug
 			panic("selection: zoo member no longer builds: " + err.Error())
+		}
+		if acrossShard(sp) {
+			if cfg.shard == nil { // a single series: its shard is itself
+				cfg.shard = newShardModels([]series.Series{orig}, cfg)
+			}
+			mod = cfg.shard.member(sp, s.Key, mod)
 		}
 		mm := m
 		if sp.SeasonLength > 0 {

@@ -20,6 +20,9 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 		return err
 	}
 	cfg = cfg.withDefaults()
+	if hasAcrossShard(cfg.Zoo) {
+		cfg.shard = newShardModels(in, cfg)
+	}
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
