@@ -32,7 +32,10 @@ type Rejected struct{ Key, Reason string }
 //     timestamp that is not a period label (a daily row at 12:00, a weekly row on the wrong
 //     weekday, a monthly row on the 15th) rejects the series, naming the rule.
 //   - Rows dated after now (their period starts after now) are dropped with a note: they are
-//     plans or placeholders, not history. A zero now disables the check.
+//     plans or placeholders, not history. A zero now disables the check. With KeepFuture(h),
+//     the covariates of such rows in the h periods after now's are kept as known future values
+//     (their value cell may be empty and is never read); Series.Covariates then extend past
+//     Values. Future rows for one period must agree in their covariates.
 //   - Identical duplicate (series, period) rows are kept once with a note; duplicates that
 //     differ in value or covariates reject the series.
 //   - Missing periods between the first and last row become NaN (series.Clean fills them).
@@ -43,6 +46,8 @@ type Collector struct {
 	now    time.Time
 	covs   []string
 	series map[string]*pending
+	// keep is how many periods after now's period keep their covariates (KeepFuture).
+	keep int
 }
 
 // pending is one series while rows arrive.
@@ -53,6 +58,9 @@ type pending struct {
 	covs   []float64 // len(covs) == len(ords) * number of covariates
 	future int
 	first  time.Time // a future row's date, for the note
+	// fords and fcovs are the kept future rows: ordinals and covariates (KeepFuture).
+	fords []int64
+	fcovs []float64
 }
 
 // NewCollector checks the source's frequency, week anchor and date layout (errors name the
@@ -79,6 +87,19 @@ func NewCollector(src runconfig.Source, now time.Time) (*Collector, error) {
 	}, nil
 }
 
+// KeepFuture keeps the covariates of rows dated in the periods periods after now's period
+// (the forecast horizon: promotion calendars, planned prices) instead of dropping those rows.
+// It does nothing when now is zero or periods < 1.
+func (c *Collector) KeepFuture(periods int) { c.keep = periods }
+
+// futureKept reports whether a row dated t carries known future covariates to keep.
+func (c *Collector) futureKept(t time.Time) bool {
+	if c.keep < 1 || c.now.IsZero() || len(c.covs) == 0 || !t.After(c.now) {
+		return false
+	}
+	return c.cal.Ordinal(t)-c.cal.Ordinal(c.now) <= int64(c.keep)
+}
+
 // Add takes one row.
 func (c *Collector) Add(r Row) {
 	p := c.series[r.Key]
@@ -89,8 +110,11 @@ func (c *Collector) Add(r Row) {
 	if p.reason != "" {
 		return
 	}
+	kept := c.futureKept(r.Date)
+	// With KeepFuture, a row after now whose value is empty is a plan, kept or dropped below.
+	plan := r.EmptyValue && c.keep > 0 && !c.now.IsZero() && r.Date.After(c.now)
 	switch {
-	case r.Problem != "":
+	case r.Problem != "" && !plan:
 		p.reject(r.Problem)
 		return
 	case !c.cal.OnGrid(r.Date):
@@ -98,6 +122,10 @@ func (c *Collector) Add(r Row) {
 		return
 	case len(r.Covariates) != len(c.covs):
 		panic(fmt.Sprintf("ingest: row has %d covariates, collector expects %d", len(r.Covariates), len(c.covs)))
+	case kept:
+		p.fords = append(p.fords, c.cal.Ordinal(r.Date))
+		p.fcovs = append(p.fcovs, r.Covariates...)
+		return
 	case !c.now.IsZero() && r.Date.After(c.now):
 		if p.future == 0 || r.Date.Before(p.first) {
 			p.first = r.Date
@@ -180,11 +208,15 @@ func (c *Collector) build(key string, p *pending) (series.Series, string) {
 			span, c.cal.Freq, c.label(first).Format(time.RFC3339), c.label(last).Format(time.RFC3339), MaxPeriods)
 	}
 	n := int(last - first + 1)
+	ncov := n // covariate grid: the history, then the kept future periods
+	for _, o := range p.fords {
+		ncov = max(ncov, int(o-first+1))
+	}
 	s := series.Series{Key: key, Start: c.label(first), Freq: c.cal.Freq, Values: nanSlice(n), Notes: notes}
 	if nc > 0 {
 		s.Covariates = make(map[string][]float64, nc)
 		for _, name := range c.covs {
-			s.Covariates[name] = nanSlice(n)
+			s.Covariates[name] = nanSlice(ncov)
 		}
 	}
 	for _, i := range uniq {
@@ -194,11 +226,58 @@ func (c *Collector) build(key string, p *pending) (series.Series, string) {
 			s.Covariates[name][at] = p.covs[i*nc+j]
 		}
 	}
+	if reason := c.placeFuture(&s, p, first, last); reason != "" {
+		return series.Series{}, reason
+	}
 	if gaps := n - len(uniq); gaps > 0 {
 		s.Notes = append(s.Notes, fmt.Sprintf("%d missing periods between %s and %s",
 			gaps, s.Start.Format(time.RFC3339), c.label(last).Format(time.RFC3339)))
 	}
 	return s, ""
+}
+
+// placeFuture writes the kept future rows' covariates after the history (periods after the
+// last observed one; a future row inside the history's span is not placed over it). Two future
+// rows for one period that differ reject the series.
+func (c *Collector) placeFuture(s *series.Series, p *pending, first, last int64) string {
+	if len(p.fords) == 0 {
+		return ""
+	}
+	nc := len(c.covs)
+	seen := map[int64]int{}
+	placed := 0
+	for i, o := range p.fords {
+		if o <= last {
+			continue
+		}
+		row := p.fcovs[i*nc : (i+1)*nc]
+		if j, dup := seen[o]; dup {
+			if !sameCovariates(row, p.fcovs[j*nc:(j+1)*nc]) {
+				return fmt.Sprintf("two future rows for period %s with different covariates (%v and %v)",
+					c.label(o).Format(time.RFC3339), p.fcovs[j*nc:(j+1)*nc], row)
+			}
+			continue
+		}
+		seen[o] = i
+		for j, name := range c.covs {
+			s.Covariates[name][o-first] = row[j]
+		}
+		placed++
+	}
+	if placed > 0 {
+		s.Notes = append(s.Notes, fmt.Sprintf("kept the covariates of %d future periods after %s as known values",
+			placed, c.label(last).Format(time.RFC3339)))
+	}
+	return ""
+}
+
+func sameCovariates(a, b []float64) bool {
+	for k := range a {
+		if a[k] != b[k] && !(math.IsNaN(a[k]) && math.IsNaN(b[k])) {
+			return false
+		}
+	}
+	return true
 }
 
 // label returns the period label of an ordinal.

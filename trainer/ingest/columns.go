@@ -98,15 +98,18 @@ func (b *rowBuilder) build(rec []string) Row {
 	}
 	r.Date = t
 	if r.Value, r.Problem = parseValue(rec[b.m.value]); r.Problem != "" {
+		r.EmptyValue = r.Problem == emptyValue
 		r.Problem = fmt.Sprintf("column %q: %s", b.m.cols.Value, r.Problem)
-		return r
+		if !r.EmptyValue {
+			return r
+		}
 	}
 	if len(b.m.covs) > 0 {
 		r.Covariates = make([]float64, len(b.m.covs))
 		for j, ci := range b.m.covs {
 			var p string
 			if r.Covariates[j], p = parseCovariate(rec[ci]); p != "" {
-				r.Problem = fmt.Sprintf("column %q: %s", b.m.cols.Covariates[j], p)
+				r.Problem, r.EmptyValue = fmt.Sprintf("column %q: %s", b.m.cols.Covariates[j], p), false
 				return r
 			}
 		}

@@ -37,7 +37,14 @@ type Row struct {
 	// Problem, when non-empty, says why the row is unusable and where it is (object and line or
 	// row); the Collector rejects the row's series with it.
 	Problem string
+	// EmptyValue marks a row whose only problem is an empty value cell; its covariates are
+	// read. The Collector accepts such a row after the history's end, as a row of known
+	// future covariates (see Collector.KeepFuture).
+	EmptyValue bool
 }
+
+// emptyValue is parseValue's problem text for an empty cell.
+const emptyValue = "empty value"
 
 // GroupRange selects Parquet row groups [From, To).
 type GroupRange struct{ From, To int }
@@ -58,7 +65,7 @@ func brokenf(format string, a ...any) error {
 func parseValue(s string) (float64, string) {
 	s = strings.TrimSpace(s)
 	if s == "" {
-		return 0, "empty value"
+		return 0, emptyValue
 	}
 	v, err := strconv.ParseFloat(s, 64)
 	if err != nil {

@@ -504,8 +504,11 @@ func (sc *parquetScan) build(i, nk, ncov int) Row {
 	}
 	vc := sc.cols[nk+1]
 	if r.Value, r.Problem = vc.number(vc.vals[i], false); r.Problem != "" {
+		r.EmptyValue = r.Problem == emptyValue
 		r.Problem = fmt.Sprintf("column %q: %s", vc.name, r.Problem)
-		return r
+		if !r.EmptyValue {
+			return r
+		}
 	}
 	if ncov > 0 {
 		r.Covariates = make([]float64, ncov)
@@ -513,7 +516,7 @@ func (sc *parquetScan) build(i, nk, ncov int) Row {
 			cc := sc.cols[nk+2+j]
 			var p string
 			if r.Covariates[j], p = cc.number(cc.vals[i], true); p != "" {
-				r.Problem = fmt.Sprintf("column %q: %s", cc.name, p)
+				r.Problem, r.EmptyValue = fmt.Sprintf("column %q: %s", cc.name, p), false
 				return r
 			}
 		}
@@ -589,7 +592,7 @@ func (c *pcol) number(v parquet.Value, covariate bool) (float64, string) {
 		if covariate {
 			return math.NaN(), ""
 		}
-		return 0, "empty value"
+		return 0, emptyValue
 	}
 	var x float64
 	switch {

@@ -67,6 +67,7 @@ func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
 		CombineTop: cfg.Selection.CombineTop, CombineMethod: cfg.Selection.CombineMethod,
 		NonNegative: cfg.Source.NonNegative,
 		Clean:       series.CleanRules{NonNegative: cfg.Source.NonNegative},
+		Features:    cfg.Features,
 	}
 	if err := sc.Validate(); err != nil {
 		return sc, fmt.Errorf("%w: %w", ErrConfig, err)
@@ -195,6 +196,9 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		if err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrConfig, err)
 		}
+		if usesCovariates(cfg) {
+			c.KeepFuture(cfg.Horizon)
+		}
 		l := &loaded{unit: u, buckets: p.Buckets}
 		units = append(units, l)
 		collectors[id] = c
@@ -236,6 +240,22 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 	return units, nil
 }
 
+// usesCovariates reports whether a regression member reads covariates as features (the run's
+// features or a member's own): only then are the covariates of rows dated after the history
+// kept, for the horizon's periods, as known future values (ingest.Collector.KeepFuture).
+// Otherwise such rows are dropped as before.
+func usesCovariates(cfg *runconfig.Config) bool {
+	if cfg.Features != nil && len(cfg.Features.Covariates) > 0 {
+		return true
+	}
+	for _, m := range cfg.Zoo {
+		if m.Features != nil && len(m.Features.Covariates) > 0 {
+			return true
+		}
+	}
+	return false
+}
+
 // fatal returns the errors that end the whole shard rather than one unit: anything that is
 // not broken input (storage outages, refused credentials, cancellation).
 func fatal(ctx context.Context, err error) error {
@@ -272,7 +292,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 			fc = append(fc, row)
 		}
 		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r), BacktestErrors: r.StepErrors,
-			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; ")})
+			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features})
 		models[r.Family]++
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Series < rejected[j].Series })

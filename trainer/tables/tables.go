@@ -1,6 +1,7 @@
 package tables
 
 import (
+	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -37,6 +38,11 @@ type ModelRow struct {
 	Metric         string
 	Score          float64
 	Notes          string
+	// Features lists, by zoo member, the generated features each member of the chosen forecast
+	// kept after feature selection (selection.Result.Features); nil when none is built on
+	// features. Written as the kept_features column, a JSON object of member name to feature
+	// names, only when some row has features.
+	Features map[string][]string
 }
 
 // EvaluationRow compares a series' realized error on new actuals with the error the
@@ -64,6 +70,7 @@ const (
 	colMetric   = "metric"
 	colScore    = "score"
 	colNotes    = "notes"
+	colFeatures = "kept_features"
 	colPoints   = "points"
 	colExpected = "expected"
 	colRealized = "realized"
@@ -194,16 +201,22 @@ func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
 
 // WriteModels writes a models table: series, model, params, metric, score, err_h1..err_hN,
 // notes, where N is the longest BacktestErrors; a shorter row leaves its last columns absent.
+// When any row has Features, a last column kept_features holds each row's as a JSON object
+// ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
 func WriteModels(w io.Writer, format string, rows []ModelRow) error {
-	steps := 0
+	steps, withFeatures := 0, false
 	for _, r := range rows {
 		steps = max(steps, len(r.BacktestErrors))
+		withFeatures = withFeatures || len(r.Features) > 0
 	}
 	cols := []column{{colSeries, text}, {colModel, text}, {colParams, text}, {colMetric, text}, {colScore, number}}
 	for h := 1; h <= steps; h++ {
 		cols = append(cols, column{errPrefix + strconv.Itoa(h), optNumber})
 	}
 	cols = append(cols, column{colNotes, text})
+	if withFeatures {
+		cols = append(cols, column{colFeatures, text})
+	}
 	g := grid{cols: cols, rows: make([][]cell, len(rows))}
 	for i, r := range rows {
 		c := []cell{{s: r.Series}, {s: r.Model}, {s: r.Params}, {s: r.Metric}, {f: r.Score}}
@@ -214,7 +227,19 @@ func WriteModels(w io.Writer, format string, rows []ModelRow) error {
 				c = append(c, cell{null: true})
 			}
 		}
-		g.rows[i] = append(c, cell{s: r.Notes})
+		c = append(c, cell{s: r.Notes})
+		if withFeatures {
+			f := ""
+			if len(r.Features) > 0 {
+				b, err := json.Marshal(r.Features)
+				if err != nil {
+					return wrap("models", err)
+				}
+				f = string(b)
+			}
+			c = append(c, cell{s: f})
+		}
+		g.rows[i] = c
 	}
 	return wrap("models", write(w, format, g))
 }
@@ -234,7 +259,7 @@ func errStep(name string) (int, bool) {
 func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	g, err := read(r, format, "models", func(name string) (kind, bool) {
 		switch name {
-		case colSeries, colModel, colParams, colMetric, colNotes:
+		case colSeries, colModel, colParams, colMetric, colNotes, colFeatures:
 			return text, true
 		case colScore:
 			return number, true
@@ -270,6 +295,11 @@ func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	for i, c := range g.rows {
 		m := ModelRow{Series: c[pos[colSeries]].s, Model: c[pos[colModel]].s, Params: c[pos[colParams]].s,
 			Metric: c[pos[colMetric]].s, Score: c[pos[colScore]].f, Notes: c[pos[colNotes]].s}
+		if at, ok := pos[colFeatures]; ok && c[at].s != "" {
+			if err := json.Unmarshal([]byte(c[at].s), &m.Features); err != nil {
+				return nil, fmt.Errorf("tables: models row %d (series %q): %s: %w", i+1, m.Series, colFeatures, err)
+			}
+		}
 		for h, at := range steps {
 			if c[at].null {
 				for _, later := range steps[h:] {
