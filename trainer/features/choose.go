@@ -24,7 +24,7 @@ type Split []int8
 // PathLength and PathEps set the lasso path the embedded step searches (fewer penalties than
 // learn.DefaultPathLength: the choice is by a noisy holdout, a finer grid buys nothing).
 const (
-	PathLength = 30
+	PathLength = 20
 	PathEps    = 1e-3
 )
 
@@ -65,11 +65,10 @@ type Choice struct {
 //  2. Embedded (sel.Embedded == "lasso", or forceLasso): on the standardised surviving
 //     columns, the lasso path over PathLength penalties from alpha_max down to
 //     PathEps·alpha_max (Friedman, Hastie & Tibshirani 2010) is fitted on the split's training
-//     rows and scored by mean squared error on its validation rows; among the penalties whose
-//     fit keeps at most MaxFeatures columns, the lowest error wins (ties to the larger
-//     penalty). The path is then fitted on all rows down to the chosen penalty; the columns
-//     with a non-zero coefficient there are kept, walking back up the path while more than
-//     MaxFeatures are non-zero.
+//     rows and scored by mean squared error on its validation rows, each fit cut to its
+//     MaxFeatures largest standardised weights; the lowest error wins (ties to the larger
+//     penalty). The path is then fitted on all rows down to the chosen penalty, and the columns
+//     with a non-zero weight there are kept (the MaxFeatures largest when there are more).
 //
 // Without the embedded step MaxFeatures keeps the best-ranked columns (ranked by correlation
 // when the filter is "none"). With split == nil (too few rows for a holdout) the embedded step
@@ -151,7 +150,11 @@ func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures
 		return nil, math.NaN(), nil
 	}
 	grid := learn.AlphaGrid(amax, PathEps, PathLength)
-	path, err := learn.LassoPath(trS, trY, grid, learn.LassoOptions{Tol: 1e-7, MaxSweeps: 2000})
+	opt := pathOptions
+	if maxFeatures > 0 {
+		opt.StopAbove = 2 * maxFeatures // past that, truncated fits only get worse
+	}
+	path, err := learn.LassoPath(trS, trY, grid, opt)
 	if err != nil {
 		return nil, 0, err
 	}
@@ -159,10 +162,7 @@ func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures
 	vaS := sc.Transform(vaX)
 	best, bestErr := 0, math.Inf(1)
 	for i, fit := range path {
-		if maxFeatures > 0 && fit.NonZero() > maxFeatures {
-			break // further down the path only more columns enter (in practice; stop here)
-		}
-		if e := fit.SquaredError(vaS, vaY); e < bestErr {
+		if e := strongest(fit, maxFeatures).SquaredError(vaS, vaY); e < bestErr {
 			best, bestErr = i, e
 		}
 	}
@@ -177,21 +177,37 @@ func lassoChoose(X *mat.Dense, y []float64, cand []int, split Split, maxFeatures
 		return nil, math.NaN(), nil
 	}
 	gridAll := learn.AlphaGrid(amaxAll, PathEps, PathLength)[:best+1]
-	pathAll, err := learn.LassoPath(allS, y, gridAll, learn.LassoOptions{Tol: 1e-7, MaxSweeps: 2000})
+	pathAll, err := learn.LassoPath(allS, y, gridAll, opt)
 	if err != nil {
 		return nil, 0, err
 	}
-	i := len(pathAll) - 1
-	for i > 0 && maxFeatures > 0 && pathAll[i].NonZero() > maxFeatures {
-		i--
-	}
+	final := strongest(pathAll[len(pathAll)-1], maxFeatures)
 	var keep []int
-	for k, b := range pathAll[i].Coef {
+	for k, b := range final.Coef {
 		if b != 0 {
 			keep = append(keep, cand[k])
 		}
 	}
-	return keep, gridAll[i], nil
+	return keep, gridAll[len(gridAll)-1], nil
+}
+
+// strongest keeps the k largest weights of a fit on standardised columns and zeroes the rest
+// (k <= 0: all). The intercept stays: on columns standardised with the training rows' means it
+// is the training mean of y whatever the weights.
+func strongest(l learn.Linear, k int) learn.Linear {
+	if k <= 0 || l.NonZero() <= k {
+		return l
+	}
+	idx := make([]int, len(l.Coef))
+	for j := range idx {
+		idx[j] = j
+	}
+	sort.SliceStable(idx, func(a, b int) bool { return math.Abs(l.Coef[idx[a]]) > math.Abs(l.Coef[idx[b]]) })
+	out := learn.Linear{Intercept: l.Intercept, Coef: make([]float64, len(l.Coef))}
+	for _, j := range idx[:k] {
+		out.Coef[j] = l.Coef[j]
+	}
+	return out
 }
 
 // RowsWith lists the rows of s with the given role, ascending.
@@ -316,3 +332,8 @@ func bins(x []float64, b int) ([]int, int) {
 	}
 	return out, b
 }
+
+// pathOptions stop the selection path's coordinate descent early: the path only has to tell
+// which columns enter at which penalty, not the last digits of their weights (the learner
+// refits the kept columns).
+var pathOptions = learn.LassoOptions{Tol: 1e-3, MaxSweeps: 1000}

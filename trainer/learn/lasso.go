@@ -21,6 +21,10 @@ type LassoOptions struct {
 	Tol float64
 	// MaxSweeps bounds the full passes over the coefficients per penalty.
 	MaxSweeps int
+	// StopAbove > 0 ends LassoPath after the first fit with more than StopAbove non-zero
+	// coefficients (that fit is the last one returned): a search capped at StopAbove features
+	// need not fit the dense end of the path.
+	StopAbove int
 }
 
 func (o LassoOptions) withDefaults() LassoOptions {
@@ -101,55 +105,74 @@ func LassoPath(X mat.Matrix, y []float64, alphas []float64, opt LassoOptions) ([
 	if err != nil {
 		return nil, err
 	}
-	return mo.lassoPath(alphas, opt, 0), nil
+	return mo.lassoPath(alphas, opt, opt.StopAbove), nil
 }
 
 // lassoPath runs the path; with stopAt > 0 it stops after the first fit with more than stopAt
-// non-zero coefficients (that fit is included).
+// non-zero coefficients (that fit is included). Each penalty alternates a full sweep with
+// sweeps over the active set (the non-zero coefficients) until those converge, and stops when
+// a full sweep moves nothing by more than the tolerance (Friedman, Hastie & Tibshirani 2010,
+// section 2.6, active-set convergence).
 func (mo moments) lassoPath(alphas []float64, opt LassoOptions, stopAt int) []Linear {
 	opt = opt.withDefaults()
 	p := len(mo.cov)
+	g := make([]float64, p*p) // G row-major, for speed
+	for i := 0; i < p; i++ {
+		for j := 0; j < p; j++ {
+			g[i*p+j] = mo.gram.At(i, j)
+		}
+	}
 	b := make([]float64, p)
 	r := slices.Clone(mo.cov) // r = c − G·b
-	diag := make([]float64, p)
 	sy := 0.0
-	for j := 0; j < p; j++ {
-		diag[j] = mo.gram.At(j, j)
-	}
 	for j := range mo.cov {
-		if diag[j] > 0 {
+		if d := g[j*p+j]; d > 0 {
 			// sd(y) bound from the largest correlation: keeps Tol relative without another pass.
-			sy = math.Max(sy, math.Abs(mo.cov[j])/math.Sqrt(diag[j]))
+			sy = math.Max(sy, math.Abs(mo.cov[j])/math.Sqrt(d))
 		}
 	}
 	if sy == 0 {
 		sy = 1
+	}
+	tol := opt.Tol * sy
+	// sweep updates the coordinates j (all, or only the non-zero ones) once and returns the
+	// largest move in standardised units.
+	sweep := func(alpha float64, activeOnly bool) float64 {
+		maxMove := 0.0
+		for j := 0; j < p; j++ {
+			d := g[j*p+j]
+			if d <= 0 || (activeOnly && b[j] == 0) {
+				continue
+			}
+			nb := soft(r[j]+d*b[j], alpha) / d
+			delta := nb - b[j]
+			if delta == 0 {
+				continue
+			}
+			b[j] = nb
+			col := g[j*p : (j+1)*p] // G is symmetric: row j is column j
+			for k := range r {
+				r[k] -= col[k] * delta
+			}
+			maxMove = math.Max(maxMove, math.Abs(delta)*math.Sqrt(d))
+		}
+		return maxMove
 	}
 	out := make([]Linear, 0, len(alphas))
 	for _, alpha := range alphas {
 		if alpha < 0 || math.IsNaN(alpha) {
 			panic("learn: lasso penalty must be >= 0")
 		}
-		for sweep := 0; sweep < opt.MaxSweeps; sweep++ {
-			maxMove := 0.0
-			for j := 0; j < p; j++ {
-				if diag[j] <= 0 {
-					continue
-				}
-				z := r[j] + diag[j]*b[j]
-				nb := soft(z, alpha) / diag[j]
-				d := nb - b[j]
-				if d == 0 {
-					continue
-				}
-				b[j] = nb
-				for k := 0; k < p; k++ {
-					r[k] -= mo.gram.At(k, j) * d
-				}
-				maxMove = math.Max(maxMove, math.Abs(d)*math.Sqrt(diag[j]))
-			}
-			if maxMove <= opt.Tol*sy {
+		for n := 0; n < opt.MaxSweeps; {
+			n++
+			if sweep(alpha, false) <= tol {
 				break
+			}
+			for n < opt.MaxSweeps {
+				n++
+				if sweep(alpha, true) <= tol {
+					break
+				}
 			}
 		}
 		fit := mo.intercept(slices.Clone(b))

@@ -250,7 +250,7 @@ func fitDirectStep(r *regression, sel features.Selection, ref *features.Set, ys 
 			alpha = lassoFallback * amax
 		}
 		st.penalty = alpha
-		lin, err = learn.Lasso(subS, target, alpha, learn.LassoOptions{Tol: 1e-8, MaxSweeps: 5000})
+		lin, err = learn.Lasso(subS, target, alpha, learn.LassoOptions{Tol: 1e-6, MaxSweeps: 5000})
 	}
 	if err != nil {
 		return st, err
