@@ -94,8 +94,17 @@ func m3Monthly(tb testing.TB, limit, every int) []bench.Entry {
 // per-series output go to a temporary directory, or to the directory named by env
 // ALMANAC_ARIMA_SPEED_DIR, which is kept (to watch a long run, or read the completed prefix of
 // a stopped one).
-func runRSpeed(entries []bench.Entry) {
+//
+// With env ALMANAC_ARIMA_SPEED_R_RESULTS=<out.csv of an earlier run> R is not run and that
+// file's results are used instead (to compare a changed selection with R's orders without
+// waiting for R again; the speedup then compares CPU times measured in two runs).
+func runRSpeed(b *testing.B, entries []bench.Entry) {
 	arimaRSpeed.once.Do(func() {
+		if p := os.Getenv("ALMANAC_ARIMA_SPEED_R_RESULTS"); p != "" {
+			b.Logf("R results read from %s, not measured in this run", p)
+			arimaRSpeed.err = readRSpeed(p, entries)
+			return
+		}
 		rs, err := exec.LookPath("Rscript")
 		if err != nil {
 			arimaRSpeed.err = err
@@ -136,25 +145,48 @@ func runRSpeed(entries []bench.Entry) {
 			arimaRSpeed.err = fmt.Errorf("Rscript: %v: %s", err, b)
 			return
 		}
-		f, err := os.Open(out)
-		if err != nil {
-			arimaRSpeed.err = err
-			return
-		}
-		defer f.Close()
-		arimaRSpeed.orders = map[string]string{}
-		sc := bufio.NewScanner(f)
-		for sc.Scan() {
-			p := strings.Split(sc.Text(), ",")
-			switch p[0] {
-			case "order":
-				arimaRSpeed.orders[p[1]] = p[2]
-			case "cpu":
-				v, _ := strconv.ParseFloat(p[1], 64)
-				arimaRSpeed.seconds = v / float64(len(entries))
-			}
-		}
+		arimaRSpeed.err = readRSpeed(out, entries)
 	})
+}
+
+// readRSpeed reads R's per-series results (arimaSpeedR's output) for the entries: their
+// orders, and their CPU seconds summed and divided by the entry count. Every entry must have
+// a result.
+func readRSpeed(path string, entries []bench.Entry) error {
+	f, err := os.Open(path)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	orders, cpu := map[string]string{}, map[string]float64{}
+	sc := bufio.NewScanner(f)
+	for line := 1; sc.Scan(); line++ {
+		p := strings.Split(sc.Text(), ",")
+		if p[0] != "order" {
+			continue
+		}
+		if len(p) != 4 {
+			return fmt.Errorf("%s:%d: want order,<series>,<orders>,<cpu seconds>", path, line)
+		}
+		v, err := strconv.ParseFloat(p[3], 64)
+		if err != nil {
+			return fmt.Errorf("%s:%d: cpu seconds: %v", path, line, err)
+		}
+		orders[p[1]], cpu[p[1]] = p[2], v
+	}
+	if err := sc.Err(); err != nil {
+		return err
+	}
+	total := 0.0
+	for _, e := range entries {
+		v, ok := cpu[e.ID]
+		if !ok {
+			return fmt.Errorf("%s: no R result for series %s", path, e.ID)
+		}
+		total += v
+	}
+	arimaRSpeed.orders, arimaRSpeed.seconds = orders, total/float64(len(entries))
+	return nil
 }
 
 // BenchmarkARIMASelectionVsR times SelectARIMA per M3 monthly series (Makridakis & Hibon 2000;
@@ -165,10 +197,13 @@ func runRSpeed(entries []bench.Entry) {
 //
 //	GOMAXPROCS=1 go test ./test/reference -run '^$' -bench ARIMASelectionVsR -benchtime 1x
 //
-// It skips without the M3 data or Rscript.
+// ALMANAC_ARIMA_SPEED_SERIES (how many; 0 all 1428), ALMANAC_ARIMA_SPEED_EVERY (every k-th),
+// ALMANAC_ARIMA_SPEED_DIR (keep R's files) and ALMANAC_ARIMA_SPEED_R_RESULTS (reuse R's
+// results) are described at arimaSpeedSeries, arimaSpeedEvery and runRSpeed. It skips
+// without the M3 data or Rscript.
 func BenchmarkARIMASelectionVsR(b *testing.B) {
 	entries := m3Monthly(b, arimaSpeedSeries(), arimaSpeedEvery())
-	runRSpeed(entries)
+	runRSpeed(b, entries)
 	if arimaRSpeed.err != nil {
 		b.Skipf("R reference not available: %v", arimaRSpeed.err)
 	}

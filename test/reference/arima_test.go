@@ -181,9 +181,10 @@ func TestARIMAFitMatchesR(t *testing.T) {
 // auto.arima chooses on the same series, and checks that our choice is never much worse by
 // R's own criterion: where the orders differ, our AICc is compared with the AICc of R's order
 // fitted by us (the search is greedy, so either may win). The agreement rate is logged; the
-// test fails below 50%. The differencing choices are R's (the seasonal strength from STL,
-// TestSeasonalStrengthMatchesR); the orders differ where the stepwise searches take
-// different paths (our first-improvement order, optimiser and root checks differ from R's).
+// test fails below 75% (16 of 20 agree; 11 before the STL seasonal strength and R's order of
+// variations). The differencing choices are R's (TestSeasonalStrengthMatchesR); the orders
+// differ where the searches take different paths: R fits by CSS during the search for
+// n > 150 (nottem), and our optimiser finds other local optima (lynx, treering, LakeHuron).
 func TestARIMASelectionAgreesWithR(t *testing.T) {
 	ref := loadARIMARef(t)
 	agree, total := 0, 0
@@ -214,8 +215,8 @@ func TestARIMASelectionAgreesWithR(t *testing.T) {
 	}
 	rate := float64(agree) / float64(total)
 	t.Logf("agreement with R forecast 8.20 auto.arima: %d of %d (%.0f%%)", agree, total, 100*rate)
-	if rate < 0.5 {
-		t.Errorf("agreement %.2f below 0.5", rate)
+	if rate < 0.75 {
+		t.Errorf("agreement %.2f below 0.75", rate)
 	}
 }
 
