@@ -15,6 +15,10 @@
 // of 3 to 10 days (1 to 2 weeks for weekly data). Spare parts are intermittent instead: a
 // demand of 1 + Poisson(1) units with a small probability per period, zero otherwise.
 // Bad series, when asked for, each carry one defect the trainer must reject with a reason.
+//
+// Options.Scenario "promotions" draws the pantry items from another model instead, driven by
+// a promotion calendar, price cuts and a yearly event, with the plan written Options.Future
+// periods past the history (see promotions.go); the baseline dataset is unchanged by it.
 package synth
 
 import (
@@ -47,6 +51,11 @@ type Options struct {
 	Bad int
 	// Seed selects the dataset (default 1).
 	Seed uint64
+	// Scenario is ScenarioBaseline (default) or ScenarioPromotions.
+	Scenario string
+	// Future is how many planned periods follow the history (promotion scenario only): rows
+	// with the promotion flag and price filled and the units cell empty.
+	Future int
 }
 
 // Defects are the kinds of bad series, given in turn to the first Bad series of depot 0:
@@ -100,6 +109,10 @@ func (o Options) Validate() error {
 		return fmt.Errorf("synth: spare share %v above 1", o.SpareShare)
 	case o.Bad < 0 || o.Bad > o.Items:
 		return fmt.Errorf("synth: bad series %d outside 0..items (%d)", o.Bad, o.Items)
+	case o.Scenario != ScenarioBaseline && o.Scenario != ScenarioPromotions:
+		return fmt.Errorf("synth: scenario %q is not %q or %q", o.Scenario, ScenarioBaseline, ScenarioPromotions)
+	case o.Future < 0 || (o.Future > 0 && o.Scenario != ScenarioPromotions):
+		return fmt.Errorf("synth: future periods %d: only the %s scenario writes a plan (>= 0)", o.Future, ScenarioPromotions)
 	}
 	return nil
 }
@@ -108,13 +121,16 @@ func (o Options) Validate() error {
 func (o Options) Series() int { o = o.withDefaults(); return o.Items * o.Depots }
 
 // Record is one row of the dataset. Text, when set, replaces the units cell as written (a
-// defect); Stamp, when set, replaces the date cell.
+// defect); Stamp, when set, replaces the date cell. Price is written by the promotion scenario
+// only; Planned marks a row of the plan after the history, whose units cell is empty.
 type Record struct {
 	Item, Depot string
 	Date        time.Time
 	Units       float64
 	Promo       int
 	Text, Stamp string
+	Price       float64
+	Planned     bool
 }
 
 // Key is the series key as the trainer builds it from columns item and depot.
@@ -169,14 +185,32 @@ func (o Options) Depot(d int, emit func(Record) error) error {
 			defect = Defects[i%len(Defects)]
 		}
 		gen := newDemand(rng, o.spare(i), o.Frequency == Weekly)
+		var pg *promoDemand
+		if o.Scenario == ScenarioPromotions && !o.spare(i) {
+			// Its own stream, so the baseline's draws are untouched by the scenario.
+			pg = newPromoDemand(rand.New(rand.NewPCG(o.Seed^promoStream, uint64(d)<<32|uint64(i))), o.Frequency == Weekly, start, step, o.Periods+o.Future)
+		}
 		periods := o.Periods
 		if defect == "single-row" {
 			periods = 1
 		}
-		for t := 0; t < periods; t++ {
+		for t := 0; t < periods+o.Future; t++ {
 			day := start.AddDate(0, 0, step*t)
-			units, promo := gen.next(day, step*t)
-			r := Record{Item: item, Depot: depot, Date: day, Units: units, Promo: promo}
+			var r Record
+			switch {
+			case pg != nil:
+				units, promo, price := pg.next(day, t)
+				r = Record{Item: item, Depot: depot, Date: day, Units: units, Promo: promo, Price: price}
+			default:
+				units, promo := gen.next(day, step*t)
+				r = Record{Item: item, Depot: depot, Date: day, Units: units, Promo: promo}
+				if o.Scenario == ScenarioPromotions {
+					r.Price = SparePrice
+				}
+			}
+			if t >= periods {
+				r.Planned, r.Units = true, 0
+			}
 			switch {
 			case defect == "not-a-number" && t == periods/2:
 				r.Text = "n/a"
@@ -196,6 +230,13 @@ func (o Options) Depot(d int, emit func(Record) error) error {
 	}
 	return nil
 }
+
+// promoStream is mixed into the seed of the promotion scenario's streams.
+const promoStream = 0x9e3779b97f4a7c15
+
+// SparePrice is the fixed price of spare parts in the promotion scenario (they are never on
+// promotion).
+const SparePrice = 12.5
 
 // demand draws one series.
 type demand struct {

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/parquet-go/parquet-go"
@@ -24,10 +25,19 @@ const (
 // Columns of the generated table, in order.
 var Columns = []string{"item", "depot", "date", "units", "promo"}
 
+// ColumnsOf returns the columns of the options' scenario, in order.
+func (o Options) ColumnsOf() []string {
+	if o.Scenario == ScenarioPromotions {
+		return PromotionColumns
+	}
+	return Columns
+}
+
 // WriteCSV writes depot d's rows as CSV with a header line.
 func (o Options) WriteCSV(w io.Writer, d int) error {
 	bw := bufio.NewWriterSize(w, 1<<16)
-	bw.WriteString("item,depot,date,units,promo\n")
+	bw.WriteString(strings.Join(o.ColumnsOf(), ",") + "\n")
+	withPrice := o.Scenario == ScenarioPromotions
 	buf := make([]byte, 0, 64)
 	err := o.Depot(d, func(r Record) error {
 		buf = append(buf[:0], r.Item...)
@@ -40,13 +50,18 @@ func (o Options) WriteCSV(w io.Writer, d int) error {
 			buf = r.Date.AppendFormat(buf, "2006-01-02")
 		}
 		buf = append(buf, ',')
-		if r.Text != "" {
+		switch {
+		case r.Text != "":
 			buf = append(buf, r.Text...)
-		} else {
+		case !r.Planned:
 			buf = strconv.AppendFloat(buf, r.Units, 'f', -1, 64)
 		}
 		buf = append(buf, ',')
 		buf = strconv.AppendInt(buf, int64(r.Promo), 10)
+		if withPrice {
+			buf = append(buf, ',')
+			buf = strconv.AppendFloat(buf, r.Price, 'f', -1, 64)
+		}
 		buf = append(buf, '\n')
 		_, err := bw.Write(buf)
 		return err
@@ -68,15 +83,48 @@ type parquetRow struct {
 	Promo int32    `parquet:"promo"`
 }
 
+// promoParquetRow is the promotion scenario's schema: parquetRow and a DOUBLE price; planned
+// rows have a null units value.
+type promoParquetRow struct {
+	Item  string   `parquet:"item"`
+	Depot string   `parquet:"depot"`
+	Date  int32    `parquet:"date,date"`
+	Units *float64 `parquet:"units,optional"`
+	Promo int32    `parquet:"promo"`
+	Price float64  `parquet:"price"`
+}
+
 // WriteParquet writes depot d's rows as Parquet, one row group per rowsPerGroup rows (<= 0:
 // one row group per 64 items), each series inside one row group.
 func (o Options) WriteParquet(w io.Writer, d int, rowsPerGroup int) error {
+	if o.Scenario == ScenarioPromotions {
+		return writeParquet(o, w, d, rowsPerGroup, func(r Record) promoParquetRow {
+			return promoParquetRow{Item: r.Item, Depot: r.Depot, Date: int32(r.Date.Unix() / 86400), Units: unitsOf(r),
+				Promo: int32(r.Promo), Price: r.Price}
+		})
+	}
+	return writeParquet(o, w, d, rowsPerGroup, func(r Record) parquetRow {
+		return parquetRow{Item: r.Item, Depot: r.Depot, Date: int32(r.Date.Unix() / 86400), Units: unitsOf(r), Promo: int32(r.Promo)}
+	})
+}
+
+// unitsOf is the units cell of r: nil (null) for a defect's text or a planned row.
+func unitsOf(r Record) *float64 {
+	if r.Text != "" || r.Planned {
+		return nil
+	}
+	u := r.Units
+	return &u
+}
+
+// writeParquet writes depot d's rows through the row schema T.
+func writeParquet[T any](o Options, w io.Writer, d int, rowsPerGroup int, toRow func(Record) T) error {
 	ow := o.withDefaults()
 	if rowsPerGroup <= 0 {
-		rowsPerGroup = 64 * ow.Periods
+		rowsPerGroup = 64 * (ow.Periods + ow.Future)
 	}
-	pw := parquet.NewGenericWriter[parquetRow](w)
-	batch := make([]parquetRow, 0, 4096)
+	pw := parquet.NewGenericWriter[T](w)
+	batch := make([]T, 0, 4096)
 	inGroup := 0
 	flush := func() error {
 		if _, err := pw.Write(batch); err != nil {
@@ -100,12 +148,7 @@ func (o Options) WriteParquet(w io.Writer, d int, rowsPerGroup int) error {
 			}
 			lastKey = k
 		}
-		row := parquetRow{Item: r.Item, Depot: r.Depot, Date: int32(r.Date.Unix() / 86400), Promo: int32(r.Promo)}
-		if r.Text == "" {
-			u := r.Units
-			row.Units = &u
-		}
-		batch = append(batch, row)
+		batch = append(batch, toRow(r))
 		inGroup++
 		if len(batch) == cap(batch) {
 			return flush()
@@ -166,6 +209,8 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs.Float64Var(&o.SpareShare, "spare-share", 0.1, "share of items that are intermittent spare parts (negative: none)")
 	fs.IntVar(&o.Bad, "bad", 0, "number of deliberately defective series")
 	fs.Uint64Var(&o.Seed, "seed", 1, "random seed")
+	fs.StringVar(&o.Scenario, "scenario", ScenarioBaseline, `"" (baseline) or promotions (adds a price column; demand driven by promotions, price cuts and the harvest fair)`)
+	fs.IntVar(&o.Future, "future", 0, "planned periods after the history, units empty (promotions scenario)")
 	if err := fs.Parse(args); err != nil {
 		return exitcode.Config
 	}
