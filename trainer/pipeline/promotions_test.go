@@ -277,4 +277,7 @@ func benchOut(b *testing.B) io.Writer { return logWriter{b} }
 
 type logWriter struct{ b *testing.B }
 
-func (w logWriter) Write(p []byte) (int, error) { w.b.Log(strings.TrimSpace(string(p))); return len(p), nil }
+func (w logWriter) Write(p []byte) (int, error) {
+	w.b.Log(strings.TrimSpace(string(p)))
+	return len(p), nil
+}
