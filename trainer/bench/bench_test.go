@@ -3,12 +3,14 @@ package bench
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"io"
 	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"almanac.dev/almanac/trainer/models"
 )
@@ -140,5 +142,43 @@ func TestLeanDesignsHaveNoARIMA(t *testing.T) {
 				t.Errorf("%s: zoo has %s", d.Name, f)
 			}
 		}
+	}
+}
+
+// The inner holdout chooses from training data only: with every test value NaN it must still
+// score each design, and with --inner-every 3 it uses every 3rd eligible series of a category
+// (series too short to lose h points are not eligible). Made-up yearly demand of Fenwick Lane
+// Provisions' stores: store k sells 100 + k + t in year t, with a wobble.
+func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
+	var es []Entry
+	for k := 0; k < 10; k++ {
+		n := 20
+		if k == 0 {
+			n = 9 // 9 - 4 < 4 + 2 + 2: not eligible
+		}
+		tr := make([]float64, n)
+		for i := range tr {
+			tr[i] = 100 + float64(k+i) + float64((i*7+k)%3)
+		}
+		es = append(es, Entry{ID: fmt.Sprintf("store-%d", k), Category: "YEARLY", Frequency: 1, Horizon: 4,
+			Start: time.Date(2000, 1, 1, 0, 0, 0, 0, time.UTC), Train: tr, Test: []float64{math.NaN(), math.NaN(), math.NaN(), math.NaN()}})
+	}
+	ds := []Design{
+		{"naive", Options{Families: []string{models.FamilyNaive}, Workers: 1}},
+		{"drift", Options{Families: []string{models.FamilyDrift}, Workers: 1}},
+	}
+	var out bytes.Buffer
+	chosen, err := ChooseByInnerHoldout(context.Background(), es, ds, 3, &out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(out.String(), "(last h training points, 3 series)") {
+		t.Errorf("want 3 of the 9 eligible series in the inner holdout:\n%s", out.String())
+	}
+	if strings.Contains(out.String(), "NaN") {
+		t.Errorf("an inner score is NaN (test data read?):\n%s", out.String())
+	}
+	if chosen["YEARLY"].Name != "drift" {
+		t.Errorf("chose %q for trending series, want drift:\n%s", chosen["YEARLY"].Name, out.String())
 	}
 }
