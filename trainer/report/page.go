@@ -34,12 +34,14 @@ var pageTmpl = template.Must(template.New("page").Funcs(template.FuncMap{
 
 // page is everything the template shows.
 type page struct {
-	Run                      *Run
-	Overview                 Overview
-	Metric                   string
-	MetricSentence           string
-	BandIntro                string
-	ModelRows                []modelRow
+	Run            *Run
+	Overview       Overview
+	Metric         string
+	MetricSentence string
+	BandIntro      string
+	ModelRows      []modelRow
+	// FeatureUse lists, per feature-built member, the features it kept (see featureUse).
+	FeatureUse               []FeatureUse
 	Unit, Noun               string
 	Horizon, Frequency       string
 	Quantiles                []string
@@ -79,9 +81,11 @@ type shownSeries struct {
 	Score                    float64
 	ScoreWords               string
 	// Ratio is realized / expected error of the previous forecast ("" without evaluation).
-	Ratio     string
-	Band      string
-	Notes     []string
+	Ratio string
+	Band  string
+	Notes []string
+	// Kept lists "member: feature, feature" for each feature-built member of its forecast.
+	Kept      []string
 	Carried   string
 	Eval      *tables.EvaluationRow
 	NoHistory bool
@@ -117,6 +121,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		HasManifest:    r.Manifest != nil,
 		UnitsMissing:   r.Missing,
 		IndexCap:       o.IndexCap,
+		FeatureUse:     featureUse(r.Models, noun),
 	}
 	for _, q := range cfg.Quantiles {
 		pg.Quantiles = append(pg.Quantiles, tables.QuantileColumn(q))
@@ -195,6 +200,9 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		}
 		if m.Notes != "" {
 			s.Notes = strings.Split(m.Notes, "; ")
+		}
+		for _, member := range sortedKeys(m.Features) {
+			s.Kept = append(s.Kept, member+": "+strings.Join(m.Features[member], ", "))
 		}
 		h, ok := hist[pk.Key]
 		s.NoHistory = !ok

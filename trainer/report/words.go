@@ -194,6 +194,9 @@ var familyWords = map[string]string{
 	"ARIMA":                            "ARIMA: a model of how each period depends on the ones before",
 	models.FamilyETSARIMATheta:         "the equal-weight mean of the ETS, ARIMA and Theta forecasts",
 	selection.FamilyCombination:        "the mean or median (as the portfolio sets) of the best few models' forecasts",
+	models.FamilyRidge:                 "a regression on the portfolio's features (promotions, prices, events, recent demand), with all coefficients shrunk a little",
+	models.FamilyLasso:                 "a regression on the portfolio's features that keeps only those that help, with the rest set to zero",
+	models.FamilyGradientBoosting:      "many small decision trees on the portfolio's features, each correcting the ones before",
 }
 
 // FamilyWords describes a model family for a planner ("" when unknown).
