@@ -10,6 +10,7 @@ import (
 
 	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/learn"
+	"almanac.dev/almanac/trainer/learn/boost"
 	"almanac.dev/almanac/trainer/series"
 )
 
@@ -143,12 +144,23 @@ func (r *regression) FitInputs(y []float64, m int, in Inputs) (Fitted, error) {
 	return f, nil
 }
 
-// directStep is the fitted model of one forecast step.
+// directStep is the fitted model of one forecast step: a linear predictor, or boosted trees
+// when tree is set.
 type directStep struct {
 	cols    []int // kept columns, indexes into the feature set
 	lin     learn.Linear
+	tree    *boost.Model
+	splits  []int // for trees: the columns some split uses (the recorded features)
 	penalty float64
 	mean    float64 // forecast from the origin len(y)
+}
+
+// predict evaluates the step model on a row of its kept columns.
+func (st directStep) predict(row []float64) float64 {
+	if st.tree != nil {
+		return st.tree.Predict(row)
+	}
+	return st.lin.Predict(row)
 }
 
 type regressionFit struct {
@@ -171,7 +183,7 @@ func (f *regressionFit) addStep() error {
 	if err := f.set.Fill(row, st.cols, f.y, len(f.y), h); err != nil {
 		return err
 	}
-	st.mean = st.lin.Predict(row)
+	st.mean = st.predict(row)
 	f.steps = append(f.steps, st)
 	return nil
 }
@@ -226,6 +238,9 @@ func fitDirectStep(r *regression, sel features.Selection, ref *features.Set, ys 
 		return st, nil
 	}
 	sub := features.Columns(X, ch.Keep)
+	if r.family == FamilyGradientBoosting {
+		return fitBoostStep(st, sub, target, split, cols, ch.Keep)
+	}
 	sc := learn.FitScaler(sub)
 	subS := sc.Transform(sub)
 	var lin learn.Linear
@@ -319,6 +334,15 @@ func (f *regressionFit) Name() string {
 func (f *regressionFit) Params() map[string]float64 { return stepParams(f.steps[0], f.set.Names()) }
 
 func stepParams(st directStep, names []string) map[string]float64 {
+	if st.tree != nil {
+		p := map[string]float64{"base": st.tree.Base(), "rounds": float64(st.tree.Rounds())}
+		for k, v := range st.tree.Importance() {
+			if v > 0 {
+				p["importance:"+names[st.cols[k]]] = v
+			}
+		}
+		return p
+	}
 	p := map[string]float64{"intercept": st.lin.Intercept}
 	if !math.IsNaN(st.penalty) {
 		p["penalty"] = st.penalty
@@ -335,7 +359,11 @@ func (f *regressionFit) Features() []string { return keptNames(f.steps, f.set.Na
 func keptNames(steps []directStep, names []string) []string {
 	used := map[int]bool{}
 	for _, st := range steps {
-		for _, j := range st.cols {
+		cols := st.cols
+		if st.tree != nil {
+			cols = st.splits
+		}
+		for _, j := range cols {
 			used[j] = true
 		}
 	}
@@ -374,7 +402,7 @@ func (f *regressionFit) InSample() []float64 {
 	for i := range out {
 		out[i] = math.NaN()
 		if i >= o0 && f.set.Fill(row, st.cols, f.y, i, 1) == nil {
-			out[i] = st.lin.Predict(row)
+			out[i] = st.predict(row)
 		}
 	}
 	return out

@@ -9,7 +9,7 @@ import (
 )
 
 // SharedFamilies lists the families FitShared can fit across series.
-var SharedFamilies = []string{FamilyRidge, FamilyLasso}
+var SharedFamilies = []string{FamilyRidge, FamilyLasso, FamilyGradientBoosting}
 
 // CanShare reports whether family is in SharedFamilies.
 func CanShare(family string) bool { return slices.Contains(SharedFamilies, family) }
@@ -159,7 +159,7 @@ func (s *Shared) Forecast(i, h int) ([]float64, error) {
 		if err := s.sets[i].Fill(row, st.cols, s.ys[i], len(s.ys[i]), k+1); err != nil {
 			return nil, err
 		}
-		out[k] = st.lin.Predict(row) * s.scales[i]
+		out[k] = st.predict(row) * s.scales[i]
 	}
 	return out, nil
 }

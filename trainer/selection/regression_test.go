@@ -140,11 +140,15 @@ func TestAcrossShardWorkersAndBadSeries(t *testing.T) {
 	cfg := promoConfig(
 		models.Spec{Family: models.FamilySeasonalNaive},
 		models.Spec{Family: models.FamilyRidge, Name: "RidgeShard", Regression: &models.RegressionOptions{AcrossShard: true}},
+		models.Spec{Family: models.FamilyGradientBoosting, Name: "TreesShard", Regression: &models.RegressionOptions{AcrossShard: true}},
 	)
 	run := func(workers int) []string {
 		var out []string
 		err := ForecastMany(context.Background(), in, cfg, workers, func(i int, r Result, err error) {
 			out = append(out, fmt.Sprintf("%v|%v", r, err))
+			if i != 2 && (math.IsNaN(r.Scores["TreesShard"]) || math.IsNaN(r.Scores["RidgeShard"])) {
+				t.Errorf("%s: shard members not scored: %v; notes %v", r.Key, r.Scores, r.Notes)
+			}
 			if i == 2 && (err != nil || r.Family != models.FamilySeasonalNaive || !math.IsNaN(r.Scores["RidgeShard"])) {
 				t.Errorf("series without covariates: %v chose %s scores %v", err, r.Chosen, r.Scores)
 			}
