@@ -17,7 +17,8 @@ func init() {
 
 // fitBoostStep fits one step of the GradientBoosting family (the direct strategy and feature
 // selection are the regression members', see regression): boost.DefaultParams (squared loss,
-// shrinkage 0.1, depth 4, at most 500 rounds), early-stopped on the split's validation rows (the
+// shrinkage 0.1, depth 4, at most 500 rounds) with rows/8 histogram bins (16 to 255: a few
+// hundred rows cannot use 255 bins, and clearing them dominated the cost), early-stopped on the split's validation rows (the
 // latest rows of each series; 20 rounds without improvement), then refitted on all rows with the
 // number of rounds early stopping kept (common practice: the validation rows are the most recent
 // history and too valuable to leave out of the final fit). Without a split, 100 rounds. The
@@ -25,6 +26,8 @@ func init() {
 // the others as inputs, where they are never read.
 func fitBoostStep(st directStep, X *mat.Dense, y []float64, split features.Split, cols, keep []int) (directStep, error) {
 	p := boost.DefaultParams()
+	rows, _ := X.Dims()
+	p.Bins = max(16, min(p.Bins, rows/8))
 	rounds := 100
 	if split != nil {
 		trX, trY := features.Rows(X, y, features.RowsWith(split, features.RowTrain))

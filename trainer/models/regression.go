@@ -327,7 +327,7 @@ func mean(x []float64) float64 {
 }
 
 func (f *regressionFit) Name() string {
-	return fmt.Sprintf("%s(direct, %d features)", f.r.family, len(f.Features()))
+	return fmt.Sprintf("%s(direct,features=%d)", f.r.family, len(f.Features()))
 }
 
 // Params gives the step-1 model: its intercept, penalty and one coefficient per kept feature.

@@ -34,7 +34,7 @@ func BenchmarkRegressionFit(b *testing.B) {
 	cfg := features.Defaults(series.Weekly)
 	cfg.Covariates = []string{"promo"}
 	in := &Inputs{Key: "bench", Start: fenwickStart, Freq: series.Weekly, Covariates: cov, Horizon: 8}
-	for _, fam := range []string{FamilyRidge, FamilyLasso, FamilyETS} {
+	for _, fam := range []string{FamilyRidge, FamilyLasso, FamilyGradientBoosting, FamilyETS} {
 		mod, err := New(Spec{Family: fam, Features: &cfg})
 		if err != nil {
 			b.Fatal(err)

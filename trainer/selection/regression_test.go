@@ -166,3 +166,29 @@ func TestAcrossShardWorkersAndBadSeries(t *testing.T) {
 		t.Error("acrossShard on ETS accepted")
 	}
 }
+
+// BenchmarkRegressionMembers is ForecastMany on 8 Fenwick promotion series (104 weeks,
+// horizon 8) with the zoo SeasonalNaive + ETS, then with a per-series Lasso added, then with a
+// Lasso fitted across the shard added instead: compare each to the first (same run, same data).
+func BenchmarkRegressionMembers(b *testing.B) {
+	in := fenwickPromos(104, 8, 1)
+	base := []models.Spec{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}}
+	for _, c := range []struct {
+		name  string
+		extra []models.Spec
+	}{
+		{"classic", nil},
+		{"withLasso", []models.Spec{{Family: models.FamilyLasso}}},
+		{"withLassoShard", []models.Spec{{Family: models.FamilyLasso, Regression: &models.RegressionOptions{AcrossShard: true}}}},
+		{"withTrees", []models.Spec{{Family: models.FamilyGradientBoosting}}},
+	} {
+		cfg := promoConfig(append(slices.Clone(base), c.extra...)...)
+		b.Run(c.name, func(b *testing.B) {
+			for b.Loop() {
+				if err := ForecastMany(context.Background(), in, cfg, 1, func(int, Result, error) {}); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}

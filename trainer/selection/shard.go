@@ -157,7 +157,7 @@ type sharedFitted struct {
 }
 
 func (f *sharedFitted) Name() string {
-	return fmt.Sprintf("%s(direct, across shard, %d features)", f.family, len(f.shared.Features()))
+	return fmt.Sprintf("%s(direct,shard,features=%d)", f.family, len(f.shared.Features()))
 }
 func (f *sharedFitted) Params() map[string]float64 { return f.shared.Params() }
 func (f *sharedFitted) Features() []string         { return f.shared.Features() }
