@@ -90,3 +90,40 @@ func TestConstantColumn(t *testing.T) {
 		t.Fatalf("NaN cell: err %v, want ErrBadData", err)
 	}
 }
+
+// On an orthogonal design with XᵀX = n·I the solutions have closed forms: the lasso
+// soft-thresholds the least-squares weights, b_j = S(x_jᵀy/n, alpha) (Tibshirani 1996, section
+// 2.2, orthonormal case), and ridge shrinks them, b_j = x_jᵀy/(n + alpha) (Hoerl & Kennard 1970,
+// canonical form). The columns here are centred ±1 contrasts, so the intercept is the mean.
+func TestOrthogonalClosedForms(t *testing.T) {
+	X := mat.NewDense(4, 3, []float64{
+		1, 1, 1,
+		1, -1, -1,
+		-1, 1, -1,
+		-1, -1, 1,
+	})
+	y := []float64{10, 4, 1, 3}
+	// x_jᵀy/n: (10+4−1−3)/4 = 2.5, (10−4+1−3)/4 = 1, (10−4−1+3)/4 = 2; mean 4.5.
+	ols := []float64{2.5, 1, 2}
+	for _, alpha := range []float64{0.1, 0.5, 1.2, 3} {
+		l, err := Lasso(X, y, alpha, LassoOptions{Tol: 1e-14})
+		if err != nil {
+			t.Fatal(err)
+		}
+		r, err := Ridge(X, y, alpha)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for j, b := range ols {
+			if want := math.Copysign(math.Max(math.Abs(b)-alpha, 0), b); math.Abs(l.Coef[j]-want) > 1e-12 {
+				t.Errorf("lasso alpha %v coef[%d] = %v, want %v", alpha, j, l.Coef[j], want)
+			}
+			if want := 4 * b / (4 + alpha); math.Abs(r.Coef[j]-want) > 1e-12 {
+				t.Errorf("ridge alpha %v coef[%d] = %v, want %v", alpha, j, r.Coef[j], want)
+			}
+		}
+		if math.Abs(l.Intercept-4.5) > 1e-12 || math.Abs(r.Intercept-4.5) > 1e-12 {
+			t.Errorf("alpha %v: intercepts %v %v, want 4.5", alpha, l.Intercept, r.Intercept)
+		}
+	}
+}
