@@ -43,8 +43,10 @@ type Spec struct {
 
 // RegressionOptions sets the learner of a regression member.
 type RegressionOptions struct {
-	// Penalty fixes the penalty weight alpha of Ridge and Lasso (objectives in trainer/learn);
-	// 0 chooses it by a backtest on the latest training rows.
+	// Penalty fixes the penalty weight P of Ridge and Lasso, per training row on standardised
+	// features: Lasso minimises (1/(2n))·||y − Xb||² + P·||b||₁ (learn.Lasso's alpha), Ridge
+	// minimises (1/n)·||y − Xb||² + P·||b||² (learn.Ridge with alpha = n·P). 0 chooses it by a
+	// backtest on the latest training rows. GradientBoosting ignores it.
 	Penalty float64 `json:"penalty,omitempty"`
 	// AcrossShard fits one model on every series of the shard together (targets scaled per
 	// series) instead of one model per series; it is still scored and chosen per series.
