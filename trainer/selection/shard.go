@@ -161,6 +161,7 @@ func (f *sharedFitted) Name() string {
 }
 func (f *sharedFitted) Params() map[string]float64 { return f.shared.Params() }
 func (f *sharedFitted) Features() []string         { return f.shared.Features() }
+
 // InSample is all NaN: a shared fit has no per-series one-step fitted values kept, so the
 // member's quantiles come from its backtest errors alone.
 func (f *sharedFitted) InSample() []float64 {
