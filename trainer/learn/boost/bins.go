@@ -23,6 +23,7 @@ func binFeatures(X *mat.Dense, bins int) (*binned, error) {
 	r, c := X.Dims()
 	b := &binned{rows: r, cols: c, codes: make([]uint8, r*c), cuts: make([][]float64, c), missing: uint8(bins)}
 	col := make([]float64, 0, r)
+	var q quantiler
 	for j := 0; j < c; j++ {
 		col = col[:0]
 		for i := 0; i < r; i++ {
@@ -34,7 +35,7 @@ func binFeatures(X *mat.Dense, bins int) (*binned, error) {
 				col = append(col, v)
 			}
 		}
-		b.cuts[j] = quantileCuts(col, bins)
+		b.cuts[j] = q.cuts(col, bins)
 	}
 	for i := 0; i < r; i++ {
 		row := X.RawRowView(i)
@@ -62,13 +63,23 @@ func (b *binned) code(j int, v float64) uint8 {
 // keeping a bin to itself (equal-frequency binning at quantiles, as in Ke et al. 2017). A cut lies halfway between
 // the largest value of its bin and the smallest of the next, as in CART (Breiman et al. 1984).
 func quantileCuts(vals []float64, bins int) []float64 {
+	var q quantiler
+	return q.cuts(vals, bins)
+}
+
+// quantiler keeps quantileCuts' buffers from one feature to the next.
+type quantiler struct {
+	distinct []float64 // distinct[k] is the k-th distinct value
+	cum      []int     // cum[k] is the number of values <= distinct[k]
+}
+
+func (q *quantiler) cuts(vals []float64, bins int) []float64 {
 	if len(vals) == 0 {
 		return nil
 	}
 	slices.Sort(vals)
-	// distinct[k] is the k-th distinct value, cum[k] the number of values <= distinct[k].
-	var distinct []float64
-	var cum []int
+	distinct, cum := q.distinct[:0], q.cum[:0]
+	defer func() { q.distinct, q.cum = distinct, cum }()
 	for i, v := range vals {
 		if i == 0 || v != vals[i-1] {
 			distinct = append(distinct, v)

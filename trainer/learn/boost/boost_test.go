@@ -246,10 +246,11 @@ func centre(v []float64) {
 }
 
 // friedman1 draws n rows of the Friedman #1 benchmark (Friedman 1991, "Multivariate adaptive
-// regression splines", Ann. Statist. 19(1), section 4.3): x uniform on [0,1]^10,
-// y = 10 sin(π x1 x2) + 20 (x3-1/2)² + 10 x4 + 5 x5 + ε, ε ~ N(0,1); x6..x10 do not enter.
-func friedman1(rng *rand.Rand, n int) (*mat.Dense, []float64) {
-	X := mat.NewDense(n, 10, nil)
+// regression splines", Ann. Statist. 19(1), section 4.3) with cols >= 5 inputs: x uniform on
+// [0,1]^cols, y = 10 sin(π x1 x2) + 20 (x3-1/2)² + 10 x4 + 5 x5 + ε, ε ~ N(0,1); x6... do not
+// enter (the benchmark has 10 inputs).
+func friedman1(rng *rand.Rand, n, cols int) (*mat.Dense, []float64) {
+	X := mat.NewDense(n, cols, nil)
 	y := make([]float64, n)
 	for i := range n {
 		r := X.RawRowView(i)
@@ -307,9 +308,9 @@ func linearFit(X *mat.Dense, y []float64, test *mat.Dense) []float64 {
 // the five irrelevant inputs x6..x10 almost no importance.
 func TestFriedman1(t *testing.T) {
 	rng := rand.New(rand.NewPCG(1991, 1))
-	X, y := friedman1(rng, 2000)
-	valX, valY := friedman1(rng, 500)
-	testX, testY := friedman1(rng, 2000)
+	X, y := friedman1(rng, 2000, 10)
+	valX, valY := friedman1(rng, 500, 10)
+	testX, testY := friedman1(rng, 2000, 10)
 	p := DefaultParams()
 	p.Rounds = 1000
 	m, err := Fit(X, y, valX, valY, p)
@@ -552,7 +553,7 @@ func TestQuantileLosses(t *testing.T) {
 // TestDeterministic: a fit depends only on its data and Params; row sampling follows Seed.
 func TestDeterministic(t *testing.T) {
 	rng := rand.New(rand.NewPCG(11, 12))
-	X, y := friedman1(rng, 500)
+	X, y := friedman1(rng, 500, 10)
 	p := DefaultParams()
 	p.Rounds, p.EarlyStop, p.RowFraction, p.Seed = 40, 0, 0.5, 42
 	fit := func(p Params) []float64 {

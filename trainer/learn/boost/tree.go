@@ -133,7 +133,7 @@ func (gr *grower) growNode(id int32, start, end, depth int, G, H float64, hist [
 	var s split
 	found := false
 	if hist != nil {
-		s, found = gr.best(hist, G, H)
+		s, found = gr.best(hist, end-start, G, H)
 	}
 	if !found {
 		gr.release(hist)
@@ -188,51 +188,54 @@ func (gr *grower) growNode(id int32, start, end, depth int, G, H float64, hist [
 //
 //	gain = 1/2 [ G_L²/(H_L+λ) + G_R²/(H_R+λ) - G²/(H+λ) ]    (Chen & Guestrin 2016, eq. 7)
 //
-// trying missing values on either side (their Algorithm 3). Ties go to the lower feature, then
-// the lower bin, then missing values on the right. Both children need MinLeaf rows.
-func (gr *grower) best(hist []bucket, G, H float64) (split, bool) {
+// trying missing values on either side (their Algorithm 3). The candidate after bin b sends
+// bins <= b left; bins the node has no rows in are skipped, so among cuts giving the same
+// children the lowest is kept. Ties go to the lower feature, then the lower bin, then missing
+// values on the right. Both children need MinLeaf rows.
+func (gr *grower) best(hist []bucket, rows int, G, H float64) (split, bool) {
+	n := int32(rows)
 	lambda := gr.p.L2
 	minLeaf := int32(gr.p.MinLeaf)
 	parent := G * G / (H + lambda)
+	best := gr.floor
 	var s split
-	s.gain = gr.floor
 	found := false
-	try := func(f, b int, missLeft bool, gl, hl float64, nl int32, n int32) {
-		nr := n - nl
-		if nl < minLeaf || nr < minLeaf {
-			return
-		}
-		grr, hr := G-gl, H-hl
-		gain := (gl*gl/(hl+lambda) + grr*grr/(hr+lambda) - parent) / 2
-		if gain > s.gain {
-			s = split{gain: gain, feature: f, bin: b, missingLeft: missLeft,
-				gl: gl, hl: hl, gr: grr, hr: hr, nl: int(nl), nr: int(nr)}
-			found = true
-		}
-	}
 	for f := 0; f < gr.data.cols; f++ {
 		hf := hist[f*gr.stride : (f+1)*gr.stride]
 		miss := hf[gr.data.missing]
-		real := len(gr.data.cuts[f]) + 1
-		var n int32
-		for b := 0; b < real; b++ {
-			n += hf[b].n
-		}
-		n += miss.n
+		real := hf[:len(gr.data.cuts[f])+1]
 		var gl, hl float64
 		var nl int32
-		for b := 0; b < real; b++ {
-			gl += hf[b].g
-			hl += hf[b].h
-			nl += hf[b].n
-			if b < real-1 {
-				try(f, b, false, gl, hl, nl, n)
-			} else if miss.n > 0 {
-				// Every present value left, missing values right.
-				try(f, b, false, gl, hl, nl, n)
+		for b, e := range real {
+			if e.n == 0 {
+				continue
 			}
-			if miss.n > 0 && b < real-1 {
-				try(f, b, true, gl+miss.g, hl+miss.h, nl+miss.n, n)
+			gl += e.g
+			hl += e.h
+			nl += e.n
+			// Missing values right, then (when there are any) left.
+			for side := 0; side < 2; side++ {
+				lg, lh, ln := gl, hl, nl
+				if side == 1 {
+					if miss.n == 0 {
+						break
+					}
+					lg, lh, ln = gl+miss.g, hl+miss.h, nl+miss.n
+				}
+				if ln < minLeaf || n-ln < minLeaf {
+					continue
+				}
+				rg, rh := G-lg, H-lh
+				gain := (lg*lg/(lh+lambda) + rg*rg/(rh+lambda) - parent) / 2
+				if gain > best {
+					best = gain
+					s = split{gain: gain, feature: f, bin: b, missingLeft: side == 1,
+						gl: lg, hl: lh, gr: rg, hr: rh, nl: int(ln), nr: int(n - ln)}
+					found = true
+				}
+			}
+			if nl > n-minLeaf {
+				break // every later candidate leaves fewer than MinLeaf rows on the right
 			}
 		}
 	}

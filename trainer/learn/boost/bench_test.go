@@ -1,0 +1,89 @@
+package boost
+
+import (
+	"math/rand/v2"
+	"slices"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// benchData draws n rows of Friedman #1 with c inputs (the first five matter).
+func benchData(n, c int) (*mat.Dense, []float64) {
+	return friedman1(rand.New(rand.NewPCG(10000, 30)), n, c)
+}
+
+// leastSquaresTime is the reference: the median time of five QR least-squares solves of the same
+// rows with an intercept (gonum mat.Dense.Solve).
+func leastSquaresTime(b *testing.B, X *mat.Dense, y []float64) time.Duration {
+	n, c := X.Dims()
+	A := mat.NewDense(n, c+1, nil)
+	for i := range n {
+		A.Set(i, 0, 1)
+		copy(A.RawRowView(i)[1:], X.RawRowView(i))
+	}
+	Y := mat.NewDense(n, 1, slices.Clone(y))
+	var times []time.Duration
+	for range 5 {
+		start := time.Now()
+		var beta mat.Dense
+		if err := beta.Solve(A, Y); err != nil {
+			b.Fatal(err)
+		}
+		times = append(times, time.Since(start))
+	}
+	slices.Sort(times)
+	return times[2]
+}
+
+// BenchmarkFit fits 100 rounds of depth-6 trees on 10,000 rows × 30 features (255 bins,
+// 20 rows per leaf, no early stopping) and reports the time per fit as a multiple of one
+// least-squares solve of the same data measured in the same run (x-lstsq) and per round
+// (x-lstsq/round).
+func BenchmarkFit(b *testing.B) {
+	X, y := benchData(10000, 30)
+	ref := leastSquaresTime(b, X, y)
+	p := DefaultParams()
+	p.Rounds, p.MaxDepth, p.MinLeaf, p.EarlyStop = 100, 6, 20, 0
+	for _, c := range []struct {
+		name     string
+		fraction float64
+	}{{"all-rows", 1}, {"half-rows", 0.5}} {
+		b.Run(c.name, func(b *testing.B) {
+			p.RowFraction = c.fraction
+			b.ReportAllocs()
+			fits := 0
+			for b.Loop() {
+				if _, err := Fit(X, y, nil, nil, p); err != nil {
+					b.Fatal(err)
+				}
+				fits++
+			}
+			per := float64(b.Elapsed()) / float64(fits)
+			b.ReportMetric(per/float64(ref), "x-lstsq")
+			b.ReportMetric(per/float64(ref)/float64(p.Rounds), "x-lstsq/round")
+		})
+	}
+}
+
+// BenchmarkPredict times PredictInto for the 10,000 rows of a 100-round depth-6 model, against
+// the same least-squares reference.
+func BenchmarkPredict(b *testing.B) {
+	X, y := benchData(10000, 30)
+	ref := leastSquaresTime(b, X, y)
+	p := DefaultParams()
+	p.Rounds, p.MaxDepth, p.MinLeaf, p.EarlyStop = 100, 6, 20, 0
+	m, err := Fit(X, y, nil, nil, p)
+	if err != nil {
+		b.Fatal(err)
+	}
+	out := make([]float64, 10000)
+	b.ReportAllocs()
+	calls := 0
+	for b.Loop() {
+		m.PredictInto(X, out)
+		calls++
+	}
+	b.ReportMetric(float64(b.Elapsed())/float64(calls)/float64(ref), "x-lstsq")
+}
