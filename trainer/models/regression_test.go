@@ -149,3 +149,28 @@ func TestRegressionMinLength(t *testing.T) {
 		t.Error("negative penalty accepted")
 	}
 }
+
+// Fit without Inputs keeps only target lags and rolling statistics (there is no calendar to
+// read): the weekly defaults' calendar and Fourier features are not generated.
+func TestRegressionFitWithoutInputs(t *testing.T) {
+	rng := rand.New(rand.NewPCG(41, 42))
+	y := make([]float64, 120)
+	for i := range y {
+		y[i] = 100 + 10*math.Sin(2*math.Pi*float64(i)/52) + rng.NormFloat64()
+	}
+	mod, _ := New(Spec{Family: FamilyRidge})
+	fit, err := mod.Fit(y, 52)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, n := range fit.(*regressionFit).set.Names() {
+		if !strings.HasPrefix(n, "lag") && !strings.HasPrefix(n, "rolling") {
+			t.Errorf("feature %s generated without a calendar", n)
+		}
+	}
+	for k, v := range fit.Forecast(4, nil).Mean {
+		if math.IsNaN(v) || math.Abs(v-100) > 30 {
+			t.Errorf("step %d: %v", k+1, v)
+		}
+	}
+}
