@@ -32,10 +32,13 @@ type Rejected struct{ Key, Reason string }
 //     timestamp that is not a period label (a daily row at 12:00, a weekly row on the wrong
 //     weekday, a monthly row on the 15th) rejects the series, naming the rule.
 //   - Rows dated after now (their period starts after now) are dropped with a note: they are
-//     plans or placeholders, not history. A zero now disables the check. With KeepFuture(h),
-//     the covariates of such rows in the h periods after now's are kept as known future values
-//     (their value cell may be empty and is never read); Series.Covariates then extend past
-//     Values. Future rows for one period must agree in their covariates.
+//     plans or placeholders, not history. A zero now disables the check.
+//   - With KeepFuture(h) and covariate columns, the plan is kept: rows dated after now, and
+//     rows whose value cell is empty, that lie in the h periods after the series' last
+//     observed period give their covariates as known future values (their value is never
+//     read); Series.Covariates then extend past Values. An empty value before the last
+//     observed period is still a problem that rejects the series; plan rows beyond the h
+//     periods are dropped with a note; plan rows for one period must agree.
 //   - Identical duplicate (series, period) rows are kept once with a note; duplicates that
 //     differ in value or covariates reject the series.
 //   - Missing periods between the first and last row become NaN (series.Clean fills them).
@@ -58,9 +61,12 @@ type pending struct {
 	covs   []float64 // len(covs) == len(ords) * number of covariates
 	future int
 	first  time.Time // a future row's date, for the note
-	// fords and fcovs are the kept future rows: ordinals and covariates (KeepFuture).
+	// fords, fcovs and fprob are the plan rows (KeepFuture): ordinals, covariates, and the
+	// empty-value problem of a row dated at or before now ("" after now), which rejects the
+	// series if the row turns out to lie inside the history.
 	fords []int64
 	fcovs []float64
+	fprob []string
 }
 
 // NewCollector checks the source's frequency, week anchor and date layout (errors name the
@@ -87,18 +93,11 @@ func NewCollector(src runconfig.Source, now time.Time) (*Collector, error) {
 	}, nil
 }
 
-// KeepFuture keeps the covariates of rows dated in the periods periods after now's period
-// (the forecast horizon: promotion calendars, planned prices) instead of dropping those rows.
-// It does nothing when now is zero or periods < 1.
+// KeepFuture keeps the plan: the covariates of the rows in the periods periods after each
+// series' last observed period that are dated after now or have an empty value (promotion
+// calendars, planned prices; see Collector). It does nothing when periods < 1 or the source
+// has no covariates.
 func (c *Collector) KeepFuture(periods int) { c.keep = periods }
-
-// futureKept reports whether a row dated t carries known future covariates to keep.
-func (c *Collector) futureKept(t time.Time) bool {
-	if c.keep < 1 || c.now.IsZero() || len(c.covs) == 0 || !t.After(c.now) {
-		return false
-	}
-	return c.cal.Ordinal(t)-c.cal.Ordinal(c.now) <= int64(c.keep)
-}
 
 // Add takes one row.
 func (c *Collector) Add(r Row) {
@@ -110,11 +109,10 @@ func (c *Collector) Add(r Row) {
 	if p.reason != "" {
 		return
 	}
-	kept := c.futureKept(r.Date)
-	// With KeepFuture, a row after now whose value is empty is a plan, kept or dropped below.
-	plan := r.EmptyValue && c.keep > 0 && !c.now.IsZero() && r.Date.After(c.now)
+	keeping := c.keep > 0 && len(c.covs) > 0
+	after := !c.now.IsZero() && r.Date.After(c.now)
 	switch {
-	case r.Problem != "" && !plan:
+	case r.Problem != "" && !(keeping && r.EmptyValue):
 		p.reject(r.Problem)
 		return
 	case !c.cal.OnGrid(r.Date):
@@ -122,11 +120,16 @@ func (c *Collector) Add(r Row) {
 		return
 	case len(r.Covariates) != len(c.covs):
 		panic(fmt.Sprintf("ingest: row has %d covariates, collector expects %d", len(r.Covariates), len(c.covs)))
-	case kept:
+	case keeping && (after || r.EmptyValue):
+		prob := r.Problem
+		if after {
+			prob = ""
+		}
 		p.fords = append(p.fords, c.cal.Ordinal(r.Date))
 		p.fcovs = append(p.fcovs, r.Covariates...)
+		p.fprob = append(p.fprob, prob)
 		return
-	case !c.now.IsZero() && r.Date.After(c.now):
+	case after:
 		if p.future == 0 || r.Date.Before(p.first) {
 			p.first = r.Date
 		}
@@ -208,8 +211,12 @@ func (c *Collector) build(key string, p *pending) (series.Series, string) {
 			span, c.cal.Freq, c.label(first).Format(time.RFC3339), c.label(last).Format(time.RFC3339), MaxPeriods)
 	}
 	n := int(last - first + 1)
-	ncov := n // covariate grid: the history, then the kept future periods
-	for _, o := range p.fords {
+	plan, reason := c.planOf(p, last)
+	if reason != "" {
+		return series.Series{}, reason
+	}
+	ncov := n // covariate grid: the history, then the plan's periods
+	for o := range plan.covs {
 		ncov = max(ncov, int(o-first+1))
 	}
 	s := series.Series{Key: key, Start: c.label(first), Freq: c.cal.Freq, Values: nanSlice(n), Notes: notes}
@@ -226,8 +233,17 @@ func (c *Collector) build(key string, p *pending) (series.Series, string) {
 			s.Covariates[name][at] = p.covs[i*nc+j]
 		}
 	}
-	if reason := c.placeFuture(&s, p, first, last); reason != "" {
-		return series.Series{}, reason
+	for o, row := range plan.covs {
+		for j, name := range c.covs {
+			s.Covariates[name][o-first] = row[j]
+		}
+	}
+	if len(plan.covs) > 0 {
+		s.Notes = append(s.Notes, fmt.Sprintf("kept the covariates of %d planned periods after %s as known values",
+			len(plan.covs), c.label(last).Format(time.RFC3339)))
+	}
+	if plan.dropped > 0 {
+		s.Notes = append(s.Notes, fmt.Sprintf("dropped %d planned rows more than %d periods after %s", plan.dropped, c.keep, c.label(last).Format(time.RFC3339)))
 	}
 	if gaps := n - len(uniq); gaps > 0 {
 		s.Notes = append(s.Notes, fmt.Sprintf("%d missing periods between %s and %s",
@@ -236,39 +252,41 @@ func (c *Collector) build(key string, p *pending) (series.Series, string) {
 	return s, ""
 }
 
-// placeFuture writes the kept future rows' covariates after the history (periods after the
-// last observed one; a future row inside the history's span is not placed over it). Two future
-// rows for one period that differ reject the series.
-func (c *Collector) placeFuture(s *series.Series, p *pending, first, last int64) string {
-	if len(p.fords) == 0 {
-		return ""
-	}
+// plan is a series' plan rows placed after its history: covariates by period ordinal, and how
+// many plan rows lay beyond the kept periods.
+type plan struct {
+	covs    map[int64][]float64
+	dropped int
+}
+
+// planOf sorts the plan rows against the last observed period: a row at or before it with an
+// empty value is an interior missing value and rejects the series with the row's problem; rows
+// in the c.keep periods after it are the plan (two rows for one period must agree); later
+// rows are dropped.
+func (c *Collector) planOf(p *pending, last int64) (plan, string) {
+	out := plan{covs: map[int64][]float64{}}
 	nc := len(c.covs)
-	seen := map[int64]int{}
-	placed := 0
 	for i, o := range p.fords {
-		if o <= last {
-			continue
-		}
 		row := p.fcovs[i*nc : (i+1)*nc]
-		if j, dup := seen[o]; dup {
-			if !sameCovariates(row, p.fcovs[j*nc:(j+1)*nc]) {
-				return fmt.Sprintf("two future rows for period %s with different covariates (%v and %v)",
-					c.label(o).Format(time.RFC3339), p.fcovs[j*nc:(j+1)*nc], row)
+		switch {
+		case o <= last:
+			if p.fprob[i] != "" {
+				return out, p.fprob[i]
 			}
-			continue
+		case o > last+int64(c.keep):
+			out.dropped++
+		default:
+			if prev, dup := out.covs[o]; dup {
+				if !sameCovariates(row, prev) {
+					return out, fmt.Sprintf("two planned rows for period %s with different covariates (%v and %v)",
+						c.label(o).Format(time.RFC3339), prev, row)
+				}
+				continue
+			}
+			out.covs[o] = row
 		}
-		seen[o] = i
-		for j, name := range c.covs {
-			s.Covariates[name][o-first] = row[j]
-		}
-		placed++
 	}
-	if placed > 0 {
-		s.Notes = append(s.Notes, fmt.Sprintf("kept the covariates of %d future periods after %s as known values",
-			placed, c.label(last).Format(time.RFC3339)))
-	}
-	return ""
+	return out, ""
 }
 
 func sameCovariates(a, b []float64) bool {

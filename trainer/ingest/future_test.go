@@ -58,7 +58,7 @@ func TestKeepFutureCovariates(t *testing.T) {
 		t.Errorf("promo %v, want %v", promo[k], want)
 	}
 	joined := strings.Join(notes[k], "; ")
-	if !strings.Contains(joined, "kept the covariates of 2 future periods") || !strings.Contains(joined, "dropped 1 rows dated after") {
+	if !strings.Contains(joined, "kept the covariates of 2 planned periods") || !strings.Contains(joined, "dropped 1 planned rows more than 2 periods after 2026-11-23") {
 		t.Errorf("notes %q", joined)
 	}
 	if h := promo["harbour/rye-loaf"]; len(h) != 2 {
@@ -86,7 +86,7 @@ func TestEmptyHistoryValueStillRejects(t *testing.T) {
 func TestConflictingFutureRowsReject(t *testing.T) {
 	data := planned + "north,oat-flakes-1kg,2026-11-30,,0\n"
 	_, _, _, rej := collectPlanned(t, data, 4)
-	if len(rej) != 1 || !strings.Contains(rej[0].Reason, "two future rows for period 2026-11-30") {
+	if len(rej) != 1 || !strings.Contains(rej[0].Reason, "two planned rows for period 2026-11-30") {
 		t.Fatalf("rejected %v", rej)
 	}
 }
@@ -150,4 +150,19 @@ func equalNaN(a, b []float64) bool {
 		}
 	}
 	return true
+}
+
+// A plan whose first weeks are already past now (the history stopped before now, as when the
+// latest actuals are not loaded yet) is still the plan: empty values after the last observed
+// week are planned weeks, not missing actuals.
+func TestPlanAfterAStaleHistory(t *testing.T) {
+	data := strings.Replace(planned, "north,oat-flakes-1kg,2026-11-23,30,0\n", "north,oat-flakes-1kg,2026-11-23,,0\n", 1)
+	vals, promo, _, rej := collectPlanned(t, data, 4)
+	k := "north/oat-flakes-1kg"
+	if len(rej) != 0 || len(vals[k]) != 2 {
+		t.Fatalf("rejected %v, values %v: want 2 weeks of history", rej, vals[k])
+	}
+	if want := []float64{0, 1, 0, 1, 0, 1}; !equalNaN(promo[k], want) {
+		t.Errorf("promo %v, want the history and 4 planned weeks %v", promo[k], want)
+	}
 }
