@@ -1,10 +1,13 @@
 // Command demo is `make demo`: it starts the local control plane (etcd, kube-apiserver,
 // kube-controller-manager, the localnode agent and the built almanac manager), generates
-// weekly demand for Fenwick Lane Provisions (an invented regional distributor), applies the
-// config/samples portfolio with its source and output pointed at demo-output/, runs it twice
-// (a second time four weeks of actuals later, so the accuracy of the first forecasts can be
-// measured), prints the kubectl tables, the published runs and an accuracy summary, writes a
-// report page to demo-output/report/index.html and stops everything it started.
+// weekly demand for Fenwick Lane Provisions (an invented regional distributor) in the
+// promotion scenario (trainer/synth: demand driven by planned promotions, price cuts and the
+// harvest fair, with the plan written past the history), applies the config/samples promotion
+// portfolio (regression members on spec.features beside the time-series zoo) with its source
+// and output pointed at demo-output/, runs it twice (a second time four weeks of actuals
+// later, so the accuracy of the first forecasts can be measured), prints the kubectl tables,
+// the published runs and an accuracy summary, writes a report page (with the features the
+// regression members kept) to demo-output/report/index.html and stops everything it started.
 //
 // It expects bin/almanac-controller, bin/almanac-trainer and bin/k8s/<version>/ (the Makefile's
 // demo target builds them). Run it from the repository root.
@@ -41,7 +44,7 @@ import (
 // Paths relative to the repository root.
 const (
 	outDir        = "demo-output"
-	samplePortfol = "config/samples/forecasting_v1alpha1_forecastportfolio.yaml"
+	samplePortfol = "config/samples/forecasting_v1alpha1_forecastportfolio_promotions.yaml"
 	sampleRun     = "config/samples/forecasting_v1alpha1_forecastrun.yaml"
 	crdDir        = "config/crd/bases"
 	k8sVersion    = "v1.37.2"
@@ -111,9 +114,10 @@ func run(ctx context.Context) (err error) {
 	if err != nil {
 		return err
 	}
-	say("Fenwick Lane Provisions: writing %d items x %d depots of weekly demand up to %s into %s",
-		items, depots, firstEnd.Format("2006-01-02"), rel(root, dataDir))
-	if err := writeDemand(dataDir, firstPeriods, firstEnd); err != nil {
+	plan := int(fp.Spec.Horizon)
+	say("Fenwick Lane Provisions: writing %d items x %d depots of weekly demand up to %s and the promotion plan for the %d weeks after it into %s",
+		items, depots, firstEnd.Format("2006-01-02"), plan, rel(root, dataDir))
+	if err := writeDemand(dataDir, firstPeriods, firstEnd, plan); err != nil {
 		return err
 	}
 
@@ -188,7 +192,10 @@ func run(ctx context.Context) (err error) {
 	if err != nil {
 		return err
 	}
-	say("applying %s: a Manual run", sampleRun)
+	// The run sample names the other sample portfolio; the demo points it at this one.
+	first.Spec.PortfolioName = fp.Name
+	first.Name = fp.Name + "-manual-1"
+	say("applying %s as %s (spec.portfolioName %s): a Manual run", sampleRun, first.Name, fp.Name)
 	if err := runAndWait(ctx, cl, first); err != nil {
 		return err
 	}
@@ -196,9 +203,9 @@ func run(ctx context.Context) (err error) {
 		return err
 	}
 
-	say("four weeks later: appending the actuals of %s to %s",
+	say("four weeks later: appending the actuals of %s to %s (and the plan moves on four weeks)",
 		firstEnd.AddDate(0, 0, 7).Format("2006-01-02"), secondEnd.Format("2006-01-02"))
-	if err := writeDemand(dataDir, firstPeriods+4, secondEnd); err != nil {
+	if err := writeDemand(dataDir, firstPeriods+4, secondEnd, plan); err != nil {
 		return err
 	}
 	second := first.DeepCopy()
@@ -255,14 +262,17 @@ func decodeFile(path string, into any) error {
 }
 
 // sampleHeader is the header of the sample portfolio's input table (its source.columns);
-// synth writes the same columns as item,depot,date,units,promo.
-const sampleHeader = "item,depot,week_start,units,promo_flag\n"
+// synth writes the same columns as item,depot,date,units,promo,price.
+const sampleHeader = "item,depot,week_start,units,promo_flag,price\n"
 
-// writeDemand writes one CSV per depot, periods weeks ending at end, with the sample's column
-// names. The generator draws each series' weeks in order from its own stream, so a longer
-// history with the same start repeats the earlier weeks exactly: new weeks are appended.
-func writeDemand(dir string, periods int, end time.Time) error {
-	o := synth.Options{Items: items, Depots: depots, Frequency: synth.Weekly, Periods: periods, End: end}
+// writeDemand writes one CSV per depot, periods weeks ending at end and the plan for the
+// following weeks (units empty), with the sample's column names. The generator draws each
+// series' weeks in order from its own stream, so a longer history with the same start repeats
+// the earlier weeks exactly (new weeks are appended) and the weeks planned earlier happen as
+// planned.
+func writeDemand(dir string, periods int, end time.Time, plan int) error {
+	o := synth.Options{Items: items, Depots: depots, Frequency: synth.Weekly, Periods: periods, End: end,
+		Scenario: synth.ScenarioPromotions, Future: plan}
 	if err := o.Validate(); err != nil {
 		return err
 	}
@@ -273,7 +283,7 @@ func writeDemand(dir string, periods int, end time.Time) error {
 		}
 		b := buf.Bytes()
 		nl := bytes.IndexByte(b, '\n')
-		if nl < 0 || string(b[:nl+1]) != strings.Join(synth.Columns, ",")+"\n" {
+		if nl < 0 || string(b[:nl+1]) != strings.Join(o.ColumnsOf(), ",")+"\n" {
 			return fmt.Errorf("synth header changed: %q", b[:max(nl, 0)])
 		}
 		b = append([]byte(sampleHeader), b[nl+1:]...)
