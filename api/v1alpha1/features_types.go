@@ -56,7 +56,7 @@ const (
 // FeaturesSpec declares the features the regression members (Ridge, Lasso, GradientBoosting)
 // are built on and how they are narrowed down. Every feature uses only what is known at the
 // forecast origin; covariates must be known for the forecast periods too (planned prices,
-// promotion calendars), i.e. present in the input on rows dated after the history ends.
+// promotion calendars), i.e. present in the input on rows after the history (see covariates).
 // Unset: regression members use a broad default set for the frequency.
 // +kubebuilder:validation:XValidation:rule="!has(self.covariateLags) || (has(self.covariates) && size(self.covariates) > 0)",message="covariateLags needs covariates"
 // +kubebuilder:validation:XValidation:rule="!has(self.windowStatistics) || (has(self.windows) && size(self.windows) > 0)",message="windowStatistics needs windows"
@@ -107,8 +107,9 @@ type FeaturesSpec struct {
 
 	// covariates names the input covariate columns used as features, each of which must be
 	// listed in spec.source.columns.covariates. Their values for the forecast periods must be
-	// in the input: rows dated after the history, with the covariates filled (their value
-	// column is not read).
+	// in the input: for each of the horizon's periods after a series' last actual, a row with
+	// the covariates filled and the value empty (or dated after the run's time; the value is
+	// not read). Rows further ahead are ignored.
 	// +optional
 	// +listType=set
 	// +kubebuilder:validation:MaxItems=64
