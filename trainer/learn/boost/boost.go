@@ -76,7 +76,8 @@ func Fit(X *mat.Dense, y []float64, valX *mat.Dense, valY []float64, p Params) (
 		bestLoss = meanLoss(p, valY, valPred)
 	}
 
-	gr := newGrower(p, data)
+	yScale := scale(y)
+	gr := newGrower(p, data, gainFloor(p, n, yScale))
 	for i := range gr.idx {
 		gr.idx[i] = int32(i)
 	}
@@ -88,7 +89,7 @@ func Fit(X *mat.Dense, y []float64, valX *mat.Dense, valY []float64, p Params) (
 	}
 	inSample := make([]bool, n)
 	for round := 1; round <= p.Rounds; round++ {
-		gradients(p, y, pred, gr.g, gr.h)
+		gradients(p, yScale, y, pred, gr.g, gr.h)
 		if rng != nil {
 			// Partial Fisher-Yates draw of sample rows without replacement, then row order for
 			// locality.

@@ -66,6 +66,28 @@ func TestStepOneSplit(t *testing.T) {
 	}
 }
 
+// TestNoSplitOnRoundingNoise: once a tree fits the step exactly, the residuals left are
+// rounding error (different on the two sides, since 0.1 + 0.7 and the fitted sums round
+// differently); later trees must not split on them (common practice: a gain floor relative to
+// the gradients' size).
+func TestNoSplitOnRoundingNoise(t *testing.T) {
+	x, y := stepData()
+	for i := range y {
+		y[i] = 0.1 + 0.7*y[i]
+	}
+	for _, loss := range []Loss{Squared, Absolute} {
+		p := exact(5, 1, 1)
+		p.Loss = loss
+		m, err := Fit(column(x), y, nil, nil, p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := splits(m); got != 1 {
+			t.Errorf("%v: %d splits in 5 rounds, want 1 (the first tree's)", loss, got)
+		}
+	}
+}
+
 // TestStepShrinkage: with shrinkage ν every least-squares round removes the fraction ν of the
 // residual in each leaf (Friedman 2001, Algorithm 2, LS_Boost, with the tree of the previous
 // test), so after k rounds |y - F| = 1/2 (1-ν)^k from F_0 = 1/2, approaching the leaf means as
@@ -139,7 +161,9 @@ func TestOneRoundIsRegressionTree(t *testing.T) {
 }
 
 // TestConstantTarget: a constant target gives a constant model with no split (common
-// practice: nothing to learn), whatever the features.
+// practice: nothing to learn), whatever the features. 300 copies of 7.3 do not average to 7.3
+// in floating point, so the gradients are tiny but not zero: the noise floor on the gain must
+// keep the trees from splitting on rounding error.
 func TestConstantTarget(t *testing.T) {
 	rng := rand.New(rand.NewPCG(1, 2))
 	X := mat.NewDense(300, 4, nil)
@@ -460,6 +484,22 @@ func TestMissingValues(t *testing.T) {
 			t.Errorf("F(%v) = %v, want %v", c.x, got, c.want)
 		}
 	}
+	// One stump must send missing values to the side whose target they share, left or right.
+	for _, nanY := range []float64{0, 1} {
+		yy := append([]float64(nil), y...)
+		for i := 0; i < len(x); i += 4 {
+			yy[i] = nanY
+		}
+		m, err := Fit(column(x), yy, nil, nil, exact(1, 1, 1))
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, c := range []struct{ x, want float64 }{{math.NaN(), nanY}, {0.2, 0}, {0.7, 1}} {
+			if got := m.Predict([]float64{c.x}); math.Abs(got-c.want) > 1e-12 {
+				t.Errorf("missing rows at %v: F(%v) = %v, want %v", nanY, c.x, got, c.want)
+			}
+		}
+	}
 	// A feature missing exactly where the target is high, else constant: the split is
 	// "present left, missing right".
 	z := make([]float64, 40)
@@ -687,7 +727,106 @@ func TestQuantileCuts(t *testing.T) {
 	if !below || !above {
 		t.Errorf("cuts %v do not isolate the heavy value 7", got)
 	}
-	if c := between(1, math.Nextafter(1, 2)); c != 1 {
-		t.Errorf("between adjacent floats = %v, want the lower one", c)
+	// Adjacent floats whose halves round up to the upper one: the cut falls back to the lower.
+	a := math.Nextafter(1, 2)
+	if c := between(a, math.Nextafter(a, 2)); c != a {
+		t.Errorf("between adjacent floats = %v, want the lower one %v", c, a)
+	}
+}
+
+// TestGainIsHalfSquaredErrorReduction: with h = 1 and λ = 0 a split's gain is half the drop in
+// the squared error it brings (Chen & Guestrin 2016, eq. 7 against Breiman et al. 1984's
+// least-squares criterion), so the gains of a one-round, learning-rate-1 tree add up to
+// 1/2 (SST - SSE) of the scikit-learn 1.2.1 tree's fitted values on the CART fixture.
+func TestGainIsHalfSquaredErrorReduction(t *testing.T) {
+	p := exact(1, 1, 3)
+	p.MinLeaf = 3
+	m, err := Fit(column(cartX1), cartY, nil, nil, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var mean float64
+	for _, v := range cartY {
+		mean += v
+	}
+	mean /= float64(len(cartY))
+	var sst, sse, gains float64
+	for i, v := range cartY {
+		sst += (v - mean) * (v - mean)
+		sse += (v - cartOneTrain[i]) * (v - cartOneTrain[i])
+	}
+	for _, nd := range m.nodes {
+		if nd.feature >= 0 {
+			gains += nd.gain
+		}
+	}
+	if want := (sst - sse) / 2; math.Abs(gains-want) > 1e-9 {
+		t.Errorf("sum of gains = %v, want 1/2 (SST - SSE) = %v", gains, want)
+	}
+}
+
+// TestMinLeaf: a split leaves at least MinLeaf rows on each side (common practice). On the step
+// data (100 rows, jump after row 50) MinLeaf 51 forbids every split, MinLeaf 50 allows the jump
+// alone, and a jump after row 30 with MinLeaf 40 moves the cut to just after row 40.
+func TestMinLeaf(t *testing.T) {
+	x, y := stepData()
+	for _, c := range []struct {
+		minLeaf, jump int
+		splits        int
+		lo, hi        float64 // the root cut lies in (lo, hi)
+	}{
+		{51, 50, 0, 0, 0},
+		{50, 50, 1, 0.50, 0.51},
+		{40, 30, 1, 0.40, 0.41},
+	} {
+		for i := range y {
+			y[i] = 0
+			if i >= c.jump {
+				y[i] = 1
+			}
+		}
+		p := exact(1, 1, 1)
+		p.MinLeaf = c.minLeaf
+		m, err := Fit(column(x), y, nil, nil, p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := splits(m); got != c.splits {
+			t.Errorf("MinLeaf %d: %d splits, want %d", c.minLeaf, got, c.splits)
+			continue
+		}
+		if c.splits > 0 {
+			if cut := m.nodes[0].cut; !(cut > c.lo && cut < c.hi) {
+				t.Errorf("MinLeaf %d: cut %v, want in (%v, %v)", c.minLeaf, cut, c.lo, c.hi)
+			}
+		}
+	}
+}
+
+// TestAbsoluteLeafIsMedian: for the absolute loss the tree is grown on gradient signs and each
+// leaf is refitted to the median of its residuals (Friedman 2001, Algorithm 3, LAD_TreeBoost), so
+// one round at learning rate 1 predicts each side's sample median exactly. Left of 0.5 the
+// targets are 0..4 ten times each, right 10..14: with the order-statistic median u_(ceil(n/2))
+// (Koenker 2005) the sides get 2 and 12, from F_0 = 4 (the median of all 100).
+func TestAbsoluteLeafIsMedian(t *testing.T) {
+	x, _ := stepData()
+	y := make([]float64, len(x))
+	for i := range y {
+		y[i] = float64(i % 5)
+		if x[i] > 0.5 {
+			y[i] += 10
+		}
+	}
+	p := exact(1, 1, 1)
+	p.Loss = Absolute
+	m, err := Fit(column(x), y, nil, nil, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if m.Base() != 4 {
+		t.Errorf("F_0 = %v, want 4", m.Base())
+	}
+	if a, b := m.Predict([]float64{0.3}), m.Predict([]float64{0.7}); a != 2 || b != 12 {
+		t.Errorf("F(0.3), F(0.7) = %v, %v, want 2 and 12", a, b)
 	}
 }

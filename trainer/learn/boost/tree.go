@@ -49,12 +49,13 @@ type grower struct {
 	free    [][]bucket // spare histograms
 	nodes   []node     // nodes of the tree being grown
 	leaves  []leafRange
-	floor   float64 // gains at or below this are noise
+	floor   float64 // gains at or below this are rounding noise (see gainFloor)
 }
 
-func newGrower(p Params, data *binned) *grower {
+func newGrower(p Params, data *binned, floor float64) *grower {
 	return &grower{
 		p:       p,
+		floor:   floor,
 		data:    data,
 		stride:  p.Bins + 1,
 		g:       make([]float64, data.rows),
@@ -103,15 +104,11 @@ func (gr *grower) grow(m int) ([]node, []leafRange) {
 	gr.nodes = gr.nodes[:0]
 	gr.leaves = gr.leaves[:0]
 	rows := gr.idx[:m]
-	var G, H, noise float64
+	var G, H float64
 	for _, r := range rows {
 		G += gr.g[r]
 		H += gr.h[r]
-		noise += gr.g[r] * gr.g[r] / gr.h[r]
 	}
-	// With λ = 0 no split can gain more than 1/2 Σ g²/h over all rows; gains below a tiny
-	// fraction of that are rounding noise (a constant target must give a constant model).
-	gr.floor = 1e-10 * noise / 2
 	var hist []bucket
 	if gr.splittable(m, 0) {
 		hist = gr.histogram()
