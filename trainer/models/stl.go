@@ -10,15 +10,17 @@ import (
 // STL: seasonal-trend decomposition by loess, after Cleveland, Cleveland, McRae & Terpenning
 // (1990), "STL: A Seasonal-Trend Decomposition Procedure Based on Loess", Journal of Official
 // Statistics 6(1), 3-73. The paper's notation: n_p the period, n_s, n_l, n_t the seasonal,
-// low-pass and trend smoothing spans, n_i and n_o the inner and outer iteration counts.
+// low-pass and trend smoothing spans, n_i and n_o the inner and outer iteration counts. The
+// section references below are from memory; the arithmetic is checked against R's stats::stl
+// and statsmodels' STL in test/reference.
 
 // LoessDegree is the degree of a local fit in STL: constant or linear.
 type LoessDegree int8
 
 const (
 	// LoessDefault takes the component's default: constant for the seasonal smoother, linear
-	// for the trend, the trend's degree for the low-pass filter (the paper's section 3.3
-	// recommendations; R's stats::stl defaults).
+	// for the trend, the trend's degree for the low-pass filter (the paper's recommendations;
+	// R's stats::stl defaults).
 	LoessDefault LoessDegree = iota
 	// LoessConstant is a locally constant (weighted mean) fit.
 	LoessConstant
@@ -34,12 +36,12 @@ type STLOptions struct {
 	// s.window = "periodic"). SeasonalWindow and SeasonalDegree are then ignored.
 	Periodic bool
 	// SeasonalWindow is n_s, the span (in periods) of the cycle-subseries smoother; odd,
-	// at least 7 recommended (paper, section 3.2). Required unless Periodic.
+	// at least 7 recommended by the paper. Required unless Periodic.
 	SeasonalWindow int
 	// SeasonalDegree defaults to LoessConstant.
 	SeasonalDegree LoessDegree
 	// TrendWindow is n_t; the default is the smallest odd integer >= 1.5 n_p / (1 - 1.5/n_s)
-	// (paper, eq. 2 of section 3.3, in R's form nextodd(ceiling(...))).
+	// (the paper's recommendation, in R's form nextodd(ceiling(...))).
 	TrendWindow int
 	// TrendDegree defaults to LoessLinear.
 	TrendDegree LoessDegree
@@ -48,8 +50,8 @@ type STLOptions struct {
 	// LowPassDegree defaults to TrendDegree.
 	LowPassDegree LoessDegree
 	// SeasonalJump, TrendJump and LowPassJump: each smoother is evaluated at every jump-th
-	// point and interpolated linearly in between (paper, section 3.3 "computational
-	// considerations"); the default is ceil(span/10), 1 evaluates at every point.
+	// point and interpolated linearly in between (the paper's computational shortcut); the
+	// default is ceil(span/10), 1 evaluates at every point.
 	SeasonalJump, TrendJump, LowPassJump int
 	// Robust adds the outer loop: bisquare robustness weights from the remainder.
 	Robust bool
@@ -137,7 +139,7 @@ func oddSpan(s int) int {
 }
 
 // STL decomposes y (period m >= 2, more than two full periods: len(y) > 2m) into seasonal,
-// trend and remainder by the procedure of Cleveland et al. (1990, section 2). Each inner pass
+// trend and remainder by the procedure of Cleveland et al. (1990). Each inner pass
 // k = 1..n_i, from the trend T (0 at the start) and robustness weights rho (1 at the start):
 //
 //  1. detrend: y - T;
@@ -150,13 +152,16 @@ func oddSpan(s int) int {
 //
 // Steps 2 and 6 weight each point by rho. The outer loop (n_o passes when Robust) sets
 // rho_t = B(|R_t| / (6 median|R|)) from the remainder R = y - S - T, with the bisquare
-// B(u) = (1 - u^2)^2 for u < 1, else 0 (paper, eq. 7).
+// B(u) = (1 - u^2)^2 for u < 1, else 0.
 //
-// The loess and its interpolation between jumps follow the paper's section 2 and appendix as
-// R's stats::stl computes them (checked against R 4.2.2 in test/reference): tricube
-// neighbourhood weights (1 - (d/h)^3)^3 with h the distance to the farther end of the span
-// (plus (span - n)/2, integer division, when the span exceeds the data), and the point's
-// own value kept when every weight is zero.
+// The loess and its interpolation between jumps follow the paper as R's stats::stl computes
+// them (checked against R 4.2.2 in test/reference): tricube neighbourhood weights
+// (1 - (d/h)^3)^3 with h the distance to the farther end of the span (plus (span - n)/2,
+// integer division, when the span exceeds the data), and the point's own value kept when
+// every weight is zero. The median is the mean of the two middle order statistics, as in
+// statsmodels 0.13.5; R 4.2.2's partial sort returns a wrong lower middle value in some
+// outer passes when n is even, so robust fits of even length differ from R's (see
+// test/reference/r/stl.R).
 //
 // It returns an error for bad options, too short a series or non-finite values.
 func STL(y []float64, m int, opt STLOptions) (STLDecomposition, error) {
@@ -332,7 +337,7 @@ func movingAverage(x []float64, k int, dst []float64) {
 	}
 }
 
-// robustnessWeights sets s.rw from the remainder y - S - T (paper, eq. 7): h = 6 median|R|
+// robustnessWeights sets s.rw from the remainder y - S - T: h = 6 median|R|
 // (the median as the mean of the two middle order statistics), rho = (1 - (|R|/h)^2)^2 when
 // |R| <= 0.999h, 1 when |R| <= 0.001h, else 0.
 func (s *stlState) robustnessWeights() {

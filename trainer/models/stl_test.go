@@ -43,7 +43,7 @@ func TestSTLRejectsBadInput(t *testing.T) {
 
 // TestSTLRobustIgnoresOutlier: with the outer loop, one gross outlier gets robustness weight 0
 // and stays in the remainder, while the trend and seasonal around it are those of the clean
-// series (the purpose of the robustness loop, Cleveland et al. 1990 section 3.4); without
+// series (the purpose of the robustness loop, Cleveland et al. 1990); without
 // the outer loop the outlier leaks into the trend.
 func TestSTLRobustIgnoresOutlier(t *testing.T) {
 	clean := stlTestSeries(120)
