@@ -43,20 +43,15 @@ func promoFeatures() *features.Config {
 	}
 }
 
-// timeSeriesZoo is the zoo without features; featureZoo adds the regression members that
-// are registered (the boosted-tree family joins once trainer/learn/boost registers it).
+// timeSeriesZoo is the zoo without features (ARIMA without seasonal terms: weekly seasons of
+// 52 are longer than its limit); featureZoo adds the three regression families.
 func timeSeriesZoo() []models.Spec {
-	return []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyTheta}}
+	return []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyTheta}, {Family: models.FamilyARIMA}}
 }
 
 func featureZoo() []models.Spec {
-	zoo := timeSeriesZoo()
-	for _, f := range []string{"Ridge", "Lasso", "GradientBoosting"} {
-		if slices.Contains(models.Families(), f) {
-			zoo = append(zoo, models.Spec{Family: f})
-		}
-	}
-	return zoo
+	return append(timeSeriesZoo(), models.Spec{Family: models.FamilyRidge}, models.Spec{Family: models.FamilyLasso},
+		models.Spec{Family: models.FamilyGradientBoosting})
 }
 
 // The promotion portfolio end to end: generated input with the plan after the history, plan,
