@@ -37,32 +37,43 @@ func leastSquaresTime(b *testing.B, X *mat.Dense, y []float64) time.Duration {
 	return times[2]
 }
 
-// BenchmarkFit fits 100 rounds of depth-6 trees on 10,000 rows × 30 features (255 bins,
-// 20 rows per leaf, no early stopping) and reports the time per fit as a multiple of one
-// least-squares solve of the same data measured in the same run (x-lstsq) and per round
-// (x-lstsq/round).
+// BenchmarkFit fits boosted trees (255 bins, no early stopping) and reports the time per fit
+// as a multiple of one least-squares solve of the same rows measured in the same run (x-lstsq),
+// and per round (x-lstsq/round):
+//   - 10k-x30: 10,000 rows × 30 features, 100 rounds of depth-6 trees, 20 rows per leaf, with
+//     every row and with half the rows per round;
+//   - series-156x20: one weekly series' design (three years, 20 features), 200 rounds of
+//     depth-3 trees, 5 rows per leaf, the size the zoo fits per series and backtest origin.
 func BenchmarkFit(b *testing.B) {
-	X, y := benchData(10000, 30)
-	ref := leastSquaresTime(b, X, y)
-	p := DefaultParams()
-	p.Rounds, p.MaxDepth, p.MinLeaf, p.EarlyStop = 100, 6, 20, 0
+	big := DefaultParams()
+	big.Rounds, big.MaxDepth, big.MinLeaf, big.EarlyStop = 100, 6, 20, 0
+	half := big
+	half.RowFraction = 0.5
+	small := DefaultParams()
+	small.Rounds, small.MaxDepth, small.MinLeaf, small.EarlyStop = 200, 3, 5, 0
 	for _, c := range []struct {
-		name     string
-		fraction float64
-	}{{"all-rows", 1}, {"half-rows", 0.5}} {
+		name       string
+		rows, cols int
+		p          Params
+	}{
+		{"10k-x30/all-rows", 10000, 30, big},
+		{"10k-x30/half-rows", 10000, 30, half},
+		{"series-156x20", 156, 20, small},
+	} {
 		b.Run(c.name, func(b *testing.B) {
-			p.RowFraction = c.fraction
+			X, y := benchData(c.rows, c.cols)
+			ref := leastSquaresTime(b, X, y)
 			b.ReportAllocs()
 			fits := 0
 			for b.Loop() {
-				if _, err := Fit(X, y, nil, nil, p); err != nil {
+				if _, err := Fit(X, y, nil, nil, c.p); err != nil {
 					b.Fatal(err)
 				}
 				fits++
 			}
 			per := float64(b.Elapsed()) / float64(fits)
 			b.ReportMetric(per/float64(ref), "x-lstsq")
-			b.ReportMetric(per/float64(ref)/float64(p.Rounds), "x-lstsq/round")
+			b.ReportMetric(per/float64(ref)/float64(c.p.Rounds), "x-lstsq/round")
 		})
 	}
 }

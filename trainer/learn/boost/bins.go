@@ -9,19 +9,23 @@ import (
 )
 
 // binned is a feature matrix coded once into histogram bins, row-major, one byte per cell.
-// Code c < len(cuts[f])+1 covers (cuts[f][c-1], cuts[f][c]]; code missing (== Bins) is NaN.
+// For feature f with k = len(cuts[f]) cuts, code c <= k covers (cuts[f][c-1], cuts[f][c]] and
+// code k+1 is NaN; a histogram holds k+2 cells for f, starting at offset[f].
 type binned struct {
 	rows, cols int
 	codes      []uint8     // rows*cols, row i at codes[i*cols:(i+1)*cols]
 	cuts       [][]float64 // per feature, strictly increasing cut points
-	missing    uint8       // the code of NaN
+	offset     []int       // per feature, its first histogram cell; offset[cols] is the total
 }
+
+// missing returns the code of NaN for feature f.
+func (b *binned) missing(f int) uint8 { return uint8(len(b.cuts[f]) + 1) }
 
 // binFeatures cuts every column of X at quantiles into at most bins bins and codes X.
 // It refuses ±Inf, naming the row and column.
 func binFeatures(X *mat.Dense, bins int) (*binned, error) {
 	r, c := X.Dims()
-	b := &binned{rows: r, cols: c, codes: make([]uint8, r*c), cuts: make([][]float64, c), missing: uint8(bins)}
+	b := &binned{rows: r, cols: c, codes: make([]uint8, r*c), cuts: make([][]float64, c), offset: make([]int, c+1)}
 	col := make([]float64, 0, r)
 	var q quantiler
 	for j := 0; j < c; j++ {
@@ -36,6 +40,7 @@ func binFeatures(X *mat.Dense, bins int) (*binned, error) {
 			}
 		}
 		b.cuts[j] = q.cuts(col, bins)
+		b.offset[j+1] = b.offset[j] + len(b.cuts[j]) + 2
 	}
 	for i := 0; i < r; i++ {
 		row := X.RawRowView(i)
@@ -51,7 +56,7 @@ func binFeatures(X *mat.Dense, bins int) (*binned, error) {
 // code for NaN.
 func (b *binned) code(j int, v float64) uint8 {
 	if math.IsNaN(v) {
-		return b.missing
+		return b.missing(j)
 	}
 	k, _ := slices.BinarySearch(b.cuts[j], v) // first cut >= v
 	return uint8(k)

@@ -121,7 +121,7 @@ func Fit(X *mat.Dense, y []float64, valX *mat.Dense, valY []float64, p Params) (
 			}
 			for r := range n {
 				if !inSample[r] {
-					pred[r] += walkCodes(nodes, data.codes[r*cols:(r+1)*cols], data.missing).value
+					pred[r] += walkCodes(nodes, data.codes[r*cols:(r+1)*cols], data).value
 				}
 			}
 		}

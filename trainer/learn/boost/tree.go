@@ -42,7 +42,6 @@ type leafRange struct {
 type grower struct {
 	p       Params
 	data    *binned
-	stride  int // histogram cells per feature: Bins real codes + the missing code
 	g, h    []float64
 	idx     []int32 // rows of the current tree, partitioned node by node
 	scratch []int32
@@ -57,7 +56,6 @@ func newGrower(p Params, data *binned, floor float64) *grower {
 		p:       p,
 		floor:   floor,
 		data:    data,
-		stride:  p.Bins + 1,
 		g:       make([]float64, data.rows),
 		h:       make([]float64, data.rows),
 		idx:     make([]int32, data.rows),
@@ -72,7 +70,7 @@ func (gr *grower) histogram() []bucket {
 		clear(hist)
 		return hist
 	}
-	return make([]bucket, gr.data.cols*gr.stride)
+	return make([]bucket, gr.data.offset[gr.data.cols])
 }
 
 func (gr *grower) release(hist []bucket) {
@@ -83,17 +81,16 @@ func (gr *grower) release(hist []bucket) {
 
 // fill adds the rows' gradients into hist.
 func (gr *grower) fill(hist []bucket, rows []int32) {
-	cols, stride := gr.data.cols, gr.stride
+	cols := gr.data.cols
+	offset := gr.data.offset[:cols]
 	for _, r := range rows {
 		gi, hi := gr.g[r], gr.h[r]
 		codes := gr.data.codes[int(r)*cols : int(r)*cols+cols]
-		off := 0
-		for _, c := range codes {
-			e := &hist[off+int(c)]
+		for f, c := range codes {
+			e := &hist[offset[f]+int(c)]
 			e.g += gi
 			e.h += hi
 			e.n++
-			off += stride
 		}
 	}
 }
@@ -198,9 +195,8 @@ func (gr *grower) best(hist []bucket, rows int, G, H float64) (split, bool) {
 	var s split
 	found := false
 	for f := 0; f < gr.data.cols; f++ {
-		hf := hist[f*gr.stride : (f+1)*gr.stride]
-		miss := hf[gr.data.missing]
-		real := hf[:len(gr.data.cuts[f])+1]
+		hf := hist[gr.data.offset[f]:gr.data.offset[f+1]]
+		real, miss := hf[:len(hf)-1], hf[len(hf)-1]
 		var gl, hl float64
 		var nl int32
 		for b, e := range real {
@@ -243,7 +239,7 @@ func (gr *grower) best(hist []bucket, rows int, G, H float64) (split, bool) {
 // on each side, and returns the first index of the right side.
 func (gr *grower) partition(start, end int, s split) int {
 	cols := gr.data.cols
-	missing := gr.data.missing
+	missing := gr.data.missing(s.feature)
 	bin := uint8(s.bin)
 	l, r := start, 0
 	for _, row := range gr.idx[start:end] {
@@ -265,9 +261,9 @@ func (gr *grower) partition(start, end int, s split) int {
 }
 
 // walkCodes returns the leaf of the tree nodes reached by a binned row.
-func walkCodes(nodes []node, codes []uint8, missing uint8) *node {
+func walkCodes(nodes []node, codes []uint8, data *binned) *node {
 	return descend(nodes, func(nd *node) bool {
-		if c := codes[nd.feature]; c != missing {
+		if c := codes[nd.feature]; c != data.missing(int(nd.feature)) {
 			return c <= nd.bin
 		}
 		return nd.missingLeft
