@@ -206,7 +206,9 @@ type FeatureSelectionSpec struct {
 	// +optional
 	Embedded EmbeddedSelection `json:"embedded,omitempty"`
 
-	// maxFeatures caps how many features a fitted member keeps. Unset: no cap.
+	// maxFeatures caps how many features a fitted member keeps in each of its per-step models
+	// (the regression members fit one model per step ahead, so the features listed for a
+	// series over all steps may be more). Unset: no cap.
 	// +optional
 	// +kubebuilder:validation:Minimum=1
 	// +kubebuilder:validation:Maximum=1000
