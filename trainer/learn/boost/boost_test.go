@@ -500,6 +500,31 @@ func TestMissingValues(t *testing.T) {
 			}
 		}
 	}
+	// MinLeaf counts the missing rows on their side: 5 low present rows and 20 missing ones
+	// (y = 1) against 30 high rows (y = 0) split cleanly with MinLeaf 10, although the low
+	// present rows alone are fewer than 10.
+	var mx, my []float64
+	for i := range 55 {
+		switch {
+		case i < 5:
+			mx, my = append(mx, 0.1*float64(i+1)), append(my, 1)
+		case i < 25:
+			mx, my = append(mx, math.NaN()), append(my, 1)
+		default:
+			mx, my = append(mx, 0.6+0.01*float64(i)), append(my, 0)
+		}
+	}
+	p := exact(1, 1, 1)
+	p.MinLeaf = 10
+	m, err = Fit(column(mx), my, nil, nil, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct{ x, want float64 }{{math.NaN(), 1}, {0.3, 1}, {0.8, 0}} {
+		if got := m.Predict([]float64{c.x}); math.Abs(got-c.want) > 1e-12 {
+			t.Errorf("MinLeaf 10 with missing rows: F(%v) = %v, want %v", c.x, got, c.want)
+		}
+	}
 	// A feature missing exactly where the target is high, else constant: the split is
 	// "present left, missing right".
 	z := make([]float64, 40)

@@ -206,29 +206,30 @@ func (gr *grower) best(hist []bucket, rows int, G, H float64) (split, bool) {
 			gl += e.g
 			hl += e.h
 			nl += e.n
-			// Missing values right, then (when there are any) left.
-			for side := 0; side < 2; side++ {
-				lg, lh, ln := gl, hl, nl
-				if side == 1 {
-					if miss.n == 0 {
-						break
-					}
-					lg, lh, ln = gl+miss.g, hl+miss.h, nl+miss.n
-				}
-				if ln < minLeaf || n-ln < minLeaf {
-					continue
-				}
-				rg, rh := G-lg, H-lh
-				gain := (lg*lg/(lh+lambda) + rg*rg/(rh+lambda) - parent) / 2
-				if gain > best {
+			if n-nl < minLeaf {
+				break // every later candidate leaves fewer than MinLeaf rows on the right
+			}
+			// Missing values right (with the present values above the cut).
+			if nl >= minLeaf {
+				rg, rh := G-gl, H-hl
+				if gain := (gl*gl/(hl+lambda) + rg*rg/(rh+lambda) - parent) / 2; gain > best {
 					best = gain
-					s = split{gain: gain, feature: f, bin: b, missingLeft: side == 1,
-						gl: lg, hl: lh, gr: rg, hr: rh, nl: int(ln), nr: int(n - ln)}
+					s = split{gain: gain, feature: f, bin: b,
+						gl: gl, hl: hl, gr: rg, hr: rh, nl: int(nl), nr: int(n - nl)}
 					found = true
 				}
 			}
-			if nl > n-minLeaf {
-				break // every later candidate leaves fewer than MinLeaf rows on the right
+			if miss.n == 0 || nl+miss.n < minLeaf || n-nl-miss.n < minLeaf {
+				continue
+			}
+			// Missing values left.
+			lg, lh := gl+miss.g, hl+miss.h
+			rg, rh := G-lg, H-lh
+			if gain := (lg*lg/(lh+lambda) + rg*rg/(rh+lambda) - parent) / 2; gain > best {
+				best = gain
+				s = split{gain: gain, feature: f, bin: b, missingLeft: true,
+					gl: lg, hl: lh, gr: rg, hr: rh, nl: int(nl + miss.n), nr: int(n - nl - miss.n)}
+				found = true
 			}
 		}
 	}
