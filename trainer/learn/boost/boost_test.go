@@ -855,3 +855,35 @@ func TestAbsoluteLeafIsMedian(t *testing.T) {
 		t.Errorf("F(0.3), F(0.7) = %v, %v, want 2 and 12", a, b)
 	}
 }
+
+// TestRawAndBinnedAgree: a row reaches the same leaf whether it is routed by its bin codes (as
+// in training) or by its raw values against the cuts (as in prediction), with more distinct
+// values than bins and with missing values (common practice: the cut of bin b is its upper
+// edge, so x <= cut exactly when code(x) <= b).
+func TestRawAndBinnedAgree(t *testing.T) {
+	rng := rand.New(rand.NewPCG(13, 14))
+	X, y := friedman1(rng, 1500, 10)
+	for i := 0; i < 1500; i += 7 {
+		X.Set(i, i%10, math.NaN())
+	}
+	p := DefaultParams()
+	p.Rounds, p.EarlyStop, p.Bins, p.MaxDepth = 30, 0, 32, 5
+	m, err := Fit(X, y, nil, nil, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	data, err := binFeatures(X, p.Bins)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := range m.roots {
+		tr := m.tree(k)
+		for i := range 1500 {
+			raw := walk(tr, X.RawRowView(i))
+			coded := walkCodes(tr, data.codes[i*10:(i+1)*10], data)
+			if raw != coded {
+				t.Fatalf("tree %d, row %d: raw values reach leaf %v, codes reach %v", k, i, *raw, *coded)
+			}
+		}
+	}
+}
