@@ -209,6 +209,7 @@ func (m *Model) PredictInto(X *mat.Dense, out []float64) {
 	if c != m.cols || len(out) != r {
 		panic(fmt.Sprintf("boost: PredictInto got %d×%d rows and %d outputs, the model was fitted on %d columns", r, c, len(out), m.cols))
 	}
+	// Tree by tree: one tree's nodes stay in cache while the rows stream past.
 	for i := range out {
 		out[i] = m.base
 	}

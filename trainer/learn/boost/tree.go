@@ -261,35 +261,33 @@ func (gr *grower) partition(start, end int, s split) int {
 	return l
 }
 
-// walkCodes returns the leaf of the tree nodes reached by a binned row.
+// walkCodes returns the leaf of the tree nodes reached by a binned row. The missing code is
+// above every split bin, so code <= bin means a present value on the left.
 func walkCodes(nodes []node, codes []uint8, data *binned) *node {
-	return descend(nodes, func(nd *node) bool {
-		if c := codes[nd.feature]; c != data.missing(int(nd.feature)) {
-			return c <= nd.bin
-		}
-		return nd.missingLeft
-	})
-}
-
-// walk returns the leaf of the tree nodes reached by a row of raw feature values.
-func walk(nodes []node, row []float64) *node {
-	return descend(nodes, func(nd *node) bool {
-		if v := row[nd.feature]; !math.IsNaN(v) {
-			return v <= nd.cut
-		}
-		return nd.missingLeft
-	})
-}
-
-// descend follows the tree from its root to a leaf, going left where goLeft says so.
-func descend(nodes []node, goLeft func(*node) bool) *node {
-	nd := &nodes[0]
-	for nd.feature >= 0 {
-		if goLeft(nd) {
-			nd = &nodes[nd.left]
+	k := int32(0)
+	for nodes[k].feature >= 0 {
+		nd := &nodes[k]
+		c := codes[nd.feature]
+		if c <= nd.bin || (nd.missingLeft && c == data.missing(int(nd.feature))) {
+			k = nd.left
 		} else {
-			nd = &nodes[nd.right]
+			k = nd.right
 		}
 	}
-	return nd
+	return &nodes[k]
+}
+
+// walk returns the leaf of the tree nodes reached by a row of raw feature values (NaN fails
+// v <= cut, so it goes left only when missingLeft says so).
+func walk(nodes []node, row []float64) *node {
+	k := int32(0)
+	for nodes[k].feature >= 0 {
+		nd := &nodes[k]
+		if v := row[nd.feature]; v <= nd.cut || (nd.missingLeft && math.IsNaN(v)) {
+			k = nd.left
+		} else {
+			k = nd.right
+		}
+	}
+	return &nodes[k]
 }
