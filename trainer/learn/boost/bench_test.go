@@ -43,7 +43,9 @@ func leastSquaresTime(b *testing.B, X *mat.Dense, y []float64) time.Duration {
 //   - 10k-x30: 10,000 rows × 30 features, 100 rounds of depth-6 trees, 20 rows per leaf, with
 //     every row and with half the rows per round;
 //   - series-156x20: one weekly series' design (three years, 20 features), 200 rounds of
-//     depth-3 trees, 5 rows per leaf, the size the zoo fits per series and backtest origin.
+//     depth-3 trees, 5 rows per leaf, the size the zoo fits per series and backtest origin,
+//     with 255 bins (every distinct value its own bin) and with 19 (rows/8, as the zoo's
+//     regression members choose).
 func BenchmarkFit(b *testing.B) {
 	big := DefaultParams()
 	big.Rounds, big.MaxDepth, big.MinLeaf, big.EarlyStop = 100, 6, 20, 0
@@ -51,6 +53,8 @@ func BenchmarkFit(b *testing.B) {
 	half.RowFraction = 0.5
 	small := DefaultParams()
 	small.Rounds, small.MaxDepth, small.MinLeaf, small.EarlyStop = 200, 3, 5, 0
+	coarse := small
+	coarse.Bins = 19
 	for _, c := range []struct {
 		name       string
 		rows, cols int
@@ -58,7 +62,8 @@ func BenchmarkFit(b *testing.B) {
 	}{
 		{"10k-x30/all-rows", 10000, 30, big},
 		{"10k-x30/half-rows", 10000, 30, half},
-		{"series-156x20", 156, 20, small},
+		{"series-156x20/bins-255", 156, 20, small},
+		{"series-156x20/bins-19", 156, 20, coarse},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			X, y := benchData(c.rows, c.cols)
