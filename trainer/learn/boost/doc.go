@@ -7,9 +7,10 @@
 //
 //	F_m(x) = F_{m-1}(x) + ν · T_m(x)
 //
-// Trees are grown with second-order statistics (Chen & Guestrin 2016, KDD
-// paper on scalable tree boosting, eq. 5 and 7). With g_i and h_i the first and second derivatives of the
-// loss at row i, G and H their sums over a node and λ the L2 penalty, a leaf gets the value
+// Trees are grown with second-order statistics (Chen & Guestrin 2016, KDD paper on scalable
+// tree boosting, eq. 5 and 7; equation, algorithm and section numbers in this package are from
+// memory). With g_i and h_i the first and second derivatives of the loss at row i, G and H
+// their sums over a node and λ the L2 penalty, a leaf gets the value
 //
 //	w = -G / (H + λ)
 //
@@ -17,14 +18,21 @@
 //
 //	gain = 1/2 [ G_L²/(H_L+λ) + G_R²/(H_R+λ) - G²/(H+λ) ]
 //
-// Candidate splits come from histograms (Ke et al. 2017, NeurIPS paper on
-// efficient gradient boosting trees, Algorithms 1 and 2): every feature is cut once, before the
-// first round, at quantiles of its values into at most Params.Bins bins and coded as one byte per
-// cell; a node's histogram holds per-bin sums of g, h and the row count, and of two sibling
-// nodes only the smaller one is counted, the larger being its parent's histogram minus it.
+// Candidate splits come from histograms (Ke et al. 2017, NeurIPS paper on efficient gradient
+// boosting trees, Algorithm 1 and the histogram-subtraction remark beside it): every feature is
+// cut once, before the first round, at quantiles of its values into at most Params.Bins bins and
+// coded as one byte per cell; a node's histogram holds per-bin sums of g, h and the row count,
+// and of two sibling nodes only the smaller one is counted, the larger being its parent's
+// histogram minus it.
 //
-// Trees grow depth-limited: a node splits when its best gain is positive and both children keep
-// at least Params.MinLeaf rows, down to Params.MaxDepth levels (at most 2^MaxDepth leaves).
+// A split's cut is the edge between two bins, halfway between the largest value of the one and
+// the smallest of the other over all training rows (not over the node's rows, as an exact
+// regression tree would place it); with at most Bins distinct values per feature the
+// partitions, and so the fitted values, equal those of an exact least-squares tree.
+//
+// Trees grow depth-limited: a node splits when its best gain is above a rounding floor and both
+// children keep at least Params.MinLeaf rows, down to Params.MaxDepth levels (at most
+// 2^MaxDepth leaves).
 // Because every node is split or not on its own statistics, the grown tree does not depend on
 // the order nodes are visited; they are visited depth first, which keeps only one histogram per
 // level alive.

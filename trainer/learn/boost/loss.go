@@ -79,7 +79,7 @@ func meanLoss(p Params, y, pred []float64) float64 {
 	return s / float64(len(y))
 }
 
-// pinball is ρ_τ(u) = u·(τ - 1[u<0]) (Koenker 2005, eq. 1.3).
+// pinball is ρ_τ(u) = u·(τ - 1[u<0]) (Koenker 2005, ch. 1).
 func pinball(tau, u float64) float64 {
 	if u < 0 {
 		return (tau - 1) * u

@@ -47,7 +47,8 @@ type Params struct {
 	// distinct values gets one bin per value (cut halfway between neighbours), so splits on it
 	// are exact.
 	Bins int
-	// L2 is the penalty λ >= 0 on leaf values in -G/(H+λ) and in the split gain.
+	// L2 is the penalty λ >= 0 on leaf values in -G/(H+λ) and in the split gain. The absolute
+	// and pinball losses use it in the split gain only: their leaves are refitted quantiles.
 	L2 float64
 	// EarlyStop stops the fit after this many rounds without a lower validation loss and keeps
 	// the best round (0: off, all Rounds are kept). It needs validation rows.
