@@ -76,11 +76,11 @@ test-e2e: ## End-to-end tests with the real Job controller (when present).
 	@if [ -d test/e2e ]; then go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi
 
 .PHONY: bench
-bench: bench-engine bench-controller bench-scale bench-m3 ## All benchmarks behind README's figures (long: about an hour on 2 cores).
+bench: bench-engine bench-controller bench-scale bench-m3 bench-features ## All benchmarks behind README's figures (long: about an hour on 2 cores).
 
 .PHONY: bench-engine
-bench-engine: ## Model fits, selection, input readers (ns/op, allocs/op).
-	go test -run '^$$' -bench . -benchmem ./trainer/models/ ./trainer/selection/ ./trainer/ingest/
+bench-engine: ## Model fits, learners, feature rows, selection, input readers (ns/op, allocs/op).
+	go test -run '^$$' -bench . -benchmem ./trainer/models/ ./trainer/learn/... ./trainer/features/ ./trainer/selection/ ./trainer/ingest/
 
 .PHONY: bench-controller
 bench-controller: controlplane ## 1000 portfolios and one run of 10000 shards against envtest.
@@ -97,8 +97,12 @@ bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast 
 	else echo "bench-m3: ../shared/datasets/m3 not present, skipped"; fi
 	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
 
+.PHONY: bench-features
+bench-features: ## Promotion scenario: accuracy with and without features, CPU ms per series.
+	go test -run '^$$' -bench BenchmarkPromotionFeatures -benchtime 1x -v ./trainer/pipeline/
+
 .PHONY: demo
-demo: controlplane build ## Local control plane, the sample portfolio on generated Fenwick Lane data, two runs, a report in demo-output/.
+demo: controlplane build ## Local control plane, the promotion sample portfolio on generated Fenwick Lane data, two runs, a report in demo-output/.
 	go run ./test/e2e/demo
 
 .PHONY: clean
@@ -114,6 +118,9 @@ fixtures: ## Regenerate the reference fixtures (Debian's r-cran-forecast 8.20 an
 	Rscript test/reference/r/simple.R | gofmt > test/reference/simple_fixtures_test.go
 	Rscript test/reference/r/ets.R | gofmt > test/reference/ets_fixtures_test.go
 	Rscript test/reference/arima.R > test/reference/testdata/arima_r.json
+	@if /usr/bin/python3 -c 'import sklearn' 2>/dev/null; then \
+	  /usr/bin/python3 test/reference/sklearn/linear.py > test/reference/sklearn/linear.json; \
+	else echo "fixtures: Debian's python3-sklearn not importable; sklearn/linear.json kept"; fi
 	@if /usr/bin/python3 -c 'import statsmodels' 2>/dev/null; then \
 	  /usr/bin/python3 test/reference/arima_statsmodels.py > test/reference/testdata/arima_statsmodels.json; \
 	else echo "fixtures: Debian's python3-statsmodels not importable; arima_statsmodels.json kept"; fi
