@@ -40,7 +40,7 @@ func openSource(ctx context.Context, src runconfig.Source) (*source, error) {
 			u.Path = "/"
 		}
 	}
-	st, err := store.Open(ctx, u.String())
+	st, err := store.OpenExisting(ctx, u.String())
 	if err != nil {
 		return nil, storageErr(err)
 	}
