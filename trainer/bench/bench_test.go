@@ -182,3 +182,14 @@ func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
 		t.Errorf("chose %q for trending series, want drift:\n%s", chosen["YEARLY"].Name, out.String())
 	}
 }
+
+// CombinationDesigns keeps exactly the two fixed means of InnerDesigns.
+func TestCombinationDesigns(t *testing.T) {
+	ds := CombinationDesigns(Options{})
+	if len(ds) != 2 || ds[0].Name != "ets-arima-theta" || ds[1].Name != "ets-theta" {
+		t.Fatalf("designs %v, want ets-arima-theta and ets-theta", ds)
+	}
+	if f := ds[0].Opts.Families; len(f) != 1 || f[0] != models.FamilyETSARIMATheta {
+		t.Errorf("ets-arima-theta zoo %v", f)
+	}
+}
