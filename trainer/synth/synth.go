@@ -86,9 +86,6 @@ func (o Options) withDefaults() Options {
 	if o.SpareShare == 0 {
 		o.SpareShare = 0.1
 	}
-	if o.SpareShare < 0 {
-		o.SpareShare = 0
-	}
 	if o.Seed == 0 {
 		o.Seed = 1
 	}
@@ -161,7 +158,9 @@ func (o Options) ItemName(i int) string {
 // spare reports whether item i is a spare part: the last SpareShare of the items.
 func (o Options) spare(i int) bool {
 	o = o.withDefaults()
-	return i >= o.Items-int(math.Round(o.SpareShare*float64(o.Items)))
+	// A negative share means none; it is kept negative through withDefaults, which is applied
+	// more than once (0 would turn back into the default).
+	return i >= o.Items-int(math.Round(math.Max(o.SpareShare, 0)*float64(o.Items)))
 }
 
 // Depot calls emit for every row of depot d, by item and then date. It panics on invalid

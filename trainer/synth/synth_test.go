@@ -159,3 +159,23 @@ func TestWeeklyAndParquet(t *testing.T) {
 		t.Fatal("weekly data ending on a Tuesday accepted")
 	}
 }
+
+// SpareShare < 0 is documented as "no spare parts"; withDefaults runs more than once per
+// option set, so the negative value must survive it.
+func TestNegativeSpareShareMeansNone(t *testing.T) {
+	for _, c := range []struct {
+		share float64
+		want  int
+	}{{-1, 0}, {0, 2}, {0.5, 10}} {
+		o := Options{Items: 20, Depots: 1, Frequency: Weekly, Periods: 10, SpareShare: c.share}
+		spares := 0
+		for i := 0; i < o.Items; i++ {
+			if strings.HasPrefix(o.ItemName(i), "FLP-SP-") {
+				spares++
+			}
+		}
+		if spares != c.want {
+			t.Errorf("SpareShare %v: %d spare items of 20, want %d", c.share, spares, c.want)
+		}
+	}
+}
