@@ -168,7 +168,7 @@ func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
 		{"drift", Options{Families: []string{models.FamilyDrift}, Workers: 1}},
 	}
 	var out bytes.Buffer
-	chosen, err := ChooseByInnerHoldout(context.Background(), es, ds, 3, &out)
+	chosen, err := ChooseByInnerHoldout(context.Background(), es, ds, 3, ChooseOneSE, &out)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -186,10 +186,51 @@ func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
 // CombinationDesigns keeps exactly the two fixed means of InnerDesigns.
 func TestCombinationDesigns(t *testing.T) {
 	ds := CombinationDesigns(Options{})
-	if len(ds) != 2 || ds[0].Name != "ets-arima-theta" || ds[1].Name != "ets-theta" {
-		t.Fatalf("designs %v, want ets-arima-theta and ets-theta", ds)
+	if len(ds) != 2 || ds[0].Name != "ets-theta" || ds[1].Name != "ets-arima-theta" {
+		t.Fatalf("designs %v, want ets-theta and ets-arima-theta (simplest first)", ds)
 	}
-	if f := ds[0].Opts.Families; len(f) != 1 || f[0] != models.FamilyETSARIMATheta {
+	if f := ds[1].Opts.Families; len(f) != 1 || f[0] != models.FamilyETSARIMATheta {
 		t.Errorf("ets-arima-theta zoo %v", f)
+	}
+}
+
+// The one-standard-error rule (Hastie, Tibshirani & Friedman 2009, section 7.10) on hand
+// numbers: the lowest mean is 1.00 with standard error 0.05, so every design up to 1.05 is
+// within reach and the first of them (the simplest) wins; "lowest" takes 1.00 itself.
+func TestChoiceRulePick(t *testing.T) {
+	nan := math.NaN()
+	for _, c := range []struct {
+		rule       ChoiceRule
+		means, ses []float64
+		want       int
+	}{
+		{ChooseOneSE, []float64{1.04, 1.00, 0.98 + 0.03}, []float64{0.02, 0.05, 0.01}, 0},
+		{ChooseOneSE, []float64{1.06, 1.04, 1.00}, []float64{0.02, 0.01, 0.05}, 1}, // 1.06 is past 1.05
+		{ChooseOneSE, []float64{1.0500, 1.00}, []float64{0.2, 0.05}, 0},            // the bound is inclusive
+		{ChooseOneSE, []float64{nan, 1.2, 1.1}, []float64{nan, 0.01, 0.2}, 1},      // a design without a score is skipped
+		{ChooseOneSE, []float64{1.2, 1.1}, []float64{0.3, nan}, 1},                 // one series: no standard error, the lowest
+		{ChooseLowest, []float64{1.04, 1.00, 1.01}, []float64{0.02, 0.05, 0.01}, 1},
+		{ChooseOneSE, []float64{nan, nan}, []float64{nan, nan}, -1},
+	} {
+		if got := c.rule.pick(c.means, c.ses); got != c.want {
+			t.Errorf("%s %v %v: picked %d, want %d", c.rule, c.means, c.ses, got, c.want)
+		}
+	}
+}
+
+// MASEStdErr by hand: MASE values 1, 2, 3, 6 have mean 3, sample variance
+// ((4 + 1 + 0 + 9) / 3) = 14/3, standard error sqrt(14/3 / 4) = 1.0801; a NaN MASE is not counted.
+func TestTallyMASEStdErr(t *testing.T) {
+	var tl Tally
+	for _, m := range []float64{1, 2, math.NaN(), 3, 6} {
+		tl.add(10, m)
+	}
+	if got, want := tl.MASEStdErr(), math.Sqrt(14.0/3/4); math.Abs(got-want) > 1e-12 {
+		t.Errorf("standard error %v, want %v", got, want)
+	}
+	var one Tally
+	one.add(1, 2)
+	if !math.IsNaN(one.MASEStdErr()) {
+		t.Errorf("one series: standard error %v, want NaN", one.MASEStdErr())
 	}
 }

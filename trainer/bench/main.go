@@ -112,14 +112,15 @@ type Design struct {
 }
 
 // InnerDesigns are the candidates ChooseByInnerHoldout weighs, fixed before any test score of
-// this list was seen (PROJECT-NOTES.md, 2026-12-02 second session):
+// this list was seen (PROJECT-NOTES.md, 2026-12-02 second session), listed simplest first
+// (fewest fits and per-series choices; the order ChooseOneSE breaks ties by):
 //
-//   - select: full zoo, best member per series by the rolling-origin backtest;
-//   - top3: full zoo, equal-weight mean of each series' 3 best members by backtest;
+//   - ets-theta: the fixed mean of ETS and Theta (this one entered the list after the last
+//     session had seen its M3 test score);
 //   - ets-arima-theta: the fixed mean of ETS, ARIMA and Theta (Petropoulos & Svetunkov 2020,
 //     "A simple combination of univariate models", IJF 36; the M4 "Comb" idea);
-//   - ets-theta: the fixed mean of ETS and Theta (this one entered the list after the last
-//     session had seen its M3 test score).
+//   - select: full zoo, best member per series by the rolling-origin backtest;
+//   - top3: full zoo, equal-weight mean of each series' 3 best members by backtest.
 func InnerDesigns(o Options) []Design {
 	sel := o
 	sel.Families, sel.CombineTop, sel.CombineMargin = nil, 0, 0
@@ -129,7 +130,7 @@ func InnerDesigns(o Options) []Design {
 	eat.Families = []string{models.FamilyETSARIMATheta}
 	et := sel
 	et.Families, et.CombineTop, et.CombineMargin = []string{models.FamilyETS, models.FamilyTheta}, 2, 1000
-	return []Design{{"select", sel}, {"top3", top}, {"ets-arima-theta", eat}, {"ets-theta", et}}
+	return []Design{{"ets-theta", et}, {"ets-arima-theta", eat}, {"select", sel}, {"top3", top}}
 }
 
 // LeanFamilies is the zoo of LeanDesigns: every family of the first session's zoo, i.e. the
@@ -141,11 +142,11 @@ var LeanFamilies = []string{models.FamilyMean, models.FamilyNaive, models.Family
 
 // LeanDesigns are the candidates of InnerDesigns without the ARIMA family, for a CPU budget
 // (chosen for cost, before any test score of select-lean or top3-lean was seen; ets-theta is
-// the same design as in InnerDesigns):
+// the same design as in InnerDesigns), simplest first:
 //
+//   - ets-theta: the fixed mean of ETS and Theta;
 //   - select-lean: LeanFamilies, best member per series by the rolling-origin backtest;
-//   - top3-lean: LeanFamilies, equal-weight mean of each series' 3 best members;
-//   - ets-theta: the fixed mean of ETS and Theta.
+//   - top3-lean: LeanFamilies, equal-weight mean of each series' 3 best members.
 func LeanDesigns(o Options) []Design {
 	var out []Design
 	for _, d := range InnerDesigns(o) {
@@ -183,11 +184,13 @@ func CombinationDesigns(o Options) []Design {
 // (in-sample scale from the shortened history). Series too short to lose h points (fewer than
 // h + 2m + 2 left) are left out of the inner holdout; of the others, every k-th of each category
 // is used (k = every, at least 1; the choice is one design per category, so a spread sample
-// keeps most of its power at a fraction of the cost). It returns the chosen design per category
+// keeps most of its power at a fraction of the cost). Per category the rule picks from the
+// designs' inner mean MASE and its standard error (ChooseOneSE or ChooseLowest; ds simplest
+// first). It returns the chosen design per category
 // and the inner MASE of every design, and writes them to w. This is a validation-set choice
 // (Tashman 2000, section 2: hold out the end of the in-sample data); the test data of the
 // entries are never read.
-func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, every int, w io.Writer) (map[string]Design, error) {
+func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, every int, rule ChoiceRule, w io.Writer) (map[string]Design, error) {
 	var inner []Entry
 	seen := map[string]int{}
 	for _, e := range entries {
@@ -216,19 +219,17 @@ func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, eve
 	for _, e := range entries {
 		cats[e.Category] = true
 	}
-	fmt.Fprintf(w, "inner holdout (last h training points, %d series), mean MASE per category:\n", len(inner))
-	for c := range cats {
-		best := -1
+	fmt.Fprintf(w, "inner holdout (last h training points, %d series), mean MASE (standard error) per category, rule %s:\n", len(inner), rule)
+	for _, c := range sortedKeys(cats) {
+		means, ses := make([]float64, len(ds)), make([]float64, len(ds))
 		for i := range ds {
-			t := scores[i].By[c]
-			if t == nil || t.MASEN == 0 {
-				continue
-			}
-			fmt.Fprintf(w, "  %-10s %-16s %.4f\n", c, ds[i].Name, t.MeanMASE())
-			if best < 0 || t.MeanMASE() < scores[best].By[c].MeanMASE() {
-				best = i
+			means[i], ses[i] = math.NaN(), math.NaN()
+			if t := scores[i].By[c]; t != nil && t.MASEN > 0 {
+				means[i], ses[i] = t.MeanMASE(), t.MASEStdErr()
+				fmt.Fprintf(w, "  %-10s %-16s %.4f (%.4f)\n", c, ds[i].Name, means[i], ses[i])
 			}
 		}
+		best := rule.pick(means, ses)
 		if best < 0 {
 			best = 0
 		}
@@ -236,6 +237,54 @@ func ChooseByInnerHoldout(ctx context.Context, entries []Entry, ds []Design, eve
 		fmt.Fprintf(w, "  %-10s chosen: %s\n", c, ds[best].Name)
 	}
 	return out, nil
+}
+
+// ChoiceRule is how ChooseByInnerHoldout turns the designs' inner scores into one choice.
+type ChoiceRule string
+
+const (
+	// ChooseOneSE is the one-standard-error rule (Breiman, Friedman, Olshen & Stone 1984,
+	// "Classification and Regression Trees", section 3.4.3; Hastie, Tibshirani & Friedman,
+	// "The Elements of Statistical Learning", 2nd ed. 2009, section 7.10): the simplest design
+	// (first in the list) whose mean MASE is at most the lowest mean plus that lowest design's
+	// standard error over series. A more complex design must beat the simpler ones by more than
+	// the noise of the holdout itself.
+	ChooseOneSE ChoiceRule = "one-se"
+	// ChooseLowest takes the design with the lowest mean MASE (ties to the first).
+	ChooseLowest ChoiceRule = "lowest"
+)
+
+// pick returns the index chosen from the per-design means and standard errors (NaN: the
+// design has no score), or -1 if none has one.
+func (r ChoiceRule) pick(means, ses []float64) int {
+	best := -1
+	for i, m := range means {
+		if !math.IsNaN(m) && (best < 0 || m < means[best]) {
+			best = i
+		}
+	}
+	if best < 0 || r != ChooseOneSE {
+		return best
+	}
+	limit := means[best]
+	if se := ses[best]; !math.IsNaN(se) {
+		limit += se
+	}
+	for i, m := range means {
+		if !math.IsNaN(m) && m <= limit {
+			return i
+		}
+	}
+	return best
+}
+
+func sortedKeys(m map[string]bool) []string {
+	out := make([]string, 0, len(m))
+	for k := range m {
+		out = append(out, k)
+	}
+	sort.Strings(out)
+	return out
 }
 
 // RunChosen runs, per category, the design chosen for it and merges the results into one
@@ -314,7 +363,8 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	dataDir := fs.String("data", "", "directory in the M3 CSV layout (train.csv, test.csv, series.csv, published_forecasts.csv)")
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
 	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
-	candidates := fs.String("candidates", "combinations", `with --design inner: "combinations" (CombinationDesigns), "lean" (LeanDesigns, no ARIMA) or "full" (InnerDesigns)`)
+	candidates := fs.String("candidates", "lean", `with --design inner: "lean" (LeanDesigns, no ARIMA), "combinations" (CombinationDesigns) or "full" (InnerDesigns)`)
+	choice := fs.String("choice", string(ChooseOneSE), `with --design inner: "one-se" (the simplest design within one standard error of the lowest inner MASE) or "lowest"`)
 	innerEvery := fs.Int("inner-every", 2, "with --design inner: use every K-th eligible series of each category for the inner holdout")
 	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
@@ -348,6 +398,11 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	if *every < 1 || *innerEvery < 1 {
 		fmt.Fprintln(stderr, "bench: --every and --inner-every must be >= 1")
+		return 2
+	}
+	rule := ChoiceRule(*choice)
+	if rule != ChooseOneSE && rule != ChooseLowest {
+		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
 		return 2
 	}
 	var cands func(Options) []Design
@@ -406,7 +461,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	if *design == "inner" {
 		var chosen map[string]Design
 		cpu0 := cpuTime()
-		if chosen, err = ChooseByInnerHoldout(ctx, entries, cands(o), *innerEvery, stdout); err == nil {
+		if chosen, err = ChooseByInnerHoldout(ctx, entries, cands(o), *innerEvery, rule, stdout); err == nil {
 			choiceCPU := cpuTime() - cpu0
 			rep, results, err = RunChosen(ctx, entries, chosen)
 			if err == nil {

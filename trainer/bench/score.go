@@ -17,6 +17,7 @@ type Tally struct {
 	N               int
 	SMAPE, MASE     float64 // sums over series
 	MASEN           int     // series with a defined MASE
+	MASESq          float64 // sum of squared MASE over the same series (for MASEStdErr)
 	Expected        float64 // sum of backtest expectations (in the selection metric)
 	ExpectedN       int
 	Failed          int
@@ -28,6 +29,7 @@ func (t *Tally) add(smape, mase float64) {
 	t.SMAPE += smape
 	if !math.IsNaN(mase) {
 		t.MASE += mase
+		t.MASESq += mase * mase
 		t.MASEN++
 	}
 }
@@ -37,6 +39,18 @@ func (t Tally) MeanSMAPE() float64 { return t.SMAPE / float64(t.N) }
 
 // MeanMASE is the mean MASE over series with a defined scale.
 func (t Tally) MeanMASE() float64 { return t.MASE / float64(t.MASEN) }
+
+// MASEStdErr is the standard error of MeanMASE over series, s/sqrt(n) with the sample standard
+// deviation s = sqrt((sum x^2 - n mean^2)/(n-1)); NaN below two series.
+func (t Tally) MASEStdErr() float64 {
+	n := float64(t.MASEN)
+	if t.MASEN < 2 {
+		return math.NaN()
+	}
+	m := t.MASE / n
+	v := (t.MASESq - n*m*m) / (n - 1)
+	return math.Sqrt(math.Max(v, 0) / n)
+}
 
 // Report is the accuracy of one method by category and overall.
 type Report struct {
