@@ -366,7 +366,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	candidates := fs.String("candidates", "lean", `with --design inner: "lean" (LeanDesigns, no ARIMA), "combinations" (CombinationDesigns) or "full" (InnerDesigns)`)
 	choice := fs.String("choice", string(ChooseOneSE), `with --design inner: "one-se" (the simplest design within one standard error of the lowest inner MASE) or "lowest"`)
 	innerEvery := fs.Int("inner-every", 2, "with --design inner: use every K-th eligible series of each category for the inner holdout")
-	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS fits forward (selection.Config.BacktestUpdate)")
+	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS, ARIMA and ETS+ARIMA+Theta fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")

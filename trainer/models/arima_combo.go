@@ -52,6 +52,7 @@ func (t *trioModel) MinLength(m int) int {
 // those used). It fails only when no member fits.
 func (t *trioModel) Fit(y []float64, m int) (Fitted, error) {
 	var fits []Fitted
+	var used []Model
 	var errs []error
 	for _, mm := range t.members {
 		if len(y) < mm.MinLength(m) {
@@ -63,6 +64,7 @@ func (t *trioModel) Fit(y []float64, m int) (Fitted, error) {
 			continue
 		}
 		fits = append(fits, f)
+		used = append(used, mm)
 	}
 	if len(fits) == 0 {
 		if len(errs) == 0 {
@@ -70,13 +72,47 @@ func (t *trioModel) Fit(y []float64, m int) (Fitted, error) {
 		}
 		return nil, fmt.Errorf("models: %s: no member could be fitted: %w", t.name, errors.Join(errs...))
 	}
-	return &trioFit{fits: fits, n: len(y)}, nil
+	return &trioFit{fits: fits, models: used, n: len(y), m: m}, nil
 }
 
 // trioFit is the combination of the fitted members. It implements Fitted.
 type trioFit struct {
-	fits []Fitted
-	n    int
+	fits   []Fitted
+	models []Model // models[i] fitted fits[i]
+	n, m   int     // observations fitted, season length
+}
+
+// Update carries the combination forward to y, a longer history of which the fitted one is a
+// prefix (backtest.Updater): members whose fits can be updated (ETS, ARIMA) keep their
+// estimates, the others (Theta, cheap to fit) are refitted on y. The members stay those of the
+// fit; one that fails on y is left out, as in Fit, and the update fails only when none is left.
+func (f *trioFit) Update(y []float64) (Fitted, error) {
+	if len(y) < f.n {
+		return nil, fmt.Errorf("models: %s: update needs at least the %d fitted observations, got %d", FamilyETSARIMATheta, f.n, len(y))
+	}
+	out := &trioFit{n: len(y), m: f.m}
+	var errs []error
+	for i, fit := range f.fits {
+		var g Fitted
+		var err error
+		if u, ok := fit.(interface {
+			Update([]float64) (Fitted, error)
+		}); ok {
+			g, err = u.Update(y)
+		} else {
+			g, err = f.models[i].Fit(y, f.m)
+		}
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		out.fits = append(out.fits, g)
+		out.models = append(out.models, f.models[i])
+	}
+	if len(out.fits) == 0 {
+		return nil, fmt.Errorf("models: %s: no member could be updated: %w", FamilyETSARIMATheta, errors.Join(errs...))
+	}
+	return out, nil
 }
 
 // Name lists the members, e.g. "mean(ETS(M,A,N),ARIMA(0,1,1),Theta)".

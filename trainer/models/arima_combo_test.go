@@ -48,3 +48,82 @@ func TestETSARIMAThetaIsTheMemberMean(t *testing.T) {
 		t.Errorf("name %q does not list the members", n)
 	}
 }
+
+// Updating carries the estimates forward (Tashman 2000, section 3, "updating"): an ARIMA fit
+// updated on its own history has the same log likelihood, on a longer one it equals ARIMAAt at
+// the same coefficients, and a shorter history is refused. The combination updates ETS and
+// ARIMA that way and refits Theta, so its forecast is the mean of those three.
+func TestARIMAAndTrioUpdate(t *testing.T) {
+	y := airPassengers
+	fit, err := SelectARIMA(y[:120], 12, ARIMABounds{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	same, err := fit.Update(y[:120])
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := math.Abs(same.(*ARIMAFit).LogLik() - fit.LogLik()); d > 1e-9*math.Abs(fit.LogLik()) {
+		t.Errorf("update on the fitted history changes the log likelihood by %g", d)
+	}
+	longer, err := fit.Update(y)
+	if err != nil {
+		t.Fatal(err)
+	}
+	at, err := ARIMAAt(y, 12, fit.Order(), fit.Coef())
+	if err != nil {
+		t.Fatal(err)
+	}
+	a, b := longer.Forecast(6, nil).Mean, at.Forecast(6, nil).Mean
+	for k := range a {
+		if a[k] != b[k] {
+			t.Errorf("step %d: updated %v, ARIMAAt %v", k+1, a[k], b[k])
+		}
+	}
+	if _, err := fit.Update(y[:100]); err == nil {
+		t.Error("update on a shorter history: no error")
+	}
+
+	trio, err := New(Spec{Family: FamilyETSARIMATheta})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tf, err := trio.Fit(y[:120], 12)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tu, err := tf.(interface {
+		Update([]float64) (Fitted, error)
+	}).Update(y)
+	if err != nil {
+		t.Fatal(err)
+	}
+	members := tf.(*trioFit).fits
+	etsU, err := members[0].(*ETSFit).Update(y)
+	if err != nil {
+		t.Fatal(err)
+	}
+	arU, err := members[1].(*ARIMAFit).Update(y)
+	if err != nil {
+		t.Fatal(err)
+	}
+	th, err := New(Spec{Family: FamilyTheta})
+	if err != nil {
+		t.Fatal(err)
+	}
+	thF, err := th.Fit(y, 12)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := tu.Forecast(6, nil).Mean
+	e, r, h := etsU.Forecast(6, nil).Mean, arU.Forecast(6, nil).Mean, thF.Forecast(6, nil).Mean
+	for k := range got {
+		want := (e[k] + r[k] + h[k]) / 3
+		if math.Abs(got[k]-want) > 1e-9*math.Abs(want) {
+			t.Errorf("step %d: updated combination %v, mean of updated members %v", k+1, got[k], want)
+		}
+	}
+	if tu.Name() == "" || tu.(*trioFit).n != len(y) {
+		t.Errorf("updated combination %q covers %d observations, want %d", tu.Name(), tu.(*trioFit).n, len(y))
+	}
+}

@@ -318,3 +318,14 @@ func ARIMAAt(y []float64, m int, o ARIMAOrder, c ARIMACoef) (*ARIMAFit, error) {
 	ft.setPolys(cw)
 	return ft.finish(cw)
 }
+
+// Update returns the fit with the same order and coefficients filtered over y, a longer
+// history of which the fitted one is a prefix (the backtest's "updating", Tashman 2000 section
+// 3; see backtest.Updater): ARIMAAt at the fit's coefficients, so the likelihood, criteria and
+// residuals are those of y, and an order chosen by SelectARIMA stays the chosen one.
+func (f *ARIMAFit) Update(y []float64) (Fitted, error) {
+	if len(y) < len(f.y) {
+		return nil, fmt.Errorf("models: ARIMA: update needs at least the %d fitted observations, got %d", len(f.y), len(y))
+	}
+	return ARIMAAt(y, f.m, f.order, f.coef)
+}
