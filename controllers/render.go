@@ -65,9 +65,10 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 		},
 		Horizon: int(spec.Horizon),
 		Selection: runconfig.Selection{
-			Metric:  string(orDefault(spec.Selection.Metric, forecastingv1alpha1.MetricMASE)),
-			Origins: int(orDefault(spec.Selection.BacktestOrigins, defaultOrigins)),
-			Step:    int(orDefault(spec.Selection.BacktestStep, defaultStep)),
+			Metric:         string(orDefault(spec.Selection.Metric, forecastingv1alpha1.MetricMASE)),
+			Origins:        int(orDefault(spec.Selection.BacktestOrigins, defaultOrigins)),
+			Step:           int(orDefault(spec.Selection.BacktestStep, defaultStep)),
+			UpdateBacktest: orDefault(spec.Selection.BacktestRefit, forecastingv1alpha1.RefitOnce) == forecastingv1alpha1.RefitOnce,
 		},
 		Sharding: runconfig.Sharding{
 			TargetSeriesPerShard: int(orDefault(spec.Sharding.TargetSeriesPerShard, defaultSeriesPerShard)),

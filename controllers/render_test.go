@@ -84,7 +84,7 @@ func TestRenderConfig(t *testing.T) {
 			{Family: "ETS", ETS: &models.ETSOptions{Trends: []string{"N", "Ad"}}},
 			{Family: "TSB", Name: "tsb-slow", SeasonLength: 1, Smoothing: &models.SmoothingOptions{Alpha: 0.1, Beta: 0.05}},
 		},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean"},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean", UpdateBacktest: true},
 		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 2000},
 		// Portfolio minimum 100 over all series; one series is judged on a full horizon (12).
 		Drift: runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 12},
@@ -145,19 +145,38 @@ func TestRenderConfigDefaults(t *testing.T) {
 		t.Errorf("columns (-want,+got):\n%s", diff)
 	}
 	checks := map[string]struct{ got, want any }{
-		"quantiles":      {got.Quantiles, []float64{0.1, 0.5, 0.9}},
-		"trigger":        {got.Trigger, "Manual"},
-		"scheduled time": {got.ScheduledTime, time.Time{}},
-		"week anchor":    {got.Source.WeekAnchor, ""},
-		"non-negative":   {got.Source.NonNegative, false},
-		"drift metric":   {got.Drift.Metric, "RMSSE"},
-		"combine":        {got.Selection.CombineTop, 0},
-		"partitioning":   {got.Source.Partitioning, runconfig.PartitionNone},
-		"buckets":        {got.Sharding.Buckets, 0},
+		"quantiles":       {got.Quantiles, []float64{0.1, 0.5, 0.9}},
+		"trigger":         {got.Trigger, "Manual"},
+		"scheduled time":  {got.ScheduledTime, time.Time{}},
+		"week anchor":     {got.Source.WeekAnchor, ""},
+		"non-negative":    {got.Source.NonNegative, false},
+		"drift metric":    {got.Drift.Metric, "RMSSE"},
+		"combine":         {got.Selection.CombineTop, 0},
+		"update backtest": {got.Selection.UpdateBacktest, true},
+		"partitioning":    {got.Source.Partitioning, runconfig.PartitionNone},
+		"buckets":         {got.Sharding.Buckets, 0},
 	}
 	for name, c := range checks {
 		if diff := cmp.Diff(c.want, c.got); diff != "" {
 			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+}
+
+// backtestRefit reaches the trainer: Once (the default) carries fits forward between backtest
+// origins, EveryOrigin re-estimates at each.
+func TestRenderBacktestRefit(t *testing.T) {
+	for refit, want := range map[forecastingv1alpha1.BacktestRefit]bool{
+		"": true, forecastingv1alpha1.RefitOnce: true, forecastingv1alpha1.RefitEveryOrigin: false,
+	} {
+		fp := fenwickPortfolio()
+		fp.Spec.Selection.BacktestRefit = refit
+		got, err := renderConfig(fp, fenwickRun("r"), "")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Selection.UpdateBacktest != want {
+			t.Errorf("backtestRefit %q: updateBacktest %v, want %v", refit, got.Selection.UpdateBacktest, want)
 		}
 	}
 }

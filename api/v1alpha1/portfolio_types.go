@@ -110,6 +110,16 @@ const (
 // +kubebuilder:validation:Enum=Mean;Median
 type CombineMethod string
 
+// BacktestRefit says when backtest fits are estimated: Once or EveryOrigin.
+// +kubebuilder:validation:Enum=Once;EveryOrigin
+type BacktestRefit string
+
+// The backtest refit choices.
+const (
+	RefitOnce        BacktestRefit = "Once"
+	RefitEveryOrigin BacktestRefit = "EveryOrigin"
+)
+
 // The combination methods.
 const (
 	CombineMean   CombineMethod = "Mean"
@@ -462,6 +472,17 @@ type SelectionSpec struct {
 	// +kubebuilder:validation:Minimum=1
 	// +kubebuilder:validation:Maximum=366
 	BacktestStep int32 `json:"backtestStep,omitempty"`
+
+	// backtestRefit says when members are estimated during the backtest. Once (default): each
+	// member is fitted at the earliest origin and carried to the later origins with its
+	// estimates fixed, re-running only its filter where the family allows it (ETS, ARIMA and
+	// their combination; the others are refitted); EveryOrigin: every member is re-estimated at
+	// every origin (Tashman 2000, "updating" against "recalibrating"). With Once an ETS or
+	// ARIMA member is estimated once per series whatever backtestOrigins is; the published
+	// forecasts are fitted on the whole history either way.
+	// +optional
+	// +kubebuilder:default=Once
+	BacktestRefit BacktestRefit `json:"backtestRefit,omitempty"`
 
 	// combine, when set, also scores the combination of the best members and publishes it
 	// for series where it backtests best.

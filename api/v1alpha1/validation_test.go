@@ -96,6 +96,7 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Output.Format).To(Equal(forecastingv1alpha1.FormatParquet))
 		Expect(fp.Spec.Selection.Metric).To(Equal(forecastingv1alpha1.MetricMASE))
 		Expect(fp.Spec.Selection.BacktestOrigins).To(Equal(int32(3)))
+		Expect(fp.Spec.Selection.BacktestRefit).To(Equal(forecastingv1alpha1.RefitOnce))
 		Expect(fp.Spec.Sharding.TargetSeriesPerShard).To(Equal(int32(2000)))
 		Expect(fp.Spec.Sharding.MaxParallel).To(Equal(int32(8)))
 		Expect(fp.Spec.Drift.ThresholdPercent).To(Equal(int32(130)))
@@ -295,6 +296,9 @@ var _ = Describe("CRD validation", func() {
 		Entry("no backtest origins", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "selection", "backtestOrigins") },
 			want:   []string{"spec.selection.backtestOrigins"}}),
+		Entry("an unknown backtest refit", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Sometimes", "spec", "selection", "backtestRefit") },
+			want:   []string{"spec.selection.backtestRefit", "Unsupported value", "Once", "EveryOrigin"}}),
 		Entry("combining one member", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(1), "spec", "selection", "combine", "top") },
 			want:   []string{"spec.selection.combine.top", "greater than or equal to 2"}}),

@@ -647,3 +647,19 @@ func TestRepublishAfterLateShard(t *testing.T) {
 		t.Fatalf("manifest %+v", m.Totals)
 	}
 }
+
+// The run configuration's updateBacktest reaches selection (the controller renders it from
+// spec.selection.backtestRefit).
+func TestSelectionConfigUpdateBacktest(t *testing.T) {
+	for _, on := range []bool{false, true} {
+		cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
+		cfg.Selection.UpdateBacktest = on
+		sc, err := selectionConfig(cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if sc.BacktestUpdate != on {
+			t.Errorf("updateBacktest %v: selection BacktestUpdate %v", on, sc.BacktestUpdate)
+		}
+	}
+}

@@ -65,9 +65,10 @@ func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
 		Horizon: cfg.Horizon, Levels: cfg.Quantiles, Zoo: cfg.Zoo,
 		Metric: backtest.Metric(cfg.Selection.Metric), Origins: cfg.Selection.Origins, Step: cfg.Selection.Step,
 		CombineTop: cfg.Selection.CombineTop, CombineMethod: cfg.Selection.CombineMethod,
-		NonNegative: cfg.Source.NonNegative,
-		Clean:       series.CleanRules{NonNegative: cfg.Source.NonNegative},
-		Features:    cfg.Features,
+		BacktestUpdate: cfg.Selection.UpdateBacktest,
+		NonNegative:    cfg.Source.NonNegative,
+		Clean:          series.CleanRules{NonNegative: cfg.Source.NonNegative},
+		Features:       cfg.Features,
 	}
 	if err := sc.Validate(); err != nil {
 		return sc, fmt.Errorf("%w: %w", ErrConfig, err)

@@ -108,6 +108,10 @@ type Selection struct {
 	Step          int    `json:"step"`
 	CombineTop    int    `json:"combineTop,omitempty"`
 	CombineMethod string `json:"combineMethod,omitempty"`
+	// UpdateBacktest fits each member once, at the earliest backtest origin, and carries the
+	// fit forward to the later ones (selection.Config.BacktestUpdate); false re-estimates at
+	// every origin.
+	UpdateBacktest bool `json:"updateBacktest,omitempty"`
 }
 
 // Sharding configures how plan cuts units into shards.
