@@ -95,6 +95,8 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 		c.Selection.CombineTop = int(cb.Top)
 		// The trainer names the methods in lower case (trainer/selection: "mean", "median").
 		c.Selection.CombineMethod = strings.ToLower(string(orDefault(cb.Method, forecastingv1alpha1.CombineMean)))
+		// The API speaks percent of the best member's score, the trainer a fraction.
+		c.Selection.CombineMargin = float64(cb.MarginPercent) / 100
 	}
 	for i, m := range spec.Models {
 		ms, err := renderModel(m)

@@ -152,6 +152,7 @@ func TestRenderConfigDefaults(t *testing.T) {
 		"non-negative":    {got.Source.NonNegative, false},
 		"drift metric":    {got.Drift.Metric, "RMSSE"},
 		"combine":         {got.Selection.CombineTop, 0},
+		"combine margin":  {got.Selection.CombineMargin, 0.0},
 		"update backtest": {got.Selection.UpdateBacktest, true},
 		"partitioning":    {got.Source.Partitioning, runconfig.PartitionNone},
 		"buckets":         {got.Sharding.Buckets, 0},
@@ -177,6 +178,22 @@ func TestRenderBacktestRefit(t *testing.T) {
 		}
 		if got.Selection.UpdateBacktest != want {
 			t.Errorf("backtestRefit %q: updateBacktest %v, want %v", refit, got.Selection.UpdateBacktest, want)
+		}
+	}
+}
+
+// combine.marginPercent reaches the trainer as a fraction of the best member's score: absent
+// (the API default 0) renders 0, 10000 renders 100 (in effect a fixed combination).
+func TestRenderCombineMargin(t *testing.T) {
+	for percent, want := range map[int32]float64{0: 0, 25: 0.25, 10000: 100} {
+		fp := fenwickPortfolio()
+		fp.Spec.Selection.Combine.MarginPercent = percent
+		got, err := renderConfig(fp, fenwickRun("r"), "")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Selection.CombineMargin != want {
+			t.Errorf("marginPercent %d: combineMargin %v, want %v", percent, got.Selection.CombineMargin, want)
 		}
 	}
 }

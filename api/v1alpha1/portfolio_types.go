@@ -485,7 +485,7 @@ type SelectionSpec struct {
 	BacktestRefit BacktestRefit `json:"backtestRefit,omitempty"`
 
 	// combine, when set, also scores the combination of the best members and publishes it
-	// for series where it backtests best.
+	// for series where it backtests best, or within combine.marginPercent of the best member.
 	// +optional
 	Combine *CombineSpec `json:"combine,omitempty"`
 }
@@ -502,6 +502,20 @@ type CombineSpec struct {
 	// +optional
 	// +kubebuilder:default=Mean
 	Method CombineMethod `json:"method,omitempty"`
+
+	// marginPercent prefers the combination: it is published unless the best single member's
+	// backtest score is lower than the combination's by more than this percent of the best
+	// member's score (the combination is kept while combined <= best * (1 + marginPercent/100)).
+	// 0 (default) publishes it only where it backtests strictly better; a large value such as
+	// 10000 in effect always publishes it, a fixed combination of the top members. Fixed
+	// combinations are robust against the selection noise of a few backtest origins
+	// (Petropoulos & Svetunkov 2020, "A simple combination of univariate models"; the M4
+	// results, Makridakis, Spiliotis & Assimakopoulos 2020).
+	// +optional
+	// +kubebuilder:default=0
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=10000
+	MarginPercent int32 `json:"marginPercent,omitempty"`
 }
 
 // ShardingSpec limits how work is cut and run.

@@ -129,6 +129,29 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Models[1].Regression.Penalty).To(Equal("0.25"))
 	})
 
+	It("defaults the combination margin to 0 and keeps 10000 as written", func() {
+		for name, margin := range map[string]any{"combine-default": nil, "combine-fixed": int64(10000)} {
+			u := validPortfolio(name)
+			set(u, map[string]any{"top": int64(2)}, "spec", "selection", "combine")
+			if margin != nil {
+				set(u, margin, "spec", "selection", "combine", "marginPercent")
+			}
+			Expect(k8sClient.Create(ctx, u)).To(Succeed())
+			// Read back untyped: the Go field's zero value would hide a missing default.
+			got := &unstructured.Unstructured{}
+			got.SetGroupVersionKind(u.GroupVersionKind())
+			Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), got)).To(Succeed())
+			v, found, err := unstructured.NestedInt64(got.Object, "spec", "selection", "combine", "marginPercent")
+			Expect(err).NotTo(HaveOccurred())
+			Expect(found).To(BeTrue(), "%s: spec.selection.combine.marginPercent was not defaulted", name)
+			want := int64(0)
+			if margin != nil {
+				want = margin.(int64)
+			}
+			Expect(v).To(Equal(want), name)
+		}
+	})
+
 	It("accepts every sample in config/samples", func() {
 		files, err := filepath.Glob(filepath.Join(repoRoot, "config", "samples", "forecasting_*.yaml"))
 		Expect(err).NotTo(HaveOccurred())
@@ -305,6 +328,16 @@ var _ = Describe("CRD validation", func() {
 		Entry("combining more members than the zoo has", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(5), "spec", "selection", "combine", "top") },
 			want:   []string{"spec", "selection.combine.top must not exceed the number of models"}}),
+		Entry("a combination margin above 10000 percent", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, map[string]any{"top": int64(2), "marginPercent": int64(10001)}, "spec", "selection", "combine")
+			},
+			want: []string{"spec.selection.combine.marginPercent", "less than or equal to 10000"}}),
+		Entry("a negative combination margin", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, map[string]any{"top": int64(2), "marginPercent": int64(-1)}, "spec", "selection", "combine")
+			},
+			want: []string{"spec.selection.combine.marginPercent", "greater than or equal to 0"}}),
 		Entry("no parallel pods", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(0), "spec", "sharding", "maxParallel") },
 			want:   []string{"spec.sharding.maxParallel"}}),

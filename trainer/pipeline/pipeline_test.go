@@ -48,20 +48,42 @@ func testConfig(run, in, out string) *runconfig.Config {
 // depotCSV is one depot's history: items x days of weekly-seasonal demand ending the day
 // before anchor. bad names an item whose third row has an unparsable value.
 func depotCSV(depot string, items []string, days int, bad string) []byte {
+	return depotRows(depot, items, days, func(item string, n, d int, day time.Time) string {
+		if item == bad && d == days-3 {
+			return "n/a"
+		}
+		return fmt.Sprintf("%d", 10+n+3*int(day.Weekday())+(d%5))
+	})
+}
+
+// depotRows writes one depot's daily history of items, ending the day before anchor: units
+// is units(item, its index n, d days before the end, the day); promo is set every ninth day.
+func depotRows(depot string, items []string, days int, units func(item string, n, d int, day time.Time) string) []byte {
 	var b bytes.Buffer
 	b.WriteString("item,depot,date,units,promo\n")
 	end := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	for n, item := range items {
 		for d := days - 1; d >= 0; d-- {
 			day := end.AddDate(0, 0, -d)
-			v := fmt.Sprintf("%d", 10+n+3*int(day.Weekday())+(d%5))
-			if item == bad && d == days-3 {
-				v = "n/a"
-			}
-			fmt.Fprintf(&b, "%s,%s,%s,%s,%d\n", item, depot, day.Format("2006-01-02"), v, d%9/8)
+			fmt.Fprintf(&b, "%s,%s,%s,%s,%d\n", item, depot, day.Format("2006-01-02"), units(item, n, d, day), d%9/8)
 		}
 	}
 	return b.Bytes()
+}
+
+// unitModels reads a published unit's models table.
+func unitModels(t *testing.T, out *store.Store, u ManifestUnit, format string) []tables.ModelRow {
+	t.Helper()
+	f, _ := u.file(TableModels)
+	b, err := out.Get(context.Background(), f.Key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rows, err := tables.ReadModels(bytes.NewReader(b), format)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return rows
 }
 
 // putInput writes three depot objects (7 series, one of them bad) through st.
@@ -660,6 +682,66 @@ func TestSelectionConfigUpdateBacktest(t *testing.T) {
 		}
 		if sc.BacktestUpdate != on {
 			t.Errorf("updateBacktest %v: selection BacktestUpdate %v", on, sc.BacktestUpdate)
+		}
+	}
+}
+
+// weekendCSV is one depot's daily history of items whose demand steps up by 25 units on
+// Saturdays and Sundays, with a small four-day wiggle ((3d) mod 4) on top (invented Fenwick
+// Lane Provisions data).
+func weekendCSV(depot string, items []string, days int) []byte {
+	return depotRows(depot, items, days, func(_ string, n, d int, day time.Time) string {
+		v := 40 + 5*n + (3*d)%4
+		if wd := day.Weekday(); wd == time.Saturday || wd == time.Sunday {
+			v += 25
+		}
+		return fmt.Sprintf("%d", v)
+	})
+}
+
+// The run configuration's combineMargin reaches selection (the controller renders it from
+// spec.selection.combine.marginPercent). On weekend-stepped demand the seasonal naive member
+// misses only the wiggle, while the mean of it and the naive member also carries half of
+// each weekend step, so without a margin every series publishes SeasonalNaive; with margin
+// 100 (marginPercent 10000) every series publishes the combination, whose published backtest
+// score is the higher one.
+func TestCombineMarginChoosesTheCombination(t *testing.T) {
+	ctx := context.Background()
+	in := mustOpen(t, "mem://flp-margin-in/")
+	if err := in.Put(ctx, "in/depot-ashby.csv", weekendCSV("ashby", []string{"FLP-OATS-1KG", "FLP-TEA-80"}, 42)); err != nil {
+		t.Fatal(err)
+	}
+	chosen := func(run string, margin float64) map[string]tables.ModelRow {
+		cfg := testConfig(run, "mem://flp-margin-in/in/", "mem://flp-margin-"+run+"/")
+		cfg.Selection.CombineTop, cfg.Selection.CombineMethod = 2, "mean"
+		cfg.Selection.CombineMargin = margin
+		if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
+			t.Fatal(err)
+		}
+		out := mustOpen(t, cfg.Output.URI)
+		rows := map[string]tables.ModelRow{}
+		for _, u := range checkPublished(t, out, run).Units {
+			for _, r := range unitModels(t, out, u, "csv") {
+				rows[r.Series] = r
+			}
+		}
+		if len(rows) != 2 {
+			t.Fatalf("run %s: %d series in the models table, want 2", run, len(rows))
+		}
+		return rows
+	}
+	single, combined := chosen("flp-0001", 0), chosen("flp-0002", 100)
+	const combo = "Combination(mean: Naive, SeasonalNaive)"
+	for key, s := range single {
+		c := combined[key]
+		if s.Model != models.FamilySeasonalNaive {
+			t.Errorf("%s without a margin: chose %s (score %v), want SeasonalNaive", key, s.Model, s.Score)
+		}
+		if c.Model != combo {
+			t.Errorf("%s with margin 100: chose %s (score %v), want %s", key, c.Model, c.Score, combo)
+		}
+		if !(c.Score > s.Score) {
+			t.Errorf("%s: combination score %v is not above the single member's %v, so the margin was not needed", key, c.Score, s.Score)
 		}
 	}
 }

@@ -20,7 +20,6 @@ import (
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/synth"
-	"almanac.dev/almanac/trainer/tables"
 )
 
 // promoEnd is the last week of history in the promotion tests (a Monday); the plan follows.
@@ -83,16 +82,7 @@ func TestPromotionPortfolioEndToEnd(t *testing.T) {
 	m := checkPublished(t, out, cfg.Run)
 	lassoChosen, promoKept := 0, 0
 	for _, u := range m.Units {
-		f, _ := u.file(TableModels)
-		b, err := out.Get(ctx, f.Key)
-		if err != nil {
-			t.Fatal(err)
-		}
-		rows, err := tables.ReadModels(bytes.NewReader(b), "csv")
-		if err != nil {
-			t.Fatal(err)
-		}
-		for _, r := range rows {
+		for _, r := range unitModels(t, out, u, "csv") {
 			kept, ok := r.Features[models.FamilyLasso]
 			if strings.HasPrefix(r.Model, "Lasso") != ok {
 				t.Errorf("%s: model %q with kept features %v: features must be listed exactly for a chosen feature member", r.Series, r.Model, r.Features)

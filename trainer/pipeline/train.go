@@ -65,6 +65,7 @@ func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
 		Horizon: cfg.Horizon, Levels: cfg.Quantiles, Zoo: cfg.Zoo,
 		Metric: backtest.Metric(cfg.Selection.Metric), Origins: cfg.Selection.Origins, Step: cfg.Selection.Step,
 		CombineTop: cfg.Selection.CombineTop, CombineMethod: cfg.Selection.CombineMethod,
+		CombineMargin:  cfg.Selection.CombineMargin,
 		BacktestUpdate: cfg.Selection.UpdateBacktest,
 		NonNegative:    cfg.Source.NonNegative,
 		Clean:          series.CleanRules{NonNegative: cfg.Source.NonNegative},

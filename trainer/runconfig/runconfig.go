@@ -7,6 +7,7 @@ package runconfig
 import (
 	"encoding/json"
 	"fmt"
+	"math"
 	"os"
 	"slices"
 	"time"
@@ -108,6 +109,11 @@ type Selection struct {
 	Step          int    `json:"step"`
 	CombineTop    int    `json:"combineTop,omitempty"`
 	CombineMethod string `json:"combineMethod,omitempty"`
+	// CombineMargin is a fraction >= 0 (selection.Config.CombineMargin): the combination is
+	// chosen unless the best single member's backtest score is lower than the combination's by
+	// more than this fraction of the best member's score. 0 chooses it only when strictly
+	// better; the controller renders spec.selection.combine.marginPercent / 100.
+	CombineMargin float64 `json:"combineMargin,omitempty"`
 	// UpdateBacktest fits each member once, at the earliest backtest origin, and carries the
 	// fit forward to the later ones (selection.Config.BacktestUpdate); false re-estimates at
 	// every origin.
@@ -188,6 +194,8 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("source.partitioning: %q is not %q, %q or %q", c.Source.Partitioning, PartitionNone, PartitionObject, PartitionRowGroup)
 	case c.Source.Partitioning == PartitionRowGroup && c.Source.Format != "parquet":
 		return fmt.Errorf("source.partitioning: %q needs source.format parquet", PartitionRowGroup)
+	case c.Selection.CombineMargin < 0 || math.IsNaN(c.Selection.CombineMargin):
+		return fmt.Errorf("selection.combineMargin: must be >= 0, got %v", c.Selection.CombineMargin)
 	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
 		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
 	}

@@ -1,6 +1,7 @@
 package runconfig
 
 import (
+	"math"
 	"strings"
 	"testing"
 
@@ -45,7 +46,10 @@ func TestValidate(t *testing.T) {
 			c.Source.Partitioning = PartitionRowGroup
 			c.Source.Format = "parquet"
 		}, ""},
-		"negative drift ratio": {func(c *Config) { c.Drift.ThresholdRatio = -1 }, "drift"},
+		"negative drift ratio":    {func(c *Config) { c.Drift.ThresholdRatio = -1 }, "drift"},
+		"combine margin 100":      {func(c *Config) { c.Selection.CombineMargin = 100 }, ""},
+		"combine margin negative": {func(c *Config) { c.Selection.CombineMargin = -0.01 }, "selection.combineMargin"},
+		"combine margin NaN":      {func(c *Config) { c.Selection.CombineMargin = math.NaN() }, "selection.combineMargin"},
 		"features with a known covariate": {func(c *Config) {
 			c.Source.Columns.Covariates = []string{"promo_flag", "price"}
 			c.Features = &features.Config{Lags: []int{1, 52}, Covariates: []string{"price"}}
@@ -84,13 +88,14 @@ func TestParseNamesTheFile(t *testing.T) {
 	b := []byte(`{"run":"r1","source":{"uri":"mem://in/","format":"csv","partitioning":"object",
 		"columns":{"series":["item"],"date":"date","value":"units"},"frequency":"daily"},
 		"output":{"uri":"mem://out/"},"horizon":7,"zoo":[{"family":"Naive"}],
+		"selection":{"combineMargin":0.25},
 		"sharding":{"targetSeriesPerShard":10,"buckets":8}}`)
 	c, err := Parse(b, "inline")
 	if err != nil {
 		t.Fatal(err)
 	}
-	if c.Source.Partitioning != PartitionObject || c.Sharding.Buckets != 8 {
-		t.Fatalf("new fields not decoded: %+v %+v", c.Source, c.Sharding)
+	if c.Source.Partitioning != PartitionObject || c.Sharding.Buckets != 8 || c.Selection.CombineMargin != 0.25 {
+		t.Fatalf("new fields not decoded: %+v %+v %+v", c.Source, c.Sharding, c.Selection)
 	}
 }
 
