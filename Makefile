@@ -93,7 +93,7 @@ bench-scale: ## almanac-trainer local on 100k generated daily series (peak RSS, 
 
 .PHONY: bench-m3
 bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast when Rscript is present.
-	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --reference-r; \
+	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --workers 1 --score-published --reference-r; \
 	else echo "bench-m3: ../shared/datasets/m3 not present, skipped"; fi
 	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
 
