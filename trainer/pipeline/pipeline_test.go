@@ -3,6 +3,7 @@ package pipeline
 import (
 	"bytes"
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -682,6 +683,20 @@ func TestSelectionConfigUpdateBacktest(t *testing.T) {
 		}
 		if sc.BacktestUpdate != on {
 			t.Errorf("updateBacktest %v: selection BacktestUpdate %v", on, sc.BacktestUpdate)
+		}
+	}
+}
+
+// A negative or NaN combineMargin in the run configuration is a configuration error that names
+// the setting (selection.Config.Validate checks it; the API's minimum 0 keeps it out of
+// rendered configurations).
+func TestSelectionConfigRejectsBadCombineMargin(t *testing.T) {
+	for _, m := range []float64{-0.01, math.NaN()} {
+		cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
+		cfg.Selection.CombineMargin = m
+		_, err := selectionConfig(cfg)
+		if !errors.Is(err, ErrConfig) || !strings.Contains(err.Error(), "combineMargin") {
+			t.Errorf("combineMargin %v: error %v, want a configuration error naming combineMargin", m, err)
 		}
 	}
 }

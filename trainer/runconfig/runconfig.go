@@ -7,7 +7,6 @@ package runconfig
 import (
 	"encoding/json"
 	"fmt"
-	"math"
 	"os"
 	"slices"
 	"time"
@@ -112,7 +111,8 @@ type Selection struct {
 	// CombineMargin is a fraction >= 0 (selection.Config.CombineMargin): the combination is
 	// chosen unless the best single member's backtest score is lower than the combination's by
 	// more than this fraction of the best member's score. 0 chooses it only when strictly
-	// better; the controller renders spec.selection.combine.marginPercent / 100.
+	// better; the controller renders spec.selection.combine.marginPercent / 100. Checked by
+	// selection.Config.Validate, like the other selection settings.
 	CombineMargin float64 `json:"combineMargin,omitempty"`
 	// UpdateBacktest fits each member once, at the earliest backtest origin, and carries the
 	// fit forward to the later ones (selection.Config.BacktestUpdate); false re-estimates at
@@ -194,8 +194,6 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("source.partitioning: %q is not %q, %q or %q", c.Source.Partitioning, PartitionNone, PartitionObject, PartitionRowGroup)
 	case c.Source.Partitioning == PartitionRowGroup && c.Source.Format != "parquet":
 		return fmt.Errorf("source.partitioning: %q needs source.format parquet", PartitionRowGroup)
-	case c.Selection.CombineMargin < 0 || math.IsNaN(c.Selection.CombineMargin):
-		return fmt.Errorf("selection.combineMargin: must be >= 0, got %v", c.Selection.CombineMargin)
 	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
 		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
 	}
