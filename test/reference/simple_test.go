@@ -15,6 +15,7 @@ import (
 	"testing"
 
 	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/numeric/classical"
 )
 
 var nan = math.NaN()
@@ -135,12 +136,12 @@ func TestDecompositionAgainstR(t *testing.T) {
 		if c.M < 2 {
 			continue
 		}
-		idx, err := models.MultiplicativeIndices(c.Y, c.M)
+		idx, err := classical.MultiplicativeIndices(c.Y, c.M)
 		if err != nil {
 			t.Fatalf("%s: %v", c.Name, err)
 		}
 		checkSlice(t, c.Name+" figure", idx, c.Figure, 1e-12)
-		if got := models.SeasonalityTest(c.Y, c.M); got != c.Seasonal {
+		if got := classical.SeasonalityTest(c.Y, c.M); got != c.Seasonal {
 			t.Errorf("%s: SeasonalityTest = %v, R thetaf decided %v", c.Name, got, c.Seasonal)
 		}
 	}
@@ -184,7 +185,7 @@ func adjustedSSE(t *testing.T, c simpleCase, fitted []float64, seasonal bool) fl
 	idx := []float64{1}
 	if seasonal {
 		var err error
-		if idx, err = models.MultiplicativeIndices(c.Y, c.M); err != nil {
+		if idx, err = classical.MultiplicativeIndices(c.Y, c.M); err != nil {
 			t.Fatal(err)
 		}
 	}

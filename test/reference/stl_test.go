@@ -5,12 +5,13 @@ import (
 	"math"
 	"testing"
 
-	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/numeric/stationarity"
+	"almanac.dev/almanac/trainer/numeric/stl"
 )
 
-// The STL checks compare trainer/models against R 4.2.2's stats::stl and forecast 8.20's
-// seasonal-strength test (Debian r-base-core and r-cran-forecast): testdata/stl_r.json, made
-// by r/stl.R, holds R datasets (nottem, co2, log AirPassengers, log UKgas, USAccDeaths), the
+// The STL checks compare trainer/numeric/stl and trainer/numeric/stationarity against R 4.2.2's
+// stats::stl and forecast 8.20's seasonal-strength test (Debian r-base-core and
+// r-cran-forecast): testdata/stl_r.json, made by r/stl.R, holds R datasets (nottem, co2, log AirPassengers, log UKgas, USAccDeaths), the
 // decompositions stl(x, ...) with their exact calls and the spans, degrees, jumps and
 // iteration counts R resolved, and forecast:::seas.heuristic(x) and nsdiffs(x) on more R
 // datasets.
@@ -32,7 +33,7 @@ type stlComponents struct {
 // compareSTL checks d against the reference components: seasonal, trend and remainder to
 // 1e-9 of the series' scale (the references and our Go do the same arithmetic in a different
 // order), weights to 1e-8.
-func compareSTL(t *testing.T, d models.STLDecomposition, y []float64, ref stlComponents) {
+func compareSTL(t *testing.T, d stl.Decomposition, y []float64, ref stlComponents) {
 	t.Helper()
 	scale := 0.0
 	for _, v := range y {
@@ -88,12 +89,12 @@ func loadSTLRef(t testing.TB) *stlRef {
 
 // stlOptions translates the arguments given to R's stl into our options, leaving the rest at
 // their defaults.
-func stlOptions(t *testing.T, args map[string]any) models.STLOptions {
-	var o models.STLOptions
+func stlOptions(t *testing.T, args map[string]any) stl.Options {
+	var o stl.Options
 	ints := map[string]*int{"t.window": &o.TrendWindow, "l.window": &o.LowPassWindow,
 		"s.jump": &o.SeasonalJump, "t.jump": &o.TrendJump, "l.jump": &o.LowPassJump,
 		"inner": &o.Inner, "outer": &o.Outer}
-	degrees := map[string]*models.LoessDegree{"s.degree": &o.SeasonalDegree,
+	degrees := map[string]*stl.LoessDegree{"s.degree": &o.SeasonalDegree,
 		"t.degree": &o.TrendDegree, "l.degree": &o.LowPassDegree}
 	for k, v := range args {
 		x, isNum := v.(float64)
@@ -116,15 +117,15 @@ func stlOptions(t *testing.T, args map[string]any) models.STLOptions {
 }
 
 // loessDegree is R's and statsmodels' degree number as our LoessDegree.
-func loessDegree(d int) models.LoessDegree {
+func loessDegree(d int) stl.LoessDegree {
 	if d == 0 {
-		return models.LoessConstant
+		return stl.LoessConstant
 	}
-	return models.LoessLinear
+	return stl.LoessLinear
 }
 
-func degreeNumber(d models.LoessDegree) int {
-	if d == models.LoessLinear {
+func degreeNumber(d stl.LoessDegree) int {
+	if d == stl.LoessLinear {
 		return 1
 	}
 	return 0
@@ -142,7 +143,7 @@ func TestSTLMatchesR(t *testing.T) {
 	for _, f := range ref.Fits {
 		t.Run(f.Call, func(t *testing.T) {
 			s := ref.Series[f.Data]
-			d, err := models.STL(s.Y, s.M, stlOptions(t, f.Args))
+			d, err := stl.Decompose(s.Y, s.M, stlOptions(t, f.Args))
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -169,10 +170,10 @@ func TestSeasonalStrengthMatchesR(t *testing.T) {
 		t.Fatal("no seasonal-strength cases in the fixture")
 	}
 	for _, c := range ref.Strength {
-		if got := models.SeasonalStrength(c.Y, c.M); math.Abs(got-c.Strength) > 1e-9 {
+		if got := stationarity.SeasonalStrength(c.Y, c.M); math.Abs(got-c.Strength) > 1e-9 {
 			t.Errorf("%s: seasonal strength %.12g, R %.12g", c.Data, got, c.Strength)
 		}
-		if got := models.SeasonalDiffs(c.Y, c.M); got != c.Nsdiffs {
+		if got := stationarity.SeasonalDiffs(c.Y, c.M); got != c.Nsdiffs {
 			t.Errorf("%s: D = %d, R nsdiffs %d", c.Data, got, c.Nsdiffs)
 		}
 	}
@@ -193,14 +194,14 @@ func TestSTLMatchesStatsmodels(t *testing.T) {
 	for _, f := range sm.Fits {
 		t.Run(f.Call, func(t *testing.T) {
 			s := ref.Series[f.Data]
-			o := models.STLOptions{
+			o := stl.Options{
 				SeasonalWindow: f.Win[0], TrendWindow: f.Win[1], LowPassWindow: f.Win[2],
 				SeasonalDegree: loessDegree(f.Deg[0]), TrendDegree: loessDegree(f.Deg[1]),
 				LowPassDegree: loessDegree(f.Deg[2]),
 				SeasonalJump:  f.Jump[0], TrendJump: f.Jump[1], LowPassJump: f.Jump[2],
 				Robust: true, Inner: f.Inner, Outer: f.Outer,
 			}
-			d, err := models.STL(s.Y, s.M, o)
+			d, err := stl.Decompose(s.Y, s.M, o)
 			if err != nil {
 				t.Fatal(err)
 			}

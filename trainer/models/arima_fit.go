@@ -3,6 +3,9 @@ package models
 import (
 	"fmt"
 	"math"
+
+	"almanac.dev/almanac/trainer/numeric/kalman"
+	"almanac.dev/almanac/trainer/numeric/neldermead"
 )
 
 // arimaFitter holds per-series scratch shared by the orders of one search, so that the
@@ -22,8 +25,8 @@ type arimaFitter struct {
 	sar   []float64
 	sma   []float64
 	tmp   []float64
-	space armaSpace
-	nm    nmWork
+	space kalman.ARMA
+	nm    neldermead.Work
 	evals int
 }
 
@@ -144,14 +147,14 @@ func (ft *arimaFitter) css() float64 {
 
 // ml returns log(sigma^2) + (1/n') sum log F_t, which is -2 log L / n' up to a constant (see
 // ARIMAFit.LogLik), from the Kalman filter at the current polynomials.
-func (ft *arimaFitter) ml(resid []float64) (float64, armaFilter) {
-	ft.space.setup(ft.phi, ft.theta)
-	r := ft.space.filter(ft.x, resid)
-	if !r.ok || !(r.ssq > 0) {
+func (ft *arimaFitter) ml(resid []float64) (float64, kalman.Result) {
+	ft.space.Setup(ft.phi, ft.theta)
+	r := ft.space.Filter(ft.x, resid)
+	if !r.OK || !(r.SSQ > 0) {
 		return math.Inf(1), r
 	}
-	n := float64(r.n)
-	return math.Log(r.ssq/n) + r.sumLog/n, r
+	n := float64(r.N)
+	return math.Log(r.SSQ/n) + r.SumLog/n, r
 }
 
 // arimaBudget is the evaluation budget per free parameter for each stage of the fit.
@@ -189,7 +192,7 @@ func (ft *arimaFitter) fit() (*ARIMAFit, error) {
 			ft.decode(v)
 			return ft.css()
 		}
-		r := nelderMead(cssF, u, step, arimaBudget*(k+1), 1e-8, &ft.nm)
+		r := neldermead.Minimize(cssF, u, step, arimaBudget*(k+1), 1e-8, &ft.nm)
 		evals += r.Evals
 		if !math.IsInf(r.F, 1) {
 			for i, v := range r.X {
@@ -205,15 +208,15 @@ func (ft *arimaFitter) fit() (*ARIMAFit, error) {
 		for i := range step {
 			step[i] = 0.1
 		}
-		res := nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
+		res := neldermead.Minimize(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
 		evals += res.Evals
-		if res.Status == nmNoFiniteSeed {
+		if res.Status == neldermead.NoFiniteSeed {
 			return nil, fmt.Errorf("models: ARIMA: %s: the likelihood is not finite at the starting values", o.String(ft.m))
 		}
 		for restart := 0; restart < 1; restart++ {
 			copy(u, res.X)
 			f0 := res.F
-			res = nelderMead(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
+			res = neldermead.Minimize(mlF, u, step, arimaBudget*(k+1), 1e-9, &ft.nm)
 			evals += res.Evals
 			if res.F >= f0 {
 				res.X, res.F = u, f0
@@ -243,12 +246,12 @@ func (ft *arimaFitter) finish(c float64) (*ARIMAFit, error) {
 	if math.IsInf(f, 0) || math.IsNaN(f) {
 		return nil, fmt.Errorf("models: ARIMA: %s: the likelihood is not finite at the estimates", o.String(ft.m))
 	}
-	n := float64(r.n)
-	fit := &ARIMAFit{order: o, m: ft.m, y: ft.y, w: ft.w, c: c, nw: r.n, resid: resid,
+	n := float64(r.N)
+	fit := &ARIMAFit{order: o, m: ft.m, y: ft.y, w: ft.w, c: c, nw: r.N, resid: resid,
 		loglik: -0.5 * (n*f + n + n*math.Log(2*math.Pi))}
 	// sigma^2 for the intervals: the MLE with a degrees-of-freedom correction, as R forecast
 	// 8.20 reports it.
-	fit.sigma2 = r.ssq / float64(r.n-fit.NumParams()+1)
+	fit.sigma2 = r.SSQ / float64(r.N-fit.NumParams()+1)
 	fit.coef = ARIMACoef{AR: append([]float64{}, ft.ar...), MA: append([]float64{}, ft.ma...),
 		SAR: append([]float64{}, ft.sar...), SMA: append([]float64{}, ft.sma...)}
 	if o.Constant {

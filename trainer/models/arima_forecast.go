@@ -1,6 +1,10 @@
 package models
 
-import "math"
+import (
+	"math"
+
+	"almanac.dev/almanac/trainer/numeric/kalman"
+)
 
 // Forecast returns h steps of the mean and, for each level, the normal quantile
 // mean + z_p sqrt(sigma^2 V_h). Mean and V_h come from the Kalman forecasting recursions
@@ -27,29 +31,30 @@ func (f *ARIMAFit) Forecast(h int, levels []float64) Forecast {
 // forecastMoments returns the forecast means and the variances V_h for unit sigma^2.
 func (f *ARIMAFit) forecastMoments(h int) (mean, vars []float64) {
 	o := f.order
-	var sp armaSpace
+	var sp kalman.ARMA
 	phi := expand(make([]float64, o.P+f.m*o.SP), f.coef.AR, f.coef.SAR, f.m, -1)
 	theta := expand(make([]float64, o.Q+f.m*o.SQ), f.coef.MA, f.coef.SMA, f.m, 1)
 	x := make([]float64, len(f.w))
 	for t, v := range f.w {
 		x[t] = v - f.c
 	}
-	sp.setup(phi, theta)
-	sp.filter(x, nil)
+	sp.Setup(phi, theta)
+	sp.Filter(x, nil)
 	delta := diffPoly(o.D, o.SD, f.m)
-	r, nd := sp.r, len(delta)
+	r, nd := sp.Dim(), len(delta)
 	N := r + nd
 	z := make([]float64, N)
-	copy(z, sp.a)
+	copy(z, sp.State())
 	n := len(f.y)
 	for k := 0; k < nd; k++ {
 		z[r+k] = f.y[n-1-k]
 	}
 	P := make([]float64, N*N)
+	spP := sp.Cov()
 	for i := 0; i < r; i++ {
 		for j := i; j < r; j++ {
-			P[i*N+j] = sp.P[i*r+j] // filter keeps the upper triangle
-			P[j*N+i] = sp.P[i*r+j]
+			P[i*N+j] = spP[i*r+j] // Filter keeps the upper triangle
+			P[j*N+i] = spP[i*r+j]
 		}
 	}
 	// Z* and T*.
@@ -58,7 +63,7 @@ func (f *ARIMAFit) forecastMoments(h int) (mean, vars []float64) {
 	copy(Z[r:], delta)
 	T := make([]float64, N*N)
 	for i := 0; i < r; i++ {
-		T[i*N] = sp.phi[i+1]
+		T[i*N] = sp.Phi()[i+1]
 		if i+1 < r {
 			T[i*N+i+1] = 1
 		}
@@ -70,7 +75,7 @@ func (f *ARIMAFit) forecastMoments(h int) (mean, vars []float64) {
 		}
 	}
 	R := make([]float64, N)
-	copy(R, sp.theta[:r])
+	copy(R, sp.Theta()[:r])
 	// The mean mu_t of the differenced series is f.c; for the level it enters through y_t.
 	mean, vars = make([]float64, h), make([]float64, h)
 	zn := make([]float64, N)

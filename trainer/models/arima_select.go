@@ -6,6 +6,7 @@ import (
 	"math"
 	"math/cmplx"
 
+	"almanac.dev/almanac/trainer/numeric/stationarity"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -113,7 +114,7 @@ func SelectARIMA(y []float64, m int, b ARIMABounds) (*ARIMAFit, error) {
 	if err := checkFinite(FamilyARIMA, y); err != nil {
 		return nil, err
 	}
-	if constant(y) {
+	if stationarity.Constant(y) {
 		// No finite likelihood (zero innovation variance): the mean model with sigma^2 = 0.
 		n := len(y)
 		return &ARIMAFit{order: ARIMAOrder{Constant: true}, m: 1, y: y, w: y, c: y[0], nw: n,
@@ -123,13 +124,13 @@ func SelectARIMA(y []float64, m int, b ARIMABounds) (*ARIMAFit, error) {
 	seasonal := m >= 2 && m <= arimaMaxSeason
 	sd := 0
 	if seasonal {
-		sd = min(SeasonalDiffs(y, m), b.MaxSD)
+		sd = min(stationarity.SeasonalDiffs(y, m), b.MaxSD)
 	}
 	ys := y
 	if sd > 0 {
 		ys = difference(y, 0, sd, m)
 	}
-	d := min(Diffs(ys, b.MaxD), b.MaxD)
+	d := min(stationarity.Diffs(ys, b.MaxD), b.MaxD)
 	if len(y)-d-sd*m < 3 {
 		d, sd = 0, 0
 	}

@@ -97,79 +97,6 @@ func TestAR1ExactLikelihood(t *testing.T) {
 	}
 }
 
-// TestMA1InitialCovariance: for MA(1), r = 2 and the state (x_t, theta e_t) has covariance
-// [[1+theta^2, theta], [theta, theta^2]] (from the representation in armaSpace's comment).
-func TestMA1InitialCovariance(t *testing.T) {
-	var s armaSpace
-	const th = -0.4
-	s.setup(nil, []float64{th})
-	if !s.initCov() {
-		t.Fatal("initCov failed")
-	}
-	want := []float64{1 + th*th, th, th, th * th}
-	for i, w := range want {
-		if math.Abs(s.P[i]-w) > 1e-15 {
-			t.Errorf("P = %v, want %v", s.P, want)
-			break
-		}
-	}
-}
-
-// TestKPSSByHand: y = 1, 2, 3, 4 with no lags has e = (-1.5, -0.5, 0.5, 1.5), partial sums
-// (-1.5, -2, -1.5, 0), sum S^2 = 8.5, s^2 = 5/4, eta = 8.5 / (16 * 1.25) = 0.425
-// (Kwiatkowski et al. 1992, eq. 11 worked by hand).
-func TestKPSSByHand(t *testing.T) {
-	if got := KPSS([]float64{1, 2, 3, 4}, 0); math.Abs(got-0.425) > 1e-15 {
-		t.Errorf("KPSS = %v, want 0.425", got)
-	}
-	// With one lag: sum e_t e_{t-1} = 0.75 - 0.25 + 0.75 = 1.25, weight 1/2, so
-	// s^2 = (5 + 2 * 0.5 * 1.25) / 4 = 1.5625 and eta = 8.5 / 25 = 0.34.
-	if got := KPSS([]float64{1, 2, 3, 4}, 1); math.Abs(got-0.34) > 1e-15 {
-		t.Errorf("KPSS(lag 1) = %v, want 0.34", got)
-	}
-}
-
-// TestDiffsOnSimulatedSeries: white noise needs no difference, a random walk one and an
-// integrated random walk two (KPSS at 5%; fixed PCG seed).
-func TestDiffsOnSimulatedSeries(t *testing.T) {
-	rng := rand.New(rand.NewPCG(1, 2))
-	wn, rw, irw := make([]float64, 200), make([]float64, 200), make([]float64, 200)
-	a, b := 0.0, 0.0
-	for i := range wn {
-		e := rng.NormFloat64()
-		wn[i] = e
-		a += e
-		rw[i] = a
-		b += a
-		irw[i] = b
-	}
-	for name, c := range map[string]struct {
-		y    []float64
-		want int
-	}{"white noise": {wn, 0}, "random walk": {rw, 1}, "integrated": {irw, 2}} {
-		if got := Diffs(c.y, 2); got != c.want {
-			t.Errorf("%s: Diffs = %d, want %d", name, got, c.want)
-		}
-	}
-}
-
-// TestSeasonalStrength: a pure sine season of period 12 plus small noise is strongly seasonal,
-// white noise is not.
-func TestSeasonalStrength(t *testing.T) {
-	rng := rand.New(rand.NewPCG(3, 4))
-	s, wn := make([]float64, 96), make([]float64, 96)
-	for i := range s {
-		s[i] = 10*math.Sin(2*math.Pi*float64(i)/12) + rng.NormFloat64()
-		wn[i] = rng.NormFloat64()
-	}
-	if f := SeasonalStrength(s, 12); f < 0.9 || SeasonalDiffs(s, 12) != 1 {
-		t.Errorf("seasonal series: strength %v", f)
-	}
-	if f := SeasonalStrength(wn, 12); f > 0.5 || SeasonalDiffs(wn, 12) != 0 {
-		t.Errorf("white noise: strength %v", f)
-	}
-}
-
 // TestKalmanFilterAllocatesNothing: the likelihood evaluation in the fit's inner loop reuses
 // its scratch.
 func TestKalmanFilterAllocatesNothing(t *testing.T) {
@@ -242,40 +169,6 @@ func BenchmarkSelectARIMA(b *testing.B) {
 	for b.Loop() {
 		if _, err := SelectARIMA(y, 12, ARIMABounds{}); err != nil {
 			b.Fatal(err)
-		}
-	}
-}
-
-// TestInitialCovarianceSolvesLyapunov: for a seasonal ARMA the stationary covariance must
-// satisfy P = T P T' + R R' (Gardner, Harvey & Phillips 1980), checked elementwise with an
-// explicit dense T.
-func TestInitialCovarianceSolvesLyapunov(t *testing.T) {
-	phi := expand(make([]float64, 2+2*4), []float64{0.5, -0.2}, []float64{0.3, 0.2}, 4, -1)
-	theta := expand(make([]float64, 1+4), []float64{0.4}, []float64{-0.5}, 4, 1)
-	var s armaSpace
-	s.setup(phi, theta)
-	if !s.initCov() {
-		t.Fatal("initCov failed")
-	}
-	r := s.r
-	T := make([]float64, r*r)
-	for i := 0; i < r; i++ {
-		T[i*r] = s.phi[i+1]
-		if i+1 < r {
-			T[i*r+i+1] = 1
-		}
-	}
-	for i := 0; i < r; i++ {
-		for j := 0; j < r; j++ {
-			v := s.theta[i] * s.theta[j]
-			for k := 0; k < r; k++ {
-				for l := 0; l < r; l++ {
-					v += T[i*r+k] * s.P[k*r+l] * T[j*r+l]
-				}
-			}
-			if math.Abs(v-s.P[i*r+j]) > 1e-12*math.Max(1, math.Abs(v)) {
-				t.Fatalf("P[%d,%d] = %v, T P T' + R R' = %v", i, j, s.P[i*r+j], v)
-			}
 		}
 	}
 }

@@ -6,6 +6,8 @@ import (
 	"math"
 	"sort"
 	"strconv"
+
+	"almanac.dev/almanac/trainer/numeric/neldermead"
 )
 
 func init() { Register(FamilyETS, newETS) }
@@ -356,7 +358,7 @@ type etsFitter struct {
 	full     []float64
 	wStart   []float64
 	wTry     []float64
-	nm       nmWork
+	nm       neldermead.Work
 	st       etsState
 	scale    float64
 	// screenTol is the relative stopping tolerance of the screening stage (see screen).
@@ -561,7 +563,7 @@ func (ft *etsFitter) screen(form ETSForm, errT, trend, season int8) (crit float6
 		if try == 1 {
 			etsLivelyStart(start, trend, season)
 		}
-		r := nelderMead(evalW, start, step[:dw], etsStage1*(dw+1), ft.screenTol, &ft.nm)
+		r := neldermead.Minimize(evalW, start, step[:dw], etsStage1*(dw+1), ft.screenTol, &ft.nm)
 		evals += r.Evals
 		if r.F < bestW {
 			bestW = r.F
@@ -583,9 +585,9 @@ func (ft *etsFitter) refine(form ETSForm, errT, trend, season int8, evals int) (
 	eval := ft.objective(errT, trend, season)
 	// Stage 2: weights and seeds jointly.
 	budget := etsBudget*(d+1) + evals
-	res := nelderMead(eval, x0, step, budget-evals, 1e-8, &ft.nm)
+	res := neldermead.Minimize(eval, x0, step, budget-evals, 1e-8, &ft.nm)
 	evals += res.Evals
-	if res.Status == nmNoFiniteSeed {
+	if res.Status == neldermead.NoFiniteSeed {
 		return nil, fmt.Errorf("models: ETS: %s: the likelihood is not finite at the starting values", form)
 	}
 	// Up to three restarts from the best point with a fresh simplex, while they still improve,
@@ -594,7 +596,7 @@ func (ft *etsFitter) refine(form ETSForm, errT, trend, season int8, evals int) (
 	for restart := 0; restart < 3 && evals < budget; restart++ {
 		copy(x0, res.X)
 		f0 := res.F
-		res = nelderMead(eval, x0, step, budget-evals, 1e-8, &ft.nm)
+		res = neldermead.Minimize(eval, x0, step, budget-evals, 1e-8, &ft.nm)
 		evals += res.Evals
 		if res.F >= f0 {
 			res.X, res.F = x0, f0

@@ -3,6 +3,8 @@ package models
 import (
 	"fmt"
 	"math"
+
+	"almanac.dev/almanac/trainer/numeric/classical"
 )
 
 func init() {
@@ -35,7 +37,7 @@ func (a adjNaiveModel) Fit(y []float64, m int) (Fitted, error) {
 		return nil, err
 	}
 	m = seasonFor(a.spec, m)
-	idx, seasonal := SeasonalIndices(y, m)
+	idx, seasonal := classical.SeasonalIndices(y, m)
 	f := &adjNaiveFit{name: a.spec.DisplayName(), n: n, idx: idx, fitted: nanSlice(n)}
 	prev := y[0]
 	if seasonal {
@@ -98,4 +100,17 @@ func (f *adjNaiveFit) Forecast(h int, levels []float64) Forecast {
 		se[k] = f.sigma * math.Sqrt(float64(k+1)) * s
 	}
 	return Forecast{Mean: mean, Levels: copyLevels(levels), Quantiles: gaussianBands(mean, se, levels, zQuantile)}
+}
+
+// addSeasonParams records p["seasonal"] = 1 and p["index<j>"] = idx[j] when idx is non-nil,
+// p["seasonal"] = 0 otherwise.
+func addSeasonParams(p map[string]float64, idx []float64) {
+	if idx == nil {
+		p["seasonal"] = 0
+		return
+	}
+	p["seasonal"] = 1
+	for j, s := range idx {
+		p[fmt.Sprintf("index%d", j)] = s
+	}
 }

@@ -3,6 +3,8 @@ package models
 import (
 	"fmt"
 	"math"
+
+	"almanac.dev/almanac/trainer/numeric/classical"
 )
 
 func init() { Register(FamilyTheta, newTheta) }
@@ -55,11 +57,11 @@ func (tm thetaModel) Fit(y []float64, m int) (Fitted, error) {
 		return nil, err
 	}
 	m = seasonFor(tm.spec, m)
-	idx, seasonal := SeasonalIndices(y, m)
+	idx, seasonal := classical.SeasonalIndices(y, m)
 	f := &thetaFit{name: tm.spec.DisplayName(), n: n, idx: idx, fitted: make([]float64, n)}
 	x := y
 	if seasonal {
-		deseasonalize(f.fitted, y, idx) // fitted doubles as scratch for x until overwritten
+		classical.Deseasonalize(f.fitted, y, idx) // fitted doubles as scratch for x until overwritten
 		x = f.fitted
 	}
 	f.b = olsSlope(x) / 2

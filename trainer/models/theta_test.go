@@ -4,6 +4,8 @@ import (
 	"errors"
 	"math"
 	"testing"
+
+	"almanac.dev/almanac/trainer/numeric/classical"
 )
 
 // Hyndman & Billah (2003) show the Theta forecast is SES plus a drift of half the OLS slope:
@@ -73,7 +75,7 @@ func TestThetaConstantAndSeasonal(t *testing.T) {
 	}
 	// The doc-comment formula: ŷ_{n+h} = (ℓ + b((h−1) + (1−(1−α)^n)/α)) · S_{(n+h−1) mod m}.
 	fc = f.Forecast(4, nil)
-	idx, _ := SeasonalIndices(y, 4)
+	idx, _ := classical.SeasonalIndices(y, 4)
 	p := f.Params()
 	a := p["alpha"]
 	for k := range fc.Mean {

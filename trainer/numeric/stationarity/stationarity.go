@@ -1,6 +1,14 @@
-package models
+// Package stationarity decides how many differences make a series stationary: the KPSS test of
+// level stationarity for first differences (Kwiatkowski, Phillips, Schmidt & Shin 1992) and the
+// STL seasonal-strength measure for a seasonal difference (Wang, Smith & Hyndman 2006), the
+// rules R forecast 8.20's ndiffs and nsdiffs apply for auto.arima (Hyndman & Khandakar 2008).
+package stationarity
 
-import "math"
+import (
+	"math"
+
+	"almanac.dev/almanac/trainer/numeric/stl"
+)
 
 // KPSS returns the level-stationarity statistic of Kwiatkowski, Phillips, Schmidt & Shin
 // (1992, J. Econometrics 54, eqs. 11-14):
@@ -62,19 +70,29 @@ func Diffs(y []float64, maxD int) int {
 	d := 0
 	x := y
 	for d < maxD {
-		if constant(x) || len(x) < 3 {
+		if Constant(x) || len(x) < 3 {
 			return d
 		}
 		if st := KPSS(x, KPSSLags(len(x))); math.IsNaN(st) || st <= KPSSCritical5 {
 			return d
 		}
-		x = difference(x, 1, 0, 1)
+		x = diff(x)
 		d++
 	}
 	return d
 }
 
-func constant(x []float64) bool {
+// diff returns the first differences y_t - y_{t-1}, t = 1..n-1.
+func diff(y []float64) []float64 {
+	w := append([]float64(nil), y...)
+	for t := len(w) - 1; t >= 1; t-- {
+		w[t] -= w[t-1]
+	}
+	return w[1:]
+}
+
+// Constant reports whether every value of x equals the first (true for an empty x).
+func Constant(x []float64) bool {
 	for _, v := range x {
 		if v != x[0] {
 			return false
@@ -93,7 +111,7 @@ func SeasonalStrength(y []float64, m int) float64 {
 	if m < 2 || len(y) <= 2*m {
 		return 0
 	}
-	d, err := STL(y, m, STLOptions{SeasonalWindow: seasonalStrengthWindow})
+	d, err := stl.Decompose(y, m, stl.Options{SeasonalWindow: seasonalStrengthWindow})
 	if err != nil {
 		return 0
 	}
@@ -134,7 +152,7 @@ const SeasonalStrengthThreshold = 0.64
 // else 0; 0 as well when m < 2, y is constant or n <= 2m (R forecast 8.20's auto.arima takes
 // D = 0 for n <= 2m; its nsdiffs tests at most once for max.D = 1).
 func SeasonalDiffs(y []float64, m int) int {
-	if m < 2 || len(y) <= 2*m || constant(y) {
+	if m < 2 || len(y) <= 2*m || Constant(y) {
 		return 0
 	}
 	if SeasonalStrength(y, m) > SeasonalStrengthThreshold {

@@ -1,28 +1,33 @@
-package models
+// Package neldermead minimises a function of several variables without derivatives by the
+// simplex method of Nelder & Mead (1965, "A simplex method for function minimization", The
+// Computer Journal 7(4), 308-313), in the form analysed by Lagarias, Reeds, Wright & Wright
+// (1998, SIAM J. Optim. 9(1), 112-147). Constraints are expressed by the function returning +Inf
+// outside the feasible region, as R's optim is used by forecast's ets().
+package neldermead
 
 import "math"
 
-// nmStatus says why the Nelder-Mead search stopped.
-type nmStatus int
+// Status says why the search stopped.
+type Status int
 
 const (
-	nmConverged    nmStatus = iota // the simplex values agree within the tolerance
-	nmEvalLimit                    // the evaluation budget ran out
-	nmNoFiniteSeed                 // the starting point has no finite value
+	Converged    Status = iota // the simplex values agree within the tolerance
+	EvalLimit                  // the evaluation budget ran out
+	NoFiniteSeed               // the starting point has no finite value
 )
 
-// nmResult is the outcome of one minimisation, in the manner of gonum/optimize.Result:
+// Result is the outcome of one minimisation, in the manner of gonum/optimize.Result:
 // the best point, its value, the number of function evaluations and the stop reason.
-type nmResult struct {
+type Result struct {
 	X      []float64
 	F      float64
 	Evals  int
-	Status nmStatus
+	Status Status
 }
 
-// nmWork holds the simplex and trial points so that repeated minimisations of problems of
+// Work holds the simplex and trial points so that repeated minimisations of problems of
 // the same or smaller dimension allocate nothing.
-type nmWork struct {
+type Work struct {
 	simplex [][]float64
 	vals    []float64
 	cen     []float64
@@ -31,7 +36,7 @@ type nmWork struct {
 	best    []float64
 }
 
-func (w *nmWork) reset(d int) {
+func (w *Work) reset(d int) {
 	if len(w.vals) < d+1 || (len(w.simplex) > 0 && cap(w.simplex[0]) < d) {
 		w.simplex = make([][]float64, d+1)
 		for i := range w.simplex {
@@ -50,7 +55,7 @@ func (w *nmWork) reset(d int) {
 	w.cen, w.xr, w.xe, w.xc, w.best = w.cen[:d], w.xr[:d], w.xe[:d], w.xc[:d], w.best[:d]
 }
 
-// nelderMead minimises f from x0 with the Nelder & Mead (1965) simplex method, using the
+// Minimize minimises f from x0 with the Nelder & Mead (1965) simplex method, using the
 // standard coefficients reflection 1, expansion 2, contraction 1/2, shrink 1/2 (Lagarias,
 // Reeds, Wright & Wright 1998, SIAM J. Optim. 9(1), section 2). The initial simplex is x0 and
 // x0 + step[i] e_i. Constraints are expressed by f returning +Inf outside the feasible region,
@@ -58,7 +63,7 @@ func (w *nmWork) reset(d int) {
 //
 // It stops when max f - min f over the simplex is at most ftol (|min f| + ftol), or after
 // maxEval evaluations. The returned X aliases w and is valid until the next call.
-func nelderMead(f func([]float64) float64, x0, step []float64, maxEval int, ftol float64, w *nmWork) nmResult {
+func Minimize(f func([]float64) float64, x0, step []float64, maxEval int, ftol float64, w *Work) Result {
 	d := len(x0)
 	w.reset(d)
 	s, v := w.simplex, w.vals
@@ -67,7 +72,7 @@ func nelderMead(f func([]float64) float64, x0, step []float64, maxEval int, ftol
 	evals := 1
 	if math.IsInf(v[0], 1) || math.IsNaN(v[0]) {
 		copy(w.best, x0)
-		return nmResult{X: w.best, F: math.Inf(1), Evals: evals, Status: nmNoFiniteSeed}
+		return Result{X: w.best, F: math.Inf(1), Evals: evals, Status: NoFiniteSeed}
 	}
 	for i := 1; i <= d; i++ {
 		copy(s[i], x0)
@@ -75,7 +80,7 @@ func nelderMead(f func([]float64) float64, x0, step []float64, maxEval int, ftol
 		v[i] = nanInf(f(s[i]))
 		evals++
 	}
-	status := nmEvalLimit
+	status := EvalLimit
 	for evals < maxEval {
 		// Locate best, worst and second worst.
 		lo, hi := 0, 0
@@ -94,7 +99,7 @@ func nelderMead(f func([]float64) float64, x0, step []float64, maxEval int, ftol
 			}
 		}
 		if v[hi]-v[lo] <= ftol*(math.Abs(v[lo])+ftol) {
-			status = nmConverged
+			status = Converged
 			break
 		}
 		// Centroid of all but the worst.
@@ -175,7 +180,7 @@ func nelderMead(f func([]float64) float64, x0, step []float64, maxEval int, ftol
 		}
 	}
 	copy(w.best, s[lo])
-	return nmResult{X: w.best, F: v[lo], Evals: evals, Status: status}
+	return Result{X: w.best, F: v[lo], Evals: evals, Status: status}
 }
 
 func nanInf(x float64) float64 {

@@ -1,4 +1,4 @@
-package models
+package stl
 
 import (
 	"math"
@@ -26,16 +26,16 @@ func TestSTLRejectsBadInput(t *testing.T) {
 	for name, c := range map[string]struct {
 		y    []float64
 		m    int
-		o    STLOptions
+		o    Options
 		want string
 	}{
-		"period 1":          {y, 1, STLOptions{Periodic: true}, "period 1"},
-		"two periods":       {y[:24], 12, STLOptions{Periodic: true}, "more than two periods"},
-		"NaN":               {nan, 12, STLOptions{Periodic: true}, "observation 10"},
-		"no seasonal span":  {y, 12, STLOptions{}, "SeasonalWindow"},
-		"degree out of set": {y, 12, STLOptions{SeasonalWindow: 7, TrendDegree: 3}, "degree 3"},
+		"period 1":          {y, 1, Options{Periodic: true}, "period 1"},
+		"two periods":       {y[:24], 12, Options{Periodic: true}, "more than two periods"},
+		"NaN":               {nan, 12, Options{Periodic: true}, "observation 10"},
+		"no seasonal span":  {y, 12, Options{}, "SeasonalWindow"},
+		"degree out of set": {y, 12, Options{SeasonalWindow: 7, TrendDegree: 3}, "degree 3"},
 	} {
-		if _, err := STL(c.y, c.m, c.o); err == nil || !strings.Contains(err.Error(), c.want) {
+		if _, err := Decompose(c.y, c.m, c.o); err == nil || !strings.Contains(err.Error(), c.want) {
 			t.Errorf("%s: error %v, want one containing %q", name, err, c.want)
 		}
 	}
@@ -50,12 +50,12 @@ func TestSTLRobustIgnoresOutlier(t *testing.T) {
 	dirty := append([]float64(nil), clean...)
 	const at, spike = 60, 80.0
 	dirty[at] += spike
-	opt := STLOptions{SeasonalWindow: 7, Robust: true}
-	c, err := STL(clean, 12, opt)
+	opt := Options{SeasonalWindow: 7, Robust: true}
+	c, err := Decompose(clean, 12, opt)
 	if err != nil {
 		t.Fatal(err)
 	}
-	d, err := STL(dirty, 12, opt)
+	d, err := Decompose(dirty, 12, opt)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -72,7 +72,7 @@ func TestSTLRobustIgnoresOutlier(t *testing.T) {
 	if worst > 0.5 {
 		t.Errorf("robust trend moved by up to %v (noise sd 1)", worst)
 	}
-	plain, err := STL(dirty, 12, STLOptions{SeasonalWindow: 7})
+	plain, err := Decompose(dirty, 12, Options{SeasonalWindow: 7})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -85,7 +85,7 @@ func TestSTLRobustIgnoresOutlier(t *testing.T) {
 // period, and with a seasonal span of 7 it is not (the series' noise differs per period).
 func TestSTLPeriodicSeasonRepeats(t *testing.T) {
 	y := stlTestSeries(96)
-	p, err := STL(y, 12, STLOptions{Periodic: true})
+	p, err := Decompose(y, 12, Options{Periodic: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -94,7 +94,7 @@ func TestSTLPeriodicSeasonRepeats(t *testing.T) {
 			t.Fatalf("periodic seasonal differs at t=%d: %v vs %v", i+1, p.Seasonal[i], p.Seasonal[i-12])
 		}
 	}
-	w, err := STL(y, 12, STLOptions{SeasonalWindow: 7})
+	w, err := Decompose(y, 12, Options{SeasonalWindow: 7})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -116,11 +116,11 @@ func TestSTLPeriodicSeasonRepeats(t *testing.T) {
 }
 
 // BenchmarkSTL decomposes a monthly series of M3 monthly length (126) as the seasonal-strength
-// test does (seasonal span 11).
+// test does (seasonal span 11, as in stationarity.SeasonalStrength).
 func BenchmarkSTL(b *testing.B) {
 	y := stlTestSeries(126)
 	for b.Loop() {
-		if _, err := STL(y, 12, STLOptions{SeasonalWindow: seasonalStrengthWindow}); err != nil {
+		if _, err := Decompose(y, 12, Options{SeasonalWindow: 11}); err != nil {
 			b.Fatal(err)
 		}
 	}

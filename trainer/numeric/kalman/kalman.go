@@ -1,8 +1,16 @@
-package models
+// Package kalman evaluates the exact Gaussian likelihood of a zero-mean ARMA process by the
+// Kalman filter on its state-space form (Harvey 1989, "Forecasting, Structural Time Series
+// Models and the Kalman Filter"; Gardner, Harvey & Phillips 1980, Applied Statistics 29(3),
+// algorithm AS 154; Durbin & Koopman 2012, "Time Series Analysis by State Space Methods", 2nd
+// ed.), and leaves the filtered state for forecasting. The innovation variance is 1: the
+// likelihood is concentrated over sigma^2, so for n observations
+//
+//	-2 log L = n log(ssq / n) + sumLog + const,   ssq = sum v_t^2 / F_t,  sumLog = sum log F_t.
+package kalman
 
 import "math"
 
-// armaSpace is the state-space form of a zero-mean ARMA(p, q) process
+// ARMA is the state-space form of a zero-mean ARMA(p, q) process
 //
 //	x_t = phi_1 x_{t-1} + ... + phi_p x_{t-p} + e_t + theta_1 e_{t-1} + ... + theta_q e_{t-q}
 //
@@ -16,7 +24,7 @@ import "math"
 // is 1 throughout: the likelihood is concentrated over sigma^2 (Harvey 1989 section 3.4).
 // phi and theta are the expanded (seasonal times non-seasonal) polynomials. All scratch is held
 // here, so that repeated evaluations allocate nothing.
-type armaSpace struct {
+type ARMA struct {
 	r           int
 	phi, theta  []float64 // length r (phi) and r (theta[0] = 1), zero-padded
 	phiNZ, thNZ []int     // lags k >= 1 with phi_k != 0, and lags k >= 0 with theta_k != 0
@@ -26,9 +34,28 @@ type armaSpace struct {
 	sys         []float64 // (p+1) x (p+2) augmented system for the autocovariances
 }
 
-// setup sizes the scratch for orders (p, q) and copies the coefficients in: phi[k-1] = phi_k,
+// Dim returns r = max(p, q+1), the state dimension.
+func (s *ARMA) Dim() int { return s.r }
+
+// Phi returns phi_0..phi_r (phi_0 = 0, zero-padded; phi_1..phi_r is T's first column). It
+// aliases s.
+func (s *ARMA) Phi() []float64 { return s.phi }
+
+// Theta returns theta_0..theta_r (theta_0 = 1, zero-padded; theta_0..theta_{r-1} is R). It
+// aliases s.
+func (s *ARMA) Theta() []float64 { return s.theta }
+
+// State returns the state a_{n+1} left by the last Filter. It aliases s and is valid until the
+// next call.
+func (s *ARMA) State() []float64 { return s.a }
+
+// Cov returns the r x r state covariance, row-major: P_1 in full after InitCov, P_{n+1} (upper
+// triangle only) after Filter. It aliases s and is valid until the next call.
+func (s *ARMA) Cov() []float64 { return s.P }
+
+// Setup sizes the scratch for orders (p, q) and copies the coefficients in: phi[k-1] = phi_k,
 // theta[k-1] = theta_k.
-func (s *armaSpace) setup(phi, theta []float64) {
+func (s *ARMA) Setup(phi, theta []float64) {
 	p, q := len(phi), len(theta)
 	r := max(p, q+1)
 	if cap(s.phi) < r+1 {
@@ -74,7 +101,7 @@ func (s *armaSpace) setup(phi, theta []float64) {
 //
 // solved by Gaussian elimination with partial pivoting, then the same recursion for k > p.
 // It reports false when the system is singular (a unit root).
-func (s *armaSpace) autocov() bool {
+func (s *ARMA) autocov() bool {
 	r := s.r
 	phi, th, psi := s.phi, s.theta, s.psi
 	p := 0
@@ -168,9 +195,9 @@ func iabs(i int) int {
 	return i
 }
 
-// initCov sets s.P to the stationary covariance P_1 = E[a_t a_t'] of the state (unit innovation
+// InitCov sets s.P to the stationary covariance P_1 = E[a_t a_t'] of the state (unit innovation
 // variance), the solution of P = T P T' + R R' that Gardner, Harvey & Phillips (1980) compute.
-// Here the first row comes from the representation in armaSpace's doc comment, with
+// Here the first row comes from the representation in ARMA's doc comment, with
 // E[x_t x_{t-u}] = gamma(u) and E[x_t e_{t-u}] = psi_u:
 //
 //	P[0,j] = sum_{k>j} phi_k gamma(k-j) + sum_{k>=j} theta_k psi_{k-j},
@@ -180,7 +207,7 @@ func iabs(i int) int {
 //	P[i,j] = phi_{i+1} phi_{j+1} P[0,0] + phi_{i+1} P[0,j+1] + phi_{j+1} P[0,i+1] + P[i+1,j+1] + theta_i theta_j
 //
 // (index r reads 0), O(r^2) work in all. It reports false when the process is not stationary.
-func (s *armaSpace) initCov() bool {
+func (s *ARMA) InitCov() bool {
 	if !s.autocov() {
 		return false
 	}
@@ -218,12 +245,12 @@ func (s *armaSpace) initCov() bool {
 	return true
 }
 
-// armaFilter is the outcome of one pass of the Kalman filter.
-type armaFilter struct {
-	ssq    float64 // sum v_t^2 / F_t
-	sumLog float64 // sum log F_t
-	n      int
-	ok     bool
+// Result is the outcome of one pass of the Kalman filter.
+type Result struct {
+	SSQ    float64 // sum v_t^2 / F_t
+	SumLog float64 // sum log F_t
+	N      int     // observations filtered
+	OK     bool    // false when the process is not stationary or F_t stopped being positive
 }
 
 // steadyTol is the bound on trace(P_t - R R') below which the filter switches to the steady
@@ -231,8 +258,8 @@ type armaFilter struct {
 // update needs O(r) work (Durbin & Koopman 2012, section 4.3.4, on steady-state filtering).
 const steadyTol = 1e-10
 
-// filter runs the Kalman filter (Durbin & Koopman 2012, section 4.3, eqs. 4.24-4.26) on the
-// zero-mean series x, from a_1 = 0 and P_1 = initCov(). For each t, with k = P_t[., 0],
+// Filter runs the Kalman filter (Durbin & Koopman 2012, section 4.3, eqs. 4.24-4.26) on the
+// zero-mean series x, from a_1 = 0 and P_1 = InitCov(). For each t, with k = P_t[., 0],
 //
 //	v_t = x_t - a_t[0],  F_t = P_t[0,0],
 //	a_{t+1} = T (a_t + k v_t / F_t),   P_{t+1} = T (P_t - k k' / F_t) T' + R R'.
@@ -245,9 +272,9 @@ const steadyTol = 1e-10
 // which is done in place on the upper triangle (only it is kept). When resid is non-nil it
 // receives v_t. The state a_{n+1} and P_{n+1} are left in s.a and s.P (upper triangle) for
 // forecasting. It allocates nothing.
-func (s *armaSpace) filter(x, resid []float64) armaFilter {
-	var out armaFilter
-	if !s.initCov() {
+func (s *ARMA) Filter(x, resid []float64) Result {
+	var out Result
+	if !s.InitCov() {
 		return out
 	}
 	r := s.r
@@ -258,7 +285,7 @@ func (s *armaSpace) filter(x, resid []float64) armaFilter {
 		if steady {
 			// F_t = 1 and k = R: a <- T (a + R v).
 			v := xt - a[0]
-			out.ssq += v * v
+			out.SSQ += v * v
 			if resid != nil {
 				resid[t] = v
 			}
@@ -273,8 +300,8 @@ func (s *armaSpace) filter(x, resid []float64) armaFilter {
 			return out
 		}
 		v := xt - a[0]
-		out.ssq += v * v / F
-		out.sumLog += math.Log(F)
+		out.SSQ += v * v / F
+		out.SumLog += math.Log(F)
 		if resid != nil {
 			resid[t] = v
 		}
@@ -310,7 +337,7 @@ func (s *armaSpace) filter(x, resid []float64) armaFilter {
 			}
 		}
 	}
-	out.n = len(x)
-	out.ok = true
+	out.N = len(x)
+	out.OK = true
 	return out
 }

@@ -1,4 +1,15 @@
-package models
+// Package stl decomposes a series into seasonal, trend and remainder components by STL,
+// seasonal-trend decomposition by loess (Cleveland, Cleveland, McRae & Terpenning 1990, "STL: A
+// Seasonal-Trend Decomposition Procedure Based on Loess", Journal of Official Statistics 6(1),
+// 3-73):
+//
+//	y_t = S_t + T_t + R_t.
+//
+// The paper's notation: n_p the period, n_s, n_l, n_t the seasonal, low-pass and trend
+// smoothing spans, n_i and n_o the inner and outer iteration counts. The section references
+// below are from memory; the arithmetic is checked against R's stats::stl and statsmodels' STL
+// in test/reference.
+package stl
 
 import (
 	"errors"
@@ -6,13 +17,6 @@ import (
 	"math"
 	"sort"
 )
-
-// STL: seasonal-trend decomposition by loess, after Cleveland, Cleveland, McRae & Terpenning
-// (1990), "STL: A Seasonal-Trend Decomposition Procedure Based on Loess", Journal of Official
-// Statistics 6(1), 3-73. The paper's notation: n_p the period, n_s, n_l, n_t the seasonal,
-// low-pass and trend smoothing spans, n_i and n_o the inner and outer iteration counts. The
-// section references below are from memory; the arithmetic is checked against R's stats::stl
-// and statsmodels' STL in test/reference.
 
 // LoessDegree is the degree of a local fit in STL: constant or linear.
 type LoessDegree int8
@@ -28,8 +32,8 @@ const (
 	LoessLinear
 )
 
-// STLOptions are the smoothing parameters of STL. The zero value of a field takes its default.
-type STLOptions struct {
+// Options are the smoothing parameters of STL. The zero value of a field takes its default.
+type Options struct {
 	// Periodic makes the seasonal component the same in every period: the cycle-subseries are
 	// smoothed with an infinite span (10n + 1) and degree 0, and the final seasonal values
 	// are averaged per position in the period (as R's stats::stl does for
@@ -60,22 +64,22 @@ type STLOptions struct {
 	Inner, Outer int
 }
 
-// STLDecomposition is y = Seasonal + Trend + Remainder, with the robustness weights of the
+// Decomposition is y = Seasonal + Trend + Remainder, with the robustness weights of the
 // last outer pass (all 1 without the outer loop).
-type STLDecomposition struct {
+type Decomposition struct {
 	Seasonal, Trend, Remainder, Weights []float64
 	// Options are the options used, defaults filled in.
-	Options STLOptions
+	Options Options
 }
 
-// stlResolve fills in the defaults of o for n observations of period m and checks it.
-func stlResolve(o STLOptions, n, m int) (STLOptions, error) {
+// resolve fills in the defaults of o for n observations of period m and checks it.
+func resolve(o Options, n, m int) (Options, error) {
 	if o.Periodic {
 		o.SeasonalWindow = 10*n + 1
 		o.SeasonalDegree = LoessConstant
 	}
 	if o.SeasonalWindow <= 0 {
-		return o, errors.New("models: STL: SeasonalWindow must be positive unless Periodic")
+		return o, errors.New("stl: SeasonalWindow must be positive unless Periodic")
 	}
 	if o.SeasonalDegree == LoessDefault {
 		o.SeasonalDegree = LoessConstant
@@ -88,7 +92,7 @@ func stlResolve(o STLOptions, n, m int) (STLOptions, error) {
 	}
 	for _, d := range []LoessDegree{o.SeasonalDegree, o.TrendDegree, o.LowPassDegree} {
 		if d != LoessConstant && d != LoessLinear {
-			return o, fmt.Errorf("models: STL: loess degree %d is neither constant nor linear", d)
+			return o, fmt.Errorf("stl: loess degree %d is neither constant nor linear", d)
 		}
 	}
 	if o.TrendWindow <= 0 {
@@ -138,7 +142,7 @@ func oddSpan(s int) int {
 	return s
 }
 
-// STL decomposes y (period m >= 2, more than two full periods: len(y) > 2m) into seasonal,
+// Decompose decomposes y (period m >= 2, more than two full periods: len(y) > 2m) into seasonal,
 // trend and remainder by the procedure of Cleveland et al. (1990). Each inner pass
 // k = 1..n_i, from the trend T (0 at the start) and robustness weights rho (1 at the start):
 //
@@ -164,26 +168,26 @@ func oddSpan(s int) int {
 // test/reference/r/stl.R).
 //
 // It returns an error for bad options, too short a series or non-finite values.
-func STL(y []float64, m int, opt STLOptions) (STLDecomposition, error) {
+func Decompose(y []float64, m int, opt Options) (Decomposition, error) {
 	n := len(y)
 	if m < 2 {
-		return STLDecomposition{}, fmt.Errorf("models: STL: period %d is below 2", m)
+		return Decomposition{}, fmt.Errorf("stl: period %d is below 2", m)
 	}
 	if n <= 2*m {
-		return STLDecomposition{}, fmt.Errorf("models: STL: %d observations, need more than two periods (%d)", n, 2*m)
+		return Decomposition{}, fmt.Errorf("stl: %d observations, need more than two periods (%d)", n, 2*m)
 	}
 	for i, v := range y {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return STLDecomposition{}, fmt.Errorf("models: STL: observation %d is %v", i+1, v)
+			return Decomposition{}, fmt.Errorf("stl: observation %d is %v", i+1, v)
 		}
 	}
-	o, err := stlResolve(opt, n, m)
+	o, err := resolve(opt, n, m)
 	if err != nil {
-		return STLDecomposition{}, err
+		return Decomposition{}, err
 	}
-	s := newSTLState(y, m, o)
+	s := newState(y, m, o)
 	s.run()
-	d := STLDecomposition{Seasonal: s.season, Trend: s.trend, Remainder: make([]float64, n),
+	d := Decomposition{Seasonal: s.season, Trend: s.trend, Remainder: make([]float64, n),
 		Weights: s.rw, Options: o}
 	if o.Periodic {
 		// Average the seasonal values per position in the period.
@@ -204,8 +208,8 @@ func STL(y []float64, m int, opt STLOptions) (STLDecomposition, error) {
 	return d, nil
 }
 
-// stlState holds the series, the resolved spans and the work arrays of one decomposition.
-type stlState struct {
+// state holds the series, the resolved spans and the work arrays of one decomposition.
+type state struct {
 	y                   []float64
 	m                   int
 	ns, nt, nl          int
@@ -219,7 +223,7 @@ type stlState struct {
 	sub, subOut, subRW  []float64 // one cycle-subseries and its smooth (k + 2)
 }
 
-func newSTLState(y []float64, m int, o STLOptions) *stlState {
+func newState(y []float64, m int, o Options) *state {
 	n := len(y)
 	deg := func(d LoessDegree) int {
 		if d == LoessLinear {
@@ -228,7 +232,7 @@ func newSTLState(y []float64, m int, o STLOptions) *stlState {
 		return 0
 	}
 	k := (n+m-1)/m + 2
-	return &stlState{
+	return &state{
 		y: y, m: m,
 		ns: oddSpan(o.SeasonalWindow), nt: oddSpan(o.TrendWindow), nl: oddSpan(o.LowPassWindow),
 		sdeg: deg(o.SeasonalDegree), tdeg: deg(o.TrendDegree), ldeg: deg(o.LowPassDegree),
@@ -243,7 +247,7 @@ func newSTLState(y []float64, m int, o STLOptions) *stlState {
 
 // run does the inner loop, then each outer pass: new robustness weights and the inner loop
 // again.
-func (s *stlState) run() {
+func (s *state) run() {
 	for pass := 0; ; pass++ {
 		s.innerLoop()
 		if pass >= s.outer {
@@ -260,7 +264,7 @@ func (s *stlState) run() {
 }
 
 // innerLoop is steps 1-6, n_i times.
-func (s *stlState) innerLoop() {
+func (s *state) innerLoop() {
 	n, m := len(s.y), s.m
 	for range s.inner {
 		for i := range n {
@@ -282,7 +286,7 @@ func (s *stlState) innerLoop() {
 
 // cycleSubseries smooths each cycle-subseries of x (step 2) into s.c, with one value
 // extrapolated before the first and after the last observation of each subseries.
-func (s *stlState) cycleSubseries(x []float64) {
+func (s *state) cycleSubseries(x []float64) {
 	n, m := len(x), s.m
 	for j := range m {
 		k := (n-1-j)/m + 1
@@ -316,7 +320,7 @@ func (s *stlState) cycleSubseries(x []float64) {
 
 // lowPass filters s.c (step 3) into s.w1[:n]: moving averages of length m, m and 3, then a
 // loess of span n_l without robustness weights.
-func (s *stlState) lowPass() {
+func (s *state) lowPass() {
 	n, m := len(s.y), s.m
 	movingAverage(s.c, m, s.w2)          // n + m + 1 values
 	movingAverage(s.w2[:n+m+1], m, s.w3) // n + 2
@@ -340,7 +344,7 @@ func movingAverage(x []float64, k int, dst []float64) {
 // robustnessWeights sets s.rw from the remainder y - S - T: h = 6 median|R|
 // (the median as the mean of the two middle order statistics), rho = (1 - (|R|/h)^2)^2 when
 // |R| <= 0.999h, 1 when |R| <= 0.001h, else 0.
-func (s *stlState) robustnessWeights() {
+func (s *state) robustnessWeights() {
 	n := len(s.y)
 	r := s.w1[:n]
 	for i := range n {

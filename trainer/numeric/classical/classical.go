@@ -1,4 +1,8 @@
-package models
+// Package classical holds classical (moving-average) seasonal decomposition and the seasonality
+// test of the M3 and M4 competitions' decomposition benchmarks (Naive2, Theta): multiplicative
+// seasonal indices from a centred moving average (Hyndman & Athanasopoulos, FPP3 section 3.4;
+// R stats::decompose) and the autocorrelation test of Makridakis & Hibon (2000).
+package classical
 
 import (
 	"errors"
@@ -18,7 +22,7 @@ const seasonalCritical = 1.645
 const minSeasonIndex = 1e-4
 
 // errNonPositiveTrend reports that multiplicative decomposition met a trend value <= 0.
-var errNonPositiveTrend = errors.New("models: multiplicative decomposition needs a positive trend")
+var errNonPositiveTrend = errors.New("classical: multiplicative decomposition needs a positive trend")
 
 // MultiplicativeIndices returns the m seasonal indices of classical multiplicative
 // decomposition. idx[j] applies to every observation t (0-based) with t mod m == j, so idx is
@@ -36,11 +40,11 @@ var errNonPositiveTrend = errors.New("models: multiplicative decomposition needs
 // data).
 func MultiplicativeIndices(y []float64, m int) ([]float64, error) {
 	if m < 2 {
-		panic(fmt.Sprintf("models: MultiplicativeIndices needs season length >= 2, got %d", m))
+		panic(fmt.Sprintf("classical: MultiplicativeIndices needs season length >= 2, got %d", m))
 	}
 	n := len(y)
 	if n < 2*m {
-		return nil, fmt.Errorf("models: decomposition with season length %d needs %d observations, got %d", m, 2*m, n)
+		return nil, fmt.Errorf("classical: decomposition with season length %d needs %d observations, got %d", m, 2*m, n)
 	}
 	half := m / 2
 	even := m%2 == 0
@@ -146,23 +150,10 @@ func SeasonalIndices(y []float64, m int) (idx []float64, seasonal bool) {
 	return idx, true
 }
 
-// deseasonalize writes y_t / idx[t mod m] into dst (len(dst) == len(y)).
-func deseasonalize(dst, y, idx []float64) {
+// Deseasonalize writes y_t / idx[t mod m] into dst (len(dst) == len(y)).
+func Deseasonalize(dst, y, idx []float64) {
 	m := len(idx)
 	for t, v := range y {
 		dst[t] = v / idx[t%m]
-	}
-}
-
-// addSeasonParams records p["seasonal"] = 1 and p["index<j>"] = idx[j] when idx is non-nil,
-// p["seasonal"] = 0 otherwise.
-func addSeasonParams(p map[string]float64, idx []float64) {
-	if idx == nil {
-		p["seasonal"] = 0
-		return
-	}
-	p["seasonal"] = 1
-	for j, s := range idx {
-		p[fmt.Sprintf("index%d", j)] = s
 	}
 }
