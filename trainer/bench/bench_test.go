@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/models"
 )
 
@@ -110,7 +111,7 @@ func TestReferenceRThetaMatches(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	ours, _, err := Run(context.Background(), entries, Options{Families: []string{"Theta"}, Workers: 1})
+	ours, _, err := Run(context.Background(), entries, Options{Families: []string{"Theta"}, Workers: 1, Mode: design.Fixed})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -126,35 +127,17 @@ func TestReferenceRThetaMatches(t *testing.T) {
 	}
 }
 
-// The lean candidates are InnerDesigns without any ARIMA fit: no design may name the ARIMA or
-// ETS+ARIMA+Theta families or leave its zoo to "every registered family".
-func TestLeanDesignsHaveNoARIMA(t *testing.T) {
-	ds := LeanDesigns(Options{})
-	if len(ds) != 3 {
-		t.Fatalf("%d lean designs, want 3", len(ds))
-	}
-	for _, d := range ds {
-		if len(d.Opts.Families) == 0 {
-			t.Errorf("%s: zoo is every registered family", d.Name)
-		}
-		for _, f := range d.Opts.Families {
-			if f == models.FamilyARIMA || f == models.FamilyETSARIMATheta {
-				t.Errorf("%s: zoo has %s", d.Name, f)
-			}
-		}
-	}
-}
-
-// The inner holdout chooses from training data only: with every test value NaN it must still
-// score each design, and with --inner-every 3 it uses every 3rd eligible series of a category
-// (series too short to lose h points are not eligible). Made-up yearly demand of Fenwick Lane
-// Provisions' stores: store k sells 100 + k + t in year t, with a wobble.
-func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
+// The default design (design.Forecast in Auto) chooses from training data only: with every
+// test value NaN each candidate still gets an inner score, and the trending series get the
+// drift member. Made-up yearly demand of Fenwick Lane Provisions' stores: store k sells
+// 100 + k + t in year t, with a wobble; store 0 has 9 years, too few to lose h = 4 points
+// (9 < 2h + 2m + 2 = 12), so only the 24 others are in the inner holdout.
+func TestAutoDesignUsesTrainingOnly(t *testing.T) {
 	var es []Entry
-	for k := 0; k < 10; k++ {
+	for k := 0; k < 25; k++ {
 		n := 20
 		if k == 0 {
-			n = 9 // 9 - 4 < 4 + 2 + 2: not eligible
+			n = 9
 		}
 		tr := make([]float64, n)
 		for i := range tr {
@@ -163,57 +146,18 @@ func TestChooseByInnerHoldoutUsesTrainingOnly(t *testing.T) {
 		es = append(es, Entry{ID: fmt.Sprintf("store-%d", k), Category: "YEARLY", Frequency: 1, Horizon: 4,
 			Start: time.Date(2000, 1, 1, 0, 0, 0, 0, time.UTC), Train: tr, Test: []float64{math.NaN(), math.NaN(), math.NaN(), math.NaN()}})
 	}
-	ds := []Design{
-		{"naive", Options{Families: []string{models.FamilyNaive}, Workers: 1}},
-		{"drift", Options{Families: []string{models.FamilyDrift}, Workers: 1}},
-	}
 	var out bytes.Buffer
-	chosen, err := ChooseByInnerHoldout(context.Background(), es, ds, 3, ChooseOneSE, &out)
+	_, results, err := Run(context.Background(), es, Options{Families: []string{models.FamilyNaive, models.FamilyDrift}, Workers: 1, Log: &out,
+		Combinations: []design.Combination{{Name: "naive", Families: []string{models.FamilyNaive}}, {Name: "drift", Families: []string{models.FamilyDrift}}}})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !strings.Contains(out.String(), "(last h training points, 3 series)") {
-		t.Errorf("want 3 of the 9 eligible series in the inner holdout:\n%s", out.String())
+	if !strings.Contains(out.String(), "24 inner-holdout series") || strings.Contains(out.String(), "NaN") {
+		t.Errorf("want 24 inner series and no NaN score (test data read?):\n%s", out.String())
 	}
-	if strings.Contains(out.String(), "NaN") {
-		t.Errorf("an inner score is NaN (test data read?):\n%s", out.String())
-	}
-	if chosen["YEARLY"].Name != "drift" {
-		t.Errorf("chose %q for trending series, want drift:\n%s", chosen["YEARLY"].Name, out.String())
-	}
-}
-
-// CombinationDesigns keeps exactly the two fixed means of InnerDesigns.
-func TestCombinationDesigns(t *testing.T) {
-	ds := CombinationDesigns(Options{})
-	if len(ds) != 2 || ds[0].Name != "ets-theta" || ds[1].Name != "ets-arima-theta" {
-		t.Fatalf("designs %v, want ets-theta and ets-arima-theta (simplest first)", ds)
-	}
-	if f := ds[1].Opts.Families; len(f) != 1 || f[0] != models.FamilyETSARIMATheta {
-		t.Errorf("ets-arima-theta zoo %v", f)
-	}
-}
-
-// The one-standard-error rule (Hastie, Tibshirani & Friedman 2009, section 7.10) on hand
-// numbers: the lowest mean is 1.00 with standard error 0.05, so every design up to 1.05 is
-// within reach and the first of them (the simplest) wins; "lowest" takes 1.00 itself.
-func TestChoiceRulePick(t *testing.T) {
-	nan := math.NaN()
-	for _, c := range []struct {
-		rule       ChoiceRule
-		means, ses []float64
-		want       int
-	}{
-		{ChooseOneSE, []float64{1.04, 1.00, 0.98 + 0.03}, []float64{0.02, 0.05, 0.01}, 0},
-		{ChooseOneSE, []float64{1.06, 1.04, 1.00}, []float64{0.02, 0.01, 0.05}, 1}, // 1.06 is past 1.05
-		{ChooseOneSE, []float64{1.0500, 1.00}, []float64{0.2, 0.05}, 0},            // the bound is inclusive
-		{ChooseOneSE, []float64{nan, 1.2, 1.1}, []float64{nan, 0.01, 0.2}, 1},      // a design without a score is skipped
-		{ChooseOneSE, []float64{1.2, 1.1}, []float64{0.3, nan}, 1},                 // one series: no standard error, the lowest
-		{ChooseLowest, []float64{1.04, 1.00, 1.01}, []float64{0.02, 0.05, 0.01}, 1},
-		{ChooseOneSE, []float64{nan, nan}, []float64{nan, nan}, -1},
-	} {
-		if got := c.rule.pick(c.means, c.ses); got != c.want {
-			t.Errorf("%s %v %v: picked %d, want %d", c.rule, c.means, c.ses, got, c.want)
+	for _, r := range results {
+		if r.Chosen != models.FamilyDrift {
+			t.Errorf("%s: chose %s for a trending series, want Drift:\n%s", r.Key, r.Chosen, out.String())
 		}
 	}
 }

@@ -1,0 +1,131 @@
+package bench
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"math"
+	"sort"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// Options is one benchmark run's design: the declaration a portfolio would make (zoo,
+// combination, backtest) and how the design is decided (design.Options).
+type Options struct {
+	Families      []string // empty: every registered family except selection.ByNameOnly
+	Origins, Step int
+	CombineTop    int
+	CombineMethod string
+	CombineMargin float64
+	Metric        backtest.Metric
+	Workers       int
+	// BacktestUpdate carries fits forward between backtest origins (selection.Config).
+	BacktestUpdate bool
+	// Mode, Rule, CostLimit, MaxSeries, MinSeries: design.Options ("" and 0: its defaults,
+	// i.e. Auto, the one-SE rule, 5x, 100, 20: what a portfolio gets).
+	Mode                 design.Mode
+	Rule                 design.Rule
+	CostLimit            float64
+	MaxSeries, MinSeries int
+	// Combinations are design.Options.Combinations (nil: design.Combinations).
+	Combinations []design.Combination
+	// Log, when set, receives each group's design.Outcome.
+	Log io.Writer
+}
+
+// Run forecasts every entry with design.Forecast, the function a portfolio's train step
+// runs, and scores it. Entries are grouped by category and horizon, and each group is one
+// call, as one portfolio (shard) of one frequency and horizon would be: its inner holdout
+// and choices see only that group's training data. It returns the report and the per-entry
+// results. CPU time (user + system, getrusage) covers the whole call, inner holdout
+// included, and is reported per series in All.CPUMilliseconds. A series whose forecast
+// fails is scored with the naive forecast (last value) and counted in Failed.
+func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.Result, error) {
+	zoo, err := selection.Zoo(o.Families...)
+	if err != nil {
+		return nil, nil, err
+	}
+	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
+		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin,
+		BacktestUpdate: o.BacktestUpdate}
+	type group struct {
+		cat string
+		h   int
+	}
+	byGroup := map[group][]int{}
+	var groups []group
+	for i, e := range entries {
+		g := group{e.Category, e.Horizon}
+		if _, ok := byGroup[g]; !ok {
+			groups = append(groups, g)
+		}
+		byGroup[g] = append(byGroup[g], i)
+	}
+	sort.Slice(groups, func(a, b int) bool {
+		if groups[a].cat != groups[b].cat {
+			return groups[a].cat < groups[b].cat
+		}
+		return groups[a].h < groups[b].h
+	})
+	results := make([]selection.Result, len(entries))
+	errs := make([]error, len(entries))
+	counts := map[string]int{}
+	cpu0 := cpuTime()
+	for _, g := range groups {
+		cfg := base
+		cfg.Horizon = g.h
+		idx := byGroup[g]
+		in := make([]series.Series, len(idx))
+		for j, i := range idx {
+			in[j] = entries[i].Series()
+		}
+		do := design.Options{Mode: o.Mode, Base: cfg, Rule: o.Rule, CostLimit: o.CostLimit,
+			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations}
+		out, err := design.Forecast(ctx, in, do, func(j int, r design.Result, err error) {
+			results[idx[j]], errs[idx[j]] = r.Result, err
+			counts[r.Design]++
+		})
+		if err != nil {
+			return nil, nil, err
+		}
+		if o.Log != nil {
+			fmt.Fprintf(o.Log, "%s (h=%d): ", g.cat, g.h)
+			out.Write(o.Log)
+		}
+	}
+	cpu := cpuTime() - cpu0
+	rep := newReport(fmt.Sprintf("almanac design=%s %s designs=%v", modeName(o.Mode), describe(o, zoo), counts))
+	for i, e := range entries {
+		f := results[i].Mean
+		t := rep.tally(e.Category)
+		if errs[i] != nil || len(f) != e.Horizon {
+			f = make([]float64, e.Horizon)
+			for k := range f {
+				f[k] = e.Train[len(e.Train)-1]
+			}
+			t.Failed++
+			rep.All.Failed++
+		} else if x := results[i].Expected; !math.IsNaN(x) {
+			t.Expected += x
+			t.ExpectedN++
+			rep.All.Expected += x
+			rep.All.ExpectedN++
+		}
+		rep.add(e, f)
+	}
+	if len(entries) > 0 {
+		rep.All.CPUMilliseconds = float64(cpu.Microseconds()) / 1000 / float64(len(entries))
+	}
+	return rep, results, nil
+}
+
+func modeName(m design.Mode) string {
+	if m == "" {
+		return string(design.Auto)
+	}
+	return string(m)
+}

@@ -1,0 +1,603 @@
+package design
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"sort"
+	"strings"
+	"time"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// Defaults for the zero-valued Options fields.
+const (
+	// DefaultCostLimit: a candidate may cost up to 5 times the simplest candidate's CPU per
+	// series (chosen for cost before any test score was seen: it keeps the per-series
+	// designs over the cheap members and drops designs with ARIMA, about 17x ETS+Theta on M3).
+	DefaultCostLimit = 5.0
+	// DefaultMaxSeries caps the inner-holdout series per segment (a spread sample of the
+	// eligible ones: every k-th in input order).
+	DefaultMaxSeries = 100
+	// DefaultMinSeries is the fewest inner series a segment chooses on by itself; below it
+	// the choice comes from the next coarser segment (band pooled, then class), and when not
+	// even the frequency has that many, the simplest candidate is used.
+	DefaultMinSeries = 20
+	// DefaultPilot is the number of inner series per segment every zoo member runs on alone,
+	// to measure its cost before the inner holdout.
+	DefaultPilot = 8
+)
+
+// Options shapes Forecast.
+type Options struct {
+	// Mode is Auto ("" too), PerSeries or Fixed.
+	Mode Mode
+	// Base is the declared configuration: zoo, combination, horizon, levels, backtest,
+	// cleaning. Every candidate keeps its settings other than zoo and combination.
+	Base selection.Config
+	// Combinations are the fixed candidates (nil: the package's Combinations).
+	Combinations []Combination
+	// Rule picks per segment ("": OneSE).
+	Rule Rule
+	// CostLimit is the CPU budget per series as a multiple of the first (simplest)
+	// candidate's cost (0: DefaultCostLimit): zoo members are dropped until every candidate
+	// fits it (withinBudget; the first candidate's members are never dropped). The ratio, not milliseconds, is the budget, so that one setting fits
+	// every machine, series length and horizon.
+	CostLimit float64
+	// MaxSeries, MinSeries and Pilot: see DefaultMaxSeries, DefaultMinSeries, DefaultPilot.
+	MaxSeries, MinSeries, Pilot int
+	// Workers for selection.ForecastMany (<= 0: GOMAXPROCS).
+	Workers int
+	// CPU is the clock costs are measured with (nil: ProcessCPU).
+	CPU func() time.Duration
+}
+
+func (o Options) withDefaults() Options {
+	if o.Mode == "" {
+		o.Mode = Auto
+	}
+	if o.Rule == "" {
+		o.Rule = OneSE
+	}
+	if o.Combinations == nil {
+		o.Combinations = Combinations
+	}
+	if o.CostLimit == 0 {
+		o.CostLimit = DefaultCostLimit
+	}
+	if o.MaxSeries == 0 {
+		o.MaxSeries = DefaultMaxSeries
+	}
+	if o.MinSeries == 0 {
+		o.MinSeries = DefaultMinSeries
+	}
+	if o.Pilot == 0 {
+		o.Pilot = DefaultPilot
+	}
+	if o.CPU == nil {
+		o.CPU = ProcessCPU
+	}
+	return o
+}
+
+// Validate reports the first invalid option, by name.
+func (o Options) Validate() error {
+	o = o.withDefaults()
+	switch {
+	case !o.Mode.Valid():
+		return fmt.Errorf("design: mode %q is not one of %v", o.Mode, Modes())
+	case !o.Rule.Valid():
+		return fmt.Errorf("design: rule %q is not %q or %q", o.Rule, OneSE, Lowest)
+	case !(o.CostLimit >= 1) || math.IsInf(o.CostLimit, 1):
+		return fmt.Errorf("design: costLimit must be a finite ratio >= 1, got %v", o.CostLimit)
+	case o.MaxSeries < 1 || o.MinSeries < 1 || o.Pilot < 1:
+		return fmt.Errorf("design: maxSeries, minSeries and pilot must be >= 1, got %d, %d, %d", o.MaxSeries, o.MinSeries, o.Pilot)
+	}
+	return o.Base.Validate()
+}
+
+// Result is one series' forecast with the design that made it.
+type Result struct {
+	selection.Result
+	// Design is the candidate's name (Candidate.Name).
+	Design string
+	// Segment is the series' segment (zero when the series could not be cleaned).
+	Segment Segment
+}
+
+// Outcome says what Forecast chose and why.
+type Outcome struct {
+	Mode Mode
+	// Candidates are the designs weighed, simplest first (one for PerSeries and Fixed).
+	Candidates []string
+	// MemberCostMillis is each zoo member's CPU milliseconds per series on the pilot, alone
+	// (a lower bound for a member stopped at the budget); BudgetMillis is CostLimit times the
+	// first candidate's cost; DroppedMembers left the zoo for cost (withinBudget).
+	MemberCostMillis map[string]float64
+	BudgetMillis     float64
+	DroppedMembers   []string
+	// CostMillis is each candidate's cost: the sum of its members' MemberCostMillis.
+	CostMillis []float64
+	// InnerSeries is the number of inner-holdout series, InnerCPU the CPU time of the pilot
+	// and the inner holdout together (0 when there was nothing to choose between).
+	InnerSeries int
+	InnerCPU    time.Duration
+	// Choices holds one entry per segment of the input, by segment name.
+	Choices []Choice
+}
+
+// Choice is the design of one segment.
+type Choice struct {
+	Segment Segment
+	Design  string
+	// Series is the number of input series in the segment.
+	Series int
+	// Basis is the segment whose inner series decided (the segment itself, or a coarser one
+	// when it had fewer than MinSeries); Inner is their number, 0 when no segment had
+	// MinSeries and the simplest candidate was taken.
+	Basis Segment
+	Inner int
+	// Means and StdErrs are each candidate's mean inner MASE on the basis and its standard
+	// error (NaN: not scored, e.g. dropped for cost).
+	Means, StdErrs []float64
+}
+
+// Forecast forecasts every series of in and calls emit once per series (from the calling
+// goroutine, in no promised order) with its result, design and segment.
+//
+// Fixed runs o.Base on every series; PerSeries runs it without its combination. Auto:
+//
+//  1. Every series is cleaned (o.Base.Clean) and put in its Segment.
+//  2. Inner holdout (Tashman 2000, section 2: hold out the end of the in-sample data): a
+//     series with n >= 2h + 2m + 2 cleaned observations is eligible; of each segment's
+//     eligible series at most MaxSeries are used (every k-th in input order). Each loses its
+//     last h observations, which the candidates forecast from the rest; forecasts are scored
+//     by MASE with the shortened history's seasonal-naive scale (Hyndman & Koehler 2006). A
+//     candidate that fails on a series is scored with the naive forecast (last value).
+//  3. Cost: every zoo member runs alone on a pilot (the first Pilot inner series of each
+//     segment); the budget is CostLimit times the summed cost of the first candidate's
+//     members, and members are taken out of the zoo until the rest fit it (withinBudget).
+//     The candidates are then built from that zoo, so every candidate costs at most the
+//     budget (a candidate's cost is the sum of its members').
+//  4. Per segment, o.Rule picks among the candidates kept, on the segment's inner series or,
+//     below MinSeries, on those of the next coarser segment (band pooled, then class);
+//     without MinSeries anywhere, the first (simplest) candidate is used.
+//  5. Each series is forecast on its full history with its segment's design.
+//
+// Series are chosen for, and forecast by, this call alone: shards of a run choose apart.
+// The test data of a benchmark is never passed in, so it cannot influence the choice.
+func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i int, r Result, err error)) (*Outcome, error) {
+	if err := o.Validate(); err != nil {
+		return nil, err
+	}
+	o = o.withDefaults()
+	out := &Outcome{Mode: o.Mode}
+	if o.Mode != Auto {
+		c := ForMode(o.Mode, o.Base)
+		out.Candidates = []string{c.Name}
+		idx := make([]int, len(in))
+		segs := make([]Segment, len(in))
+		for i := range in {
+			idx[i] = i
+			segs[i] = segmentOf(in[i], o.Base)
+		}
+		return out, run(ctx, in, idx, c, segs, o.Workers, emit)
+	}
+
+	cands := Candidates(o.Base, o.Combinations)
+	for _, c := range cands {
+		out.Candidates = append(out.Candidates, c.Name)
+	}
+	h := o.Base.Horizon
+	segs := make([]Segment, len(in))
+	cleaned := make([]*series.Series, len(in))
+	bySeg := map[Segment][]int{}
+	for i, s := range in {
+		cp := s
+		cp.Values = append([]float64(nil), s.Values...)
+		cp.Notes = nil
+		if err := series.Clean(&cp, o.Base.Clean); err != nil {
+			continue // the final run rejects it with the same reason
+		}
+		cleaned[i] = &cp
+		segs[i] = SegmentOf(cp, h, seasonLength(o.Base, cp.Freq))
+		bySeg[segs[i]] = append(bySeg[segs[i]], i)
+	}
+	order := make([]Segment, 0, len(bySeg))
+	for sg := range bySeg {
+		order = append(order, sg)
+	}
+	sort.Slice(order, func(a, b int) bool { return order[a].String() < order[b].String() })
+
+	// The inner-holdout sample, segment by segment; the first Pilot of each are the pilot.
+	var inner []innerSeries
+	var pilot []int
+	for _, sg := range order {
+		if len(cands) < 2 {
+			break // nothing to choose between
+		}
+		var elig []int
+		for _, i := range bySeg[sg] {
+			if len(cleaned[i].Values) >= minInner(h, seasonLength(o.Base, sg.Frequency)) {
+				elig = append(elig, i)
+			}
+		}
+		k := (len(elig) + o.MaxSeries - 1) / o.MaxSeries
+		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
+			is := holdOut(*cleaned[elig[j]], h, seasonLength(o.Base, sg.Frequency))
+			is.seg = sg
+			if n < o.Pilot {
+				pilot = append(pilot, len(inner))
+			}
+			inner = append(inner, is)
+		}
+	}
+	out.InnerSeries = len(inner)
+	var scores [][]float64 // [candidate][inner series] MASE, NaN: not scored
+	if len(inner) > 0 {
+		cpu0 := o.CPU()
+		base, err := withinBudget(ctx, inner, pilot, cands[0], o, out)
+		if err != nil {
+			return nil, err
+		}
+		cands = Candidates(base, o.Combinations)
+		out.Candidates = out.Candidates[:0]
+		for ci, c := range cands {
+			out.Candidates = append(out.Candidates, c.Name)
+			out.CostMillis = append(out.CostMillis, sumCost(c.Config, out.MemberCostMillis))
+			if len(cands) < 2 {
+				break
+			}
+			scores = append(scores, make([]float64, len(inner)))
+			all := make([]int, len(inner))
+			for j := range all {
+				all[j] = j
+				scores[ci][j] = math.NaN()
+			}
+			if err := scoreInner(ctx, inner, all, c, o.Workers, scores[ci]); err != nil {
+				return nil, err
+			}
+		}
+		out.InnerCPU = o.CPU() - cpu0
+	}
+
+	chosen := map[Segment]int{}
+	for _, sg := range order {
+		ch := choose(sg, inner, scores, o)
+		ch.Series = len(bySeg[sg])
+		if ch.Inner > 0 {
+			chosen[sg] = o.Rule.Pick(ch.Means, ch.StdErrs)
+		}
+		if chosen[sg] < 0 {
+			chosen[sg] = 0
+		}
+		ch.Design = cands[chosen[sg]].Name
+		out.Choices = append(out.Choices, ch)
+	}
+
+	// The final run, one design at a time; series that could not be cleaned go with the
+	// first candidate, which rejects them with the cleaning error.
+	groups := make([][]int, len(cands))
+	for i := range in {
+		ci := 0
+		if cleaned[i] != nil {
+			ci = chosen[segs[i]]
+		}
+		groups[ci] = append(groups[ci], i)
+	}
+	for ci, idx := range groups {
+		if len(idx) == 0 {
+			continue
+		}
+		if err := run(ctx, in, idx, cands[ci], segs, o.Workers, emit); err != nil {
+			return nil, err
+		}
+	}
+	return out, nil
+}
+
+// seasonLength is the season length of the bands and of the inner MASE scale: the declared
+// one, else the frequency's (members may override theirs; the scale does not follow them).
+func seasonLength(c selection.Config, f series.Frequency) int {
+	if c.SeasonLength > 0 {
+		return c.SeasonLength
+	}
+	return f.SeasonLength()
+}
+
+// segmentOf is the segment of a raw series under c (zero when it cannot be cleaned).
+func segmentOf(s series.Series, c selection.Config) Segment {
+	cp := s
+	cp.Values = append([]float64(nil), s.Values...)
+	cp.Notes = nil
+	if err := series.Clean(&cp, c.Clean); err != nil {
+		return Segment{}
+	}
+	return SegmentOf(cp, c.Horizon, seasonLength(c, cp.Freq))
+}
+
+// run forecasts the series in[idx] with candidate c and emits their results.
+func run(ctx context.Context, in []series.Series, idx []int, c Candidate, segs []Segment, workers int, emit func(int, Result, error)) error {
+	sub := make([]series.Series, len(idx))
+	for j, i := range idx {
+		sub[j] = in[i]
+	}
+	return selection.ForecastMany(ctx, sub, c.Config, workers, func(j int, r selection.Result, err error) {
+		emit(idx[j], Result{Result: r, Design: c.Name, Segment: segs[idx[j]]}, err)
+	})
+}
+
+// innerSeries is one series of the inner holdout.
+type innerSeries struct {
+	train  series.Series
+	test   []float64
+	seg    Segment
+	scaled bool // the MASE scale of train is defined (non-zero)
+	m      int
+}
+
+// holdOut cuts the last h observations of a cleaned series off as the inner test.
+func holdOut(s series.Series, h, m int) innerSeries {
+	n := len(s.Values)
+	tr := s
+	tr.Values = s.Values[: n-h : n-h]
+	if len(s.Covariates) > 0 {
+		tr.Covariates = map[string][]float64{}
+		for k, v := range s.Covariates {
+			tr.Covariates[k] = v[:min(len(v), n)]
+		}
+	}
+	is := innerSeries{train: tr, test: s.Values[n-h:], m: m}
+	is.scaled = !math.IsNaN(backtest.Score(backtest.MASE, is.test, is.test, tr.Values, m))
+	return is
+}
+
+// scoreInner runs candidate c (without quantiles) on the inner series at positions idx and
+// writes their MASE into scores.
+func scoreInner(ctx context.Context, inner []innerSeries, idx []int, c Candidate, workers int, scores []float64) error {
+	if len(idx) == 0 {
+		return nil
+	}
+	cfg := c.Config
+	cfg.Levels = nil
+	cfg.Horizon = len(inner[idx[0]].test)
+	sub := make([]series.Series, len(idx))
+	for j, i := range idx {
+		sub[j] = inner[i].train
+	}
+	return selection.ForecastMany(ctx, sub, cfg, workers, func(j int, r selection.Result, err error) {
+		is := inner[idx[j]]
+		if !is.scaled {
+			return
+		}
+		f := r.Mean
+		if err != nil || len(f) != len(is.test) || !finite(f) {
+			last := is.train.Values[len(is.train.Values)-1]
+			f = make([]float64, len(is.test))
+			for k := range f {
+				f[k] = last
+			}
+		}
+		scores[idx[j]] = backtest.Score(backtest.MASE, is.test, f, is.train.Values, is.m)
+	})
+}
+
+// choose finds the basis of segment sg (itself or coarser, the first with MinSeries scored
+// inner series) and the candidates' mean inner MASE there.
+func choose(sg Segment, inner []innerSeries, scores [][]float64, o Options) Choice {
+	ch := Choice{Segment: sg, Basis: sg}
+	for basis, ok := sg, true; ok; basis, ok = basis.coarser() {
+		var members []int
+		for j, is := range inner {
+			if is.scaled && within(is.seg, basis) {
+				members = append(members, j)
+			}
+		}
+		if len(members) < o.MinSeries || len(scores) == 0 || scores[0] == nil {
+			continue
+		}
+		ch.Basis, ch.Inner = basis, len(members)
+		for ci := range scores {
+			var xs []float64
+			for _, j := range members {
+				if v := scores[ci][j]; !math.IsNaN(v) {
+					xs = append(xs, v)
+				}
+			}
+			mean, se := meanSE(xs)
+			if len(xs) < len(members) { // dropped for cost: no score at all
+				mean, se = math.NaN(), math.NaN()
+			}
+			ch.Means, ch.StdErrs = append(ch.Means, mean), append(ch.StdErrs, se)
+		}
+		return ch
+	}
+	return ch
+}
+
+// within reports whether segment s falls in segment b (b's "*" fields match anything).
+func within(s, b Segment) bool {
+	return s.Frequency == b.Frequency && (b.Class == Any || s.Class == b.Class) && (b.Band == Any || s.Band == b.Band)
+}
+
+// Write prints the outcome: candidates with cost, then per segment the choice and its basis.
+func (out *Outcome) Write(w io.Writer) {
+	if out.Mode != Auto || len(out.Candidates) < 2 {
+		fmt.Fprintf(w, "design %s: %s for every series\n", out.Mode, strings.Join(out.Candidates, ", "))
+		return
+	}
+	fmt.Fprintf(w, "design auto: %d inner-holdout series, %.2f s CPU; budget %.2f ms/series", out.InnerSeries, out.InnerCPU.Seconds(), out.BudgetMillis)
+	if len(out.DroppedMembers) > 0 {
+		fmt.Fprintf(w, "; over budget: %s", strings.Join(out.DroppedMembers, ", "))
+	}
+	fmt.Fprintln(w)
+	for i, c := range out.Candidates {
+		fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, out.CostMillis[i])
+	}
+	for _, ch := range out.Choices {
+		fmt.Fprintf(w, "  %-28s %5d series: %-16s (basis %s, %d inner series", ch.Segment, ch.Series, ch.Design, ch.Basis, ch.Inner)
+		for i, m := range ch.Means {
+			if !math.IsNaN(m) {
+				fmt.Fprintf(w, "; %s %.4f (%.4f)", out.Candidates[i], m, ch.StdErrs[i])
+			}
+		}
+		fmt.Fprintln(w, ")")
+	}
+}
+
+// Counts returns the number of series per chosen design.
+func (out *Outcome) Counts() map[string]int {
+	c := map[string]int{}
+	for _, ch := range out.Choices {
+		c[ch.Design] += ch.Series
+	}
+	return c
+}
+
+func finite(xs []float64) bool {
+	for _, x := range xs {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return false
+		}
+	}
+	return true
+}
+
+// withinBudget measures every zoo member's CPU time per series on the pilot, each member alone
+// (its backtest and its fit, as selection runs it), sets out.MemberCostMillis, out.BudgetMillis
+// (CostLimit times the summed cost of first's members) and out.DroppedMembers, and returns
+// o.Base with the dropped members taken out of the zoo. A member is dropped when its own cost
+// exceeds the budget (its run stops as soon as it has used the budget for every pilot series),
+// then, most expensive first (of equal costs the later in zoo order, the more complex), until the remaining members' costs sum to at most the budget;
+// first's members are never dropped. A candidate's cost is the sum of its members' (sumCost).
+func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, o Options, out *Outcome) (selection.Config, error) {
+	base := o.Base
+	out.MemberCostMillis = map[string]float64{}
+	protected := map[string]bool{}
+	for _, sp := range first.Config.Zoo {
+		protected[sp.DisplayName()] = true
+	}
+	measure := func(limit float64) func(i int) error {
+		return func(i int) error {
+			sp := base.Zoo[i]
+			c := base
+			c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = base.Zoo[i:i+1], 0, "", 0
+			ms, err := pilotCost(ctx, inner, pilot, c, o, limit)
+			out.MemberCostMillis[sp.DisplayName()] = ms
+			return err
+		}
+	}
+	for i, sp := range base.Zoo {
+		if protected[sp.DisplayName()] {
+			if err := measure(math.Inf(1))(i); err != nil {
+				return base, err
+			}
+		}
+	}
+	out.BudgetMillis = o.CostLimit * sumCost(first.Config, out.MemberCostMillis)
+	for i, sp := range base.Zoo {
+		if !protected[sp.DisplayName()] {
+			if err := measure(out.BudgetMillis)(i); err != nil {
+				return base, err
+			}
+		}
+	}
+	keep := slices.Clone(base.Zoo)
+	drop := func(name string) {
+		out.DroppedMembers = append(out.DroppedMembers, name)
+		keep = slices.DeleteFunc(keep, func(sp models.Spec) bool { return sp.DisplayName() == name })
+	}
+	for _, sp := range base.Zoo {
+		if n := sp.DisplayName(); !protected[n] && out.MemberCostMillis[n] > out.BudgetMillis {
+			drop(n)
+		}
+	}
+	for {
+		c := base
+		c.Zoo = keep
+		if sumCost(c, out.MemberCostMillis) <= out.BudgetMillis {
+			break
+		}
+		worst := ""
+		for _, sp := range keep {
+			n := sp.DisplayName()
+			if !protected[n] && (worst == "" || out.MemberCostMillis[n] >= out.MemberCostMillis[worst]) {
+				worst = n
+			}
+		}
+		if worst == "" {
+			break
+		}
+		drop(worst)
+	}
+	base.Zoo = keep
+	if base.CombineTop > len(keep) {
+		base.CombineTop = len(keep)
+	}
+	return base, nil
+}
+
+// pilotCost runs c on the pilot inner series and returns its CPU milliseconds per series;
+// the run stops early once it has used limit milliseconds per pilot series (the result is
+// then a lower bound above limit).
+func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selection.Config, o Options, limit float64) (float64, error) {
+	if len(pilot) == 0 {
+		return math.NaN(), nil
+	}
+	c.Levels = nil
+	c.Horizon = len(inner[pilot[0]].test)
+	sub := make([]series.Series, len(pilot))
+	for j, i := range pilot {
+		sub[j] = inner[i].train
+	}
+	rctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	t0 := o.CPU()
+	perSeries := func() float64 { return float64((o.CPU() - t0).Microseconds()) / 1000 / float64(len(pilot)) }
+	done := make(chan struct{})
+	if !math.IsInf(limit, 1) {
+		go func() {
+			tick := time.NewTicker(5 * time.Millisecond)
+			defer tick.Stop()
+			for {
+				select {
+				case <-done:
+					return
+				case <-tick.C:
+					if perSeries() > limit {
+						cancel()
+						return
+					}
+				}
+			}
+		}()
+	}
+	err := selection.ForecastMany(rctx, sub, c, o.Workers, func(int, selection.Result, error) {})
+	close(done)
+	if err != nil && ctx.Err() != nil {
+		return math.NaN(), ctx.Err()
+	}
+	if err != nil && rctx.Err() == nil {
+		return math.NaN(), err
+	}
+	return perSeries(), nil
+}
+
+// sumCost is the summed cost of c's zoo members (NaN for an unmeasured one).
+func sumCost(c selection.Config, member map[string]float64) float64 {
+	s := 0.0
+	for _, sp := range c.Zoo {
+		v, ok := member[sp.DisplayName()]
+		if !ok {
+			return math.NaN()
+		}
+		s += v
+	}
+	return s
+}
