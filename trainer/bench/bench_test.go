@@ -107,7 +107,7 @@ func TestReferenceRThetaMatches(t *testing.T) {
 		t.Fatal(err)
 	}
 	entries := sample(all, 300, 0) // 11 series over all categories
-	refs, err := ReferenceR(context.Background(), entries, io.Discard)
+	refs, err := ReferenceR(context.Background(), entries, nil, io.Discard)
 	if err != nil {
 		t.Fatal(err)
 	}

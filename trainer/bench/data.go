@@ -1,4 +1,5 @@
-// Package bench measures the engine's accuracy and cost on the M3 competition data.
+// Package bench measures the engine's accuracy and cost on competition data: the M3 layout
+// (Load) and the long layout of one frequency (LoadLong).
 package bench
 
 import (
@@ -18,16 +19,23 @@ import (
 type Entry struct {
 	ID        string
 	Category  string
-	Frequency int // observations per year as in the data (1, 4, 12)
-	Horizon   int
-	Start     time.Time
-	Train     []float64
-	Test      []float64
+	Frequency int // season length of the scoring (MASE, Naive2) and of R's ts: M3's 1, 4, 12; M4Period for the long layout
+	// Freq is the engine frequency the series is forecast with (its models take
+	// Freq.SeasonLength()); empty: the M3 frequency that Frequency names.
+	Freq    series.Frequency
+	Horizon int
+	Start   time.Time
+	Train   []float64
+	Test    []float64
 }
 
 // Series returns the training data as an engine series.
 func (e Entry) Series() series.Series {
-	return series.Series{Key: e.ID, Start: e.Start, Freq: freqOf(e.Frequency), Values: append([]float64(nil), e.Train...)}
+	f := e.Freq
+	if f == "" {
+		f = freqOf(e.Frequency)
+	}
+	return series.Series{Key: e.ID, Start: e.Start, Freq: f, Values: append([]float64(nil), e.Train...)}
 }
 
 func freqOf(f int) series.Frequency {

@@ -21,6 +21,7 @@ import (
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/series"
 )
 
 // EnvM3Dir names the environment variable --m3 reads the data directory from.
@@ -44,18 +45,20 @@ func cpuTime() time.Duration {
 	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }
 
-// Main is the `bench` command: it loads the M3 data, runs the selection design, prints sMAPE
-// and MASE per category and overall and the CPU milliseconds per series, and ends with exactly
-// one line
+// Main is the `bench` command: it loads a directory in the M3 or the long layout (LoadDir),
+// runs the selection design, prints sMAPE, MASE and OWA against the bench's own Naive2 per
+// category (the long layout: its frequency) and overall and the CPU milliseconds per series,
+// and ends with exactly one line (SummaryLine)
 //
-//	all: smape=S mase=M cpu_ms_per_series=C series=N
+//	all: smape=S mase=M owa=O cpu_ms_per_series=C series=N
 //
 // With --json the report is first printed as one JSON line. It returns the process exit code
 // (0 success, 1 failure, 2 usage).
 func Main(args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	dataDir := fs.String("data", "", "directory in the M3 CSV layout (train.csv, test.csv, series.csv, published_forecasts.csv)")
+	dataDir := fs.String("data", "", "directory in the M3 CSV layout (series.csv, train.csv, test.csv, published_forecasts.csv) or the long layout (train.csv, test.csv: series,date,value)")
+	freqFlag := fs.String("frequency", "", "frequency of every series of the long layout: "+strings.Join(FrequencyNames(), ", "))
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
 	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
 	choice := fs.String("choice", string(design.OneSE), `with --design auto: "one-se" (the simplest design within one standard error of the lowest inner MASE) or "lowest"`)
@@ -66,7 +69,8 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
-	refR := fs.Bool("reference-r", false, "run R forecast's ets and thetaf on the same series and compare (needs Rscript)")
+	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
+	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
 	limit := fs.Int("limit", 0, "use only the first N series (0: all)")
 	every := fs.Int("every", 1, "use every K-th series of series.csv (a spread sample over categories)")
 	workers := fs.Int("workers", 0, "parallel workers (0: GOMAXPROCS)")
@@ -96,6 +100,20 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "bench: --every must be >= 1")
 		return 2
 	}
+	var freq series.Frequency
+	if *freqFlag != "" {
+		f, err := ParseFrequency(*freqFlag)
+		if err != nil {
+			fmt.Fprintf(stderr, "bench: --frequency: %v\n", err)
+			return 2
+		}
+		freq = f
+	}
+	rMethods, err := ParseRMethods(*refRMethods)
+	if err != nil {
+		fmt.Fprintf(stderr, "bench: --reference-r-methods: %v\n", err)
+		return 2
+	}
 	// SIGTERM or Ctrl-C cancels the run: the workers stop and any R child is killed.
 	ctx, stop := signal.NotifyContext(context.Background(), syscall.SIGTERM, os.Interrupt)
 	defer stop()
@@ -112,12 +130,18 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		}
 		defer pprof.StopCPUProfile()
 	}
-	entries, err := Load(dir, 0)
+	entries, err := LoadDir(dir, freq)
 	if err != nil {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
 		return 1
 	}
 	entries = sample(entries, *every, *limit)
+	naive2, err := Naive2Report(entries)
+	if err != nil {
+		fmt.Fprintf(stderr, "bench: %v\n", err)
+		return 1
+	}
+	writeTable(stdout, naive2, naive2)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
 		Mode: design.Mode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, Log: stdout}
@@ -144,7 +168,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 			return 1
 		}
 		for _, r := range pubs {
-			writeTable(stdout, r)
+			writeTable(stdout, r, naive2)
 		}
 	}
 	var rep *Report
@@ -154,7 +178,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
 		return 1
 	}
-	writeTable(stdout, rep)
+	writeTable(stdout, rep, naive2)
 	writeChoices(stdout, results)
 	fmt.Fprintf(stdout, "  failed=%d cpu_ms_per_series=%.2f workers=%d\n", rep.All.Failed, rep.All.CPUMilliseconds, effectiveWorkers(*workers))
 	if rep.All.ExpectedN > 0 {
@@ -163,17 +187,17 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	var refs []*Report
 	if *refR {
-		refs, err = ReferenceR(ctx, entries, stdout)
+		refs, err = ReferenceR(ctx, entries, rMethods, stdout)
 		if err != nil && !errors.Is(err, ErrNoR) {
 			fmt.Fprintf(stderr, "bench: reference-r: %v\n", err)
 			return 1
 		}
 		if len(refs) > 0 {
-			writeSideBySide(stdout, rep, refs)
+			writeSideBySide(stdout, rep, refs, naive2)
 		}
 	}
 	if *asJSON {
-		doc := map[string]any{"ours": jsonReport(rep)}
+		doc := map[string]any{"ours": jsonReport(rep), "naive2": jsonReport(naive2)}
 		if pubs != nil {
 			doc["published"] = jsonReports(pubs)
 		}
@@ -187,8 +211,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		}
 		fmt.Fprintf(stdout, "%s\n", b)
 	}
-	fmt.Fprintf(stdout, "all: smape=%.3f mase=%.4f cpu_ms_per_series=%.2f series=%d\n",
-		rep.All.MeanSMAPE(), rep.All.MeanMASE(), rep.All.CPUMilliseconds, rep.All.N)
+	fmt.Fprintln(stdout, SummaryLine(rep, naive2))
 	return 0
 }
 
@@ -289,44 +312,6 @@ func sample(es []Entry, k, limit int) []Entry {
 		out = append(out, es[i])
 	}
 	return out
-}
-
-// writeSideBySide prints sMAPE and MASE per category for ours and each reference, then the
-// ratios ours/reference for sMAPE, MASE and CPU milliseconds per series.
-func writeSideBySide(w io.Writer, ours *Report, refs []*Report) {
-	all := append([]*Report{ours}, refs...)
-	fmt.Fprintf(w, "side by side (sMAPE / MASE)\n  %-10s", "category")
-	for _, r := range all {
-		fmt.Fprintf(w, " %24s", shortName(r.Method))
-	}
-	fmt.Fprintln(w)
-	row := func(name string, get func(*Report) Tally) {
-		fmt.Fprintf(w, "  %-10s", name)
-		for _, r := range all {
-			t := get(r)
-			fmt.Fprintf(w, " %24s", fmt.Sprintf("%.3f / %.4f", t.MeanSMAPE(), t.MeanMASE()))
-		}
-		fmt.Fprintln(w)
-	}
-	for _, c := range ours.Categories {
-		row(c, func(r *Report) Tally {
-			if t := r.By[c]; t != nil {
-				return *t
-			}
-			return Tally{}
-		})
-	}
-	row("ALL", func(r *Report) Tally { return r.All })
-	fmt.Fprintf(w, "  %-10s", "cpu ms/s")
-	for _, r := range all {
-		fmt.Fprintf(w, " %24.2f", r.All.CPUMilliseconds)
-	}
-	fmt.Fprintln(w)
-	for _, r := range refs {
-		fmt.Fprintf(w, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.4f (R %.1fx ours)\n", r.Method,
-			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(),
-			ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
-	}
 }
 
 func shortName(m string) string {

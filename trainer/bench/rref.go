@@ -3,6 +3,7 @@ package bench
 import (
 	"bufio"
 	"context"
+	_ "embed"
 	"errors"
 	"fmt"
 	"io"
@@ -15,29 +16,47 @@ import (
 	"time"
 )
 
+// rNaive2 defines the R functions seasonality_test(x, p) and naive2(x, h).
+//
+//go:embed m4naive2.R
+var rNaive2 string
+
 // ErrNoR is returned by ReferenceR when Rscript or the forecast package is not installed.
 var ErrNoR = errors.New("bench: Rscript with the forecast package is not installed")
 
-// RMethods are the R forecast functions ReferenceR runs, each in its own R process.
+// RMethods are the R methods ReferenceR runs when given none, each in its own R process.
 var RMethods = []string{"ets", "thetaf"}
 
-// rScript fits one method of R package forecast (Hyndman & Khandakar 2008) to every series:
-// forecast(ets(x), h) or thetaf(x, h); method "none" only loads the package and reads the
-// input, so its CPU time is R's start-up cost. It writes series,step,value lines, and the
-// number of failed fits (forecast by the last value) on stderr as "failed=N".
-const rScript = `
+// RMethodsAll lists every method rScript knows, in the order ReferenceR reports them.
+var RMethodsAll = []string{"ets", "thetaf", "auto.arima", "snaive", "naive2"}
+
+// rScript fits one method to every series with R package forecast (Hyndman & Khandakar 2008):
+// forecast(ets(x), h), thetaf(x, h), forecast(auto.arima(x), h) or snaive(x, h), x a ts of the
+// entry's Frequency; "naive2" is the M4 organisers' Naive2 benchmark as m4naive2.R writes it
+// out. Method "none"
+// only loads the package and reads the input, so its CPU time is R's start-up cost. It writes
+// series,step,value lines, and the number of failed fits (forecast by the last value) on
+// stderr as "failed=N".
+var rScript = `
 suppressPackageStartupMessages(library(forecast))
 args <- commandArgs(trailingOnly = TRUE)
 m <- args[1]
 inp <- readLines(args[2])
 fc <- file(args[3], "w")
 failed <- 0
+` + rNaive2 + `
 for (line in inp) {
   f <- strsplit(line, ",")[[1]]
   id <- f[1]; fr <- as.integer(f[2]); h <- as.integer(f[3])
   x <- ts(as.numeric(strsplit(f[4], " ")[[1]]), frequency = fr)
   if (m == "none") next
-  y <- tryCatch(if (m == "ets") forecast(ets(x), h = h)$mean else thetaf(x, h = h)$mean,
+  y <- tryCatch(switch(m,
+                  ets = forecast(ets(x), h = h)$mean,
+                  thetaf = thetaf(x, h = h)$mean,
+                  auto.arima = forecast(auto.arima(x), h = h)$mean,
+                  snaive = snaive(x, h = h)$mean,
+                  naive2 = naive2(x, h),
+                  stop("unknown method ", m)),
                 error = function(e) { failed <<- failed + 1; rep(x[length(x)], h) })
   writeLines(paste(id, seq_len(h), format(as.numeric(y), digits = 17), sep = ","), fc)
 }
@@ -45,19 +64,39 @@ close(fc)
 cat(sprintf("failed=%d\n", failed), file = stderr())
 `
 
+// ParseRMethods reads a comma-separated list of RMethodsAll names.
+func ParseRMethods(s string) ([]string, error) {
+	var out []string
+	for _, m := range strings.Split(s, ",") {
+		m = strings.TrimSpace(m)
+		ok := false
+		for _, k := range RMethodsAll {
+			ok = ok || k == m
+		}
+		if !ok {
+			return nil, fmt.Errorf("R method %q: want some of %s", m, strings.Join(RMethodsAll, ","))
+		}
+		out = append(out, m)
+	}
+	return out, nil
+}
+
 // HaveR reports whether Rscript and R's forecast package are installed.
 func HaveR(ctx context.Context) bool {
 	rs, err := exec.LookPath("Rscript")
 	return err == nil && exec.CommandContext(ctx, rs, "-e", `quit(status = !requireNamespace("forecast", quietly = TRUE))`).Run() == nil
 }
 
-// ReferenceR runs each of RMethods on the entries in its own Rscript process (see rScript) and
+// ReferenceR runs each of methods (nil: RMethods) on the entries in its own Rscript process (see rScript) and
 // scores the forecasts with Accuracy, so the figures compare with ours one to one. A report's
 // CPUMilliseconds is the child's user + system CPU time (rusage of the finished process, R is
 // single-threaded; BLAS threads are pinned to 1) minus that of a start-up-only child (method
 // "none": loads forecast and parses the input), divided by the number of series. It writes a
 // note to w and returns ErrNoR when R is not available.
-func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, error) {
+func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Writer) ([]*Report, error) {
+	if methods == nil {
+		methods = RMethods
+	}
 	if !HaveR(ctx) {
 		fmt.Fprintln(w, "reference-r: skipped (Rscript with the forecast package not found)")
 		return nil, ErrNoR
@@ -114,7 +153,7 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 		byID[e.ID] = i
 	}
 	var reps []*Report
-	for _, method := range RMethods {
+	for _, method := range methods {
 		cpu, failed, path, err := run(method)
 		if err != nil {
 			return nil, err
@@ -123,7 +162,11 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 		if err != nil {
 			return nil, err
 		}
-		r := newReport("R forecast::" + method)
+		name := "R forecast::" + method
+		if method == "naive2" {
+			name = "R naive2 (M4 definition)"
+		}
+		r := newReport(name)
 		for i, e := range entries {
 			if len(fcs[i]) != e.Horizon {
 				return nil, fmt.Errorf("R %s: series %s has %d steps, want %d", method, e.ID, len(fcs[i]), e.Horizon)
@@ -131,6 +174,7 @@ func ReferenceR(ctx context.Context, entries []Entry, w io.Writer) ([]*Report, e
 			r.add(e, fcs[i])
 		}
 		r.All.Failed = failed
+		r.Forecasts = fcs
 		if len(entries) > 0 {
 			r.All.CPUMilliseconds = float64((cpu - base).Microseconds()) / 1000 / float64(len(entries))
 		}

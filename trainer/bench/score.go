@@ -2,7 +2,6 @@ package bench
 
 import (
 	"fmt"
-	"io"
 	"math"
 	"path/filepath"
 	"sort"
@@ -58,6 +57,9 @@ type Report struct {
 	Categories []string // in first-seen order
 	By         map[string]*Tally
 	All        Tally
+	// Forecasts holds each entry's forecast, in entry order, for the reports of R references
+	// (ReferenceR); nil otherwise.
+	Forecasts [][]float64
 }
 
 func newReport(method string) *Report { return &Report{Method: method, By: map[string]*Tally{}} }
@@ -135,15 +137,4 @@ func ScorePublished(dir string, entries []Entry) ([]*Report, error) {
 	}
 	sort.Slice(out, func(i, j int) bool { return out[i].Method < out[j].Method })
 	return out, nil
-}
-
-// writeTable prints a report as aligned text.
-func writeTable(w io.Writer, r *Report) {
-	fmt.Fprintf(w, "%s\n", r.Method)
-	fmt.Fprintf(w, "  %-10s %6s %8s %8s\n", "category", "series", "sMAPE", "MASE")
-	for _, c := range r.Categories {
-		t := r.By[c]
-		fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f\n", c, t.N, t.MeanSMAPE(), t.MeanMASE())
-	}
-	fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f\n", "ALL", r.All.N, r.All.MeanSMAPE(), r.All.MeanMASE())
 }

@@ -1,0 +1,149 @@
+package bench
+
+import (
+	"fmt"
+	"io"
+	"math"
+
+	"almanac.dev/almanac/trainer/models"
+)
+
+// Naive2 is the M4 organisers' Naive2 benchmark forecast of y for h steps with season length
+// m (M4Period; the organisers' benchmark code, the R script "Benchmarks and Evaluation",
+// function Benchmarks, forecast f3; recalled from memory and written out in R in m4naive2.R):
+// the naive forecast of the seasonally adjusted series, reseasonalised,
+//
+//	seasonal ⇔ m > 1 and n >= 3m and |r_m| > 1.645·√((1 + 2 Σ_{k<m} r_k²)/n)   (models.SeasonalityTest)
+//	S        = classical multiplicative decomposition indices (models.MultiplicativeIndices,
+//	           R stats::decompose)
+//	ŷ_{n+k}  = (y_n / S_{n mod m}) · S_{(n+k) mod m}, k = 1..h (t counted from 1), S ≡ 1 when not seasonal
+//
+// computed by the zoo's SeasonalAdjustedNaive. One detail of the organisers' code is kept: its
+// autocorrelations come from R's acf with the default lag.max = ⌊10·log10 n⌋, so r_m is
+// missing, and the series is taken as not seasonal, when m exceeds that (an hourly series of
+// fewer than 251 points). SeasonalAdjustedNaive also treats a series as not seasonal when the
+// moving-average trend is not positive or an index is below 1e-4 in size; neither happens on
+// positive data.
+func Naive2(y []float64, m, h int) ([]float64, error) {
+	if m > 1 && m > acfDefaultLagMax(len(y)) {
+		m = 1
+	}
+	mod, err := models.New(models.Spec{Family: models.FamilySeasonalAdjustedNaive})
+	if err != nil {
+		return nil, err
+	}
+	fit, err := mod.Fit(y, max(m, 1))
+	if err != nil {
+		return nil, err
+	}
+	return fit.Forecast(h, nil).Mean, nil
+}
+
+// acfDefaultLagMax is R stats::acf's default lag.max for one series of n points,
+// min(⌊10·log10 n⌋, n−1) (R 4.2 documentation of acf).
+func acfDefaultLagMax(n int) int {
+	if n < 1 {
+		return 0
+	}
+	return min(int(math.Floor(10*math.Log10(float64(n)))), n-1)
+}
+
+// Naive2Report scores Naive2 on every entry with Accuracy: the denominators of OWA.
+func Naive2Report(entries []Entry) (*Report, error) {
+	r := newReport("Naive2 (M4 definition, computed by the bench)")
+	for _, e := range entries {
+		f, err := Naive2(e.Train, e.Frequency, e.Horizon)
+		if err != nil {
+			return nil, fmt.Errorf("Naive2 of series %s: %w", e.ID, err)
+		}
+		r.add(e, f)
+	}
+	return r, nil
+}
+
+// OWA is the M4 competition's overall weighted average of a method's mean sMAPE and mean MASE
+// relative to Naive2's on the same series (Makridakis, Spiliotis & Assimakopoulos 2020, "The M4
+// Competition: 100,000 time series and 61 forecasting methods", IJF 36(1)):
+//
+//	OWA = (sMAPE / sMAPE_Naive2 + MASE / MASE_Naive2) / 2
+//
+// with every term the mean over the series of the tally. NaN when the two tallies do not
+// cover the same number of series (a published method with missing forecasts) or Naive2
+// scores zero.
+func OWA(t, naive2 Tally) float64 {
+	if t.N != naive2.N || t.MASEN != naive2.MASEN || t.N == 0 {
+		return math.NaN()
+	}
+	return (t.MeanSMAPE()/naive2.MeanSMAPE() + t.MeanMASE()/naive2.MeanMASE()) / 2
+}
+
+// owaOf is OWA of report r in category c ("" for all series) against Naive2's report n2.
+func owaOf(r, n2 *Report, c string) float64 {
+	if c == "" {
+		return OWA(r.All, n2.All)
+	}
+	t, t2 := r.By[c], n2.By[c]
+	if t == nil || t2 == nil {
+		return math.NaN()
+	}
+	return OWA(*t, *t2)
+}
+
+// SummaryLine is the bench's last line of output, for scripts:
+//
+//	all: smape=S mase=M owa=O cpu_ms_per_series=C series=N
+func SummaryLine(r, n2 *Report) string {
+	return fmt.Sprintf("all: smape=%.3f mase=%.4f owa=%.3f cpu_ms_per_series=%.2f series=%d",
+		r.All.MeanSMAPE(), r.All.MeanMASE(), owaOf(r, n2, ""), r.All.CPUMilliseconds, r.All.N)
+}
+
+// writeTable prints a report per category (for the long layout: its frequency) and overall,
+// with OWA against n2.
+func writeTable(w io.Writer, r, n2 *Report) {
+	fmt.Fprintf(w, "%s\n", r.Method)
+	fmt.Fprintf(w, "  %-10s %6s %8s %8s %7s\n", "category", "series", "sMAPE", "MASE", "OWA")
+	for _, c := range r.Categories {
+		t := r.By[c]
+		fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f %7.3f\n", c, t.N, t.MeanSMAPE(), t.MeanMASE(), owaOf(r, n2, c))
+	}
+	fmt.Fprintf(w, "  %-10s %6d %8.3f %8.4f %7.3f\n", "ALL", r.All.N, r.All.MeanSMAPE(), r.All.MeanMASE(), owaOf(r, n2, ""))
+}
+
+// writeSideBySide prints sMAPE, MASE and OWA per category for ours and each reference, then
+// the ratios ours/reference for sMAPE, MASE and CPU milliseconds per series.
+func writeSideBySide(w io.Writer, ours *Report, refs []*Report, n2 *Report) {
+	all := append([]*Report{ours}, refs...)
+	fmt.Fprintf(w, "side by side (sMAPE / MASE / OWA)\n  %-10s", "category")
+	for _, r := range all {
+		fmt.Fprintf(w, " %26s", shortName(r.Method))
+	}
+	fmt.Fprintln(w)
+	row := func(c, label string) {
+		fmt.Fprintf(w, "  %-10s", label)
+		for _, r := range all {
+			t := r.All
+			if c != "" {
+				t = Tally{}
+				if p := r.By[c]; p != nil {
+					t = *p
+				}
+			}
+			fmt.Fprintf(w, " %26s", fmt.Sprintf("%.3f / %.4f / %.3f", t.MeanSMAPE(), t.MeanMASE(), owaOf(r, n2, c)))
+		}
+		fmt.Fprintln(w)
+	}
+	for _, c := range ours.Categories {
+		row(c, c)
+	}
+	row("", "ALL")
+	fmt.Fprintf(w, "  %-10s", "cpu ms/s")
+	for _, r := range all {
+		fmt.Fprintf(w, " %26.2f", r.All.CPUMilliseconds)
+	}
+	fmt.Fprintln(w)
+	for _, r := range refs {
+		fmt.Fprintf(w, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.4f (R %.1fx ours)\n", r.Method,
+			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(),
+			ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
+	}
+}

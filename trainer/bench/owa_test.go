@@ -1,0 +1,225 @@
+package bench
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+)
+
+func near(a, b, rel float64) bool { return math.Abs(a-b) <= rel*math.Max(1, math.Abs(b)) }
+
+// Naive2 and OWA on a worked example computed independently in R 4.2.2 with forecast 8.20 by
+// testdata/naive2_owa.R, which writes out the M4 organisers' Naive2 (their seasonality test and
+// naive() on the series divided by stats::decompose's multiplicative indices) and the M4
+// sMAPE, MASE and OWA formulas: two quarterly Fenwick Lane Provisions depots, A seasonal (the
+// 90% test passes), B not (Naive2 is the naive forecast 52).
+func TestNaive2AndOWAWorkedExample(t *testing.T) {
+	a := []float64{120, 180, 150, 90, 130, 195, 160, 95, 140, 205, 172, 101, 150, 222, 181, 108}
+	b := []float64{50, 52, 49, 53, 51, 50, 54, 52, 51, 53, 50, 52}
+	wantA := []float64{155.33051200012682, 227.04808488262390, 185.66928366432333, 108}
+	gotA, err := Naive2(a, 4, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	gotB, err := Naive2(b, 4, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := range wantA {
+		if !near(gotA[k], wantA[k], 1e-12) || gotB[k] != 52 {
+			t.Errorf("step %d: Naive2 A %.17g B %.17g, want %.17g and 52 (R)", k+1, gotA[k], gotB[k], wantA[k])
+		}
+	}
+	q := func(id string, train, test []float64) Entry {
+		return Entry{ID: id, Category: "QUARTERLY", Frequency: 4, Horizon: 4, Start: time.Date(2022, 1, 1, 0, 0, 0, 0, time.UTC), Train: train, Test: test}
+	}
+	es := []Entry{q("depot-a", a, []float64{158, 236, 190, 112}), q("depot-b", b, []float64{53, 51, 52, 54})}
+	n2, err := Naive2Report(es)
+	if err != nil {
+		t.Fatal(err)
+	}
+	method := newReport("method")
+	method.add(es[0], []float64{155, 230, 195, 110})
+	method.add(es[1], []float64{52, 52, 52, 52})
+	// R: Naive2 sMAPE 2.8781060883789271, 1.9050235958094541; MASE 0.49468064759320551, 0.5.
+	if s, m := n2.All.MeanSMAPE(), n2.All.MeanMASE(); !near(s, (2.8781060883789271+1.9050235958094541)/2, 1e-12) ||
+		!near(m, (0.49468064759320551+0.5)/2, 1e-12) {
+		t.Errorf("Naive2 mean sMAPE %.17g MASE %.17g", s, m)
+	}
+	const wantOWA = 0.88224413267955815 // R
+	if got := OWA(method.All, n2.All); !near(got, wantOWA, 1e-12) {
+		t.Errorf("OWA %.17g, want %.17g (R)", got, wantOWA)
+	}
+	if got := owaOf(method, n2, "QUARTERLY"); !near(got, wantOWA, 1e-12) {
+		t.Errorf("OWA of the category %.17g, want %.17g", got, wantOWA)
+	}
+	if got := OWA(n2.All, n2.All); got != 1 {
+		t.Errorf("OWA of Naive2 itself %v, want 1", got)
+	}
+	part := newReport("part")
+	part.add(es[0], []float64{155, 230, 195, 110})
+	if got := OWA(part.All, n2.All); !math.IsNaN(got) {
+		t.Errorf("OWA over a different set of series %v, want NaN", got)
+	}
+}
+
+// The organisers' code takes autocorrelations from R's acf with its default lag.max,
+// ⌊10·log10 n⌋, so an hourly series (m = 24) of 240 points (lag.max 23) is never seasonal and
+// one of 264 points (lag.max 24) can be. Forecasts from testdata/naive2_owa.R (R 4.2.2).
+func TestNaive2ACFLagMax(t *testing.T) {
+	hourly := func(n int) []float64 {
+		y := make([]float64, n)
+		for i := range y {
+			y[i] = 100 + 30*math.Sin(2*math.Pi*float64(i)/24) + float64(i%5)
+		}
+		return y
+	}
+	for _, c := range []struct {
+		n    int
+		want []float64
+	}{
+		{240, []float64{96.235428646924262, 96.235428646924262, 96.235428646924262}},
+		{264, []float64{103.08242947412695, 110.92943030132972, 118.24167098994059}},
+	} {
+		got, err := Naive2(hourly(c.n), 24, 3)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for k := range c.want {
+			if !near(got[k], c.want[k], 1e-10) {
+				t.Errorf("n=%d step %d: %.17g, want %.17g (R)", c.n, k+1, got[k], c.want[k])
+			}
+		}
+	}
+	if acfDefaultLagMax(240) != 23 || acfDefaultLagMax(264) != 24 || acfDefaultLagMax(5) != 4 {
+		t.Errorf("lag.max %d %d %d, want 23 24 4", acfDefaultLagMax(240), acfDefaultLagMax(264), acfDefaultLagMax(5))
+	}
+}
+
+var summaryRE = regexp.MustCompile(`^all: smape=[0-9]+\.[0-9]{3} mase=[0-9]+\.[0-9]{4} owa=[0-9]+\.[0-9]{3} cpu_ms_per_series=[0-9]+\.[0-9]{2} series=[0-9]+$`)
+
+// The bench ends with exactly one line "all: smape=S mase=M owa=O cpu_ms_per_series=C
+// series=N" (issue 16), here on a long-layout directory of three made-up hourly Fenwick Lane
+// Provisions depot series with a daily cycle, forecast by Naive; the owa field is then the
+// naive forecast's against Naive2, > 1 on a daily cycle.
+func TestMainSummaryLineLong(t *testing.T) {
+	dir := t.TempDir()
+	var train, test strings.Builder
+	train.WriteString("series,date,value\n")
+	test.WriteString("series,date,value\n")
+	start := time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC)
+	for d := 0; d < 3; d++ {
+		for i := 0; i < 24*14+48; i++ {
+			v := 50 + 10*float64(d) + 20*math.Sin(2*math.Pi*float64(i)/24) + float64((i*7+d)%4)
+			w := &train
+			if i >= 24*14 {
+				w = &test
+			}
+			fmt.Fprintf(w, "depot-%d,%s,%g\n", d, start.Add(time.Duration(i)*time.Hour).Format(time.RFC3339), v)
+		}
+	}
+	writeFile(t, dir, "train.csv", train.String())
+	writeFile(t, dir, "test.csv", test.String())
+	var out, errb bytes.Buffer
+	if code := Main([]string{"--data", dir, "--frequency", "Hourly", "--zoo", "Naive", "--design", "fixed", "--workers", "1"}, &out, &errb); code != 0 {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
+	last := lines[len(lines)-1]
+	if !summaryRE.MatchString(last) || !strings.HasSuffix(last, " series=3") {
+		t.Errorf("last line %q does not match %s", last, summaryRE)
+	}
+	if strings.Count(out.String(), "all: ") != 1 {
+		t.Errorf("want exactly one summary line:\n%s", out.String())
+	}
+	var owa float64
+	if _, err := fmt.Sscanf(last[strings.Index(last, "owa="):], "owa=%g", &owa); err != nil || !(owa > 1) {
+		t.Errorf("owa %v (%v): the naive forecast of a daily cycle should be worse than Naive2", owa, err)
+	}
+	if !strings.Contains(out.String(), "  Hourly          3 ") {
+		t.Errorf("want a table row for the frequency Hourly:\n%s", out.String())
+	}
+}
+
+func writeFile(t *testing.T, dir, name, body string) {
+	t.Helper()
+	if err := os.WriteFile(filepath.Join(dir, name), []byte(body), 0o600); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// EnvM4HourlyDevDir names the environment variable the tests read the M4 hourly dev half's
+// directory from (default ../shared/datasets/m4-hourly-dev beside the repository root).
+const EnvM4HourlyDevDir = "ALMANAC_M4_HOURLY_DEV_DIR"
+
+func m4HourlyDevDir(t *testing.T) string {
+	root, err := repoRoot()
+	if err != nil {
+		t.Skip(err)
+	}
+	d := filepath.Join(root, "..", "shared", "datasets", "m4-hourly-dev")
+	if v := os.Getenv(EnvM4HourlyDevDir); v != "" {
+		d = v
+	}
+	if _, err := os.Stat(filepath.Join(d, "train.csv")); err != nil {
+		t.Skipf("M4 hourly dev half not found at %s (set %s): %v", d, EnvM4HourlyDevDir, err)
+	}
+	return d
+}
+
+// On the M4 hourly dev half (207 series, h = 48, m = 24): our SeasonalNaive through the bench
+// equals R forecast 8.20's snaive and our Naive2 equals the organisers' Naive2 written out in R
+// (rScript's naive2: R 4.2.2 stats::acf and stats::decompose, forecast::naive), series by
+// series and step by step. Skipped without Rscript + forecast or the data.
+func TestM4HourlyDevAgainstR(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs R")
+	}
+	d := m4HourlyDevDir(t)
+	if !HaveR(context.Background()) {
+		t.Skip("Rscript with the forecast package not installed")
+	}
+	entries, err := LoadDir(d, "hourly")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(entries) != 207 || entries[0].Horizon != 48 || entries[0].Frequency != 24 {
+		t.Fatalf("%d series, horizon %d, m %d; want 207, 48, 24 (dataset README)", len(entries), entries[0].Horizon, entries[0].Frequency)
+	}
+	refs, err := ReferenceR(context.Background(), entries, []string{"snaive", "naive2"}, &bytes.Buffer{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, ours, err := Run(context.Background(), entries, Options{Families: []string{"SeasonalNaive"}, Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	seasonal := 0
+	for i, e := range entries {
+		n2, err := Naive2(e.Train, e.Frequency, e.Horizon)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if n2[0] != e.Train[len(e.Train)-1] {
+			seasonal++
+		}
+		for k := 0; k < e.Horizon; k++ {
+			if sn, r := ours[i].Mean[k], refs[0].Forecasts[i][k]; !near(sn, r, 1e-12) {
+				t.Fatalf("%s step %d: SeasonalNaive %.17g, R snaive %.17g", e.ID, k+1, sn, r)
+			}
+			if r := refs[1].Forecasts[i][k]; !near(n2[k], r, 1e-9) {
+				t.Fatalf("%s step %d: Naive2 %.17g, R %.17g", e.ID, k+1, n2[k], r)
+			}
+		}
+	}
+	if seasonal < 100 {
+		t.Errorf("Naive2 seasonally adjusted only %d of 207 hourly series; the check would not exercise the decomposition", seasonal)
+	}
+}
