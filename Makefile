@@ -119,6 +119,7 @@ fixtures: ## Regenerate the reference fixtures (Debian's r-cran-forecast 8.20 an
 	Rscript test/reference/r/ets.R | gofmt > test/reference/ets_fixtures_test.go
 	Rscript test/reference/arima.R > test/reference/testdata/arima_r.json
 	Rscript test/reference/r/stl.R > test/reference/testdata/stl_r.json
+	Rscript test/reference/r/mstl.R > test/reference/testdata/mstl_r.json
 	@if /usr/bin/python3 -c 'import sklearn' 2>/dev/null; then \
 	  /usr/bin/python3 test/reference/sklearn/linear.py > test/reference/sklearn/linear.json; \
 	else echo "fixtures: Debian's python3-sklearn not importable; sklearn/linear.json kept"; fi

@@ -125,3 +125,54 @@ func BenchmarkSTL(b *testing.B) {
 		}
 	}
 }
+
+// TestMSTLParts: the components add back up to y; too short a series or a non-finite period is
+// an error naming the problem; a period with fewer than two cycles is dropped.
+func TestMSTLParts(t *testing.T) {
+	y := make([]float64, 24*7*3)
+	rng := rand.New(rand.NewPCG(3, 5))
+	for i := range y {
+		y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + 5*math.Cos(2*math.Pi*float64(i)/168) + rng.NormFloat64()
+	}
+	d, err := MSTL(y, []float64{168, 24, 24}, MSTLOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(d.Periods) != 2 || d.Periods[0] != 24 || d.Periods[1] != 168 {
+		t.Fatalf("periods %v, want [24 168]", d.Periods)
+	}
+	for i, v := range y {
+		sum := d.Trend[i] + d.Seasonal[0][i] + d.Seasonal[1][i] + d.Remainder[i]
+		if math.Abs(sum-v) > 1e-9 {
+			t.Fatalf("t=%d: components add to %v, y = %v", i, sum, v)
+		}
+	}
+	d, err = MSTL(y[:300], []float64{24, 168}, MSTLOptions{})
+	if err != nil || len(d.Periods) != 1 {
+		t.Errorf("300 hours: periods %v, err %v; want 168 dropped", d.Periods, err)
+	}
+	if _, err := MSTL(y[:40], []float64{24}, MSTLOptions{}); err == nil || !strings.Contains(err.Error(), "two full cycles") {
+		t.Errorf("40 hours, period 24: err %v", err)
+	}
+	if _, err := MSTL(y, []float64{math.NaN()}, MSTLOptions{}); err == nil || !strings.Contains(err.Error(), "not finite") {
+		t.Errorf("NaN period: err %v", err)
+	}
+	f := d.SeasonalForecast(30)
+	if f[0] != d.Seasonal[0][300-24] || f[24] != f[0] {
+		t.Errorf("seasonal forecast does not repeat the last cycle: %v", f[:2])
+	}
+}
+
+// BenchmarkMSTLHourly decomposes 960 hours (M4 hourly's longest training length) with periods
+// 24 and 168.
+func BenchmarkMSTLHourly(b *testing.B) {
+	y := make([]float64, 960)
+	for i := range y {
+		y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + 5*math.Cos(2*math.Pi*float64(i)/168)
+	}
+	for b.Loop() {
+		if _, err := MSTL(y, []float64{24, 168}, MSTLOptions{}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

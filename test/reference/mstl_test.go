@@ -1,0 +1,91 @@
+package reference
+
+import (
+	"math"
+	"testing"
+
+	"almanac.dev/almanac/trainer/numeric/stl"
+)
+
+// mstlRef is testdata/mstl_r.json, made by r/mstl.R with R forecast 8.20's mstl and
+// forecast.mstl (Debian r-cran-forecast, R 4.2.2): invented hourly, daily and weekly series
+// (two, two and one non-integer season), the first 1344 half-hours of R's taylor (periods 48
+// and 336) and log AirPassengers (12).
+type mstlRef struct {
+	Source string
+	Cases  []mstlCase
+}
+
+type mstlCase struct {
+	Name      string
+	Y         []float64
+	Periods   []float64
+	H         int
+	Call      string
+	Kept      []float64
+	Trend     []float64
+	Remainder []float64
+	Seasonal  [][]float64
+	Adjusted  []float64
+	ETS       mstlForecast
+	ARIMA     mstlForecast
+	Theta     mstlForecast
+}
+
+type mstlForecast struct {
+	Method   string
+	Mean     []float64
+	Seasonal []float64
+}
+
+func loadMSTL(t testing.TB) mstlRef {
+	var r mstlRef
+	loadFixture(t, "mstl_r.json", &r)
+	if len(r.Cases) == 0 {
+		t.Fatal("no MSTL cases")
+	}
+	return r
+}
+
+// closeAll reports the first element of got further than tol (relative to max(1, |want|))
+// from want.
+func closeAll(t *testing.T, what string, got, want []float64, tol float64) {
+	t.Helper()
+	if len(got) != len(want) {
+		t.Errorf("%s: length %d, want %d", what, len(got), len(want))
+		return
+	}
+	for i := range want {
+		if !(math.Abs(got[i]-want[i]) <= tol*math.Max(1, math.Abs(want[i]))) {
+			t.Errorf("%s[%d] = %.12g, want %.12g (tol %g)", what, i, got[i], want[i], tol)
+			return
+		}
+	}
+}
+
+// TestMSTLMatchesR: the decomposition agrees with R's mstl to 1e-9 on every case, including
+// the non-integer periods 365.25 and 52.18 and a period dropped for having fewer than two
+// cycles; the seasonal part of the forecast (the last cycles repeated) agrees as well.
+func TestMSTLMatchesR(t *testing.T) {
+	for _, c := range loadMSTL(t).Cases {
+		t.Run(c.Name, func(t *testing.T) {
+			d, err := stl.MSTL(c.Y, c.Periods, stl.MSTLOptions{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if len(d.Periods) != len(c.Kept) {
+				t.Fatalf("kept periods %v, R kept %v", d.Periods, c.Kept)
+			}
+			for i := range c.Kept {
+				if d.Periods[i] != c.Kept[i] {
+					t.Fatalf("kept periods %v, R kept %v", d.Periods, c.Kept)
+				}
+				closeAll(t, "seasonal", d.Seasonal[i], c.Seasonal[i], 1e-9)
+			}
+			closeAll(t, "trend", d.Trend, c.Trend, 1e-9)
+			closeAll(t, "remainder", d.Remainder, c.Remainder, 1e-9)
+			closeAll(t, "adjusted", d.Adjusted(), c.Adjusted, 1e-9)
+			closeAll(t, "seasonal forecast", d.SeasonalForecast(c.H), c.Theta.Seasonal, 1e-9)
+		})
+	}
+}
