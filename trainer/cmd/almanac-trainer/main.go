@@ -58,6 +58,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 		return local(ctx, args[1:], stdout, stderr, env)
 	case "inspect":
 		return inspect(ctx, args[1:], stdout, stderr)
+	case "validate":
+		return validate(args[1:], os.Stdin, stdout, stderr)
 	case "generate":
 		return synth.Main(ctx, args[1:], stdout, stderr)
 	case "bench":
@@ -288,6 +290,8 @@ commands (the run's Jobs):
   a path that cannot be written gives a warning), one line to stdout, logs to stderr.
 
 commands (people and tests):
+  validate  -f FILE: check ForecastPortfolio/ForecastRun manifests offline with the CRDs' schema,
+            defaults and CEL rules, as the apiserver would; exit 2 naming every bad field
   local     all three steps in one process: --config FILE, or --input URI --output URI and
             the flags listed by 'local -h'
   inspect   --output URI [--run NAME]: print a published run's manifest, counts and accuracy
