@@ -129,6 +129,13 @@ func renderModel(m forecastingv1alpha1.ModelSpec) (models.Spec, error) {
 	if m.SeasonLength != nil {
 		out.SeasonLength = int(*m.SeasonLength)
 	}
+	for i, v := range m.SeasonalPeriods {
+		p, err := strconv.ParseFloat(v, 64)
+		if err != nil || !(p >= 2 && p <= 8784) {
+			return out, fmt.Errorf("seasonalPeriods[%d]: %q is not a decimal from 2 to 8784", i, v)
+		}
+		out.SeasonalPeriods = append(out.SeasonalPeriods, p)
+	}
 	if e := m.ETS; e != nil {
 		out.ETS = &models.ETSOptions{Errors: codes(e.Errors), Trends: codes(e.Trends), Seasons: codes(e.Seasons)}
 	}

@@ -360,3 +360,22 @@ func TestFeatureNamesMatchTheTrainer(t *testing.T) {
 		}
 	}
 }
+
+// TestRenderSeasonalPeriods: spec.models[i].seasonalPeriods become the member's decimal periods;
+// a value out of range names its field.
+func TestRenderSeasonalPeriods(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Models = append(fp.Spec.Models, forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyMSTLETS, SeasonalPeriods: []string{"7", "365.25"}})
+	got, err := renderConfig(fp, fenwickRun("r"), "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	last := got.Zoo[len(got.Zoo)-1]
+	if diff := cmp.Diff([]float64{7, 365.25}, last.SeasonalPeriods); diff != "" || last.Family != models.FamilyMSTLETS {
+		t.Errorf("periods (-want,+got):\n%s", diff)
+	}
+	fp.Spec.Models[len(fp.Spec.Models)-1].SeasonalPeriods = []string{"7", "1.5"}
+	if _, err := renderConfig(fp, fenwickRun("r"), ""); err == nil || !strings.Contains(err.Error(), `seasonalPeriods[1]: "1.5" is not a decimal from 2 to 8784`) {
+		t.Errorf("period 1.5: err %v", err)
+	}
+}

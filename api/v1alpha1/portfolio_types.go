@@ -62,7 +62,7 @@ const (
 type Weekday string
 
 // ModelFamily names a family of forecasting models in the zoo.
-// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting;MSTLETS;MSTLTheta;MSTLARIMA
 type ModelFamily string
 
 // The model families.
@@ -89,6 +89,13 @@ const (
 	// FamilyGradientBoosting is an ensemble of shallow regression trees fitted stage by stage to
 	// the residuals (Friedman 2001), on the features.
 	FamilyGradientBoosting ModelFamily = "GradientBoosting"
+	// FamilyMSTLETS, FamilyMSTLTheta and FamilyMSTLARIMA model every seasonal cycle (see
+	// seasonalPeriods): MSTL decomposition (Bandara, Hyndman & Bergmeir 2021), then ETS without a
+	// season, Theta, or non-seasonal ARIMA on the seasonally adjusted series, the last cycle of
+	// each seasonal component repeated and added back.
+	FamilyMSTLETS   ModelFamily = "MSTLETS"
+	FamilyMSTLTheta ModelFamily = "MSTLTheta"
+	FamilyMSTLARIMA ModelFamily = "MSTLARIMA"
 )
 
 // ErrorMetric is a forecast accuracy measure.
@@ -393,6 +400,17 @@ type ModelSpec struct {
 	// +kubebuilder:validation:Minimum=1
 	// +kubebuilder:validation:Maximum=8784
 	SeasonLength *int32 `json:"seasonLength,omitempty"`
+
+	// seasonalPeriods overrides the cycles the multi-seasonal families (MSTL*) model, as
+	// decimals from 2 to 8784, e.g. ["24", "168"]. Default: the frequency's (Hourly 24 and 168,
+	// Daily 7 and 365.25, Weekly 52.18, Monthly 12, Quarterly 4, Yearly none). Other families
+	// ignore it.
+	// +optional
+	// +listType=atomic
+	// +kubebuilder:validation:MaxItems=4
+	// +kubebuilder:validation:items:Pattern=`^[0-9]{1,4}(\.[0-9]{1,4})?$`
+	// +kubebuilder:validation:items:MaxLength=9
+	SeasonalPeriods []string `json:"seasonalPeriods,omitempty"`
 
 	// ets restricts the exponential-smoothing forms searched. Default: every admissible form.
 	// +optional

@@ -627,6 +627,11 @@ func (in *ModelSpec) DeepCopyInto(out *ModelSpec) {
 		*out = new(int32)
 		**out = **in
 	}
+	if in.SeasonalPeriods != nil {
+		in, out := &in.SeasonalPeriods, &out.SeasonalPeriods
+		*out = make([]string, len(*in))
+		copy(*out, *in)
+	}
 	if in.ETS != nil {
 		in, out := &in.ETS, &out.ETS
 		*out = new(ETSSettings)

@@ -2,8 +2,10 @@ package reference
 
 import (
 	"math"
+	"strings"
 	"testing"
 
+	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/numeric/stl"
 )
 
@@ -87,5 +89,42 @@ func TestMSTLMatchesR(t *testing.T) {
 			closeAll(t, "adjusted", d.Adjusted(), c.Adjusted, 1e-9)
 			closeAll(t, "seasonal forecast", d.SeasonalForecast(c.H), c.Theta.Seasonal, 1e-9)
 		})
+	}
+}
+
+// TestMSTLMembersMatchR: the MSTL members against forecast.mstl's ets and auto.arima forecasts
+// and thetaf on the adjusted series (see r/mstl.R), the seasonal part re-added. Theta has no
+// search and agrees to 1e-5 (relative). ETS and ARIMA agree to 1e-3 where the search picks R's
+// form or order; otherwise within 5%: on these series our ETS picks A,N,N where R picks A,A,N
+// on 2 of 6, and our ARIMA search, which has no equivalent of auto.arima's approximation
+// (CSS-based criteria during the search for n > 150), picks R's order on 1 of 6 (measured
+// when the fixture was made).
+func TestMSTLMembersMatchR(t *testing.T) {
+	for _, c := range loadMSTL(t).Cases {
+		for _, m := range []struct {
+			family string
+			ref    mstlForecast
+		}{{models.FamilyMSTLETS, c.ETS}, {models.FamilyMSTLARIMA, c.ARIMA}, {models.FamilyMSTLTheta, c.Theta}} {
+			mod, err := models.New(models.Spec{Family: m.family, SeasonalPeriods: c.Periods})
+			if err != nil {
+				t.Fatal(err)
+			}
+			fit, err := mod.Fit(c.Y, 1)
+			if err != nil {
+				t.Fatalf("%s %s: %v", c.Name, m.family, err)
+			}
+			got := fit.Forecast(c.H, nil).Mean
+			_, form, _ := strings.Cut(fit.Name(), ")+")
+			rForm := strings.ReplaceAll(strings.TrimPrefix(m.ref.Method, "STL +  "), " with drift", "+drift")
+			tol := 1e-3
+			switch {
+			case m.family == models.FamilyMSTLTheta:
+				tol = 1e-5
+			case form != rForm:
+				tol = 0.05
+				t.Logf("%s %s: %s, R chose %s", c.Name, m.family, fit.Name(), m.ref.Method)
+			}
+			closeAll(t, c.Name+" "+fit.Name(), got, m.ref.Mean, tol)
+		}
 	}
 }

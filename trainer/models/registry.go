@@ -30,6 +30,10 @@ type Spec struct {
 	Name string `json:"name,omitempty"`
 	// SeasonLength overrides the season length implied by the series frequency; 0 keeps it.
 	SeasonLength int `json:"seasonLength,omitempty"`
+	// SeasonalPeriods overrides the seasonal periods of the multi-seasonal families (MSTL*,
+	// FourierARIMA), each 2 to 8784 and possibly non-integer (365.25); nil takes the
+	// frequency's (series.Frequency.SeasonalPeriods). Other families ignore it.
+	SeasonalPeriods []float64 `json:"seasonalPeriods,omitempty"`
 	// ETS restricts the exponential-smoothing search space (nil: the full admissible set).
 	ETS *ETSOptions `json:"ets,omitempty"`
 	// Smoothing fixes the smoothing weights of the intermittent-demand families (nil: estimated).

@@ -197,6 +197,9 @@ var familyWords = map[string]string{
 	models.FamilyRidge:                 "a regression on the portfolio's features (promotions, prices, events, recent demand), with all coefficients shrunk a little",
 	models.FamilyLasso:                 "a regression on the portfolio's features that keeps only those that help, with the rest set to zero",
 	models.FamilyGradientBoosting:      "many small decision trees on the portfolio's features, each correcting the ones before",
+	models.FamilyMSTLETS:               "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by exponential smoothing and puts the cycles back",
+	models.FamilyMSTLTheta:             "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by the Theta method and puts the cycles back",
+	models.FamilyMSTLARIMA:             "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by ARIMA and puts the cycles back",
 }
 
 // FamilyWords describes a model family for a planner ("" when unknown).

@@ -39,6 +39,28 @@ func (f Frequency) SeasonLength() int {
 	}
 }
 
+// SeasonalPeriods returns every seasonal period of the frequency, shortest first, for the
+// members that model more than one cycle (common practice: Hyndman & Athanasopoulos,
+// Forecasting: Principles and Practice, 2nd ed., sections 2.1 and 11.1, which give 365.25
+// days and 52.18 weeks, 365.25 / 7 rounded, a year): hourly 24 (day) and 168 (week), daily 7
+// (week) and 365.25 (year), weekly 52.18 (year), monthly 12, quarterly 4, yearly none.
+func (f Frequency) SeasonalPeriods() []float64 {
+	switch f {
+	case Hourly:
+		return []float64{24, 168}
+	case Daily:
+		return []float64{7, 365.25}
+	case Weekly:
+		return []float64{52.18}
+	case Monthly:
+		return []float64{12}
+	case Quarterly:
+		return []float64{4}
+	default:
+		return nil
+	}
+}
+
 // Step returns t moved forward by n periods of the frequency, calendar-correct for months,
 // quarters and years (the day of month is kept; month-end anchors clamp to the last day).
 func (f Frequency) Step(t time.Time, n int) time.Time {

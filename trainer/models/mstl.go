@@ -1,0 +1,201 @@
+package models
+
+import (
+	"fmt"
+	"strconv"
+	"strings"
+
+	"almanac.dev/almanac/trainer/numeric/stl"
+	"almanac.dev/almanac/trainer/series"
+)
+
+// The MSTL families forecast every seasonal cycle of a series by decomposition: MSTL splits y
+// into trend, one seasonal component per period and remainder (stl.MSTL, Bandara, Hyndman &
+// Bergmeir 2021); a non-seasonal model forecasts the seasonally adjusted series
+// a_t = T_t + R_t; each seasonal component's last cycle is repeated and added back:
+//
+//	yhat_{n+k} = ahat_{n+k} + sum_i S^(i)_{n - trunc(p_i) + 1 + (k-1) mod trunc(p_i)},
+//
+// and the quantiles of the adjusted model are shifted by the same seasonal sum (R forecast
+// 8.20's stlf and forecast.mstl, whose defaults these are; checked against them in
+// test/reference). The adjusted models are ETS with no seasonal component (ets model "ZZN"),
+// Theta on the adjusted series as a series without season, and the non-seasonal ARIMA search
+// (auto.arima with seasonal = FALSE).
+//
+// Periods: Spec.SeasonalPeriods when set; else Spec.SeasonLength or the run's season length
+// when it is not the frequency's usual one; else series.Frequency.SeasonalPeriods (hourly 24
+// and 168, daily 7 and 365.25, weekly 52.18). Periods with fewer than two full cycles in the
+// training data are dropped; with none left the adjusted model fits y itself.
+const (
+	FamilyMSTLETS   = "MSTLETS"
+	FamilyMSTLTheta = "MSTLTheta"
+	FamilyMSTLARIMA = "MSTLARIMA"
+)
+
+func init() {
+	for _, f := range []string{FamilyMSTLETS, FamilyMSTLTheta, FamilyMSTLARIMA} {
+		Register(f, newMSTL)
+	}
+}
+
+// mstlModel is an MSTL family: the decomposition and the model of the adjusted series.
+type mstlModel struct {
+	spec  Spec
+	inner Model
+}
+
+func newMSTL(s Spec) (Model, error) {
+	for i, p := range s.SeasonalPeriods {
+		if !(p >= 2) || p > maxSeasonalPeriod {
+			return nil, fmt.Errorf("models: %s: seasonalPeriods[%d] = %v, want 2 to %d", s.DisplayName(), i, p, maxSeasonalPeriod)
+		}
+	}
+	var in Spec
+	switch s.Family {
+	case FamilyMSTLETS:
+		in = Spec{Family: FamilyETS, ETS: &ETSOptions{Seasons: []string{"N"}}}
+		if s.ETS != nil {
+			in.ETS = &ETSOptions{Errors: s.ETS.Errors, Trends: s.ETS.Trends, Seasons: []string{"N"}}
+		}
+	case FamilyMSTLTheta:
+		in = Spec{Family: FamilyTheta}
+	case FamilyMSTLARIMA:
+		in = Spec{Family: FamilyARIMA}
+	default:
+		return nil, fmt.Errorf("models: %s: not an MSTL family", s.Family)
+	}
+	inner, err := New(in)
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: %w", s.DisplayName(), err)
+	}
+	return &mstlModel{spec: s, inner: inner}, nil
+}
+
+// maxSeasonalPeriod bounds a declared period: a year of hours (8784, the bound of seasonLength).
+const maxSeasonalPeriod = 8784
+
+func (m *mstlModel) Family() string { return m.spec.Family }
+
+// MinLength is the adjusted model's: with too short a series for any period, it fits y itself.
+func (m *mstlModel) MinLength(int) int { return m.inner.MinLength(1) }
+
+// Fit decomposes with the periods the season length m implies (see the family comment).
+func (m *mstlModel) Fit(y []float64, sl int) (Fitted, error) {
+	return m.fit(y, m.periods(sl, frequencyOfSeason(sl)))
+}
+
+// FitInputs decomposes with the periods of in.Freq when sl is its usual season length.
+func (m *mstlModel) FitInputs(y []float64, sl int, in Inputs) (Fitted, error) {
+	f := in.Freq
+	if f == "" {
+		f = frequencyOfSeason(sl)
+	}
+	return m.fit(y, m.periods(sl, f))
+}
+
+// periods resolves the seasonal periods for season length sl of a series of frequency f.
+func (m *mstlModel) periods(sl int, f series.Frequency) []float64 {
+	return seasonalPeriods(m.spec, sl, f)
+}
+
+// seasonalPeriods is the period rule of the multi-seasonal families: s.SeasonalPeriods; else
+// f's periods when sl is f's usual season length; else sl alone (none when sl < 2).
+func seasonalPeriods(s Spec, sl int, f series.Frequency) []float64 {
+	if len(s.SeasonalPeriods) > 0 {
+		return s.SeasonalPeriods
+	}
+	if s.SeasonLength == 0 && sl == f.SeasonLength() {
+		return f.SeasonalPeriods()
+	}
+	if sl >= 2 {
+		return []float64{float64(sl)}
+	}
+	return nil
+}
+
+func (m *mstlModel) fit(y []float64, periods []float64) (Fitted, error) {
+	out := &mstlFit{}
+	adj := y
+	if len(periods) > 0 {
+		if d, err := stl.MSTL(y, periods, stl.MSTLOptions{}); err == nil {
+			out.dec = &d
+			adj = d.Adjusted()
+		}
+	}
+	if len(adj) < m.inner.MinLength(1) {
+		return nil, ErrTooShort
+	}
+	f, err := m.inner.Fit(adj, 1)
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: adjusted series: %w", m.spec.DisplayName(), err)
+	}
+	out.inner = f
+	return out, nil
+}
+
+// mstlFit is a fitted MSTL member.
+type mstlFit struct {
+	dec   *stl.MSTLDecomposition // nil when no period was kept
+	inner Fitted
+}
+
+// Name is "MSTL(p1,p2)+<adjusted model>", MSTL() when no period was kept.
+func (f *mstlFit) Name() string {
+	return "MSTL(" + strings.Join(f.periodNames(), ",") + ")+" + f.inner.Name()
+}
+
+func (f *mstlFit) periodNames() []string {
+	if f.dec == nil {
+		return nil
+	}
+	var out []string
+	for _, p := range f.dec.Periods {
+		out = append(out, strconv.FormatFloat(p, 'f', -1, 64))
+	}
+	return out
+}
+
+// Params are the adjusted model's, with "period<i>" for the periods kept.
+func (f *mstlFit) Params() map[string]float64 {
+	p := f.inner.Params()
+	if p == nil {
+		p = map[string]float64{}
+	}
+	if f.dec != nil {
+		for i, v := range f.dec.Periods {
+			p["period"+strconv.Itoa(i+1)] = v
+		}
+	}
+	return p
+}
+
+// InSample is the adjusted model's fitted values plus every seasonal component.
+func (f *mstlFit) InSample() []float64 {
+	out := f.inner.InSample()
+	if f.dec != nil {
+		for _, s := range f.dec.Seasonal {
+			for t := range out {
+				out[t] += s[t]
+			}
+		}
+	}
+	return out
+}
+
+// Forecast adds the repeated last cycles to the adjusted model's mean and quantiles.
+func (f *mstlFit) Forecast(h int, levels []float64) Forecast {
+	fc := f.inner.Forecast(h, levels)
+	if f.dec == nil {
+		return fc
+	}
+	s := f.dec.SeasonalForecast(h)
+	for k := range fc.Mean {
+		fc.Mean[k] += s[k]
+	}
+	for _, q := range fc.Quantiles {
+		for k := range q {
+			q[k] += s[k]
+		}
+	}
+	return fc
+}
