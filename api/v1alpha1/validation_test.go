@@ -188,6 +188,7 @@ var _ = Describe("CRD validation", func() {
 			for _, w := range c.want {
 				Expect(err.Error()).To(ContainSubstring(w))
 			}
+			expectOfflineRefusesSameFields(u, err) // offline_test.go
 		},
 		Entry("schedule with four fields", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, "0 3 * *", "spec", "schedule") },
