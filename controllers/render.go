@@ -16,15 +16,16 @@ import (
 // them (objects built in Go, or created before a default was added). They match the
 // +kubebuilder:default markers in api/v1alpha1.
 const (
-	defaultSeriesPerShard   = 2000
-	defaultMaxParallel      = 8
-	defaultShareWeight      = 1
-	defaultRetriesPerShard  = 2
-	defaultThresholdPercent = 130
-	defaultMinPoints        = 100
-	defaultOrigins          = 3
-	defaultStep             = 1
-	defaultTTLSeconds       = 86400
+	defaultSeriesPerShard    = 2000
+	defaultMaxParallel       = 8
+	defaultShareWeight       = 1
+	defaultRetriesPerShard   = 2
+	defaultThresholdPercent  = 130
+	defaultMinPoints         = 100
+	defaultOrigins           = 3
+	defaultStep              = 1
+	defaultDesignCostPercent = 500
+	defaultTTLSeconds        = 86400
 )
 
 // renderConfig resolves a portfolio's spec, at its current generation, into the configuration
@@ -69,6 +70,9 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 			Origins:        int(orDefault(spec.Selection.BacktestOrigins, defaultOrigins)),
 			Step:           int(orDefault(spec.Selection.BacktestStep, defaultStep)),
 			UpdateBacktest: orDefault(spec.Selection.BacktestRefit, forecastingv1alpha1.RefitOnce) == forecastingv1alpha1.RefitOnce,
+			// The trainer names the designs in lower camel case (runconfig.DesignAuto, ...).
+			Design:          lowerFirst(string(orDefault(spec.Selection.Design, forecastingv1alpha1.DesignAuto))),
+			DesignCostLimit: float64(orDefault(spec.Selection.DesignCostPercent, defaultDesignCostPercent)) / 100,
 		},
 		Sharding: runconfig.Sharding{
 			TargetSeriesPerShard: int(orDefault(spec.Sharding.TargetSeriesPerShard, defaultSeriesPerShard)),

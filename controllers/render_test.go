@@ -84,8 +84,9 @@ func TestRenderConfig(t *testing.T) {
 			{Family: "ETS", ETS: &models.ETSOptions{Trends: []string{"N", "Ad"}}},
 			{Family: "TSB", Name: "tsb-slow", SeasonLength: 1, Smoothing: &models.SmoothingOptions{Alpha: 0.1, Beta: 0.05}},
 		},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean", UpdateBacktest: true},
-		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 2000},
+		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, CombineTop: 2, CombineMethod: "mean", UpdateBacktest: true,
+			Design: runconfig.DesignAuto, DesignCostLimit: 5},
+		Sharding: runconfig.Sharding{TargetSeriesPerShard: 2000},
 		// Portfolio minimum 100 over all series; one series is judged on a full horizon (12).
 		Drift: runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 12},
 	}
@@ -154,6 +155,8 @@ func TestRenderConfigDefaults(t *testing.T) {
 		"combine":         {got.Selection.CombineTop, 0},
 		"combine margin":  {got.Selection.CombineMargin, 0.0},
 		"update backtest": {got.Selection.UpdateBacktest, true},
+		"design":          {got.Selection.Design, runconfig.DesignAuto},
+		"design cost":     {got.Selection.DesignCostLimit, 5.0},
 		"partitioning":    {got.Source.Partitioning, runconfig.PartitionNone},
 		"buckets":         {got.Sharding.Buckets, 0},
 	}
@@ -178,6 +181,29 @@ func TestRenderBacktestRefit(t *testing.T) {
 		}
 		if got.Selection.UpdateBacktest != want {
 			t.Errorf("backtestRefit %q: updateBacktest %v, want %v", refit, got.Selection.UpdateBacktest, want)
+		}
+	}
+}
+
+// selection.design reaches the trainer in its lower-camel-case names (an unset field, which
+// the API defaults to Auto, renders auto), and designCostPercent as a ratio.
+func TestRenderDesign(t *testing.T) {
+	for design, want := range map[forecastingv1alpha1.SelectionDesign]string{
+		"": runconfig.DesignAuto, forecastingv1alpha1.DesignAuto: runconfig.DesignAuto,
+		forecastingv1alpha1.DesignPerSeries: runconfig.DesignPerSeries, forecastingv1alpha1.DesignFixed: runconfig.DesignFixed,
+	} {
+		fp := fenwickPortfolio()
+		fp.Spec.Selection.Design = design
+		fp.Spec.Selection.DesignCostPercent = 250
+		got, err := renderConfig(fp, fenwickRun("r"), "")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Selection.Design != want || got.Selection.DesignCostLimit != 2.5 {
+			t.Errorf("design %q: rendered %q, cost limit %v; want %q, 2.5", design, got.Selection.Design, got.Selection.DesignCostLimit, want)
+		}
+		if err := got.Validate(); err != nil {
+			t.Errorf("design %q: rendered config invalid: %v", design, err)
 		}
 	}
 }

@@ -134,6 +134,14 @@ type ForecastRunStatus struct {
 	// +listMapKey=model
 	Models []ModelCount `json:"models,omitempty"`
 
+	// designs counts series by the design that forecast them (spec.selection.design: with
+	// Auto, the design each shard chose per segment, e.g. ets-theta or per-series; with
+	// PerSeries and Fixed, per-series and declared).
+	// +optional
+	// +listType=map
+	// +listMapKey=design
+	Designs []DesignCount `json:"designs,omitempty"`
+
 	// accuracy compares the previous run's promised and realized accuracy on this run's new actuals.
 	// +optional
 	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
@@ -188,6 +196,14 @@ type ModelCount struct {
 	// model family.
 	Model string `json:"model"`
 	// series that chose it.
+	Series int64 `json:"series"`
+}
+
+// DesignCount is how many series one design forecast.
+type DesignCount struct {
+	// design name.
+	Design string `json:"design"`
+	// series it forecast.
 	Series int64 `json:"series"`
 }
 

@@ -97,6 +97,8 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Selection.Metric).To(Equal(forecastingv1alpha1.MetricMASE))
 		Expect(fp.Spec.Selection.BacktestOrigins).To(Equal(int32(3)))
 		Expect(fp.Spec.Selection.BacktestRefit).To(Equal(forecastingv1alpha1.RefitOnce))
+		Expect(fp.Spec.Selection.Design).To(Equal(forecastingv1alpha1.DesignAuto))
+		Expect(fp.Spec.Selection.DesignCostPercent).To(Equal(int32(500)))
 		Expect(fp.Spec.Sharding.TargetSeriesPerShard).To(Equal(int32(2000)))
 		Expect(fp.Spec.Sharding.MaxParallel).To(Equal(int32(8)))
 		Expect(fp.Spec.Drift.ThresholdPercent).To(Equal(int32(130)))
@@ -323,6 +325,18 @@ var _ = Describe("CRD validation", func() {
 		Entry("an unknown backtest refit", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, "Sometimes", "spec", "selection", "backtestRefit") },
 			want:   []string{"spec.selection.backtestRefit", "Unsupported value", "Once", "EveryOrigin"}}),
+		Entry("an unknown design", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "Sometimes", "spec", "selection", "design") },
+			want:   []string{"spec.selection.design", "Unsupported value", "Auto", "PerSeries", "Fixed"}}),
+		Entry("a design cost budget below the simplest design", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(99), "spec", "selection", "designCostPercent") },
+			want:   []string{"spec.selection.designCostPercent", "greater than or equal to 100"}}),
+		Entry("a combination with design PerSeries", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, "PerSeries", "spec", "selection", "design")
+				set(u, map[string]any{"top": int64(2)}, "spec", "selection", "combine")
+			},
+			want: []string{"spec.selection", "selection.combine is not used with design PerSeries"}}),
 		Entry("combining one member", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(1), "spec", "selection", "combine", "top") },
 			want:   []string{"spec.selection.combine.top", "greater than or equal to 2"}}),

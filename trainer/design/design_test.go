@@ -91,7 +91,7 @@ func names(cs []Candidate) []string {
 func TestCandidatesFromTheZoo(t *testing.T) {
 	full := specs(models.FamilyNaive, models.FamilyTheta, models.FamilyETS, models.FamilyARIMA)
 	cs := Candidates(selection.Config{Horizon: 3, Zoo: full}, Combinations)
-	if got, want := names(cs), []string{"ets-theta", "ets-arima-theta", NamePerSeries, "top3-mean", "top3-median"}; !reflect.DeepEqual(got, want) {
+	if got, want := names(cs), []string{"ets-theta", "ets-arima-theta", "top3-mean", "top3-median", NamePerSeries}; !reflect.DeepEqual(got, want) {
 		t.Fatalf("candidates %v, want %v", got, want)
 	}
 	et := cs[0].Config
@@ -99,16 +99,16 @@ func TestCandidatesFromTheZoo(t *testing.T) {
 		et.CombineTop != 2 || et.CombineMethod != selection.CombineMean || et.CombineMargin != alwaysCombine || et.Horizon != 3 {
 		t.Errorf("ets-theta config %+v", et)
 	}
-	if c := cs[2].Config; c.CombineTop != 0 || len(c.Zoo) != 4 {
+	if c := cs[4].Config; c.CombineTop != 0 || len(c.Zoo) != 4 {
 		t.Errorf("per-series config %+v", c)
 	}
-	if c := cs[4].Config; c.CombineTop != 3 || c.CombineMethod != selection.CombineMedian {
+	if c := cs[3].Config; c.CombineTop != 3 || c.CombineMethod != selection.CombineMedian {
 		t.Errorf("top3-median config %+v", c)
 	}
 
 	// A declared combination is a candidate of its own; fixed combinations need every family.
 	decl := selection.Config{Horizon: 3, Zoo: specs(models.FamilyNaive, models.FamilyTheta, models.FamilyETS), CombineTop: 2, CombineMargin: 0.1}
-	if got, want := names(Candidates(decl, Combinations)), []string{"ets-theta", NamePerSeries, NameDeclared}; !reflect.DeepEqual(got, want) {
+	if got, want := names(Candidates(decl, Combinations)), []string{"ets-theta", NameDeclared, NamePerSeries}; !reflect.DeepEqual(got, want) {
 		t.Errorf("declared: candidates %v, want %v", got, want)
 	}
 	// A single-family entry equal to the per-series design of a one-member zoo is not repeated.

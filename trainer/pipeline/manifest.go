@@ -42,6 +42,8 @@ type Counts struct {
 	Rejected int `json:"rejected"`
 	// Models counts trained series by chosen model family.
 	Models map[string]int `json:"models,omitempty"`
+	// Designs counts trained series by the design that forecast them (design.Result.Design).
+	Designs map[string]int `json:"designs,omitempty"`
 }
 
 // UnitDone is unit.json, written by train last in a unit's folder.

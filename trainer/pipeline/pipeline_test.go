@@ -15,6 +15,7 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -757,6 +758,48 @@ func TestCombineMarginChoosesTheCombination(t *testing.T) {
 		}
 		if !(c.Score > s.Score) {
 			t.Errorf("%s: combination score %v is not above the single member's %v, so the margin was not needed", key, c.Score, s.Score)
+		}
+	}
+}
+
+// selection.design reaches the trainer and its choice the models table and the shard
+// summaries. An empty design is Fixed (a configuration written before the field); with six
+// usable series, fewer than design.DefaultMinSeries, Auto takes its simplest candidate, the
+// mean of ETS and Theta (both in the zoo).
+func TestDesignReachesModelsAndSummary(t *testing.T) {
+	ctx := context.Background()
+	for mode, want := range map[string]string{"": design.NameDeclared, runconfig.DesignFixed: design.NameDeclared,
+		runconfig.DesignPerSeries: design.NamePerSeries, runconfig.DesignAuto: "ets-theta"} {
+		_, cfg := objectRun(t)
+		cfg.Zoo = []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}}
+		cfg.Selection.Design = mode
+		ps, err := RunPlan(ctx, cfg, testEnv())
+		if err != nil {
+			t.Fatal(err)
+		}
+		designs := map[string]int{}
+		for i := 0; i < ps.Shards; i++ {
+			sum, _ := RunTrain(ctx, cfg, i, testEnv())
+			for d, n := range sum.Designs {
+				designs[d] += n
+			}
+		}
+		if _, err := RunPublish(ctx, cfg, testEnv()); err != nil {
+			t.Fatal(err)
+		}
+		if !reflect.DeepEqual(designs, map[string]int{want: 6}) {
+			t.Errorf("design %q: summaries count %v, want %s for the 6 usable series", mode, designs, want)
+		}
+		out := mustOpen(t, cfg.Output.URI)
+		for _, u := range checkPublished(t, out, cfg.Run).Units {
+			for _, r := range unitModels(t, out, u, "csv") {
+				if r.Design != want || !strings.HasPrefix(r.Segment, "daily/") {
+					t.Errorf("design %q: %s has design %q, segment %q; want %s in a daily segment", mode, r.Series, r.Design, r.Segment, want)
+				}
+				if mode == runconfig.DesignAuto && r.Model != "Combination(mean: ETS, Theta)" {
+					t.Errorf("auto: %s published %s", r.Series, r.Model)
+				}
+			}
 		}
 	}
 }

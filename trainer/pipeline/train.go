@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
@@ -80,6 +81,16 @@ func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
 	return sc, nil
 }
 
+// designOptions maps the run configuration onto design's: an empty selection.design is
+// Fixed, what a configuration written before the field meant.
+func designOptions(cfg *runconfig.Config, sc selection.Config, workers int) design.Options {
+	mode := design.Mode(cfg.Selection.Design)
+	if mode == "" {
+		mode = design.Fixed
+	}
+	return design.Options{Mode: mode, Base: sc, CostLimit: cfg.Selection.DesignCostLimit, Workers: workers}
+}
+
 // driftMetric is the metric of evaluation: drift.metric, else the selection metric.
 func driftMetric(cfg *runconfig.Config, sc selection.Config) backtest.Metric {
 	if cfg.Drift.Metric != "" {
@@ -129,15 +140,17 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	for _, u := range units {
 		all = append(all, u.series...)
 	}
-	results := make([]selection.Result, len(all))
+	results := make([]design.Result, len(all))
 	errs := make([]error, len(all))
 	t0 := env.now()
-	err = selection.ForecastMany(ctx, all, sc, env.Workers, func(i int, r selection.Result, err error) {
+	outcome, err := design.Forecast(ctx, all, designOptions(cfg, sc, env.Workers), func(i int, r design.Result, err error) {
 		results[i], errs[i] = r, err
 	})
 	if err != nil {
 		return sum, err // the context ended (cfg was validated above)
 	}
+	env.logf("train: shard %d: design %s, %d inner-holdout series in %.1fs CPU, series per design %v",
+		shard, outcome.Mode, outcome.InnerSeries, outcome.InnerCPU.Seconds(), outcome.Counts())
 	fitSeconds := env.now().Sub(t0).Seconds()
 
 	var firstErr error
@@ -165,6 +178,12 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 				sum.Models = map[string]int{}
 			}
 			sum.Models[f] += c
+		}
+		for d, c := range done.Counts.Designs {
+			if sum.Designs == nil {
+				sum.Designs = map[string]int{}
+			}
+			sum.Designs[d] += c
 		}
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
@@ -269,7 +288,7 @@ func fatal(ctx context.Context, err error) error {
 
 // writeUnit evaluates, builds and writes one unit's tables and then its unit.json.
 func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest,
-	u *loaded, results []selection.Result, errs []error) (UnitDone, error) {
+	u *loaded, results []design.Result, errs []error) (UnitDone, error) {
 	format := tableFormat(cfg)
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
 	var rejected []tables.RejectedRow
@@ -278,7 +297,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 	}
 	var fc []tables.ForecastRow
 	var mr []tables.ModelRow
-	models := map[string]int{}
+	models, designs := map[string]int{}, map[string]int{}
 	for i, s := range u.series {
 		r := results[i]
 		if errs[i] != nil {
@@ -293,9 +312,11 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 			}
 			fc = append(fc, row)
 		}
-		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r), BacktestErrors: r.StepErrors,
-			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features})
+		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
+			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features,
+			Design: r.Design, Segment: r.Segment.String()})
 		models[r.Family]++
+		designs[r.Design]++
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Series < rejected[j].Series })
 
@@ -310,6 +331,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected)}
 	if len(models) > 0 {
 		done.Counts.Models = models
+		done.Counts.Designs = designs
 	}
 
 	writers := []struct {

@@ -7,6 +7,7 @@ import (
 
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/selection"
+	"almanac.dev/almanac/trainer/tables"
 )
 
 // Count is a name and how many series it applies to.
@@ -34,6 +35,9 @@ type Overview struct {
 	Models []Count
 	// Families is the backtest accuracy by chosen model family, most used first.
 	Families []FamilyScore
+	// Designs counts series by segment and the design that forecast them (the models table's
+	// design and segment columns), by segment then design; nil for tables without them.
+	Designs []DesignRow
 	// Evaluated, Drifted and the means summarize the evaluation of the previous run's forecasts.
 	Evaluated, Drifted, EvaluatedPoints int
 	ExpectedMean, RealizedMean          float64
@@ -79,6 +83,7 @@ func overview(r *Run) Overview {
 		}
 	}
 	o.Models = sortCounts(byModel)
+	o.Designs = designRows(r.Models)
 	for _, c := range sortCounts(famSeries) {
 		fs := FamilyScore{Family: c.Name, Series: c.Count, Median: math.NaN()}
 		scores := byFamily[c.Name]
@@ -240,6 +245,38 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 	sort.SliceStable(drifted, func(a, b int) bool { return ratio(drifted[a]) > ratio(drifted[b]) })
 	for i := 0; i < len(drifted) && i < lim.Drifted; i++ {
 		add(r.Evaluation[drifted[i]].Series, WhyDrifted)
+	}
+	return out
+}
+
+// DesignRow is how many series of one segment one design forecast. Shards choose apart, so
+// a segment can have more than one row.
+type DesignRow struct {
+	Segment, Design string
+	Series          int
+}
+
+// designRows counts the models rows by segment and design.
+func designRows(rows []tables.ModelRow) []DesignRow {
+	type key struct{ seg, design string }
+	n := map[key]int{}
+	for _, m := range rows {
+		if m.Design != "" {
+			n[key{m.Segment, m.Design}]++
+		}
+	}
+	out := make([]DesignRow, 0, len(n))
+	for k, c := range n {
+		out = append(out, DesignRow{Segment: k.seg, Design: k.design, Series: c})
+	}
+	sort.Slice(out, func(i, j int) bool {
+		if out[i].Segment != out[j].Segment {
+			return out[i].Segment < out[j].Segment
+		}
+		return out[i].Design < out[j].Design
+	})
+	if len(out) == 0 {
+		return nil
 	}
 	return out
 }

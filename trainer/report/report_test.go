@@ -156,7 +156,11 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, fo
 			notes = "Theta: too short to backtest (needs 104 observations plus one to test)"
 		}
 		mr = append(mr, tables.ModelRow{Series: s.key, Model: s.model, Params: s.model + " alpha=0.3",
-			BacktestErrors: []float64{s.score, s.score}, Metric: "MASE", Score: s.score, Notes: notes})
+			BacktestErrors: []float64{s.score, s.score}, Metric: "MASE", Score: s.score, Notes: notes,
+			Design: "per-series", Segment: "weekly/smooth/long"})
+		if unit == "b-0000" {
+			mr[len(mr)-1].Design = "ets-theta"
+		}
 		if unit == "b-0000" && !math.IsNaN(s.score) {
 			e := tables.EvaluationRow{Series: s.key, Points: 1, Metric: "MASE", Expected: s.score, Realized: s.score * 1.1, PreviousRun: prevRun}
 			if s.key == "oat-flakes-1kg/kelso" {
@@ -422,6 +426,22 @@ func TestReportOfPublishedRun(t *testing.T) {
 		if got := text(byID(t, doc, id)); !strings.HasPrefix(got, want+" ") {
 			t.Errorf("%s: %q, want it to start with %s", id, got, want)
 		}
+	}
+
+	// Design counts by segment equal those of the models tables.
+	wantDesigns, gotDesigns := map[string]int{}, map[string]int{}
+	for _, m := range readModels(t, f.out) {
+		wantDesigns[m.Segment+" "+m.Design]++
+	}
+	for _, row := range tableRows(byID(t, doc, "design-choices")) {
+		n, err := strconv.Atoi(row[2])
+		if err != nil {
+			t.Fatalf("design-choices row %v: %v", row, err)
+		}
+		gotDesigns[row[0]+" "+row[1]] = n
+	}
+	if len(wantDesigns) < 2 || fmt.Sprint(gotDesigns) != fmt.Sprint(wantDesigns) {
+		t.Errorf("design choices %v, models tables %v", gotDesigns, wantDesigns)
 	}
 
 	// Chosen-model counts equal those of the models tables.

@@ -118,7 +118,22 @@ type Selection struct {
 	// fit forward to the later ones (selection.Config.BacktestUpdate); false re-estimates at
 	// every origin.
 	UpdateBacktest bool `json:"updateBacktest,omitempty"`
+	// Design is how the trainer decides its design (trainer/design): "auto", "perSeries" or
+	// "fixed". Empty means fixed, what a configuration written before the field meant; the
+	// controller always renders it (spec.selection.design, default Auto).
+	Design string `json:"design,omitempty"`
+	// DesignCostLimit is Auto's CPU budget per series as a multiple of the simplest candidate
+	// design's (design.Options.CostLimit; 0: design.DefaultCostLimit); the controller renders
+	// spec.selection.designCostPercent / 100.
+	DesignCostLimit float64 `json:"designCostLimit,omitempty"`
 }
+
+// The values of Selection.Design.
+const (
+	DesignAuto      = "auto"
+	DesignPerSeries = "perSeries"
+	DesignFixed     = "fixed"
+)
 
 // Sharding configures how plan cuts units into shards.
 type Sharding struct {
@@ -194,6 +209,10 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("source.partitioning: %q is not %q, %q or %q", c.Source.Partitioning, PartitionNone, PartitionObject, PartitionRowGroup)
 	case c.Source.Partitioning == PartitionRowGroup && c.Source.Format != "parquet":
 		return fmt.Errorf("source.partitioning: %q needs source.format parquet", PartitionRowGroup)
+	case c.Selection.Design != "" && c.Selection.Design != DesignAuto && c.Selection.Design != DesignPerSeries && c.Selection.Design != DesignFixed:
+		return fmt.Errorf("selection.design: %q is not %q, %q or %q", c.Selection.Design, DesignAuto, DesignPerSeries, DesignFixed)
+	case c.Selection.DesignCostLimit != 0 && !(c.Selection.DesignCostLimit >= 1 && c.Selection.DesignCostLimit <= 1000):
+		return fmt.Errorf("selection.designCostLimit: %v is not 0 (the default) or a ratio in [1, 1000]", c.Selection.DesignCostLimit)
 	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
 		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
 	}

@@ -1,6 +1,7 @@
 package runconfig
 
 import (
+	"math"
 	"strings"
 	"testing"
 
@@ -41,6 +42,9 @@ func TestValidate(t *testing.T) {
 		"partition object":        {func(c *Config) { c.Source.Partitioning = PartitionObject }, ""},
 		"partition unknown":       {func(c *Config) { c.Source.Partitioning = "series" }, "source.partitioning"},
 		"row groups need parquet": {func(c *Config) { c.Source.Partitioning = PartitionRowGroup }, "source.partitioning"},
+		"design unknown":          {func(c *Config) { c.Selection.Design = "Auto" }, "selection.design"},
+		"design cost below 1":     {func(c *Config) { c.Selection.DesignCostLimit = 0.5 }, "selection.designCostLimit"},
+		"design cost NaN":         {func(c *Config) { c.Selection.DesignCostLimit = math.NaN() }, "selection.designCostLimit"},
 		"row groups parquet": {func(c *Config) {
 			c.Source.Partitioning = PartitionRowGroup
 			c.Source.Format = "parquet"

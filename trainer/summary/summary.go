@@ -37,6 +37,9 @@ type Summary struct {
 	Rejected int `json:"rejected,omitempty"`
 	// Models counts series by chosen model family (bounded cardinality: families, not configs).
 	Models map[string]int `json:"models,omitempty"`
+	// Designs counts series by the design that forecast them (trainer/design; a handful of
+	// names such as "ets-theta" or "per-series").
+	Designs map[string]int `json:"designs,omitempty"`
 	// Accuracy holds the error sums of this shard's evaluation of the previous run's forecasts.
 	Accuracy *Accuracy `json:"accuracy,omitempty"`
 	// DurationSeconds is the command's wall time; SeriesPerSecond its training throughput.
@@ -74,8 +77,8 @@ func (a *Accuracy) Add(b Accuracy) {
 	a.Drifted += b.Drifted
 }
 
-// Encode marshals s, dropping the model counts and then trimming the error text if needed to
-// stay within MaxBytes.
+// Encode marshals s, trimming the error text and then dropping the model counts if needed to
+// stay within MaxBytes (the design counts, a few short names, are kept).
 func Encode(s Summary) ([]byte, error) {
 	b, err := json.Marshal(s)
 	if err != nil {

@@ -43,6 +43,11 @@ type ModelRow struct {
 	// features. Written as the kept_features column, a JSON object of member name to feature
 	// names, only when some row has features.
 	Features map[string][]string
+	// Design is the design that forecast the series (trainer/design: a candidate's name such
+	// as "ets-theta", "per-series" or "declared") and Segment the segment it was chosen for
+	// ("monthly/smooth/long"). Written as the design and segment columns, only when some row
+	// has a design.
+	Design, Segment string
 }
 
 // EvaluationRow compares a series' realized error on new actuals with the error the
@@ -71,6 +76,8 @@ const (
 	colScore    = "score"
 	colNotes    = "notes"
 	colFeatures = "kept_features"
+	colDesign   = "design"
+	colSegment  = "segment"
 	colPoints   = "points"
 	colExpected = "expected"
 	colRealized = "realized"
@@ -201,19 +208,24 @@ func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
 
 // WriteModels writes a models table: series, model, params, metric, score, err_h1..err_hN,
 // notes, where N is the longest BacktestErrors; a shorter row leaves its last columns absent.
-// When any row has Features, a last column kept_features holds each row's as a JSON object
+// When any row has a Design, columns design and segment follow notes. When any row has
+// Features, a last column kept_features holds each row's as a JSON object
 // ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
 func WriteModels(w io.Writer, format string, rows []ModelRow) error {
-	steps, withFeatures := 0, false
+	steps, withFeatures, withDesign := 0, false, false
 	for _, r := range rows {
 		steps = max(steps, len(r.BacktestErrors))
 		withFeatures = withFeatures || len(r.Features) > 0
+		withDesign = withDesign || r.Design != ""
 	}
 	cols := []column{{colSeries, text}, {colModel, text}, {colParams, text}, {colMetric, text}, {colScore, number}}
 	for h := 1; h <= steps; h++ {
 		cols = append(cols, column{errPrefix + strconv.Itoa(h), optNumber})
 	}
 	cols = append(cols, column{colNotes, text})
+	if withDesign {
+		cols = append(cols, column{colDesign, text}, column{colSegment, text})
+	}
 	if withFeatures {
 		cols = append(cols, column{colFeatures, text})
 	}
@@ -228,6 +240,9 @@ func WriteModels(w io.Writer, format string, rows []ModelRow) error {
 			}
 		}
 		c = append(c, cell{s: r.Notes})
+		if withDesign {
+			c = append(c, cell{s: r.Design}, cell{s: r.Segment})
+		}
 		if withFeatures {
 			f := ""
 			if len(r.Features) > 0 {
@@ -259,7 +274,7 @@ func errStep(name string) (int, bool) {
 func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	g, err := read(r, format, "models", func(name string) (kind, bool) {
 		switch name {
-		case colSeries, colModel, colParams, colMetric, colNotes, colFeatures:
+		case colSeries, colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment:
 			return text, true
 		case colScore:
 			return number, true
@@ -295,6 +310,12 @@ func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	for i, c := range g.rows {
 		m := ModelRow{Series: c[pos[colSeries]].s, Model: c[pos[colModel]].s, Params: c[pos[colParams]].s,
 			Metric: c[pos[colMetric]].s, Score: c[pos[colScore]].f, Notes: c[pos[colNotes]].s}
+		if at, ok := pos[colDesign]; ok {
+			m.Design = c[at].s
+		}
+		if at, ok := pos[colSegment]; ok {
+			m.Segment = c[at].s
+		}
 		if at, ok := pos[colFeatures]; ok && c[at].s != "" {
 			if err := json.Unmarshal([]byte(c[at].s), &m.Features); err != nil {
 				return nil, fmt.Errorf("tables: models row %d (series %q): %s: %w", i+1, m.Series, colFeatures, err)

@@ -133,6 +133,28 @@ func TestModelsRoundTrip(t *testing.T) {
 	}
 }
 
+// The design and segment columns appear when a row has a design, and round-trip in both formats.
+func TestModelsDesignColumns(t *testing.T) {
+	rows := sampleModels()
+	rows[0].Design, rows[0].Segment = "ets-theta", "weekly/smooth/long"
+	for _, f := range formats {
+		var buf bytes.Buffer
+		if err := WriteModels(&buf, f, rows); err != nil {
+			t.Fatal(err)
+		}
+		if f == CSV && !strings.Contains(strings.SplitN(buf.String(), "\n", 2)[0], ",notes,design,segment") {
+			t.Errorf("header %q, want design and segment after notes", strings.SplitN(buf.String(), "\n", 2)[0])
+		}
+		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f)
+		if err != nil {
+			t.Fatalf("%s: %v", f, err)
+		}
+		if got[0].Design != "ets-theta" || got[0].Segment != "weekly/smooth/long" || got[1].Design != "" {
+			t.Errorf("%s: designs %q/%q and %q", f, got[0].Design, got[0].Segment, got[1].Design)
+		}
+	}
+}
+
 func TestEvaluationAndRejectedRoundTrip(t *testing.T) {
 	ev := []EvaluationRow{
 		{Series: "harbour/rye-loaf", Points: 4, Metric: "MASE", Expected: 0.93, Realized: 1.41, Drifted: true, PreviousRun: "weekly-20261130"},

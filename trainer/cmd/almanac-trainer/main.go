@@ -186,6 +186,7 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	partitioning := fs.String("partitioning", "", `input layout: "" (hash buckets), "object" or "rowGroup"`)
 	horizon := fs.Int("horizon", 14, "forecast horizon in periods")
 	zoo := fs.String("models", "Naive,SeasonalNaive,ETS,Theta", "comma-separated model `families`")
+	designFlag := fs.String("design", runconfig.DesignAuto, `how the design is decided, as a portfolio's spec.selection.design: "auto" (chosen per segment on an inner holdout), "perSeries" or "fixed"`)
 	quantiles := fs.String("quantiles", "0.1,0.5,0.9", "comma-separated quantile levels")
 	perShard := fs.Int("series-per-shard", 2000, "target series per shard")
 	runName := fs.String("run", "", "run `name` (default local-<UTC time>)")
@@ -208,7 +209,7 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 				Columns: runconfig.Columns{Series: split(*keys), Date: *date, Value: *value, Covariates: split(*covs)}},
 			Output:    runconfig.Output{URI: *out, Format: *outFormat},
 			Horizon:   *horizon,
-			Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1},
+			Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, Design: *designFlag},
 			Sharding:  runconfig.Sharding{TargetSeriesPerShard: *perShard},
 			Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 7},
 		}
