@@ -27,6 +27,25 @@ build: ## Build the controller and the trainer into bin/.
 	CGO_ENABLED=0 go build $(GO_BUILD_FLAGS) -o bin/almanac-controller .
 	CGO_ENABLED=0 go build $(GO_BUILD_FLAGS) -o bin/almanac-trainer ./trainer/cmd/almanac-trainer
 
+# org.opencontainers.image.source of both images.
+IMAGE_SOURCE ?= https://almanac.dev/almanac
+
+.PHONY: images
+images: build debian-tools ## Build both images without a daemon (buildah) into bin/almanac-controller.oci.tar and bin/almanac-trainer.oci.tar.
+	VERSION=$(VERSION) COMMIT=$(COMMIT) SOURCE=$(IMAGE_SOURCE) bash images/build.sh bin
+
+# Debian packages `make images` and the monitoring rule tests use: command:package.
+DEBIAN_TOOLS ?= buildah:buildah promtool:prometheus
+
+.PHONY: debian-tools
+debian-tools: ## Install with apt-get what images and test-monitoring need and this machine lacks.
+	@missing=""; \
+	for p in $(DEBIAN_TOOLS); do command -v "$${p%%:*}" >/dev/null || missing="$$missing $${p#*:}"; done; \
+	[ -e /etc/ssl/certs/ca-certificates.crt ] || missing="$$missing ca-certificates"; \
+	[ -e /usr/share/zoneinfo/UTC ] || missing="$$missing tzdata"; \
+	if [ -n "$$missing" ]; then echo "debian-tools: installing$$missing"; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends $$missing >/dev/null; fi
+
 .PHONY: generate
 generate: ## Generate deepcopy code for the API types.
 	$(CONTROLLER_GEN) object paths=./api/...
@@ -58,11 +77,11 @@ check-generated: generate manifests ## Fail if generated files are stale.
 	@git diff --exit-code -- api config charts || { echo "generated files are stale: run make generate manifests"; exit 1; }
 
 .PHONY: test
-test: controlplane s3server lint test-unit test-fuzz test-e2e ## Everything CI runs.
+test: controlplane s3server images lint test-unit test-fuzz test-e2e ## Everything CI runs.
 
 .PHONY: test-unit
 test-unit: ## Unit, reference and envtest suites against the self-built control plane (test-e2e runs test/e2e).
-	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server go test -count=1 -timeout 30m $$(go list ./... | grep -v '/test/e2e')
+	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server ALMANAC_IMAGES=$(CURDIR)/bin go test -count=1 -timeout 30m $$(go list ./... | grep -v '/test/e2e')
 
 .PHONY: test-fuzz
 test-fuzz: ## Run every fuzz target briefly.
@@ -107,7 +126,7 @@ demo: controlplane build ## Local control plane, the promotion sample portfolio 
 
 .PHONY: clean
 clean:
-	rm -rf bin/almanac-* demo-output
+	rm -rf bin/almanac-* bin/image-context demo-output
 
 .PHONY: help
 help:

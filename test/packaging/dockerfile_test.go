@@ -25,6 +25,9 @@ type instruction struct {
 	args string
 }
 
+// globalArgs names the instructions before the first FROM (the global ARGs).
+const globalArgs = "(global)"
+
 // stage is one FROM ... AS name block.
 type stage struct {
 	name, from string
@@ -64,9 +67,11 @@ func parseDockerfile(t *testing.T) []stage {
 			stages = append(stages, st)
 			continue
 		}
-		if len(stages) > 0 {
-			stages[len(stages)-1].body = append(stages[len(stages)-1].body, in)
+		if len(stages) == 0 {
+			// ARGs before the first FROM: kept as a stage named globalArgs.
+			stages = append(stages, stage{name: globalArgs})
 		}
+		stages[len(stages)-1].body = append(stages[len(stages)-1].body, in)
 	}
 	return stages
 }
@@ -119,18 +124,71 @@ func TestDockerfileTargets(t *testing.T) {
 		if err := json.Unmarshal([]byte(s.last("ENTRYPOINT")), &entrypoint); err != nil || !slices.Equal(entrypoint, []string{"/" + target.binary}) {
 			t.Errorf("%s: ENTRYPOINT %q, want exec form [\"/%s\"]", target.name, s.last("ENTRYPOINT"), target.binary)
 		}
-		if want := "--from=build /out/" + target.binary + " /" + target.binary; !slices.Contains(s.body, instruction{"COPY", want}) {
+		if want := "--from=files /files/" + target.binary + " /" + target.binary; !slices.Contains(s.body, instruction{"COPY", want}) {
 			t.Errorf("%s: no COPY %s", target.name, want)
 		}
 	}
-	// The passwd entry of the base image names the same uid, so tools that map uid to name
-	// (and glibc-free Go's os/user) find it.
-	build := stageNamed(t, stages, "build")
+	// The passwd entry of the base image (written by images/root.sh) names the same uid, so
+	// tools that map uid to name (and glibc-free Go's os/user) find it.
 	uid, _, _ := strings.Cut(base.last("USER"), ":")
-	if !slices.ContainsFunc(build.body, func(in instruction) bool {
-		return in.cmd == "RUN" && strings.Contains(in.args, "nonroot:x:"+uid+":")
-	}) {
-		t.Errorf("build stage writes no passwd entry for uid %s", uid)
+	if !bytes.Contains(mustRead(t, filepath.Join(repoRoot, "images", "root.sh")), []byte("nonroot:x:"+uid+":")) {
+		t.Errorf("images/root.sh writes no passwd entry for uid %s", uid)
+	}
+}
+
+// TestDockerfileBothWaysShareTheFinalStages checks that the two ways of getting the files,
+// compiling in the Go image (FILES=build) and taking them from the context `make images`
+// prepares (FILES=context), both lay out /files the same way from the same sources, and that
+// the final stages read only that layout. TestImages shows the context way gives exactly
+// root.sh's tree plus the binary; the build way runs the same root.sh on the same Debian
+// release (the Go image's bookworm, this machine's Debian 12) and builds with the Makefile's
+// flags (TestDockerfileBuildFlagsAreTheMakefiles). It cannot be built here: the Go image
+// needs a registry.
+func TestDockerfileBothWaysShareTheFinalStages(t *testing.T) {
+	stages := parseDockerfile(t)
+	if got := stageNamed(t, stages, globalArgs).last("ARG"); got != "FILES=build" {
+		t.Errorf("global ARG %q, want FILES=build (the multi-stage build stays the default)", got)
+	}
+	files := stageNamed(t, stages, "files")
+	if files.from != "${FILES}" || len(files.body) != 0 {
+		t.Errorf("files stage: FROM %s with %d instructions, want FROM ${FILES} and nothing else", files.from, len(files.body))
+	}
+	build := stageNamed(t, stages, "build")
+	if !strings.HasSuffix(build.from, "-bookworm") {
+		t.Errorf("build stage FROM %s: root.sh's tree comes from its Debian release; keep it the one make images runs on (bookworm) or say why not", build.from)
+	}
+	if !slices.Contains(build.body, instruction{"RUN", "sh images/root.sh /files/root"}) {
+		t.Error("build stage does not run `sh images/root.sh /files/root`")
+	}
+	var outs []string
+	for _, in := range build.body {
+		for _, m := range goBuildLine.FindAllStringSubmatch(in.args, -1) {
+			outs = append(outs, m[2])
+		}
+	}
+	if !slices.Equal(outs, []string{"/files/almanac-controller", "/files/almanac-trainer"}) {
+		t.Errorf("build stage writes the binaries to %q, want /files/almanac-controller and /files/almanac-trainer", outs)
+	}
+	ctx := stageNamed(t, stages, "context")
+	if ctx.from != "scratch" || !slices.Equal(ctx.body, []instruction{{"COPY", "files/ /files/"}}) {
+		t.Errorf("context stage: FROM %s %v, want FROM scratch and only COPY files/ /files/", ctx.from, ctx.body)
+	}
+	script := string(mustRead(t, filepath.Join(repoRoot, "images", "build.sh")))
+	for _, want := range []string{`sh images/root.sh "$ctx/files/root"`, `cp "$bin/almanac-controller" "$bin/almanac-trainer" "$ctx/files/"`, "--build-arg FILES=context"} {
+		if !strings.Contains(script, want) {
+			t.Errorf("images/build.sh lacks %s", want)
+		}
+	}
+	// The final stages take files only from the files stage.
+	for _, name := range []string{"base", "controller", "trainer"} {
+		for _, in := range stageNamed(t, stages, name).body {
+			if in.cmd == "COPY" && !strings.HasPrefix(in.args, "--from=files /files/") {
+				t.Errorf("%s: COPY %s does not come from the files stage", name, in.args)
+			}
+			if in.cmd == "RUN" {
+				t.Errorf("%s: RUN %s: the final stages have no shell to run it", name, in.args)
+			}
+		}
 	}
 }
 
@@ -238,7 +296,7 @@ func TestDockerignoreKeepsWhatTheBuildNeeds(t *testing.T) {
 		t.Fatalf("go list: %v", err)
 	}
 	root, _ := filepath.Abs(repoRoot)
-	needed := []string{"go.mod", "go.sum"}
+	needed := []string{"go.mod", "go.sum", "images/root.sh"}
 	for _, f := range strings.Fields(string(out)) {
 		rel, err := filepath.Rel(root, f)
 		if err != nil {
