@@ -62,7 +62,7 @@ const (
 type Weekday string
 
 // ModelFamily names a family of forecasting models in the zoo.
-// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting;MSTLETS;MSTLTheta;MSTLARIMA
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting;MSTLETS;MSTLTheta;MSTLARIMA;OTM;DOTM;CES;ETSARIMADOTMCESMedian;ETSARIMADOTMCESMean
 type ModelFamily string
 
 // The model families.
@@ -96,6 +96,20 @@ const (
 	FamilyMSTLETS   ModelFamily = "MSTLETS"
 	FamilyMSTLTheta ModelFamily = "MSTLTheta"
 	FamilyMSTLARIMA ModelFamily = "MSTLARIMA"
+	// FamilyOTM is the optimised Theta model: Theta with θ and the smoothing weight estimated
+	// (Fiorucci, Pellegrini, Louzada, Petropoulos & Koehler 2016).
+	FamilyOTM ModelFamily = "OTM"
+	// FamilyDOTM is the dynamic optimised Theta model: as OTM, with the trend line refitted at
+	// every period (Fiorucci et al. 2016).
+	FamilyDOTM ModelFamily = "DOTM"
+	// FamilyCES is complex exponential smoothing (Svetunkov, Kourentzes & Ord 2022), on the
+	// seasonally adjusted series.
+	FamilyCES ModelFamily = "CES"
+	// FamilyETSARIMADOTMCESMedian is the median of the ETS, ARIMA, DOTM and CES families
+	// (Petropoulos & Svetunkov 2020).
+	FamilyETSARIMADOTMCESMedian ModelFamily = "ETSARIMADOTMCESMedian"
+	// FamilyETSARIMADOTMCESMean is the equal-weight mean of the ETS, ARIMA, DOTM and CES families.
+	FamilyETSARIMADOTMCESMean ModelFamily = "ETSARIMADOTMCESMean"
 )
 
 // ErrorMetric is a forecast accuracy measure.

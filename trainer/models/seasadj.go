@@ -69,12 +69,7 @@ type adjNaiveFit struct {
 	fitted []float64
 }
 
-func (f *adjNaiveFit) Name() string {
-	if f.idx != nil {
-		return fmt.Sprintf("%s(seasonal m=%d)", f.name, len(f.idx))
-	}
-	return f.name
-}
+func (f *adjNaiveFit) Name() string { return seasonAdjustment{f.idx}.label(f.name) }
 
 // Params returns "seasonal" (1 or 0), "sigma" (σ̂_a of the adjusted series), "level" (a_n) and
 // "index<j>" for each seasonal index when seasonal.
@@ -113,4 +108,37 @@ func addSeasonParams(p map[string]float64, idx []float64) {
 	for j, s := range idx {
 		p[fmt.Sprintf("index%d", j)] = s
 	}
+}
+
+// seasonAdjustment is the classical multiplicative adjustment the decomposition-based families
+// share (SeasonalAdjustedNaive, Theta, OTM, DOTM, CES): idx holds the indices S_j
+// (classical.SeasonalIndices) and is nil when the series is modelled unadjusted.
+type seasonAdjustment struct{ idx []float64 }
+
+// adjustSeason tests y for seasonality of period m and returns the adjustment and the adjusted
+// series y_t / S_{t mod m} (y itself, not copied, when not seasonal).
+func adjustSeason(y []float64, m int) (seasonAdjustment, []float64) {
+	idx, seasonal := classical.SeasonalIndices(y, m)
+	if !seasonal {
+		return seasonAdjustment{}, y
+	}
+	x := make([]float64, len(y))
+	classical.Deseasonalize(x, y, idx)
+	return seasonAdjustment{idx: idx}, x
+}
+
+// index returns S_{t mod m} (t from 0 at the first observation), 1 when not seasonal.
+func (a seasonAdjustment) index(t int) float64 {
+	if a.idx == nil {
+		return 1
+	}
+	return a.idx[t%len(a.idx)]
+}
+
+// label returns name, followed by "(seasonal m=...)" when the series was adjusted.
+func (a seasonAdjustment) label(name string) string {
+	if a.idx == nil {
+		return name
+	}
+	return fmt.Sprintf("%s(seasonal m=%d)", name, len(a.idx))
 }

@@ -1,7 +1,6 @@
 package models
 
 import (
-	"fmt"
 	"math"
 
 	"almanac.dev/almanac/trainer/numeric/classical"
@@ -135,22 +134,27 @@ func sesLeastSquares(x []float64) (alpha, l0 float64) {
 	}
 	start /= float64(k)
 	sse := func(a float64) float64 { _, s := sesProfile(x, a, start); return s }
-
-	step := (sesAlphaMax - sesAlphaMin) / (sesGrid - 1)
-	best, bestSSE := 0, math.Inf(1)
-	for i := range sesGrid {
-		if s := sse(sesAlphaMin + float64(i)*step); s < bestSSE {
-			best, bestSSE = i, s
-		}
-	}
-	lo := sesAlphaMin + float64(max(best-1, 0))*step
-	hi := sesAlphaMin + float64(min(best+1, sesGrid-1))*step
-	alpha = goldenMin(sse, lo, hi, 1e-10)
-	if sse(alpha) > bestSSE { // the grid point is better than the bracket's interior optimum
-		alpha = sesAlphaMin + float64(best)*step
-	}
+	alpha = gridGoldenMin(sse, sesAlphaMin, sesAlphaMax, sesGrid)
 	l0, _ = sesProfile(x, alpha, start)
 	return alpha, l0
+}
+
+// gridGoldenMin minimises f on [lo, hi]: f at `grid` evenly spaced points (grid >= 2), then
+// goldenMin in the bracket around the best of them, keeping the grid point when the bracket's
+// interior optimum is worse.
+func gridGoldenMin(f func(float64) float64, lo, hi float64, grid int) float64 {
+	step := (hi - lo) / float64(grid-1)
+	best, bestF := 0, math.Inf(1)
+	for i := range grid {
+		if v := f(lo + float64(i)*step); v < bestF {
+			best, bestF = i, v
+		}
+	}
+	x := goldenMin(f, lo+float64(max(best-1, 0))*step, lo+float64(min(best+1, grid-1))*step, 1e-10)
+	if f(x) > bestF {
+		x = lo + float64(best)*step
+	}
+	return x
 }
 
 // goldenMin returns a minimiser of f on [lo, hi] by golden-section search to width tol
@@ -186,12 +190,7 @@ type thetaFit struct {
 	fitted        []float64
 }
 
-func (f *thetaFit) Name() string {
-	if f.idx != nil {
-		return fmt.Sprintf("%s(seasonal m=%d)", f.name, len(f.idx))
-	}
-	return f.name
-}
+func (f *thetaFit) Name() string { return seasonAdjustment{f.idx}.label(f.name) }
 
 // Params returns "alpha", "l0" (initial level), "level" (ℓ_{n−1}), "drift" (b), "sigma2" (σ̂²),
 // "seasonal" (1 or 0) and "index<j>" for each seasonal index when seasonal.

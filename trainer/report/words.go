@@ -178,7 +178,8 @@ func num(v float64) string {
 // familyWords describes each model family in a planner's words. Common practice; the
 // references are from memory, not checked here: Hyndman & Athanasopoulos, Forecasting:
 // Principles and Practice, 3rd ed. (simple methods, exponential smoothing, ARIMA); Assimakopoulos
-// & Nikolopoulos 2000 (Theta); Croston 1972, Syntetos & Boylan 2005 (SBA) and Teunter, Syntetos &
+// & Nikolopoulos 2000 (Theta); Fiorucci et al. 2016 (OTM, DOTM); Svetunkov, Kourentzes & Ord
+// 2022 (CES); Petropoulos & Svetunkov 2020 (the median of four); Croston 1972, Syntetos & Boylan 2005 (SBA) and Teunter, Syntetos &
 // Babai 2011 (TSB) for intermittent demand. trainer/models documents what each family computes.
 var familyWords = map[string]string{
 	models.FamilyMean:                  "the average of the whole history",
@@ -193,6 +194,11 @@ var familyWords = map[string]string{
 	models.FamilyTSB:                   "for intermittent demand: tracks the chance of a demand, so the forecast can fade for dying items",
 	"ARIMA":                            "ARIMA: a model of how each period depends on the ones before",
 	models.FamilyETSARIMATheta:         "the equal-weight mean of the ETS, ARIMA and Theta forecasts",
+	models.FamilyOTM:                   "the Theta method with its trend weight fitted to the series",
+	models.FamilyDOTM:                  "the Theta method with its trend weight fitted to the series and the trend line redrawn every period",
+	models.FamilyCES:                   "complex exponential smoothing: one smoothing rule that follows a level or a trend as the data show",
+	models.FamilyETSARIMADOTMCESMedian: "the middle of the ETS, ARIMA, DOTM and CES forecasts (the median of the four)",
+	models.FamilyETSARIMADOTMCESMean:   "the equal-weight mean of the ETS, ARIMA, DOTM and CES forecasts",
 	selection.FamilyCombination:        "the mean or median (as the portfolio sets) of the best few models' forecasts",
 	models.FamilyRidge:                 "a regression on the portfolio's features (promotions, prices, events, recent demand), with all coefficients shrunk a little",
 	models.FamilyLasso:                 "a regression on the portfolio's features that keeps only those that help, with the rest set to zero",

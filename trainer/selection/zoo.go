@@ -14,13 +14,15 @@ import (
 var SimplicityOrder = []string{
 	models.FamilyMean, models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyDrift,
 	models.FamilySeasonalAdjustedNaive, models.FamilyCroston, models.FamilySBA, models.FamilyTSB,
-	models.FamilyTheta, models.FamilyETS, models.FamilyRidge, models.FamilyLasso, models.FamilyGradientBoosting,
+	models.FamilyTheta, models.FamilyOTM, models.FamilyDOTM, models.FamilyETS, models.FamilyCES, models.FamilyRidge, models.FamilyLasso, models.FamilyGradientBoosting,
 }
 
 // ByNameOnly lists the families Zoo includes only when they are named: the regression families,
-// which need a feature declaration to be useful and cost far more than the others, so that the
-// default zoo stays what it was before they existed.
-var ByNameOnly = []string{models.FamilyRidge, models.FamilyLasso, models.FamilyGradientBoosting}
+// which need a feature declaration to be useful and cost far more than the others, and the
+// four-member combinations, which fit ETS and ARIMA over again beside the zoo's own members, so
+// that the default zoo does not grow by their cost.
+var ByNameOnly = []string{models.FamilyRidge, models.FamilyLasso, models.FamilyGradientBoosting,
+	models.FamilyETSARIMADOTMCESMedian, models.FamilyETSARIMADOTMCESMean}
 
 // Zoo returns default-setting specs for the given families in simplicity order, or for every
 // registered family except ByNameOnly when none is given. An unregistered family is an error naming it.

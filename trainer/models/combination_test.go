@@ -2,6 +2,7 @@ package models
 
 import (
 	"math"
+	"sort"
 	"testing"
 )
 
@@ -98,7 +99,7 @@ func TestARIMAAndTrioUpdate(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	members := tf.(*trioFit).fits
+	members := tf.(*combinationFit).fits
 	etsU, err := members[0].(*ETSFit).Update(y)
 	if err != nil {
 		t.Fatal(err)
@@ -123,7 +124,101 @@ func TestARIMAAndTrioUpdate(t *testing.T) {
 			t.Errorf("step %d: updated combination %v, mean of updated members %v", k+1, got[k], want)
 		}
 	}
-	if tu.Name() == "" || tu.(*trioFit).n != len(y) {
-		t.Errorf("updated combination %q covers %d observations, want %d", tu.Name(), tu.(*trioFit).n, len(y))
+	if tu.Name() == "" || tu.(*combinationFit).n != len(y) {
+		t.Errorf("updated combination %q covers %d observations, want %d", tu.Name(), tu.(*combinationFit).n, len(y))
+	}
+}
+
+// TestCombinationReduce: the mean and the median by their definitions (the median of an even
+// count is the mean of the middle two), and NaN passes through.
+func TestCombinationReduce(t *testing.T) {
+	mean, med := combination{}, combination{median: true}
+	for _, c := range []struct {
+		v         []float64
+		mean, med float64
+	}{{[]float64{3, 1, 2}, 2, 2}, {[]float64{4, 1, 10, 2}, 4.25, 3}, {[]float64{7}, 7, 7}, {[]float64{1, 9}, 5, 5}} {
+		if got := mean.reduce(append([]float64(nil), c.v...)); got != c.mean {
+			t.Errorf("mean %v = %v, want %v", c.v, got, c.mean)
+		}
+		if got := med.reduce(append([]float64(nil), c.v...)); got != c.med {
+			t.Errorf("median %v = %v, want %v", c.v, got, c.med)
+		}
+	}
+	if got := med.reduce([]float64{1, math.NaN(), 3}); !math.IsNaN(got) {
+		t.Errorf("median with a NaN = %v", got)
+	}
+}
+
+// TestETSARIMADOTMCESMedian: the four-member combinations of Petropoulos & Svetunkov (2020)
+// forecast the step-by-step median (and mean) of ETS, ARIMA, DOTM and CES fitted on their own,
+// quantiles level by level; an updated median is the median of the updated members (CES and
+// ETS, ARIMA carried forward, DOTM refitted).
+func TestETSARIMADOTMCESMedian(t *testing.T) {
+	y := depotDemand()
+	levels := []float64{0.1, 0.9}
+	var fcs, upd []Forecast
+	for _, f := range []string{FamilyETS, FamilyARIMA, FamilyDOTM, FamilyCES} {
+		m, err := New(Spec{Family: f})
+		if err != nil {
+			t.Fatal(err)
+		}
+		mf, err := m.Fit(y[:84], 12)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fcs = append(fcs, mf.Forecast(6, levels))
+		var uf Fitted
+		if u, ok := mf.(interface {
+			Update([]float64) (Fitted, error)
+		}); ok {
+			uf, err = u.Update(y)
+		} else {
+			uf, err = m.Fit(y, 12)
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		upd = append(upd, uf.Forecast(6, nil))
+	}
+	med4 := func(a, b, c, d float64) float64 {
+		v := []float64{a, b, c, d}
+		sort.Float64s(v)
+		return (v[1] + v[2]) / 2
+	}
+	for _, fam := range []string{FamilyETSARIMADOTMCESMedian, FamilyETSARIMADOTMCESMean} {
+		m, err := New(Spec{Family: fam})
+		if err != nil {
+			t.Fatal(err)
+		}
+		fit, err := m.Fit(y[:84], 12)
+		if err != nil {
+			t.Fatal(err)
+		}
+		comb := med4
+		if fam == FamilyETSARIMADOTMCESMean {
+			comb = func(a, b, c, d float64) float64 { return (a + b + c + d) / 4 }
+		}
+		got := fit.Forecast(6, levels)
+		for k := range 6 {
+			if want := comb(fcs[0].Mean[k], fcs[1].Mean[k], fcs[2].Mean[k], fcs[3].Mean[k]); math.Abs(got.Mean[k]-want) > 1e-9*math.Abs(want) {
+				t.Errorf("%s step %d: %v, members %v", fam, k+1, got.Mean[k], want)
+			}
+			for j := range levels {
+				q := func(i int) float64 { return fcs[i].Quantiles[j][k] }
+				if want := comb(q(0), q(1), q(2), q(3)); math.Abs(got.Quantiles[j][k]-want) > 1e-9*math.Abs(want) {
+					t.Errorf("%s step %d level %v: %v, members %v", fam, k+1, levels[j], got.Quantiles[j][k], want)
+				}
+			}
+		}
+		u, err := fit.(*combinationFit).Update(y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		gu := u.Forecast(6, nil).Mean
+		for k := range 6 {
+			if want := comb(upd[0].Mean[k], upd[1].Mean[k], upd[2].Mean[k], upd[3].Mean[k]); math.Abs(gu[k]-want) > 1e-9*math.Abs(want) {
+				t.Errorf("%s updated step %d: %v, updated members %v", fam, k+1, gu[k], want)
+			}
+		}
 	}
 }
