@@ -62,7 +62,7 @@ const (
 type Weekday string
 
 // ModelFamily names a family of forecasting models in the zoo.
-// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting;MSTLETS;MSTLTheta;MSTLARIMA;OTM;DOTM;CES;ETSARIMADOTMCESMedian;ETSARIMADOTMCESMean
+// +kubebuilder:validation:Enum=Mean;Naive;SeasonalNaive;Drift;SeasonalAdjustedNaive;ETS;Theta;Croston;SBA;TSB;ARIMA;ETSARIMATheta;Ridge;Lasso;GradientBoosting;MSTLETS;MSTLTheta;MSTLARIMA;OTM;DOTM;CES;ETSARIMADOTMCESMedian;ETSARIMADOTMCESMean;FourierARIMA
 type ModelFamily string
 
 // The model families.
@@ -110,6 +110,9 @@ const (
 	FamilyETSARIMADOTMCESMedian ModelFamily = "ETSARIMADOTMCESMedian"
 	// FamilyETSARIMADOTMCESMean is the equal-weight mean of the ETS, ARIMA, DOTM and CES families.
 	FamilyETSARIMADOTMCESMean ModelFamily = "ETSARIMADOTMCESMean"
+	// FamilyFourierARIMA is dynamic harmonic regression: sine/cosine pairs for every seasonal
+	// cycle (their number chosen per series by AICc) with non-seasonal ARIMA errors.
+	FamilyFourierARIMA ModelFamily = "FourierARIMA"
 )
 
 // ErrorMetric is a forecast accuracy measure.
@@ -426,10 +429,10 @@ type ModelSpec struct {
 	// +kubebuilder:validation:Maximum=8784
 	SeasonLength *int32 `json:"seasonLength,omitempty"`
 
-	// seasonalPeriods overrides the cycles the multi-seasonal families (MSTL*) model, as
-	// decimals from 2 to 8784, e.g. ["24", "168"]. Default: the frequency's (Hourly 24 and 168,
-	// Daily 7 and 365.25, Weekly 52.18, Monthly 12, Quarterly 4, Yearly none). Other families
-	// ignore it.
+	// seasonalPeriods overrides the cycles the multi-seasonal families (MSTL*, FourierARIMA)
+	// model, as decimals from 2 to 8784, e.g. ["24", "168"]. Default: the frequency's (Hourly 24
+	// and 168, Daily 7 and 365.25, Weekly 52.18, Monthly 12, Quarterly 4, Yearly none). Other
+	// families ignore it.
 	// +optional
 	// +listType=atomic
 	// +kubebuilder:validation:MaxItems=4

@@ -45,10 +45,8 @@ type mstlModel struct {
 }
 
 func newMSTL(s Spec) (Model, error) {
-	for i, p := range s.SeasonalPeriods {
-		if !(p >= 2) || p > maxSeasonalPeriod {
-			return nil, fmt.Errorf("models: %s: seasonalPeriods[%d] = %v, want 2 to %d", s.DisplayName(), i, p, maxSeasonalPeriod)
-		}
+	if err := checkPeriods(s); err != nil {
+		return nil, err
 	}
 	var in Spec
 	switch s.Family {
@@ -81,26 +79,21 @@ func (m *mstlModel) MinLength(int) int { return m.inner.MinLength(1) }
 
 // Fit decomposes with the periods the season length m implies (see the family comment).
 func (m *mstlModel) Fit(y []float64, sl int) (Fitted, error) {
-	return m.fit(y, m.periods(sl, frequencyOfSeason(sl)))
+	return m.fit(y, seasonalPeriods(m.spec, sl, ""))
 }
 
 // FitInputs decomposes with the periods of in.Freq when sl is its usual season length.
 func (m *mstlModel) FitInputs(y []float64, sl int, in Inputs) (Fitted, error) {
-	f := in.Freq
-	if f == "" {
-		f = frequencyOfSeason(sl)
-	}
-	return m.fit(y, m.periods(sl, f))
-}
-
-// periods resolves the seasonal periods for season length sl of a series of frequency f.
-func (m *mstlModel) periods(sl int, f series.Frequency) []float64 {
-	return seasonalPeriods(m.spec, sl, f)
+	return m.fit(y, seasonalPeriods(m.spec, sl, in.Freq))
 }
 
 // seasonalPeriods is the period rule of the multi-seasonal families: s.SeasonalPeriods; else
-// f's periods when sl is f's usual season length; else sl alone (none when sl < 2).
+// f's periods when sl is f's usual season length (f empty: the frequency whose usual season
+// length sl is); else sl alone (none when sl < 2).
 func seasonalPeriods(s Spec, sl int, f series.Frequency) []float64 {
+	if f == "" {
+		f = frequencyOfSeason(sl)
+	}
 	if len(s.SeasonalPeriods) > 0 {
 		return s.SeasonalPeriods
 	}

@@ -24,6 +24,24 @@ func hourlyOrders(n int) []float64 {
 	return y
 }
 
+// checkWeeklyDip: a week-ahead forecast from the end of hourlyOrders (Sunday 23:00) keeps the
+// weekend 15 below the weekdays (steps 121..144 are next Saturday), and its 10% and 90%
+// quantiles lie either side of the mean.
+func checkWeeklyDip(t *testing.T, fam string, fc Forecast) {
+	t.Helper()
+	weekday, weekend := 0.0, 0.0
+	for k := 0; k < 24; k++ {
+		weekday += fc.Mean[k] / 24
+		weekend += fc.Mean[120+k] / 24
+	}
+	if !(weekday-weekend > 10) {
+		t.Errorf("%s: weekday mean %v, weekend %v: the weekly dip is lost", fam, weekday, weekend)
+	}
+	if !(fc.Quantiles[0][5] < fc.Mean[5] && fc.Mean[5] < fc.Quantiles[1][5]) {
+		t.Errorf("%s: quantiles %v %v around %v", fam, fc.Quantiles[0][5], fc.Quantiles[1][5], fc.Mean[5])
+	}
+}
+
 // TestMSTLMembersTakeTheFrequencysPeriods: through FitInputs an hourly series gets periods 24
 // and 168, a declared list wins, too short a history drops the week, and the forecast
 // repeats the weekend dip, which a 24-hour season alone cannot.
@@ -41,19 +59,8 @@ func TestMSTLMembersTakeTheFrequencysPeriods(t *testing.T) {
 		if !strings.HasPrefix(f.Name(), "MSTL(24,168)+") || f.Params()["period2"] != 168 {
 			t.Errorf("%s: %s %v, want periods 24 and 168", fam, f.Name(), f.Params())
 		}
-		// The series ends at hour 671 = Sunday 23:00 of week 4; steps 121..144 are next weekend.
 		fc := f.Forecast(168, []float64{0.1, 0.9})
-		weekday, weekend := 0.0, 0.0
-		for k := 0; k < 24; k++ {
-			weekday += fc.Mean[k] / 24
-			weekend += fc.Mean[120+k] / 24
-		}
-		if !(weekday-weekend > 10) {
-			t.Errorf("%s: weekday mean %v, weekend %v: the weekly dip is lost", fam, weekday, weekend)
-		}
-		if !(fc.Quantiles[0][5] < fc.Mean[5] && fc.Mean[5] < fc.Quantiles[1][5]) {
-			t.Errorf("%s: quantiles %v %v around %v", fam, fc.Quantiles[0][5], fc.Quantiles[1][5], fc.Mean[5])
-		}
+		checkWeeklyDip(t, fam, fc)
 		if in := f.InSample(); len(in) != len(y) {
 			t.Errorf("%s: %d fitted values", fam, len(in))
 		}
@@ -76,5 +83,35 @@ func TestMSTLMembersTakeTheFrequencysPeriods(t *testing.T) {
 	}
 	if _, err := New(Spec{Family: FamilyMSTLETS, SeasonalPeriods: []float64{1.5}}); err == nil || !strings.Contains(err.Error(), "seasonalPeriods[0]") {
 		t.Errorf("period 1.5: %v", err)
+	}
+}
+
+// TestFourierARIMAHourly: on four weeks of hourly orders the harmonic regression takes periods
+// 24 and 168 from the frequency, chooses pairs for both, and its forecast keeps the weekend
+// dip and the day cycle.
+func TestFourierARIMAHourly(t *testing.T) {
+	y := hourlyOrders(24 * 7 * 4)
+	mod, err := New(Spec{Family: FamilyFourierARIMA})
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := FitWith(mod, y, 24, &Inputs{Freq: series.Hourly})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := f.Params()
+	if !strings.HasPrefix(f.Name(), "Fourier(24:") || p["harmonics1"] < 1 || p["harmonics2"] < 1 {
+		t.Fatalf("%s %v: want pairs for 24 and 168", f.Name(), p)
+	}
+	// The day cycle is 30 sin(2 pi t / 24) with t = 0 at y[0]: at R's t = 1..n the S1-24 term
+	// sin(2 pi t / 24) carries it with coefficient near 30 cos(2 pi / 24) = 28.98 and C1-24
+	// near -30 sin(2 pi / 24) = -7.76.
+	if math.Abs(p["S1-24"]-28.98) > 1.5 || math.Abs(p["C1-24"]+7.76) > 1.5 {
+		t.Errorf("day-cycle coefficients S1-24 %v, C1-24 %v", p["S1-24"], p["C1-24"])
+	}
+	fc := f.Forecast(168, []float64{0.1, 0.9})
+	checkWeeklyDip(t, FamilyFourierARIMA, fc)
+	if g, err := mod.Fit(y[:40], 24); err != nil || !strings.HasPrefix(g.Name(), "Fourier()+") {
+		t.Errorf("40 hours: %v %v, want no period kept", g, err)
 	}
 }

@@ -205,6 +205,7 @@ var familyWords = map[string]string{
 	models.FamilyGradientBoosting:      "many small decision trees on the portfolio's features, each correcting the ones before",
 	models.FamilyMSTLETS:               "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by exponential smoothing and puts the cycles back",
 	models.FamilyMSTLTheta:             "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by the Theta method and puts the cycles back",
+	models.FamilyFourierARIMA:          "describes every repeating cycle (hour of day, day of week, time of year) by smooth waves and the rest by ARIMA",
 	models.FamilyMSTLARIMA:             "takes out every repeating cycle (hour of day, day of week, time of year), forecasts the rest by ARIMA and puts the cycles back",
 }
 

@@ -1,0 +1,253 @@
+package models
+
+import (
+	"fmt"
+	"math"
+	"strconv"
+	"strings"
+
+	"gonum.org/v1/gonum/mat"
+
+	"almanac.dev/almanac/trainer/numeric/fourier"
+)
+
+// FamilyFourierARIMA is dynamic harmonic regression: every seasonal cycle as Fourier terms,
+// the rest as a non-seasonal ARIMA process (Hyndman & Athanasopoulos, Forecasting: Principles
+// and Practice, 2nd ed., sections 9.5 and 11.1, from memory):
+//
+//	y_t = sum_i sum_{k=1}^{K_i} [a_ik sin(2 pi k t / p_i) + b_ik cos(2 pi k t / p_i)] + e_t,
+//	e_t ~ ARIMA(p, d, q) with the mean or drift the search picks,
+//
+// with t = 1..n in sample and n+1..n+h ahead, the terms of fourier.Terms (R forecast 8.20's
+// fourier). Periods follow the MSTL families' rule (Spec.SeasonalPeriods, else the frequency's;
+// non-integer periods such as 365.25 and 52.18 are used as they are), keeping those with at least
+// two full cycles in the data.
+//
+// Estimation, in two stages (documented departures from R's auto.arima(y, xreg = fourier(...)),
+// which estimates the coefficients jointly with the ARIMA errors by maximum likelihood):
+//
+//  1. K_i per period by AICc of the least-squares regression of y on an intercept and the
+//     terms, coordinate-wise: periods shortest first, each K_i from 0 to min(floor(p_i/2),
+//     maxHarmonics) with the others at their current choice (0 at the start), the lowest AICc
+//     n log(RSS/n) + 2(k+1) + 2(k+1)(k+2)/(n-k-2) with k regression coefficients (Hurvich &
+//     Tsai 1989). Choosing K by AICc is what FPP2 section 11.1 does; there the AICc is the
+//     full model's, which costs one ARIMA search per K.
+//  2. The coefficients by that regression, then the ARIMA search (SelectARIMA, m = 1) on
+//     e_t = y_t - (the Fourier part), which keeps the intercept so that the search decides
+//     the mean, differencing and drift. Forecasts add the Fourier part ahead to the ARIMA
+//     forecast of e; the intervals are the ARIMA's (the coefficients' uncertainty is ignored,
+//     as R's forecast.Arima does for xreg).
+//
+// Checked against R's auto.arima with fourier regressors in test/reference.
+const FamilyFourierARIMA = "FourierARIMA"
+
+// maxHarmonics caps K per period (a cost bound: at most 24 regressors per period; the daily
+// cycle of hourly data needs at most 12).
+const maxHarmonics = 12
+
+func init() { Register(FamilyFourierARIMA, newFourierARIMA) }
+
+type fourierARIMAModel struct {
+	spec  Spec
+	arima Model
+}
+
+func newFourierARIMA(s Spec) (Model, error) {
+	if err := checkPeriods(s); err != nil {
+		return nil, err
+	}
+	a, err := New(Spec{Family: FamilyARIMA})
+	if err != nil {
+		return nil, err
+	}
+	return &fourierARIMAModel{spec: s, arima: a}, nil
+}
+
+// Family returns FamilyFourierARIMA.
+func (m *fourierARIMAModel) Family() string { return FamilyFourierARIMA }
+
+// MinLength is the non-seasonal ARIMA's: without a period of two cycles it is plain ARIMA.
+func (m *fourierARIMAModel) MinLength(int) int { return m.arima.MinLength(1) }
+
+// Fit uses the periods season length sl implies (see FamilyMSTLETS).
+func (m *fourierARIMAModel) Fit(y []float64, sl int) (Fitted, error) {
+	return m.fit(y, seasonalPeriods(m.spec, sl, ""))
+}
+
+// FitInputs uses the periods of in.Freq when sl is its usual season length.
+func (m *fourierARIMAModel) FitInputs(y []float64, sl int, in Inputs) (Fitted, error) {
+	return m.fit(y, seasonalPeriods(m.spec, sl, in.Freq))
+}
+
+func (m *fourierARIMAModel) fit(y []float64, periods []float64) (Fitted, error) {
+	n := len(y)
+	if n < m.MinLength(1) {
+		return nil, ErrTooShort
+	}
+	var kept []float64
+	for _, p := range periods {
+		if float64(n) >= 2*p {
+			kept = append(kept, p)
+		}
+	}
+	out := &fourierARIMAFit{periods: kept, K: make([]int, len(kept)), n: n}
+	e := y
+	if len(kept) > 0 {
+		K, err := chooseHarmonics(y, kept)
+		if err != nil {
+			return nil, fmt.Errorf("models: %s: %w", m.spec.DisplayName(), err)
+		}
+		out.K = K
+		out.terms, _ = fourier.Terms(kept, K)
+		if len(out.terms) > 0 {
+			coef, _, err := harmonicOLS(y, out.terms)
+			if err != nil {
+				return nil, fmt.Errorf("models: %s: %w", m.spec.DisplayName(), err)
+			}
+			out.coef = coef[1:]
+			e = make([]float64, n)
+			for t := range e {
+				e[t] = y[t] - out.seasonal(float64(t+1))
+			}
+		}
+	}
+	a, err := m.arima.Fit(e, 1)
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: errors: %w", m.spec.DisplayName(), err)
+	}
+	out.arima = a
+	return out, nil
+}
+
+// checkPeriods validates Spec.SeasonalPeriods.
+func checkPeriods(s Spec) error {
+	for i, p := range s.SeasonalPeriods {
+		if !(p >= 2) || p > maxSeasonalPeriod {
+			return fmt.Errorf("models: %s: seasonalPeriods[%d] = %v, want 2 to %d", s.DisplayName(), i, p, maxSeasonalPeriod)
+		}
+	}
+	return nil
+}
+
+// chooseHarmonics picks K per period by the OLS AICc, coordinate-wise (see the family comment).
+func chooseHarmonics(y []float64, periods []float64) ([]int, error) {
+	K := make([]int, len(periods))
+	for i, p := range periods {
+		best, bestK := math.Inf(1), 0
+		for k := 0; k <= min(int(p/2), maxHarmonics); k++ {
+			K[i] = k
+			terms, err := fourier.Terms(periods, K)
+			if err != nil {
+				return nil, err
+			}
+			_, a, err := harmonicOLS(y, terms)
+			if err != nil {
+				return nil, err
+			}
+			if a < best {
+				best, bestK = a, k
+			}
+		}
+		K[i] = bestK
+	}
+	return K, nil
+}
+
+// harmonicOLS regresses y on an intercept and the terms at t = 1..n by least squares (QR),
+// returning the coefficients (intercept first) and the AICc of the family comment.
+func harmonicOLS(y []float64, terms []fourier.Term) ([]float64, float64, error) {
+	n, k := len(y), len(terms)+1
+	if n-k-2 <= 0 {
+		return nil, math.Inf(1), nil
+	}
+	X := mat.NewDense(n, k, nil)
+	for t := 0; t < n; t++ {
+		X.Set(t, 0, 1)
+		for j, term := range terms {
+			X.Set(t, j+1, term.At(float64(t+1)))
+		}
+	}
+	var b mat.VecDense
+	if err := b.SolveVec(X, mat.NewVecDense(n, append([]float64(nil), y...))); err != nil {
+		return nil, 0, fmt.Errorf("harmonic regression: %w", err)
+	}
+	rss := 0.0
+	for t := 0; t < n; t++ {
+		r := y[t] - mat.Dot(X.RowView(t), &b)
+		rss += r * r
+	}
+	coef := make([]float64, k)
+	for j := range coef {
+		coef[j] = b.AtVec(j)
+	}
+	if !(rss > 0) {
+		return coef, math.Inf(-1), nil
+	}
+	fn, fk := float64(n), float64(k)
+	return coef, fn*math.Log(rss/fn) + 2*(fk+1) + 2*(fk+1)*(fk+2)/(fn-fk-2), nil
+}
+
+// fourierARIMAFit is a fitted dynamic harmonic regression.
+type fourierARIMAFit struct {
+	periods []float64
+	K       []int
+	terms   []fourier.Term
+	coef    []float64 // one per term
+	arima   Fitted
+	n       int
+}
+
+// seasonal is the Fourier part at time t (1-based).
+func (f *fourierARIMAFit) seasonal(t float64) float64 {
+	s := 0.0
+	for j, term := range f.terms {
+		s += f.coef[j] * term.At(t)
+	}
+	return s
+}
+
+// Name is "Fourier(p1:K1,p2:K2)+ARIMA(...)".
+func (f *fourierARIMAFit) Name() string {
+	var parts []string
+	for i, p := range f.periods {
+		parts = append(parts, strconv.FormatFloat(p, 'f', -1, 64)+":"+strconv.Itoa(f.K[i]))
+	}
+	return "Fourier(" + strings.Join(parts, ",") + ")+" + f.arima.Name()
+}
+
+// Params are the ARIMA's, the orders "harmonics<i>" and the coefficients by R's labels.
+func (f *fourierARIMAFit) Params() map[string]float64 {
+	p := f.arima.Params()
+	if p == nil {
+		p = map[string]float64{}
+	}
+	for i, k := range f.K {
+		p["harmonics"+strconv.Itoa(i+1)] = float64(k)
+	}
+	for j, t := range f.terms {
+		p[t.Name()] = f.coef[j]
+	}
+	return p
+}
+
+// InSample adds the Fourier part to the ARIMA's fitted values.
+func (f *fourierARIMAFit) InSample() []float64 {
+	out := f.arima.InSample()
+	for t := range out {
+		out[t] += f.seasonal(float64(t + 1))
+	}
+	return out
+}
+
+// Forecast adds the Fourier part ahead to the ARIMA's mean and quantiles.
+func (f *fourierARIMAFit) Forecast(h int, levels []float64) Forecast {
+	fc := f.arima.Forecast(h, levels)
+	for k := range fc.Mean {
+		s := f.seasonal(float64(f.n + k + 1))
+		fc.Mean[k] += s
+		for _, q := range fc.Quantiles {
+			q[k] += s
+		}
+	}
+	return fc
+}
