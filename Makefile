@@ -95,7 +95,7 @@ test-e2e: ## End-to-end tests with the real Job controller (when present).
 	@if [ -d test/e2e ]; then go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi
 
 .PHONY: bench
-bench: bench-engine bench-controller bench-scale bench-m3 bench-features ## All benchmarks behind README's figures (long: about an hour on 2 cores).
+bench: bench-engine bench-controller bench-scale bench-m3 bench-m4-hourly-dev bench-features ## All benchmarks behind README's figures (long: about an hour on 2 cores).
 
 .PHONY: bench-engine
 bench-engine: ## Model fits, learners, feature rows, selection, input readers (ns/op, allocs/op).
@@ -115,6 +115,13 @@ bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast 
 	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --workers 1 --score-published --reference-r; \
 	else echo "bench-m3: ../shared/datasets/m3 not present, skipped"; fi
 	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
+
+M4_HOURLY_DEV ?= ../shared/datasets/m4-hourly-dev
+
+.PHONY: bench-m4-hourly-dev
+bench-m4-hourly-dev: build ## M4 hourly dev half (207 series, long layout): sMAPE, MASE, OWA against the bench's Naive2, side by side with R forecast's ets, thetaf and snaive when Rscript is present.
+	@if [ -d $(M4_HOURLY_DEV) ]; then bin/almanac-trainer bench --data $(M4_HOURLY_DEV) --frequency Hourly --workers 1 --reference-r; \
+	else echo "bench-m4-hourly-dev: $(M4_HOURLY_DEV) not present, skipped"; fi
 
 .PHONY: bench-features
 bench-features: ## Promotion scenario: accuracy with and without features, CPU ms per series.
