@@ -50,7 +50,9 @@ const (
 // started at x̄_1 = A_1 = x_1, B_1 = 0; with no line before the first observation, the errors
 // are scored from t = 2 (our choice of start). OTM uses A_{t−1} = A_n, B_{t−1} = B_n, the line
 // fitted to all n observations, and scores t = 1..n; with θ = 2 it is the Theta method of
-// Assimakopoulos & Nikolopoulos (2000) written as a state space model (the paper's Theorem 1).
+// Assimakopoulos & Nikolopoulos (2000) written as a state space model (the paper's first
+// theorem). The equations are written from memory of the paper; the tests derive them again
+// from the theta-line definition and work them by hand.
 //
 // Estimation: (ℓ_0, α, θ) minimise the sum of squared one-step errors, which is the Gaussian
 // likelihood with σ² concentrated out. For fixed α the errors are linear in ℓ_0 and w, so both

@@ -34,7 +34,7 @@ func olsLine(x []float64) (a, b float64) {
 }
 
 // thetaLinesMean is the Theta method spelled out with theta lines (Assimakopoulos & Nikolopoulos
-// 2000; the generalised form of Fiorucci et al. 2016, section 2): with the line A + B·s fitted to
+// 2000; the generalised form of Fiorucci et al. 2016): with the line A + B·s fitted to
 // x_1..x_k, the theta line Z_s = θ x_s + (1 − θ)(A + B s) is smoothed by SES from L_0 = θ ℓ_0
 // over s = 1..k, and the forecast for period t > k is (1 − 1/θ)(A + B t) + L_k / θ.
 func thetaLinesMean(x []float64, a, b float64, t int, alpha, theta, l0 float64) float64 {
@@ -46,7 +46,7 @@ func thetaLinesMean(x []float64, a, b float64, t int, alpha, theta, l0 float64) 
 	return (1-1/theta)*(a+b*float64(t)) + level/theta
 }
 
-// TestDOTMHandWorked works the DOTM equations of Fiorucci et al. (2016, section 3) by hand on
+// TestDOTMHandWorked works the DOTM equations of Fiorucci et al. (2016) by hand on
 // x = 10, 12, 11, 14 with α = 0.5, θ = 2 (w = 0.5), ℓ_0 = 5:
 //
 //	t=1: ℓ1 = 7.5; x̄1 = A1 = 10, B1 = 0
@@ -86,7 +86,7 @@ func TestDOTMHandWorked(t *testing.T) {
 
 // TestOptThetaIsTheThetaLines checks the state space forms against the theta-line definition
 // (thetaLinesMean): OTM's one-step means and forecasts equal the theta lines built on the line
-// fitted to all n points (Fiorucci et al. 2016, Theorem 1, any θ), and DOTM's equal the theta
+// fitted to all n points (Fiorucci et al. 2016, their first theorem, any θ), and DOTM's equal the theta
 // method re-run at every origin on the observations so far, the forecasts with the earlier
 // forecasts taken as data.
 func TestOptThetaIsTheThetaLines(t *testing.T) {
