@@ -31,6 +31,7 @@ type Options struct {
 	Rule                 design.Rule
 	CostLimit            float64
 	MaxSeries, MinSeries int
+	InnerOrigins         int
 	// Combinations are design.Options.Combinations (nil: design.Combinations).
 	Combinations []design.Combination
 	// Log, when set, receives each group's design.Outcome.
@@ -84,7 +85,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 			in[j] = entries[i].Series()
 		}
 		do := design.Options{Mode: o.Mode, Base: cfg, Rule: o.Rule, CostLimit: o.CostLimit,
-			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations}
+			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations, InnerOrigins: o.InnerOrigins}
 		out, err := design.Forecast(ctx, in, do, func(j int, r design.Result, err error) {
 			results[idx[j]], errs[idx[j]] = r.Result, err
 			counts[r.Design]++

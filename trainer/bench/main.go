@@ -64,6 +64,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	choice := fs.String("choice", string(design.OneSE), `with --design auto: "one-se" (the simplest design within one standard error of the lowest inner MASE) or "lowest"`)
 	costLimit := fs.Float64("cost-limit", design.DefaultCostLimit, "with --design auto: drop candidate designs costing more than this many times the simplest's CPU per series")
 	innerMax := fs.Int("inner-max", design.DefaultMaxSeries, "with --design auto: at most this many inner-holdout series per segment")
+	innerOrigins := fs.Int("inner-origins", design.DefaultInnerOrigins, "with --design auto: inner-holdout origins per series (the last h points, the h before them, ...)")
 	innerMin := fs.Int("inner-min", design.DefaultMinSeries, "with --design auto: a segment with fewer inner-holdout series takes the choice of the next coarser one")
 	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS, ARIMA and ETS+ARIMA+Theta fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
@@ -144,7 +145,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	writeTable(stdout, naive2, naive2)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
-		Mode: design.Mode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, Log: stdout}
+		Mode: design.Mode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
 	switch {
 	case !o.Mode.Valid():
 		fmt.Fprintf(stderr, "bench: --design %q: want one of %v\n", *mode, design.Modes())
@@ -152,8 +153,8 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	case !o.Rule.Valid():
 		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
 		return 2
-	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1:
-		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max and --inner-min >= 1")
+	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1 || *innerOrigins < 1:
+		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max, --inner-min and --inner-origins >= 1")
 		return 2
 	}
 	if *zooFlag != "" {

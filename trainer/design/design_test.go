@@ -437,3 +437,27 @@ func TestUnusableSeriesIsRejected(t *testing.T) {
 		t.Errorf("bad series: error %v, want the cleaning reason", gotErr)
 	}
 }
+
+// collapse averages a series' inner MASE over its origins with a defined scale: series 0 has
+// origins scoring 1 and 3 (mean 2), series 1 one scored origin (5) and one without a scale.
+func TestCollapseAveragesOrigins(t *testing.T) {
+	sg := Segment{Frequency: series.Yearly, Class: "smooth", Band: BandLong}
+	inner := []innerSeries{{unit: 0, seg: sg, scaled: true}, {unit: 0, seg: sg, scaled: true}, {unit: 1, seg: sg, scaled: true}, {unit: 1, seg: sg}}
+	units, scores := collapse(inner, [][]float64{{1, 3, 5, math.NaN()}}, 2)
+	if len(units) != 2 || !units[0].scaled || !units[1].scaled || scores[0][0] != 2 || scores[0][1] != 5 {
+		t.Errorf("units %+v, scores %v; want 2 and 5", units, scores)
+	}
+}
+
+// With two inner origins every eligible series is still one inner series (20 points hold two
+// origins of h = 2 above T = 8), and the choice stands.
+func TestAutoInnerOrigins(t *testing.T) {
+	var in []series.Series
+	for i := 0; i < 25; i++ {
+		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
+	}
+	out, got := run1(t, in, Options{Base: selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}, Combinations: combos, CPU: fakeCPU, InnerOrigins: 2})
+	if out.InnerSeries != 25 || out.Choices[0].Inner != 25 || got[0].Design != "line" {
+		t.Errorf("inner series %d, choice %+v", out.InnerSeries, out.Choices[0])
+	}
+}

@@ -32,6 +32,8 @@ const (
 	// DefaultPilot is the number of inner series per segment every zoo member runs on alone,
 	// to measure its cost before the inner holdout.
 	DefaultPilot = 8
+	// DefaultInnerOrigins is one inner-holdout origin per series: each series' last h points.
+	DefaultInnerOrigins = 1
 )
 
 // Options shapes Forecast.
@@ -52,6 +54,11 @@ type Options struct {
 	CostLimit float64
 	// MaxSeries, MinSeries and Pilot: see DefaultMaxSeries, DefaultMinSeries, DefaultPilot.
 	MaxSeries, MinSeries, Pilot int
+	// InnerOrigins is the number of inner-holdout origins per series (0: DefaultInnerOrigins):
+	// origin k (0-based) holds out the h observations before the last k·h, where the series
+	// is long enough (n - k·h >= 2h + 2m + 2); a series' inner MASE is the mean over its
+	// origins (a rolling origin inside the training data, Tashman 2000, section 3).
+	InnerOrigins int
 	// Workers for selection.ForecastMany (<= 0: GOMAXPROCS).
 	Workers int
 	// CPU is the clock costs are measured with (nil: ProcessCPU).
@@ -80,6 +87,9 @@ func (o Options) withDefaults() Options {
 	if o.Pilot == 0 {
 		o.Pilot = DefaultPilot
 	}
+	if o.InnerOrigins == 0 {
+		o.InnerOrigins = DefaultInnerOrigins
+	}
 	if o.CPU == nil {
 		o.CPU = ProcessCPU
 	}
@@ -96,8 +106,8 @@ func (o Options) Validate() error {
 		return fmt.Errorf("design: rule %q is not %q or %q", o.Rule, OneSE, Lowest)
 	case !(o.CostLimit >= 1) || math.IsInf(o.CostLimit, 1):
 		return fmt.Errorf("design: costLimit must be a finite ratio >= 1, got %v", o.CostLimit)
-	case o.MaxSeries < 1 || o.MinSeries < 1 || o.Pilot < 1:
-		return fmt.Errorf("design: maxSeries, minSeries and pilot must be >= 1, got %d, %d, %d", o.MaxSeries, o.MinSeries, o.Pilot)
+	case o.MaxSeries < 1 || o.MinSeries < 1 || o.Pilot < 1 || o.InnerOrigins < 1:
+		return fmt.Errorf("design: maxSeries, minSeries, pilot and innerOrigins must be >= 1, got %d, %d, %d, %d", o.MaxSeries, o.MinSeries, o.Pilot, o.InnerOrigins)
 	}
 	return o.Base.Validate()
 }
@@ -124,7 +134,7 @@ type Outcome struct {
 	DroppedMembers   []string
 	// CostMillis is each candidate's cost: the sum of its members' MemberCostMillis.
 	CostMillis []float64
-	// InnerSeries is the number of inner-holdout series, InnerCPU the CPU time of the pilot
+	// InnerSeries is the number of inner-holdout series (each at up to InnerOrigins origins), InnerCPU the CPU time of the pilot
 	// and the inner holdout together (0 when there was nothing to choose between).
 	InnerSeries int
 	InnerCPU    time.Duration
@@ -229,16 +239,22 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 			}
 		}
 		k := (len(elig) + o.MaxSeries - 1) / o.MaxSeries
+		m := seasonLength(o.Base, sg.Frequency)
 		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
-			is := holdOut(*cleaned[elig[j]], h, seasonLength(o.Base, sg.Frequency))
-			is.seg = sg
-			if n < o.Pilot {
-				pilot = append(pilot, len(inner))
+			s := *cleaned[elig[j]]
+			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minInner(h, m); org++ {
+				cut := s
+				cut.Values = s.Values[:len(s.Values)-org*h]
+				is := holdOut(cut, h, m)
+				is.seg, is.unit = sg, out.InnerSeries
+				if n < o.Pilot && org == 0 {
+					pilot = append(pilot, len(inner))
+				}
+				inner = append(inner, is)
 			}
-			inner = append(inner, is)
+			out.InnerSeries++
 		}
 	}
-	out.InnerSeries = len(inner)
 	var scores [][]float64 // [candidate][inner series] MASE, NaN: not scored
 	if len(inner) > 0 {
 		cpu0 := o.CPU()
@@ -267,9 +283,10 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		out.InnerCPU = o.CPU() - cpu0
 	}
 
+	units, unitScores := collapse(inner, scores, out.InnerSeries)
 	chosen := map[Segment]int{}
 	for _, sg := range order {
-		ch := choose(sg, inner, scores, o)
+		ch := choose(sg, units, unitScores, o)
 		ch.Series = len(bySeg[sg])
 		if ch.Inner > 0 {
 			chosen[sg] = o.Rule.Pick(ch.Means, ch.StdErrs)
@@ -333,13 +350,44 @@ func run(ctx context.Context, in []series.Series, idx []int, c Candidate, segs [
 	})
 }
 
-// innerSeries is one series of the inner holdout.
+// innerSeries is one series of the inner holdout at one origin.
 type innerSeries struct {
 	train  series.Series
 	test   []float64
 	seg    Segment
+	unit   int  // the sampled series it was cut from
 	scaled bool // the MASE scale of train is defined (non-zero)
 	m      int
+}
+
+// collapse averages each sampled series' inner MASE over its origins (those with a defined
+// scale): it returns one entry per sampled series (n of them) with its segment, and the
+// averaged scores by candidate.
+func collapse(inner []innerSeries, scores [][]float64, n int) ([]innerSeries, [][]float64) {
+	units := make([]innerSeries, n)
+	count := make([]int, n)
+	for _, is := range inner {
+		units[is.unit].seg = is.seg
+		if is.scaled {
+			units[is.unit].scaled = true
+			count[is.unit]++
+		}
+	}
+	out := make([][]float64, len(scores))
+	for ci, sc := range scores {
+		out[ci] = make([]float64, n)
+		for j, is := range inner {
+			if is.scaled {
+				out[ci][is.unit] += sc[j] / float64(count[is.unit])
+			}
+		}
+		for u := range out[ci] {
+			if !units[u].scaled {
+				out[ci][u] = math.NaN()
+			}
+		}
+	}
+	return units, out
 }
 
 // holdOut cuts the last h observations of a cleaned series off as the inner test.
