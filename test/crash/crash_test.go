@@ -59,7 +59,7 @@ func writeConfig(t *testing.T, dir, run, in, out string) string {
 	t.Helper()
 	c := runconfig.Config{Run: run, Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC),
 		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true, Partitioning: runconfig.PartitionObject,
-			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}},
+			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}},
 		Output:    runconfig.Output{URI: out, Format: "parquet"},
 		Horizon:   14,
 		Quantiles: []float64{0.1, 0.5, 0.9},

@@ -210,13 +210,14 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 			rows, err := csv.NewReader(fh).ReadAll()
 			fh.Close()
 			Expect(err).NotTo(HaveOccurred())
+			Expect(rows[0]).To(Equal([]string{"item", "depot", "reason"}), "each key column has its own column")
 			for _, r := range rows[1:] {
-				reasons[r[0]] = r[1]
+				reasons[r[0]+" at "+r[1]] = r[2]
 			}
 		}
 		want := map[string]bool{}
 		for i := range synth.Defects {
-			key := o.ItemName(i) + "/" + synth.DepotName(0)
+			key := o.ItemName(i) + " at " + synth.DepotName(0)
 			want[key] = true
 			Expect(reasons).To(HaveKey(key))
 			Expect(strings.TrimSpace(reasons[key])).NotTo(BeEmpty())

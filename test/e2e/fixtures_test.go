@@ -179,13 +179,13 @@ func smallDemand() synth.Options {
 		End: time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC)}
 }
 
-// write writes o's depots as CSV (columns item, depot, date, units, promo); scale, when not
+// write writes o's depots as CSV (the columns generate writes, o.ColumnsOf); scale, when not
 // nil, multiplies each row's units (a level shift).
 func (d dataset) write(o synth.Options, scale func(r synth.Record) float64) {
 	Expect(o.Validate()).To(Succeed())
 	for dep := 0; dep < o.Depots; dep++ {
 		var b strings.Builder
-		b.WriteString(strings.Join(synth.Columns, ",") + "\n")
+		b.WriteString(strings.Join(o.ColumnsOf(), ",") + "\n")
 		Expect(o.Depot(dep, func(r synth.Record) error {
 			units := fmt.Sprint(r.Units)
 			if scale != nil {
@@ -217,7 +217,7 @@ func portfolio(ns, name string, d dataset, image string) *forecastingv1alpha1.Fo
 			Schedule: "0 0 1 1 *",
 			Source: forecastingv1alpha1.DataSource{
 				URI: "file://" + d.data + "/", Format: forecastingv1alpha1.FormatCSV, Frequency: forecastingv1alpha1.Weekly,
-				Columns: forecastingv1alpha1.ColumnMapping{Series: []string{"item", "depot"}, Date: "date", Value: "units"},
+				Columns: forecastingv1alpha1.ColumnMapping{Series: []string{"item", "depot"}, Date: synth.ColWeekStart, Value: "units"},
 			},
 			Output:  forecastingv1alpha1.DataOutput{URI: "file://" + d.output + "/", Format: forecastingv1alpha1.FormatCSV},
 			Horizon: 8,

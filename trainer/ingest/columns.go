@@ -80,7 +80,7 @@ func quoteList(names []string, max int) string {
 type rowBuilder struct {
 	m      mapping
 	layout string
-	key    []byte
+	key    keyBuilder
 	keys   map[string]string // interned keys, reset when large
 }
 
@@ -117,26 +117,19 @@ func (b *rowBuilder) build(rec []string) Row {
 	return r
 }
 
-// buildKey joins the key cells into an interned string; a problem is an empty or non-UTF-8
-// key cell.
+// buildKey encodes the key cells (see JoinKey) as an interned string; a problem is an empty
+// or non-UTF-8 key cell.
 func (b *rowBuilder) buildKey(rec []string) (string, string) {
-	k := b.key[:0]
+	b.key.reset(len(b.m.keys))
 	problem := ""
 	for j, ci := range b.m.keys {
-		if j > 0 {
-			k = append(k, KeySeparator...)
-		}
-		k = append(k, rec[ci]...)
+		b.key.b = append(b.key.b, rec[ci]...)
+		b.key.end()
 		if p := checkKeyCell(b.m.cols.Series[j], rec[ci]); p != "" && problem == "" {
 			problem = p
 		}
 	}
-	b.key = k
-	key := intern(&b.keys, k)
-	if problem != "" && !utf8.ValidString(key) {
-		key = strings.ToValidUTF8(key, "\uFFFD")
-	}
-	return key, problem
+	return intern(&b.keys, b.key.encoded()), problem
 }
 
 // intern returns k as a string, reusing an earlier copy: rows of one series share one key.

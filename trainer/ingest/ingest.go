@@ -21,12 +21,9 @@ import (
 // broken-input exit code.
 var ErrBrokenInput = errors.New("broken input")
 
-// KeySeparator joins the values of several series key columns into one key.
-const KeySeparator = "/"
-
 // Row is one input row after column mapping.
 type Row struct {
-	// Key is the series key columns' values joined with KeySeparator.
+	// Key is the series key columns' cells encoded as one string (JoinKey, SplitKey).
 	Key string
 	// Date is the period the value belongs to, as written (its zone or offset kept).
 	Date time.Time

@@ -388,7 +388,7 @@ type parquetScan struct {
 	md       *format.FileMetaData
 	cols     []*pcol
 	keyCache map[string]string // interned key strings, reset when large
-	keyBuf   []byte
+	keyBuf   keyBuilder
 }
 
 // group scans one row group.
@@ -524,16 +524,14 @@ func (sc *parquetScan) build(i, nk, ncov int) Row {
 	return r
 }
 
-// key joins the key columns of batch position i, interning the result.
+// key encodes the key columns of batch position i (see JoinKey), interning the result.
 func (sc *parquetScan) key(i, nk int) (string, string) {
-	b := sc.keyBuf[:0]
+	k := &sc.keyBuf
+	k.reset(nk)
 	problem := ""
 	for j := range nk {
 		c := sc.cols[j]
 		v := c.vals[i]
-		if j > 0 {
-			b = append(b, KeySeparator...)
-		}
 		switch {
 		case v.IsNull():
 			if problem == "" {
@@ -543,23 +541,22 @@ func (sc *parquetScan) key(i, nk int) (string, string) {
 			if len(v.ByteArray()) == 0 && problem == "" {
 				problem = fmt.Sprintf("column %q: empty series key", c.name)
 			}
-			b = append(b, v.ByteArray()...)
+			if problem == "" && !utf8.Valid(v.ByteArray()) {
+				problem = fmt.Sprintf("column %q: series key is not valid UTF-8", c.name)
+			}
+			k.b = append(k.b, v.ByteArray()...)
 		case c.kind == parquet.Int32 && c.uint:
-			b = strconv.AppendUint(b, uint64(v.Uint32()), 10)
+			k.b = strconv.AppendUint(k.b, uint64(v.Uint32()), 10)
 		case c.kind == parquet.Int32:
-			b = strconv.AppendInt(b, int64(v.Int32()), 10)
+			k.b = strconv.AppendInt(k.b, int64(v.Int32()), 10)
 		case c.uint:
-			b = strconv.AppendUint(b, v.Uint64(), 10)
+			k.b = strconv.AppendUint(k.b, v.Uint64(), 10)
 		default:
-			b = strconv.AppendInt(b, v.Int64(), 10)
+			k.b = strconv.AppendInt(k.b, v.Int64(), 10)
 		}
+		k.end()
 	}
-	sc.keyBuf = b
-	k := intern(&sc.keyCache, b)
-	if problem == "" && !utf8.ValidString(k) {
-		return strings.ToValidUTF8(k, "\uFFFD"), "series key is not valid UTF-8"
-	}
-	return k, problem
+	return intern(&sc.keyCache, k.encoded()), problem
 }
 
 // time reads a date value.

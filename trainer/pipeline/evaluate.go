@@ -28,7 +28,7 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 	if metric == backtest.Bias {
 		expected = math.Abs(expected) // selection ranks Bias by its absolute value
 	}
-	row := tables.EvaluationRow{Series: actual.Key, Metric: string(metric), Expected: expected}
+	row := tables.EvaluationRow{Key: actual.Key, Metric: string(metric), Expected: expected}
 	if len(prev) == 0 || math.IsNaN(expected) || math.IsInf(expected, 0) {
 		return row, false
 	}

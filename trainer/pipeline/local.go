@@ -9,7 +9,6 @@ import (
 
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/runconfig"
-	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -64,30 +63,13 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 
 // Inspect prints a published run for a planner: the run, whether it is complete, the totals,
 // the accuracy of the previous run's forecasts and one line per unit. run "" means the run
-// latest.json points at (checked against its checksum).
+// latest.json points at (checked against its checksum). InspectSeries shows one series.
 func Inspect(ctx context.Context, outputURI, run string, w io.Writer) error {
-	out, err := store.Open(ctx, outputURI)
-	if err != nil {
-		return storageErr(err)
-	}
-	defer out.Close()
-	if run == "" {
-		p, ok, err := out.ReadLatest(ctx)
-		if err != nil {
-			return storageErr(err)
-		}
-		if !ok {
-			return fmt.Errorf("%s: nothing published yet (no %s): %w", out, store.LatestKey, ErrConfig)
-		}
-		run = p.Run
-	}
-	if err := store.CheckName("run", run); err != nil {
-		return fmt.Errorf("--run: %w: %w", ErrConfig, err)
-	}
-	m, err := readManifest(ctx, out, run)
+	out, m, err := openPublished(ctx, outputURI, run)
 	if err != nil {
 		return err
 	}
+	defer out.Close()
 	complete := "complete"
 	if !m.Complete {
 		complete = fmt.Sprintf("INCOMPLETE: %d units missing", m.Totals.Missing)

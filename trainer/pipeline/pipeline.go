@@ -25,6 +25,7 @@ import (
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/tables"
 )
 
 // Env is what the commands take from the process.
@@ -70,10 +71,14 @@ func ExitCode(err error) int {
 	return exitcode.Internal
 }
 
-// openOutput opens the output store.
+// openOutput checks the run name and the key column names the output tables take
+// (tables.CheckKeys: each key column keeps its own name there) and opens the output store.
 func openOutput(ctx context.Context, cfg *runconfig.Config) (*store.Store, error) {
 	if err := store.CheckName("run", cfg.Run); err != nil {
 		return nil, fmt.Errorf("run: %w: %w", ErrConfig, err)
+	}
+	if err := tables.CheckKeys(cfg.Source.Columns.Series); err != nil {
+		return nil, fmt.Errorf("source.columns.series: %w: %w", ErrConfig, err)
 	}
 	st, err := store.Open(ctx, cfg.Output.URI)
 	if err != nil {

@@ -17,6 +17,7 @@ import (
 
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
@@ -31,12 +32,15 @@ var anchor = time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC)
 
 func testEnv() Env { return Env{Now: func() time.Time { return anchor }, Workers: 2} }
 
+// testKeys are the test portfolio's key columns.
+var testKeys = []string{"item", "depot"}
+
 // testConfig is a daily run over Fenwick Lane Provisions' depots (invented data).
 func testConfig(run, in, out string) *runconfig.Config {
 	return &runconfig.Config{
 		Portfolio: "flp-daily", Namespace: "planning", Run: run, Trigger: "Manual",
 		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true,
-			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}},
+			Columns: runconfig.Columns{Series: testKeys, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}},
 		Output:    runconfig.Output{URI: out, Format: "csv"},
 		Horizon:   7,
 		Quantiles: []float64{0.1, 0.5, 0.9},
@@ -59,10 +63,10 @@ func depotCSV(depot string, items []string, days int, bad string) []byte {
 }
 
 // depotRows writes one depot's daily history of items, ending the day before anchor: units
-// is units(item, its index n, d days before the end, the day); promo is set every ninth day.
+// is units(item, its index n, d days before the end, the day); promo_flag is set every ninth day.
 func depotRows(depot string, items []string, days int, units func(item string, n, d int, day time.Time) string) []byte {
 	var b bytes.Buffer
-	b.WriteString("item,depot,date,units,promo\n")
+	b.WriteString("item,depot,date,units,promo_flag\n")
 	end := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	for n, item := range items {
 		for d := days - 1; d >= 0; d-- {
@@ -81,7 +85,7 @@ func unitModels(t *testing.T, out *store.Store, u ManifestUnit, format string) [
 	if err != nil {
 		t.Fatal(err)
 	}
-	rows, err := tables.ReadModels(bytes.NewReader(b), format)
+	rows, err := tables.ReadModels(bytes.NewReader(b), format, testKeys)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -191,14 +195,14 @@ func TestEndToEndObjectsOnFile(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rej, err := tables.ReadRejected(bytes.NewReader(b), tables.CSV)
-	if err != nil || len(rej) != 1 || rej[0].Series != "FLP-JAM-340/brill" ||
+	rej, err := tables.ReadRejected(bytes.NewReader(b), tables.CSV, testKeys)
+	if err != nil || len(rej) != 1 || rej[0].Key != ingest.JoinKey("FLP-JAM-340", "brill") ||
 		!strings.Contains(rej[0].Reason, "depot-brill.csv line") || !strings.Contains(rej[0].Reason, `"n/a"`) {
 		t.Fatalf("rejected = %+v, %v", rej, err)
 	}
 	// Forecasts: 7 steps per trained series, starting the day after the last actual.
 	fb, _ := out.Get(context.Background(), store.UnitKey("flp-0001", unit, "forecasts.csv"))
-	h, fc, err := tables.ReadForecasts(bytes.NewReader(fb), tables.CSV)
+	h, fc, err := tables.ReadForecasts(bytes.NewReader(fb), tables.CSV, testKeys)
 	if err != nil || len(fc) != 2*7 || len(h.Quantiles) != 3 {
 		t.Fatalf("forecasts: %d rows, header %+v, %v", len(fc), h, err)
 	}
@@ -388,23 +392,27 @@ func TestSecondRunEvaluatesFirst(t *testing.T) {
 	cases := map[string]struct {
 		name          string
 		first, second int
+		seriesColumn  bool
 	}{
-		"buckets chosen and kept": {"kept", 0, 0},
+		"buckets chosen and kept": {"kept", 0, 0, false},
 		// A bucket-count change maps the buckets (previousUnits), so the sums are the same.
-		"buckets 4 then 16": {"grow", 4, 16},
-		"buckets 16 then 2": {"shrink", 16, 2},
+		"buckets 4 then 16": {"grow", 4, 16, false},
+		"buckets 16 then 2": {"shrink", 16, 2, false},
+		// The first run published by a release that joined the key cells into one series
+		// column (PROJECT-NOTES, sixth session: key columns): evaluated all the same.
+		"first run's tables with a series column": {"legacy", 0, 0, true},
 	}
 	for name, tc := range cases {
-		t.Run(name, func(t *testing.T) { secondRunEvaluatesFirst(t, tc.name, tc.first, tc.second) })
+		t.Run(name, func(t *testing.T) { secondRunEvaluatesFirst(t, tc.name, tc.first, tc.second, tc.seriesColumn) })
 	}
 }
 
-func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int) {
+func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, seriesColumn bool) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-eval-in-"+name+"/")
 	write := func(extra bool) {
 		var b strings.Builder
-		b.WriteString("item,depot,date,units,promo\n")
+		b.WriteString("item,depot,date,units,promo_flag\n")
 		start := time.Date(2026, 2, 1, 0, 0, 0, 0, time.UTC)
 		for _, s := range []struct {
 			item  string
@@ -436,6 +444,9 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int) 
 	if _, err := RunLocal(ctx, cfg("flp-0001", buckets1), testEnv()); err != nil {
 		t.Fatal(err)
 	}
+	if seriesColumn {
+		rewriteAsSeriesColumn(t, mustOpen(t, "mem://flp-eval-out-"+name+"/"), "flp-0001")
+	}
 	write(true)
 	s, err := RunLocal(ctx, cfg("flp-0002", buckets2), testEnv())
 	if err != nil {
@@ -452,13 +463,13 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int) 
 	for _, e := range m.Units { // A and B may sit in different buckets
 		f, _ := e.file(TableEvaluation)
 		b, _ := out.Get(ctx, f.Key)
-		r, err := tables.ReadEvaluation(bytes.NewReader(b), tables.CSV)
+		r, err := tables.ReadEvaluation(bytes.NewReader(b), tables.CSV, testKeys)
 		if err != nil {
 			t.Fatal(err)
 		}
 		rows = append(rows, r...)
 	}
-	sort.Slice(rows, func(i, j int) bool { return rows[i].Series < rows[j].Series })
+	sort.Slice(rows, func(i, j int) bool { return rows[i].Key < rows[j].Key })
 	if len(rows) != 2 || !rows[0].Drifted || rows[1].Drifted || rows[0].PreviousRun != "flp-0001" ||
 		math.Abs(rows[0].Realized-1) > 1e-12 || math.Abs(rows[1].Expected-2.0/7) > 1e-12 {
 		t.Fatalf("evaluation rows %+v", rows)
@@ -738,7 +749,7 @@ func TestCombineMarginChoosesTheCombination(t *testing.T) {
 		rows := map[string]tables.ModelRow{}
 		for _, u := range checkPublished(t, out, run).Units {
 			for _, r := range unitModels(t, out, u, "csv") {
-				rows[r.Series] = r
+				rows[r.Key] = r
 			}
 		}
 		if len(rows) != 2 {
@@ -794,10 +805,10 @@ func TestDesignReachesModelsAndSummary(t *testing.T) {
 		for _, u := range checkPublished(t, out, cfg.Run).Units {
 			for _, r := range unitModels(t, out, u, "csv") {
 				if r.Design != want || !strings.HasPrefix(r.Segment, "daily/") {
-					t.Errorf("design %q: %s has design %q, segment %q; want %s in a daily segment", mode, r.Series, r.Design, r.Segment, want)
+					t.Errorf("design %q: %s has design %q, segment %q; want %s in a daily segment", mode, r.Key, r.Design, r.Segment, want)
 				}
 				if mode == runconfig.DesignAuto && r.Model != "Combination(mean: ETS, Theta)" {
-					t.Errorf("auto: %s published %s", r.Series, r.Model)
+					t.Errorf("auto: %s published %s", r.Key, r.Model)
 				}
 			}
 		}

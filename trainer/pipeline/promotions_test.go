@@ -35,7 +35,7 @@ func promoFeatures() *features.Config {
 		fair = append(fair, synth.HarvestFair(y).Format(features.DateLayout))
 	}
 	return &features.Config{
-		Covariates: []string{"promo", "price"}, CovariateLags: []int{1},
+		Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1},
 		Events: []features.Event{{Name: "harvest-fair", Dates: fair, Lead: 1}},
 		Lags:   []int{1, 52}, Windows: []int{4}, Stats: []string{features.StatMean},
 		Selection: features.Selection{Filter: features.FilterCorrelation, FilterKeep: 16, Embedded: features.EmbeddedLasso, MaxFeatures: 10},
@@ -65,7 +65,7 @@ func TestPromotionPortfolioEndToEnd(t *testing.T) {
 	}
 	cfg := testConfig("flp-promo-0001", "mem://flp-promo-in/", "mem://flp-promo-out/")
 	cfg.Source.Frequency, cfg.Source.WeekAnchor = "weekly", "Monday"
-	cfg.Source.Columns = runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo", "price"}}
+	cfg.Source.Columns = runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}
 	cfg.Source.Partitioning = runconfig.PartitionObject
 	cfg.Horizon = 8
 	cfg.Zoo = append(timeSeriesZoo()[1:3], models.Spec{Family: models.FamilyLasso})
@@ -85,7 +85,7 @@ func TestPromotionPortfolioEndToEnd(t *testing.T) {
 		for _, r := range unitModels(t, out, u, "csv") {
 			kept, ok := r.Features[models.FamilyLasso]
 			if strings.HasPrefix(r.Model, "Lasso") != ok {
-				t.Errorf("%s: model %q with kept features %v: features must be listed exactly for a chosen feature member", r.Series, r.Model, r.Features)
+				t.Errorf("%s: model %q with kept features %v: features must be listed exactly for a chosen feature member", r.Key, r.Model, r.Features)
 			}
 			if ok {
 				lassoChosen++
@@ -118,7 +118,7 @@ type promoScore struct {
 func promoData(tb testing.TB, items, depots, periods, h int) ([]series.Series, map[string][]float64) {
 	tb.Helper()
 	src := runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
-		Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo", "price"}}}
+		Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}}
 	read := func(o synth.Options, keep int) []series.Series {
 		c, err := ingest.NewCollector(src, o.End)
 		if err != nil {

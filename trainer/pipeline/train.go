@@ -293,7 +293,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
 	var rejected []tables.RejectedRow
 	for _, r := range u.rejected {
-		rejected = append(rejected, tables.RejectedRow{Series: r.Key, Reason: r.Reason})
+		rejected = append(rejected, tables.RejectedRow{Key: r.Key, Reason: r.Reason})
 	}
 	var fc []tables.ForecastRow
 	var mr []tables.ModelRow
@@ -301,24 +301,24 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 	for i, s := range u.series {
 		r := results[i]
 		if errs[i] != nil {
-			rejected = append(rejected, tables.RejectedRow{Series: s.Key, Reason: errs[i].Error()})
+			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: errs[i].Error()})
 			continue
 		}
 		last := s.Len() - 1
 		for k := 0; k < len(r.Mean); k++ {
-			row := tables.ForecastRow{Series: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k]}
+			row := tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k]}
 			for j := range r.Levels {
 				row.Quantiles = append(row.Quantiles, r.Quantiles[j][k])
 			}
 			fc = append(fc, row)
 		}
-		mr = append(mr, tables.ModelRow{Series: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
+		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
 			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features,
 			Design: r.Design, Segment: r.Segment.String()})
 		models[r.Family]++
 		designs[r.Design]++
 	}
-	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Series < rejected[j].Series })
+	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
 	evals, acc, prevRun, err := evaluateUnit(ctx, out, cfg, sc, prev, u)
 	if err != nil {
@@ -334,16 +334,17 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 		done.Counts.Designs = designs
 	}
 
+	keys := cfg.Source.Columns.Series
 	writers := []struct {
 		table, name string
 		fn          func(w io.Writer) error
 	}{
 		{TableForecasts, TableForecasts + "." + format, func(w io.Writer) error {
-			return tables.WriteForecasts(w, format, tables.Header{Quantiles: cfg.Quantiles}, fc)
+			return tables.WriteForecasts(w, format, tables.Header{Keys: keys, Quantiles: cfg.Quantiles}, fc)
 		}},
-		{TableModels, TableModels + "." + format, func(w io.Writer) error { return tables.WriteModels(w, format, mr) }},
-		{TableEvaluation, TableEvaluation + "." + format, func(w io.Writer) error { return tables.WriteEvaluation(w, format, evals) }},
-		{TableRejected, store.RejectedName, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, rejected) }},
+		{TableModels, TableModels + "." + format, func(w io.Writer) error { return tables.WriteModels(w, format, keys, mr) }},
+		{TableEvaluation, TableEvaluation + "." + format, func(w io.Writer) error { return tables.WriteEvaluation(w, format, keys, evals) }},
+		{TableRejected, store.RejectedName, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, keys, rejected) }},
 	}
 	for _, wr := range writers {
 		var buf bytes.Buffer
@@ -392,6 +393,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 	for _, s := range u.series {
 		ours[s.Key] = true
 	}
+	keys := cfg.Source.Columns.Series
 	bySeries := map[string][]tables.ForecastRow{}
 	expected := map[string]float64{}
 	source := map[string]string{}
@@ -404,9 +406,9 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 		format := strings.TrimPrefix(ff.Key[strings.LastIndex(ff.Key, "."):], ".")
 		var fcs []tables.ForecastRow
 		var mrs []tables.ModelRow
-		err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format); return })
+		err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format, keys); return })
 		if err == nil {
-			err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format); return })
+			err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format, keys); return })
 		}
 		if errors.Is(err, store.ErrNotFound) {
 			continue // pruned: nothing to evaluate, which is not a failure
@@ -415,13 +417,13 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 			return nil, acc, "", err
 		}
 		for _, r := range fcs {
-			if ours[r.Series] {
-				bySeries[r.Series] = append(bySeries[r.Series], r)
+			if ours[r.Key] {
+				bySeries[r.Key] = append(bySeries[r.Key], r)
 			}
 		}
 		for _, m := range mrs {
-			if ours[m.Series] && m.Metric == string(metric) {
-				expected[m.Series], source[m.Series] = m.Score, entry.Source
+			if ours[m.Key] && m.Metric == string(metric) {
+				expected[m.Key], source[m.Key] = m.Score, entry.Source
 			}
 		}
 	}

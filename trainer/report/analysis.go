@@ -78,7 +78,7 @@ func overview(r *Run) Overview {
 		if !math.IsNaN(m.Score) && !math.IsInf(m.Score, 0) {
 			byFamily[f] = append(byFamily[f], m.Score)
 		}
-		if _, ok := r.Carried[m.Series]; ok {
+		if _, ok := r.Carried[m.Key]; ok {
 			o.Carried++
 		}
 	}
@@ -194,7 +194,7 @@ type modelInfo struct{ Model, Notes string }
 func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 	info := map[string]modelInfo{}
 	for _, m := range r.Models {
-		info[m.Series] = modelInfo{m.Model, m.Notes}
+		info[m.Key] = modelInfo{m.Model, m.Notes}
 	}
 	type vol struct {
 		key string
@@ -237,14 +237,14 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 	}
 	var drifted []int
 	for i, e := range r.Evaluation {
-		if _, ok := info[e.Series]; e.Drifted && ok {
+		if _, ok := info[e.Key]; e.Drifted && ok {
 			drifted = append(drifted, i)
 		}
 	}
 	ratio := func(i int) float64 { return r.Evaluation[i].Realized / r.Evaluation[i].Expected }
 	sort.SliceStable(drifted, func(a, b int) bool { return ratio(drifted[a]) > ratio(drifted[b]) })
 	for i := 0; i < len(drifted) && i < lim.Drifted; i++ {
-		add(r.Evaluation[drifted[i]].Series, WhyDrifted)
+		add(r.Evaluation[drifted[i]].Key, WhyDrifted)
 	}
 	return out
 }

@@ -34,12 +34,12 @@ func TestPromotionReportListsKeptFeatures(t *testing.T) {
 	cfg := &runconfig.Config{
 		Portfolio: "fenwick-lane-promotions", Namespace: "planning", Run: "flp-promo-20261103", Trigger: "Manual",
 		Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
-			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo", "price"}}},
+			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}},
 		Output:    runconfig.Output{URI: outURI, Format: "csv"},
 		Horizon:   8,
 		Quantiles: []float64{0.1, 0.5, 0.9},
 		Zoo:       []models.Spec{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyLasso}},
-		Features: &features.Config{Covariates: []string{"promo", "price"}, CovariateLags: []int{1}, Lags: []int{1},
+		Features: &features.Config{Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1}, Lags: []int{1},
 			Windows: []int{4}, Stats: []string{features.StatMean},
 			Selection: features.Selection{Filter: features.FilterCorrelation, Embedded: features.EmbeddedLasso, MaxFeatures: 6}},
 		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 2},
@@ -74,7 +74,7 @@ func TestPromotionReportListsKeptFeatures(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			rows, err := tables.ReadModels(bytes.NewReader(raw), "csv")
+			rows, err := tables.ReadModels(bytes.NewReader(raw), "csv", cfg.Source.Columns.Series)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -88,8 +88,8 @@ func TestPromotionReportListsKeptFeatures(t *testing.T) {
 			}
 		}
 	}
-	if series < 8 || want["covariate:promo"] == 0 {
-		t.Fatalf("lasso published for %d series, promo kept on %d: the scenario should make the plan matter", series, want["covariate:promo"])
+	if series < 8 || want["covariate:promo_flag"] == 0 {
+		t.Fatalf("lasso published for %d series, promo kept on %d: the scenario should make the plan matter", series, want["covariate:promo_flag"])
 	}
 
 	doc := parsePage(t, filepath.Join(out, "index.html"))

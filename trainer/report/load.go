@@ -102,9 +102,9 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 			return nil, err
 		}
 	}
-	sort.Slice(r.Models, func(i, j int) bool { return r.Models[i].Series < r.Models[j].Series })
-	sort.Slice(r.Rejected, func(i, j int) bool { return r.Rejected[i].Series < r.Rejected[j].Series })
-	sort.Slice(r.Evaluation, func(i, j int) bool { return r.Evaluation[i].Series < r.Evaluation[j].Series })
+	sort.Slice(r.Models, func(i, j int) bool { return r.Models[i].Key < r.Models[j].Key })
+	sort.Slice(r.Rejected, func(i, j int) bool { return r.Rejected[i].Key < r.Rejected[j].Key })
+	sort.Slice(r.Evaluation, func(i, j int) bool { return r.Evaluation[i].Key < r.Evaluation[j].Key })
 	return r, nil
 }
 
@@ -198,37 +198,37 @@ func (u unitFiles) read(ctx context.Context, st *store.Store, table string, deco
 // unit was carried forward).
 func (r *Run) readUnit(ctx context.Context, st *store.Store, u unitFiles) error {
 	err := u.read(ctx, st, pipeline.TableForecasts, func(rd io.Reader, format string) error {
-		_, rows, err := tables.ReadForecasts(rd, format)
+		_, rows, err := tables.ReadForecasts(rd, format, r.Config.Source.Columns.Series)
 		for _, row := range rows {
 			if !math.IsNaN(row.Mean) {
-				r.Volume[row.Series] += row.Mean
+				r.Volume[row.Key] += row.Mean
 			}
-			if o, ok := r.Origin[row.Series]; !ok || row.Period.Before(o) {
-				r.Origin[row.Series] = row.Period
+			if o, ok := r.Origin[row.Key]; !ok || row.Period.Before(o) {
+				r.Origin[row.Key] = row.Period
 			}
 			if u.source != "" {
-				r.Carried[row.Series] = u.source
+				r.Carried[row.Key] = u.source
 			}
 		}
 		return err
 	})
 	if err == nil {
 		err = u.read(ctx, st, pipeline.TableModels, func(rd io.Reader, format string) error {
-			rows, err := tables.ReadModels(rd, format)
+			rows, err := tables.ReadModels(rd, format, r.Config.Source.Columns.Series)
 			r.Models = append(r.Models, rows...)
 			return err
 		})
 	}
 	if err == nil {
 		err = u.read(ctx, st, pipeline.TableEvaluation, func(rd io.Reader, format string) error {
-			rows, err := tables.ReadEvaluation(rd, format)
+			rows, err := tables.ReadEvaluation(rd, format, r.Config.Source.Columns.Series)
 			r.Evaluation = append(r.Evaluation, rows...)
 			return err
 		})
 	}
 	if err == nil {
 		err = u.read(ctx, st, pipeline.TableRejected, func(rd io.Reader, format string) error {
-			rows, err := tables.ReadRejected(rd, format)
+			rows, err := tables.ReadRejected(rd, format, r.Config.Source.Columns.Series)
 			r.Rejected = append(r.Rejected, rows...)
 			return err
 		})
@@ -240,13 +240,13 @@ func (r *Run) readUnit(ctx context.Context, st *store.Store, u unitFiles) error 
 func (r *Run) LoadForecasts(ctx context.Context, st *store.Store, keys map[string]bool) error {
 	for _, u := range r.units {
 		err := u.read(ctx, st, pipeline.TableForecasts, func(rd io.Reader, format string) error {
-			h, rows, err := tables.ReadForecasts(rd, format)
+			h, rows, err := tables.ReadForecasts(rd, format, r.Config.Source.Columns.Series)
 			for _, row := range rows {
-				if keys[row.Series] {
-					fc := r.Forecasts[row.Series]
+				if keys[row.Key] {
+					fc := r.Forecasts[row.Key]
 					fc.Levels = h.Quantiles
 					fc.Rows = append(fc.Rows, row)
-					r.Forecasts[row.Series] = fc
+					r.Forecasts[row.Key] = fc
 				}
 			}
 			return err

@@ -14,6 +14,7 @@ import (
 	"gonum.org/v1/plot/vg"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/tables"
@@ -58,11 +59,14 @@ type page struct {
 	ModelsPlot, FamilyPlot string
 	EvalPlot               string
 	Shown                  []shownSeries
-	Rejected               []tables.RejectedRow
-	RejectedMore           int
-	Index                  []indexRow
-	IndexMore              int
-	IndexCap               int
+	// KeyNames are the series key columns (source.columns.series); the rejected and index
+	// tables give each its own column.
+	KeyNames     []string
+	Rejected     []rejectedRow
+	RejectedMore int
+	Index        []indexRow
+	IndexMore    int
+	IndexCap     int
 }
 
 // modelRow is one line of the chosen-models table.
@@ -72,14 +76,20 @@ type modelRow struct {
 	Share               string
 }
 
-// shownSeries is one series of the per-series section.
+// rejectedRow is one line of the rejected table: the key cells and the reason.
+type rejectedRow struct {
+	Cells  []string
+	Reason string
+}
+
+// shownSeries is one series of the per-series section; Label names it by its key columns.
 type shownSeries struct {
-	Key, Anchor, Plot, Title string
-	Why                      []string
-	Model, Params            string
-	Family, FamilyWords      string
-	Score                    float64
-	ScoreWords               string
+	Key, Label, Anchor, Plot, Title string
+	Why                             []string
+	Model, Params                   string
+	Family, FamilyWords             string
+	Score                           float64
+	ScoreWords                      string
 	// Ratio is realized / expected error of the previous forecast ("" without evaluation).
 	Ratio string
 	Band  string
@@ -93,9 +103,10 @@ type shownSeries struct {
 
 // indexRow is one line of the index of all series.
 type indexRow struct {
-	Key, Model, Anchor, Carried string
-	Score                       float64
-	Drifted                     bool
+	Cells                  []string
+	Model, Anchor, Carried string
+	Score                  float64
+	Drifted                bool
 }
 
 // render writes the plots and index.html of r into dir, drawing the series in picks with
@@ -179,18 +190,18 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 
 	models := map[string]tables.ModelRow{}
 	for _, m := range r.Models {
-		models[m.Series] = m
+		models[m.Key] = m
 	}
 	evals := map[string]*tables.EvaluationRow{}
 	for i := range r.Evaluation {
-		evals[r.Evaluation[i].Series] = &r.Evaluation[i]
+		evals[r.Evaluation[i].Key] = &r.Evaluation[i]
 	}
 	anchors := map[string]string{}
 	window := historyWindow(freq, cfg.Horizon)
 	for i, pk := range picks {
 		m := models[pk.Key]
 		fc := r.Forecasts[pk.Key]
-		s := shownSeries{Key: pk.Key, Anchor: fmt.Sprintf("s%03d", i+1), Plot: fmt.Sprintf("series-%03d.svg", i+1), Why: pk.Why,
+		s := shownSeries{Key: pk.Key, Label: keyLabel(cfg.Source.Columns.Series, pk.Key), Anchor: fmt.Sprintf("s%03d", i+1), Plot: fmt.Sprintf("series-%03d.svg", i+1), Why: pk.Why,
 			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, freq, freq.SeasonLength()),
 			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
 		s.Family = familyOf(cfg.Zoo, m.Model)
@@ -210,30 +221,33 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		if ok {
 			hp = &h
 		}
-		s.Title = fmt.Sprintf("%s: %s, forecast %s", pk.Key, m.Model, plural(len(fc.Rows), noun)+" ahead")
+		s.Title = fmt.Sprintf("%s: %s, forecast %s", s.Label, m.Model, plural(len(fc.Rows), noun)+" ahead")
 		p, err := seriesPlot(s.Title, fmt.Sprintf("%s per %s", unit, noun), hp, fc, window)
 		if err != nil {
 			return nil, fmt.Errorf("report: %s: %w", pk.Key, err)
 		}
-		if files, err = svgTo(files, dir, s.Plot, "Demand history and forecast of "+pk.Key, p, plotWidth, vg.Points(360)); err != nil {
+		if files, err = svgTo(files, dir, s.Plot, "Demand history and forecast of "+s.Label, p, plotWidth, vg.Points(360)); err != nil {
 			return nil, err
 		}
 		anchors[pk.Key] = s.Anchor
 		pg.Shown = append(pg.Shown, s)
 	}
 
-	pg.Rejected = r.Rejected
-	if len(pg.Rejected) > o.IndexCap {
-		pg.RejectedMore = len(pg.Rejected) - o.IndexCap
-		pg.Rejected = pg.Rejected[:o.IndexCap]
+	pg.KeyNames = cfg.Source.Columns.Series
+	for i, rj := range r.Rejected {
+		if i == o.IndexCap {
+			pg.RejectedMore = len(r.Rejected) - o.IndexCap
+			break
+		}
+		pg.Rejected = append(pg.Rejected, rejectedRow{Cells: keyCells(pg.KeyNames, rj.Key), Reason: rj.Reason})
 	}
 	for i, m := range r.Models {
 		if i == o.IndexCap {
 			pg.IndexMore = len(r.Models) - o.IndexCap
 			break
 		}
-		row := indexRow{Key: m.Series, Model: m.Model, Score: m.Score, Anchor: anchors[m.Series], Carried: r.Carried[m.Series]}
-		if e := evals[m.Series]; e != nil {
+		row := indexRow{Cells: keyCells(pg.KeyNames, m.Key), Model: m.Model, Score: m.Score, Anchor: anchors[m.Key], Carried: r.Carried[m.Key]}
+		if e := evals[m.Key]; e != nil {
 			row.Drifted = e.Drifted
 		}
 		pg.Index = append(pg.Index, row)
@@ -260,3 +274,28 @@ const plotWidth = vg.Length(720)
 
 // barHeight is the height of a horizontal bar chart with n bars.
 func barHeight(n int) vg.Length { return vg.Length(70 + 22*max(n, 1)) }
+
+// keyCells returns a series key's cells, one per key column (ingest.SplitKey); a key that does
+// not split (not written by this release) is shown whole in the first column.
+func keyCells(names []string, key string) []string {
+	cells, err := ingest.SplitKey(key, len(names))
+	if err != nil {
+		cells = make([]string, len(names))
+		cells[0] = key
+	}
+	return cells
+}
+
+// keyLabel names a series by its key columns: "item oat-flakes-1kg, depot harrow"; with one
+// key column, the cell alone.
+func keyLabel(names []string, key string) string {
+	cells := keyCells(names, key)
+	if len(cells) == 1 {
+		return cells[0]
+	}
+	parts := make([]string, len(cells))
+	for i, c := range cells {
+		parts[i] = names[i] + " " + c
+	}
+	return strings.Join(parts, ", ")
+}

@@ -56,8 +56,11 @@ var portfolio = []testSeries{
 	{"conveyor-belt-clip/kelso", "Croston", 0.97, "b-0001", 2, true},
 }
 
+// testKeys are the portfolio's key columns.
+var testKeys = []string{"item", "depot"}
+
 // rejectedSeries is the rejected table's one row.
-var rejectedSeries = tables.RejectedRow{Series: "gasket-set-6/harrow", Reason: `history.csv line 9: value "n/a" is not a number`}
+var rejectedSeries = tables.RejectedRow{Key: "gasket-set-6/harrow", Reason: `history.csv line 9: value "n/a" is not a number`}
 
 // demandAt is week w's demand (w = 0 is the first of 104 weeks): a yearly cycle peaking in
 // December, or for a spare part 3 units every fifth week.
@@ -105,7 +108,7 @@ func testConfig(run, prev, sourceURI, outURI string) *runconfig.Config {
 		Portfolio: "fenwick-lane-weekly", Namespace: "planning", Run: run, Trigger: "Schedule", PreviousRun: prev,
 		ScheduledTime: time.Date(2026, 12, 7, 6, 0, 0, 0, time.UTC),
 		Source: runconfig.Source{URI: sourceURI, Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
-			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week", Value: "units"}},
+			Columns: runconfig.Columns{Series: testKeys, Date: "week", Value: "units"}},
 		Output:    runconfig.Output{URI: outURI, Format: "csv"},
 		Horizon:   horizon,
 		Quantiles: testLevels,
@@ -148,21 +151,21 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, fo
 			if s.spare {
 				m = 0.6
 			}
-			fc = append(fc, tables.ForecastRow{Series: s.key, Period: end.AddDate(0, 0, 7*k), Step: k, Model: s.model,
+			fc = append(fc, tables.ForecastRow{Key: s.key, Period: end.AddDate(0, 0, 7*k), Step: k, Model: s.model,
 				Mean: m, Quantiles: []float64{0.75 * m, m, 1.3 * m}})
 		}
 		notes := "dropped 1 identical duplicate rows"
 		if math.IsNaN(s.score) {
 			notes = "Theta: too short to backtest (needs 104 observations plus one to test)"
 		}
-		mr = append(mr, tables.ModelRow{Series: s.key, Model: s.model, Params: s.model + " alpha=0.3",
+		mr = append(mr, tables.ModelRow{Key: s.key, Model: s.model, Params: s.model + " alpha=0.3",
 			BacktestErrors: []float64{s.score, s.score}, Metric: "MASE", Score: s.score, Notes: notes,
 			Design: "per-series", Segment: "weekly/smooth/long"})
 		if unit == "b-0000" {
 			mr[len(mr)-1].Design = "ets-theta"
 		}
 		if unit == "b-0000" && !math.IsNaN(s.score) {
-			e := tables.EvaluationRow{Series: s.key, Points: 1, Metric: "MASE", Expected: s.score, Realized: s.score * 1.1, PreviousRun: prevRun}
+			e := tables.EvaluationRow{Key: s.key, Points: 1, Metric: "MASE", Expected: s.score, Realized: s.score * 1.1, PreviousRun: prevRun}
 			if s.key == "oat-flakes-1kg/kelso" {
 				e.Realized, e.Drifted = 2.1, true
 			}
@@ -175,11 +178,11 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, fo
 	key := func(name string) string { return store.UnitKey(run, unit, name) }
 	return []pipeline.File{
 		putTable(t, ctx, st, key("forecasts."+format), pipeline.TableForecasts, func(w io.Writer) error {
-			return tables.WriteForecasts(w, format, tables.Header{Quantiles: testLevels}, fc)
+			return tables.WriteForecasts(w, format, tables.Header{Keys: testKeys, Quantiles: testLevels}, fc)
 		}),
-		putTable(t, ctx, st, key("models."+format), pipeline.TableModels, func(w io.Writer) error { return tables.WriteModels(w, format, mr) }),
-		putTable(t, ctx, st, key("evaluation."+format), pipeline.TableEvaluation, func(w io.Writer) error { return tables.WriteEvaluation(w, format, ev) }),
-		putTable(t, ctx, st, key(store.RejectedName), pipeline.TableRejected, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, rj) }),
+		putTable(t, ctx, st, key("models."+format), pipeline.TableModels, func(w io.Writer) error { return tables.WriteModels(w, format, testKeys, mr) }),
+		putTable(t, ctx, st, key("evaluation."+format), pipeline.TableEvaluation, func(w io.Writer) error { return tables.WriteEvaluation(w, format, testKeys, ev) }),
+		putTable(t, ctx, st, key(store.RejectedName), pipeline.TableRejected, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, testKeys, rj) }),
 	}
 }
 
@@ -244,7 +247,7 @@ func readModels(t *testing.T, st *store.Store) []tables.ModelRow {
 		if err != nil {
 			t.Fatal(err)
 		}
-		rows, err := tables.ReadModels(bytes.NewReader(b), format)
+		rows, err := tables.ReadModels(bytes.NewReader(b), format, testKeys)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -466,7 +469,7 @@ func TestReportOfPublishedRun(t *testing.T) {
 
 	// Rejected reasons appear with their series.
 	rows := tableRows(byID(t, doc, "rejected-series"))
-	if len(rows) != 1 || rows[0][0] != rejectedSeries.Series || rows[0][1] != rejectedSeries.Reason {
+	if len(rows) != 1 || rows[0][0] != "gasket-set-6" || rows[0][1] != "harrow" || rows[0][2] != rejectedSeries.Reason {
 		t.Errorf("rejected table %v, want %v", rows, rejectedSeries)
 	}
 

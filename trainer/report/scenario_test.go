@@ -41,7 +41,7 @@ func TestDemoScenario(t *testing.T) {
 		return &runconfig.Config{
 			Portfolio: "fenwick-lane-weekly", Namespace: "planning", Run: run, Trigger: "Schedule", PreviousRun: prev,
 			Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
-				Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units"}},
+				Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units"}},
 			Output:    runconfig.Output{URI: outURI, Format: "csv"},
 			Horizon:   12,
 			Quantiles: []float64{0.1, 0.25, 0.5, 0.75, 0.9},
@@ -97,10 +97,10 @@ func TestDemoScenario(t *testing.T) {
 		t.Fatalf("rejected %v, want %d series", rejected, gen.Bad)
 	}
 	for i, want := range []string{"is not a number", "off the weekly grid"} {
-		key := gen.ItemName(i) + "/" + synth.DepotName(0)
+		key := gen.ItemName(i) + " at " + synth.DepotName(0)
 		found := false
-		for _, row := range rejected {
-			found = found || (row[0] == key && strings.Contains(row[1], want))
+		for _, row := range rejected { // item, depot, reason: a column per key column
+			found = found || (row[0] == gen.ItemName(i) && row[1] == synth.DepotName(0) && strings.Contains(row[2], want))
 		}
 		if !found {
 			t.Errorf("%s (%s) not rejected with %q: %v", key, synth.Defects[i], want, rejected)

@@ -83,7 +83,7 @@ const (
 
 // Columns names the input table's columns.
 type Columns struct {
-	// Series are the key columns; their values joined with "/" form the series key.
+	// Series are the key columns, in order; the output tables keep each under its own name.
 	Series []string `json:"series"`
 	// Date is the period column.
 	Date string `json:"date"`

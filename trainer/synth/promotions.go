@@ -16,10 +16,6 @@ const (
 	ScenarioPromotions = "promotions"
 )
 
-// PromotionColumns are the columns of the promotion scenario, in order: the baseline columns
-// and the shelf price.
-var PromotionColumns = []string{"item", "depot", "date", "units", "promo", "price"}
-
 // ListPrice is the regular shelf price of every pantry item in the promotion scenario; a price
 // cut is a share off it.
 const ListPrice = 4.0

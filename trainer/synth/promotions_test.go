@@ -14,7 +14,7 @@ import (
 )
 
 var promoSource = runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday",
-	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo", "price"}}}
+	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}}
 
 // collectPlan reads a promotion-scenario depot through the trainer's reader with the history
 // ending at end and the plan kept for future periods.
@@ -54,7 +54,7 @@ func TestPromotionPlanIsKnownInAdvance(t *testing.T) {
 
 	csv := csvOf(t, short, 0)
 	header, rest, _ := strings.Cut(string(csv), "\n")
-	if header != "item,depot,date,units,promo,price" {
+	if header != "item,depot,week_start,units,promo_flag,price" { // the samples' source.columns
 		t.Fatalf("header %q", header)
 	}
 	planned := 0
@@ -73,10 +73,10 @@ func TestPromotionPlanIsKnownInAdvance(t *testing.T) {
 	a := collectPlan(t, csv, promoSource, end, 4)
 	b := collectPlan(t, csvOf(t, long, 0), promoSource, long.End, 0)
 	for i := range a {
-		if len(a[i].Values) != 100 || len(a[i].Covariates["promo"]) != 104 {
-			t.Fatalf("%s: %d values, %d promo entries; want 100 and 104", a[i].Key, len(a[i].Values), len(a[i].Covariates["promo"]))
+		if len(a[i].Values) != 100 || len(a[i].Covariates["promo_flag"]) != 104 {
+			t.Fatalf("%s: %d values, %d promo entries; want 100 and 104", a[i].Key, len(a[i].Values), len(a[i].Covariates["promo_flag"]))
 		}
-		for _, name := range []string{"promo", "price"} {
+		for _, name := range []string{"promo_flag", "price"} {
 			for k := range 104 {
 				if a[i].Covariates[name][k] != b[i].Covariates[name][k] {
 					t.Fatalf("%s %s[%d]: planned %v, happened %v", a[i].Key, name, k, a[i].Covariates[name][k], b[i].Covariates[name][k])
@@ -108,7 +108,7 @@ func TestPromotionsDriveDemand(t *testing.T) {
 			lvl += v / float64(len(s.Values))
 		}
 		for k, v := range s.Values {
-			p, price := s.Covariates["promo"][k], s.Covariates["price"][k]
+			p, price := s.Covariates["promo_flag"][k], s.Covariates["price"][k]
 			if p == 1 {
 				on, nOn = on+v/lvl, nOn+1
 				continue
@@ -169,7 +169,7 @@ func sameSeries(a, b series.Series) bool {
 		}
 		return true
 	}
-	return a.Key == b.Key && eq(a.Values, b.Values) && eq(a.Covariates["promo"], b.Covariates["promo"]) && eq(a.Covariates["price"], b.Covariates["price"])
+	return a.Key == b.Key && eq(a.Values, b.Values) && eq(a.Covariates["promo_flag"], b.Covariates["promo_flag"]) && eq(a.Covariates["price"], b.Covariates["price"])
 }
 
 func TestScenarioOptionsValidate(t *testing.T) {

@@ -1,7 +1,8 @@
 // Package synth generates a deterministic synthetic demand dataset for Fenwick Lane Provisions,
 // an invented regional distributor: pantry items and equipment spare parts, stocked at a set
-// of depots, daily or weekly, in the long format the trainer reads (columns item, depot, date,
-// units, promo). The demo, the tests and the benchmarks use it.
+// of depots, daily or weekly, in the long format the trainer reads (columns item, depot, date
+// or week_start, units, promo_flag; see Options.ColumnsOf). The demo, the tests and the
+// benchmarks use it.
 //
 // Each series (item x depot) is drawn from its own random stream, seeded by Options.Seed and
 // the series' position, so a dataset is the same on every machine and any depot can be
@@ -26,6 +27,8 @@ import (
 	"math"
 	"math/rand/v2"
 	"time"
+
+	"almanac.dev/almanac/trainer/ingest"
 )
 
 // Frequencies the generator writes.
@@ -130,8 +133,8 @@ type Record struct {
 	Planned     bool
 }
 
-// Key is the series key as the trainer builds it from columns item and depot.
-func (r Record) Key() string { return r.Item + "/" + r.Depot }
+// Key is the series key as the trainer builds it from columns item and depot (ingest.JoinKey).
+func (r Record) Key() string { return ingest.JoinKey(r.Item, r.Depot) }
 
 var depotNames = []string{"ashby", "brill", "corrie", "dunmore", "elstow", "fernlea", "garth", "holm",
 	"ivybridge", "juniper", "kettleby", "lorton", "marden", "netherby", "orcop", "pelham",

@@ -13,7 +13,7 @@ import (
 )
 
 var source = runconfig.Source{Format: "csv", Frequency: "daily",
-	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}}
+	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}}
 
 func csvOf(t *testing.T, o Options, d int) []byte {
 	t.Helper()
@@ -54,7 +54,7 @@ func collect(t *testing.T, data []byte, src runconfig.Source) (map[string][]floa
 	ok, rej := c.Finish()
 	vals, promo := map[string][]float64{}, map[string][]float64{}
 	for _, s := range ok {
-		vals[s.Key], promo[s.Key] = s.Values, s.Covariates["promo"]
+		vals[s.Key], promo[s.Key] = s.Values, s.Covariates["promo_flag"]
 	}
 	return vals, promo, rej
 }
@@ -134,6 +134,7 @@ func TestWeeklyAndParquet(t *testing.T) {
 	}
 	src := source
 	src.Format, src.Frequency, src.WeekAnchor = "parquet", "weekly", "Monday"
+	src.Columns.Date = "week_start"
 	ra, size, err := st.NewReaderAt(context.Background(), keys[1])
 	if err != nil {
 		t.Fatal(err)
@@ -147,7 +148,7 @@ func TestWeeklyAndParquet(t *testing.T) {
 		t.Fatalf("%d series, %d rejected, first %+v", len(ok), len(rej), ok[0].Start)
 	}
 	// The Parquet rows equal the CSV rows.
-	vals, _, _ := collect(t, csvOf(t, o, 1), runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", Columns: source.Columns})
+	vals, _, _ := collect(t, csvOf(t, o, 1), runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", Columns: src.Columns})
 	for _, s := range ok {
 		for i, v := range s.Values {
 			if vals[s.Key][i] != v {

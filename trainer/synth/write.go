@@ -22,15 +22,37 @@ const (
 	Parquet = "parquet"
 )
 
-// Columns of the generated table, in order.
-var Columns = []string{"item", "depot", "date", "units", "promo"}
+// Column names of the generated table: the names the samples in config/samples map in
+// source.columns, so `local -f` on a sample reads generated data without edits.
+const (
+	ColItem  = "item"
+	ColDepot = "depot"
+	// ColDate is the date column of daily data; weekly data has ColWeekStart (a week is
+	// labelled by its first day, the Monday).
+	ColDate      = "date"
+	ColWeekStart = "week_start"
+	ColUnits     = "units"
+	ColPromo     = "promo_flag"
+	// ColPrice is the shelf price, promotion scenario only.
+	ColPrice = "price"
+)
 
-// ColumnsOf returns the columns of the options' scenario, in order.
-func (o Options) ColumnsOf() []string {
-	if o.Scenario == ScenarioPromotions {
-		return PromotionColumns
+// DateColumn is the date column's name: ColWeekStart for weekly data, ColDate for daily.
+func (o Options) DateColumn() string {
+	if o.Frequency == Weekly {
+		return ColWeekStart
 	}
-	return Columns
+	return ColDate
+}
+
+// ColumnsOf returns the columns of the options' dataset, in order: item, depot, the date
+// column (DateColumn), units, promo_flag, and price in the promotion scenario.
+func (o Options) ColumnsOf() []string {
+	cols := []string{ColItem, ColDepot, o.DateColumn(), ColUnits, ColPromo}
+	if o.Scenario == ScenarioPromotions {
+		cols = append(cols, ColPrice)
+	}
+	return cols
 }
 
 // WriteCSV writes depot d's rows as CSV with a header line.
@@ -72,66 +94,39 @@ func (o Options) WriteCSV(w io.Writer, d int) error {
 	return bw.Flush()
 }
 
-// parquetRow is the Parquet schema: date is a DATE, units an optional DOUBLE, promo an INT32.
-// Of the defects, "not-a-number" becomes a null value; "off-grid" cannot be written in a DATE
-// column, so in Parquet that series is clean; the duplicate and single-row defects are as in CSV.
-type parquetRow struct {
-	Item  string   `parquet:"item"`
-	Depot string   `parquet:"depot"`
-	Date  int32    `parquet:"date,date"`
-	Units *float64 `parquet:"units,optional"`
-	Promo int32    `parquet:"promo"`
-}
-
-// promoParquetRow is the promotion scenario's schema: parquetRow and a DOUBLE price; planned
-// rows have a null units value.
-type promoParquetRow struct {
-	Item  string   `parquet:"item"`
-	Depot string   `parquet:"depot"`
-	Date  int32    `parquet:"date,date"`
-	Units *float64 `parquet:"units,optional"`
-	Promo int32    `parquet:"promo"`
-	Price float64  `parquet:"price"`
-}
-
 // WriteParquet writes depot d's rows as Parquet, one row group per rowsPerGroup rows (<= 0:
-// one row group per 64 items), each series inside one row group.
+// one row group per 64 items), each series inside one row group. The columns are ColumnsOf's:
+// the date a DATE, units an optional DOUBLE (null for a planned row), promo_flag an INT32,
+// price a DOUBLE. Of the defects, "not-a-number" becomes a null value; "off-grid" cannot be
+// written in a DATE column, so in Parquet that series is clean; the duplicate and single-row
+// defects are as in CSV.
 func (o Options) WriteParquet(w io.Writer, d int, rowsPerGroup int) error {
-	if o.Scenario == ScenarioPromotions {
-		return writeParquet(o, w, d, rowsPerGroup, func(r Record) promoParquetRow {
-			return promoParquetRow{Item: r.Item, Depot: r.Depot, Date: int32(r.Date.Unix() / 86400), Units: unitsOf(r),
-				Promo: int32(r.Promo), Price: r.Price}
-		})
-	}
-	return writeParquet(o, w, d, rowsPerGroup, func(r Record) parquetRow {
-		return parquetRow{Item: r.Item, Depot: r.Depot, Date: int32(r.Date.Unix() / 86400), Units: unitsOf(r), Promo: int32(r.Promo)}
-	})
-}
-
-// unitsOf is the units cell of r: nil (null) for a defect's text or a planned row.
-func unitsOf(r Record) *float64 {
-	if r.Text != "" || r.Planned {
-		return nil
-	}
-	u := r.Units
-	return &u
-}
-
-// writeParquet writes depot d's rows through the row schema T.
-func writeParquet[T any](o Options, w io.Writer, d int, rowsPerGroup int, toRow func(Record) T) error {
 	ow := o.withDefaults()
 	if rowsPerGroup <= 0 {
 		rowsPerGroup = 64 * (ow.Periods + ow.Future)
 	}
-	pw := parquet.NewGenericWriter[T](w)
-	batch := make([]T, 0, 4096)
+	names := o.ColumnsOf()
+	nodes := map[string]parquet.Node{
+		ColItem: parquet.String(), ColDepot: parquet.String(), o.DateColumn(): parquet.Date(),
+		ColUnits: parquet.Optional(parquet.Leaf(parquet.DoubleType)), ColPromo: parquet.Int(32), ColPrice: parquet.Leaf(parquet.DoubleType),
+	}
+	group := parquet.Group{}
+	for _, n := range names {
+		group[n] = nodes[n]
+	}
+	schema := parquet.NewSchema("demand", group)
+	at := make([]int, len(names)) // file column of each of names
+	for i, n := range names {
+		leaf, _ := schema.Lookup(n)
+		at[i] = leaf.ColumnIndex
+	}
+	pw := parquet.NewWriter(w, schema)
+	batch := make([]parquet.Row, 0, 4096)
 	inGroup := 0
 	flush := func() error {
-		if _, err := pw.Write(batch); err != nil {
-			return err
-		}
+		_, err := pw.WriteRows(batch)
 		batch = batch[:0]
-		return nil
+		return err
 	}
 	lastKey := ""
 	err := o.Depot(d, func(r Record) error {
@@ -148,7 +143,21 @@ func writeParquet[T any](o Options, w io.Writer, d int, rowsPerGroup int, toRow 
 			}
 			lastKey = k
 		}
-		batch = append(batch, toRow(r))
+		units, def := parquet.NullValue(), 0
+		if r.Text == "" && !r.Planned {
+			units, def = parquet.DoubleValue(r.Units), 1
+		}
+		vals := []parquet.Value{parquet.ByteArrayValue([]byte(r.Item)), parquet.ByteArrayValue([]byte(r.Depot)),
+			parquet.Int32Value(int32(r.Date.Unix() / 86400)), units, parquet.Int32Value(int32(r.Promo)), parquet.DoubleValue(r.Price)}
+		row := make(parquet.Row, len(names))
+		for i := range names {
+			d := 0
+			if names[i] == ColUnits {
+				d = def
+			}
+			row[at[i]] = vals[i].Level(0, d, at[i])
+		}
+		batch = append(batch, row)
 		inGroup++
 		if len(batch) == cap(batch) {
 			return flush()

@@ -15,10 +15,10 @@ func TestModelsKeptFeatures(t *testing.T) {
 	rows[2].Features = map[string][]string{"Ridge": {"covariate:price"}, "Lasso": {"covariate:promo_flag"}}
 	for _, f := range formats {
 		var buf bytes.Buffer
-		if err := WriteModels(&buf, f, rows); err != nil {
+		if err := WriteModels(&buf, f, keys, rows); err != nil {
 			t.Fatal(err)
 		}
-		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f)
+		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
@@ -29,7 +29,7 @@ func TestModelsKeptFeatures(t *testing.T) {
 		}
 	}
 	var buf bytes.Buffer
-	if err := WriteModels(&buf, CSV, rows); err != nil {
+	if err := WriteModels(&buf, CSV, keys, rows); err != nil {
 		t.Fatal(err)
 	}
 	lines := strings.Split(buf.String(), "\n")
@@ -43,8 +43,8 @@ func TestModelsKeptFeatures(t *testing.T) {
 }
 
 func TestModelsKeptFeaturesBroken(t *testing.T) {
-	table := "series,model,params,metric,score,notes,kept_features\nnorth/oats,Lasso,,MASE,0.9,,{not json\n"
-	_, err := ReadModels(strings.NewReader(table), CSV)
+	table := "depot,item,model,params,metric,score,notes,kept_features\nnorth,oats,Lasso,,MASE,0.9,,{not json\n"
+	_, err := ReadModels(strings.NewReader(table), CSV, keys)
 	if err == nil || !strings.Contains(err.Error(), `models row 1 (series "north/oats"): kept_features`) {
 		t.Fatalf("err = %v, want the row, series and column named", err)
 	}

@@ -17,14 +17,16 @@ func FuzzReadForecasts(f *testing.F) {
 		}
 		f.Add(buf.Bytes(), format == Parquet)
 	}
-	f.Add([]byte("series,period,step,model,mean,q50\nx,2026-12-07T00:00:00+01:00,1,m,-0,1e-300\n"), false)
-	f.Add([]byte("period,series,mean,step,model\n\"a,b\",x,1,1,m\n"), false)
+	f.Add([]byte("depot,item,period,step,model,mean,q50\nx,\"a/\"\"b\",2026-12-07T00:00:00+01:00,1,m,-0,1e-300\n"), false)
+	f.Add([]byte("period,item,depot,mean,step,model\n\"a,b\",x,\"\n\",1,1,m\n"), false)
+	// Tables written before key columns: one series column.
+	f.Add([]byte("series,period,step,model,mean\nx/y,2026-12-07T00:00:00Z,1,m,1\nx/y/z,2026-12-07T00:00:00Z,1,m,1\n"), false)
 	f.Fuzz(func(t *testing.T, data []byte, pq bool) {
 		format := CSV
 		if pq {
 			format = Parquet
 		}
-		h1, r1, err := ReadForecasts(bytes.NewReader(data), format)
+		h1, r1, err := ReadForecasts(bytes.NewReader(data), format, keys)
 		if err != nil {
 			return
 		}
@@ -33,7 +35,7 @@ func FuzzReadForecasts(f *testing.F) {
 			if err := WriteForecasts(&buf, out, h1, r1); err != nil {
 				t.Fatalf("%s: a table that was read does not write: %v", out, err)
 			}
-			h2, r2, err := ReadForecasts(&buf, out)
+			h2, r2, err := ReadForecasts(&buf, out, keys)
 			if err != nil {
 				t.Fatalf("%s: written table does not read back: %v", out, err)
 			}
@@ -43,7 +45,7 @@ func FuzzReadForecasts(f *testing.F) {
 			for i := range r1 {
 				a, b := r1[i], r2[i]
 				// Parquet keeps microseconds; CSV keeps nanoseconds.
-				if a.Series != b.Series || a.Model != b.Model || a.Step != b.Step || !same(a.Mean, b.Mean) ||
+				if a.Key != b.Key || a.Model != b.Model || a.Step != b.Step || !same(a.Mean, b.Mean) ||
 					a.Period.UnixMicro() != b.Period.UnixMicro() {
 					t.Fatalf("%s row %d: %+v, want %+v", out, i, b, a)
 				}

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -13,6 +14,8 @@ import (
 
 // Header describes the variable columns of a forecasts table.
 type Header struct {
+	// Keys are the series key column names (see CheckKeys).
+	Keys []string
 	// Quantiles are the probability levels in (0,1), strictly increasing; each is a column
 	// named by QuantileColumn.
 	Quantiles []float64
@@ -20,7 +23,8 @@ type Header struct {
 
 // ForecastRow is one forecast period of one series.
 type ForecastRow struct {
-	Series string
+	// Key is the series key (ingest.JoinKey of the key cells).
+	Key    string
 	Period time.Time
 	// Step is the horizon step, 1 for the first forecast period.
 	Step  int
@@ -32,7 +36,9 @@ type ForecastRow struct {
 
 // ModelRow is the chosen model of one series.
 type ModelRow struct {
-	Series, Model, Params string
+	// Key is the series key (ingest.JoinKey of the key cells).
+	Key           string
+	Model, Params string
 	// BacktestErrors holds the backtest error by horizon step (index 0 is step 1), in Metric.
 	BacktestErrors []float64
 	Metric         string
@@ -53,7 +59,8 @@ type ModelRow struct {
 // EvaluationRow compares a series' realized error on new actuals with the error the
 // previous run expected.
 type EvaluationRow struct {
-	Series             string
+	// Key is the series key (ingest.JoinKey of the key cells).
+	Key                string
 	Points             int
 	Metric             string
 	Expected, Realized float64
@@ -61,12 +68,12 @@ type EvaluationRow struct {
 	PreviousRun        string
 }
 
-// RejectedRow is a series that could not be used, with the reason.
-type RejectedRow struct{ Series, Reason string }
+// RejectedRow is a series that could not be used, with the reason. Key is the series key
+// (ingest.JoinKey of the key cells; a cell may be empty when the reason is an empty key cell).
+type RejectedRow struct{ Key, Reason string }
 
 // Column names.
 const (
-	colSeries   = "series"
 	colPeriod   = "period"
 	colStep     = "step"
 	colModel    = "model"
@@ -113,7 +120,11 @@ func ParseQuantileColumn(name string) (float64, bool) {
 }
 
 func forecastColumns(h Header) ([]column, error) {
-	cols := []column{{colSeries, text}, {colPeriod, instant}, {colStep, integer}, {colModel, text}, {colMean, number}}
+	cols, err := keyColumns(h.Keys)
+	if err != nil {
+		return nil, err
+	}
+	cols = append(cols, column{colPeriod, instant}, column{colStep, integer}, column{colModel, text}, column{colMean, number})
 	seen := map[string]bool{}
 	for i, q := range h.Quantiles {
 		if !(q > 0 && q < 1) || (i > 0 && q <= h.Quantiles[i-1]) {
@@ -129,20 +140,25 @@ func forecastColumns(h Header) ([]column, error) {
 	return cols, nil
 }
 
-// WriteForecasts writes a forecasts table: series, period, step, model, mean and one column per
-// quantile level. Each row must carry len(h.Quantiles) quantiles.
+// WriteForecasts writes a forecasts table: the key columns, period, step, model, mean and one
+// column per quantile level. Each row must carry len(h.Quantiles) quantiles.
 func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) error {
 	cols, err := forecastColumns(h)
 	if err != nil {
 		return fmt.Errorf("tables: forecasts: %w", err)
 	}
 	g := grid{cols: cols, rows: make([][]cell, len(rows))}
+	ks := keySplitter{n: len(h.Keys)}
 	for i, r := range rows {
 		if len(r.Quantiles) != len(h.Quantiles) {
 			return fmt.Errorf("tables: forecasts row %d (series %q step %d): %d quantiles, header has %d",
-				i, r.Series, r.Step, len(r.Quantiles), len(h.Quantiles))
+				i, r.Key, r.Step, len(r.Quantiles), len(h.Quantiles))
 		}
-		c := []cell{{s: r.Series}, {t: r.Period}, {n: int64(r.Step)}, {s: r.Model}, {f: r.Mean}}
+		c, err := ks.appendCells(make([]cell, 0, len(cols)), r.Key)
+		if err != nil {
+			return fmt.Errorf("tables: forecasts row %d: %w", i, err)
+		}
+		c = append(c, cell{t: r.Period}, cell{n: int64(r.Step)}, cell{s: r.Model}, cell{f: r.Mean})
 		for _, q := range r.Quantiles {
 			c = append(c, cell{f: q})
 		}
@@ -151,11 +167,18 @@ func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) er
 	return wrap("forecasts", write(w, format, g))
 }
 
-// ReadForecasts reads a table written by WriteForecasts (columns in any order).
-func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
+// ReadForecasts reads a table written by WriteForecasts with the key columns keys (columns in
+// any order).
+func ReadForecasts(r io.Reader, format string, keys []string) (Header, []ForecastRow, error) {
+	if err := CheckKeys(keys); err != nil {
+		return Header{}, nil, wrap("forecasts", err)
+	}
 	g, err := read(r, format, "forecasts", func(name string) (kind, bool) {
+		if isKeyColumn(keys, name) {
+			return text, true
+		}
 		switch name {
-		case colSeries, colModel:
+		case colModel:
 			return text, true
 		case colPeriod:
 			return instant, true
@@ -170,7 +193,11 @@ func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
 	if err != nil {
 		return Header{}, nil, err
 	}
-	pos, err := g.need(colSeries, colPeriod, colStep, colModel, colMean)
+	pos, err := g.need(colPeriod, colStep, colModel, colMean)
+	if err != nil {
+		return Header{}, nil, wrap("forecasts", err)
+	}
+	kr, err := keysOf(g, keys)
 	if err != nil {
 		return Header{}, nil, wrap("forecasts", err)
 	}
@@ -185,40 +212,49 @@ func ReadForecasts(r io.Reader, format string) (Header, []ForecastRow, error) {
 		}
 	}
 	sort.Slice(qs, func(a, b int) bool { return qs[a].level < qs[b].level })
-	var h Header
+	h := Header{Keys: slices.Clone(keys)}
 	for _, q := range qs {
 		h.Quantiles = append(h.Quantiles, q.level)
 	}
 	if _, err := forecastColumns(h); err != nil {
 		return Header{}, nil, wrap("forecasts", err)
 	}
-	out := make([]ForecastRow, len(g.rows))
-	for i, c := range g.rows {
-		out[i] = ForecastRow{Series: c[pos[colSeries]].s, Period: c[pos[colPeriod]].t, Step: int(c[pos[colStep]].n),
+	out := make([]ForecastRow, 0, len(g.rows))
+	for _, c := range g.rows {
+		key, ok := kr.key(c)
+		if !ok {
+			continue
+		}
+		row := ForecastRow{Key: key, Period: c[pos[colPeriod]].t, Step: int(c[pos[colStep]].n),
 			Model: c[pos[colModel]].s, Mean: c[pos[colMean]].f}
 		if len(qs) > 0 {
-			out[i].Quantiles = make([]float64, len(qs))
+			row.Quantiles = make([]float64, len(qs))
 			for j, q := range qs {
-				out[i].Quantiles[j] = c[q.at].f
+				row.Quantiles[j] = c[q.at].f
 			}
 		}
+		out = append(out, row)
 	}
 	return h, out, nil
 }
 
-// WriteModels writes a models table: series, model, params, metric, score, err_h1..err_hN,
-// notes, where N is the longest BacktestErrors; a shorter row leaves its last columns absent.
-// When any row has a Design, columns design and segment follow notes. When any row has
-// Features, a last column kept_features holds each row's as a JSON object
+// WriteModels writes a models table: the key columns keys, model, params, metric, score,
+// err_h1..err_hN, notes, where N is the longest BacktestErrors; a shorter row leaves its last
+// columns absent. When any row has a Design, columns design and segment follow notes. When
+// any row has Features, a last column kept_features holds each row's as a JSON object
 // ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
-func WriteModels(w io.Writer, format string, rows []ModelRow) error {
+func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) error {
 	steps, withFeatures, withDesign := 0, false, false
 	for _, r := range rows {
 		steps = max(steps, len(r.BacktestErrors))
 		withFeatures = withFeatures || len(r.Features) > 0
 		withDesign = withDesign || r.Design != ""
 	}
-	cols := []column{{colSeries, text}, {colModel, text}, {colParams, text}, {colMetric, text}, {colScore, number}}
+	cols, err := keyColumns(keys)
+	if err != nil {
+		return wrap("models", err)
+	}
+	cols = append(cols, column{colModel, text}, column{colParams, text}, column{colMetric, text}, column{colScore, number})
 	for h := 1; h <= steps; h++ {
 		cols = append(cols, column{errPrefix + strconv.Itoa(h), optNumber})
 	}
@@ -230,8 +266,13 @@ func WriteModels(w io.Writer, format string, rows []ModelRow) error {
 		cols = append(cols, column{colFeatures, text})
 	}
 	g := grid{cols: cols, rows: make([][]cell, len(rows))}
+	ks := keySplitter{n: len(keys)}
 	for i, r := range rows {
-		c := []cell{{s: r.Series}, {s: r.Model}, {s: r.Params}, {s: r.Metric}, {f: r.Score}}
+		c, err := ks.appendCells(make([]cell, 0, len(cols)), r.Key)
+		if err != nil {
+			return fmt.Errorf("tables: models row %d: %w", i, err)
+		}
+		c = append(c, cell{s: r.Model}, cell{s: r.Params}, cell{s: r.Metric}, cell{f: r.Score})
 		for h := 0; h < steps; h++ {
 			if h < len(r.BacktestErrors) {
 				c = append(c, cell{f: r.BacktestErrors[h]})
@@ -269,12 +310,19 @@ func errStep(name string) (int, bool) {
 	return h, err == nil && h >= 1 && strconv.Itoa(h) == s
 }
 
-// ReadModels reads a table written by WriteModels. Error columns must be err_h1..err_hN without
-// holes; in a row, an absent value may only be followed by absent values.
-func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
+// ReadModels reads a table written by WriteModels with the key columns keys. Error columns must
+// be err_h1..err_hN without holes; in a row, an absent value may only be followed by absent
+// values.
+func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
+	if err := CheckKeys(keys); err != nil {
+		return nil, wrap("models", err)
+	}
 	g, err := read(r, format, "models", func(name string) (kind, bool) {
+		if isKeyColumn(keys, name) {
+			return text, true
+		}
 		switch name {
-		case colSeries, colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment:
+		case colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment:
 			return text, true
 		case colScore:
 			return number, true
@@ -285,7 +333,11 @@ func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	if err != nil {
 		return nil, err
 	}
-	pos, err := g.need(colSeries, colModel, colParams, colMetric, colScore, colNotes)
+	pos, err := g.need(colModel, colParams, colMetric, colScore, colNotes)
+	if err != nil {
+		return nil, wrap("models", err)
+	}
+	kr, err := keysOf(g, keys)
 	if err != nil {
 		return nil, wrap("models", err)
 	}
@@ -306,9 +358,13 @@ func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 	if errCols != len(steps) {
 		return nil, fmt.Errorf("tables: models: error columns are not %s1..%s%d without holes", errPrefix, errPrefix, len(steps))
 	}
-	out := make([]ModelRow, len(g.rows))
+	out := make([]ModelRow, 0, len(g.rows))
 	for i, c := range g.rows {
-		m := ModelRow{Series: c[pos[colSeries]].s, Model: c[pos[colModel]].s, Params: c[pos[colParams]].s,
+		key, ok := kr.key(c)
+		if !ok {
+			continue
+		}
+		m := ModelRow{Key: key, Model: c[pos[colModel]].s, Params: c[pos[colParams]].s,
 			Metric: c[pos[colMetric]].s, Score: c[pos[colScore]].f, Notes: c[pos[colNotes]].s}
 		if at, ok := pos[colDesign]; ok {
 			m.Design = c[at].s
@@ -318,81 +374,119 @@ func ReadModels(r io.Reader, format string) ([]ModelRow, error) {
 		}
 		if at, ok := pos[colFeatures]; ok && c[at].s != "" {
 			if err := json.Unmarshal([]byte(c[at].s), &m.Features); err != nil {
-				return nil, fmt.Errorf("tables: models row %d (series %q): %s: %w", i+1, m.Series, colFeatures, err)
+				return nil, fmt.Errorf("tables: models row %d (series %q): %s: %w", i+1, m.Key, colFeatures, err)
 			}
 		}
 		for h, at := range steps {
 			if c[at].null {
 				for _, later := range steps[h:] {
 					if !c[later].null {
-						return nil, fmt.Errorf("tables: models row %d (series %q): %s%d absent but a later step is set", i+1, m.Series, errPrefix, h+1)
+						return nil, fmt.Errorf("tables: models row %d (series %q): %s%d absent but a later step is set", i+1, m.Key, errPrefix, h+1)
 					}
 				}
 				break
 			}
 			m.BacktestErrors = append(m.BacktestErrors, c[at].f)
 		}
-		out[i] = m
+		out = append(out, m)
 	}
 	return out, nil
 }
 
-var evaluationColumns = []column{{colSeries, text}, {colPoints, integer}, {colMetric, text}, {colExpected, number},
+var evaluationColumns = []column{{colPoints, integer}, {colMetric, text}, {colExpected, number},
 	{colRealized, number}, {colDrifted, flag}, {colPrevious, text}}
 
-// WriteEvaluation writes an evaluation table: series, points, metric, expected, realized,
-// drifted, previous_run.
-func WriteEvaluation(w io.Writer, format string, rows []EvaluationRow) error {
-	g := grid{cols: evaluationColumns, rows: make([][]cell, len(rows))}
-	for i, r := range rows {
-		g.rows[i] = []cell{{s: r.Series}, {n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
+// WriteEvaluation writes an evaluation table: the key columns keys, points, metric, expected,
+// realized, drifted, previous_run.
+func WriteEvaluation(w io.Writer, format string, keys []string, rows []EvaluationRow) error {
+	g, err := keyedGrid(keys, evaluationColumns, len(rows), func(i int) (string, []cell) {
+		r := rows[i]
+		return r.Key, []cell{{n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
+	})
+	if err != nil {
+		return wrap("evaluation", err)
 	}
 	return wrap("evaluation", write(w, format, g))
 }
 
-// ReadEvaluation reads a table written by WriteEvaluation.
-func ReadEvaluation(r io.Reader, format string) ([]EvaluationRow, error) {
-	g, pos, err := readFixed(r, format, "evaluation", evaluationColumns)
+// ReadEvaluation reads a table written by WriteEvaluation with the key columns keys.
+func ReadEvaluation(r io.Reader, format string, keys []string) ([]EvaluationRow, error) {
+	g, pos, kr, err := readFixed(r, format, "evaluation", keys, evaluationColumns)
 	if err != nil {
 		return nil, err
 	}
-	out := make([]EvaluationRow, len(g.rows))
-	for i, c := range g.rows {
-		out[i] = EvaluationRow{Series: c[pos[colSeries]].s, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
+	out := make([]EvaluationRow, 0, len(g.rows))
+	for _, c := range g.rows {
+		key, ok := kr.key(c)
+		if !ok {
+			continue
+		}
+		out = append(out, EvaluationRow{Key: key, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
 			Expected: c[pos[colExpected]].f, Realized: c[pos[colRealized]].f, Drifted: c[pos[colDrifted]].b,
-			PreviousRun: c[pos[colPrevious]].s}
+			PreviousRun: c[pos[colPrevious]].s})
 	}
 	return out, nil
 }
 
-var rejectedColumns = []column{{colSeries, text}, {colReason, text}}
+var rejectedColumns = []column{{colReason, text}}
 
-// WriteRejected writes a rejected table: series, reason. The run layout always uses CSV for it,
-// so a person can read it without tools.
-func WriteRejected(w io.Writer, format string, rows []RejectedRow) error {
-	g := grid{cols: rejectedColumns, rows: make([][]cell, len(rows))}
-	for i, r := range rows {
-		g.rows[i] = []cell{{s: r.Series}, {s: r.Reason}}
+// WriteRejected writes a rejected table: the key columns keys, reason. The run layout always
+// uses CSV for it, so a person can read it without tools.
+func WriteRejected(w io.Writer, format string, keys []string, rows []RejectedRow) error {
+	g, err := keyedGrid(keys, rejectedColumns, len(rows), func(i int) (string, []cell) {
+		return rows[i].Key, []cell{{s: rows[i].Reason}}
+	})
+	if err != nil {
+		return wrap("rejected", err)
 	}
 	return wrap("rejected", write(w, format, g))
 }
 
-// ReadRejected reads a table written by WriteRejected.
-func ReadRejected(r io.Reader, format string) ([]RejectedRow, error) {
-	g, pos, err := readFixed(r, format, "rejected", rejectedColumns)
+// ReadRejected reads a table written by WriteRejected with the key columns keys.
+func ReadRejected(r io.Reader, format string, keys []string) ([]RejectedRow, error) {
+	g, pos, kr, err := readFixed(r, format, "rejected", keys, rejectedColumns)
 	if err != nil {
 		return nil, err
 	}
-	out := make([]RejectedRow, len(g.rows))
-	for i, c := range g.rows {
-		out[i] = RejectedRow{Series: c[pos[colSeries]].s, Reason: c[pos[colReason]].s}
+	out := make([]RejectedRow, 0, len(g.rows))
+	for _, c := range g.rows {
+		if key, ok := kr.key(c); ok {
+			out = append(out, RejectedRow{Key: key, Reason: c[pos[colReason]].s})
+		}
 	}
 	return out, nil
 }
 
-// readFixed reads a table whose columns are exactly cols (in any order).
-func readFixed(r io.Reader, format, name string, cols []column) (grid, map[string]int, error) {
+// keyedGrid builds a table of the key columns keys followed by cols; row(i) gives row i's key
+// and its cells of cols.
+func keyedGrid(keys []string, cols []column, n int, row func(i int) (string, []cell)) (grid, error) {
+	kc, err := keyColumns(keys)
+	if err != nil {
+		return grid{}, err
+	}
+	g := grid{cols: append(kc, cols...), rows: make([][]cell, n)}
+	ks := keySplitter{n: len(keys)}
+	for i := range n {
+		key, rest := row(i)
+		c, err := ks.appendCells(make([]cell, 0, len(g.cols)), key)
+		if err != nil {
+			return grid{}, fmt.Errorf("row %d: %w", i, err)
+		}
+		g.rows[i] = append(c, rest...)
+	}
+	return g, nil
+}
+
+// readFixed reads a table whose columns are the key columns keys and exactly cols (in any
+// order).
+func readFixed(r io.Reader, format, name string, keys []string, cols []column) (grid, map[string]int, keyReader, error) {
+	if err := CheckKeys(keys); err != nil {
+		return grid{}, nil, keyReader{}, wrap(name, err)
+	}
 	g, err := read(r, format, name, func(n string) (kind, bool) {
+		if isKeyColumn(keys, n) {
+			return text, true
+		}
 		for _, c := range cols {
 			if c.name == n {
 				return c.kind, true
@@ -401,7 +495,7 @@ func readFixed(r io.Reader, format, name string, cols []column) (grid, map[strin
 		return 0, false
 	})
 	if err != nil {
-		return grid{}, nil, err
+		return grid{}, nil, keyReader{}, err
 	}
 	names := make([]string, len(cols))
 	for i, c := range cols {
@@ -409,9 +503,13 @@ func readFixed(r io.Reader, format, name string, cols []column) (grid, map[strin
 	}
 	pos, err := g.need(names...)
 	if err != nil {
-		return grid{}, nil, wrap(name, err)
+		return grid{}, nil, keyReader{}, wrap(name, err)
 	}
-	return g, pos, nil
+	kr, err := keysOf(g, keys)
+	if err != nil {
+		return grid{}, nil, keyReader{}, wrap(name, err)
+	}
+	return g, pos, kr, nil
 }
 
 func wrap(table string, err error) error {

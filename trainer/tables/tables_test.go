@@ -7,19 +7,26 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"almanac.dev/almanac/trainer/ingest"
 )
 
 var formats = []string{CSV, Parquet}
+
+// keys are the sample tables' key columns, as a portfolio's source.columns.series names them.
+var keys = []string{"depot", "item"}
+
+func key(depot, item string) string { return ingest.JoinKey(depot, item) }
 
 func week(d int) time.Time { return time.Date(2026, 12, 7+7*d, 0, 0, 0, 0, time.UTC) }
 
 // Fenwick Lane Provisions (invented): weekly forecasts for two depot items.
 func sampleForecasts() (Header, []ForecastRow) {
-	h := Header{Quantiles: []float64{0.05, 0.1, 0.5, 0.9, 0.975}}
+	h := Header{Keys: keys, Quantiles: []float64{0.05, 0.1, 0.5, 0.9, 0.975}}
 	rows := []ForecastRow{
-		{Series: "harbour/rye-loaf", Period: week(0), Step: 1, Model: "ETS(A,N,N)", Mean: 13.25, Quantiles: []float64{9, 10.1, 13.25, 16.4, 17.5}},
-		{Series: "harbour/rye-loaf", Period: week(1), Step: 2, Model: "ETS(A,N,N)", Mean: 13.25, Quantiles: []float64{8.5, 9.75, 13.25, 16.75, 18}},
-		{Series: "north/oat-flakes-1kg", Period: week(0), Step: 1, Model: "Theta", Mean: 1.0 / 3, Quantiles: []float64{0, 0, 1.0 / 3, math.Inf(1), math.NaN()}},
+		{Key: key("harbour", "rye-loaf"), Period: week(0), Step: 1, Model: "ETS(A,N,N)", Mean: 13.25, Quantiles: []float64{9, 10.1, 13.25, 16.4, 17.5}},
+		{Key: key("harbour", "rye-loaf"), Period: week(1), Step: 2, Model: "ETS(A,N,N)", Mean: 13.25, Quantiles: []float64{8.5, 9.75, 13.25, 16.75, 18}},
+		{Key: key("north", "oat-flakes-1kg"), Period: week(0), Step: 1, Model: "Theta", Mean: 1.0 / 3, Quantiles: []float64{0, 0, 1.0 / 3, math.Inf(1), math.NaN()}},
 	}
 	return h, rows
 }
@@ -33,7 +40,7 @@ func TestForecastsRoundTrip(t *testing.T) {
 		if err := WriteForecasts(&buf, f, h, rows); err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
-		gh, got, err := ReadForecasts(bytes.NewReader(buf.Bytes()), f)
+		gh, got, err := ReadForecasts(bytes.NewReader(buf.Bytes()), f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
@@ -45,7 +52,7 @@ func TestForecastsRoundTrip(t *testing.T) {
 		}
 		for i := range rows {
 			w, g := rows[i], got[i]
-			if g.Series != w.Series || !g.Period.Equal(w.Period) || g.Step != w.Step || g.Model != w.Model || !sameFloat(g.Mean, w.Mean) {
+			if g.Key != w.Key || !g.Period.Equal(w.Period) || g.Step != w.Step || g.Model != w.Model || !sameFloat(g.Mean, w.Mean) {
 				t.Errorf("%s row %d: %+v, want %+v", f, i, g, w)
 			}
 			for j := range w.Quantiles {
@@ -64,8 +71,8 @@ func TestForecastsCSVLayout(t *testing.T) {
 	if err := WriteForecasts(&buf, CSV, h, rows[2:]); err != nil {
 		t.Fatal(err)
 	}
-	want := "series,period,step,model,mean,q5,q10,q50,q90,q97.5\n" +
-		"north/oat-flakes-1kg,2026-12-07T00:00:00Z,1,Theta,0.3333333333333333,0,0,0.3333333333333333,+Inf,NaN\n"
+	want := "depot,item,period,step,model,mean,q5,q10,q50,q90,q97.5\n" +
+		"north,oat-flakes-1kg,2026-12-07T00:00:00Z,1,Theta,0.3333333333333333,0,0,0.3333333333333333,+Inf,NaN\n"
 	if buf.String() != want {
 		t.Errorf("got\n%s\nwant\n%s", buf.String(), want)
 	}
@@ -85,10 +92,10 @@ func TestWritersAreDeterministic(t *testing.T) {
 			t.Errorf("%s: two writes of the same rows differ", f)
 		}
 		var m1, m2 bytes.Buffer
-		if err := WriteModels(&m1, f, sampleModels()); err != nil {
+		if err := WriteModels(&m1, f, keys, sampleModels()); err != nil {
 			t.Fatal(err)
 		}
-		if err := WriteModels(&m2, f, sampleModels()); err != nil {
+		if err := WriteModels(&m2, f, keys, sampleModels()); err != nil {
 			t.Fatal(err)
 		}
 		if !bytes.Equal(m1.Bytes(), m2.Bytes()) {
@@ -99,36 +106,36 @@ func TestWritersAreDeterministic(t *testing.T) {
 
 func sampleModels() []ModelRow {
 	return []ModelRow{
-		{Series: "harbour/rye-loaf", Model: "ETS(A,N,N)", Params: "alpha=0.31", BacktestErrors: []float64{0.8, 0.9, 1.1}, Metric: "MASE", Score: 0.93, Notes: "filled 1 interior missing values by linear interpolation"},
-		{Series: "north/oat-flakes-1kg", Model: "Naive", Params: "", BacktestErrors: []float64{1.2}, Metric: "MASE", Score: 1.2, Notes: "backtest horizon shortened to 1, \"short\""},
-		{Series: "south/barley-5kg", Model: "Mean", Metric: "MASE", Score: math.NaN(), Notes: "constant series: backtest skipped"},
+		{Key: key("harbour", "rye-loaf"), Model: "ETS(A,N,N)", Params: "alpha=0.31", BacktestErrors: []float64{0.8, 0.9, 1.1}, Metric: "MASE", Score: 0.93, Notes: "filled 1 interior missing values by linear interpolation"},
+		{Key: key("north", "oat-flakes-1kg"), Model: "Naive", Params: "", BacktestErrors: []float64{1.2}, Metric: "MASE", Score: 1.2, Notes: "backtest horizon shortened to 1, \"short\""},
+		{Key: key("south", "barley-5kg"), Model: "Mean", Metric: "MASE", Score: math.NaN(), Notes: "constant series: backtest skipped"},
 	}
 }
 
 func TestModelsRoundTrip(t *testing.T) {
 	for _, f := range formats {
 		var buf bytes.Buffer
-		if err := WriteModels(&buf, f, sampleModels()); err != nil {
+		if err := WriteModels(&buf, f, keys, sampleModels()); err != nil {
 			t.Fatal(err)
 		}
-		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f)
+		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
 		want := sampleModels()
 		for i := range want {
 			w, g := want[i], got[i]
-			if g.Series != w.Series || g.Model != w.Model || g.Params != w.Params || g.Metric != w.Metric ||
+			if g.Key != w.Key || g.Model != w.Model || g.Params != w.Params || g.Metric != w.Metric ||
 				!sameFloat(g.Score, w.Score) || g.Notes != w.Notes || !reflect.DeepEqual(g.BacktestErrors, w.BacktestErrors) {
 				t.Errorf("%s row %d: %+v, want %+v", f, i, g, w)
 			}
 		}
 	}
 	var buf bytes.Buffer
-	if err := WriteModels(&buf, CSV, sampleModels()[1:2]); err != nil {
+	if err := WriteModels(&buf, CSV, keys, sampleModels()[1:2]); err != nil {
 		t.Fatal(err)
 	}
-	if want := "series,model,params,metric,score,err_h1,notes\n"; !strings.HasPrefix(buf.String(), want) {
+	if want := "depot,item,model,params,metric,score,err_h1,notes\n"; !strings.HasPrefix(buf.String(), want) {
 		t.Errorf("header %q, want %q", buf.String(), want)
 	}
 }
@@ -139,13 +146,13 @@ func TestModelsDesignColumns(t *testing.T) {
 	rows[0].Design, rows[0].Segment = "ets-theta", "weekly/smooth/long"
 	for _, f := range formats {
 		var buf bytes.Buffer
-		if err := WriteModels(&buf, f, rows); err != nil {
+		if err := WriteModels(&buf, f, keys, rows); err != nil {
 			t.Fatal(err)
 		}
 		if f == CSV && !strings.Contains(strings.SplitN(buf.String(), "\n", 2)[0], ",notes,design,segment") {
 			t.Errorf("header %q, want design and segment after notes", strings.SplitN(buf.String(), "\n", 2)[0])
 		}
-		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f)
+		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
@@ -157,30 +164,30 @@ func TestModelsDesignColumns(t *testing.T) {
 
 func TestEvaluationAndRejectedRoundTrip(t *testing.T) {
 	ev := []EvaluationRow{
-		{Series: "harbour/rye-loaf", Points: 4, Metric: "MASE", Expected: 0.93, Realized: 1.41, Drifted: true, PreviousRun: "weekly-20261130"},
-		{Series: "north/oat-flakes-1kg", Points: 0, Metric: "MASE", Expected: math.NaN(), Realized: math.NaN()},
+		{Key: key("harbour", "rye-loaf"), Points: 4, Metric: "MASE", Expected: 0.93, Realized: 1.41, Drifted: true, PreviousRun: "weekly-20261130"},
+		{Key: key("north", "oat-flakes-1kg"), Points: 0, Metric: "MASE", Expected: math.NaN(), Realized: math.NaN()},
 	}
-	rej := []RejectedRow{{Series: "east/kippers", Reason: "demand.csv line 9: column \"units\": value \"n/a\" is not a number"}}
+	rej := []RejectedRow{{Key: key("east", "kippers"), Reason: "demand.csv line 9: column \"units\": value \"n/a\" is not a number"}}
 	for _, f := range formats {
 		var b1, b2 bytes.Buffer
-		if err := WriteEvaluation(&b1, f, ev); err != nil {
+		if err := WriteEvaluation(&b1, f, keys, ev); err != nil {
 			t.Fatal(err)
 		}
-		gotEv, err := ReadEvaluation(&b1, f)
+		gotEv, err := ReadEvaluation(&b1, f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
 		for i := range ev {
 			w, g := ev[i], gotEv[i]
-			if g.Series != w.Series || g.Points != w.Points || g.Metric != w.Metric || !sameFloat(g.Expected, w.Expected) ||
+			if g.Key != w.Key || g.Points != w.Points || g.Metric != w.Metric || !sameFloat(g.Expected, w.Expected) ||
 				!sameFloat(g.Realized, w.Realized) || g.Drifted != w.Drifted || g.PreviousRun != w.PreviousRun {
 				t.Errorf("%s evaluation %d: %+v, want %+v", f, i, g, w)
 			}
 		}
-		if err := WriteRejected(&b2, f, rej); err != nil {
+		if err := WriteRejected(&b2, f, keys, rej); err != nil {
 			t.Fatal(err)
 		}
-		gotRej, err := ReadRejected(&b2, f)
+		gotRej, err := ReadRejected(&b2, f, keys)
 		if err != nil || !reflect.DeepEqual(gotRej, rej) {
 			t.Errorf("%s rejected: %v %v", f, gotRej, err)
 		}
@@ -188,13 +195,13 @@ func TestEvaluationAndRejectedRoundTrip(t *testing.T) {
 }
 
 func TestEmptyTablesRoundTrip(t *testing.T) {
-	h := Header{Quantiles: []float64{0.1, 0.9}}
+	h := Header{Keys: keys, Quantiles: []float64{0.1, 0.9}}
 	for _, f := range formats {
 		var buf bytes.Buffer
 		if err := WriteForecasts(&buf, f, h, nil); err != nil {
 			t.Fatal(err)
 		}
-		gh, rows, err := ReadForecasts(&buf, f)
+		gh, rows, err := ReadForecasts(&buf, f, keys)
 		if err != nil || len(rows) != 0 || !reflect.DeepEqual(gh, h) {
 			t.Errorf("%s: header %v rows %d err %v", f, gh, len(rows), err)
 		}
@@ -222,39 +229,41 @@ func TestBadTables(t *testing.T) {
 	if err := WriteForecasts(&bytes.Buffer{}, "json", h, rows); err == nil || !strings.Contains(err.Error(), `"json"`) {
 		t.Errorf("unknown format: %v", err)
 	}
-	if err := WriteForecasts(&bytes.Buffer{}, CSV, Header{Quantiles: []float64{0.9, 0.1}}, nil); err == nil {
+	if err := WriteForecasts(&bytes.Buffer{}, CSV, Header{Keys: keys, Quantiles: []float64{0.9, 0.1}}, nil); err == nil {
 		t.Error("decreasing quantiles accepted")
 	}
-	if err := WriteForecasts(&bytes.Buffer{}, CSV, Header{Quantiles: []float64{0.1}}, rows); err == nil || !strings.Contains(err.Error(), "harbour/rye-loaf") {
+	if err := WriteForecasts(&bytes.Buffer{}, CSV, Header{Keys: keys, Quantiles: []float64{0.1}}, rows); err == nil || !strings.Contains(err.Error(), "harbour/rye-loaf") {
 		t.Errorf("row with the wrong quantile count: %v", err)
 	}
 	cases := map[string]string{
-		"series,period,step,model\n":                                      `missing column "mean"`,
-		"series,period,step,model,mean,colour\n":                          `unexpected or repeated column "colour"`,
-		"series,period,step,model,mean\nx,2026-13-01,1,m,1\n":             `line 2 column "period"`,
-		"series,period,step,model,mean\nx,2026-12-01T00:00:00Z,one,m,1\n": `line 2 column "step"`,
+		"depot,item,period,step,model\n":                                        `missing column "mean"`,
+		"depot,item,period,step,model,mean,colour\n":                            `unexpected or repeated column "colour"`,
+		"depot,item,period,step,model,mean\nx,y,2026-13-01,1,m,1\n":             `line 2 column "period"`,
+		"depot,item,period,step,model,mean\nx,y,2026-12-01T00:00:00Z,one,m,1\n": `line 2 column "step"`,
+		"depot,period,step,model,mean\n":                                        `missing key column "item"`,
+		"depot,item,series,period,step,model,mean\n":                            `column "series" next to the key columns`,
 		"": "empty file",
 	}
 	for in, want := range cases {
-		_, _, err := ReadForecasts(strings.NewReader(in), CSV)
+		_, _, err := ReadForecasts(strings.NewReader(in), CSV, keys)
 		if err == nil || !strings.Contains(err.Error(), want) || !strings.Contains(err.Error(), "forecasts") {
 			t.Errorf("%q: err %v, want %q", in, err, want)
 		}
 	}
-	if _, err := ReadModels(strings.NewReader("series,model,params,metric,score,err_h2,notes\n"), CSV); err == nil {
+	if _, err := ReadModels(strings.NewReader("depot,item,model,params,metric,score,err_h2,notes\n"), CSV, keys); err == nil {
 		t.Error("err_h2 without err_h1 accepted")
 	}
-	if _, err := ReadModels(strings.NewReader("series,model,params,metric,score,err_h1,err_h2,notes\ns,m,,MASE,1,,2,\n"), CSV); err == nil {
+	if _, err := ReadModels(strings.NewReader("depot,item,model,params,metric,score,err_h1,err_h2,notes\ns,t,m,,MASE,1,,2,\n"), CSV, keys); err == nil {
 		t.Error("a hole in the error columns accepted")
 	}
-	if _, _, err := ReadForecasts(strings.NewReader("PAR1 not really"), Parquet); err == nil {
+	if _, _, err := ReadForecasts(strings.NewReader("PAR1 not really"), Parquet, keys); err == nil {
 		t.Error("corrupt parquet accepted")
 	}
 	var ev bytes.Buffer
-	if err := WriteEvaluation(&ev, Parquet, nil); err != nil {
+	if err := WriteEvaluation(&ev, Parquet, keys, nil); err != nil {
 		t.Fatal(err)
 	}
-	if _, _, err := ReadForecasts(&ev, Parquet); err == nil || !strings.Contains(err.Error(), "unexpected column") {
+	if _, _, err := ReadForecasts(&ev, Parquet, keys); err == nil || !strings.Contains(err.Error(), "unexpected column") {
 		t.Errorf("an evaluation file read as forecasts: %v", err)
 	}
 }

@@ -261,15 +261,12 @@ func decodeFile(path string, into any) error {
 	return nil
 }
 
-// sampleHeader is the header of the sample portfolio's input table (its source.columns);
-// synth writes the same columns as item,depot,date,units,promo,price.
-const sampleHeader = "item,depot,week_start,units,promo_flag,price\n"
-
 // writeDemand writes one CSV per depot, periods weeks ending at end and the plan for the
-// following weeks (units empty), with the sample's column names. The generator draws each
-// series' weeks in order from its own stream, so a longer history with the same start repeats
-// the earlier weeks exactly (new weeks are appended) and the weeks planned earlier happen as
-// planned.
+// following weeks (units empty), under the column names generate writes, which the sample's
+// source.columns read unchanged (trainer/synth TestSamplesReadGeneratedColumns). The generator
+// draws each series' weeks in order from its own stream, so a longer history with the same
+// start repeats the earlier weeks exactly (new weeks are appended) and the weeks planned
+// earlier happen as planned.
 func writeDemand(dir string, periods int, end time.Time, plan int) error {
 	o := synth.Options{Items: items, Depots: depots, Frequency: synth.Weekly, Periods: periods, End: end,
 		Scenario: synth.ScenarioPromotions, Future: plan}
@@ -281,14 +278,8 @@ func writeDemand(dir string, periods int, end time.Time, plan int) error {
 		if err := o.WriteCSV(&buf, d); err != nil {
 			return err
 		}
-		b := buf.Bytes()
-		nl := bytes.IndexByte(b, '\n')
-		if nl < 0 || string(b[:nl+1]) != strings.Join(o.ColumnsOf(), ",")+"\n" {
-			return fmt.Errorf("synth header changed: %q", b[:max(nl, 0)])
-		}
-		b = append([]byte(sampleHeader), b[nl+1:]...)
 		path := filepath.Join(dir, synth.ObjectKey(d, synth.CSV))
-		if err := os.WriteFile(path+".tmp", b, 0o644); err != nil {
+		if err := os.WriteFile(path+".tmp", buf.Bytes(), 0o644); err != nil {
 			return err
 		}
 		if err := os.Rename(path+".tmp", path); err != nil {
@@ -387,6 +378,14 @@ func show(ctx context.Context, kubectl, kubeconfig, trainer, output string) erro
 	fmt.Println()
 	fmt.Println("$ almanac-trainer inspect --output " + output)
 	if err := command(ctx, trainer, "inspect", "--output", output); err != nil {
+		return err
+	}
+	// One series by its key columns: its models row and forecast rows.
+	o := synth.Options{Items: items, Depots: depots, Frequency: synth.Weekly}
+	sel := fmt.Sprintf("item=%s,depot=%s", o.ItemName(0), synth.DepotName(0))
+	fmt.Println()
+	fmt.Printf("$ almanac-trainer inspect --output %s --series %s\n", output, sel)
+	if err := command(ctx, trainer, "inspect", "--output", output, "--series", sel); err != nil {
 		return err
 	}
 	fmt.Println()

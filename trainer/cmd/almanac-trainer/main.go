@@ -250,6 +250,7 @@ func inspect(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs.SetOutput(stderr)
 	out := fs.String("output", "", "output `URI` of the portfolio")
 	run := fs.String("run", "", "run `name` (default: the run latest.json points at)")
+	sel := fs.String("series", "", "show one series, by its key columns: `item=X,depot=Y` (fields quoted as in CSV when a value holds a comma or quote)")
 	if err := fs.Parse(args); err != nil {
 		return exitcode.Config
 	}
@@ -257,7 +258,13 @@ func inspect(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "almanac-trainer inspect: --output is required")
 		return exitcode.Config
 	}
-	if err := pipeline.Inspect(ctx, *out, *run, stdout); err != nil {
+	var err error
+	if *sel != "" {
+		err = pipeline.InspectSeries(ctx, *out, *run, *sel, stdout)
+	} else {
+		err = pipeline.Inspect(ctx, *out, *run, stdout)
+	}
+	if err != nil {
 		fmt.Fprintf(stderr, "almanac-trainer inspect: %s: %v\n", store.Redact(*out), err)
 		if errors.Is(err, pipeline.ErrConfig) {
 			return exitcode.Config
@@ -295,7 +302,8 @@ commands (people and tests):
             defaults and CEL rules, as the apiserver would; exit 2 naming every bad field
   local     all three steps in one process: --config FILE, or --input URI --output URI and
             the flags listed by 'local -h'
-  inspect   --output URI [--run NAME]: print a published run's manifest, counts and accuracy
+  inspect   --output URI [--run NAME] [--series item=X,depot=Y]: print a published run's
+            manifest, counts and accuracy, or one series' models row and forecast rows
   generate  write a synthetic Fenwick Lane Provisions dataset; 'generate -h' for flags
   report    write an HTML report of a published run (--output URI [--run NAME] [--dir DIR]); --help for flags
   bench     score the model zoo on a dataset in the M3 layout (--data DIR or --m3); --help for flags

@@ -67,7 +67,7 @@ func TestLocalGenerateInspect(t *testing.T) {
 		t.Fatalf("generate: exit %d: %s", code, errb.String())
 	}
 	args := []string{"local", "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out", "--series", "item,depot",
-		"--value", "units", "--covariates", "promo", "--models", "Naive,SeasonalNaive", "--horizon", "7", "--series-per-shard", "4",
+		"--value", "units", "--covariates", "promo_flag", "--models", "Naive,SeasonalNaive", "--horizon", "7", "--series-per-shard", "4",
 		"--partitioning", "object", "--run", "flp-local-1"}
 	out.Reset()
 	if code := run(ctx, args, &out, &errb, noenv); code != 0 {
@@ -80,6 +80,22 @@ func TestLocalGenerateInspect(t *testing.T) {
 	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out"}, &out, &errb, noenv); code != 0 ||
 		!strings.Contains(out.String(), "series: 12 (11 forecast, 1 rejected)") {
 		t.Fatalf("inspect: exit %d: %s %s", code, out.String(), errb.String())
+	}
+	// One series by its key columns: the models row and forecast rows, item and depot in columns.
+	out.Reset()
+	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out", "--series", "depot=brill,item=FLP-TEA-00001"}, &out, &errb, noenv); code != 0 ||
+		!strings.Contains(out.String(), "series item=FLP-TEA-00001,depot=brill: unit ") ||
+		!strings.Contains(out.String(), "forecasts:\nitem,depot,period,step,model,mean") ||
+		strings.Count(out.String(), "\nFLP-TEA-00001,brill,") != 8 { // the models row and 7 forecast rows
+		t.Fatalf("inspect --series: exit %d: %s %s", code, out.String(), errb.String())
+	}
+	out.Reset()
+	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out", "--series", "item=FLP-OATS-00000,depot=ashby"}, &out, &errb, noenv); code != 0 ||
+		!strings.Contains(out.String(), "rejected, no forecast: ") {
+		t.Fatalf("inspect --series of the defective series: exit %d: %s %s", code, out.String(), errb.String())
+	}
+	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out", "--series", "sku=FLP-TEA-00001"}, &out, &errb, noenv); code != exitcode.Config {
+		t.Fatalf("inspect --series with an unknown column: exit %d", code)
 	}
 	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out", "--run", "flp-nope"}, &out, &errb, noenv); code != exitcode.Config {
 		t.Fatalf("inspect of an unknown run: exit %d", code)
@@ -101,7 +117,7 @@ func TestJobSteps(t *testing.T) {
 	cfg := filepath.Join(dir, "config.json")
 	os.WriteFile(cfg, []byte(`{"run":"flp-job-1","scheduledTime":"2026-11-02T00:00:00Z",
 		"source":{"uri":"mem://flp-job-in/","format":"csv","frequency":"daily","nonNegative":true,"partitioning":"object",
-			"columns":{"series":["item","depot"],"date":"date","value":"units","covariates":["promo"]}},
+			"columns":{"series":["item","depot"],"date":"date","value":"units","covariates":["promo_flag"]}},
 		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantiles":[0.1,0.9],
 		"zoo":[{"family":"Naive"},{"family":"SeasonalNaive"}],"selection":{"metric":"MASE","origins":2,"step":1},
 		"sharding":{"targetSeriesPerShard":4},"drift":{"thresholdRatio":1.3,"minEvaluatedPoints":3}}`), 0o644)
