@@ -228,6 +228,12 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(scraped).To(ContainSubstring(fmt.Sprintf(`almanac_accuracy_realized{metric="MASE",namespace=%q,portfolio="fenwick-daily"} 0.6`, ns)))
 		Expect(scraped).To(ContainSubstring(fmt.Sprintf(`almanac_run_duration_seconds_count{namespace=%q,portfolio="fenwick-daily",result="succeeded"} 1`, ns)))
 		Expect(scraped).NotTo(ContainSubstring(fmt.Sprintf(`almanac_shards_pending{namespace=%q,portfolio="fenwick-daily"`, ns)))
+		// The portfolio's conditions, and its counters from 0 so the first failure is an increase.
+		Eventually(current.scrape).Should(And(
+			ContainSubstring(fmt.Sprintf(`almanac_portfolio_condition{namespace=%q,portfolio="fenwick-daily",reason="RunSucceeded",type="Ready"} 1`, ns)),
+			ContainSubstring(fmt.Sprintf(`almanac_portfolio_condition{namespace=%q,portfolio="fenwick-daily",reason="WithinThreshold",type="AccuracyDrift"} 0`, ns)),
+			ContainSubstring(fmt.Sprintf(`almanac_runs_total{namespace=%q,portfolio="fenwick-daily",result="failed"} 0`, ns)),
+			ContainSubstring(fmt.Sprintf(`almanac_schedule_missed_total{namespace=%q,portfolio="fenwick-daily"} 0`, ns))))
 
 		// kubectl shows date columns relative to the real clock: wait until the schedule time
 		// the fake clock ran ahead to has really passed (at most a minute).

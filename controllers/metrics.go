@@ -2,8 +2,11 @@ package controllers
 
 import (
 	"strconv"
+	"sync"
+	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
@@ -18,11 +21,21 @@ type Metrics struct {
 	parallelism   *prometheus.GaugeVec
 	expected      *prometheus.GaugeVec
 	realized      *prometheus.GaugeVec
+	conditions    *prometheus.GaugeVec
+	missed        *prometheus.CounterVec
+
+	mu sync.Mutex
+	// missedDue is, per "namespace/portfolio", the schedule time whose misses were counted last.
+	missedDue map[string]time.Time
 }
+
+// RunResults are the values of almanac_runs_total's result label.
+var RunResults = []string{"succeeded", "degraded", "failed"}
 
 // NewMetrics creates the collectors and registers them on reg.
 func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 	m := &Metrics{
+		missedDue: map[string]time.Time{},
 		runs: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "almanac_runs_total",
 			Help: "Forecast runs that ended, by result (succeeded, degraded, failed).",
@@ -49,8 +62,16 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_accuracy_realized",
 			Help: "Mean error the portfolio's last evaluated run realized on new actuals, in its metric.",
 		}, []string{"namespace", "portfolio", "metric"}),
+		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_portfolio_condition",
+			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
+		}, []string{"namespace", "portfolio", "type", "reason"}),
+		missed: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "almanac_schedule_missed_total",
+			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
+		}, []string{"namespace", "portfolio"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.conditions, m.missed} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -107,4 +128,52 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	if v, err := strconv.ParseFloat(acc.Realized, 64); err == nil {
 		m.realized.WithLabelValues(namespace, portfolio, metric).Set(v)
 	}
+}
+
+// portfolioState sets a portfolio's condition gauges and counts its missed schedule times. It
+// also creates the portfolio's counters at 0, so that the first failed run or missed schedule is
+// an increase from 0 that rate() and increase() can see, not a new series starting at 1.
+// missed schedule times are counted once per missedDue, however often a reconcile reports it.
+func (m *Metrics) portfolioState(namespace, portfolio string, conds []metav1.Condition, missed int, missedDue time.Time) {
+	if m == nil {
+		return
+	}
+	m.conditions.DeletePartialMatch(prometheus.Labels{"namespace": namespace, "portfolio": portfolio})
+	for _, c := range conds {
+		switch c.Status {
+		case metav1.ConditionTrue:
+			m.conditions.WithLabelValues(namespace, portfolio, c.Type, c.Reason).Set(1)
+		case metav1.ConditionFalse:
+			m.conditions.WithLabelValues(namespace, portfolio, c.Type, c.Reason).Set(0)
+		}
+	}
+	for _, r := range RunResults {
+		m.runs.WithLabelValues(namespace, portfolio, r)
+	}
+	counter := m.missed.WithLabelValues(namespace, portfolio)
+	if missed <= 0 {
+		return
+	}
+	key := namespace + "/" + portfolio
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if !m.missedDue[key].Equal(missedDue) {
+		m.missedDue[key] = missedDue
+		counter.Add(float64(missed))
+	}
+}
+
+// portfolioGone drops a deleted portfolio's series.
+func (m *Metrics) portfolioGone(namespace, portfolio string) {
+	if m == nil {
+		return
+	}
+	labels := prometheus.Labels{"namespace": namespace, "portfolio": portfolio}
+	m.conditions.DeletePartialMatch(labels)
+	m.missed.DeletePartialMatch(labels)
+	m.runs.DeletePartialMatch(labels)
+	m.duration.DeletePartialMatch(labels)
+	m.mu.Lock()
+	delete(m.missedDue, namespace+"/"+portfolio)
+	m.mu.Unlock()
 }

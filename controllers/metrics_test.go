@@ -2,9 +2,11 @@ package controllers
 
 import (
 	"testing"
+	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/testutil"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
@@ -43,4 +45,52 @@ func TestMetrics(t *testing.T) {
 	}
 	var none *Metrics
 	none.runProgress(run, 1, 1) // a nil *Metrics records nothing and does not panic
+	none.portfolioState("planning", "fenwick-weekly", nil, 1, time.Time{})
+}
+
+func TestPortfolioStateMetrics(t *testing.T) {
+	m, err := NewMetrics(prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	stalled := []metav1.Condition{
+		{Type: forecastingv1alpha1.PortfolioStalled, Status: metav1.ConditionTrue, Reason: "MissingSecret"},
+		{Type: forecastingv1alpha1.PortfolioReady, Status: metav1.ConditionFalse, Reason: "MissingSecret"},
+		{Type: forecastingv1alpha1.PortfolioAccuracyDrift, Status: metav1.ConditionUnknown, Reason: "NotEvaluated"},
+	}
+	m.portfolioState("depot-north", "fenwick-weekly", stalled, 0, time.Time{})
+	if got := testutil.ToFloat64(m.conditions.WithLabelValues("depot-north", "fenwick-weekly", "Stalled", "MissingSecret")); got != 1 {
+		t.Errorf("Stalled = %v, want 1", got)
+	}
+	if n := testutil.CollectAndCount(m.conditions); n != 2 {
+		t.Errorf("%d condition series, want 2 (Unknown is left out)", n)
+	}
+	// The counters exist at 0 before anything happened, so the first failure is an increase.
+	if n := testutil.CollectAndCount(m.runs); n != len(RunResults) {
+		t.Errorf("%d runs_total series after the first reconcile, want %d", n, len(RunResults))
+	}
+	if got := testutil.ToFloat64(m.missed.WithLabelValues("depot-north", "fenwick-weekly")); got != 0 {
+		t.Errorf("missed = %v, want 0", got)
+	}
+
+	// A reason change replaces the series instead of adding one.
+	fixed := []metav1.Condition{{Type: forecastingv1alpha1.PortfolioStalled, Status: metav1.ConditionFalse, Reason: "SpecValid"}}
+	due := time.Date(2026, 12, 7, 6, 0, 0, 0, time.UTC)
+	m.portfolioState("depot-north", "fenwick-weekly", fixed, 3, due)
+	if n := testutil.CollectAndCount(m.conditions); n != 1 {
+		t.Errorf("%d condition series after the reason changed, want 1", n)
+	}
+	// Reconciles that report the same missed time again count it once; a later one adds.
+	m.portfolioState("depot-north", "fenwick-weekly", fixed, 3, due)
+	m.portfolioState("depot-north", "fenwick-weekly", fixed, 1, due.Add(24*time.Hour))
+	if got := testutil.ToFloat64(m.missed.WithLabelValues("depot-north", "fenwick-weekly")); got != 4 {
+		t.Errorf("missed = %v, want 3 + 1", got)
+	}
+
+	m.portfolioGone("depot-north", "fenwick-weekly")
+	for name, c := range map[string]prometheus.Collector{"conditions": m.conditions, "missed": m.missed, "runs": m.runs} {
+		if n := testutil.CollectAndCount(c); n != 0 {
+			t.Errorf("%s: %d series after the portfolio was deleted, want 0", name, n)
+		}
+	}
 }

@@ -33,6 +33,11 @@ type portfolioPlan struct {
 	Events []runEvent
 	// RequeueAfter is when the schedule or a cooldown needs the portfolio again (0: never).
 	RequeueAfter time.Duration
+	// Missed counts schedule times that passed without a run: all of them when the most recent
+	// one, MissedDue, is past its starting deadline, the older ones when a run starts for it.
+	// Repeated reconciles report the same MissedDue again; the metric counts it once.
+	Missed    int
+	MissedDue time.Time
 }
 
 // planPortfolio computes a portfolio's status and next actions from its runs at now.
@@ -156,6 +161,7 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 		when := due.Due.UTC().Format(time.RFC3339)
 		switch {
 		case due.TooLate:
+			p.Missed, p.MissedDue = due.Missed, due.Due
 			event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonMissedSchedule,
 				"missed schedule time %s: more than startingDeadlineSeconds (%d) ago", when, *fp.Spec.StartingDeadlineSeconds)
 		case len(active) > 0 && fp.Spec.ConcurrencyPolicy == forecastingv1alpha1.ReplaceConcurrent:
@@ -178,6 +184,7 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 			set(forecastingv1alpha1.PortfolioReconciling, metav1.ConditionTrue, forecastingv1alpha1.ReasonSkippedForbidden, msg)
 		default:
 			if due.Missed > 1 {
+				p.Missed, p.MissedDue = due.Missed-1, due.Due
 				event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonMissedSchedule,
 					"%d schedule times passed since %s; starting one run for the most recent, %s",
 					due.Missed, earliest.UTC().Format(time.RFC3339), when)

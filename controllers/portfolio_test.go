@@ -63,6 +63,7 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 		wantEvents  []string
 		wantNext    time.Time
 		wantLast    *time.Time
+		wantMissed  int // schedule times passed without a run (the metric's increment)
 	}{
 		"nothing due yet": {
 			lastSchedule: ptr.To(monday), now: monday.Add(time.Hour),
@@ -74,11 +75,11 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 		},
 		"downtime: four missed, one catch-up run for the newest": {
 			now: monday.Add(time.Minute), wantCreate: "fenwick-weekly-29933550",
-			wantEvents: []string{"MissedSchedule", "RunCreated"}, wantNext: monday.AddDate(0, 0, 7),
+			wantEvents: []string{"MissedSchedule", "RunCreated"}, wantNext: monday.AddDate(0, 0, 7), wantMissed: 4,
 		},
 		"past the starting deadline: skipped and reported": {
 			lastSchedule: ptr.To(monday.AddDate(0, 0, -7)), deadline: ptr.To[int64](600), now: monday.Add(11 * time.Minute),
-			wantEvents: []string{"MissedSchedule"}, wantNext: monday.AddDate(0, 0, 7),
+			wantEvents: []string{"MissedSchedule"}, wantNext: monday.AddDate(0, 0, 7), wantMissed: 1,
 		},
 		"within the starting deadline": {
 			lastSchedule: ptr.To(monday.AddDate(0, 0, -7)), deadline: ptr.To[int64](600), now: monday.Add(9 * time.Minute),
@@ -135,6 +136,9 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 			}
 			if gotCreate != tc.wantCreate {
 				t.Errorf("create = %q, want %q", gotCreate, tc.wantCreate)
+			}
+			if p.Missed != tc.wantMissed || (p.Missed > 0 && !p.MissedDue.Equal(monday)) {
+				t.Errorf("missed = %d at %v, want %d at %v", p.Missed, p.MissedDue, tc.wantMissed, monday)
 			}
 			if diff := cmp.Diff(tc.wantReplace, p.Replace); diff != "" {
 				t.Errorf("replace (-want,+got):\n%s", diff)
