@@ -57,6 +57,10 @@ manifests: ## Generate CRDs and RBAC from the markers, and copy the CRDs into th
 	  $(CONTROLLER_GEN) rbac:roleName=manager paths=./controllers/... output:rbac:artifacts:config=config/rbac; fi
 	@if [ -d charts/almanac/crds ]; then cp config/crd/bases/*.yaml charts/almanac/crds/; fi
 
+.PHONY: monitoring-crds
+monitoring-crds: ## Regenerate the ServiceMonitor and PrometheusRule CRDs test/packaging installs (from the operator's Go types).
+	bash test/packaging/testdata/monitoring-crds/generate.sh
+
 .PHONY: controlplane
 controlplane: ## Build etcd, kube-apiserver, kube-controller-manager, kubectl into bin/k8s/<version>/ (skips what exists).
 	bash test/tools/controlplane/build.sh

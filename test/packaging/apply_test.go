@@ -153,6 +153,10 @@ func TestServerSideApply(t *testing.T) {
 		{"helm", mustRenderChart(t, "fenwick", "fenwick-system", nil), []string{"fenwick-system"}},
 		{"helm-namespaced", mustRenderChart(t, "fenwick-depots", "fenwick-depots-system", namespacedValues(t)),
 			[]string{"fenwick-depots-system", "depot-north", "depot-south"}},
+		// The monitoring objects, with the operator's CRDs installed first as a cluster with the
+		// operator has them.
+		{"helm-monitoring", append(monitoringCRDs(t), mustRenderChart(t, "fenwick-obs", "fenwick-obs-system", monitoringValues(t))...),
+			[]string{"fenwick-obs-system"}},
 	} {
 		t.Run(in.name, func(t *testing.T) {
 			manager := "almanac-" + in.name
@@ -163,13 +167,17 @@ func TestServerSideApply(t *testing.T) {
 			}
 			objs := installOrder(in.objs)
 			// Namespaced objects cannot be dry-run into a namespace that does not exist yet,
-			// so the install's own Namespace objects go in first.
+			// nor custom objects before their CRD is served, so the install's own Namespace
+			// and CRD objects go in first (as Helm installs CRDs and waits for them).
 			for _, o := range objs {
-				if o.GetKind() == "Namespace" {
+				if o.GetKind() == "Namespace" || o.GetKind() == "CustomResourceDefinition" {
 					if _, err := c.apply(ctx, o, manager, false); err != nil {
 						t.Fatalf("apply %s: %v", describe(o), err)
 					}
 				}
+			}
+			for _, o := range ofKind(objs, "CustomResourceDefinition") {
+				waitEstablished(ctx, t, c, o)
 			}
 
 			for _, o := range objs {

@@ -78,6 +78,10 @@ func TestChartSchemaRejectsWrongValues(t *testing.T) {
 		"port out of range":         {map[string]any{"metrics": map[string]any{"port": 70000}}, "port"},
 		"extra arg without dashes":  {map[string]any{"extraArgs": []any{"zap-devel"}}, "extraArgs"},
 		"trainer namespaces string": {map[string]any{"trainer": map[string]any{"serviceAccount": map[string]any{"namespaces": "depot-north"}}}, "namespaces"},
+		"unknown monitoring key":    {map[string]any{"monitoring": map[string]any{"serviceMonitor": map[string]any{"enable": true}}}, "enable"},
+		"scrape interval unitless":  {map[string]any{"monitoring": map[string]any{"serviceMonitor": map[string]any{"interval": "30"}}}, "interval"},
+		"dashboard label a number":  {map[string]any{"monitoring": map[string]any{"dashboard": map[string]any{"labels": map[string]any{"grafana_dashboard": 1}}}}, "grafana_dashboard"},
+		"dashboard namespace bad":   {map[string]any{"monitoring": map[string]any{"dashboard": map[string]any{"namespace": "Grafana"}}}, "namespace"},
 	}
 	for name, tc := range cases {
 		t.Run(name, func(t *testing.T) {
