@@ -69,10 +69,13 @@ type Combination struct {
 //     and the one-SE rule (PROJECT-NOTES.md, third and fourth sessions; it entered the list
 //     after its M3 test score had been seen, which every figure quoting it says);
 //   - ets-arima-theta: the mean of ETS, ARIMA and Theta (Petropoulos & Svetunkov 2020, "A
-//     simple combination of univariate models", IJF 36).
+//     simple combination of univariate models", IJF 36);
+//   - ets-arima-dotm-ces-median: the median of ETS, ARIMA, DOTM and CES, the same paper's M4
+//     entry, as the zoo member of that family (in the zoo only when declared by name).
 var Combinations = []Combination{
 	{Name: "ets-theta", Families: []string{models.FamilyETS, models.FamilyTheta}, Method: selection.CombineMean},
 	{Name: "ets-arima-theta", Families: []string{models.FamilyETS, models.FamilyARIMA, models.FamilyTheta}, Method: selection.CombineMean},
+	{Name: "ets-arima-dotm-ces-median", Families: []string{models.FamilyETSARIMADOTMCESMedian}},
 }
 
 // Candidate is one design: a name and the selection configuration it runs.

@@ -264,19 +264,13 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		}
 		cands = Candidates(base, o.Combinations)
 		out.Candidates = out.Candidates[:0]
-		for ci, c := range cands {
+		for _, c := range cands {
 			out.Candidates = append(out.Candidates, c.Name)
 			out.CostMillis = append(out.CostMillis, sumCost(c.Config, out.MemberCostMillis))
-			if len(cands) < 2 {
-				break
-			}
-			scores = append(scores, make([]float64, len(inner)))
-			all := make([]int, len(inner))
-			for j := range all {
-				all[j] = j
-				scores[ci][j] = math.NaN()
-			}
-			if err := scoreInner(ctx, inner, all, c, o.Workers, scores[ci]); err != nil {
+		}
+		if len(cands) > 1 {
+			scores = make([][]float64, len(cands))
+			if err := scoreInner(ctx, inner, cands, o.Workers, scores); err != nil {
 				return nil, err
 			}
 		}
@@ -406,34 +400,59 @@ func holdOut(s series.Series, h, m int) innerSeries {
 	return is
 }
 
-// scoreInner runs candidate c (without quantiles) on the inner series at positions idx and
-// writes their MASE into scores.
-func scoreInner(ctx context.Context, inner []innerSeries, idx []int, c Candidate, workers int, scores []float64) error {
-	if len(idx) == 0 {
-		return nil
+// scoreInner runs the candidates (without quantiles) on every inner series and sets scores[c]
+// to their MASE. Candidates with the same zoo share one backtest per series
+// (selection.ForecastManyVariants), so the per-series and top-k designs cost about one run.
+func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, workers int, scores [][]float64) error {
+	sub := make([]series.Series, len(inner))
+	for j, is := range inner {
+		sub[j] = is.train
 	}
-	cfg := c.Config
-	cfg.Levels = nil
-	cfg.Horizon = len(inner[idx[0]].test)
-	sub := make([]series.Series, len(idx))
-	for j, i := range idx {
-		sub[j] = inner[i].train
-	}
-	return selection.ForecastMany(ctx, sub, cfg, workers, func(j int, r selection.Result, err error) {
-		is := inner[idx[j]]
-		if !is.scaled {
-			return
+	byZoo := map[string][]int{}
+	var zoos []string
+	for ci, c := range cands {
+		k := signature(selection.Config{Zoo: c.Config.Zoo})
+		if _, ok := byZoo[k]; !ok {
+			zoos = append(zoos, k)
 		}
-		f := r.Mean
-		if err != nil || len(f) != len(is.test) || !finite(f) {
-			last := is.train.Values[len(is.train.Values)-1]
-			f = make([]float64, len(is.test))
-			for k := range f {
-				f[k] = last
+		byZoo[k] = append(byZoo[k], ci)
+		scores[ci] = make([]float64, len(inner))
+		for j := range scores[ci] {
+			scores[ci][j] = math.NaN()
+		}
+	}
+	for _, k := range zoos {
+		idx := byZoo[k]
+		cfg := cands[idx[0]].Config
+		cfg.Levels = nil
+		cfg.Horizon = len(inner[0].test)
+		variants := make([]selection.Variant, len(idx))
+		for v, ci := range idx {
+			c := cands[ci].Config
+			variants[v] = selection.Variant{CombineTop: c.CombineTop, CombineMethod: c.CombineMethod, CombineMargin: c.CombineMargin}
+		}
+		err := selection.ForecastManyVariants(ctx, sub, cfg, variants, workers, func(j int, rs []selection.Result, errs []error) {
+			is := inner[j]
+			if !is.scaled {
+				return
 			}
+			for v, ci := range idx {
+				f := rs[v].Mean
+				if errs[v] != nil || len(f) != len(is.test) || !finite(f) {
+					last := is.train.Values[len(is.train.Values)-1]
+					f = make([]float64, len(is.test))
+					for k := range f {
+						f[k] = last
+					}
+				}
+				scores[ci][j] = backtest.Score(backtest.MASE, is.test, f, is.train.Values, is.m)
+			}
+		})
+		if err != nil {
+			return err
 		}
-		scores[idx[j]] = backtest.Score(backtest.MASE, is.test, f, is.train.Values, is.m)
-	})
+	}
+	return nil
 }
 
 // choose finds the basis of segment sg (itself or coarser, the first with MinSeries scored

@@ -3,6 +3,7 @@ package selection
 import (
 	"errors"
 	"fmt"
+	"maps"
 	"math"
 	"slices"
 	"sort"
@@ -31,6 +32,11 @@ type candidate struct {
 	fcs   [][]float64
 	a     backtest.Assessment
 	score float64 // ranking score (|Bias| for Bias); NaN if not backtested
+	// the refit on the whole series, kept for the other variants (forecastVariants)
+	refitted bool
+	refitFit models.Fitted
+	refitFC  models.Forecast
+	refitErr error
 }
 
 // Forecast cleans s with cfg.Clean, backtests every zoo member on a common rolling-origin plan,
@@ -57,14 +63,35 @@ func Forecast(s series.Series, cfg Config) (Result, error) {
 	return forecast(s, cfg.withDefaults())
 }
 
-func forecast(s series.Series, cfg Config) (out Result, err error) {
+func forecast(s series.Series, cfg Config) (Result, error) {
+	rs, errs := forecastVariants(s, cfg, nil)
+	return rs[0], errs[0]
+}
+
+// forecastVariants runs forecast once up to the ranking of the backtested members, then
+// finishes it once per variant (cfg's own combination when variants is empty), with refits on
+// the whole series shared between variants. Result v equals forecast with cfg's combination
+// set to variants[v].
+func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result, []error) {
+	if len(variants) == 0 {
+		variants = []Variant{{CombineTop: cfg.CombineTop, CombineMethod: cfg.CombineMethod, CombineMargin: cfg.CombineMargin}}
+	}
+	// same gives every variant the result of a path taken before the variants part.
+	same := func(r Result, err error) ([]Result, []error) {
+		rs, errs := make([]Result, len(variants)), make([]error, len(variants))
+		for i := range rs {
+			rs[i], errs[i] = r, err
+			rs[i].Scores = maps.Clone(r.Scores)
+		}
+		return rs, errs
+	}
 	orig := s
 	s.Values = append([]float64(nil), s.Values...)
 	s.Notes = append([]string(nil), s.Notes...)
 	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric}
 	if err := series.Clean(&s, cfg.Clean); err != nil {
 		res.Notes = s.Notes
-		return res, err
+		return same(res, err)
 	}
 	y := s.Values
 	n := len(y)
@@ -74,7 +101,11 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 	}
 	notes := s.Notes
 	note := func(format string, a ...any) { notes = append(notes, fmt.Sprintf(format, a...)) }
-	defer func() { out.Notes = notes }()
+	// noted returns r with the notes taken so far (read after the call that produced r).
+	noted := func(r Result, err error) (Result, error) {
+		r.Notes = notes
+		return r, err
+	}
 
 	class, _, _ := Classify(y)
 	res.Class = class
@@ -105,7 +136,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 
 	if _, isConst := constantValue(y); isConst {
 		note("constant series: backtest skipped")
-		return finishFallback(&res, cands, y, cfg, constantOrder, note)
+		return same(noted(finishFallback(&res, cands, y, cfg, constantOrder, note)))
 	}
 
 	if cfg.RouteIntermittent && (class == ClassIntermittent || class == ClassLumpy) {
@@ -173,7 +204,7 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 	}
 	if len(ok) == 0 {
 		note("no member could be backtested: fallback order %s", strings.Join(FallbackOrder, ", "))
-		return finishFallback(&res, fit, y, cfg, FallbackOrder, note)
+		return same(noted(finishFallback(&res, fit, y, cfg, FallbackOrder, note)))
 	}
 	metric := cfg.Metric
 	if allNaN(ok) {
@@ -190,6 +221,26 @@ func forecast(s series.Series, cfg Config) (out Result, err error) {
 	}
 	ranked := rank(ok)
 
+	common := notes
+	rs, errs := make([]Result, len(variants)), make([]error, len(variants))
+	for vi, v := range variants {
+		notes = slices.Clone(common)
+		r := res
+		r.Scores = maps.Clone(res.Scores)
+		vc := cfg
+		vc.CombineTop, vc.CombineMethod, vc.CombineMargin = v.CombineTop, v.CombineMethod, v.CombineMargin
+		if vc.CombineMethod == "" {
+			vc.CombineMethod = CombineMean
+		}
+		rs[vi], errs[vi] = noted(finishRanked(r, ranked, fit, y, m, plan, metric, vc, note))
+	}
+	return rs, errs
+}
+
+// finishRanked publishes the combination of the best members when cfg asks for it and it
+// backtests well enough, else the best member that refits, else the fallback order.
+func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan backtest.Plan, metric backtest.Metric,
+	cfg Config, note func(string, ...any)) (Result, error) {
 	if cfg.CombineTop > 1 && len(ranked) >= 2 {
 		top := ranked[:min(cfg.CombineTop, len(ranked))]
 		cfc := combineAll(cfg.CombineMethod, top, func(c *candidate) [][]float64 { return c.fcs })
@@ -261,8 +312,25 @@ func safeForecasts(c *candidate, y []float64, p backtest.Plan) (f [][]float64, e
 	return backtest.ForecastsWith(c.model, y, c.m, p, c.in)
 }
 
-// refit fits c on the whole series and forecasts h steps at levels.
-func refit(c *candidate, y []float64, h int, levels []float64) (fitted models.Fitted, fc models.Forecast, err error) {
+// refit fits c on the whole series and forecasts h steps at levels, once per candidate (y,
+// h and levels are the same for every call on a candidate); the forecast returned is a copy.
+func refit(c *candidate, y []float64, h int, levels []float64) (models.Fitted, models.Forecast, error) {
+	if !c.refitted {
+		c.refitFit, c.refitFC, c.refitErr = refitOnce(c, y, h, levels)
+		c.refitted = true
+	}
+	fc := c.refitFC
+	fc.Mean = slices.Clone(fc.Mean)
+	if fc.Quantiles != nil {
+		fc.Quantiles = make([][]float64, len(c.refitFC.Quantiles))
+		for j, q := range c.refitFC.Quantiles {
+			fc.Quantiles[j] = slices.Clone(q)
+		}
+	}
+	return c.refitFit, fc, c.refitErr
+}
+
+func refitOnce(c *candidate, y []float64, h int, levels []float64) (fitted models.Fitted, fc models.Forecast, err error) {
 	defer func() {
 		if r := recover(); r != nil {
 			err = fmt.Errorf("model panicked: %v", r)

@@ -16,6 +16,37 @@ import (
 // its own error and the others carry on. ForecastMany returns an invalid cfg's error before
 // starting, or ctx.Err() when the context ends first (series not yet emitted are dropped).
 func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers int, emit func(i int, r Result, err error)) error {
+	return forecastPool(ctx, in, cfg, nil, workers, func(i int, rs []Result, errs []error) { emit(i, rs[0], errs[0]) })
+}
+
+// Variant is one combination setting of Config (CombineTop, CombineMethod, CombineMargin).
+type Variant struct {
+	CombineTop    int
+	CombineMethod string
+	CombineMargin float64
+}
+
+// ForecastManyVariants is ForecastMany for several combination settings at once: each series
+// is cleaned, backtested and ranked once, then finished once per variant, with each member's
+// refit on the whole series shared between variants. rs[v] and errs[v] equal what
+// ForecastMany returns with cfg's combination settings replaced by variants[v]; cfg's own
+// combination settings are not used. It costs about one ForecastMany, not one per variant.
+func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, variants []Variant, workers int, emit func(i int, rs []Result, errs []error)) error {
+	if len(variants) == 0 {
+		return fmt.Errorf("selection: no variants")
+	}
+	for j, v := range variants {
+		c := cfg
+		c.CombineTop, c.CombineMethod, c.CombineMargin = v.CombineTop, v.CombineMethod, v.CombineMargin
+		if err := c.Validate(); err != nil {
+			return fmt.Errorf("variants[%d]: %w", j, err)
+		}
+	}
+	return forecastPool(ctx, in, cfg, variants, workers, emit)
+}
+
+// forecastPool runs forecastVariants on every series with a pool of workers and emits in input order.
+func forecastPool(ctx context.Context, in []series.Series, cfg Config, variants []Variant, workers int, emit func(i int, rs []Result, errs []error)) error {
 	if err := cfg.Validate(); err != nil {
 		return err
 	}
@@ -29,9 +60,9 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 	workers = min(workers, max(len(in), 1))
 
 	type outcome struct {
-		i   int
-		r   Result
-		err error
+		i    int
+		rs   []Result
+		errs []error
 	}
 	jobs := make(chan int)
 	done := make(chan outcome, workers)
@@ -42,9 +73,9 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 		go func() {
 			defer wg.Done()
 			for i := range jobs {
-				r, err := protect(in[i], cfg)
+				rs, errs := protect(in[i], cfg, variants)
 				select {
-				case done <- outcome{i, r, err}:
+				case done <- outcome{i, rs, errs}:
 				case <-stop:
 					return
 				}
@@ -82,7 +113,7 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 					break
 				}
 				delete(pending, next)
-				emit(p.i, p.r, p.err)
+				emit(p.i, p.rs, p.errs)
 				next++
 			}
 		}
@@ -90,13 +121,17 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 	return nil
 }
 
-// protect runs forecast and turns a panic into that series' error.
-func protect(s series.Series, cfg Config) (r Result, err error) {
+// protect runs forecastVariants and turns a panic into that series' error for every variant.
+func protect(s series.Series, cfg Config, variants []Variant) (rs []Result, errs []error) {
 	defer func() {
 		if p := recover(); p != nil {
-			r = Result{Key: s.Key}
-			err = fmt.Errorf("selection: series %s: internal error: %v", s.Key, p)
+			n := max(len(variants), 1)
+			rs, errs = make([]Result, n), make([]error, n)
+			for i := range rs {
+				rs[i] = Result{Key: s.Key}
+				errs[i] = fmt.Errorf("selection: series %s: internal error: %v", s.Key, p)
+			}
 		}
 	}()
-	return forecast(s, cfg)
+	return forecastVariants(s, cfg, variants)
 }

@@ -284,3 +284,54 @@ func TestCombineMargin(t *testing.T) {
 		}
 	}
 }
+
+// ForecastManyVariants finishes one backtest per series several ways; each variant's result
+// must be exactly ForecastMany's with that combination setting (refits shared, never mutated
+// across variants: NonNegative clipping and quantiles included). Invented monthly demand of
+// Fenwick Lane Provisions' items with trend, season and noise; one series is constant and one
+// too short for any backtest, so the fallback paths are covered too.
+func TestForecastManyVariantsEqualsForecastMany(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 11))
+	var in []series.Series
+	for k := 0; k < 6; k++ {
+		y := make([]float64, 40+k*5)
+		for i := range y {
+			y[i] = 50 + float64(k)*3 + 0.4*float64(i) + 8*math.Sin(2*math.Pi*float64(i)/12) + rng.NormFloat64()*3
+		}
+		in = append(in, series.Series{Key: fmt.Sprintf("item-%d", k), Start: time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC), Freq: series.Monthly, Values: y})
+	}
+	in = append(in, yearly("flat", 4, 4, 4, 4, 4, 4), yearly("short", 1, 2))
+	cfg := Config{Horizon: 6, Levels: []float64{0.1, 0.9}, NonNegative: true,
+		Zoo: specs(models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyTheta, models.FamilyETS)}
+	variants := []Variant{{}, {CombineTop: 3, CombineMethod: CombineMean, CombineMargin: 1000},
+		{CombineTop: 3, CombineMethod: CombineMedian, CombineMargin: 1000}, {CombineTop: 2, CombineMargin: 0.05}}
+	got := make([][]Result, len(in))
+	gotErr := make([][]error, len(in))
+	if err := ForecastManyVariants(context.Background(), in, cfg, variants, 2, func(i int, rs []Result, errs []error) {
+		got[i], gotErr[i] = rs, errs
+	}); err != nil {
+		t.Fatal(err)
+	}
+	combined := 0
+	for v, vr := range variants {
+		c := cfg
+		c.CombineTop, c.CombineMethod, c.CombineMargin = vr.CombineTop, vr.CombineMethod, vr.CombineMargin
+		if err := ForecastMany(context.Background(), in, c, 1, func(i int, r Result, err error) {
+			g := got[i][v]
+			if fmt.Sprint(err) != fmt.Sprint(gotErr[i][v]) || fmt.Sprintf("%+v", r) != fmt.Sprintf("%+v", g) {
+				t.Errorf("variant %d, %s:\n variants %+v (%v)\n alone    %+v (%v)", v, in[i].Key, g, gotErr[i][v], r, err)
+			}
+			if r.Family == FamilyCombination {
+				combined++
+			}
+		}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if combined == 0 {
+		t.Error("no variant published a combination: the test does not exercise the shared refits")
+	}
+	if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{CombineMethod: "mode"}}, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[0]") {
+		t.Errorf("bad variant: error %v, want one naming variants[0]", err)
+	}
+}
