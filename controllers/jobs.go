@@ -91,7 +91,7 @@ type jobParams struct {
 //
 //   - plan and publish: one pod, backoffLimit = retriesPerShard, and a pod failure policy that
 //     fails the Job at once on the trainer's permanent exit codes (trainer/exitcode: 2
-//     configuration, 3 data).
+//     configuration, 3 data, 5 publish refused by the guard).
 //   - train: an Indexed Job with completions = Shards and the given parallelism,
 //     backoffLimitPerIndex = retriesPerShard, maxFailedIndexes = min(maxFailedShards, Shards),
 //     and a policy that fails the index (not the Job) at once on those exit codes.

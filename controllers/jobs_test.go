@@ -36,7 +36,7 @@ func TestBuildTrainJob(t *testing.T) {
 		"step label":         {job.Spec.Template.Labels[LabelStep], "train"},
 		"max parallel note":  {job.Annotations[annotationMaxParallel], "6"},
 		"permanent action":   {job.Spec.PodFailurePolicy.Rules[0].Action, batchv1.PodFailurePolicyActionFailIndex},
-		"permanent codes":    {job.Spec.PodFailurePolicy.Rules[0].OnExitCodes.Values, []int32{2, 3}},
+		"permanent codes":    {job.Spec.PodFailurePolicy.Rules[0].OnExitCodes.Values, []int32{2, 3, 5}},
 		"disruption ignored": {job.Spec.PodFailurePolicy.Rules[1].Action, batchv1.PodFailurePolicyActionIgnore},
 		"disruption type":    {job.Spec.PodFailurePolicy.Rules[1].OnPodConditions[0].Type, corev1.DisruptionTarget},
 	}

@@ -271,6 +271,36 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(testutil.ToFloat64(current.runsCounter(ns, "fenwick-degraded", "degraded"))).To(Equal(1.0))
 	})
 
+	It("fails the run with PublishRefused when the publish guard refuses, and says so on the portfolio", func() {
+		ns := newNamespace()
+		createSecret(ns)
+		testPortfolio(ns, "fenwick-guard", yearly, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Publish.MinPreviousPercent = ptr.To[int32](90)
+		})
+		manualRun(ns, "fenwick-guard-1", "fenwick-guard")
+		succeedSingle(ns, "fenwick-guard-1", stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 1, Series: 359})
+		// The apiserver defaults the rest of spec.publish; all three reach the trainer.
+		Expect(configOf(ns, "fenwick-guard-1")["publish"]).To(Equal(map[string]any{
+			"minForecastPercent": 80.0, "minPreviousPercent": 90.0, "maxCarriedForwardPercent": 50.0}))
+		train := getJob(ns, "fenwick-guard-1", stepTrain)
+		finishShards(train, []int{0}, nil, func(int) summary.Summary { return summary.Summary{Series: 359, Rejected: 359} })
+		completeJob(train)
+		Eventually(phaseOf(ns, "fenwick-guard-1")).Should(Equal(forecastingv1alpha1.PhasePublishing))
+		publish := getJob(ns, "fenwick-guard-1", stepPublish)
+		refusal := "publish refused, latest.json left as it was: 0 of 359 planned series forecast, the guard needs 80% (publish.minForecastPercent)"
+		runPod(publish, 0, 0, 5, message(summary.Summary{Kind: summary.KindPublish, Refused: true, Units: 1, Series: 359, Rejected: 359, Error: refusal}))
+		failJob(publish, batchv1.JobReasonPodFailurePolicy)
+		Eventually(phaseOf(ns, "fenwick-guard-1")).Should(Equal(forecastingv1alpha1.PhaseFailed))
+		c := meta.FindStatusCondition(getRun(ns, "fenwick-guard-1").Status.Conditions, forecastingv1alpha1.RunSucceeded)
+		Expect(c.Reason).To(Equal(forecastingv1alpha1.ReasonPublishRefused))
+		Expect(c.Message).To(Equal(refusal))
+		Eventually(eventReasonsFor(ns, "fenwick-guard-1")).Should(ContainElement(forecastingv1alpha1.ReasonPublishRefused))
+		Eventually(conditionOf(getPortfolio(ns, "fenwick-guard"), forecastingv1alpha1.PortfolioReady)).Should(Equal("False/RunFailed"))
+		Expect(meta.FindStatusCondition(getPortfolio(ns, "fenwick-guard").Status.Conditions, forecastingv1alpha1.PortfolioReady).Message).To(
+			ContainSubstring("(PublishRefused): " + refusal))
+		Expect(getPortfolio(ns, "fenwick-guard").Status.LastSuccessfulRun).To(BeEmpty())
+	})
+
 	It("fails the run when more shards fail than allowed, and never publishes", func() {
 		ns := newNamespace()
 		createSecret(ns)

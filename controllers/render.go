@@ -121,10 +121,25 @@ func renderConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1a
 		ThresholdRatio:     float64(orDefault(spec.Drift.ThresholdPercent, defaultThresholdPercent)) / 100,
 		MinEvaluatedPoints: seriesMinPoints(int(orDefault(spec.Drift.MinEvaluatedPoints, defaultMinPoints)), c.Horizon),
 	}
+	pub := spec.Publish
+	c.Publish = &runconfig.Publish{
+		MinForecastPercent:       percentOr(pub.MinForecastPercent, runconfig.DefaultPublish.MinForecastPercent),
+		MinPreviousPercent:       percentOr(pub.MinPreviousPercent, runconfig.DefaultPublish.MinPreviousPercent),
+		MaxCarriedForwardPercent: percentOr(pub.MaxCarriedForwardPercent, runconfig.DefaultPublish.MaxCarriedForwardPercent),
+	}
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("portfolio %s/%s: %w", fp.Namespace, fp.Name, err)
 	}
 	return c, nil
+}
+
+// percentOr is *p, or def when the apiserver did not default it (runconfig.DefaultPublish
+// holds the API's defaults).
+func percentOr(p *int32, def int) int {
+	if p == nil {
+		return def
+	}
+	return int(*p)
 }
 
 // renderModel maps one zoo member; errors start with the field below spec.models[i].

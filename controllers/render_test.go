@@ -89,9 +89,25 @@ func TestRenderConfig(t *testing.T) {
 		Sharding: runconfig.Sharding{TargetSeriesPerShard: 2000},
 		// Portfolio minimum 100 over all series; one series is judged on a full horizon (12).
 		Drift: runconfig.Drift{Metric: "MASE", ThresholdRatio: 1.25, MinEvaluatedPoints: 12},
+		// spec.publish left out: the API's defaults.
+		Publish: &runconfig.Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50},
 	}
 	if diff := cmp.Diff(want, got); diff != "" {
 		t.Errorf("renderConfig (-want,+got):\n%s", diff)
+	}
+}
+
+// spec.publish's percents reach the trainer as they are, 0 included (a check turned off).
+func TestRenderPublishGuard(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Publish = forecastingv1alpha1.PublishSpec{MinForecastPercent: ptr.To[int32](0), MinPreviousPercent: ptr.To[int32](95),
+		MaxCarriedForwardPercent: ptr.To[int32](100)}
+	got, err := renderConfig(fp, fenwickRun("fenwick-weekly-29933550"), "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := (runconfig.Publish{MinPreviousPercent: 95, MaxCarriedForwardPercent: 100}); got.Publish == nil || *got.Publish != want {
+		t.Fatalf("publish = %+v, want %+v", got.Publish, want)
 	}
 }
 

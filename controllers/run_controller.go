@@ -396,6 +396,11 @@ func (r *RunReconciler) publish(ctx context.Context, run *forecastingv1alpha1.Fo
 	}
 	s, ok, serr := r.readStep(ctx, run, stepPublish, summary.KindPublish)
 	if outcome == jobFailed {
+		if ok && serr == nil && s.Refused {
+			// The publish guard: nothing was published, the previous run stays.
+			r.finish(run, w, false, forecastingv1alpha1.ReasonPublishRefused, s.Error)
+			return nil
+		}
 		r.finish(run, w, false, forecastingv1alpha1.ReasonPublishFailed, stepFailure("publish", reason, message, s, serr))
 		return nil
 	}

@@ -282,6 +282,42 @@ type ForecastPortfolioSpec struct {
 	// +optional
 	// +kubebuilder:default={}
 	Drift DriftSpec `json:"drift,omitempty"`
+
+	// publish is the publish guard: the least a run must forecast before it replaces the
+	// published forecasts. A run below it fails with reason PublishRefused, naming its counts
+	// and the most frequent rejection reasons, and the previous run stays published.
+	// +optional
+	// +kubebuilder:default={}
+	Publish PublishSpec `json:"publish,omitempty"`
+}
+
+// PublishSpec is the publish guard; each check is off at its permissive end (0, or 100 for
+// the cap).
+type PublishSpec struct {
+	// minForecastPercent: the series with a published forecast (this run's, and those of
+	// units carried forward) must be at least this percent of the series the run planned.
+	// Default 80.
+	// +optional
+	// +kubebuilder:default=80
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	MinForecastPercent *int32 `json:"minForecastPercent,omitempty"`
+
+	// minPreviousPercent: they must also be at least this percent of the series the previous
+	// published run forecast (not checked on a first run). Default 80.
+	// +optional
+	// +kubebuilder:default=80
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	MinPreviousPercent *int32 `json:"minPreviousPercent,omitempty"`
+
+	// maxCarriedForwardPercent: at most this percent of the run's units may be carried
+	// forward from an earlier run or have no forecast at all. Default 50.
+	// +optional
+	// +kubebuilder:default=50
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	MaxCarriedForwardPercent *int32 `json:"maxCarriedForwardPercent,omitempty"`
 }
 
 // DataSource locates the input table (long format: one row per series and period).

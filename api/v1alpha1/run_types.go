@@ -82,6 +82,9 @@ const (
 	ReasonNameTooLong = "NameTooLong"
 	// ReasonInvalidConfig: the portfolio spec could not be rendered into a run configuration.
 	ReasonInvalidConfig = "InvalidConfig"
+	// ReasonPublishRefused: the publish guard (spec.publish) found too few forecasts; the run
+	// published nothing and the portfolio's latest forecasts are the previous run's.
+	ReasonPublishRefused = "PublishRefused"
 )
 
 // ForecastRunStatus is the observed state of a run.

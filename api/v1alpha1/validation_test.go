@@ -103,6 +103,9 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Sharding.MaxParallel).To(Equal(int32(8)))
 		Expect(fp.Spec.Drift.ThresholdPercent).To(Equal(int32(130)))
 		Expect(fp.Spec.Drift.Action).To(Equal(forecastingv1alpha1.DriftReport))
+		Expect(*fp.Spec.Publish.MinForecastPercent).To(Equal(int32(80)))
+		Expect(*fp.Spec.Publish.MinPreviousPercent).To(Equal(int32(80)))
+		Expect(*fp.Spec.Publish.MaxCarriedForwardPercent).To(Equal(int32(50)))
 	})
 
 	It("accepts a full features declaration and keeps it as written", func() {
@@ -331,6 +334,12 @@ var _ = Describe("CRD validation", func() {
 		Entry("a design cost budget below the simplest design", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(99), "spec", "selection", "designCostPercent") },
 			want:   []string{"spec.selection.designCostPercent", "greater than or equal to 100"}}),
+		Entry("a publish guard above 100%", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(101), "spec", "publish", "minForecastPercent") },
+			want:   []string{"spec.publish.minForecastPercent", "less than or equal to 100"}}),
+		Entry("a negative carried-forward cap", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, int64(-1), "spec", "publish", "maxCarriedForwardPercent") },
+			want:   []string{"spec.publish.maxCarriedForwardPercent", "greater than or equal to 0"}}),
 		Entry("a combination with design PerSeries", invalidCase{
 			mutate: func(u *unstructured.Unstructured) {
 				set(u, "PerSeries", "spec", "selection", "design")

@@ -14,7 +14,11 @@ const (
 	Data = 3
 	// Transient: storage was unreachable, timed out or refused for a reason that may pass. Retried.
 	Transient = 4
+	// Refused: publish found too few forecasts to replace the published ones (the run
+	// configuration's publish guard) and left latest.json where it was. Permanent: the same
+	// shard outputs give the same verdict.
+	Refused = 5
 )
 
 // Permanent lists the codes on which retrying a shard cannot succeed.
-var Permanent = []int32{Config, Data}
+var Permanent = []int32{Config, Data, Refused}

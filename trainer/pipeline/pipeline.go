@@ -54,7 +54,7 @@ func (e Env) now() time.Time {
 
 // ExitCode maps an error from this package to the trainer's exit code: configuration errors
 // (ErrConfig, a bad URI or key, refused credentials) 2, broken input 3, storage failures that
-// may pass 4, anything else 1. Refused credentials count as configuration: retrying with the
+// may pass 4, a run the publish guard refused 5, anything else 1. Refused credentials count as configuration: retrying with the
 // same Secret cannot help.
 func ExitCode(err error) int {
 	switch {
@@ -63,6 +63,8 @@ func ExitCode(err error) int {
 	case errors.Is(err, ErrConfig), errors.Is(err, store.ErrBadURI), errors.Is(err, store.ErrBadKey),
 		errors.Is(err, store.ErrPermission):
 		return exitcode.Config
+	case errors.Is(err, ErrRefused):
+		return exitcode.Refused
 	case errors.Is(err, ingest.ErrBrokenInput):
 		return exitcode.Data
 	case errors.Is(err, ErrStorage), errors.Is(err, context.DeadlineExceeded):

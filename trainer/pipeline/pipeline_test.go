@@ -300,10 +300,18 @@ func TestVanishedObjectIsCarriedForward(t *testing.T) {
 		!strings.HasPrefix(e.Files[0].Key, "runs/flp-0001/") {
 		t.Fatalf("summary %+v, entry %+v", ss, e)
 	}
-	// A third run with the object still gone carries it forward again, from the original run.
+	// A third run with the object still gone at plan time forecasts 4 series against the 6
+	// flp-0002 published: the default publish guard (80% of the previous run) refuses it.
 	cfg3 := testConfig("flp-0003", cfg.Source.URI, cfg.Output.URI)
 	cfg3.Source.Partitioning = runconfig.PartitionObject
-	if _, err := RunLocal(ctx, cfg3, testEnv()); err != nil {
+	if _, err := RunLocal(ctx, cfg3, testEnv()); ExitCode(err) != exitcode.Refused ||
+		!strings.Contains(err.Error(), "4 series forecast against 6 published by flp-0002") {
+		t.Fatalf("third run: exit %d, %v; want the guard's refusal", ExitCode(err), err)
+	}
+	checkPublished(t, out, "flp-0002")
+	// Declared smaller, the portfolio publishes it.
+	cfg3.Publish = &runconfig.Publish{MinForecastPercent: 50, MinPreviousPercent: 50, MaxCarriedForwardPercent: 50}
+	if _, err := RunPublish(ctx, cfg3, testEnv()); err != nil {
 		t.Fatal(err)
 	}
 	m3 := checkPublished(t, out, "flp-0003")
@@ -314,6 +322,8 @@ func TestVanishedObjectIsCarriedForward(t *testing.T) {
 
 func TestFailedShardOnFirstRunIsMissing(t *testing.T) {
 	dir, cfg := objectRun(t)
+	// 4 of 7 series forecast: below the default publish guard, which this test turns off.
+	cfg.Publish = &runconfig.Publish{MaxCarriedForwardPercent: 100}
 	ctx := context.Background()
 	ps, err := RunPlan(ctx, cfg, testEnv())
 	if err != nil {

@@ -20,7 +20,12 @@ import (
 // unit, whose files are verified the same way, and is carried forward; a unit with neither is
 // missing. Then it writes MANIFEST.json and, only after that, replaces latest.json.
 //
-// Missing units do not fail publish: the other units' forecasts are good and are published,
+// Before writing anything, the run must pass the publish guard (runconfig.Publish, see
+// guard); a run below it writes no manifest and fails with ErrRefused, naming its counts and
+// the most frequent rejection reasons, so a run that lost its series never replaces good
+// forecasts.
+//
+// Missing units do not fail publish on their own: the other units' forecasts are good and are published,
 // and the manifest says complete: false, lists the missing units and the summary counts them
 // (summary.Missing), so nothing claims a completeness it lacks. Publish fails (and moves
 // nothing) when the plan cannot be read or storage fails; rerunning it gives the same bytes,
@@ -45,6 +50,21 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 		m.Totals.add(e)
 	}
 	m.Complete = m.Totals.Missing == 0
+	sum.Units = m.Totals.Units
+	sum.CarriedForward = m.Totals.CarriedForward
+	sum.Missing = m.Totals.Missing
+	sum.Series = m.Totals.Series.Series
+	sum.Trained = m.Totals.Series.Trained
+	sum.Rejected = m.Totals.Series.Rejected
+	if verdict := guard(cfg.PublishGuard(), p, prev, &m); verdict != "" {
+		sum.Refused = true
+		reasons, err := topReasons(ctx, out, cfg.Run, cfg.Source.Columns.Series, &m, 3)
+		if err != nil {
+			return sum, err
+		}
+		env.logf("publish: %s: refused: %s", cfg.Run, verdict)
+		return sum, fmt.Errorf("publish refused, latest.json left as it was: %s%s: %w", verdict, reasons, ErrRefused)
+	}
 	key := store.RunKey(cfg.Run, store.ManifestName)
 	b, err := json.MarshalIndent(m, "", "  ")
 	if err != nil {
@@ -57,12 +77,6 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	if !moved {
 		env.logf("publish: %s: latest.json already names a later run built on this one; left as it is", cfg.Run)
 	}
-	sum.Units = m.Totals.Units
-	sum.CarriedForward = m.Totals.CarriedForward
-	sum.Missing = m.Totals.Missing
-	sum.Series = m.Totals.Series.Series
-	sum.Trained = m.Totals.Series.Trained
-	sum.Rejected = m.Totals.Series.Rejected
 	sum.Accuracy = m.Totals.Accuracy
 	sum.Manifest = key
 	env.logf("publish: %s: %d units (%d carried forward, %d missing)", cfg.Run, sum.Units, sum.CarriedForward, sum.Missing)

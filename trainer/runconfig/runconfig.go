@@ -46,6 +46,34 @@ type Config struct {
 	Selection Selection        `json:"selection"`
 	Sharding  Sharding         `json:"sharding"`
 	Drift     Drift            `json:"drift"`
+	// Publish is the publish guard; nil means DefaultPublish.
+	Publish *Publish `json:"publish,omitempty"`
+}
+
+// Publish is the least a run must forecast before publish moves latest.json to it; below
+// it publish writes no manifest, exits exitcode.Refused and the published run stays. The
+// fields are integer percents, as in the portfolio's spec.publish; 0 turns a check off.
+type Publish struct {
+	// MinForecastPercent: the series with a published forecast (this run's and carried-forward
+	// units') must be at least this percent of the series plan counted.
+	MinForecastPercent int `json:"minForecastPercent"`
+	// MinPreviousPercent: they must also be at least this percent of the series the previous
+	// run published (no check on a first run).
+	MinPreviousPercent int `json:"minPreviousPercent"`
+	// MaxCarriedForwardPercent: at most this percent of the plan's units may be carried
+	// forward or missing (100 turns the check off).
+	MaxCarriedForwardPercent int `json:"maxCarriedForwardPercent"`
+}
+
+// DefaultPublish is the guard of a configuration without one, and the API's defaults.
+var DefaultPublish = Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50}
+
+// PublishGuard returns the configured guard or DefaultPublish.
+func (c *Config) PublishGuard() Publish {
+	if c.Publish == nil {
+		return DefaultPublish
+	}
+	return *c.Publish
 }
 
 // Source says where the input series live and how to read them.
@@ -215,6 +243,16 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("selection.designCostLimit: %v is not 0 (the default) or a ratio in [1, 1000]", c.Selection.DesignCostLimit)
 	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
 		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
+	}
+	if g := c.Publish; g != nil {
+		for _, f := range []struct {
+			name string
+			v    int
+		}{{"minForecastPercent", g.MinForecastPercent}, {"minPreviousPercent", g.MinPreviousPercent}, {"maxCarriedForwardPercent", g.MaxCarriedForwardPercent}} {
+			if f.v < 0 || f.v > 100 {
+				return fmt.Errorf("publish.%s: %d is not a percent in [0, 100]", f.name, f.v)
+			}
+		}
 	}
 	for i, q := range c.Quantiles {
 		if !(q > 0 && q < 1) || (i > 0 && q <= c.Quantiles[i-1]) {

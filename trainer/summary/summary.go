@@ -52,6 +52,9 @@ type Summary struct {
 	// Missing counts units with neither this run's output nor a previous forecast; the
 	// manifest then says the run is incomplete.
 	Missing int `json:"missing,omitempty"`
+	// Refused is true when the publish guard refused the run (exit 5): Error says why, with
+	// the counts and the most frequent rejection reasons; latest.json was not moved.
+	Refused bool `json:"refused,omitempty"`
 }
 
 // Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,

@@ -309,11 +309,14 @@ commands (people and tests):
   bench     score the model zoo on a dataset in the M3 layout (--data DIR or --m3); --help for flags
   version   print the version
 
-exit codes (stable; the train Job fails a shard at once on 2 and 3 and retries 1 and 4):
-  0  ok (publish also exits 0 when units are missing: the manifest then says complete: false)
+exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retry 1 and 4):
+  0  ok (publish also exits 0 when units are missing within the publish guard: the manifest
+     then says complete: false)
   1  internal error
   2  configuration error: bad config or flags, unknown model, bad URI, refused credentials
   3  broken input data: an object that cannot be read as a table, or that vanished after plan
   4  transient storage error: timeouts, refused connections, server errors
+  5  publish refused: fewer series forecast than the run's publish guard needs, or too many
+     units carried forward; no manifest is written and latest.json stays where it was
 `)
 }

@@ -1,0 +1,118 @@
+package pipeline
+
+import (
+	"context"
+	"errors"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
+)
+
+// runToPublish plans and trains every shard of cfg (shard errors are ignored: the tests
+// break shards on purpose) and returns publish's summary and error.
+func runToPublish(t *testing.T, cfg *runconfig.Config, beforeTrain func()) (int, error) {
+	t.Helper()
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatalf("plan: %v", err)
+	}
+	if beforeTrain != nil {
+		beforeTrain()
+	}
+	for i := 0; i < ps.Shards; i++ {
+		RunTrain(ctx, cfg, i, testEnv())
+	}
+	s, err := RunPublish(ctx, cfg, testEnv())
+	if err != nil && (!s.Refused || s.Series == 0 && s.Units == 0) {
+		t.Logf("publish summary %+v", s)
+	}
+	return s.Trained, err
+}
+
+// publishedObjectRun publishes objectRun's first run flp-0001 and returns the directory, its
+// configuration and that of a second run flp-0002 on the same input and output.
+func publishedObjectRun(t *testing.T) (string, *runconfig.Config, *runconfig.Config) {
+	t.Helper()
+	dir, cfg := objectRun(t)
+	if _, errs := runAll(t, cfg); errs[0] != nil {
+		t.Fatal(errs)
+	}
+	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
+	cfg2.Source.Partitioning = runconfig.PartitionObject
+	return dir, cfg, cfg2
+}
+
+// refusedLeavesLatest checks a refused publish: exit 5, no manifest for the run, latest.json
+// still on good, and the error text holding each of want.
+func refusedLeavesLatest(t *testing.T, cfg *runconfig.Config, good string, err error, want ...string) {
+	t.Helper()
+	if ExitCode(err) != exitcode.Refused || !errors.Is(err, ErrRefused) {
+		t.Fatalf("publish: exit %d, %v; want exit %d", ExitCode(err), err, exitcode.Refused)
+	}
+	for _, w := range want {
+		if !strings.Contains(err.Error(), w) {
+			t.Errorf("refusal lacks %q:\n%v", w, err)
+		}
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	checkPublished(t, out, good)
+	if ok, err := out.Exists(context.Background(), store.RunKey(cfg.Run, store.ManifestName)); ok || err != nil {
+		t.Fatalf("refused run %s has a manifest (%v)", cfg.Run, err)
+	}
+}
+
+// Issue 18 case 1: daily data read as monthly rejects every series; before the guard such a
+// run published 0 forecasts, said complete and moved latest.json off the good run.
+func TestGuardRefusesRunThatLostItsSeries(t *testing.T) {
+	_, _, cfg2 := publishedObjectRun(t)
+	cfg2.Source.Frequency = "monthly"
+	trained, err := runToPublish(t, cfg2, nil)
+	if trained != 0 {
+		t.Fatalf("%d series trained as monthly, want 0", trained)
+	}
+	refusedLeavesLatest(t, cfg2, "flp-0001", err,
+		"0 of 7 planned series forecast, the guard needs 80%",
+		"0 series forecast against 6 published by flp-0001",
+		"top rejection reasons: ", " series: ")
+	s, _ := RunPublish(context.Background(), cfg2, testEnv())
+	if !s.Refused || s.Series != 7 || s.Rejected != 7 || s.Units != 3 {
+		t.Fatalf("refused summary %+v", s)
+	}
+	// With the guard off the same run publishes, as every run did before the guard.
+	cfg2.Publish = &runconfig.Publish{MaxCarriedForwardPercent: 100}
+	if _, err := RunPublish(context.Background(), cfg2, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	checkPublished(t, mustOpen(t, cfg2.Output.URI), "flp-0002")
+}
+
+// Two of three units fail: more than the default cap of 50% would be carried forward.
+func TestGuardCapsCarriedForwardUnits(t *testing.T) {
+	dir, _, cfg2 := publishedObjectRun(t)
+	_, err := runToPublish(t, cfg2, func() {
+		for _, f := range []string{"depot-ashby.csv", "depot-corrie.csv"} {
+			if err := os.Remove(filepath.Join(dir, "in", f)); err != nil {
+				t.Fatal(err)
+			}
+		}
+	})
+	refusedLeavesLatest(t, cfg2, "flp-0001", err,
+		"2 of 3 units carried forward or missing, the guard allows 50%", "units not trained: ", "no unit.json")
+}
+
+func TestGuardValidation(t *testing.T) {
+	cfg := testConfig("flp-0001", "mem://in/", "mem://out/")
+	if g := cfg.PublishGuard(); g != runconfig.DefaultPublish {
+		t.Fatalf("no publish section: guard %+v, want the defaults", g)
+	}
+	cfg.Publish = &runconfig.Publish{MinForecastPercent: 101}
+	if err := cfg.Validate(); err == nil || !strings.Contains(err.Error(), "publish.minForecastPercent") {
+		t.Fatalf("101%%: %v", err)
+	}
+}
