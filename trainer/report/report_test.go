@@ -10,6 +10,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"testing"
@@ -520,8 +521,25 @@ func TestReportOfPublishedRun(t *testing.T) {
 			t.Errorf("page lacks %q", s)
 		}
 	}
-	if idx := tableRows(byID(t, doc, "all-series")); len(idx) != len(portfolio) {
+	idx := tableRows(byID(t, doc, "all-series"))
+	if len(idx) != len(portfolio) {
 		t.Errorf("index has %d rows, want %d", len(idx), len(portfolio))
+	}
+	// Key columns are columns of the index, named as in the input, the cells as they were.
+	var heads []string
+	for _, th := range all(byID(t, doc, "all-series"), tag("th")) {
+		heads = append(heads, text(th))
+	}
+	if len(heads) < 3 || heads[0] != "item" || heads[1] != "depot" {
+		t.Errorf("index header %q, want item, depot first", heads)
+	}
+	for _, row := range idx {
+		if !slices.ContainsFunc(portfolio, func(s testSeries) bool { return s.key == row[0]+"/"+row[1] }) {
+			t.Errorf("index row %q: item and depot are not a series of the portfolio", row)
+		}
+	}
+	if h3 := all(figs[0], tag("h3")); len(h3) == 0 || !strings.HasPrefix(text(h3[0]), "item oat-flakes-1kg, depot harrow") {
+		t.Errorf("first drawn series is titled %q, want it named by its key columns", text(h3[0]))
 	}
 }
 
