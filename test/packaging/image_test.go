@@ -29,6 +29,7 @@ import (
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/synth"
 )
 
 // The images `make images` built (bin/almanac-*.oci.tar) are read here as OCI image layouts:
@@ -548,7 +549,7 @@ func TestTrainerImageRuns(t *testing.T) {
 	mustRun("generate", "--output", "file:///tmp/in/", "--items", "20", "--depots", "3", "--periods", "200", "--end", "2026-11-01", "--bad", "1")
 	c := runconfig.Config{Run: "flp-image", Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC),
 		Source: runconfig.Source{URI: "file:///tmp/in/", Format: "csv", Frequency: "daily", NonNegative: true, Partitioning: runconfig.PartitionObject,
-			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo"}}},
+			Columns: runconfig.Columns{Series: []string{synth.ColItem, synth.ColDepot}, Date: synth.ColDate, Value: synth.ColUnits, Covariates: []string{synth.ColPromo}}},
 		Output:    runconfig.Output{URI: "file:///tmp/out", Format: "parquet"},
 		Horizon:   14,
 		Quantiles: []float64{0.1, 0.5, 0.9},
