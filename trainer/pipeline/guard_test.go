@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"os"
@@ -114,5 +115,61 @@ func TestGuardValidation(t *testing.T) {
 	cfg.Publish = &runconfig.Publish{MinForecastPercent: 101}
 	if err := cfg.Validate(); err == nil || !strings.Contains(err.Error(), "publish.minForecastPercent") {
 		t.Fatalf("101%%: %v", err)
+	}
+}
+
+// Issue 18 case 1: an object rewritten between plan and train. Before, train read the new
+// rows, forecast fewer series than planned and publish called the run complete; now the
+// object counts as broken (exit 3, naming it) and its unit is carried forward.
+func TestObjectChangedSincePlanIsBroken(t *testing.T) {
+	dir, _, cfg2 := publishedObjectRun(t)
+	corrie := filepath.Join(dir, "in", "depot-corrie.csv")
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg2, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(corrie, depotCSV("corrie", []string{"FLP-TEA-80"}, 42, ""), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	failed := 0
+	for i := 0; i < ps.Shards; i++ {
+		if _, err := RunTrain(ctx, cfg2, i, testEnv()); err != nil {
+			failed++
+			if ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "depot-corrie.csv changed since plan") {
+				t.Fatalf("shard %d: exit %d, %v; want exit 3 naming the changed object", i, ExitCode(err), err)
+			}
+		}
+	}
+	s, err := RunPublish(ctx, cfg2, testEnv())
+	if failed != 1 || err != nil || s.CarriedForward != 1 || s.Trained != 6 {
+		t.Fatalf("%d shards failed; publish %+v, %v", failed, s, err)
+	}
+}
+
+// The same on hash buckets, where every shard reads every object, and with a rewrite of the
+// same size: the version tag tells it apart.
+func TestSameSizeRewriteSincePlanIsBroken(t *testing.T) {
+	in := mustOpen(t, "mem://flp-rewrite-in/")
+	putInput(t, in)
+	cfg := testConfig("flp-0001", "mem://flp-rewrite-in/in/", "mem://flp-rewrite-out/")
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := in.Get(ctx, "in/depot-ashby.csv")
+	if err != nil {
+		t.Fatal(err)
+	}
+	i := bytes.LastIndexByte(b[:len(b)-1], '\n') + 1 // the last row: change one digit of it
+	b[i+len("FLP-TEA-80,ashby,2026-03-01,")] ^= 1
+	if err := in.Put(ctx, "in/depot-ashby.csv", b); err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < ps.Shards; i++ {
+		if _, err := RunTrain(ctx, cfg, i, testEnv()); ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "depot-ashby.csv changed since plan") {
+			t.Fatalf("shard %d: exit %d, %v; want exit 3 naming the changed object", i, ExitCode(err), err)
+		}
 	}
 }

@@ -45,10 +45,14 @@ type Plan struct {
 	Rows   int64 `json:"rows"`
 }
 
-// Object is one input object as plan saw it.
+// Object is one input object as plan saw it: train compares Size and ETag with the object it
+// reads and treats one that changed as broken (source.unchanged).
 type Object struct {
 	Key  string `json:"key"`
 	Size int64  `json:"size"`
+	// ETag is the store's version tag of the object at plan time ("" when the backend has none,
+	// and in plans written before it was recorded).
+	ETag string `json:"etag,omitempty"`
 }
 
 // Unit is a stable piece of input. Exactly one of Object and Bucket applies: an object unit
@@ -288,6 +292,15 @@ func (p *Plan) Validate() error {
 		}
 	}
 	return nil
+}
+
+// object returns the listed object with the given key.
+func (p *Plan) object(key string) (Object, bool) {
+	i := sort.Search(len(p.Objects), func(i int) bool { return p.Objects[i].Key >= key })
+	if i < len(p.Objects) && p.Objects[i].Key == key {
+		return p.Objects[i], true
+	}
+	return Object{}, false
 }
 
 // unit returns the unit with the given id.

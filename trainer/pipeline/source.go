@@ -75,7 +75,7 @@ func (s *source) list(ctx context.Context) ([]Object, error) {
 		if err != nil {
 			return nil, inputErr(err)
 		}
-		return []Object{{Key: s.single, Size: info.Size}}, nil
+		return []Object{{Key: s.single, Size: info.Size, ETag: info.ETag}}, nil
 	}
 	objs, err := s.st.List(ctx, "")
 	if err != nil {
@@ -91,7 +91,32 @@ func (s *source) list(ctx context.Context) ([]Object, error) {
 	if len(out) == 0 {
 		return nil, fmt.Errorf("%s: no %s objects: %w", s.st.String(), ext, ingest.ErrBrokenInput)
 	}
+	// Listing gives no version tag; one metadata request per object does (plan reads every
+	// object anyway).
+	for i, o := range out {
+		info, err := s.st.Stat(ctx, o.Key)
+		if err != nil {
+			return nil, inputErr(err)
+		}
+		out[i].Size, out[i].ETag = info.Size, info.ETag
+	}
 	return out, nil
+}
+
+// unchanged checks that the object is still the one plan listed: same size and, when both
+// sides have one, the same version tag. A changed object is broken input for this run: its
+// rows may no longer match the units and counts the plan cut, so a shard reading it would
+// silently forecast other series than planned.
+func (s *source) unchanged(ctx context.Context, o Object) error {
+	info, err := s.st.Stat(ctx, o.Key)
+	if err != nil {
+		return inputErr(err)
+	}
+	if info.Size != o.Size || (o.ETag != "" && info.ETag != "" && info.ETag != o.ETag) {
+		return fmt.Errorf("%s changed since plan (size %d, version %s; plan recorded size %d, version %s): %w",
+			s.st.Describe(o.Key), info.Size, orNone(info.ETag), o.Size, orNone(o.ETag), ingest.ErrBrokenInput)
+	}
+	return nil
 }
 
 // scan streams the rows of one object (Parquet: the row groups in groups, nil for all).

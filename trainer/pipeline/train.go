@@ -227,7 +227,10 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 			byBucket[u.Bucket] = l
 			continue
 		}
-		l.err = src.scan(ctx, u.Object, u.Groups, func(r ingest.Row) error { c.Add(r); return nil })
+		o, _ := p.object(u.Object)
+		if l.err = src.unchanged(ctx, o); l.err == nil {
+			l.err = src.scan(ctx, u.Object, u.Groups, func(r ingest.Row) error { c.Add(r); return nil })
+		}
 		if err := fatal(ctx, l.err); err != nil {
 			return nil, err
 		}
@@ -235,6 +238,9 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 	if len(byBucket) > 0 {
 		var scanErr error
 		for _, o := range p.Objects {
+			if scanErr = src.unchanged(ctx, o); scanErr != nil {
+				break
+			}
 			scanErr = src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
 				if l, ok := byBucket[BucketOf(r.Key, p.Buckets)]; ok {
 					collectors[l.unit.ID].Add(r)
