@@ -446,6 +446,7 @@ type DataOutput struct {
 // +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || self.family in ['Croston', 'SBA', 'TSB']",message="smoothing settings are only for families Croston, SBA and TSB"
 // +kubebuilder:validation:XValidation:rule="!has(self.smoothing) || !has(self.smoothing.beta) || self.family == 'TSB'",message="smoothing.beta is only for family TSB"
 // +kubebuilder:validation:XValidation:rule="!has(self.regression) || self.family in ['Ridge', 'Lasso', 'GradientBoosting']",message="regression settings are only for families Ridge, Lasso and GradientBoosting"
+// +kubebuilder:validation:XValidation:rule="!has(self.seasonalPeriods) || self.family in ['MSTLETS', 'MSTLTheta', 'MSTLARIMA', 'FourierARIMA']",message="seasonalPeriods are only for families MSTLETS, MSTLTheta, MSTLARIMA and FourierARIMA"
 // +kubebuilder:validation:XValidation:rule="!has(self.regression) || !has(self.regression.penalty) || self.family in ['Ridge', 'Lasso']",message="regression.penalty is only for families Ridge and Lasso"
 type ModelSpec struct {
 	// family of the model.
@@ -467,8 +468,8 @@ type ModelSpec struct {
 
 	// seasonalPeriods overrides the cycles the multi-seasonal families (MSTL*, FourierARIMA)
 	// model, as decimals from 2 to 8784, e.g. ["24", "168"]. Default: the frequency's (Hourly 24
-	// and 168, Daily 7 and 365.25, Weekly 52.18, Monthly 12, Quarterly 4, Yearly none). Other
-	// families ignore it.
+	// and 168, Daily 7 and 365.25, Weekly 52.18, Monthly 12, Quarterly 4, Yearly none). Only
+	// for those families.
 	// +optional
 	// +listType=atomic
 	// +kubebuilder:validation:MaxItems=4

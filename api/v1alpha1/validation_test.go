@@ -297,6 +297,16 @@ var _ = Describe("CRD validation", func() {
 				set(u, []any{map[string]any{"family": "Theta", "ets": map[string]any{"trends": []any{"N"}}}}, "spec", "models")
 			},
 			want: []string{"spec.models[0]", "ets settings are only for family ETS"}}),
+		Entry("seasonal periods on Theta", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "Theta", "seasonalPeriods": []any{"24"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0]", "seasonalPeriods are only for families MSTLETS"}}),
+		Entry("seasonal period not a decimal", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, []any{map[string]any{"family": "MSTLETS", "seasonalPeriods": []any{"weekly"}}}, "spec", "models")
+			},
+			want: []string{"spec.models[0].seasonalPeriods[0]", "should match"}}),
 		Entry("multiplicative ETS trend", invalidCase{
 			mutate: func(u *unstructured.Unstructured) {
 				set(u, []any{map[string]any{"family": "ETS", "ets": map[string]any{"trends": []any{"M"}}}}, "spec", "models")
