@@ -1,6 +1,8 @@
 package main
 
 import (
+	"os/exec"
+	"slices"
 	"strings"
 	"testing"
 
@@ -33,6 +35,27 @@ func TestParseFlags(t *testing.T) {
 			t.Errorf("parseFlags(%v) accepted", bad)
 		} else if !strings.Contains(err.Error(), strings.TrimLeft(strings.SplitN(bad[0], "=", 2)[0], "-")) {
 			t.Errorf("parseFlags(%v) error %q does not name the flag", bad, err)
+		}
+	}
+}
+
+// TestControllerLinksNoEngine: the controller binary links the contracts with the trainer (run
+// configuration, summary, exit codes) but none of the forecasting engine: no model, learner
+// or gonum package. The engine is the trainer's; the controller only writes its configuration.
+func TestControllerLinksNoEngine(t *testing.T) {
+	out, err := exec.Command("go", "list", "-deps", ".").Output()
+	if err != nil {
+		t.Skipf("go list: %v", err)
+	}
+	deps := strings.Fields(string(out))
+	if !slices.Contains(deps, "almanac.dev/almanac/trainer/runconfig") {
+		t.Fatalf("go list -deps . does not list trainer/runconfig; the check below would prove nothing:\n%s", out)
+	}
+	for _, p := range deps {
+		if strings.HasPrefix(p, "almanac.dev/almanac/trainer/models") || strings.HasPrefix(p, "almanac.dev/almanac/trainer/learn") ||
+			strings.HasPrefix(p, "almanac.dev/almanac/trainer/features") || strings.HasPrefix(p, "almanac.dev/almanac/trainer/selection") ||
+			strings.HasPrefix(p, "gonum.org/") {
+			t.Errorf("the controller depends on %s", p)
 		}
 	}
 }

@@ -203,9 +203,14 @@ func shardSummary(i int) summary.Summary {
 
 // configOf decodes the run's rendered configuration.
 func configOf(ns, run string) map[string]any {
+	var out map[string]any
+	Expect(json.Unmarshal([]byte(configText(ns, run)), &out)).To(Succeed())
+	return out
+}
+
+// configText is the run's config.json as the controller wrote it.
+func configText(ns, run string) string {
 	var cm corev1.ConfigMap
 	Expect(k8sClient.Get(ctx(), types.NamespacedName{Namespace: ns, Name: configMapName(run)}, &cm)).To(Succeed())
-	var out map[string]any
-	Expect(json.Unmarshal([]byte(cm.Data["config.json"]), &out)).To(Succeed())
-	return out
+	return cm.Data["config.json"]
 }

@@ -102,14 +102,14 @@ type jobParams struct {
 // seccomp) with no service-account token, and is deleted ttlSecondsAfterFinished after it ends.
 func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha1.ForecastRun, s step, p jobParams) *batchv1.Job {
 	sh := fp.Spec.Sharding
-	retries := ptr.Deref(sh.RetriesPerShard, defaultRetriesPerShard)
+	retries := ptr.Deref(sh.RetriesPerShard, 0)
 	labels := runLabels(run)
 	labels[LabelStep] = string(s)
 	job := &batchv1.Job{
 		ObjectMeta: metav1.ObjectMeta{Name: jobName(run.Name, s), Namespace: run.Namespace, Labels: labels},
 		Spec: batchv1.JobSpec{
 			ActiveDeadlineSeconds:   sh.ActiveDeadlineSeconds,
-			TTLSecondsAfterFinished: ptr.To(ptr.Deref(fp.Spec.Trainer.TTLSecondsAfterFinished, defaultTTLSeconds)),
+			TTLSecondsAfterFinished: fp.Spec.Trainer.TTLSecondsAfterFinished,
 			Template: corev1.PodTemplateSpec{
 				ObjectMeta: metav1.ObjectMeta{Labels: labels},
 				Spec:       podSpec(fp, run, s),
@@ -121,8 +121,8 @@ func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha
 		permanent = batchv1.PodFailurePolicyActionFailIndex
 		maxFailed := min(ptr.Deref(sh.MaxFailedShards, 0), p.Shards)
 		job.Annotations = map[string]string{
-			annotationMaxParallel: strconv.Itoa(int(orDefault(sh.MaxParallel, defaultMaxParallel))),
-			annotationShareWeight: strconv.Itoa(int(orDefault(sh.ShareWeight, defaultShareWeight))),
+			annotationMaxParallel: strconv.Itoa(int(max(1, sh.MaxParallel))),
+			annotationShareWeight: strconv.Itoa(int(max(1, sh.ShareWeight))),
 		}
 		job.Spec.CompletionMode = ptr.To(batchv1.IndexedCompletion)
 		job.Spec.Completions = ptr.To(p.Shards)
@@ -163,7 +163,7 @@ func podSpec(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha1
 	c := corev1.Container{
 		Name:            trainerContainer,
 		Image:           t.Image,
-		ImagePullPolicy: orDefault(t.ImagePullPolicy, corev1.PullIfNotPresent),
+		ImagePullPolicy: t.ImagePullPolicy,
 		Args: []string{string(s), "--config", configMountPath + "/" + runconfig.FileName,
 			"--termination-log", terminationLogPath},
 		Env: []corev1.EnvVar{
@@ -218,7 +218,7 @@ func podSpec(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha1
 }
 
 // jobShareLimits reads the sharding limits a train Job was created with (see buildJob); values
-// that are missing or malformed fall back to the API defaults.
+// that are missing or malformed fall back to 1, the least either may be.
 func jobShareLimits(job *batchv1.Job) (maxParallel, weight int32) {
 	read := func(key string, def int32) int32 {
 		v, err := strconv.Atoi(job.Annotations[key])
@@ -227,5 +227,5 @@ func jobShareLimits(job *batchv1.Job) (maxParallel, weight int32) {
 		}
 		return int32(v)
 	}
-	return read(annotationMaxParallel, defaultMaxParallel), read(annotationShareWeight, defaultShareWeight)
+	return read(annotationMaxParallel, 1), read(annotationShareWeight, 1)
 }

@@ -119,7 +119,7 @@ func TestBuildJobWithoutSecret(t *testing.T) {
 func TestJobShareLimitsFallBack(t *testing.T) {
 	job := &batchv1.Job{}
 	job.Annotations = map[string]string{annotationMaxParallel: "zero", annotationShareWeight: "-3"}
-	if p, w := jobShareLimits(job); p != defaultMaxParallel || w != defaultShareWeight {
-		t.Errorf("jobShareLimits = %d, %d; want the defaults", p, w)
+	if p, w := jobShareLimits(job); p != 1 || w != 1 {
+		t.Errorf("jobShareLimits = %d, %d; want 1 and 1, the least either may be", p, w)
 	}
 }

@@ -18,7 +18,10 @@ import (
 	"k8s.io/utils/ptr"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
+	"almanac.dev/almanac/api/render"
+	"almanac.dev/almanac/api/render/rendertest"
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -28,6 +31,14 @@ const yearly = "0 4 1 1 *"
 // testPortfolio is a Fenwick Lane Provisions portfolio (invented distributor): daily demand
 // per item and depot, credentials in the Secret "fenwick-s3".
 func testPortfolio(ns, name, schedule string, mutate func(*forecastingv1alpha1.ForecastPortfolio)) *forecastingv1alpha1.ForecastPortfolio {
+	fp := portfolioSpec(ns, name, schedule, mutate)
+	ExpectWithOffset(1, k8sClient.Create(ctx(), fp)).To(Succeed())
+	DeferCleanup(func() { _ = k8sClient.Delete(ctx(), fp) })
+	return fp
+}
+
+// portfolioSpec is testPortfolio's object as built in Go, before the apiserver defaults it.
+func portfolioSpec(ns, name, schedule string, mutate func(*forecastingv1alpha1.ForecastPortfolio)) *forecastingv1alpha1.ForecastPortfolio {
 	fp := &forecastingv1alpha1.ForecastPortfolio{
 		ObjectMeta: metav1.ObjectMeta{Name: name, Namespace: ns},
 		Spec: forecastingv1alpha1.ForecastPortfolioSpec{
@@ -48,8 +59,6 @@ func testPortfolio(ns, name, schedule string, mutate func(*forecastingv1alpha1.F
 	if mutate != nil {
 		mutate(fp)
 	}
-	ExpectWithOffset(1, k8sClient.Create(ctx(), fp)).To(Succeed())
-	DeferCleanup(func() { _ = k8sClient.Delete(ctx(), fp) })
 	return fp
 }
 
@@ -155,10 +164,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 	It("renders the config, plans, trains shards, publishes, and folds every shard once", func() {
 		ns := newNamespace()
 		createSecret(ns)
-		fp := testPortfolio(ns, "fenwick-daily", "* * * * *", func(fp *forecastingv1alpha1.ForecastPortfolio) {
+		mutate := func(fp *forecastingv1alpha1.ForecastPortfolio) {
 			fp.Spec.Sharding.MaxParallel = 3
 			fp.Spec.Suspend = ptr.To(false)
-		})
+		}
+		fp := testPortfolio(ns, "fenwick-daily", "* * * * *", mutate)
 		due := dueAfter(fp, time.Minute)
 		poke(ns, fp.Name)
 		name := runName(fp.Name, due)
@@ -167,8 +177,24 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(plan.Spec.Template.Spec.Containers[0].Args).To(HaveExactElements("plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log"))
 		Expect(metav1.IsControlledBy(plan, getRun(ns, name))).To(BeTrue())
 		conf := configOf(ns, name)
-		Expect(conf["quantiles"]).To(Equal([]any{0.1, 0.5, 0.9}))
+		Expect(conf["quantilePercents"]).To(Equal([]any{10.0, 50.0, 90.0}))
 		Expect(conf["run"]).To(Equal(name))
+		// The ConfigMap is the trainer's strict, versioned file, unchanged by a decode and
+		// encode; and the same spec defaulted offline from the generated CRD (as
+		// almanac-trainer validate, render and local -f do) renders the very same bytes.
+		raw := configText(ns, name)
+		parsed, err := runconfig.Parse([]byte(raw), "ConfigMap "+configMapName(name))
+		Expect(err).NotTo(HaveOccurred())
+		again, err := runconfig.Encode(parsed)
+		Expect(err).NotTo(HaveOccurred())
+		Expect(string(again)).To(Equal(raw))
+		offline := rendertest.Default(portfolioSpec(ns, "fenwick-daily", "* * * * *", mutate))
+		offline.Generation = getPortfolio(ns, "fenwick-daily").Generation
+		rendered, err := render.RunConfig(offline, getRun(ns, name), "")
+		Expect(err).NotTo(HaveOccurred())
+		b, err := runconfig.Encode(&rendered)
+		Expect(err).NotTo(HaveOccurred())
+		Expect(string(b)).To(Equal(raw))
 		Eventually(phaseOf(ns, name)).Should(Equal(forecastingv1alpha1.PhasePlanning))
 		Expect(metav1.IsControlledBy(getRun(ns, name), getPortfolio(ns, "fenwick-daily"))).To(BeTrue())
 

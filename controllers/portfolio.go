@@ -82,8 +82,8 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 		last := succeeded[len(succeeded)-1]
 		st.LastSuccessfulRun, st.LastSuccessfulTime = last.Name, last.Status.CompletionTime
 	}
-	p.Prune = append(p.Prune, pruneNames(succeeded, ptr.Deref(fp.Spec.SuccessfulRunsHistoryLimit, 3))...)
-	p.Prune = append(p.Prune, pruneNames(failed, ptr.Deref(fp.Spec.FailedRunsHistoryLimit, 1))...)
+	p.Prune = append(p.Prune, pruneNames(succeeded, fp.Spec.SuccessfulRunsHistoryLimit)...)
+	p.Prune = append(p.Prune, pruneNames(failed, fp.Spec.FailedRunsHistoryLimit)...)
 
 	// Accuracy and drift come from the newest finished run that evaluated any series.
 	finished := append(append([]*forecastingv1alpha1.ForecastRun{}, succeeded...), failed...)
@@ -202,7 +202,7 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 		}
 	}
 	if len(active) == 0 && driftStatus == metav1.ConditionTrue && fp.Spec.Drift.Action == forecastingv1alpha1.DriftRetrain {
-		cooldown := time.Duration(ptr.Deref(fp.Spec.Drift.CooldownSeconds, 21600)) * time.Second
+		cooldown := time.Duration(ptr.Deref(fp.Spec.Drift.CooldownSeconds, 0)) * time.Second
 		last := st.LastDriftRunTime
 		switch {
 		case last != nil && !finishedAt(evaluated).After(last.Time):
@@ -293,10 +293,14 @@ func finishedAt(r *forecastingv1alpha1.ForecastRun) time.Time {
 	return r.CreationTimestamp.Time
 }
 
-// pruneNames are the oldest runs beyond limit (runs sorted oldest first).
-func pruneNames(runs []*forecastingv1alpha1.ForecastRun, limit int32) []string {
+// pruneNames are the oldest runs beyond limit (runs sorted oldest first). A nil limit (an
+// object the apiserver did not default, which it always does) prunes nothing.
+func pruneNames(runs []*forecastingv1alpha1.ForecastRun, limit *int32) []string {
+	if limit == nil {
+		return nil
+	}
 	var out []string
-	for i := 0; i < len(runs)-int(max(0, limit)); i++ {
+	for i := 0; i < len(runs)-int(max(0, *limit)); i++ {
 		out = append(out, runs[i].Name)
 	}
 	return out

@@ -114,7 +114,9 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 			fp.Spec.Source.CredentialsSecretRef = nil
 			fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{}
 			fp.CreationTimestamp = metav1.Time{Time: created}
-			fp.Spec.ConcurrencyPolicy = orDefault(tc.policy, forecastingv1alpha1.ForbidConcurrent)
+			if tc.policy != "" {
+				fp.Spec.ConcurrencyPolicy = tc.policy
+			}
 			fp.Spec.Suspend = ptr.To(tc.suspend)
 			fp.Spec.StartingDeadlineSeconds = tc.deadline
 			if tc.lastSchedule != nil {

@@ -2,7 +2,6 @@ package controllers
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"slices"
 	"strings"
@@ -24,7 +23,9 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/reconcile"
 	"sigs.k8s.io/controller-runtime/pkg/recorder"
 
+	"almanac.dev/almanac/api/render"
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -221,12 +222,12 @@ func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.Fore
 		if perr != nil {
 			return perr
 		}
-		cfg, rerr := renderConfig(fp, run, previous)
+		cfg, rerr := render.RunConfig(fp, run, previous)
 		if rerr != nil {
 			r.finish(run, w, false, forecastingv1alpha1.ReasonInvalidConfig, rerr.Error())
 			return nil
 		}
-		b, merr := json.MarshalIndent(cfg, "", "  ")
+		b, merr := runconfig.Encode(&cfg)
 		if merr != nil {
 			r.finish(run, w, false, forecastingv1alpha1.ReasonInvalidConfig, fmt.Sprintf("encode the run configuration: %v", merr))
 			return nil
@@ -529,8 +530,8 @@ func (r *RunReconciler) rebalance(ctx context.Context, run *forecastingv1alpha1.
 		reqs = slices.DeleteFunc(reqs, func(q shareRequest) bool { return q.Key == self })
 		reqs = append(reqs, shareRequest{
 			Key:    self,
-			Weight: orDefault(fp.Spec.Sharding.ShareWeight, defaultShareWeight),
-			Demand: demand(orDefault(fp.Spec.Sharding.MaxParallel, defaultMaxParallel), newShards),
+			Weight: max(1, fp.Spec.Sharding.ShareWeight),
+			Demand: demand(max(1, fp.Spec.Sharding.MaxParallel), newShards),
 		})
 	}
 	shares := fairShares(reqs, r.MaxConcurrentShards)
@@ -684,7 +685,12 @@ func orMissing(err error) error {
 	return err
 }
 
-func orNone(s string) string { return orDefault(s, "none") }
+func orNone(s string) string {
+	if s == "" {
+		return "none"
+	}
+	return s
+}
 
 // joinLimited joins lines with "; " and cuts the result to at most n bytes.
 func joinLimited(lines []string, n int) string {

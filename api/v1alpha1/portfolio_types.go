@@ -694,6 +694,7 @@ type TrainerSpec struct {
 
 	// imagePullPolicy of the trainer container. Default IfNotPresent.
 	// +optional
+	// +kubebuilder:default=IfNotPresent
 	ImagePullPolicy corev1.PullPolicy `json:"imagePullPolicy,omitempty"`
 
 	// resources of the trainer container.

@@ -44,7 +44,7 @@ type demand struct {
 
 func source() runconfig.Source {
 	return runconfig.Source{Columns: runconfig.Columns{Series: []string{"depot", "item"}, Date: "week", Value: "units"},
-		Frequency: "weekly", WeekAnchor: "Monday"}
+		Frequency: "Weekly", WeekAnchor: "Monday"}
 }
 
 // history is Fenwick Lane Provisions' weekly demand (invented): 3 depots x 4 items x 10 weeks,

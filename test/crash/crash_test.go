@@ -57,16 +57,16 @@ func dataset(t *testing.T, dir string, extra int) {
 // writeConfig writes a run configuration file and returns its path.
 func writeConfig(t *testing.T, dir, run, in, out string) string {
 	t.Helper()
-	c := runconfig.Config{Run: run, Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC),
-		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true, Partitioning: runconfig.PartitionObject,
+	c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: run, Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC),
+		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "Daily", NonNegative: true, Partitioning: runconfig.PartitionObjects,
 			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}},
-		Output:    runconfig.Output{URI: out, Format: "parquet"},
-		Horizon:   14,
-		Quantiles: []float64{0.1, 0.5, 0.9},
-		Zoo:       []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 7},
-		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 150},
-		Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 5},
+		Output:           runconfig.Output{URI: out, Format: "parquet"},
+		Horizon:          14,
+		QuantilePercents: []int{10, 50, 90},
+		Models:           []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
+		Selection:        runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 7, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},
+		Sharding:         runconfig.Sharding{TargetSeriesPerShard: 150},
+		Drift:            runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 5},
 	}
 	b, _ := json.Marshal(c)
 	p := dir + run + ".json"

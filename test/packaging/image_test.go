@@ -547,16 +547,18 @@ func TestTrainerImageRuns(t *testing.T) {
 
 	// Fenwick Lane Provisions: 3 depots x 20 items, 200 days, written by the image's binary.
 	mustRun("generate", "--output", "file:///tmp/in/", "--items", "20", "--depots", "3", "--periods", "200", "--end", "2026-11-01", "--bad", "1")
-	c := runconfig.Config{Run: "flp-image", Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC),
-		Source: runconfig.Source{URI: "file:///tmp/in/", Format: "csv", Frequency: "daily", NonNegative: true, Partitioning: runconfig.PartitionObject,
+	c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
+		Run: "flp-image", Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC),
+		Source: runconfig.Source{URI: "file:///tmp/in/", Format: "csv", Frequency: "Daily", NonNegative: true, Partitioning: runconfig.PartitionObjects,
 			Columns: runconfig.Columns{Series: []string{synth.ColItem, synth.ColDepot}, Date: synth.ColDate, Value: synth.ColUnits, Covariates: []string{synth.ColPromo}}},
-		Output:    runconfig.Output{URI: "file:///tmp/out", Format: "parquet"},
-		Horizon:   14,
-		Quantiles: []float64{0.1, 0.5, 0.9},
-		Zoo:       []models.Spec{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 2, Step: 7},
-		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 20},
-		Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 5},
+		Output:           runconfig.Output{URI: "file:///tmp/out", Format: "parquet"},
+		Horizon:          14,
+		QuantilePercents: []int{10, 50, 90},
+		Models:           []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
+		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 7, BacktestRefit: runconfig.RefitEveryOrigin,
+			Design: runconfig.DesignFixed, DesignCostPercent: 500},
+		Sharding: runconfig.Sharding{TargetSeriesPerShard: 20},
+		Drift:    runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 5},
 	}
 	b, err := json.Marshal(c)
 	if err != nil {

@@ -1,6 +1,8 @@
 package design
 
 import (
+	"strings"
+
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 )
@@ -30,7 +32,9 @@ type Segment struct {
 }
 
 // String is "frequency/class/band", e.g. "monthly/smooth/long"; pooled fields read "*".
-func (s Segment) String() string { return string(s.Frequency) + "/" + s.Class + "/" + s.Band }
+func (s Segment) String() string {
+	return strings.ToLower(string(s.Frequency)) + "/" + s.Class + "/" + s.Band
+}
 
 // coarser returns the segment one level up: the band pooled first, then the class; ok is
 // false at the top (frequency only).

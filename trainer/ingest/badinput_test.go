@@ -44,7 +44,7 @@ func daily() runconfig.Source {
 	return runconfig.Source{
 		Format:      "csv",
 		Columns:     runconfig.Columns{Series: []string{"depot", "item"}, Date: "day", Value: "units"},
-		Frequency:   "daily",
+		Frequency:   "Daily",
 		NonNegative: true,
 	}
 }
@@ -138,14 +138,14 @@ func badCases() []badCase {
 		{name: "weekly row on a Tuesday with a Monday anchor / series rejected",
 			csv: header + "south,kippers,2026-11-02,3\nsouth,kippers,2026-11-10,4\nnorth,rye-loaf,2026-11-02,1\nnorth,rye-loaf,2026-11-09,2\n",
 			src: func(s runconfig.Source) runconfig.Source {
-				s.Frequency, s.WeekAnchor = "weekly", "Monday"
+				s.Frequency, s.WeekAnchor = "Weekly", "Monday"
 				return s
 			},
 			keep:   []string{"north/rye-loaf"},
 			reject: map[string]string{"south/kippers": "2026-11-10T00:00:00Z is off the weekly grid: weekly periods start at 00:00 on Monday"}},
 		{name: "monthly row on the 15th / series rejected",
 			csv:    header + "south,kippers,2026-09-01,3\nsouth,kippers,2026-10-15,4\nnorth,rye-loaf,2026-09-01,1\nnorth,rye-loaf,2026-10-01,2\n",
-			src:    func(s runconfig.Source) runconfig.Source { s.Frequency = "monthly"; return s },
+			src:    func(s runconfig.Source) runconfig.Source { s.Frequency = "Monthly"; return s },
 			keep:   []string{"north/rye-loaf"},
 			reject: map[string]string{"south/kippers": "2026-10-15T00:00:00Z is off the monthly grid"}},
 		{name: "gaps / kept with NaN and a note; series.Clean interpolates",

@@ -116,7 +116,7 @@ func (c *Collector) Add(r Row) {
 		p.reject(r.Problem)
 		return
 	case !c.cal.OnGrid(r.Date):
-		p.reject(fmt.Sprintf("%s is off the %s grid: %s", r.Date.Format(time.RFC3339), c.cal.Freq, c.cal.GridRule()))
+		p.reject(fmt.Sprintf("%s is off the %s grid: %s", r.Date.Format(time.RFC3339), strings.ToLower(string(c.cal.Freq)), c.cal.GridRule()))
 		return
 	case len(r.Covariates) != len(c.covs):
 		panic(fmt.Sprintf("ingest: row has %d covariates, collector expects %d", len(r.Covariates), len(c.covs)))

@@ -26,7 +26,7 @@ func fenwickSource() runconfig.Source {
 	return runconfig.Source{
 		Format:     "csv",
 		Columns:    runconfig.Columns{Series: []string{"depot", "item"}, Date: "week", Value: "units", Covariates: []string{"promo"}},
-		Frequency:  "weekly",
+		Frequency:  "Weekly",
 		WeekAnchor: "Monday",
 	}
 }

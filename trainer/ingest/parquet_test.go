@@ -126,7 +126,7 @@ func TestScanParquetColumnTypes(t *testing.T) {
 	}
 	at := time.Date(2026, 11, 30, 6, 0, 0, 0, time.UTC)
 	b := writeParquet(t, []tsRow{{7, at, 2.5}, {7, at.Add(time.Hour), 3}})
-	src := runconfig.Source{Columns: runconfig.Columns{Series: []string{"store"}, Date: "at", Value: "kg"}, Frequency: "hourly"}
+	src := runconfig.Source{Columns: runconfig.Columns{Series: []string{"store"}, Date: "at", Value: "kg"}, Frequency: "Hourly"}
 	rows, err := scanParquet(t, b, src, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -141,7 +141,7 @@ func TestScanParquetColumnTypes(t *testing.T) {
 		Units string `parquet:"units"`
 	}
 	b = writeParquet(t, []textRow{{"rye-loaf", "01/12/2026", "4"}, {"rye-loaf", "02/12/2026", "n/a"}})
-	src = runconfig.Source{Columns: runconfig.Columns{Series: []string{"item"}, Date: "day", Value: "units"}, Frequency: "daily", DateLayout: "02/01/2006"}
+	src = runconfig.Source{Columns: runconfig.Columns{Series: []string{"item"}, Date: "day", Value: "units"}, Frequency: "Daily", DateLayout: "02/01/2006"}
 	rows, err = scanParquet(t, b, src, nil)
 	if err != nil {
 		t.Fatal(err)

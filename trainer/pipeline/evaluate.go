@@ -5,7 +5,6 @@ import (
 	"sort"
 
 	"almanac.dev/almanac/trainer/backtest"
-	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/summary"
 	"almanac.dev/almanac/trainer/tables"
@@ -13,18 +12,19 @@ import (
 
 // Evaluate compares the previous run's forecast of one series with the actuals that have
 // arrived since. actual is the series as collected this run (missing periods NaN); prev are
-// the previous forecast's rows for it; expected is the previous run's backtest score in metric
+// the previous forecast's rows for it; expected is the previous run's backtest score in d.Metric
 // (its models table). The result is ok when at least one forecast period now has an actual and
 // both errors are finite:
 //
 //	points   = forecast periods with an observed actual
 //	realized = metric(actuals, previous means) over those points, scaled (MASE, RMSSE) by the
 //	           history before the first forecast period, gaps filled as series.Clean does
-//	drifted  = points >= d.MinEvaluatedPoints and expected > 0 and realized/expected > d.ThresholdRatio
+//	drifted  = points >= d.MinPoints and expected > 0 and realized/expected > d.Threshold
 //
 // (MASE as Hyndman & Koehler 2006, eq. (5)-(6), with the seasonal-naive scale for m > 1.)
 // The season length is the frequency's, as selection uses.
-func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64, metric backtest.Metric, d runconfig.Drift, nonNegative bool) (tables.EvaluationRow, bool) {
+func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64, d DriftRule, nonNegative bool) (tables.EvaluationRow, bool) {
+	metric := d.Metric
 	if metric == backtest.Bias {
 		expected = math.Abs(expected) // selection ranks Bias by its absolute value
 	}
@@ -71,7 +71,7 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 		return row, false
 	}
 	row.Points, row.Realized = len(y), realized
-	row.Drifted = len(y) >= d.MinEvaluatedPoints && expected > 0 && realized/expected > d.ThresholdRatio
+	row.Drifted = len(y) >= d.MinPoints && expected > 0 && realized/expected > d.Threshold
 	return row, true
 }
 

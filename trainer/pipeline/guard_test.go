@@ -45,7 +45,7 @@ func publishedObjectRun(t *testing.T) (string, *runconfig.Config, *runconfig.Con
 		t.Fatal(errs)
 	}
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	return dir, cfg, cfg2
 }
 
@@ -72,7 +72,7 @@ func refusedLeavesLatest(t *testing.T, cfg *runconfig.Config, good string, err e
 // run published 0 forecasts, said complete and moved latest.json off the good run.
 func TestGuardRefusesRunThatLostItsSeries(t *testing.T) {
 	_, _, cfg2 := publishedObjectRun(t)
-	cfg2.Source.Frequency = "monthly"
+	cfg2.Source.Frequency = "Monthly"
 	trained, err := runToPublish(t, cfg2, nil)
 	if trained != 0 {
 		t.Fatalf("%d series trained as monthly, want 0", trained)

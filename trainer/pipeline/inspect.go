@@ -125,15 +125,19 @@ func InspectSeries(ctx context.Context, outputURI, run, sel string, w io.Writer)
 		return err
 	}
 	units := m.Units
-	if m.Partitioning == runconfig.PartitionNone && m.Buckets > 0 {
+	if hashedLayout(m.Partitioning) && m.Buckets > 0 {
 		e, ok := m.unit(BucketID(BucketOf(key, m.Buckets), m.Buckets))
 		if !ok {
 			return fmt.Errorf("series %s: run %s has no unit %s: %w", sel, m.Run, BucketID(BucketOf(key, m.Buckets), m.Buckets), ErrConfig)
 		}
 		units = []ManifestUnit{e}
 	}
+	var levels []float64
+	for _, p := range cfg.QuantilePercents {
+		levels = append(levels, float64(p)/100)
+	}
 	for _, u := range units {
-		found, err := printSeries(ctx, out, names, cfg.Quantiles, key, u, w)
+		found, err := printSeries(ctx, out, names, levels, key, u, w)
 		if err != nil || found {
 			return err
 		}

@@ -45,7 +45,7 @@ func awkwardCSV() []byte {
 // and object units; the colliding pair gives two series, both forecast.
 func TestKeyColumnsInEveryOutput(t *testing.T) {
 	for _, format := range []string{tables.CSV, tables.Parquet} {
-		for _, part := range []string{runconfig.PartitionNone, runconfig.PartitionObject} {
+		for _, part := range []string{runconfig.PartitionHashBuckets, runconfig.PartitionObjects} {
 			t.Run(format+"/"+orNone(part), func(t *testing.T) {
 				ctx := context.Background()
 				name := fmt.Sprintf("flp-keys-%s-%s", format, part)
@@ -55,7 +55,7 @@ func TestKeyColumnsInEveryOutput(t *testing.T) {
 				}
 				cfg := testConfig("flp-0001", "mem://"+name+"-in/", "mem://"+name+"-out/")
 				cfg.Output.Format, cfg.Source.Partitioning = format, part
-				cfg.Horizon, cfg.Zoo, cfg.Selection.Origins = 3, []models.Spec{{Family: models.FamilyNaive}}, 1
+				cfg.Horizon, cfg.Models, cfg.Selection.BacktestOrigins = 3, []runconfig.Model{{Family: models.FamilyNaive}}, 1
 				s, err := RunLocal(ctx, cfg, testEnv())
 				if err != nil {
 					t.Fatal(err)
@@ -148,7 +148,7 @@ func checkKeyColumnsFirst(t *testing.T, f File, b []byte) {
 // inspect --series shows one series: its models row and forecast rows with the key cells as
 // they were, or why it was rejected; unknown or missing key columns are configuration errors.
 func TestInspectSeries(t *testing.T) {
-	for _, part := range []string{runconfig.PartitionNone, runconfig.PartitionObject} {
+	for _, part := range []string{runconfig.PartitionHashBuckets, runconfig.PartitionObjects} {
 		t.Run(orNone(part), func(t *testing.T) {
 			ctx := context.Background()
 			name := "flp-inspect-" + part
@@ -159,7 +159,7 @@ func TestInspectSeries(t *testing.T) {
 			}
 			cfg := testConfig("flp-0001", "mem://"+name+"-in/", "mem://"+name+"-out/")
 			cfg.Source.Partitioning = part
-			cfg.Horizon, cfg.Zoo, cfg.Selection.Origins = 3, []models.Spec{{Family: models.FamilyNaive}}, 1
+			cfg.Horizon, cfg.Models, cfg.Selection.BacktestOrigins = 3, []runconfig.Model{{Family: models.FamilyNaive}}, 1
 			if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
 				t.Fatal(err)
 			}

@@ -3,7 +3,6 @@ package pipeline
 import (
 	"bytes"
 	"context"
-	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -38,16 +37,18 @@ var testKeys = []string{"item", "depot"}
 // testConfig is a daily run over Fenwick Lane Provisions' depots (invented data).
 func testConfig(run, in, out string) *runconfig.Config {
 	return &runconfig.Config{
+		APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
 		Portfolio: "flp-daily", Namespace: "planning", Run: run, Trigger: "Manual",
-		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "daily", NonNegative: true,
+		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "Daily", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 			Columns: runconfig.Columns{Series: testKeys, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}},
-		Output:    runconfig.Output{URI: out, Format: "csv"},
-		Horizon:   7,
-		Quantiles: []float64{0.1, 0.5, 0.9},
-		Zoo:       []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 2, Step: 1},
-		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 3},
-		Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 3},
+		Output:           runconfig.Output{URI: out, Format: "csv"},
+		Horizon:          7,
+		QuantilePercents: []int{10, 50, 90},
+		Models:           []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}},
+		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 1, BacktestRefit: runconfig.RefitEveryOrigin,
+			Design: runconfig.DesignFixed, DesignCostPercent: 500},
+		Sharding: runconfig.Sharding{TargetSeriesPerShard: 3},
+		Drift:    runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 3},
 	}
 }
 
@@ -127,7 +128,7 @@ func objectRun(t *testing.T) (string, *runconfig.Config) {
 	dir := t.TempDir()
 	putInput(t, mustOpen(t, "file://"+dir))
 	cfg := testConfig("flp-0001", "file://"+dir+"/in/", "file://"+dir+"/out")
-	cfg.Source.Partitioning = runconfig.PartitionObject
+	cfg.Source.Partitioning = runconfig.PartitionObjects
 	return dir, cfg
 }
 
@@ -267,7 +268,7 @@ func TestVanishedObjectIsCarriedForward(t *testing.T) {
 	}
 	// Second run: plan sees all three objects, then depot-corrie vanishes before train.
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
 	ps, err := RunPlan(ctx, cfg2, testEnv())
 	if err != nil {
@@ -303,7 +304,7 @@ func TestVanishedObjectIsCarriedForward(t *testing.T) {
 	// A third run with the object still gone at plan time forecasts 4 series against the 6
 	// flp-0002 published: the default publish guard (80% of the previous run) refuses it.
 	cfg3 := testConfig("flp-0003", cfg.Source.URI, cfg.Output.URI)
-	cfg3.Source.Partitioning = runconfig.PartitionObject
+	cfg3.Source.Partitioning = runconfig.PartitionObjects
 	if _, err := RunLocal(ctx, cfg3, testEnv()); ExitCode(err) != exitcode.Refused ||
 		!strings.Contains(err.Error(), "4 series forecast against 6 published by flp-0002") {
 		t.Fatalf("third run: exit %d, %v; want the guard's refusal", ExitCode(err), err)
@@ -379,7 +380,7 @@ func TestBadURIAndPermission(t *testing.T) {
 
 func TestUnknownModelIsConfigError(t *testing.T) {
 	cfg := testConfig("flp-0001", "mem://x/in/", "mem://flp-model-out/")
-	cfg.Zoo = []models.Spec{{Family: "Prophecy"}}
+	cfg.Models = []runconfig.Model{{Family: "Prophecy"}}
 	_, err := RunTrain(context.Background(), cfg, 0, testEnv())
 	if ExitCode(err) != exitcode.Config || !strings.Contains(err.Error(), "Prophecy") {
 		t.Fatalf("exit %d, %v", ExitCode(err), err)
@@ -445,8 +446,8 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, 
 	cfg := func(run string, buckets int) *runconfig.Config {
 		c := testConfig(run, "mem://flp-eval-in-"+name+"/history.csv", "mem://flp-eval-out-"+name+"/")
 		c.Horizon = 3
-		c.Zoo = []models.Spec{{Family: models.FamilyNaive}}
-		c.Selection.Origins = 1
+		c.Models = []runconfig.Model{{Family: models.FamilyNaive}}
+		c.Selection.BacktestOrigins = 1
 		c.Sharding.Buckets = buckets
 		return c
 	}
@@ -526,10 +527,11 @@ func TestScoreMetricFollowsSelection(t *testing.T) {
 		v = append(v, 1, 2, 3, 4, 5, 6, 7)
 	}
 	cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
-	sc, err := selectionConfig(cfg)
+	st, err := Check(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
+	sc := st.Selection
 	s := series.Series{Key: "FLP-TEA-80/ashby", Start: time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC), Freq: series.Daily, Values: v}
 	r, err := selection.Forecast(s, sc)
 	if err != nil {
@@ -555,7 +557,7 @@ func TestEndToEndRowGroupsOnMem(t *testing.T) {
 		}
 	}
 	cfg := testConfig("flp-0001", "mem://flp-rowgroups-in/", "mem://flp-rowgroups-out/")
-	cfg.Source.Format, cfg.Source.Partitioning = "parquet", runconfig.PartitionRowGroup
+	cfg.Source.Format, cfg.Source.Partitioning = "parquet", runconfig.PartitionRowGroups
 	cfg.Output.Format = "parquet"
 	cfg.Sharding.TargetSeriesPerShard = 4
 	s, err := RunLocal(ctx, cfg, testEnv())
@@ -576,7 +578,7 @@ func TestTamperedUnitIsNotTrusted(t *testing.T) {
 	dir, cfg := objectRun(t)
 	runAll(t, cfg)
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
 	ps, err := RunPlan(ctx, cfg2, testEnv())
 	if err != nil {
@@ -605,7 +607,7 @@ func TestTamperedUnitIsNotTrusted(t *testing.T) {
 }
 
 func TestPreviousUnitsAcrossBucketCounts(t *testing.T) {
-	prev := &Manifest{Partitioning: runconfig.PartitionNone, Buckets: 4}
+	prev := &Manifest{Partitioning: runconfig.PartitionHashBuckets, Buckets: 4}
 	for b := 0; b < 4; b++ {
 		prev.Units = append(prev.Units, ManifestUnit{ID: BucketID(b, 4)})
 	}
@@ -639,7 +641,7 @@ func TestStaleRerunLeavesLatest(t *testing.T) {
 	dir, cfg := objectRun(t)
 	runAll(t, cfg)
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
 	if _, err := RunLocal(ctx, cfg2, testEnv()); err != nil {
 		t.Fatal(err)
@@ -665,7 +667,7 @@ func TestRepublishAfterLateShard(t *testing.T) {
 	_, cfg := objectRun(t)
 	runAll(t, cfg)
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
 	ps, err := RunPlan(ctx, cfg2, testEnv())
 	if err != nil {
@@ -693,32 +695,18 @@ func TestRepublishAfterLateShard(t *testing.T) {
 	}
 }
 
-// The run configuration's updateBacktest reaches selection (the controller renders it from
-// spec.selection.backtestRefit).
-func TestSelectionConfigUpdateBacktest(t *testing.T) {
-	for _, on := range []bool{false, true} {
+// The run configuration's backtestRefit reaches selection: Once carries fits forward between
+// backtest origins (selection.Config.BacktestUpdate), EveryOrigin re-estimates at each.
+func TestCheckBacktestRefit(t *testing.T) {
+	for refit, on := range map[string]bool{runconfig.RefitOnce: true, runconfig.RefitEveryOrigin: false} {
 		cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
-		cfg.Selection.UpdateBacktest = on
-		sc, err := selectionConfig(cfg)
+		cfg.Selection.BacktestRefit = refit
+		st, err := Check(cfg)
 		if err != nil {
 			t.Fatal(err)
 		}
-		if sc.BacktestUpdate != on {
-			t.Errorf("updateBacktest %v: selection BacktestUpdate %v", on, sc.BacktestUpdate)
-		}
-	}
-}
-
-// A negative or NaN combineMargin in the run configuration is a configuration error that names
-// the setting (selection.Config.Validate checks it; the API's minimum 0 keeps it out of
-// rendered configurations).
-func TestSelectionConfigRejectsBadCombineMargin(t *testing.T) {
-	for _, m := range []float64{-0.01, math.NaN()} {
-		cfg := testConfig("flp-0001", "mem://x/", "mem://y/")
-		cfg.Selection.CombineMargin = m
-		_, err := selectionConfig(cfg)
-		if !errors.Is(err, ErrConfig) || !strings.Contains(err.Error(), "combineMargin") {
-			t.Errorf("combineMargin %v: error %v, want a configuration error naming combineMargin", m, err)
+		if st.Selection.BacktestUpdate != on {
+			t.Errorf("backtestRefit %s: selection BacktestUpdate %v", refit, st.Selection.BacktestUpdate)
 		}
 	}
 }
@@ -736,11 +724,10 @@ func weekendCSV(depot string, items []string, days int) []byte {
 	})
 }
 
-// The run configuration's combineMargin reaches selection (the controller renders it from
-// spec.selection.combine.marginPercent). On weekend-stepped demand the seasonal naive member
+// The run configuration's selection.combine.marginPercent reaches selection as a fraction. On weekend-stepped demand the seasonal naive member
 // misses only the wiggle, while the mean of it and the naive member also carries half of
 // each weekend step, so without a margin every series publishes SeasonalNaive; with margin
-// 100 (marginPercent 10000) every series publishes the combination, whose published backtest
+// percent 10000 (a fraction of 100) every series publishes the combination, whose published backtest
 // score is the higher one.
 func TestCombineMarginChoosesTheCombination(t *testing.T) {
 	ctx := context.Background()
@@ -748,10 +735,9 @@ func TestCombineMarginChoosesTheCombination(t *testing.T) {
 	if err := in.Put(ctx, "in/depot-ashby.csv", weekendCSV("ashby", []string{"FLP-OATS-1KG", "FLP-TEA-80"}, 42)); err != nil {
 		t.Fatal(err)
 	}
-	chosen := func(run string, margin float64) map[string]tables.ModelRow {
+	chosen := func(run string, marginPercent int) map[string]tables.ModelRow {
 		cfg := testConfig(run, "mem://flp-margin-in/in/", "mem://flp-margin-"+run+"/")
-		cfg.Selection.CombineTop, cfg.Selection.CombineMethod = 2, "mean"
-		cfg.Selection.CombineMargin = margin
+		cfg.Selection.Combine = &runconfig.Combine{Top: 2, Method: "Mean", MarginPercent: marginPercent}
 		if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
 			t.Fatal(err)
 		}
@@ -767,7 +753,7 @@ func TestCombineMarginChoosesTheCombination(t *testing.T) {
 		}
 		return rows
 	}
-	single, combined := chosen("flp-0001", 0), chosen("flp-0002", 100)
+	single, combined := chosen("flp-0001", 0), chosen("flp-0002", 10000)
 	const combo = "Combination(mean: Naive, SeasonalNaive)"
 	for key, s := range single {
 		c := combined[key]
@@ -784,15 +770,15 @@ func TestCombineMarginChoosesTheCombination(t *testing.T) {
 }
 
 // selection.design reaches the trainer and its choice the models table and the shard
-// summaries. An empty design is Fixed (a configuration written before the field); with six
+// summaries. With six
 // usable series, fewer than design.DefaultMinSeries, Auto takes its simplest candidate, the
 // mean of ETS and Theta (both in the zoo).
 func TestDesignReachesModelsAndSummary(t *testing.T) {
 	ctx := context.Background()
-	for mode, want := range map[string]string{"": design.NameDeclared, runconfig.DesignFixed: design.NameDeclared,
+	for mode, want := range map[string]string{runconfig.DesignFixed: design.NameDeclared,
 		runconfig.DesignPerSeries: design.NamePerSeries, runconfig.DesignAuto: "ets-theta"} {
 		_, cfg := objectRun(t)
-		cfg.Zoo = []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}}
+		cfg.Models = []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}}
 		cfg.Selection.Design = mode
 		ps, err := RunPlan(ctx, cfg, testEnv())
 		if err != nil {

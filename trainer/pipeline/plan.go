@@ -17,6 +17,13 @@ import (
 	"almanac.dev/almanac/trainer/store"
 )
 
+// hashedLayout reports whether a manifest's partitioning is HashBuckets. Manifests written
+// before the run configuration took the API's spelling say "" for it (and "object",
+// "rowGroup" for the others); previous runs' manifests are read with either.
+func hashedLayout(partitioning string) bool {
+	return partitioning == runconfig.PartitionHashBuckets || partitioning == ""
+}
+
 // PlanVersion is the version of plan.json this package writes and reads.
 const PlanVersion = 1
 
@@ -28,7 +35,7 @@ type Plan struct {
 	Run     string `json:"run"`
 	// Partitioning is the source's runconfig.Source.Partitioning the units were cut by.
 	Partitioning string `json:"partitioning"`
-	// Buckets is the hash bucket count when Partitioning is runconfig.PartitionNone, else 0.
+	// Buckets is the hash bucket count when Partitioning is runconfig.PartitionHashBuckets, else 0.
 	Buckets int `json:"buckets,omitempty"`
 	// Cutoff bounds history: rows dated after it are plans, not actuals, and are dropped. It
 	// is the run's scheduled time, or the time plan ran for a manual run, fixed here so that
@@ -207,13 +214,13 @@ func (p *Plan) Validate() error {
 	if p.Cutoff.IsZero() {
 		return fmt.Errorf("cutoff must be set")
 	}
-	hashed := p.Partitioning == runconfig.PartitionNone
+	hashed := p.Partitioning == runconfig.PartitionHashBuckets
 	switch p.Partitioning {
-	case runconfig.PartitionNone:
+	case runconfig.PartitionHashBuckets:
 		if p.Buckets < 1 || p.Buckets > runconfig.MaxBuckets || p.Buckets&(p.Buckets-1) != 0 {
 			return fmt.Errorf("buckets %d is not a power of two up to %d", p.Buckets, runconfig.MaxBuckets)
 		}
-	case runconfig.PartitionObject, runconfig.PartitionRowGroup:
+	case runconfig.PartitionObjects, runconfig.PartitionRowGroups:
 		if p.Buckets != 0 {
 			return fmt.Errorf("buckets %d set for partitioning %q", p.Buckets, p.Partitioning)
 		}
@@ -254,8 +261,8 @@ func (p *Plan) Validate() error {
 			return fmt.Errorf("units[%d]: %s names object %q, not in the plan's objects", i, u.ID, u.Object)
 		case !hashed && u.Bucket != 0:
 			return fmt.Errorf("units[%d]: %s has a bucket in an object plan", i, u.ID)
-		case !hashed && (u.Groups != nil) != (p.Partitioning == runconfig.PartitionRowGroup):
-			return fmt.Errorf("units[%d]: %s: row groups must be set exactly for partitioning %q", i, u.ID, runconfig.PartitionRowGroup)
+		case !hashed && (u.Groups != nil) != (p.Partitioning == runconfig.PartitionRowGroups):
+			return fmt.Errorf("units[%d]: %s: row groups must be set exactly for partitioning %q", i, u.ID, runconfig.PartitionRowGroups)
 		case u.Groups != nil && (u.Groups.From < 0 || u.Groups.To <= u.Groups.From):
 			return fmt.Errorf("units[%d]: %s: empty or negative row-group range [%d,%d)", i, u.ID, u.Groups.From, u.Groups.To)
 		case !hashed && u.ID != ObjectID(u.Object, u.Groups):

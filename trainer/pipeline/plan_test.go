@@ -106,7 +106,7 @@ func TestObjectIDIsSafeAndDistinct(t *testing.T) {
 // validPlan is a small consistent plan for the decoder tests.
 func validPlan() *Plan {
 	units := []Unit{{ID: BucketID(1, 4), Bucket: 1, Series: 2, Rows: 20}, {ID: BucketID(3, 4), Bucket: 3, Series: 1, Rows: 5}}
-	return &Plan{Version: PlanVersion, Run: "flp-0001", Buckets: 4, Cutoff: anchor, Objects: []Object{{Key: "in/a.csv", Size: 10}},
+	return &Plan{Version: PlanVersion, Run: "flp-0001", Partitioning: runconfig.PartitionHashBuckets, Buckets: 4, Cutoff: anchor, Objects: []Object{{Key: "in/a.csv", Size: 10}},
 		Units: units, Shards: Cut(units, 2), Series: 3, Rows: 25}
 }
 

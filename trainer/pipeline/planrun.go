@@ -2,7 +2,6 @@ package pipeline
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"sort"
 	"time"
@@ -25,6 +24,9 @@ import (
 // hashes per object (all keys for hash buckets), not the rows.
 func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPlan}
+	if _, err := Check(cfg); err != nil {
+		return sum, err // before any input or output is touched
+	}
 	out, err := openOutput(ctx, cfg)
 	if err != nil {
 		return sum, err
@@ -38,11 +40,11 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 		sum.Bytes += o.Size
 	}
 	sum.Units, sum.Shards, sum.Series = len(p.Units), len(p.Shards), p.Series
-	cb, err := json.MarshalIndent(cfg, "", "  ")
+	cb, err := runconfig.Encode(cfg)
 	if err != nil {
 		return sum, err
 	}
-	if err := out.Put(ctx, store.RunKey(cfg.Run, store.ConfigName), append(cb, '\n')); err != nil {
+	if err := out.Put(ctx, store.RunKey(cfg.Run, store.ConfigName), cb); err != nil {
 		return sum, storageErr(err)
 	}
 	pb, err := EncodePlan(p)
@@ -73,7 +75,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	}
 	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second)}
 	switch cfg.Source.Partitioning {
-	case runconfig.PartitionObject:
+	case runconfig.PartitionObjects:
 		for _, o := range objs {
 			u := Unit{ID: ObjectID(o.Key, nil), Object: o.Key}
 			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil); err != nil {
@@ -81,7 +83,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			}
 			p.Units = append(p.Units, u)
 		}
-	case runconfig.PartitionRowGroup:
+	case runconfig.PartitionRowGroups:
 		for _, o := range objs {
 			groups, err := src.rowGroups(ctx, o.Key)
 			if err != nil {
@@ -116,7 +118,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			if err != nil {
 				return nil, err
 			}
-			if prev != nil && prev.Partitioning == runconfig.PartitionNone {
+			if prev != nil && hashedLayout(prev.Partitioning) {
 				prevBuckets = prev.Buckets
 			}
 		}

@@ -42,6 +42,20 @@ func promoFeatures() *features.Config {
 	}
 }
 
+// promoRunFeatures is promoFeatures in the run configuration's (the API's) spelling.
+func promoRunFeatures() *runconfig.Features {
+	var fair []string
+	for y := 2023; y <= 2027; y++ {
+		fair = append(fair, synth.HarvestFair(y).Format(features.DateLayout))
+	}
+	return &runconfig.Features{
+		Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1},
+		Events: []runconfig.Event{{Name: "harvest-fair", Dates: fair, PeriodsBefore: 1}},
+		Lags:   []int{1, 52}, Windows: []int{4}, WindowStatistics: []string{"Mean"},
+		Selection: &runconfig.FeatureSelection{Filter: "Correlation", FilterKeep: 16, Embedded: "Lasso", MaxFeatures: 10},
+	}
+}
+
 // timeSeriesZoo is the zoo without features (ARIMA without seasonal terms: weekly seasons of
 // 52 are longer than its limit); featureZoo adds the three regression families.
 func timeSeriesZoo() []models.Spec {
@@ -64,12 +78,12 @@ func TestPromotionPortfolioEndToEnd(t *testing.T) {
 		t.Fatal(err)
 	}
 	cfg := testConfig("flp-promo-0001", "mem://flp-promo-in/", "mem://flp-promo-out/")
-	cfg.Source.Frequency, cfg.Source.WeekAnchor = "weekly", "Monday"
+	cfg.Source.Frequency, cfg.Source.WeekAnchor = "Weekly", "Monday"
 	cfg.Source.Columns = runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}
-	cfg.Source.Partitioning = runconfig.PartitionObject
+	cfg.Source.Partitioning = runconfig.PartitionObjects
 	cfg.Horizon = 8
-	cfg.Zoo = append(timeSeriesZoo()[1:3], models.Spec{Family: models.FamilyLasso})
-	cfg.Features = promoFeatures()
+	cfg.Models = []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyLasso}}
+	cfg.Features = promoRunFeatures()
 	env := Env{Now: func() time.Time { return promoEnd.Add(30 * time.Hour) }, Workers: 2}
 	s, err := RunLocal(ctx, cfg, env)
 	if err != nil {
@@ -117,7 +131,7 @@ type promoScore struct {
 // happens: synth's TestPromotionPlanIsKnownInAdvance).
 func promoData(tb testing.TB, items, depots, periods, h int) ([]series.Series, map[string][]float64) {
 	tb.Helper()
-	src := runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
+	src := runconfig.Source{Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true,
 		Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}}
 	read := func(o synth.Options, keep int) []series.Series {
 		c, err := ingest.NewCollector(src, o.End)

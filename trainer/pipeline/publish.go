@@ -32,6 +32,9 @@ import (
 // and a rerun after a later run was published leaves latest.json on the later run.
 func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPublish}
+	if _, err := Check(cfg); err != nil {
+		return sum, err
+	}
 	out, p, prev, err := openRun(ctx, cfg)
 	if err != nil {
 		return sum, err

@@ -16,7 +16,7 @@ func TestEndToEndOnS3(t *testing.T) {
 	in := mustOpen(t, "s3://flp-forecasts/"+q)
 	putInput(t, in)
 	cfg := testConfig("flp-0001", "s3://flp-forecasts/in/"+q, "s3://flp-forecasts/portfolio/"+q)
-	cfg.Source.Partitioning = runconfig.PartitionObject
+	cfg.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
 	if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
 		t.Fatal(err)
@@ -28,7 +28,7 @@ func TestEndToEndOnS3(t *testing.T) {
 	}
 	// Second run after an object vanished: its unit is carried forward from the first run.
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
-	cfg2.Source.Partitioning = runconfig.PartitionObject
+	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ps, err := RunPlan(ctx, cfg2, testEnv())
 	if err != nil {
 		t.Fatal(err)

@@ -16,7 +16,7 @@ import (
 // reading must not create it.
 func TestMissingInputFolderIsNotFound(t *testing.T) {
 	missing := filepath.Join(t.TempDir(), "histroy") + "/"
-	src := runconfig.Source{URI: "file://" + missing, Format: "csv", Frequency: "daily"}
+	src := runconfig.Source{URI: "file://" + missing, Format: "csv", Frequency: "Daily"}
 	err := ScanInput(context.Background(), src, func(ingest.Row) error { return nil })
 	if !errors.Is(err, store.ErrNotFound) {
 		t.Fatalf("ScanInput(missing folder) = %v, want store.ErrNotFound", err)

@@ -12,7 +12,6 @@ import (
 	"strings"
 	"time"
 
-	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -60,45 +59,6 @@ func openRun(ctx context.Context, cfg *runconfig.Config) (out *store.Store, p *P
 	return out, p, prev, nil
 }
 
-// selectionConfig maps the run configuration onto selection's; errors are configuration errors.
-func selectionConfig(cfg *runconfig.Config) (selection.Config, error) {
-	sc := selection.Config{
-		Horizon: cfg.Horizon, Levels: cfg.Quantiles, Zoo: cfg.Zoo,
-		Metric: backtest.Metric(cfg.Selection.Metric), Origins: cfg.Selection.Origins, Step: cfg.Selection.Step,
-		CombineTop: cfg.Selection.CombineTop, CombineMethod: cfg.Selection.CombineMethod,
-		CombineMargin:  cfg.Selection.CombineMargin,
-		BacktestUpdate: cfg.Selection.UpdateBacktest,
-		NonNegative:    cfg.Source.NonNegative,
-		Clean:          series.CleanRules{NonNegative: cfg.Source.NonNegative},
-		Features:       cfg.Features,
-	}
-	if err := sc.Validate(); err != nil {
-		return sc, fmt.Errorf("%w: %w", ErrConfig, err)
-	}
-	if sc.Metric == "" {
-		sc.Metric = selection.DefaultMetric
-	}
-	return sc, nil
-}
-
-// designOptions maps the run configuration onto design's: an empty selection.design is
-// Fixed, what a configuration written before the field meant.
-func designOptions(cfg *runconfig.Config, sc selection.Config, workers int) design.Options {
-	mode := design.Mode(cfg.Selection.Design)
-	if mode == "" {
-		mode = design.Fixed
-	}
-	return design.Options{Mode: mode, Base: sc, CostLimit: cfg.Selection.DesignCostLimit, Workers: workers}
-}
-
-// driftMetric is the metric of evaluation: drift.metric, else the selection metric.
-func driftMetric(cfg *runconfig.Config, sc selection.Config) backtest.Metric {
-	if cfg.Drift.Metric != "" {
-		return backtest.Metric(cfg.Drift.Metric)
-	}
-	return sc.Metric
-}
-
 // loaded is one unit's input after collection.
 type loaded struct {
 	unit     Unit
@@ -119,7 +79,7 @@ type loaded struct {
 func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (summary.Summary, error) {
 	start := env.now()
 	sum := summary.Summary{Kind: summary.KindTrain, Shard: shard}
-	sc, err := selectionConfig(cfg)
+	st, err := Check(cfg)
 	if err != nil {
 		return sum, err
 	}
@@ -143,7 +103,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	results := make([]design.Result, len(all))
 	errs := make([]error, len(all))
 	t0 := env.now()
-	outcome, err := design.Forecast(ctx, all, designOptions(cfg, sc, env.Workers), func(i int, r design.Result, err error) {
+	outcome, err := design.Forecast(ctx, all, st.Design(env.Workers), func(i int, r design.Result, err error) {
 		results[i], errs[i] = r, err
 	})
 	if err != nil {
@@ -154,7 +114,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	fitSeconds := env.now().Sub(t0).Seconds()
 
 	var firstErr error
-	acc := summary.Accuracy{Metric: string(driftMetric(cfg, sc))}
+	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
 	off := 0
 	for _, u := range units {
 		if u.err != nil {
@@ -165,7 +125,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 			continue
 		}
 		n := len(u.series)
-		done, err := writeUnit(ctx, out, cfg, sc, prev, u, results[off:off+n], errs[off:off+n])
+		done, err := writeUnit(ctx, out, cfg, st, prev, u, results[off:off+n], errs[off:off+n])
 		off += n
 		if err != nil {
 			return sum, err
@@ -267,20 +227,12 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 	return units, nil
 }
 
-// usesCovariates reports whether a regression member reads covariates as features (the run's
-// features or a member's own): only then are the covariates of rows dated after the history
+// usesCovariates reports whether the regression members read covariates as features
+// (features.covariates): only then are the covariates of rows dated after the history
 // kept, for the horizon's periods, as known future values (ingest.Collector.KeepFuture).
 // Otherwise such rows are dropped as before.
 func usesCovariates(cfg *runconfig.Config) bool {
-	if cfg.Features != nil && len(cfg.Features.Covariates) > 0 {
-		return true
-	}
-	for _, m := range cfg.Zoo {
-		if m.Features != nil && len(m.Features.Covariates) > 0 {
-			return true
-		}
-	}
-	return false
+	return cfg.Features != nil && len(cfg.Features.Covariates) > 0
 }
 
 // fatal returns the errors that end the whole shard rather than one unit: anything that is
@@ -293,7 +245,7 @@ func fatal(ctx context.Context, err error) error {
 }
 
 // writeUnit evaluates, builds and writes one unit's tables and then its unit.json.
-func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest,
+func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st Settings, prev *Manifest,
 	u *loaded, results []design.Result, errs []error) (UnitDone, error) {
 	format := tableFormat(cfg)
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
@@ -326,7 +278,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
-	evals, acc, prevRun, err := evaluateUnit(ctx, out, cfg, sc, prev, u)
+	evals, acc, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
 	if err != nil {
 		return done, err
 	}
@@ -346,7 +298,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc 
 		fn          func(w io.Writer) error
 	}{
 		{TableForecasts, TableForecasts + "." + format, func(w io.Writer) error {
-			return tables.WriteForecasts(w, format, tables.Header{Keys: keys, Quantiles: cfg.Quantiles}, fc)
+			return tables.WriteForecasts(w, format, tables.Header{Keys: keys, Quantiles: st.Selection.Levels}, fc)
 		}},
 		{TableModels, TableModels + "." + format, func(w io.Writer) error { return tables.WriteModels(w, format, keys, mr) }},
 		{TableEvaluation, TableEvaluation + "." + format, func(w io.Writer) error { return tables.WriteEvaluation(w, format, keys, evals) }},
@@ -388,9 +340,9 @@ func paramsText(r selection.Result) string {
 // previous manifest's entries for the unit (previousUnits; an entry may itself be carried
 // forward from an older run). A unit the previous run did not have is not evaluated, nor are
 // units whose previous files were pruned.
-func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, sc selection.Config, prev *Manifest, u *loaded) (
+func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded) (
 	[]tables.EvaluationRow, summary.Accuracy, string, error) {
-	metric := driftMetric(cfg, sc)
+	metric := d.Metric
 	acc := summary.Accuracy{Metric: string(metric)}
 	if prev == nil {
 		return nil, acc, "", nil
@@ -399,7 +351,6 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 	for _, s := range u.series {
 		ours[s.Key] = true
 	}
-	keys := cfg.Source.Columns.Series
 	bySeries := map[string][]tables.ForecastRow{}
 	expected := map[string]float64{}
 	source := map[string]string{}
@@ -439,7 +390,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, 
 		if !ok {
 			continue
 		}
-		row, ok := Evaluate(s, bySeries[s.Key], exp, metric, cfg.Drift, cfg.Source.NonNegative)
+		row, ok := Evaluate(s, bySeries[s.Key], exp, d, nonNegative)
 		if !ok {
 			continue
 		}
@@ -459,7 +410,7 @@ func previousUnits(prev *Manifest, u Unit, buckets int) []ManifestUnit {
 	if e, ok := prev.unit(u.ID); ok {
 		return []ManifestUnit{e}
 	}
-	if u.Object != "" || buckets == 0 || prev.Partitioning != runconfig.PartitionNone || prev.Buckets == 0 {
+	if u.Object != "" || buckets == 0 || !hashedLayout(prev.Partitioning) || prev.Buckets == 0 {
 		return nil
 	}
 	var out []ManifestUnit

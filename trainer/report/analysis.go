@@ -6,6 +6,7 @@ import (
 	"strings"
 
 	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/tables"
 )
@@ -50,7 +51,7 @@ var intermittentFamilies = map[string]bool{models.FamilyCroston: true, models.Fa
 // familyOf returns the model family of a chosen-model name: the zoo member's family when the
 // name is a member's display name, Combination for a combination, and otherwise the name up to
 // its first parenthesis (a fallback family's own name).
-func familyOf(zoo []models.Spec, name string) string {
+func familyOf(zoo []runconfig.Model, name string) string {
 	for _, s := range zoo {
 		if s.DisplayName() == name {
 			return s.Family
@@ -73,7 +74,7 @@ func overview(r *Run) Overview {
 	famSeries := map[string]int{}
 	for _, m := range r.Models {
 		byModel[m.Model]++
-		f := familyOf(r.Config.Zoo, m.Model)
+		f := familyOf(r.Config.Models, m.Model)
 		famSeries[f]++
 		if !math.IsNaN(m.Score) && !math.IsInf(m.Score, 0) {
 			byFamily[f] = append(byFamily[f], m.Score)
@@ -173,7 +174,7 @@ const (
 // demand class known (class != "") that decides: intermittent or lumpy. Without it, the chosen
 // model being of an intermittent-demand family, or selection's note of an intermittent or lumpy
 // class, stands in; it is weaker evidence, as Croston's method also wins on some smooth series.
-func intermittent(zoo []models.Spec, m modelInfo, class string) bool {
+func intermittent(zoo []runconfig.Model, m modelInfo, class string) bool {
 	if class != "" {
 		return class == selection.ClassIntermittent || class == selection.ClassLumpy
 	}
@@ -230,7 +231,7 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 		if n == lim.Intermittent {
 			break
 		}
-		if intermittent(r.Config.Zoo, info[v.key], classes[v.key]) {
+		if intermittent(r.Config.Models, info[v.key], classes[v.key]) {
 			add(v.key, WhyIntermittent)
 			n++
 		}

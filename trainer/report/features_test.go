@@ -11,7 +11,6 @@ import (
 
 	"golang.org/x/net/html"
 
-	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -32,18 +31,20 @@ func TestPromotionReportListsKeptFeatures(t *testing.T) {
 	g := synth.Options{Items: 8, Depots: 2, Frequency: synth.Weekly, Periods: 104, End: end, Scenario: synth.ScenarioPromotions, Future: 8, Seed: 5}
 	writeDepots(t, in, g)
 	cfg := &runconfig.Config{
+		APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
 		Portfolio: "fenwick-lane-promotions", Namespace: "planning", Run: "flp-promo-20261103", Trigger: "Manual",
-		Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
+		Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}},
-		Output:    runconfig.Output{URI: outURI, Format: "csv"},
-		Horizon:   8,
-		Quantiles: []float64{0.1, 0.5, 0.9},
-		Zoo:       []models.Spec{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyLasso}},
-		Features: &features.Config{Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1}, Lags: []int{1},
-			Windows: []int{4}, Stats: []string{features.StatMean},
-			Selection: features.Selection{Filter: features.FilterCorrelation, Embedded: features.EmbeddedLasso, MaxFeatures: 6}},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 2},
+		Output:           runconfig.Output{URI: outURI, Format: "csv"},
+		Horizon:          8,
+		QuantilePercents: []int{10, 50, 90},
+		Models:           []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyLasso}},
+		Features: &runconfig.Features{Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1}, Lags: []int{1},
+			Windows: []int{4}, WindowStatistics: []string{"Mean"},
+			Selection: &runconfig.FeatureSelection{Filter: "Correlation", Embedded: "Lasso", MaxFeatures: 6}},
+		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 2, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},
 		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 8},
+		Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 8},
 	}
 	if _, err := pipeline.RunLocal(ctx, cfg, pipeline.Env{Now: func() time.Time { return end.Add(24 * time.Hour) }, Workers: 2}); err != nil {
 		t.Fatal(err)

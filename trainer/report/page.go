@@ -121,10 +121,14 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		metric = backtest.Metric(r.Models[0].Metric)
 	}
 	unit := cfg.Source.Columns.Value
+	var levels []float64
+	for _, p := range cfg.QuantilePercents {
+		levels = append(levels, float64(p)/100)
+	}
 	pg := page{
 		Run: r, Overview: overview(r), Metric: string(metric), Unit: unit, Noun: noun,
 		MetricSentence: MetricSentence(metric, unit, freq, freq.SeasonLength()),
-		BandIntro:      BandSentence(cfg.Quantiles, noun),
+		BandIntro:      BandSentence(levels, noun),
 		Horizon:        plural(cfg.Horizon, noun) + " ahead",
 		Frequency:      string(freq),
 		Source:         store.Redact(cfg.Source.URI),
@@ -134,7 +138,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		IndexCap:       o.IndexCap,
 		FeatureUse:     featureUse(r.Models, noun),
 	}
-	for _, q := range cfg.Quantiles {
+	for _, q := range levels {
 		pg.Quantiles = append(pg.Quantiles, tables.QuantileColumn(q))
 	}
 	if !cfg.ScheduledTime.IsZero() {
@@ -143,8 +147,9 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	if o := pg.Overview; o.Evaluated > 0 && o.EvaluatedPoints < 8*o.Evaluated {
 		pg.FewPoints = strconv.FormatFloat(math.Round(10*float64(o.EvaluatedPoints)/float64(o.Evaluated))/10, 'f', -1, 64)
 	}
-	if cfg.Drift.ThresholdRatio > 0 {
-		pg.DriftThreshold = trimFloat(cfg.Drift.ThresholdRatio)
+	threshold := float64(cfg.Drift.ThresholdPercent) / 100
+	if threshold > 0 {
+		pg.DriftThreshold = trimFloat(threshold)
 	}
 	if m := r.Manifest; m != nil {
 		pg.Complete = m.Complete
@@ -155,7 +160,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	}
 
 	for _, c := range pg.Overview.Models {
-		f := familyOf(cfg.Zoo, c.Name)
+		f := familyOf(cfg.Models, c.Name)
 		pg.ModelRows = append(pg.ModelRows, modelRow{Name: c.Name, Family: f, Words: FamilyWords(f), Count: c.Count,
 			Share: fmt.Sprintf("%.0f%%", 100*float64(c.Count)/float64(pg.Overview.Trained))})
 	}
@@ -178,7 +183,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		}
 	}
 	if len(r.Evaluation) > 0 {
-		p, err := evaluationPlot(r.Evaluation[0].Metric, r.Evaluation, cfg.Drift.ThresholdRatio)
+		p, err := evaluationPlot(r.Evaluation[0].Metric, r.Evaluation, threshold)
 		if err != nil {
 			return nil, err
 		}
@@ -204,7 +209,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		s := shownSeries{Key: pk.Key, Label: keyLabel(cfg.Source.Columns.Series, pk.Key), Anchor: fmt.Sprintf("s%03d", i+1), Plot: fmt.Sprintf("series-%03d.svg", i+1), Why: pk.Why,
 			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, freq, freq.SeasonLength()),
 			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
-		s.Family = familyOf(cfg.Zoo, m.Model)
+		s.Family = familyOf(cfg.Models, m.Model)
 		s.FamilyWords = FamilyWords(s.Family)
 		if e := s.Eval; e != nil && e.Expected > 0 && finite(e.Realized) {
 			s.Ratio = fmt.Sprintf("%.1f", e.Realized/e.Expected)

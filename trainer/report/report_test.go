@@ -106,18 +106,19 @@ func writeHistory(t *testing.T, dir string) string {
 
 func testConfig(run, prev, sourceURI, outURI string) *runconfig.Config {
 	return &runconfig.Config{
+		APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
 		Portfolio: "fenwick-lane-weekly", Namespace: "planning", Run: run, Trigger: "Schedule", PreviousRun: prev,
 		ScheduledTime: time.Date(2026, 12, 7, 6, 0, 0, 0, time.UTC),
-		Source: runconfig.Source{URI: sourceURI, Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
+		Source: runconfig.Source{URI: sourceURI, Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 			Columns: runconfig.Columns{Series: testKeys, Date: "week", Value: "units"}},
-		Output:    runconfig.Output{URI: outURI, Format: "csv"},
-		Horizon:   horizon,
-		Quantiles: testLevels,
-		Zoo: []models.Spec{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
+		Output:           runconfig.Output{URI: outURI, Format: "csv"},
+		Horizon:          horizon,
+		QuantilePercents: []int{10, 50, 90},
+		Models: []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
 			{Family: models.FamilyTheta}, {Family: models.FamilyETS}},
-		Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1},
+		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},
 		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 100},
-		Drift:     runconfig.Drift{ThresholdRatio: 1.5, MinEvaluatedPoints: 1},
+		Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 150, MinEvaluatedPoints: 1},
 	}
 }
 

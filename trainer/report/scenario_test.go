@@ -39,17 +39,18 @@ func TestDemoScenario(t *testing.T) {
 
 	cfg := func(run, prev string) *runconfig.Config {
 		return &runconfig.Config{
+			APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
 			Portfolio: "fenwick-lane-weekly", Namespace: "planning", Run: run, Trigger: "Schedule", PreviousRun: prev,
-			Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", NonNegative: true,
+			Source: runconfig.Source{URI: "file://" + in + "/", Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 				Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units"}},
-			Output:    runconfig.Output{URI: outURI, Format: "csv"},
-			Horizon:   12,
-			Quantiles: []float64{0.1, 0.25, 0.5, 0.75, 0.9},
-			Zoo: []models.Spec{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
+			Output:           runconfig.Output{URI: outURI, Format: "csv"},
+			Horizon:          12,
+			QuantilePercents: []int{10, 25, 50, 75, 90},
+			Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
 				{Family: models.FamilySBA}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}},
-			Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 4},
+			Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 4, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},
 			Sharding:  runconfig.Sharding{TargetSeriesPerShard: 40},
-			Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 3},
+			Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 3},
 		}
 	}
 	// Run 1 sees 100 weeks of history, run 2 the same weeks and 4 more (the generator draws

@@ -1,25 +1,48 @@
 // Package runconfig is the resolved configuration of one forecast run: the controller renders it
-// into the run's ConfigMap (config.json), every trainer pod reads it, and a run can be reproduced
-// from it alone. It is plain JSON with no Kubernetes types, so the trainer stays independent of
-// the API machinery.
+// from a ForecastPortfolio into the run's ConfigMap (config.json), every trainer pod reads it,
+// and a run can be reproduced from it alone.
+//
+// It speaks the API's language: every field has the name, the unit and the enum spelling of
+// the ForecastPortfolio field it comes from (quantilePercents, models, backtestOrigins,
+// thresholdPercent, windowStatistics, periodsBefore, pooled, Weekly, Objects, ...), with the
+// apiserver's defaults written out, so nothing is left for the trainer to default. The file is
+// versioned (apiVersion and kind, as Kubernetes objects are) and decoded strictly: an unknown
+// key is an error naming it.
+//
+// The package is a contract, not engine: it imports neither the models nor the learners nor
+// gonum (the controller links it), and it checks only what it can without them (required
+// fields, ranges, the spellings it defines itself, decimal strings). The engine's own rules
+// (frequency, metric, families, feature names, combine method) are checked by the trainer when
+// it converts a Config into engine settings (trainer/pipeline.Check), before any input is read.
 package runconfig
 
 import (
+	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
+	"io"
+	"math"
 	"os"
 	"slices"
+	"strconv"
 	"time"
-
-	"almanac.dev/almanac/trainer/features"
-	"almanac.dev/almanac/trainer/models"
 )
 
 // FileName is the name of the rendered configuration inside the ConfigMap and under runs/<run>/.
 const FileName = "config.json"
 
+// APIVersion and Kind head every run configuration; a file with another version is refused.
+const (
+	APIVersion = "trainer.almanac.dev/v1alpha1"
+	Kind       = "ForecastRunConfig"
+)
+
 // Config is everything one run needs.
 type Config struct {
+	// APIVersion is APIVersion and Kind is Kind.
+	APIVersion string `json:"apiVersion"`
+	Kind       string `json:"kind"`
 	// Portfolio and Namespace identify the ForecastPortfolio the run belongs to.
 	Portfolio string `json:"portfolio"`
 	Namespace string `json:"namespace"`
@@ -30,23 +53,26 @@ type Config struct {
 	// Trigger is Schedule, Manual or Drift.
 	Trigger string `json:"trigger"`
 	// ScheduledTime is the schedule time the run stands for (zero for manual runs).
-	ScheduledTime time.Time `json:"scheduledTime,omitempty"`
+	ScheduledTime time.Time `json:"scheduledTime,omitzero"`
 	// PreviousRun is the last successfully published run, whose forecasts this run evaluates and
 	// carries forward for failed shards. Empty: read latest.json, and if absent this is the first run.
 	PreviousRun string `json:"previousRun,omitempty"`
 
-	Source    Source        `json:"source"`
-	Output    Output        `json:"output"`
-	Horizon   int           `json:"horizon"`
-	Quantiles []float64     `json:"quantiles"`
-	Zoo       []models.Spec `json:"zoo"`
-	// Features declares the features of the zoo's regression members whose own Features is
-	// nil (the portfolio's spec.features); nil leaves them to features.Defaults.
-	Features  *features.Config `json:"features,omitempty"`
-	Selection Selection        `json:"selection"`
-	Sharding  Sharding         `json:"sharding"`
-	Drift     Drift            `json:"drift"`
-	// Publish is the publish guard; nil means DefaultPublish.
+	Source Source `json:"source"`
+	Output Output `json:"output"`
+	// Horizon is how many periods ahead to forecast.
+	Horizon int `json:"horizon"`
+	// QuantilePercents are the published quantiles as integer percents, strictly increasing in 1..99.
+	QuantilePercents []int `json:"quantilePercents"`
+	// Models is the zoo, simplest first (ties go to the earlier member).
+	Models []Model `json:"models"`
+	// Features declares what the regression members learn from (spec.features); nil leaves
+	// them to the trainer's default set for the frequency.
+	Features  *Features `json:"features,omitempty"`
+	Selection Selection `json:"selection"`
+	Sharding  Sharding  `json:"sharding"`
+	Drift     Drift     `json:"drift"`
+	// Publish is the publish guard (spec.publish); nil means DefaultPublish.
 	Publish *Publish `json:"publish,omitempty"`
 }
 
@@ -65,7 +91,9 @@ type Publish struct {
 	MaxCarriedForwardPercent int `json:"maxCarriedForwardPercent"`
 }
 
-// DefaultPublish is the guard of a configuration without one, and the API's defaults.
+// DefaultPublish is the guard of a configuration without one (the controller always writes
+// it). It equals the API's defaults; TestDefaultsAreTheCRDs (trainer/pipeline) holds it to the
+// generated CRD.
 var DefaultPublish = Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50}
 
 // PublishGuard returns the configured guard or DefaultPublish.
@@ -76,15 +104,15 @@ func (c *Config) PublishGuard() Publish {
 	return *c.Publish
 }
 
-// Source says where the input series live and how to read them.
+// Source says where the input series live and how to read them (spec.source).
 type Source struct {
 	// URI is a blob URL (file://, s3://, gs://, azblob://, mem://) of one object or a prefix ending in "/".
 	URI string `json:"uri"`
-	// Format is "csv" or "parquet".
+	// Format is FormatCSV or FormatParquet.
 	Format string `json:"format"`
 	// Columns maps the input table's columns.
 	Columns Columns `json:"columns"`
-	// Frequency is one of the series.Frequency values.
+	// Frequency is the API's spelling: Hourly, Daily, Weekly, Monthly, Quarterly or Yearly.
 	Frequency string `json:"frequency"`
 	// WeekAnchor is the weekday weekly periods start on ("Monday".."Sunday").
 	WeekAnchor string `json:"weekAnchor,omitempty"`
@@ -93,20 +121,27 @@ type Source struct {
 	// NonNegative marks the values as demand: negative values are treated per the cleaning rules.
 	NonNegative bool `json:"nonNegative"`
 	// Partitioning says how the input is laid out, which decides the units plan cuts:
-	// PartitionNone ("", the default) makes no promise, and units are hash buckets of the series
-	// key (every train shard reads all input and keeps its buckets' rows); PartitionObject
-	// promises that all rows of a series are in one object, and each object is a unit;
-	// PartitionRowGroup (Parquet only) promises that all rows of a series are in one row group,
-	// and each row group is a unit. A broken promise makes a series appear in two units, each
-	// forecasting it from part of its history, so the default is the safe one.
-	Partitioning string `json:"partitioning,omitempty"`
+	// HashBuckets makes no promise, and units are hash buckets of the series key (every train
+	// shard reads all input and keeps its buckets' rows); Objects promises that all rows of a
+	// series are in one object, and each object is a unit; RowGroups (Parquet only) promises
+	// that all rows of a series are in one row group, and each row group is a unit. A broken
+	// promise makes a series appear in two units, each forecasting it from part of its
+	// history, so the default (HashBuckets) is the safe one.
+	Partitioning string `json:"partitioning"`
 }
+
+// Data formats, spelled as the files' extensions (the one exception to CamelCase enums: they
+// also name the objects' suffix).
+const (
+	FormatCSV     = "csv"
+	FormatParquet = "parquet"
+)
 
 // Input layouts for Source.Partitioning.
 const (
-	PartitionNone     = ""
-	PartitionObject   = "object"
-	PartitionRowGroup = "rowGroup"
+	PartitionHashBuckets = "HashBuckets"
+	PartitionObjects     = "Objects"
+	PartitionRowGroups   = "RowGroups"
 )
 
 // Columns names the input table's columns.
@@ -125,49 +160,146 @@ type Columns struct {
 type Output struct {
 	// URI is the blob URL prefix the run layout is written under.
 	URI string `json:"uri"`
-	// Format of the per-unit tables: "parquet" (default) or "csv".
+	// Format of the per-unit tables: FormatParquet or FormatCSV.
 	Format string `json:"format"`
 }
 
-// Selection configures backtest and per-series choice.
+// Model is one member of the zoo (spec.models[i]).
+type Model struct {
+	// Family is one of the API's model families (ETS, Theta, ...).
+	Family string `json:"family"`
+	// Name is the member's unique name in the zoo; empty means Family.
+	Name string `json:"name,omitempty"`
+	// SeasonLength overrides the season length implied by the frequency; 0 keeps it.
+	SeasonLength int `json:"seasonLength,omitempty"`
+	// SeasonalPeriods overrides the periods of the multi-seasonal families (MSTL*), as decimal
+	// strings from 2 to 8784.
+	SeasonalPeriods []string `json:"seasonalPeriods,omitempty"`
+	// ETS restricts the exponential-smoothing forms searched (component codes).
+	ETS *ETS `json:"ets,omitempty"`
+	// Smoothing fixes the weights of the intermittent-demand families.
+	Smoothing *Smoothing `json:"smoothing,omitempty"`
+	// Regression tunes the learner of the regression families.
+	Regression *Regression `json:"regression,omitempty"`
+}
+
+// DisplayName is Name, or Family when Name is empty.
+func (m Model) DisplayName() string {
+	if m.Name != "" {
+		return m.Name
+	}
+	return m.Family
+}
+
+// ETS lists the component forms to search: errors A, M; trends N, A, Ad; seasons N, A, M.
+type ETS struct {
+	Errors  []string `json:"errors,omitempty"`
+	Trends  []string `json:"trends,omitempty"`
+	Seasons []string `json:"seasons,omitempty"`
+}
+
+// Smoothing holds fixed smoothing weights as decimal strings in (0, 1]; empty means estimated.
+type Smoothing struct {
+	Alpha string `json:"alpha,omitempty"`
+	Beta  string `json:"beta,omitempty"`
+}
+
+// Regression tunes a regression member.
+type Regression struct {
+	// Penalty is a decimal string above 0; empty means chosen per series.
+	Penalty string `json:"penalty,omitempty"`
+	// Pooled fits one model on all series of a shard together.
+	Pooled bool `json:"pooled,omitempty"`
+}
+
+// Features is spec.features: what the regression members learn from.
+type Features struct {
+	// Calendar lists DayOfWeek, WeekOfYear, Month, Quarter, Weekend, PositionInMonth.
+	Calendar []string  `json:"calendar,omitempty"`
+	Events   []Event   `json:"events,omitempty"`
+	Fourier  []Fourier `json:"fourier,omitempty"`
+	// Lags are target lags in periods.
+	Lags []int `json:"lags,omitempty"`
+	// Windows are trailing-window lengths in periods; each gives every WindowStatistics entry.
+	Windows []int `json:"windows,omitempty"`
+	// WindowStatistics lists Mean, Min, Max, Std.
+	WindowStatistics []string `json:"windowStatistics,omitempty"`
+	// Covariates are input covariate columns used as features (each in source.columns.covariates).
+	Covariates    []string          `json:"covariates,omitempty"`
+	CovariateLags []int             `json:"covariateLags,omitempty"`
+	Selection     *FeatureSelection `json:"selection,omitempty"`
+}
+
+// Event is one named holiday or event.
+type Event struct {
+	Name          string   `json:"name"`
+	Dates         []string `json:"dates"`
+	PeriodsBefore int      `json:"periodsBefore,omitempty"`
+	PeriodsAfter  int      `json:"periodsAfter,omitempty"`
+}
+
+// Fourier asks for Order sine/cosine pairs of a cycle of Period periods (a decimal string, at least 2).
+type Fourier struct {
+	Period string `json:"period"`
+	Order  int    `json:"order"`
+}
+
+// FeatureSelection narrows the generated features: Filter Correlation, MutualInformation or
+// None; Embedded Lasso or None; FilterKeep and MaxFeatures 0 mean no limit.
+type FeatureSelection struct {
+	Filter      string `json:"filter,omitempty"`
+	FilterKeep  int    `json:"filterKeep,omitempty"`
+	Embedded    string `json:"embedded,omitempty"`
+	MaxFeatures int    `json:"maxFeatures,omitempty"`
+}
+
+// Selection configures the backtest and the per-series choice (spec.selection).
 type Selection struct {
-	Metric        string `json:"metric"`
-	Origins       int    `json:"origins"`
-	Step          int    `json:"step"`
-	CombineTop    int    `json:"combineTop,omitempty"`
-	CombineMethod string `json:"combineMethod,omitempty"`
-	// CombineMargin is a fraction >= 0 (selection.Config.CombineMargin): the combination is
-	// chosen unless the best single member's backtest score is lower than the combination's by
-	// more than this fraction of the best member's score. 0 chooses it only when strictly
-	// better; the controller renders spec.selection.combine.marginPercent / 100. Checked by
-	// selection.Config.Validate, like the other selection settings.
-	CombineMargin float64 `json:"combineMargin,omitempty"`
-	// UpdateBacktest fits each member once, at the earliest backtest origin, and carries the
-	// fit forward to the later ones (selection.Config.BacktestUpdate); false re-estimates at
-	// every origin.
-	UpdateBacktest bool `json:"updateBacktest,omitempty"`
-	// Design is how the trainer decides its design (trainer/design): "auto", "perSeries" or
-	// "fixed". Empty means fixed, what a configuration written before the field meant; the
-	// controller always renders it (spec.selection.design, default Auto).
-	Design string `json:"design,omitempty"`
-	// DesignCostLimit is Auto's CPU budget per series as a multiple of the simplest candidate
-	// design's (design.Options.CostLimit; 0: design.DefaultCostLimit); the controller renders
-	// spec.selection.designCostPercent / 100.
-	DesignCostLimit float64 `json:"designCostLimit,omitempty"`
+	// Metric is the API's metric name (MASE, RMSSE, sMAPE, ...).
+	Metric string `json:"metric"`
+	// BacktestOrigins is the number of rolling origins and BacktestStep the periods between them.
+	BacktestOrigins int `json:"backtestOrigins"`
+	BacktestStep    int `json:"backtestStep"`
+	// BacktestRefit is RefitOnce or RefitEveryOrigin.
+	BacktestRefit string `json:"backtestRefit"`
+	// Combine, when set, also scores the combination of the best members.
+	Combine *Combine `json:"combine,omitempty"`
+	// Design is how the trainer decides its design (trainer/design): DesignAuto, DesignPerSeries
+	// or DesignFixed.
+	Design string `json:"design"`
+	// DesignCostPercent is Auto's CPU budget per series in percent of the simplest candidate
+	// design's.
+	DesignCostPercent int `json:"designCostPercent"`
 }
 
 // The values of Selection.Design.
 const (
-	DesignAuto      = "auto"
-	DesignPerSeries = "perSeries"
-	DesignFixed     = "fixed"
+	DesignAuto      = "Auto"
+	DesignPerSeries = "PerSeries"
+	DesignFixed     = "Fixed"
 )
+
+// Backtest refit choices for Selection.BacktestRefit.
+const (
+	RefitOnce        = "Once"
+	RefitEveryOrigin = "EveryOrigin"
+)
+
+// Combine configures forecast combination (spec.selection.combine).
+type Combine struct {
+	// Top is how many of the best members to combine (at least 2).
+	Top int `json:"top"`
+	// Method is Mean or Median.
+	Method string `json:"method"`
+	// MarginPercent keeps the combination while combined <= best * (1 + MarginPercent/100).
+	MarginPercent int `json:"marginPercent"`
+}
 
 // Sharding configures how plan cuts units into shards.
 type Sharding struct {
 	// TargetSeriesPerShard is the number of series a shard should hold, approximately.
 	TargetSeriesPerShard int `json:"targetSeriesPerShard"`
-	// Buckets fixes the number of hash buckets for unpartitioned input (a power of two, at most
+	// Buckets fixes the number of hash buckets for HashBuckets input (a power of two, at most
 	// MaxBuckets). 0 lets plan keep the previous run's count, or choose one on the first run.
 	Buckets int `json:"buckets,omitempty"`
 }
@@ -177,10 +309,11 @@ const MaxBuckets = 1 << 16
 
 // Drift configures how the trainer flags a series whose realized accuracy slipped.
 type Drift struct {
-	// Metric used for expected and realized error (same as selection unless set).
+	// Metric used for expected and realized error (the controller writes the selection metric
+	// when the portfolio names none).
 	Metric string `json:"metric"`
-	// ThresholdRatio: a series drifts when realized / expected > ThresholdRatio.
-	ThresholdRatio float64 `json:"thresholdRatio"`
+	// ThresholdPercent: a series drifts when realized error exceeds this percent of expected.
+	ThresholdPercent int `json:"thresholdPercent"`
 	// MinEvaluatedPoints is the fewest new actuals a series needs before it is judged. The
 	// controller renders min(portfolio spec.drift.minEvaluatedPoints, horizon): the spec's value
 	// counts actuals across the whole portfolio and is applied by the controller to the sums.
@@ -196,10 +329,11 @@ func Load(path string) (*Config, error) {
 	return Parse(b, path)
 }
 
-// Parse decodes and validates a configuration; name is used in error messages.
+// Parse decodes strictly (an unknown key, a wrong type or trailing data is an error) and
+// validates a configuration; name (a file, a ConfigMap) is used in error messages.
 func Parse(b []byte, name string) (*Config, error) {
 	var c Config
-	if err := json.Unmarshal(b, &c); err != nil {
+	if err := decodeStrict(b, &c); err != nil {
 		return nil, fmt.Errorf("runconfig: %s: %w", name, err)
 	}
 	if err := c.Validate(); err != nil {
@@ -208,41 +342,110 @@ func Parse(b []byte, name string) (*Config, error) {
 	return &c, nil
 }
 
-// Validate checks the fields the trainer cannot work without; errors name the JSON field.
+func decodeStrict(b []byte, c *Config) error {
+	d := json.NewDecoder(bytes.NewReader(b))
+	d.DisallowUnknownFields()
+	if err := d.Decode(c); err != nil {
+		var te *json.UnmarshalTypeError
+		if errors.As(err, &te) && te.Field != "" {
+			return fmt.Errorf("%s: %s is not a %s", te.Field, te.Value, te.Type)
+		}
+		return err
+	}
+	if _, err := d.Token(); !errors.Is(err, io.EOF) {
+		return fmt.Errorf("data after the configuration object")
+	}
+	return nil
+}
+
+// Encode writes c as indented JSON with a final newline: the bytes the controller puts in the
+// ConfigMap, and what `almanac-trainer render` prints.
+func Encode(c *Config) ([]byte, error) {
+	b, err := json.MarshalIndent(c, "", "  ")
+	if err != nil {
+		return nil, err
+	}
+	return append(b, '\n'), nil
+}
+
+// Validate checks what the contract itself defines; errors start with the JSON path of the
+// field. The engine's rules are checked by the trainer (trainer/pipeline.Check).
 func (c *Config) Validate() error {
 	switch {
+	case c.APIVersion != APIVersion:
+		return fmt.Errorf("apiVersion: %q is not %q", c.APIVersion, APIVersion)
+	case c.Kind != Kind:
+		return fmt.Errorf("kind: %q is not %q", c.Kind, Kind)
 	case c.Run == "":
 		return fmt.Errorf("run: must be set")
 	case c.Source.URI == "":
 		return fmt.Errorf("source.uri: must be set")
-	case c.Source.Format != "csv" && c.Source.Format != "parquet":
-		return fmt.Errorf("source.format: %q is not csv or parquet", c.Source.Format)
+	case c.Source.Format != FormatCSV && c.Source.Format != FormatParquet:
+		return fmt.Errorf("source.format: %q is not %s or %s", c.Source.Format, FormatCSV, FormatParquet)
+	case c.Source.Frequency == "":
+		return fmt.Errorf("source.frequency: must be set")
 	case len(c.Source.Columns.Series) == 0:
 		return fmt.Errorf("source.columns.series: at least one key column")
-	case c.Source.Columns.Date == "" || c.Source.Columns.Value == "":
-		return fmt.Errorf("source.columns: date and value must be named")
+	case c.Source.Columns.Date == "":
+		return fmt.Errorf("source.columns.date: must be set")
+	case c.Source.Columns.Value == "":
+		return fmt.Errorf("source.columns.value: must be set")
+	case c.Source.Columns.Date == c.Source.Columns.Value:
+		return fmt.Errorf("source.columns: date and value must be different columns, both are %q", c.Source.Columns.Date)
+	case !slices.Contains([]string{PartitionHashBuckets, PartitionObjects, PartitionRowGroups}, c.Source.Partitioning):
+		return fmt.Errorf("source.partitioning: %q is not %s, %s or %s", c.Source.Partitioning, PartitionHashBuckets, PartitionObjects, PartitionRowGroups)
+	case c.Source.Partitioning == PartitionRowGroups && c.Source.Format != FormatParquet:
+		return fmt.Errorf("source.partitioning: %s needs source.format %s", PartitionRowGroups, FormatParquet)
 	case c.Output.URI == "":
 		return fmt.Errorf("output.uri: must be set")
-	case c.Output.Format != "" && c.Output.Format != "csv" && c.Output.Format != "parquet":
-		return fmt.Errorf("output.format: %q is not csv or parquet", c.Output.Format)
+	case c.Output.Format != FormatCSV && c.Output.Format != FormatParquet:
+		return fmt.Errorf("output.format: %q is not %s or %s", c.Output.Format, FormatCSV, FormatParquet)
 	case c.Horizon < 1:
 		return fmt.Errorf("horizon: must be >= 1, got %d", c.Horizon)
-	case len(c.Zoo) == 0:
-		return fmt.Errorf("zoo: at least one model")
+	case len(c.Models) == 0:
+		return fmt.Errorf("models: at least one model")
+	case c.Selection.Metric == "":
+		return fmt.Errorf("selection.metric: must be set")
+	case c.Selection.BacktestOrigins < 1:
+		return fmt.Errorf("selection.backtestOrigins: must be >= 1, got %d", c.Selection.BacktestOrigins)
+	case c.Selection.BacktestStep < 1:
+		return fmt.Errorf("selection.backtestStep: must be >= 1, got %d", c.Selection.BacktestStep)
+	case c.Selection.BacktestRefit != RefitOnce && c.Selection.BacktestRefit != RefitEveryOrigin:
+		return fmt.Errorf("selection.backtestRefit: %q is not %s or %s", c.Selection.BacktestRefit, RefitOnce, RefitEveryOrigin)
+	case c.Selection.Design != DesignAuto && c.Selection.Design != DesignPerSeries && c.Selection.Design != DesignFixed:
+		return fmt.Errorf("selection.design: %q is not %s, %s or %s", c.Selection.Design, DesignAuto, DesignPerSeries, DesignFixed)
+	case c.Selection.DesignCostPercent < 100:
+		return fmt.Errorf("selection.designCostPercent: must be >= 100, got %d", c.Selection.DesignCostPercent)
 	case c.Sharding.TargetSeriesPerShard < 1:
 		return fmt.Errorf("sharding.targetSeriesPerShard: must be >= 1, got %d", c.Sharding.TargetSeriesPerShard)
 	case c.Sharding.Buckets < 0 || c.Sharding.Buckets > MaxBuckets || c.Sharding.Buckets&(c.Sharding.Buckets-1) != 0:
 		return fmt.Errorf("sharding.buckets: %d is not 0 or a power of two up to %d", c.Sharding.Buckets, MaxBuckets)
-	case c.Source.Partitioning != PartitionNone && c.Source.Partitioning != PartitionObject && c.Source.Partitioning != PartitionRowGroup:
-		return fmt.Errorf("source.partitioning: %q is not %q, %q or %q", c.Source.Partitioning, PartitionNone, PartitionObject, PartitionRowGroup)
-	case c.Source.Partitioning == PartitionRowGroup && c.Source.Format != "parquet":
-		return fmt.Errorf("source.partitioning: %q needs source.format parquet", PartitionRowGroup)
-	case c.Selection.Design != "" && c.Selection.Design != DesignAuto && c.Selection.Design != DesignPerSeries && c.Selection.Design != DesignFixed:
-		return fmt.Errorf("selection.design: %q is not %q, %q or %q", c.Selection.Design, DesignAuto, DesignPerSeries, DesignFixed)
-	case c.Selection.DesignCostLimit != 0 && !(c.Selection.DesignCostLimit >= 1 && c.Selection.DesignCostLimit <= 1000):
-		return fmt.Errorf("selection.designCostLimit: %v is not 0 (the default) or a ratio in [1, 1000]", c.Selection.DesignCostLimit)
-	case c.Drift.ThresholdRatio < 0 || c.Drift.MinEvaluatedPoints < 0:
-		return fmt.Errorf("drift: thresholdRatio and minEvaluatedPoints must be >= 0")
+	case c.Drift.Metric == "":
+		return fmt.Errorf("drift.metric: must be set")
+	case c.Drift.ThresholdPercent < 1:
+		return fmt.Errorf("drift.thresholdPercent: must be >= 1, got %d", c.Drift.ThresholdPercent)
+	case c.Drift.MinEvaluatedPoints < 0:
+		return fmt.Errorf("drift.minEvaluatedPoints: must be >= 0, got %d", c.Drift.MinEvaluatedPoints)
+	}
+	for i, k := range c.Source.Columns.Series {
+		if k == "" || slices.Contains(c.Source.Columns.Series[:i], k) {
+			return fmt.Errorf("source.columns.series[%d]: %q is empty or repeated", i, k)
+		}
+	}
+	for i, p := range c.QuantilePercents {
+		if p < 1 || p > 99 || (i > 0 && p <= c.QuantilePercents[i-1]) {
+			return fmt.Errorf("quantilePercents[%d]: %d must be in 1..99 and strictly increasing", i, p)
+		}
+	}
+	if cb := c.Selection.Combine; cb != nil {
+		switch {
+		case cb.Top < 2 || cb.Top > len(c.Models):
+			return fmt.Errorf("selection.combine.top: %d is not in 2..%d (the number of models)", cb.Top, len(c.Models))
+		case cb.Method == "":
+			return fmt.Errorf("selection.combine.method: must be set")
+		case cb.MarginPercent < 0:
+			return fmt.Errorf("selection.combine.marginPercent: must be >= 0, got %d", cb.MarginPercent)
+		}
 	}
 	if g := c.Publish; g != nil {
 		for _, f := range []struct {
@@ -254,38 +457,83 @@ func (c *Config) Validate() error {
 			}
 		}
 	}
-	for i, q := range c.Quantiles {
-		if !(q > 0 && q < 1) || (i > 0 && q <= c.Quantiles[i-1]) {
-			return fmt.Errorf("quantiles[%d]: %v must be in (0,1) and strictly increasing", i, q)
+	names := map[string]bool{}
+	for i, m := range c.Models {
+		if err := m.validate(); err != nil {
+			return fmt.Errorf("models[%d].%w", i, err)
 		}
+		if names[m.DisplayName()] {
+			return fmt.Errorf("models[%d]: the name %q is used twice (name defaults to family)", i, m.DisplayName())
+		}
+		names[m.DisplayName()] = true
 	}
-	if err := c.checkFeatures(c.Features, ""); err != nil {
-		return err
-	}
-	for i, m := range c.Zoo {
-		if err := c.checkFeatures(m.Features, fmt.Sprintf("zoo[%d].", i)); err != nil {
-			return err
+	if c.Features != nil {
+		if err := c.Features.validate(c.Source.Columns.Covariates); err != nil {
+			return fmt.Errorf("features.%w", err)
 		}
 	}
 	return nil
 }
 
-// checkFeatures validates a feature declaration (features.Config.Validate, whose errors start
-// with "features.") and checks that every covariate it uses is one the input carries
-// (source.columns.covariates): otherwise every series would fail the member at train time.
-// prefix is prepended to the field path.
-func (c *Config) checkFeatures(f *features.Config, prefix string) error {
-	if f == nil {
-		return nil
+// validate checks one member; errors start with the field below models[i].
+func (m Model) validate() error {
+	if m.Family == "" {
+		return fmt.Errorf("family: must be set")
 	}
-	if err := f.Validate(); err != nil {
-		return fmt.Errorf("%s%w", prefix, err)
+	if m.SeasonLength < 0 {
+		return fmt.Errorf("seasonLength: must be >= 1 when set, got %d", m.SeasonLength)
 	}
-	for i, name := range f.Covariates {
-		if !slices.Contains(c.Source.Columns.Covariates, name) {
-			return fmt.Errorf("%sfeatures.covariates[%d]: %q is not among source.columns.covariates %v",
-				prefix, i, name, c.Source.Columns.Covariates)
+	for i, p := range m.SeasonalPeriods {
+		if x, err := Decimal(p, 0, 8784, true); err != nil || x < 2 {
+			return fmt.Errorf("seasonalPeriods[%d]: %q is not a decimal from 2 to 8784", i, p)
+		}
+	}
+	if s := m.Smoothing; s != nil {
+		if _, err := Decimal(s.Alpha, 0, 1, true); err != nil {
+			return fmt.Errorf("smoothing.alpha: %w", err)
+		}
+		if _, err := Decimal(s.Beta, 0, 1, true); err != nil {
+			return fmt.Errorf("smoothing.beta: %w", err)
+		}
+	}
+	if r := m.Regression; r != nil {
+		if _, err := Decimal(r.Penalty, 0, math.Inf(1), false); err != nil {
+			return fmt.Errorf("regression.penalty: %w", err)
 		}
 	}
 	return nil
+}
+
+// validate checks the contract's part of the features (decimal strings, covariates the input
+// carries); the names and ranges are the engine's (features.Config.Validate). Errors start
+// with the field below features.
+func (f *Features) validate(inputCovariates []string) error {
+	for i, ft := range f.Fourier {
+		p, err := Decimal(ft.Period, 0, math.Inf(1), false)
+		if err != nil || p < 2 {
+			return fmt.Errorf("fourier[%d].period: %q is not a decimal of at least 2", i, ft.Period)
+		}
+	}
+	for i, name := range f.Covariates {
+		if !slices.Contains(inputCovariates, name) {
+			return fmt.Errorf("covariates[%d]: %q is not among source.columns.covariates %v", i, name, inputCovariates)
+		}
+	}
+	return nil
+}
+
+// Decimal parses a decimal string of the API (no floats in the API) into lo < x <= hi when
+// closed, lo < x < hi otherwise; the empty string is 0, "not set".
+func Decimal(s string, lo, hi float64, closed bool) (float64, error) {
+	if s == "" {
+		return 0, nil
+	}
+	x, err := strconv.ParseFloat(s, 64)
+	if err != nil || math.IsNaN(x) || !(x > lo) || x > hi || (!closed && x == hi) {
+		if closed {
+			return 0, fmt.Errorf("%q is not a decimal in (%v, %v]", s, lo, hi)
+		}
+		return 0, fmt.Errorf("%q is not a decimal above %v", s, lo)
+	}
+	return x, nil
 }

@@ -1,25 +1,25 @@
 package runconfig
 
 import (
-	"math"
+	"os/exec"
 	"strings"
 	"testing"
-
-	"almanac.dev/almanac/trainer/features"
-	"almanac.dev/almanac/trainer/models"
 )
 
 // valid returns a configuration that passes Validate (Fenwick Lane Provisions' daily demand).
 func valid() Config {
 	return Config{
-		Run: "flp-daily-0001",
-		Source: Source{URI: "file:///data/flp/in/", Format: "csv", Frequency: "daily",
+		APIVersion: APIVersion, Kind: Kind,
+		Run: "flp-daily-0001", Trigger: "Manual",
+		Source: Source{URI: "file:///data/flp/in/", Format: FormatCSV, Frequency: "Daily", Partitioning: PartitionHashBuckets,
 			Columns: Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units"}},
-		Output:    Output{URI: "file:///data/flp/out/", Format: "csv"},
-		Horizon:   14,
-		Quantiles: []float64{0.1, 0.5, 0.9},
-		Zoo:       []models.Spec{{Family: "Naive"}},
-		Sharding:  Sharding{TargetSeriesPerShard: 500},
+		Output:           Output{URI: "file:///data/flp/out/", Format: FormatCSV},
+		Horizon:          14,
+		QuantilePercents: []int{10, 50, 90},
+		Models:           []Model{{Family: "Naive"}, {Family: "ETS"}},
+		Selection:        Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: RefitOnce, Design: DesignAuto, DesignCostPercent: 500},
+		Sharding:         Sharding{TargetSeriesPerShard: 500},
+		Drift:            Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 14},
 	}
 }
 
@@ -29,42 +29,62 @@ func TestValidate(t *testing.T) {
 		field string // "" means valid
 	}{
 		"valid":                   {func(*Config) {}, ""},
+		"no apiVersion":           {func(c *Config) { c.APIVersion = "" }, "apiVersion"},
+		"other kind":              {func(c *Config) { c.Kind = "ForecastPortfolio" }, "kind"},
 		"no run":                  {func(c *Config) { c.Run = "" }, "run:"},
 		"bad source format":       {func(c *Config) { c.Source.Format = "xlsx" }, "source.format"},
+		"no frequency":            {func(c *Config) { c.Source.Frequency = "" }, "source.frequency"},
 		"no key column":           {func(c *Config) { c.Source.Columns.Series = nil }, "source.columns.series"},
+		"repeated key column":     {func(c *Config) { c.Source.Columns.Series = []string{"item", "item"} }, "source.columns.series[1]"},
+		"date and value the same": {func(c *Config) { c.Source.Columns.Value = "date" }, "source.columns"},
 		"zero horizon":            {func(c *Config) { c.Horizon = 0 }, "horizon"},
-		"empty zoo":               {func(c *Config) { c.Zoo = nil }, "zoo"},
-		"quantiles unordered":     {func(c *Config) { c.Quantiles = []float64{0.9, 0.1} }, "quantiles[1]"},
+		"no models":               {func(c *Config) { c.Models = nil }, "models"},
+		"model without family":    {func(c *Config) { c.Models[1].Family = "" }, "models[1].family"},
+		"two members one name":    {func(c *Config) { c.Models[1].Name = "Naive" }, "models[1]"},
+		"quantiles unordered":     {func(c *Config) { c.QuantilePercents = []int{90, 10} }, "quantilePercents[1]"},
+		"quantile 100":            {func(c *Config) { c.QuantilePercents = []int{50, 100} }, "quantilePercents[1]"},
+		"no quantiles":            {func(c *Config) { c.QuantilePercents = nil }, ""},
+		"no metric":               {func(c *Config) { c.Selection.Metric = "" }, "selection.metric"},
+		"zero origins":            {func(c *Config) { c.Selection.BacktestOrigins = 0 }, "selection.backtestOrigins"},
+		"zero step":               {func(c *Config) { c.Selection.BacktestStep = 0 }, "selection.backtestStep"},
+		"refit lower case":        {func(c *Config) { c.Selection.BacktestRefit = "once" }, "selection.backtestRefit"},
 		"buckets power of two":    {func(c *Config) { c.Sharding.Buckets = 64 }, ""},
 		"buckets not pow2":        {func(c *Config) { c.Sharding.Buckets = 48 }, "sharding.buckets"},
 		"buckets too many":        {func(c *Config) { c.Sharding.Buckets = MaxBuckets * 2 }, "sharding.buckets"},
 		"buckets negative":        {func(c *Config) { c.Sharding.Buckets = -1 }, "sharding.buckets"},
-		"partition object":        {func(c *Config) { c.Source.Partitioning = PartitionObject }, ""},
-		"partition unknown":       {func(c *Config) { c.Source.Partitioning = "series" }, "source.partitioning"},
-		"row groups need parquet": {func(c *Config) { c.Source.Partitioning = PartitionRowGroup }, "source.partitioning"},
-		"design unknown":          {func(c *Config) { c.Selection.Design = "Auto" }, "selection.design"},
-		"design cost below 1":     {func(c *Config) { c.Selection.DesignCostLimit = 0.5 }, "selection.designCostLimit"},
-		"design cost NaN":         {func(c *Config) { c.Selection.DesignCostLimit = math.NaN() }, "selection.designCostLimit"},
+		"partition objects":       {func(c *Config) { c.Source.Partitioning = PartitionObjects }, ""},
+		"partition lower case":    {func(c *Config) { c.Source.Partitioning = "object" }, "source.partitioning"},
+		"partition unset":         {func(c *Config) { c.Source.Partitioning = "" }, "source.partitioning"},
+		"row groups need parquet": {func(c *Config) { c.Source.Partitioning = PartitionRowGroups }, "source.partitioning"},
 		"row groups parquet": {func(c *Config) {
-			c.Source.Partitioning = PartitionRowGroup
-			c.Source.Format = "parquet"
+			c.Source.Partitioning = PartitionRowGroups
+			c.Source.Format = FormatParquet
 		}, ""},
-		"negative drift ratio": {func(c *Config) { c.Drift.ThresholdRatio = -1 }, "drift"},
-		"combine margin 100":   {func(c *Config) { c.Selection.CombineMargin = 100 }, ""},
+		"zero drift threshold":  {func(c *Config) { c.Drift.ThresholdPercent = 0 }, "drift.thresholdPercent"},
+		"no drift metric":       {func(c *Config) { c.Drift.Metric = "" }, "drift.metric"},
+		"combine margin 10000":  {func(c *Config) { c.Selection.Combine = &Combine{Top: 2, Method: "Mean", MarginPercent: 10000} }, ""},
+		"combine more than zoo": {func(c *Config) { c.Selection.Combine = &Combine{Top: 3, Method: "Mean"} }, "selection.combine.top"},
+		"combine no method":     {func(c *Config) { c.Selection.Combine = &Combine{Top: 2} }, "selection.combine.method"},
+		"smoothing weight": {func(c *Config) {
+			c.Models[0] = Model{Family: "TSB", Smoothing: &Smoothing{Alpha: "0.1", Beta: "1.5"}}
+		}, "models[0].smoothing.beta"},
+		"penalty": {func(c *Config) {
+			c.Models[0] = Model{Family: "Lasso", Regression: &Regression{Penalty: "-2"}}
+		}, "models[0].regression.penalty"},
 		"features with a known covariate": {func(c *Config) {
 			c.Source.Columns.Covariates = []string{"promo_flag", "price"}
-			c.Features = &features.Config{Lags: []int{1, 52}, Covariates: []string{"price"}}
+			c.Features = &Features{Lags: []int{1, 52}, Covariates: []string{"price"}}
 		}, ""},
 		"features with an unknown covariate": {func(c *Config) {
 			c.Source.Columns.Covariates = []string{"promo_flag"}
-			c.Features = &features.Config{Covariates: []string{"promo_flag", "weather"}}
+			c.Features = &Features{Covariates: []string{"promo_flag", "weather"}}
 		}, "features.covariates[1]"},
-		"features with a zero lag": {func(c *Config) {
-			c.Features = &features.Config{Lags: []int{0}}
-		}, "features.lags[0]"},
-		"member features with an unknown covariate": {func(c *Config) {
-			c.Zoo = append(c.Zoo, models.Spec{Family: "Ridge", Features: &features.Config{Covariates: []string{"price"}}})
-		}, "zoo[1].features.covariates[0]"},
+		"Fourier period below 2": {func(c *Config) {
+			c.Features = &Features{Fourier: []Fourier{{Period: "1.5", Order: 1}}}
+		}, "features.fourier[0].period"},
+		"Fourier period of 2": {func(c *Config) {
+			c.Features = &Features{Fourier: []Fourier{{Period: "2", Order: 1}}}
+		}, ""},
 	}
 	for name, tc := range cases {
 		t.Run(name, func(t *testing.T) {
@@ -81,45 +101,78 @@ func TestValidate(t *testing.T) {
 	}
 }
 
-func TestParseNamesTheFile(t *testing.T) {
-	_, err := Parse([]byte(`{"run": "x"`), "/etc/almanac/run/config.json")
-	if err == nil || !strings.Contains(err.Error(), "/etc/almanac/run/config.json") {
-		t.Fatalf("Parse(truncated) = %v, want the file named", err)
-	}
-	b := []byte(`{"run":"r1","source":{"uri":"mem://in/","format":"csv","partitioning":"object",
-		"columns":{"series":["item"],"date":"date","value":"units"},"frequency":"daily"},
-		"output":{"uri":"mem://out/"},"horizon":7,"zoo":[{"family":"Naive"}],
-		"selection":{"combineMargin":0.25},
-		"sharding":{"targetSeriesPerShard":10,"buckets":8}}`)
-	c, err := Parse(b, "inline")
+// TestParseIsStrict: a key the contract does not define (here the names the run configuration
+// used before it took the API's: zoo, quantiles, origins) is an error naming the key and the
+// file, not a silently ignored setting; so are a wrong type and trailing data.
+func TestParseIsStrict(t *testing.T) {
+	good, err := Encode(ptr(valid()))
 	if err != nil {
 		t.Fatal(err)
 	}
-	if c.Source.Partitioning != PartitionObject || c.Sharding.Buckets != 8 || c.Selection.CombineMargin != 0.25 {
-		t.Fatalf("new fields not decoded: %+v %+v %+v", c.Source, c.Sharding, c.Selection)
+	if _, err := Parse(good, "inline"); err != nil {
+		t.Fatalf("Parse(Encode(valid())) = %v", err)
+	}
+	for name, tc := range map[string]struct{ from, to, want string }{
+		"old zoo key":         {`"models": [`, `"zoo": [`, `unknown field "zoo"`},
+		"unknown nested key":  {`"backtestOrigins": 3`, `"origins": 3`, `unknown field "origins"`},
+		"unknown feature key": {`"horizon": 14`, `"horizon": 14, "features": {"lags": [1], "stats": ["mean"]}`, `unknown field "stats"`},
+		"string for a number": {`"horizon": 14`, `"horizon": "14"`, `horizon`},
+		"trailing data":       {"}\n", "}\n{}", "data after"},
+	} {
+		t.Run(name, func(t *testing.T) {
+			b := strings.Replace(string(good), tc.from, tc.to, 1)
+			if b == string(good) && tc.from != "}\n" {
+				t.Fatalf("edit %q not applied", tc.from)
+			}
+			if name == "trailing data" {
+				b = string(good) + "{}"
+			}
+			_, err := Parse([]byte(b), "/etc/almanac/run/config.json")
+			if err == nil || !strings.Contains(err.Error(), tc.want) || !strings.Contains(err.Error(), "/etc/almanac/run/config.json") {
+				t.Fatalf("Parse = %v, want the file and %q named", err, tc.want)
+			}
+		})
 	}
 }
 
-// TestFeaturesRoundTrip: the features block survives the ConfigMap's JSON, and a bad one is
-// refused by Parse with the file and the field named.
-func TestFeaturesRoundTrip(t *testing.T) {
-	b := []byte(`{"run":"r1","source":{"uri":"mem://in/","format":"csv",
-		"columns":{"series":["item"],"date":"week_start","value":"units","covariates":["promo_flag","price"]},"frequency":"weekly"},
-		"output":{"uri":"mem://out/"},"horizon":8,"zoo":[{"family":"ETS"}],"sharding":{"targetSeriesPerShard":10},
-		"features":{"lags":[1,52],"covariates":["promo_flag","price"],"covariateLags":[1],
-			"events":[{"name":"harvest-fair","dates":["2026-09-05"],"lead":1}],
-			"fourier":[{"period":52.18,"order":3}],"selection":{"filter":"correlation","maxFeatures":8}}}`)
-	c, err := Parse(b, "inline")
+// TestEncodeRoundTrips: what Encode writes, Parse reads back, and encoding that again gives the
+// same bytes (the controller's ConfigMap, `almanac-trainer render` and config.json agree).
+func TestEncodeRoundTrips(t *testing.T) {
+	c := valid()
+	c.Source.Columns.Covariates = []string{"promo_flag", "price"}
+	c.Models = append(c.Models, Model{Family: "Ridge", Regression: &Regression{Penalty: "0.25", Pooled: true}})
+	c.Features = &Features{Calendar: []string{"WeekOfYear"}, Events: []Event{{Name: "harvest-fair", Dates: []string{"2026-09-05"}, PeriodsBefore: 1}},
+		Fourier: []Fourier{{Period: "52.18", Order: 3}}, Lags: []int{1, 52}, Windows: []int{4}, WindowStatistics: []string{"Mean"},
+		Covariates: []string{"promo_flag"}, Selection: &FeatureSelection{Filter: "MutualInformation", FilterKeep: 12, MaxFeatures: 6}}
+	c.Selection.Combine = &Combine{Top: 2, Method: "Median", MarginPercent: 5}
+	b1, err := Encode(&c)
 	if err != nil {
 		t.Fatal(err)
 	}
-	f := c.Features
-	if f == nil || len(f.Lags) != 2 || f.Events[0].Lead != 1 || f.Fourier[0].Period != 52.18 || f.Selection.MaxFeatures != 8 {
-		t.Fatalf("features not decoded: %+v", f)
+	back, err := Parse(b1, "inline")
+	if err != nil {
+		t.Fatal(err)
 	}
-	bad := strings.Replace(string(b), `"lead":1`, `"lead":-1`, 1)
-	if _, err := Parse([]byte(bad), "/etc/almanac/run/config.json"); err == nil ||
-		!strings.Contains(err.Error(), "/etc/almanac/run/config.json: features.events[0]") {
-		t.Fatalf("Parse(negative lead) = %v, want the file and features.events[0] named", err)
+	b2, err := Encode(back)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if string(b1) != string(b2) {
+		t.Fatalf("round trip changed the file:\n%s\n---\n%s", b1, b2)
 	}
 }
+
+// TestNoEngineImports: the contract links none of the engine (the controller imports it).
+func TestNoEngineImports(t *testing.T) {
+	out, err := exec.Command("go", "list", "-deps", ".").Output()
+	if err != nil {
+		t.Skipf("go list: %v", err)
+	}
+	for _, p := range strings.Fields(string(out)) {
+		if strings.Contains(p, "gonum.org/") || strings.HasPrefix(p, "almanac.dev/almanac/") && p != "almanac.dev/almanac/trainer/runconfig" {
+			t.Errorf("runconfig depends on %s", p)
+		}
+	}
+}
+
+func ptr[T any](v T) *T { return &v }

@@ -71,10 +71,10 @@ func TestOrdinalAgreesWithStep(t *testing.T) {
 }
 
 func TestParseFrequencyAndWeekday(t *testing.T) {
-	if f, err := ParseFrequency("weekly"); err != nil || f != Weekly {
-		t.Errorf("weekly: %v %v", f, err)
+	if f, err := ParseFrequency("Weekly"); err != nil || f != Weekly {
+		t.Errorf("Weekly: %v %v", f, err)
 	}
-	for _, bad := range []string{"", "Weekly", "fortnightly"} {
+	for _, bad := range []string{"", "weekly", "fortnightly"} {
 		if _, err := ParseFrequency(bad); err == nil {
 			t.Errorf("ParseFrequency(%q) accepted", bad)
 		}

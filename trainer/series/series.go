@@ -11,12 +11,12 @@ type Frequency string
 
 // The frequencies the engine understands. Weekly series are anchored on a weekday (see Series.Start).
 const (
-	Hourly    Frequency = "hourly"
-	Daily     Frequency = "daily"
-	Weekly    Frequency = "weekly"
-	Monthly   Frequency = "monthly"
-	Quarterly Frequency = "quarterly"
-	Yearly    Frequency = "yearly"
+	Hourly    Frequency = "Hourly"
+	Daily     Frequency = "Daily"
+	Weekly    Frequency = "Weekly"
+	Monthly   Frequency = "Monthly"
+	Quarterly Frequency = "Quarterly"
+	Yearly    Frequency = "Yearly"
 )
 
 // SeasonLength returns the usual seasonal period m for the frequency (common practice:

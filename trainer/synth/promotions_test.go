@@ -13,7 +13,7 @@ import (
 	"almanac.dev/almanac/trainer/series"
 )
 
-var promoSource = runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday",
+var promoSource = runconfig.Source{Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday",
 	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units", Covariates: []string{"promo_flag", "price"}}}
 
 // collectPlan reads a promotion-scenario depot through the trainer's reader with the history

@@ -12,7 +12,7 @@ import (
 	"almanac.dev/almanac/trainer/store"
 )
 
-var source = runconfig.Source{Format: "csv", Frequency: "daily",
+var source = runconfig.Source{Format: "csv", Frequency: "Daily",
 	Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}}
 
 func csvOf(t *testing.T, o Options, d int) []byte {
@@ -133,7 +133,7 @@ func TestWeeklyAndParquet(t *testing.T) {
 		t.Fatalf("Write = %v, %v", keys, err)
 	}
 	src := source
-	src.Format, src.Frequency, src.WeekAnchor = "parquet", "weekly", "Monday"
+	src.Format, src.Frequency, src.WeekAnchor = "parquet", "Weekly", "Monday"
 	src.Columns.Date = "week_start"
 	ra, size, err := st.NewReaderAt(context.Background(), keys[1])
 	if err != nil {
@@ -148,7 +148,7 @@ func TestWeeklyAndParquet(t *testing.T) {
 		t.Fatalf("%d series, %d rejected, first %+v", len(ok), len(rej), ok[0].Start)
 	}
 	// The Parquet rows equal the CSV rows.
-	vals, _, _ := collect(t, csvOf(t, o, 1), runconfig.Source{Format: "csv", Frequency: "weekly", WeekAnchor: "Monday", Columns: src.Columns})
+	vals, _, _ := collect(t, csvOf(t, o, 1), runconfig.Source{Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", Columns: src.Columns})
 	for _, s := range ok {
 		for i, v := range s.Values {
 			if vals[s.Key][i] != v {

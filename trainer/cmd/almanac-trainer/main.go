@@ -20,7 +20,6 @@ import (
 
 	"almanac.dev/almanac/trainer/bench"
 	"almanac.dev/almanac/trainer/exitcode"
-	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/report"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -178,16 +177,16 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	out := fs.String("output", "", "output `URI`")
 	format := fs.String("format", "csv", "input format: csv or parquet")
 	outFormat := fs.String("output-format", "parquet", "output table format: csv or parquet")
-	freq := fs.String("frequency", "daily", "hourly, daily, weekly, monthly, quarterly or yearly")
+	freq := fs.String("frequency", "Daily", "Hourly, Daily, Weekly, Monthly, Quarterly or Yearly")
 	keys := fs.String("series", "series", "comma-separated series key `columns`")
 	date := fs.String("date", "date", "date `column`")
 	value := fs.String("value", "value", "value `column`")
 	covs := fs.String("covariates", "", "comma-separated covariate `columns`")
-	partitioning := fs.String("partitioning", "", `input layout: "" (hash buckets), "object" or "rowGroup"`)
+	partitioning := fs.String("partitioning", runconfig.PartitionHashBuckets, "input layout: HashBuckets, Objects or RowGroups")
 	horizon := fs.Int("horizon", 14, "forecast horizon in periods")
 	zoo := fs.String("models", "Naive,SeasonalNaive,ETS,Theta", "comma-separated model `families`")
-	designFlag := fs.String("design", runconfig.DesignAuto, `how the design is decided, as a portfolio's spec.selection.design: "auto" (chosen per segment on an inner holdout), "perSeries" or "fixed"`)
-	quantiles := fs.String("quantiles", "0.1,0.5,0.9", "comma-separated quantile levels")
+	designFlag := fs.String("design", runconfig.DesignAuto, "how the design is decided, as spec.selection.design: Auto (chosen per segment on an inner holdout), PerSeries or Fixed")
+	quantiles := fs.String("quantile-percents", "10,50,90", "comma-separated quantile `percents`")
 	perShard := fs.Int("series-per-shard", 2000, "target series per shard")
 	runName := fs.String("run", "", "run `name` (default local-<UTC time>)")
 	workers := fs.Int("workers", 0, "forecasting goroutines (0: GOMAXPROCS)")
@@ -204,24 +203,24 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 		if name == "" {
 			name = "local-" + env.Now().UTC().Format("20060102-150405")
 		}
-		c := runconfig.Config{Run: name, Trigger: "Manual",
+		c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: name, Trigger: "Manual",
 			Source: runconfig.Source{URI: *in, Format: *format, Frequency: *freq, NonNegative: true, Partitioning: *partitioning,
 				Columns: runconfig.Columns{Series: split(*keys), Date: *date, Value: *value, Covariates: split(*covs)}},
 			Output:    runconfig.Output{URI: *out, Format: *outFormat},
 			Horizon:   *horizon,
-			Selection: runconfig.Selection{Metric: "MASE", Origins: 3, Step: 1, Design: *designFlag},
+			Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce, Design: *designFlag, DesignCostPercent: 500},
 			Sharding:  runconfig.Sharding{TargetSeriesPerShard: *perShard},
-			Drift:     runconfig.Drift{ThresholdRatio: 1.3, MinEvaluatedPoints: 7},
+			Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 7},
 		}
 		for _, f := range split(*zoo) {
-			c.Zoo = append(c.Zoo, models.Spec{Family: f})
+			c.Models = append(c.Models, runconfig.Model{Family: f})
 		}
 		for _, q := range split(*quantiles) {
-			v, perr := strconv.ParseFloat(q, 64)
+			v, perr := strconv.Atoi(q)
 			if perr != nil {
-				err = fmt.Errorf("--quantiles: %q is not a number", q)
+				err = fmt.Errorf("--quantile-percents: %q is not an integer percent", q)
 			}
-			c.Quantiles = append(c.Quantiles, v)
+			c.QuantilePercents = append(c.QuantilePercents, v)
 		}
 		if err == nil {
 			err = c.Validate()

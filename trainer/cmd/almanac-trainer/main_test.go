@@ -37,7 +37,7 @@ func TestRunExitCodes(t *testing.T) {
 func TestStepWritesSummaryOnConfigError(t *testing.T) {
 	dir := t.TempDir()
 	cfg := filepath.Join(dir, "config.json")
-	os.WriteFile(cfg, []byte(`{"run":"flp-1"}`), 0o644)
+	os.WriteFile(cfg, []byte(`{"apiVersion":"trainer.almanac.dev/v1alpha1","kind":"ForecastRunConfig","run":"flp-1"}`), 0o644)
 	term := filepath.Join(dir, "termination-log")
 	var out, errb bytes.Buffer
 	code := run(context.Background(), []string{"plan", "--config", cfg, "--termination-log", term}, &out, &errb, noenv)
@@ -68,7 +68,7 @@ func TestLocalGenerateInspect(t *testing.T) {
 	}
 	args := []string{"local", "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out", "--series", "item,depot",
 		"--value", "units", "--covariates", "promo_flag", "--models", "Naive,SeasonalNaive", "--horizon", "7", "--series-per-shard", "4",
-		"--partitioning", "object", "--run", "flp-local-1"}
+		"--partitioning", "Objects", "--run", "flp-local-1"}
 	out.Reset()
 	if code := run(ctx, args, &out, &errb, noenv); code != 0 {
 		t.Fatalf("local: exit %d: %s", code, errb.String())
@@ -115,12 +115,14 @@ func TestJobSteps(t *testing.T) {
 		t.Fatalf("generate: %s", errb.String())
 	}
 	cfg := filepath.Join(dir, "config.json")
-	os.WriteFile(cfg, []byte(`{"run":"flp-job-1","scheduledTime":"2026-11-02T00:00:00Z",
-		"source":{"uri":"mem://flp-job-in/","format":"csv","frequency":"daily","nonNegative":true,"partitioning":"object",
+	os.WriteFile(cfg, []byte(`{"apiVersion":"trainer.almanac.dev/v1alpha1","kind":"ForecastRunConfig",
+		"run":"flp-job-1","trigger":"Manual","scheduledTime":"2026-11-02T00:00:00Z",
+		"source":{"uri":"mem://flp-job-in/","format":"csv","frequency":"Daily","nonNegative":true,"partitioning":"Objects",
 			"columns":{"series":["item","depot"],"date":"date","value":"units","covariates":["promo_flag"]}},
-		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantiles":[0.1,0.9],
-		"zoo":[{"family":"Naive"},{"family":"SeasonalNaive"}],"selection":{"metric":"MASE","origins":2,"step":1},
-		"sharding":{"targetSeriesPerShard":4},"drift":{"thresholdRatio":1.3,"minEvaluatedPoints":3}}`), 0o644)
+		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantilePercents":[10,90],
+		"models":[{"family":"Naive"},{"family":"SeasonalNaive"}],
+		"selection":{"metric":"MASE","backtestOrigins":2,"backtestStep":1,"backtestRefit":"Once","design":"Fixed","designCostPercent":500},
+		"sharding":{"targetSeriesPerShard":4},"drift":{"metric":"MASE","thresholdPercent":130,"minEvaluatedPoints":3}}`), 0o644)
 	term := filepath.Join(dir, "term")
 	step := func(getenv func(string) string, args ...string) summary.Summary {
 		t.Helper()
