@@ -10,7 +10,7 @@ import (
 	"regexp"
 )
 
-// Keys of the run layout under the output URI (see ARCHITECTURE.md, "Storage layout").
+// Keys of the run layout under the output URI (see PROJECT-NOTES.md, Part 1, "Contracts").
 const (
 	LatestKey    = "latest.json"
 	ManifestName = "MANIFEST.json"
