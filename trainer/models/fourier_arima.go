@@ -197,6 +197,32 @@ type fourierARIMAFit struct {
 	n       int
 }
 
+// Update carries the fit forward to y, a longer history of which the fitted one is a prefix
+// (backtest.Updater): K, the Fourier coefficients and the ARIMA order and coefficients are
+// kept; the ARIMA filter runs over the longer remainder.
+func (f *fourierARIMAFit) Update(y []float64) (Fitted, error) {
+	if len(y) < f.n {
+		return nil, fmt.Errorf("models: %s: update needs at least the %d fitted observations, got %d", FamilyFourierARIMA, f.n, len(y))
+	}
+	u, ok := f.arima.(interface {
+		Update([]float64) (Fitted, error)
+	})
+	if !ok {
+		return nil, fmt.Errorf("models: %s: the ARIMA fit cannot be updated", FamilyFourierARIMA)
+	}
+	e := make([]float64, len(y))
+	for t := range e {
+		e[t] = y[t] - f.seasonal(float64(t+1))
+	}
+	a, err := u.Update(e)
+	if err != nil {
+		return nil, err
+	}
+	out := *f
+	out.arima, out.n = a, len(y)
+	return &out, nil
+}
+
 // seasonal is the Fourier part at time t (1-based).
 func (f *fourierARIMAFit) seasonal(t float64) float64 {
 	s := 0.0

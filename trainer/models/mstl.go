@@ -107,14 +107,7 @@ func seasonalPeriods(s Spec, sl int, f series.Frequency) []float64 {
 }
 
 func (m *mstlModel) fit(y []float64, periods []float64) (Fitted, error) {
-	out := &mstlFit{}
-	adj := y
-	if len(periods) > 0 {
-		if d, err := stl.MSTL(y, periods, stl.MSTLOptions{}); err == nil {
-			out.dec = &d
-			adj = d.Adjusted()
-		}
-	}
+	out, adj := m.decompose(y, periods)
 	if len(adj) < m.inner.MinLength(1) {
 		return nil, ErrTooShort
 	}
@@ -126,10 +119,49 @@ func (m *mstlModel) fit(y []float64, periods []float64) (Fitted, error) {
 	return out, nil
 }
 
+// decompose returns a fit holding the MSTL of y (none when no period is kept) and the
+// seasonally adjusted series (y itself when none).
+func (m *mstlModel) decompose(y []float64, periods []float64) (*mstlFit, []float64) {
+	out := &mstlFit{model: m, periods: periods, n: len(y)}
+	if len(periods) > 0 {
+		if d, err := stl.MSTL(y, periods, stl.MSTLOptions{}); err == nil {
+			out.dec = &d
+			return out, d.Adjusted()
+		}
+	}
+	return out, y
+}
+
 // mstlFit is a fitted MSTL member.
 type mstlFit struct {
-	dec   *stl.MSTLDecomposition // nil when no period was kept
-	inner Fitted
+	model   *mstlModel
+	periods []float64              // the periods asked for
+	n       int                    // observations fitted
+	dec     *stl.MSTLDecomposition // nil when no period was kept
+	inner   Fitted
+}
+
+// Update carries the fit forward to y, a longer history of which the fitted one is a prefix
+// (backtest.Updater): MSTL is run again on y (it has no estimates to keep; the earlier
+// components move a little, as a two-sided smoother's do), and the adjusted model keeps its
+// estimates when it can (ETS, ARIMA) or is refitted (Theta, cheap).
+func (f *mstlFit) Update(y []float64) (Fitted, error) {
+	if len(y) < f.n {
+		return nil, fmt.Errorf("models: %s: update needs at least the %d fitted observations, got %d", f.model.spec.DisplayName(), f.n, len(y))
+	}
+	out, adj := f.model.decompose(y, f.periods)
+	var err error
+	if u, ok := f.inner.(interface {
+		Update([]float64) (Fitted, error)
+	}); ok {
+		out.inner, err = u.Update(adj)
+	} else {
+		out.inner, err = f.model.inner.Fit(adj, 1)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: adjusted series: %w", f.model.spec.DisplayName(), err)
+	}
+	return out, nil
 }
 
 // Name is "MSTL(p1,p2)+<adjusted model>", MSTL() when no period was kept.

@@ -115,3 +115,49 @@ func TestFourierARIMAHourly(t *testing.T) {
 		t.Errorf("40 hours: %v %v, want no period kept", g, err)
 	}
 }
+
+// TestMultiSeasonalUpdate: carried forward to a longer history, the MSTL and Fourier members
+// keep their adjusted model's estimates (the same ETS form, ARIMA order and Fourier pairs) and
+// forecast from the new end: updating on the history they were fitted on gives their forecast
+// back, and an update on a longer history is what a fit there with the same estimates gives.
+func TestMultiSeasonalUpdate(t *testing.T) {
+	y := hourlyOrders(24 * 7 * 4)
+	type updater interface {
+		Update([]float64) (Fitted, error)
+	}
+	for _, fam := range []string{FamilyMSTLETS, FamilyMSTLTheta, FamilyMSTLARIMA, FamilyFourierARIMA} {
+		mod, err := New(Spec{Family: fam})
+		if err != nil {
+			t.Fatal(err)
+		}
+		f, err := FitWith(mod, y[:600], 24, &Inputs{Freq: series.Hourly})
+		if err != nil {
+			t.Fatal(err)
+		}
+		u, ok := f.(updater)
+		if !ok {
+			t.Fatalf("%s: fit is not an updater", fam)
+		}
+		same, err := u.Update(y[:600])
+		if err != nil {
+			t.Fatal(err)
+		}
+		a, b := f.Forecast(24, nil).Mean, same.Forecast(24, nil).Mean
+		for k := range a {
+			if math.Abs(a[k]-b[k]) > 1e-9*math.Max(1, math.Abs(a[k])) {
+				t.Fatalf("%s: update on the fitted history forecasts %v, the fit %v (step %d)", fam, b[k], a[k], k+1)
+			}
+		}
+		longer, err := u.Update(y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if longer.Name() != f.Name() {
+			t.Errorf("%s: update changed the model from %s to %s", fam, f.Name(), longer.Name())
+		}
+		if _, err := u.Update(y[:500]); err == nil {
+			t.Errorf("%s: update on a shorter history accepted", fam)
+		}
+		checkWeeklyDip(t, fam, longer.Forecast(168, []float64{0.1, 0.9}))
+	}
+}
