@@ -80,9 +80,11 @@ func TestFourierTermsMatchR(t *testing.T) {
 // rest) stay within 3% of R's auto.arima with the Fourier regressors at every step. R estimates
 // the coefficients jointly with the ARIMA errors and its search (approximate criteria for
 // n > 150) picks other orders on all four series; measured when the fixture was made: worst
-// step 2.2% (depotHourly), 2.8% (tillDaily), 1.9% (palletsWeekly), 2.1% (taylor); the
-// Fourier coefficients differ from R's joint estimates by up to 1.1 on an amplitude of 25
-// (depotHourly). The log prints the figures.
+// step 2.2% (depotHourly), 2.8% (tillDaily), 1.9% (palletsWeekly), 2.1% (taylor). The Fourier
+// coefficients must lie within 15% of the largest of R's joint estimates (measured: 4.4%,
+// 14.5%, 11.9%, 0.7% of it; R's errors are differenced, so its generalised least squares
+// weights the observations differently from our ordinary least squares). The log prints the
+// figures.
 func TestFourierARIMAMatchesR(t *testing.T) {
 	ref, series := loadFourier(t)
 	for _, c := range ref.Cases {
@@ -108,9 +110,13 @@ func TestFourierARIMAMatchesR(t *testing.T) {
 		if worstCoef > 1e-8 {
 			t.Errorf("%s: least-squares coefficients differ from R's lm by up to %g", c.Name, worstCoef)
 		}
-		joint := 0.0
+		joint, scale := 0.0, 0.0
 		for _, name := range c.Terms {
 			joint = math.Max(joint, math.Abs(p[name]-c.ARIMA.Coef[name]))
+			scale = math.Max(scale, math.Abs(c.ARIMA.Coef[name]))
+		}
+		if joint > 0.15*scale {
+			t.Errorf("%s: Fourier coefficients differ from R's joint estimates by %.3g, above 15%% of the largest (%.3g)", c.Name, joint, scale)
 		}
 		got := fit.Forecast(c.H, nil).Mean
 		worst := 0.0
