@@ -2,7 +2,9 @@ package controllers
 
 import (
 	"fmt"
+	"math"
 	"math/big"
+	"strconv"
 	"strings"
 
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
@@ -34,10 +36,20 @@ func addAccuracy(sums *forecastingv1alpha1.AccuracySums, a summary.Accuracy) (*f
 	if err != nil {
 		return sums, fmt.Errorf("realized sum: %w", err)
 	}
+	expLog, err := addDecimal(out.ExpectedLogSum, a.ExpectedLogSum)
+	if err != nil {
+		return sums, fmt.Errorf("expected log sum: %w", err)
+	}
+	realizedLog, err := addDecimal(out.RealizedLogSum, a.RealizedLogSum)
+	if err != nil {
+		return sums, fmt.Errorf("realized log sum: %w", err)
+	}
 	if out.Metric == "" {
 		out.Metric = a.Metric
 	}
 	out.ExpectedSum, out.RealizedSum = exp, realized
+	out.ExpectedLogSum, out.RealizedLogSum = expLog, realizedLog
+	out.LogEvaluated += int64(a.LogEvaluated)
 	out.Evaluated += int64(a.Evaluated)
 	out.EvaluatedPoints += int64(a.EvaluatedPoints)
 	out.Drifted += int64(a.Drifted)
@@ -97,8 +109,14 @@ func exactDecimal(r *big.Rat) string {
 //	realized = RealizedSum / Evaluated
 //	ratio    = realized / expected = RealizedSum / ExpectedSum
 //
-// (means of per-series errors, as documented in trainer/summary), rounded to 4 and 3 decimal
-// places for display only. It returns nil when nothing was evaluated.
+// (means of per-series errors, as documented in trainer/summary), and the geometric means
+//
+//	expectedGeometric = exp(ExpectedLogSum / LogEvaluated)
+//	realizedGeometric = exp(RealizedLogSum / LogEvaluated)
+//	geometricRatio    = exp((RealizedLogSum − ExpectedLogSum) / LogEvaluated)
+//
+// (the last is the geometric mean of the per-series ratios realized/expected), rounded to 4
+// and 3 decimal places for display only. It returns nil when nothing was evaluated.
 func accuracyStatus(sums *forecastingv1alpha1.AccuracySums, run string) *forecastingv1alpha1.AccuracyStatus {
 	if sums == nil || sums.Evaluated == 0 {
 		return nil
@@ -121,7 +139,39 @@ func accuracyStatus(sums *forecastingv1alpha1.AccuracySums, run string) *forecas
 	if exp.Sign() > 0 {
 		out.Ratio = new(big.Rat).Quo(realized, exp).FloatString(3)
 	}
+	if g, ok := geometric(sums); ok {
+		out.ExpectedGeometric = strconv.FormatFloat(g.expected, 'f', 4, 64)
+		out.RealizedGeometric = strconv.FormatFloat(g.realized, 'f', 4, 64)
+		out.GeometricRatio = strconv.FormatFloat(g.ratio, 'f', 3, 64)
+		out.GeometricSeries = sums.LogEvaluated
+	}
 	return out
+}
+
+// geometricMeans are the geometric means of a run's accuracy sums, and logRatio the exact
+// difference RealizedLogSum − ExpectedLogSum they compare.
+type geometricMeans struct {
+	expected, realized, ratio float64
+	logRatio                  *big.Rat
+}
+
+// geometric computes the geometric means of sums; ok is false when no series has both errors
+// above 0 or a log sum is not a decimal number.
+func geometric(sums *forecastingv1alpha1.AccuracySums) (geometricMeans, bool) {
+	if sums == nil || sums.LogEvaluated == 0 {
+		return geometricMeans{}, false
+	}
+	e, ok1 := new(big.Rat).SetString(orZero(sums.ExpectedLogSum))
+	r, ok2 := new(big.Rat).SetString(orZero(sums.RealizedLogSum))
+	if !ok1 || !ok2 {
+		return geometricMeans{}, false
+	}
+	n := new(big.Rat).SetInt64(sums.LogEvaluated)
+	meanE, _ := new(big.Rat).Quo(e, n).Float64()
+	meanR, _ := new(big.Rat).Quo(r, n).Float64()
+	d := new(big.Rat).Sub(r, e)
+	meanD, _ := new(big.Rat).Quo(d, n).Float64()
+	return geometricMeans{expected: math.Exp(meanE), realized: math.Exp(meanR), ratio: math.Exp(meanD), logRatio: d}, true
 }
 
 // driftVerdict judges a run's accuracy sums against the portfolio's drift spec.
@@ -129,8 +179,12 @@ func accuracyStatus(sums *forecastingv1alpha1.AccuracySums, run string) *forecas
 // It returns the AccuracyDrift condition status, reason and message:
 //   - Unknown, NotEvaluated: no run has evaluated any series yet;
 //   - Unknown, TooFewPoints: fewer than minEvaluatedPoints new actuals were compared;
-//   - True, AboveThreshold: RealizedSum * 100 > thresholdPercent * ExpectedSum, compared exactly
-//     (the same as realized/expected > thresholdPercent/100, without dividing);
+//   - True, AboveThreshold: the realized aggregate is above thresholdPercent/100 times the
+//     expected one. With aggregate GeometricMean (the default) that is
+//     RealizedLogSum − ExpectedLogSum > LogEvaluated · ln(thresholdPercent/100), the log sums
+//     compared exactly; with Mean (or sums from trainers that sent no log sums) it is
+//     RealizedSum * 100 > thresholdPercent * ExpectedSum, compared exactly (the same as
+//     realized/expected > thresholdPercent/100, without dividing);
 //   - False, WithinThreshold: otherwise.
 func driftVerdict(sums *forecastingv1alpha1.AccuracySums, spec forecastingv1alpha1.DriftSpec) (metav1.ConditionStatus, string, string) {
 	if sums == nil || sums.Evaluated == 0 {
@@ -154,6 +208,18 @@ func driftVerdict(sums *forecastingv1alpha1.AccuracySums, spec forecastingv1alph
 		return metav1.ConditionUnknown, forecastingv1alpha1.ReasonNotEvaluated, "accuracy sums are not decimal numbers"
 	}
 	acc := accuracyStatus(sums, "")
+	if g, ok := geometric(sums); ok && spec.Aggregate != forecastingv1alpha1.AggregateMean {
+		bound := new(big.Rat)
+		bound.SetFloat64(float64(sums.LogEvaluated) * math.Log(float64(threshold)/100))
+		verdict := fmt.Sprintf("realized %s geometric mean %s is %s times the expected %s (over %d series; arithmetic means %s and %s)",
+			sums.Metric, acc.RealizedGeometric, acc.GeometricRatio, acc.ExpectedGeometric, sums.LogEvaluated, acc.Realized, acc.Expected)
+		if g.logRatio.Cmp(bound) > 0 {
+			return metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold,
+				fmt.Sprintf("%s, above the threshold of %d%%; %d of %d series drifted", verdict, threshold, sums.Drifted, sums.Evaluated)
+		}
+		return metav1.ConditionFalse, forecastingv1alpha1.ReasonWithinThreshold,
+			fmt.Sprintf("%s, within the threshold of %d%%", verdict, threshold)
+	}
 	lhs := new(big.Rat).Mul(realized, big.NewRat(100, 1))
 	rhs := new(big.Rat).Mul(exp, big.NewRat(threshold, 1))
 	if lhs.Cmp(rhs) > 0 {

@@ -16,9 +16,12 @@ import (
 // exact sums must not.
 func TestAddAccuracyIsExactAndOrderFree(t *testing.T) {
 	shards := []summary.Accuracy{
-		{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 70, ExpectedSum: 0.1, RealizedSum: 1.5, Drifted: 1},
-		{Metric: "MASE", Evaluated: 20, EvaluatedPoints: 140, ExpectedSum: 0.2, RealizedSum: 2.25},
-		{Metric: "MASE", Evaluated: 30, EvaluatedPoints: 210, ExpectedSum: 0.3, RealizedSum: 3, Drifted: 2},
+		{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 70, ExpectedSum: 0.1, RealizedSum: 1.5, Drifted: 1,
+			LogEvaluated: 10, ExpectedLogSum: -0.1, RealizedLogSum: 0.5},
+		{Metric: "MASE", Evaluated: 20, EvaluatedPoints: 140, ExpectedSum: 0.2, RealizedSum: 2.25,
+			LogEvaluated: 19, ExpectedLogSum: -0.2, RealizedLogSum: 0.25},
+		{Metric: "MASE", Evaluated: 30, EvaluatedPoints: 210, ExpectedSum: 0.3, RealizedSum: 3, Drifted: 2,
+			LogEvaluated: 30, ExpectedLogSum: -0.3, RealizedLogSum: 0.25},
 	}
 	fold := func(order []int) *forecastingv1alpha1.AccuracySums {
 		var sums *forecastingv1alpha1.AccuracySums
@@ -37,7 +40,8 @@ func TestAddAccuracyIsExactAndOrderFree(t *testing.T) {
 	want := &forecastingv1alpha1.AccuracySums{
 		Metric: "MASE", Evaluated: 60, EvaluatedPoints: 420, Drifted: 3, RealizedSum: "6.75",
 		// The exact sum of the three binary doubles nearest 0.1, 0.2 and 0.3.
-		ExpectedSum: "0.6000000000000000055511151231257827021181583404541015625",
+		ExpectedSum:  "0.6000000000000000055511151231257827021181583404541015625",
+		LogEvaluated: 59, RealizedLogSum: "1", ExpectedLogSum: "-0.6000000000000000055511151231257827021181583404541015625",
 	}
 	if diff := cmp.Diff(want, a); diff != "" {
 		t.Errorf("sums (-want,+got):\n%s", diff)
@@ -76,6 +80,15 @@ func TestAccuracyStatus(t *testing.T) {
 			sums: &forecastingv1alpha1.AccuracySums{Metric: "MASE", Evaluated: 60, EvaluatedPoints: 420, ExpectedSum: "48", RealizedSum: "66", Drifted: 9},
 			want: &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8000", Realized: "1.1000", Ratio: "1.375",
 				EvaluatedSeries: 60, EvaluatedPoints: 420, DriftedSeries: 9, Run: "r1"},
+		},
+		"geometric means": {
+			// ln 1.5 = 0.405465..., ln 0.75 = -0.287682...: over 2 series the geometric means
+			// are exp(ln(1.5)) = 1.5 and 0.75 (sums of two equal logs), the ratio 0.5.
+			sums: &forecastingv1alpha1.AccuracySums{Metric: "MASE", Evaluated: 3, EvaluatedPoints: 9, ExpectedSum: "3", RealizedSum: "3",
+				LogEvaluated: 2, ExpectedLogSum: "0.8109302162163288", RealizedLogSum: "-0.5753641449035618"},
+			want: &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "1.0000", Realized: "1.0000", Ratio: "1.000",
+				ExpectedGeometric: "1.5000", RealizedGeometric: "0.7500", GeometricRatio: "0.500", GeometricSeries: 2,
+				EvaluatedSeries: 3, EvaluatedPoints: 9, Run: "r1"},
 		},
 		"zero expected error has no ratio": {
 			sums: &forecastingv1alpha1.AccuracySums{Metric: "MAE", Evaluated: 2, EvaluatedPoints: 4, ExpectedSum: "0", RealizedSum: "1"},
@@ -120,6 +133,29 @@ func TestDriftVerdict(t *testing.T) {
 		"defaults apply when the spec is empty": {
 			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 100, ExpectedSum: "10", RealizedSum: "14"},
 			want: verdict{metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold},
+		},
+		// 100 series: the log ratio bound is 100·ln(1.3) = 26.236426446749106.
+		"geometric: a few exploding series do not drift the run": {
+			// Mean ratio 5 (drift by Mean), geometric ratio exp(10/100) = 1.105.
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 100, EvaluatedPoints: 600, ExpectedSum: "100", RealizedSum: "500",
+				LogEvaluated: 100, ExpectedLogSum: "0", RealizedLogSum: "10"},
+			spec: spec, want: verdict{metav1.ConditionFalse, forecastingv1alpha1.ReasonWithinThreshold},
+		},
+		"mean is still selectable": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 100, EvaluatedPoints: 600, ExpectedSum: "100", RealizedSum: "500",
+				LogEvaluated: 100, ExpectedLogSum: "0", RealizedLogSum: "10"},
+			spec: forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, Aggregate: forecastingv1alpha1.AggregateMean},
+			want: verdict{metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold},
+		},
+		"geometric: just above the threshold": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 100, EvaluatedPoints: 600, ExpectedSum: "100", RealizedSum: "100",
+				LogEvaluated: 100, ExpectedLogSum: "-1", RealizedLogSum: "25.2364265"},
+			spec: spec, want: verdict{metav1.ConditionTrue, forecastingv1alpha1.ReasonAboveThreshold},
+		},
+		"geometric: just below the threshold": {
+			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 100, EvaluatedPoints: 600, ExpectedSum: "100", RealizedSum: "1000",
+				LogEvaluated: 100, ExpectedLogSum: "-1", RealizedLogSum: "25.2364264"},
+			spec: spec, want: verdict{metav1.ConditionFalse, forecastingv1alpha1.ReasonWithinThreshold},
 		},
 		"better than promised": {
 			sums: &forecastingv1alpha1.AccuracySums{Evaluated: 5, EvaluatedPoints: 500, ExpectedSum: "10", RealizedSum: "8"},

@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"math"
 	"strconv"
 	"time"
 
@@ -192,12 +193,14 @@ func finishShards(job *batchv1.Job, succeeded, failed []int, mk func(i int) summ
 }
 
 // shardSummary is the train summary the lifecycle tests give shard i: 100 + i series, all but
-// one trained, and MASE sums expected 0.5*n and realized 0.6*n over n = 10 evaluated series.
+// one trained, and MASE sums expected 0.5*n and realized 0.6*n over n = 10 evaluated series
+// (each series expected 0.5 and realized 0.6, so the log sums are n ln 0.5 and n ln 0.6).
 func shardSummary(i int) summary.Summary {
 	return summary.Summary{
 		Series: 100 + i, Trained: 99 + i, Rejected: 1,
-		Models:   map[string]int{"ETS": 60, "Theta": 39 + i},
-		Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 50, ExpectedSum: 5, RealizedSum: 6, Drifted: 1},
+		Models: map[string]int{"ETS": 60, "Theta": 39 + i},
+		Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 50, ExpectedSum: 5, RealizedSum: 6, Drifted: 1,
+			LogEvaluated: 10, ExpectedLogSum: 10 * math.Log(0.5), RealizedLogSum: 10 * math.Log(0.6)},
 	}
 }
 

@@ -227,9 +227,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(run.Status.Series).To(Equal(forecastingv1alpha1.SeriesCounts{Planned: 410, Total: 406, Trained: 402, Rejected: 4}))
 		Expect(run.Status.Shards).To(Equal(forecastingv1alpha1.ShardCounts{Total: 4, Succeeded: 4, Folded: "0-3"}))
 		Expect(run.Status.Models).To(Equal([]forecastingv1alpha1.ModelCount{{Model: "ETS", Series: 240}, {Model: "Theta", Series: 162}}))
-		// Mean error = error sum / evaluated series (common practice): 4*5/40 and 4*6/40.
+		// Mean error = error sum / evaluated series (common practice): 4*5/40 and 4*6/40; the
+		// geometric means exp(40 ln 0.5 / 40) and exp(40 ln 0.6 / 40) of equal errors are the same.
 		Expect(run.Status.Accuracy).To(Equal(&forecastingv1alpha1.AccuracyStatus{
 			Metric: "MASE", Expected: "0.5000", Realized: "0.6000", Ratio: "1.200",
+			ExpectedGeometric: "0.5000", RealizedGeometric: "0.6000", GeometricRatio: "1.200", GeometricSeries: 40,
 			EvaluatedSeries: 40, EvaluatedPoints: 200, DriftedSeries: 4, Run: name,
 		}))
 		Expect(conditionOf(run, forecastingv1alpha1.RunDegraded)()).To(Equal("False/AllShardsTrained"))

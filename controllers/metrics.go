@@ -21,6 +21,8 @@ type Metrics struct {
 	parallelism   *prometheus.GaugeVec
 	expected      *prometheus.GaugeVec
 	realized      *prometheus.GaugeVec
+	expectedGeo   *prometheus.GaugeVec
+	realizedGeo   *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
 
@@ -62,6 +64,14 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_accuracy_realized",
 			Help: "Mean error the portfolio's last evaluated run realized on new actuals, in its metric.",
 		}, []string{"namespace", "portfolio", "metric"}),
+		expectedGeo: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_accuracy_expected_geometric",
+			Help: "Geometric mean backtest error the portfolio's last evaluated run promised, in its metric (series with both errors above 0).",
+		}, []string{"namespace", "portfolio", "metric"}),
+		realizedGeo: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_accuracy_realized_geometric",
+			Help: "Geometric mean error the portfolio's last evaluated run realized on new actuals, in its metric; drift judges realized/expected of these by default.",
+		}, []string{"namespace", "portfolio", "metric"}),
 		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_portfolio_condition",
 			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
@@ -71,7 +81,7 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
 		}, []string{"namespace", "portfolio"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.conditions, m.missed} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.conditions, m.missed} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -118,6 +128,8 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	labels := prometheus.Labels{"namespace": namespace, "portfolio": portfolio}
 	m.expected.DeletePartialMatch(labels)
 	m.realized.DeletePartialMatch(labels)
+	m.expectedGeo.DeletePartialMatch(labels)
+	m.realizedGeo.DeletePartialMatch(labels)
 	if acc == nil {
 		return
 	}
@@ -127,6 +139,12 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	}
 	if v, err := strconv.ParseFloat(acc.Realized, 64); err == nil {
 		m.realized.WithLabelValues(namespace, portfolio, metric).Set(v)
+	}
+	if v, err := strconv.ParseFloat(acc.ExpectedGeometric, 64); err == nil {
+		m.expectedGeo.WithLabelValues(namespace, portfolio, metric).Set(v)
+	}
+	if v, err := strconv.ParseFloat(acc.RealizedGeometric, 64); err == nil {
+		m.realizedGeo.WithLabelValues(namespace, portfolio, metric).Set(v)
 	}
 }
 

@@ -35,13 +35,20 @@ func TestMetrics(t *testing.T) {
 	if n := testutil.CollectAndCount(m.duration); n != 1 {
 		t.Errorf("duration series = %d, want 1", n)
 	}
-	m.accuracy("planning", "fenwick-weekly", &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8125", Realized: "0.9000"})
+	m.accuracy("planning", "fenwick-weekly", &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8125", Realized: "0.9000",
+		ExpectedGeometric: "0.7500", RealizedGeometric: "0.6250"})
 	if got := testutil.ToFloat64(m.realized.WithLabelValues("planning", "fenwick-weekly", "MASE")); got != 0.9 {
 		t.Errorf("realized = %v, want 0.9", got)
 	}
+	if got := testutil.ToFloat64(m.realizedGeo.WithLabelValues("planning", "fenwick-weekly", "MASE")); got != 0.625 {
+		t.Errorf("realized geometric = %v, want 0.625", got)
+	}
+	if got := testutil.ToFloat64(m.expectedGeo.WithLabelValues("planning", "fenwick-weekly", "MASE")); got != 0.75 {
+		t.Errorf("expected geometric = %v, want 0.75", got)
+	}
 	m.accuracy("planning", "fenwick-weekly", nil)
-	if n := testutil.CollectAndCount(m.expected); n != 0 {
-		t.Errorf("expected series after the portfolio went away = %d, want 0", n)
+	if n := testutil.CollectAndCount(m.expected) + testutil.CollectAndCount(m.realizedGeo); n != 0 {
+		t.Errorf("accuracy series after the portfolio went away = %d, want 0", n)
 	}
 	var none *Metrics
 	none.runProgress(run, 1, 1) // a nil *Metrics records nothing and does not panic

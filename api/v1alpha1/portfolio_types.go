@@ -730,7 +730,8 @@ type TrainerSpec struct {
 
 // DriftSpec says when accuracy counts as slipped. Realized error is measured on the new actuals
 // that arrived since the previous run's forecasts; expected error is what that run's backtest
-// promised, in the same metric. Drift is realized/expected above thresholdPercent/100.
+// promised, in the same metric. Drift is realized/expected above thresholdPercent/100, both
+// aggregated over the evaluated series as aggregate says.
 type DriftSpec struct {
 	// metric compares expected and realized error. Default: the selection metric.
 	// +optional
@@ -751,6 +752,14 @@ type DriftSpec struct {
 	// +kubebuilder:validation:Minimum=1
 	MinEvaluatedPoints int32 `json:"minEvaluatedPoints,omitempty"`
 
+	// aggregate is how per-series errors are combined before expected and realized are
+	// compared: GeometricMean (default; a few series with huge scaled errors, such as
+	// near-constant ones, cannot decide it) or Mean (the arithmetic mean, what drift used
+	// before this field existed).
+	// +optional
+	// +kubebuilder:default=GeometricMean
+	Aggregate DriftAggregate `json:"aggregate,omitempty"`
+
 	// action on drift: Report (default) or Retrain.
 	// +optional
 	// +kubebuilder:default=Report
@@ -762,6 +771,19 @@ type DriftSpec struct {
 	// +kubebuilder:validation:Minimum=0
 	CooldownSeconds *int64 `json:"cooldownSeconds,omitempty"`
 }
+
+// DriftAggregate combines per-series errors into one figure.
+// +kubebuilder:validation:Enum=GeometricMean;Mean
+type DriftAggregate string
+
+// Aggregates of drift.aggregate.
+const (
+	// AggregateGeometricMean is exp(mean(log e_i)) over the series with e_i > 0
+	// (Davydenko & Fildes 2013 average relative errors geometrically; Fleming & Wallace 1986).
+	AggregateGeometricMean DriftAggregate = "GeometricMean"
+	// AggregateMean is the arithmetic mean of e_i (Hyndman & Koehler 2006 average MASE so).
+	AggregateMean DriftAggregate = "Mean"
+)
 
 // Condition types of a ForecastPortfolio.
 const (
@@ -865,6 +887,21 @@ type AccuracyStatus struct {
 	Realized string `json:"realized,omitempty"`
 	// ratio is realized / expected.
 	Ratio string `json:"ratio,omitempty"`
+	// expectedGeometric is the geometric mean of the backtest errors, exp(mean(log e)), over
+	// the evaluated series whose expected and realized errors are both above 0
+	// (geometricSeries of them). A few series with huge scaled errors move it little.
+	// +optional
+	ExpectedGeometric string `json:"expectedGeometric,omitempty"`
+	// realizedGeometric is the geometric mean of their errors on the new actuals.
+	// +optional
+	RealizedGeometric string `json:"realizedGeometric,omitempty"`
+	// geometricRatio is realizedGeometric / expectedGeometric, the geometric mean of the
+	// per-series ratios realized/expected; drift judges it unless drift.aggregate is Mean.
+	// +optional
+	GeometricRatio string `json:"geometricRatio,omitempty"`
+	// geometricSeries is how many series the geometric means are over.
+	// +optional
+	GeometricSeries int64 `json:"geometricSeries,omitempty"`
 	// evaluatedSeries is how many series had new actuals to compare.
 	EvaluatedSeries int64 `json:"evaluatedSeries,omitempty"`
 	// evaluatedPoints is how many (series, period) actuals were compared.
@@ -885,6 +922,7 @@ type AccuracyStatus struct {
 // +kubebuilder:printcolumn:name="Last Run",type=string,JSONPath=`.status.lastSuccessfulRun`
 // +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
+// +kubebuilder:printcolumn:name="Geo Ratio",type=string,JSONPath=`.status.accuracy.geometricRatio`,priority=1
 // +kubebuilder:printcolumn:name="Drift",type=string,JSONPath=`.status.conditions[?(@.type=="AccuracyDrift")].status`
 // +kubebuilder:printcolumn:name="Next",type=string,JSONPath=`.status.nextScheduleTime`,priority=1
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`

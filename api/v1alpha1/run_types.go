@@ -218,6 +218,14 @@ type AccuracySums struct {
 	ExpectedSum     string `json:"expectedSum"`
 	RealizedSum     string `json:"realizedSum"`
 	Drifted         int64  `json:"drifted"`
+	// LogEvaluated counts the series with expected and realized error above 0, whose natural
+	// logarithms ExpectedLogSum and RealizedLogSum add up (the geometric means' sums).
+	// +optional
+	LogEvaluated int64 `json:"logEvaluated,omitempty"`
+	// +optional
+	ExpectedLogSum string `json:"expectedLogSum,omitempty"`
+	// +optional
+	RealizedLogSum string `json:"realizedLogSum,omitempty"`
 }
 
 // +kubebuilder:object:root=true
@@ -233,6 +241,7 @@ type AccuracySums struct {
 // +kubebuilder:printcolumn:name="Parallel",type=integer,JSONPath=`.status.parallelism`,priority=1
 // +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
+// +kubebuilder:printcolumn:name="Geo Ratio",type=string,JSONPath=`.status.accuracy.geometricRatio`,priority=1
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 
 // ForecastRun is one retraining of a ForecastPortfolio: plan, train shards, publish.

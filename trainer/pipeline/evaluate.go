@@ -75,7 +75,9 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 	return row, true
 }
 
-// accumulate adds an evaluation row to accuracy sums.
+// accumulate adds an evaluation row to accuracy sums; a row whose expected and realized errors
+// are both above 0 also adds their natural logarithms to the geometric means' sums (a zero
+// error has no logarithm; such series are in the arithmetic means only).
 func accumulate(a *summary.Accuracy, r tables.EvaluationRow) {
 	a.Metric = r.Metric
 	a.Evaluated++
@@ -84,5 +86,10 @@ func accumulate(a *summary.Accuracy, r tables.EvaluationRow) {
 	a.RealizedSum += r.Realized
 	if r.Drifted {
 		a.Drifted++
+	}
+	if r.Expected > 0 && r.Realized > 0 {
+		a.LogEvaluated++
+		a.ExpectedLogSum += math.Log(r.Expected)
+		a.RealizedLogSum += math.Log(r.Realized)
 	}
 }

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"math"
 	"sort"
 	"strings"
 
@@ -95,6 +96,11 @@ func Inspect(ctx context.Context, outputURI, run string, w io.Writer) error {
 		e, r := a.ExpectedSum/float64(a.Evaluated), a.RealizedSum/float64(a.Evaluated)
 		fmt.Fprintf(w, "accuracy of %s's forecasts: %d series, %d points; %s expected %.4f, realized %.4f (ratio %.2f); %d drifted\n",
 			m.PreviousRun, a.Evaluated, a.EvaluatedPoints, a.Metric, e, r, r/e, a.Drifted)
+		if n := float64(a.LogEvaluated); n > 0 {
+			ge, gr := math.Exp(a.ExpectedLogSum/n), math.Exp(a.RealizedLogSum/n)
+			fmt.Fprintf(w, "geometric means over %d series: %s expected %.4f, realized %.4f (ratio %.2f)\n",
+				a.LogEvaluated, a.Metric, ge, gr, gr/ge)
+		}
 	} else {
 		fmt.Fprintln(w, "accuracy: nothing evaluated (first run, or no new actuals)")
 	}

@@ -58,7 +58,14 @@ type Summary struct {
 }
 
 // Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,
-// realized = RealizedSum/Evaluated, both in Metric.
+// realized = RealizedSum/Evaluated, both in Metric. The geometric means, which a few series
+// with huge scaled errors cannot decide (Davydenko & Fildes 2013, "Measuring forecasting
+// accuracy: the case of judgmental adjustments to SKU-level demand forecasts", IJF 29, average
+// relative errors geometrically), come from log sums over the LogEvaluated series whose
+// expected and realized errors are both above 0:
+//
+//	expectedGeometric = exp(ExpectedLogSum / LogEvaluated)
+//	realizedGeometric = exp(RealizedLogSum / LogEvaluated)
 type Accuracy struct {
 	Metric          string  `json:"metric"`
 	Evaluated       int     `json:"evaluated"`
@@ -66,6 +73,9 @@ type Accuracy struct {
 	ExpectedSum     float64 `json:"expectedSum"`
 	RealizedSum     float64 `json:"realizedSum"`
 	Drifted         int     `json:"drifted"`
+	LogEvaluated    int     `json:"logEvaluated,omitempty"`
+	ExpectedLogSum  float64 `json:"expectedLogSum,omitempty"`
+	RealizedLogSum  float64 `json:"realizedLogSum,omitempty"`
 }
 
 // Add folds b into a; both must use the same metric.
@@ -78,6 +88,9 @@ func (a *Accuracy) Add(b Accuracy) {
 	a.ExpectedSum += b.ExpectedSum
 	a.RealizedSum += b.RealizedSum
 	a.Drifted += b.Drifted
+	a.LogEvaluated += b.LogEvaluated
+	a.ExpectedLogSum += b.ExpectedLogSum
+	a.RealizedLogSum += b.RealizedLogSum
 }
 
 // Encode marshals s, trimming the error text and then dropping the model counts if needed to
