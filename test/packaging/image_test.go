@@ -450,8 +450,9 @@ func sum(xs []int64) int64 {
 // sandbox runs argv inside the unpacked image root the way a restricted pod runs it: a private
 // mount namespace and PID namespace, the root bind-mounted read-only, a writable directory
 // mounted on /tmp (the emptyDir), /proc, and a /dev with only null, zero, random and urandom;
-// then chroot into it as uid and gid 65532 with no supplementary groups and only the image's
-// environment. It needs root (to mount and chroot), as a container runtime does.
+// then chroot into it as uid and gid 65532 with no supplementary groups and only the
+// environment in $ALMANAC_IMAGE_ENV (the image's PATH, space-separated NAME=value words). The
+// unshare around it runs with --kill-child, so ending unshare ends the process. It needs root (to mount and chroot), as a container runtime does.
 const sandbox = `set -eu
 r=$1; w=$2; shift 2
 mount --bind "$r" "$r"
@@ -460,8 +461,57 @@ mount --bind "$w" "$r/tmp"
 mount -t proc -o nosuid,nodev,noexec proc "$r/proc"
 mount -t tmpfs -o nosuid,noexec,mode=0755,size=64k tmpfs "$r/dev"
 for d in null zero random urandom; do touch "$r/dev/$d"; mount --bind "/dev/$d" "$r/dev/$d"; done
-exec env -i "$ALMANAC_IMAGE_ENV" chroot --userspec=65532:65532 --groups=65532 "$r" "$@"
+exec env -i $ALMANAC_IMAGE_ENV chroot --userspec=65532:65532 --groups=65532 "$r" "$@"
 `
+
+// sandboxCommand returns the command that runs the image's entrypoint with args in the sandbox
+// (see sandbox): root is the unpacked image, work the directory mounted on /tmp, env extra
+// NAME=value words for the process besides the image's PATH.
+func sandboxCommand(img *ociImage, root, work string, env []string, args ...string) *exec.Cmd {
+	pathEnv := "PATH=/"
+	for _, e := range img.config.Config.Env {
+		if strings.HasPrefix(e, "PATH=") {
+			pathEnv = e
+		}
+	}
+	argv := append([]string{"--mount", "--pid", "--fork", "--kill-child", "--propagation", "private", "sh", "-c", sandbox, "sandbox", root, work}, img.config.Config.Entrypoint...)
+	cmd := exec.Command("unshare", append(argv, args...)...)
+	cmd.Env = append(os.Environ(), "ALMANAC_IMAGE_ENV="+strings.Join(append([]string{pathEnv}, env...), " "))
+	return cmd
+}
+
+// unpackForSandbox unpacks an image into a new directory with mount points for /proc and /dev
+// (made before the root turns read-only, as a container runtime makes them) and returns it
+// with an empty directory for /tmp (mode 1777, like the image's /tmp and an emptyDir).
+func unpackForSandbox(t *testing.T, dir, name string) (img *ociImage, root, work string) {
+	t.Helper()
+	base := t.TempDir()
+	root = filepath.Join(base, "rootfs")
+	img = readImage(t, dir, name, root)
+	for _, d := range []string{"proc", "dev"} {
+		if err := os.Mkdir(filepath.Join(root, d), 0o755); err != nil {
+			t.Fatal(err)
+		}
+	}
+	work = filepath.Join(base, "tmp")
+	if err := os.Mkdir(work, 0o755); err != nil || os.Chmod(work, 0o777|fs.ModeSticky) != nil {
+		t.Fatal(err)
+	}
+	return img, root, work
+}
+
+// needSandbox skips unless this process can build the sandbox.
+func needSandbox(t *testing.T) {
+	t.Helper()
+	if os.Geteuid() != 0 {
+		t.Skip("mounting the image's root read-only and chroot into it need root (CI runs as root)")
+	}
+	for _, tool := range []string{"unshare", "mount", "chroot", "env"} {
+		if _, err := exec.LookPath(tool); err != nil {
+			t.Fatalf("%s (util-linux, coreutils) is needed to run the image: %v", tool, err)
+		}
+	}
+}
 
 // TestTrainerImageRuns runs a whole run (plan, every train shard, publish) with the trainer
 // binary of the image, inside the image's own root mounted read-only, as uid 65532, with only
@@ -472,42 +522,11 @@ exec env -i "$ALMANAC_IMAGE_ENV" chroot --userspec=65532:65532 --groups=65532 "$
 // the binary.
 func TestTrainerImageRuns(t *testing.T) {
 	dir := imagesDir(t)
-	if os.Geteuid() != 0 {
-		t.Skip("mounting the image's root read-only and chroot into it need root (CI runs as root)")
-	}
-	for _, tool := range []string{"unshare", "mount", "chroot", "env"} {
-		if _, err := exec.LookPath(tool); err != nil {
-			t.Fatalf("%s (util-linux, coreutils) is needed to run the image: %v", tool, err)
-		}
-	}
-	base := t.TempDir()
-	root := filepath.Join(base, "rootfs")
-	img := readImage(t, dir, "almanac-trainer", root)
-	// Mount points for /proc and /dev, made in the root before it turns read-only, as a
-	// container runtime makes them.
-	for _, d := range []string{"proc", "dev"} {
-		if err := os.Mkdir(filepath.Join(root, d), 0o755); err != nil {
-			t.Fatal(err)
-		}
-	}
-	work := filepath.Join(base, "tmp") // the emptyDir: mode 1777 like the image's /tmp
-	if err := os.Mkdir(work, 0o755); err != nil || os.Chmod(work, 0o777|fs.ModeSticky) != nil {
-		t.Fatal(err)
-	}
-	pathEnv := ""
-	for _, e := range img.config.Config.Env {
-		if strings.HasPrefix(e, "PATH=") {
-			pathEnv = e
-		}
-	}
-	if pathEnv == "" {
-		pathEnv = "PATH=/"
-	}
+	needSandbox(t)
+	img, root, work := unpackForSandbox(t, dir, "almanac-trainer")
 	run := func(args ...string) (string, error) {
 		t.Helper()
-		argv := append([]string{"--mount", "--pid", "--fork", "--propagation", "private", "sh", "-c", sandbox, "sandbox", root, work}, img.config.Config.Entrypoint...)
-		cmd := exec.Command("unshare", append(argv, args...)...)
-		cmd.Env = append(os.Environ(), "ALMANAC_IMAGE_ENV="+pathEnv)
+		cmd := sandboxCommand(img, root, work, nil, args...)
 		var out bytes.Buffer
 		cmd.Stdout, cmd.Stderr = &out, &out
 		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Minute)
