@@ -95,7 +95,12 @@ func stepSummary(pods []corev1.Pod, kind string) (s summary.Summary, ok bool, er
 		err = fmt.Errorf("summary kind %q, want %q", s.Kind, kind)
 	}
 	if err != nil {
-		return s, true, fmt.Errorf("pod %s: termination message: %w", p.Name, err)
+		// With FallbackToLogsOnError a trainer that crashed before writing its summary (a
+		// fatal runtime error) leaves the tail of its log here: keep its end for the reason.
+		if len(msg) > 512 {
+			msg = "..." + msg[len(msg)-512:]
+		}
+		return s, true, fmt.Errorf("pod %s: termination message %q: %w", p.Name, msg, err)
 	}
 	return s, true, nil
 }

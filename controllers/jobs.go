@@ -176,7 +176,7 @@ func podSpec(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha1
 			{Name: tmpVolume, MountPath: "/tmp"},
 		},
 		TerminationMessagePath:   terminationLogPath,
-		TerminationMessagePolicy: corev1.TerminationMessageReadFile,
+		TerminationMessagePolicy: corev1.TerminationMessageFallbackToLogsOnError,
 		SecurityContext: &corev1.SecurityContext{
 			RunAsNonRoot:             ptr.To(true),
 			ReadOnlyRootFilesystem:   ptr.To(true),

@@ -85,7 +85,7 @@ func TestBuildPlanJobAndPod(t *testing.T) {
 		"no escalation":    {*sc.AllowPrivilegeEscalation, false},
 		"caps dropped":     {sc.Capabilities.Drop, []corev1.Capability{"ALL"}},
 		"termination path": {c.TerminationMessagePath, "/dev/termination-log"},
-		"message policy":   {c.TerminationMessagePolicy, corev1.TerminationMessageReadFile},
+		"message policy":   {c.TerminationMessagePolicy, corev1.TerminationMessageFallbackToLogsOnError},
 		"env from secret":  {c.EnvFrom[0].SecretRef.Name, "fenwick-s3"},
 		"env run":          {c.Env[0], corev1.EnvVar{Name: "ALMANAC_RUN", Value: run.Name}},
 		"env portfolio":    {c.Env[1], corev1.EnvVar{Name: "ALMANAC_PORTFOLIO", Value: "fenwick-weekly"}},

@@ -675,6 +675,9 @@ func stepFailure(name, reason, message string, s summary.Summary, serr error) st
 	if serr == nil && s.Error != "" {
 		return fmt.Sprintf("%s failed: %s", name, s.Error)
 	}
+	if serr != nil {
+		return fmt.Sprintf("%s Job failed: %s: %s; %v", name, reason, message, serr)
+	}
 	return fmt.Sprintf("%s Job failed: %s: %s", name, reason, message)
 }
 

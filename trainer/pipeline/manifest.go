@@ -129,10 +129,10 @@ func readManifest(ctx context.Context, out *store.Store, run string) (*Manifest,
 	}
 	var m Manifest
 	if err := json.Unmarshal(b, &m); err != nil {
-		return nil, fmt.Errorf("%s: %w", out.Describe(key), err)
+		return nil, fmt.Errorf("%s: %w: %w", out.Describe(key), store.ErrDamaged, err)
 	}
 	if m.Version != ManifestVersion || m.Run != run {
-		return nil, fmt.Errorf("%s: version %d run %q, want version %d run %q", out.Describe(key), m.Version, m.Run, ManifestVersion, run)
+		return nil, fmt.Errorf("%s: version %d run %q, want version %d run %q: %w", out.Describe(key), m.Version, m.Run, ManifestVersion, run, store.ErrDamaged)
 	}
 	return &m, nil
 }

@@ -53,7 +53,8 @@ func (e Env) now() time.Time {
 }
 
 // ExitCode maps an error from this package to the trainer's exit code: configuration errors
-// (ErrConfig, a bad URI or key, refused credentials) 2, broken input 3, storage failures that
+// (ErrConfig, a bad URI or key, refused credentials) 2, broken input or damaged published state
+// (store.ErrDamaged) 3, storage failures that
 // may pass 4, a run the publish guard refused 5, anything else 1. Refused credentials count as configuration: retrying with the
 // same Secret cannot help.
 func ExitCode(err error) int {
@@ -65,7 +66,7 @@ func ExitCode(err error) int {
 		return exitcode.Config
 	case errors.Is(err, ErrRefused):
 		return exitcode.Refused
-	case errors.Is(err, ingest.ErrBrokenInput):
+	case errors.Is(err, ingest.ErrBrokenInput), errors.Is(err, store.ErrDamaged):
 		return exitcode.Data
 	case errors.Is(err, ErrStorage), errors.Is(err, context.DeadlineExceeded):
 		return exitcode.Transient

@@ -42,7 +42,8 @@ func openSource(ctx context.Context, src runconfig.Source) (*source, error) {
 	}
 	st, err := store.OpenExisting(ctx, u.String())
 	if err != nil {
-		return nil, storageErr(err)
+		// A missing input folder is missing input (exit 3), like an object gone after plan.
+		return nil, inputErr(err)
 	}
 	return &source{st: st, single: single, cfg: src}, nil
 }
@@ -161,7 +162,7 @@ func storageErr(err error) error {
 	case err == nil:
 		return nil
 	case errors.Is(err, store.ErrBadURI), errors.Is(err, store.ErrBadKey), errors.Is(err, store.ErrPermission),
-		errors.Is(err, store.ErrNotFound), errors.Is(err, ErrStorage), errors.Is(err, ingest.ErrBrokenInput),
+		errors.Is(err, store.ErrNotFound), errors.Is(err, ErrStorage), errors.Is(err, ingest.ErrBrokenInput), errors.Is(err, store.ErrDamaged),
 		errors.Is(err, context.Canceled), errors.Is(err, context.DeadlineExceeded):
 		return err
 	}

@@ -304,6 +304,10 @@ type Sharding struct {
 	Buckets int `json:"buckets,omitempty"`
 }
 
+// MaxHorizon bounds Horizon: ten times the API's maximum (1000), for configurations written by
+// hand; far larger horizons exhaust memory in the runtime, a crash no exit code can report.
+const MaxHorizon = 10000
+
 // MaxBuckets bounds Sharding.Buckets.
 const MaxBuckets = 1 << 16
 
@@ -402,6 +406,8 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("output.format: %q is not %s or %s", c.Output.Format, FormatCSV, FormatParquet)
 	case c.Horizon < 1:
 		return fmt.Errorf("horizon: must be >= 1, got %d", c.Horizon)
+	case c.Horizon > MaxHorizon:
+		return fmt.Errorf("horizon: must be <= %d, got %d", MaxHorizon, c.Horizon)
 	case len(c.Models) == 0:
 		return fmt.Errorf("models: at least one model")
 	case c.Selection.Metric == "":

@@ -81,21 +81,28 @@ func (s *Store) PutJSON(ctx context.Context, key string, v any) ([]byte, error) 
 // verifies the manifest it points at exists and matches the recorded checksum, so a caller
 // never follows a pointer to an incomplete run.
 func (s *Store) ReadLatest(ctx context.Context) (p Pointer, ok bool, err error) {
-	if err := s.GetJSON(ctx, LatestKey, &p); err != nil {
-		if errors.Is(err, ErrNotFound) {
-			return Pointer{}, false, nil
-		}
+	b, err := s.Get(ctx, LatestKey)
+	if errors.Is(err, ErrNotFound) {
+		return Pointer{}, false, nil
+	}
+	if err != nil {
 		return Pointer{}, false, err
 	}
+	if err := json.Unmarshal(b, &p); err != nil {
+		return Pointer{}, false, fmt.Errorf("store: %s: %w: %w", s.Describe(LatestKey), ErrDamaged, err)
+	}
 	if err := CheckName("run", p.Run); err != nil {
-		return Pointer{}, false, fmt.Errorf("store: %s: %w", s.Describe(LatestKey), err)
+		return Pointer{}, false, fmt.Errorf("store: %s: %w: %w", s.Describe(LatestKey), ErrDamaged, err)
 	}
 	m, err := s.Get(ctx, p.Manifest)
+	if errors.Is(err, ErrNotFound) || errors.Is(err, ErrBadKey) {
+		return Pointer{}, false, fmt.Errorf("store: %s points at %s: %w: %w", s.Describe(LatestKey), p.Manifest, ErrDamaged, err)
+	}
 	if err != nil {
 		return Pointer{}, false, fmt.Errorf("store: %s points at %s: %w", s.Describe(LatestKey), p.Manifest, err)
 	}
 	if got := SHA256(m); got != p.ManifestSHA256 {
-		return Pointer{}, false, fmt.Errorf("store: %s: manifest checksum %s, pointer says %s", s.Describe(p.Manifest), got, p.ManifestSHA256)
+		return Pointer{}, false, fmt.Errorf("store: %s: manifest checksum %s, pointer says %s: %w", s.Describe(p.Manifest), got, p.ManifestSHA256, ErrDamaged)
 	}
 	return p, true, nil
 }

@@ -22,6 +22,7 @@ import (
 	"os"
 	"strings"
 	"sync"
+	"syscall"
 
 	"gocloud.dev/blob"
 	_ "gocloud.dev/blob/azureblob" // azblob://
@@ -45,6 +46,9 @@ var (
 	ErrNotFound = errors.New("object not found")
 	// ErrPermission: the credentials do not allow the operation. Not retried.
 	ErrPermission = errors.New("permission denied")
+	// ErrDamaged: published state is unreadable or inconsistent (latest.json not a pointer,
+	// its manifest gone or with another checksum). Retrying cannot repair it.
+	ErrDamaged = errors.New("damaged published state")
 )
 
 // Store is a bucket and a key prefix inside it; every key a caller passes is relative to the
@@ -90,6 +94,10 @@ func open(ctx context.Context, uri string, create bool) (*Store, error) {
 		}
 		if create {
 			if err := os.MkdirAll(dir, 0o755); err != nil {
+				if errors.Is(err, syscall.EEXIST) || errors.Is(err, syscall.ENOTDIR) {
+					// A file where the directory should be: the URI is wrong, not the store.
+					return nil, fmt.Errorf("store: %s: not a directory: %w: %w", red, ErrBadURI, err)
+				}
 				return nil, fmt.Errorf("store: %s: %w", red, classify(err))
 			}
 		} else if fi, err := os.Stat(dir); err != nil {
@@ -215,7 +223,8 @@ func classify(err error) error {
 	switch {
 	case errors.Is(err, ErrNotFound), errors.Is(err, ErrPermission):
 		return err
-	case errors.Is(err, fs.ErrNotExist):
+	case errors.Is(err, fs.ErrNotExist), errors.Is(err, syscall.ELOOP):
+		// A symlink loop names no object that can ever be read: not found, not a passing fault.
 		return fmt.Errorf("%w: %w", ErrNotFound, err)
 	case errors.Is(err, fs.ErrPermission):
 		return fmt.Errorf("%w: %w", ErrPermission, err)

@@ -13,6 +13,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"runtime/debug"
 	"strconv"
 	"strings"
 	"syscall"
@@ -34,6 +35,9 @@ var (
 	commit  = "unknown"
 )
 
+// clock is the commands' clock (a variable so that the process-level tests can break it).
+var clock = time.Now
+
 // defaultTerminationLog is where Kubernetes reads a container's termination message.
 const defaultTerminationLog = "/dev/termination-log"
 
@@ -49,7 +53,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 		usage(stderr)
 		return exitcode.Config
 	}
-	env := pipeline.Env{Now: time.Now, Log: stderr}
+	env := pipeline.Env{Now: clock, Log: stderr}
 	switch args[0] {
 	case "plan", "publish", "train":
 		return step(ctx, args[0], args[1:], stdout, stderr, getenv, env)
@@ -104,9 +108,9 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	var s summary.Summary
 	switch name {
 	case "plan":
-		s, err = pipeline.RunPlan(ctx, cfg, env)
+		s, err = recovered(summary.KindPlan, stderr, func() (summary.Summary, error) { return pipeline.RunPlan(ctx, cfg, env) })
 	case "publish":
-		s, err = pipeline.RunPublish(ctx, cfg, env)
+		s, err = recovered(summary.KindPublish, stderr, func() (summary.Summary, error) { return pipeline.RunPublish(ctx, cfg, env) })
 	case "train":
 		idx := *shardFlag
 		if idx == "" {
@@ -116,7 +120,7 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 		if perr != nil || shard < 0 {
 			return fail(fmt.Errorf("train needs --shard or JOB_COMPLETION_INDEX (got %q): %w", idx, pipeline.ErrConfig))
 		}
-		s, err = pipeline.RunTrain(ctx, cfg, shard, env)
+		s, err = recovered(summary.KindTrain, stderr, func() (summary.Summary, error) { return pipeline.RunTrain(ctx, cfg, shard, env) })
 	}
 	code := pipeline.ExitCode(err)
 	if err != nil {
@@ -124,6 +128,22 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	}
 	finish(s, code, *termLog, stdout, stderr)
 	return code
+}
+
+// recovered runs a step and turns a panic on this goroutine into an error, so the process
+// exits 1 (internal) with a summary instead of the runtime's exit 2, which the Jobs read as a
+// permanent configuration error. The stack goes to stderr; the summary keeps the panic value.
+// Panics of the forecasting workers are already caught per series (selection.protect). Fatal
+// runtime errors (out of memory, stack exhaustion) cannot be recovered and still exit 2; the
+// Jobs' FallbackToLogsOnError then hands the controller the log's tail.
+func recovered(kind string, stderr io.Writer, fn func() (summary.Summary, error)) (s summary.Summary, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			fmt.Fprintf(stderr, "almanac-trainer: panic: %v\n%s", r, debug.Stack())
+			s, err = summary.Summary{Kind: kind}, fmt.Errorf("internal error (a bug): panic: %v", r)
+		}
+	}()
+	return fn()
 }
 
 // finish writes the summary to the termination log (a warning when that fails), a one-line
@@ -231,7 +251,7 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 		fmt.Fprintf(stderr, "almanac-trainer local: %v\n", err)
 		return exitcode.Config
 	}
-	s, err := pipeline.RunLocal(ctx, cfg, env)
+	s, err := recovered(summary.KindPublish, stderr, func() (summary.Summary, error) { return pipeline.RunLocal(ctx, cfg, env) })
 	code := pipeline.ExitCode(err)
 	if err != nil {
 		s.Error = err.Error()
@@ -311,9 +331,13 @@ commands (people and tests):
 exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retry 1 and 4):
   0  ok (publish also exits 0 when units are missing within the publish guard: the manifest
      then says complete: false)
-  1  internal error
-  2  configuration error: bad config or flags, unknown model, bad URI, refused credentials
-  3  broken input data: an object that cannot be read as a table, or that vanished after plan
+  1  internal error (a bug; a panic is reported with its value in the summary)
+  2  configuration error: bad config or flags, unknown model, bad URI (an output URI on a file),
+     refused credentials or permissions; also what the Go runtime exits with on a fatal error
+     (out of memory), which the trainer cannot catch
+  3  broken data: an input object that cannot be read as a table, changed or vanished after plan,
+     an input folder that is missing or has no objects; or damaged published state (latest.json
+     unreadable, its manifest gone or with another checksum)
   4  transient storage error: timeouts, refused connections, server errors
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
      units carried forward; no manifest is written and latest.json stays where it was

@@ -29,7 +29,7 @@ func TestRunExitCodes(t *testing.T) {
 		t.Errorf("version: exit %d, stdout %q", got, out.String())
 	}
 	out.Reset()
-	if got := run(ctx, []string{"help"}, &out, &errb, noenv); got != exitcode.OK || !strings.Contains(out.String(), "3  broken input data") {
+	if got := run(ctx, []string{"help"}, &out, &errb, noenv); got != exitcode.OK || !strings.Contains(out.String(), "3  broken data") {
 		t.Errorf("help must document the exit codes: %q", out.String())
 	}
 }

@@ -1,0 +1,187 @@
+package main
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/summary"
+)
+
+// TestMain lets the test binary stand in for the trainer: with ALMANAC_TRAINER_PROCESS set it
+// runs main() on its arguments (after "--"), so the table below sees real exit statuses.
+// ALMANAC_TRAINER_PANIC makes the clock panic, a panic inside plan.
+func TestMain(m *testing.M) {
+	if os.Getenv("ALMANAC_TRAINER_PROCESS") != "" {
+		if os.Getenv("ALMANAC_TRAINER_PANIC") != "" {
+			clock = func() time.Time { panic("the clock broke") }
+		}
+		for i, a := range os.Args {
+			if a == "--" {
+				os.Args = append([]string{os.Args[0]}, os.Args[i+1:]...)
+				break
+			}
+		}
+		main()
+	}
+	os.Exit(m.Run())
+}
+
+// trainerProcess runs the trainer as a child process and returns its exit status and the
+// summary it wrote to its termination log.
+func trainerProcess(t *testing.T, env []string, args ...string) (int, summary.Summary, string) {
+	t.Helper()
+	term := filepath.Join(t.TempDir(), "termination-log")
+	cmd := exec.Command(os.Args[0], append([]string{"-test.run=^$", "--", args[0], "--termination-log", term}, args[1:]...)...)
+	cmd.Env = append(append(os.Environ(), "ALMANAC_TRAINER_PROCESS=1"), env...)
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	err := cmd.Run()
+	code := 0
+	var ee *exec.ExitError
+	if errors.As(err, &ee) {
+		code = ee.ExitCode()
+	} else if err != nil {
+		t.Fatal(err)
+	}
+	b, rerr := os.ReadFile(term)
+	if rerr != nil {
+		t.Fatalf("exit %d and no termination log: %v\nstderr:\n%s", code, rerr, stderr.String())
+	}
+	s, derr := summary.Decode(b)
+	if derr != nil {
+		t.Fatalf("exit %d, termination log %s: %v", code, b, derr)
+	}
+	return code, s, stderr.String()
+}
+
+// dailyCSV is a Fenwick Lane Provisions history (invented): items x 60 days ending 2026-03-01.
+func dailyCSV(items ...string) []byte {
+	var b bytes.Buffer
+	b.WriteString("item,date,value\n")
+	end := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	for n, item := range items {
+		for d := 59; d >= 0; d-- {
+			day := end.AddDate(0, 0, -d)
+			fmt.Fprintf(&b, "%s,%s,%d\n", item, day.Format("2006-01-02"), 10+n+3*int(day.Weekday())+d%5)
+		}
+	}
+	return b.Bytes()
+}
+
+// Issue 18 case 3: the exit code and summary of every condition the audit found, through the
+// process (os.Exit included). The documented codes are in usage() and trainer/exitcode.
+func TestExitCodeOfEveryCondition(t *testing.T) {
+	localArgs := func(in, out, run string, extra ...string) []string {
+		return append([]string{"local", "--input", in, "--output", out, "--run", run, "--series", "item", "--horizon", "7",
+			"--models", "Naive,SeasonalNaive", "--design", "Fixed"}, extra...)
+	}
+	// published makes an input folder and an output with one published run r1.
+	published := func(t *testing.T) (in, out string) {
+		dir := t.TempDir()
+		in, out = "file://"+dir+"/in/", "file://"+dir+"/out/"
+		os.MkdirAll(dir+"/in", 0o755)
+		if err := os.WriteFile(dir+"/in/depot-ashby.csv", dailyCSV("FLP-OATS-1KG", "FLP-TEA-80", "FLP-JAM-340"), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		if code, s, stderr := trainerProcess(t, nil, localArgs(in, out, "r1")...); code != 0 {
+			t.Fatalf("first run: exit %d %+v\n%s", code, s, stderr)
+		}
+		return in, out
+	}
+	path := func(uri string) string { return strings.TrimPrefix(uri, "file://") }
+	tests := []struct {
+		name string
+		args func(t *testing.T) []string
+		env  []string
+		code int
+		want string
+	}{
+		{"a clean second run", func(t *testing.T) []string {
+			in, out := published(t)
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.OK, ""},
+		{"a panic inside plan", func(t *testing.T) []string {
+			in, out := published(t)
+			return localArgs(in, out, "r2")
+		}, []string{"ALMANAC_TRAINER_PANIC=1"}, exitcode.Internal, "internal error (a bug): panic: the clock broke"},
+		{"a missing input folder", func(t *testing.T) []string {
+			_, out := published(t)
+			return localArgs("file://"+t.TempDir()+"/nowhere/", out, "r2")
+		}, nil, exitcode.Data, "nowhere"},
+		{"a symlink loop in the input", func(t *testing.T) []string {
+			in, out := published(t)
+			os.Symlink("loop.csv", path(in)+"loop.csv")
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Data, "loop.csv"},
+		{"an output URI on a file", func(t *testing.T) []string {
+			in, _ := published(t)
+			f := filepath.Join(t.TempDir(), "forecasts.txt")
+			os.WriteFile(f, nil, 0o644)
+			return localArgs(in, "file://"+f+"/", "r2")
+		}, nil, exitcode.Config, "not a directory"},
+		{"a damaged latest.json", func(t *testing.T) []string {
+			in, out := published(t)
+			os.WriteFile(path(out)+"latest.json", []byte("{\"run\": \"r1\", "), 0o644)
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Data, "latest.json"},
+		{"a manifest that does not match latest.json's checksum", func(t *testing.T) []string {
+			in, out := published(t)
+			f, _ := os.OpenFile(path(out)+"runs/r1/MANIFEST.json", os.O_APPEND|os.O_WRONLY, 0)
+			f.WriteString(" ")
+			f.Close()
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Data, "manifest checksum"},
+		{"latest.json naming a run without a manifest", func(t *testing.T) []string {
+			in, out := published(t)
+			os.Remove(path(out) + "runs/r1/MANIFEST.json")
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Data, "runs/r1/MANIFEST.json"},
+		{"a horizon that would exhaust memory", func(t *testing.T) []string {
+			_, out := published(t)
+			// r1's own configuration, as the trainer wrote it, with another run and horizon.
+			var cfg map[string]any
+			b, err := os.ReadFile(path(out) + "runs/r1/config.json")
+			if err == nil {
+				err = json.Unmarshal(b, &cfg)
+			}
+			if err != nil {
+				t.Fatal(err)
+			}
+			cfg["run"], cfg["horizon"] = "r2", 2000000000
+			b, _ = json.Marshal(cfg)
+			f := filepath.Join(t.TempDir(), "config.json")
+			os.WriteFile(f, b, 0o644)
+			return []string{"plan", "--config", f}
+		}, nil, exitcode.Config, "horizon: must be <= 10000"},
+		{"an unreadable input folder", func(t *testing.T) []string {
+			if os.Geteuid() == 0 {
+				t.Skip("root reads any folder")
+			}
+			in, out := published(t)
+			os.Chmod(path(in), 0)
+			t.Cleanup(func() { os.Chmod(path(in), 0o755) })
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Config, "permission denied"},
+		{"a run that lost its series (read as monthly)", func(t *testing.T) []string {
+			in, out := published(t)
+			return localArgs(in, out, "r2", "--frequency", "Monthly")
+		}, nil, exitcode.Refused, "0 of 3 planned series forecast"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			code, s, stderr := trainerProcess(t, tc.env, tc.args(t)...)
+			if code != tc.code || !strings.Contains(s.Error, tc.want) || (tc.want == "") != (s.Error == "") {
+				t.Fatalf("exit %d, summary error %q; want exit %d and an error with %q\nstderr:\n%s", code, s.Error, tc.code, tc.want, stderr)
+			}
+		})
+	}
+}
