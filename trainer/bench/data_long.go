@@ -78,26 +78,19 @@ func M4Period(f series.Frequency) int {
 	return 1
 }
 
-// FrequencyName is the API's spelling of f (ForecastPortfolio spec.frequency: Hourly, Daily,
-// ...), used as the long layout's category.
-func FrequencyName(f series.Frequency) string {
-	if f == "" {
-		return ""
-	}
-	return strings.ToUpper(string(f[:1])) + string(f[1:])
-}
-
-// FrequencyNames lists the API spellings of every frequency, finest first.
+// FrequencyNames lists every frequency as the API spells it (series.Frequency values, the
+// ForecastPortfolio's spec.frequency), finest first.
 func FrequencyNames() []string {
 	out := make([]string, len(series.Frequencies))
 	for i, f := range series.Frequencies {
-		out[i] = FrequencyName(f)
+		out[i] = string(f)
 	}
 	return out
 }
 
 // ParseFrequency reads a --frequency value: the API's spelling (Hourly, Daily, Weekly,
-// Monthly, Quarterly, Yearly) or any other case of it (hourly).
+// Monthly, Quarterly, Yearly, as series.ParseFrequency takes it) or any other case of it
+// (hourly, as issue 16 wrote it).
 func ParseFrequency(s string) (series.Frequency, error) {
 	for _, f := range series.Frequencies {
 		if strings.EqualFold(s, string(f)) {
@@ -147,7 +140,7 @@ func readLong(path string) ([]string, map[string][]longPoint, error) {
 // freq. Rows may come in any order; per series the dates of train.csv must be consecutive
 // periods of freq (no gaps, no duplicates) and test.csv must continue them. Each series'
 // horizon is its number of test rows. Entries come in the order series first appear in
-// train.csv, with Category FrequencyName(freq), Frequency M4Period(freq) and Freq freq. Errors
+// train.csv, with Category the frequency's name (Hourly), Frequency M4Period(freq) and Freq freq. Errors
 // name the file and line ("test.csv:12: ...").
 func LoadLong(dir string, freq series.Frequency) ([]Entry, error) {
 	trainPath, testPath := filepath.Join(dir, "train.csv"), filepath.Join(dir, "test.csv")
@@ -176,7 +169,7 @@ func LoadLong(dir string, freq series.Frequency) ([]Entry, error) {
 		byTime(tr)
 		byTime(te)
 		start := tr[0].t
-		e := Entry{ID: id, Category: FrequencyName(freq), Frequency: M4Period(freq), Freq: freq,
+		e := Entry{ID: id, Category: string(freq), Frequency: M4Period(freq), Freq: freq,
 			Horizon: len(te), Start: start, Train: make([]float64, len(tr)), Test: make([]float64, len(te))}
 		for k, p := range append(tr[:len(tr):len(tr)], te...) {
 			path := trainPath

@@ -73,7 +73,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
 	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
 	limit := fs.Int("limit", 0, "use only the first N series (0: all)")
-	every := fs.Int("every", 1, "use every K-th series of series.csv (a spread sample over categories)")
+	every := fs.Int("every", 1, "use every K-th series, in the order of series.csv (M3 layout) or of train.csv (long layout): a spread sample")
 	workers := fs.Int("workers", 0, "parallel workers (0: GOMAXPROCS)")
 	origins := fs.Int("origins", selection.DefaultOrigins, "rolling origins per series")
 	step := fs.Int("step", selection.DefaultStep, "distance between origins")

@@ -11,6 +11,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"almanac.dev/almanac/trainer/series"
 )
 
 func near(a, b, rel float64) bool { return math.Abs(a-b) <= rel*math.Max(1, math.Abs(b)) }
@@ -186,7 +188,7 @@ func TestM4HourlyDevAgainstR(t *testing.T) {
 	if !HaveR(context.Background()) {
 		t.Skip("Rscript with the forecast package not installed")
 	}
-	entries, err := LoadDir(d, "hourly")
+	entries, err := LoadDir(d, series.Hourly)
 	if err != nil {
 		t.Fatal(err)
 	}
