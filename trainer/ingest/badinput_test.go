@@ -22,6 +22,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -71,6 +72,7 @@ type badCase struct {
 
 func badCases() []badCase {
 	big := strings.Repeat("x", 10<<20)
+	longCell := strings.Repeat("x\n", 450<<10) // 900 KiB over 460800 lines, under MaxLineBytes
 	return []badCase{
 		{name: "missing value column / broken at line 1, names the column and lists the file's",
 			csv: "depot,item,day,qty\n" + good, broken: []string{"line 1", `missing column "units"`, `"qty"`}},
@@ -175,6 +177,13 @@ func badCases() []badCase {
 			reject: map[string]string{"south/kip\uFFFDpers": "series key is not valid UTF-8"}},
 		{name: "a 10 MB line / broken at that line, memory bounded by MaxLineBytes",
 			csv: header + good + "south,kippers,2026-11-01," + big + "\n", broken: []string{"line 5", "longer than 1048576 bytes"}},
+		{name: "a 10 MB quoted field split over short lines (issue 18 case 6) / broken at the line it starts, bounded like a line",
+			csv:    header + good + "south,\"" + strings.Repeat("kippers\n", 10<<20/8) + "\",2026-11-01,1\n",
+			broken: []string{"line 5", "a record longer than 1048576 bytes"}},
+		{name: "a 900 KiB quoted key with doubled quotes over short lines / read, one series",
+			csv: header + "south,\"say \"\"hi\"\"\n" + longCell + "\",2026-11-01,1\n" +
+				"south,\"say \"\"hi\"\"\n" + longCell + "\",2026-11-02,2\n",
+			keep: []string{strconv.Quote("south") + "/" + strconv.Quote("say \"hi\"\n"+longCell)}},
 		{name: "path traversal in a series key / kept as data: keys never become storage paths",
 			csv: header + "../../etc,passwd,2026-11-01,1\n../../etc,passwd,2026-11-02,2\n", keep: []string{`"../../etc"/"passwd"`}},
 		{name: "key cells whose join with / would collide (depot A/1 item x, depot A item 1/x) / two series, both kept",

@@ -13,8 +13,9 @@ import (
 	"almanac.dev/almanac/trainer/runconfig"
 )
 
-// MaxLineBytes is the longest physical CSV line ScanCSV accepts; a longer one is broken input
-// (it is almost always a file that is not line-oriented, and it bounds the reader's memory).
+// MaxLineBytes is the longest CSV record ScanCSV accepts: a physical line, or the lines a quoted
+// field with newlines spans. A longer one is broken input (it is almost always a file that is
+// not line-oriented, and it bounds the reader's memory).
 const MaxLineBytes = 1 << 20
 
 // ScanCSV streams a CSV table with a header line from r and calls fn for every data row, in
@@ -82,20 +83,27 @@ func csvError(object string, err error) error {
 	var le *lineTooLong
 	switch {
 	case errors.As(err, &le):
-		return brokenf("%s line %d: longer than %d bytes", object, le.line, MaxLineBytes)
+		return brokenf("%s line %d: a record longer than %d bytes (a quoted field over several lines counts whole)", object, le.line, MaxLineBytes)
 	case errors.As(err, &pe):
 		return brokenf("%s line %d: %v", object, pe.Line, pe.Err)
 	}
 	return fmt.Errorf("%s: %w", object, err) // a read error of the underlying stream
 }
 
-// lineLimiter passes reads through and fails once a physical line exceeds max bytes.
+// lineLimiter passes reads through and fails once a record exceeds max bytes. A record is a
+// physical line, or several when a quoted field holds newlines: quote characters toggle the
+// quoted state (a doubled quote inside a quoted field toggles twice), and only a newline
+// outside quotes ends the record, so a field split over many short lines is held to the same
+// bound as a line. A stray quote in an unquoted field would mislead the count, but the CSV
+// reader rejects that field anyway.
 type lineLimiter struct {
-	r    io.Reader
-	max  int
-	run  int // bytes since the last newline
-	line int // newlines seen
-	err  error
+	r      io.Reader
+	max    int
+	run    int  // bytes of the current record so far
+	quoted bool // inside a quoted field
+	line   int  // newlines seen
+	start  int  // newlines seen before the current record began
+	err    error
 }
 
 type lineTooLong struct{ line int }
@@ -108,22 +116,25 @@ func (l *lineLimiter) Read(p []byte) (int, error) {
 	}
 	n, err := l.r.Read(p)
 	b := p[:n]
-	for len(b) > 0 {
-		i := bytes.IndexByte(b, '\n')
+	for len(b) > 0 && l.run <= l.max {
+		i := bytes.IndexAny(b, "\"\n")
 		if i < 0 {
 			l.run += len(b)
 			break
 		}
-		if l.run+i > l.max {
-			l.run += i
-			break
+		l.run += i + 1
+		if b[i] == '"' {
+			l.quoted = !l.quoted
+		} else {
+			l.line++
+			if !l.quoted {
+				l.run, l.start = 0, l.line
+			}
 		}
-		l.run = 0
-		l.line++
 		b = b[i+1:]
 	}
 	if l.run > l.max {
-		l.err = &lineTooLong{line: l.line + 1}
+		l.err = &lineTooLong{line: l.start + 1}
 		return n, l.err
 	}
 	return n, err

@@ -4,14 +4,17 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/tables"
 )
 
 // runToPublish plans and trains every shard of cfg (shard errors are ignored: the tests
@@ -170,6 +173,63 @@ func TestSameSizeRewriteSincePlanIsBroken(t *testing.T) {
 	for i := 0; i < ps.Shards; i++ {
 		if _, err := RunTrain(ctx, cfg, i, testEnv()); ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "depot-ashby.csv changed since plan") {
 			t.Fatalf("shard %d: exit %d, %v; want exit 3 naming the changed object", i, ExitCode(err), err)
+		}
+	}
+}
+
+// Issue 18 case 6: values alternating 1 and 1e155 overflow the bands (squares pass the
+// float64 range). Before, such a series published NaN or infinite quantiles; now it is
+// rejected with the reason, and the other series publish.
+func TestNonFiniteForecastIsRejected(t *testing.T) {
+	dir := t.TempDir()
+	in := mustOpen(t, "file://"+dir)
+	huge := depotRows("ashby", []string{"FLP-SALT-1KG"}, 42, func(_ string, _, d int, _ time.Time) string {
+		if d%2 == 0 {
+			return "1e155"
+		}
+		return "1"
+	})
+	if err := in.Put(context.Background(), "in/depot-ashby.csv", huge); err != nil {
+		t.Fatal(err)
+	}
+	if err := in.Put(context.Background(), "in/depot-brill.csv", depotCSV("brill", []string{"FLP-OATS-1KG", "FLP-TEA-80", "FLP-JAM-340", "FLP-HONEY-454"}, 42, "")); err != nil {
+		t.Fatal(err)
+	}
+	cfg := testConfig("flp-0001", "file://"+dir+"/in/", "file://"+dir+"/out")
+	cfg.Source.Partitioning = runconfig.PartitionObjects
+	if _, errs := runAll(t, cfg); errs[0] != nil || errs[1] != nil {
+		t.Fatal(errs)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, "flp-0001")
+	if m.Totals.Series.Trained != 4 || m.Totals.Series.Rejected != 1 {
+		t.Fatalf("totals %+v", m.Totals.Series)
+	}
+	b, err := out.Get(context.Background(), store.UnitKey("flp-0001", ObjectID("depot-ashby.csv", nil), store.RejectedName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	rej, err := tables.ReadRejected(bytes.NewReader(b), tables.CSV, cfg.Source.Columns.Series)
+	if err != nil || len(rej) != 1 || !strings.Contains(rej[0].Reason, "at step 1 is") {
+		t.Fatalf("rejected %+v, %v", rej, err)
+	}
+}
+
+func TestUnpublishable(t *testing.T) {
+	levels := []float64{0.1, 0.5, 0.9}
+	for _, c := range []struct {
+		mean []float64
+		q    [][]float64
+		want string
+	}{
+		{[]float64{5, 6}, [][]float64{{4, 5}, {5, 6}, {6, 7}}, ""},
+		{[]float64{5, 6}, [][]float64{{4, 5}, {5, 6}, {6, 6}}, ""}, // equal quantiles are allowed
+		{[]float64{5, math.NaN()}, [][]float64{{4, 5}, {5, 6}, {6, 7}}, "mean at step 2 is NaN"},
+		{[]float64{5, 6}, [][]float64{{4, 5}, {5, 6}, {math.Inf(1), 7}}, "quantile 0.9 at step 1 is +Inf"},
+		{[]float64{5, 6}, [][]float64{{4, 5}, {5, 6}, {6, 5.5}}, "quantiles decrease at step 2: 6 at level 0.5, 5.5 at level 0.9"},
+	} {
+		if got := unpublishable(c.mean, levels, c.q); got != c.want {
+			t.Errorf("unpublishable(%v, %v) = %q, want %q", c.mean, c.q, got, c.want)
 		}
 	}
 }

@@ -262,6 +262,10 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: errs[i].Error()})
 			continue
 		}
+		if why := unpublishable(r.Mean, r.Levels, r.Quantiles); why != "" {
+			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: fmt.Sprintf("model %s: %s", r.Chosen, why)})
+			continue
+		}
 		last := s.Len() - 1
 		for k := 0; k < len(r.Mean); k++ {
 			row := tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k]}
@@ -319,6 +323,28 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		return done, storageErr(err)
 	}
 	return done, nil
+}
+
+// unpublishable says why a forecast may not be published, or "": every mean and quantile must
+// be finite, and at each step the quantiles must not decrease with the level (levels are
+// increasing, runconfig validates them). Values that overflow (a history with values near
+// 1e155 squares past the float64 range) give NaN or infinite bands, which a reader cannot use.
+func unpublishable(mean []float64, levels []float64, q [][]float64) string {
+	for k, m := range mean {
+		if math.IsNaN(m) || math.IsInf(m, 0) {
+			return fmt.Sprintf("mean at step %d is %v", k+1, m)
+		}
+		for j := range levels {
+			v := q[j][k]
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Sprintf("quantile %v at step %d is %v", levels[j], k+1, v)
+			}
+			if j > 0 && v < q[j-1][k] {
+				return fmt.Sprintf("quantiles decrease at step %d: %v at level %v, %v at level %v", k+1, q[j-1][k], levels[j-1], v, levels[j])
+			}
+		}
+	}
+	return ""
 }
 
 // paramsText renders the fitted model and its parameters, sorted by name:
