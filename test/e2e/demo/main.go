@@ -416,6 +416,11 @@ func summarize(ctx context.Context, cl client.Client, fp *forecastingv1alpha1.Fo
 			parts = append(parts, fmt.Sprintf("%s %d", m.Model, m.Series))
 		}
 		fmt.Printf("  chosen models in %s: %s\n", r.Name, strings.Join(parts, ", "))
+		parts = parts[:0]
+		for _, d := range r.Status.Designs {
+			parts = append(parts, fmt.Sprintf("%s %d", d.Design, d.Series))
+		}
+		fmt.Printf("  designs (spec.selection.design %s): %s\n", p.Spec.Selection.Design, strings.Join(parts, ", "))
 	}
 	fmt.Println()
 	return nil
