@@ -108,7 +108,7 @@ func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha
 	job := &batchv1.Job{
 		ObjectMeta: metav1.ObjectMeta{Name: jobName(run.Name, s), Namespace: run.Namespace, Labels: labels},
 		Spec: batchv1.JobSpec{
-			ActiveDeadlineSeconds:   sh.ActiveDeadlineSeconds,
+			ActiveDeadlineSeconds:   ptr.To(activeDeadline(sh, s, p)),
 			TTLSecondsAfterFinished: fp.Spec.Trainer.TTLSecondsAfterFinished,
 			Template: corev1.PodTemplateSpec{
 				ObjectMeta: metav1.ObjectMeta{Labels: labels},
@@ -151,6 +151,32 @@ func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha
 		},
 	}}
 	return job
+}
+
+// Default step deadlines when spec.sharding.activeDeadlineSeconds is unset: a hung plan or
+// publish pod (a storage endpoint that accepts and never answers) would otherwise hold the
+// portfolio forever under concurrencyPolicy Forbid.
+const (
+	defaultPlanDeadline    = 2 * 3600 // plan reads every object once
+	defaultPublishDeadline = 3600     // publish reads every unit's files once
+	trainDeadlinePerWave   = 3600     // one wave of shards, maxParallel at once
+)
+
+// activeDeadline is the Job's activeDeadlineSeconds: the portfolio's, else the step's default;
+// train's grows with the plan: one hour per wave of maxParallel shards, plus one.
+func activeDeadline(sh forecastingv1alpha1.ShardingSpec, s step, p jobParams) int64 {
+	if sh.ActiveDeadlineSeconds != nil {
+		return *sh.ActiveDeadlineSeconds
+	}
+	switch s {
+	case stepPlan:
+		return defaultPlanDeadline
+	case stepPublish:
+		return defaultPublishDeadline
+	}
+	par := int64(max(1, sh.MaxParallel))
+	waves := (int64(max(1, p.Shards)) + par - 1) / par
+	return trainDeadlinePerWave * (waves + 1)
 }
 
 // podSpec is the trainer pod of one step: the image entrypoint with

@@ -123,3 +123,30 @@ func TestJobShareLimitsFallBack(t *testing.T) {
 		t.Errorf("jobShareLimits = %d, %d; want 1 and 1, the least either may be", p, w)
 	}
 }
+
+// Issue 18 case 2: every step Job has a deadline, so a hung pod cannot hold the portfolio
+// forever; the portfolio's own value wins.
+func TestJobDeadlines(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Sharding.MaxParallel = 4
+	run := fenwickRun("fenwick-weekly-29407950")
+	for _, c := range []struct {
+		s    step
+		p    jobParams
+		want int64
+	}{
+		{stepPlan, jobParams{}, 7200},
+		{stepPublish, jobParams{}, 3600},
+		{stepTrain, jobParams{Shards: 3, Parallelism: 2}, 2 * 3600},     // one wave, plus one
+		{stepTrain, jobParams{Shards: 9, Parallelism: 4}, 4 * 3600},     // three waves of 4, plus one
+		{stepTrain, jobParams{Shards: 400, Parallelism: 4}, 101 * 3600}, // grows with the plan
+	} {
+		if got := buildJob(fp, run, c.s, c.p).Spec.ActiveDeadlineSeconds; got == nil || *got != c.want {
+			t.Errorf("%s %+v: activeDeadlineSeconds %v, want %d", c.s, c.p, got, c.want)
+		}
+	}
+	fp.Spec.Sharding.ActiveDeadlineSeconds = ptr.To[int64](900)
+	if got := buildJob(fp, run, stepTrain, jobParams{Shards: 400}).Spec.ActiveDeadlineSeconds; *got != 900 {
+		t.Errorf("declared 900: got %d", *got)
+	}
+}

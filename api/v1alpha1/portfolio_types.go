@@ -678,7 +678,9 @@ type ShardingSpec struct {
 	// +kubebuilder:validation:XValidation:rule="self in [0, 1, 2, 4, 8, 16, 32, 64, 128, 256, 512, 1024, 2048, 4096, 8192, 16384, 32768, 65536]",message="buckets must be 0 or a power of two"
 	Buckets int32 `json:"buckets,omitempty"`
 
-	// activeDeadlineSeconds bounds each of the run's Jobs. Unset: no bound.
+	// activeDeadlineSeconds bounds each of the run's Jobs. Unset: plan 7200, publish 3600,
+	// train 3600 per wave of maxParallel shards plus 3600, so a hung pod cannot hold the
+	// portfolio forever.
 	// +optional
 	// +kubebuilder:validation:Minimum=1
 	ActiveDeadlineSeconds *int64 `json:"activeDeadlineSeconds,omitempty"`
