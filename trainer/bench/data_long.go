@@ -58,7 +58,11 @@ func LoadDir(dir string, freq series.Frequency) ([]Entry, error) {
 	if freq == "" {
 		return nil, fmt.Errorf("%s: long layout (train.csv, test.csv): give --frequency (one of %s)", dir, strings.Join(FrequencyNames(), ", "))
 	}
-	return LoadLong(dir, freq)
+	f, err := ParseFrequency(string(freq))
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", dir, err)
+	}
+	return LoadLong(dir, f)
 }
 
 // M4Period is the season length m the M4 competition scored MASE with and gave its

@@ -96,6 +96,9 @@ func TestLoadLongErrors(t *testing.T) {
 	if _, err := LoadDir(dir, ""); err == nil || !strings.Contains(err.Error(), "give --frequency") {
 		t.Errorf("long layout without a frequency: %v", err)
 	}
+	if _, err := LoadDir(dir, "fortnightly"); err == nil || !strings.Contains(err.Error(), "want one of Hourly") {
+		t.Errorf("a frequency the engine does not know: %v", err)
+	}
 	if code := Main([]string{"--data", dir, "--frequency", "fortnightly"}, &out, &errb); code != 2 {
 		t.Errorf("--frequency fortnightly: exit %d, want 2", code)
 	}
