@@ -268,6 +268,13 @@ func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs map[st
 		}
 		st.AccuracySums = sums
 	}
+	if s.Calibration != nil {
+		sums, err := addCalibration(st.CalibrationSums, *s.Calibration)
+		if err != nil {
+			return fmt.Sprintf("shard %d (pod %s): calibration not counted: %v", i, p.Name, err)
+		}
+		st.CalibrationSums = sums
+	}
 	return ""
 }
 

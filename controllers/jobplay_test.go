@@ -194,13 +194,17 @@ func finishShards(job *batchv1.Job, succeeded, failed []int, mk func(i int) summ
 
 // shardSummary is the train summary the lifecycle tests give shard i: 100 + i series, all but
 // one trained, and MASE sums expected 0.5*n and realized 0.6*n over n = 10 evaluated series
-// (each series expected 0.5 and realized 0.6, so the log sums are n ln 0.5 and n ln 0.6).
+// (each series expected 0.5 and realized 0.6, so the log sums are n ln 0.5 and n ln 0.6), and
+// calibration counts of a calibrated 80% band.
 func shardSummary(i int) summary.Summary {
 	return summary.Summary{
 		Series: 100 + i, Trained: 99 + i, Rejected: 1,
 		Models: map[string]int{"ETS": 60, "Theta": 39 + i},
 		Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 50, ExpectedSum: 5, RealizedSum: 6, Drifted: 1,
 			LogEvaluated: 10, ExpectedLogSum: 10 * math.Log(0.5), RealizedLogSum: 10 * math.Log(0.6)},
+		// 50 actuals: 5 at or below the 0.1 quantile and 45 at or below the 0.9 one (an 80% band
+		// covering 80%), scaled pinball sums 10 and 10, no bias.
+		Calibration: &summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 10, Points: 50, Below: []int{5, 45}, PinballSum: []float64{10, 10}},
 	}
 }
 

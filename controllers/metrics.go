@@ -23,6 +23,8 @@ type Metrics struct {
 	realized      *prometheus.GaugeVec
 	expectedGeo   *prometheus.GaugeVec
 	realizedGeo   *prometheus.GaugeVec
+	coverage      *prometheus.GaugeVec
+	bias          *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
 
@@ -72,6 +74,14 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_accuracy_realized_geometric",
 			Help: "Geometric mean error the portfolio's last evaluated run realized on new actuals, in its metric; drift judges realized/expected of these by default.",
 		}, []string{"namespace", "portfolio", "metric"}),
+		coverage: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_quantile_coverage",
+			Help: "Share of the new actuals at or below each published quantile of the portfolio's last evaluated run (a calibrated forecast gives the level).",
+		}, []string{"namespace", "portfolio", "level"}),
+		bias: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_forecast_bias",
+			Help: "Mean (forecast - actual) / scale over the new actuals of the portfolio's last evaluated run; the scale is each series' in-sample mean absolute naive error.",
+		}, []string{"namespace", "portfolio"}),
 		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_portfolio_condition",
 			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
@@ -81,7 +91,7 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
 		}, []string{"namespace", "portfolio"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.conditions, m.missed} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.bias, m.conditions, m.missed} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -130,6 +140,8 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	m.realized.DeletePartialMatch(labels)
 	m.expectedGeo.DeletePartialMatch(labels)
 	m.realizedGeo.DeletePartialMatch(labels)
+	m.coverage.DeletePartialMatch(labels)
+	m.bias.DeletePartialMatch(labels)
 	if acc == nil {
 		return
 	}
@@ -145,6 +157,14 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	}
 	if v, err := strconv.ParseFloat(acc.RealizedGeometric, 64); err == nil {
 		m.realizedGeo.WithLabelValues(namespace, portfolio, metric).Set(v)
+	}
+	for _, q := range acc.Calibration {
+		if v, err := strconv.ParseFloat(q.Realized, 64); err == nil {
+			m.coverage.WithLabelValues(namespace, portfolio, q.Level).Set(v)
+		}
+	}
+	if v, err := strconv.ParseFloat(acc.Bias, 64); err == nil {
+		m.bias.WithLabelValues(namespace, portfolio).Set(v)
 	}
 }
 

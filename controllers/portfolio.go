@@ -98,6 +98,11 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 	if evaluated != nil {
 		st.Accuracy = evaluated.Status.Accuracy.DeepCopy()
 		driftStatus, driftReason, driftMessage = driftVerdict(evaluated.Status.AccuracySums, fp.Spec.Drift)
+		if driftStatus != metav1.ConditionTrue {
+			if fired, reason, message := calibrationVerdict(evaluated.Status.CalibrationSums, fp.Spec.Drift); fired {
+				driftStatus, driftReason, driftMessage = metav1.ConditionTrue, reason, message
+			}
+		}
 		driftMessage = fmt.Sprintf("run %s: %s", evaluated.Name, driftMessage)
 	}
 	if driftStatus == metav1.ConditionTrue && !meta.IsStatusConditionTrue(st.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift) {

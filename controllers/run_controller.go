@@ -382,6 +382,7 @@ func (r *RunReconciler) fold(ctx context.Context, run *forecastingv1alpha1.Forec
 		w.event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonShardsFailed, "%s", joinLimited(res.Problems, 1000))
 	}
 	w.status.Accuracy = accuracyStatus(w.status.AccuracySums, run.Name)
+	withCalibration(w.status.Accuracy, w.status.CalibrationSums)
 	return nil
 }
 

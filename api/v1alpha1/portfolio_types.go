@@ -762,6 +762,25 @@ type DriftSpec struct {
 	// +kubebuilder:default=GeometricMean
 	Aggregate DriftAggregate `json:"aggregate,omitempty"`
 
+	// calibrationFalseAlarmPercent, when set, also calls drift when the published quantiles
+	// are miscalibrated: for some level τ the count k of new actuals at or below the τ
+	// quantile is outside n·τ ± z·sqrt(n·τ·(1−τ)) over n actuals (the binomial error of the
+	// count), with z the normal quantile that makes a calibrated forecast trip this with at
+	// most this percent chance over all levels (Bonferroni). Levels with n·τ·(1−τ) < 5 are
+	// not judged. Absent: calibration is reported, not judged.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=20
+	CalibrationFalseAlarmPercent int32 `json:"calibrationFalseAlarmPercent,omitempty"`
+
+	// maxBiasPercent, when set, also calls drift when the mean scaled error (forecast −
+	// actual) / scale of the new actuals is beyond ± this percent of the scale. Absent: bias
+	// is reported, not judged.
+	// +optional
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=1000
+	MaxBiasPercent int32 `json:"maxBiasPercent,omitempty"`
+
 	// action on drift: Report (default) or Retrain.
 	// +optional
 	// +kubebuilder:default=Report
@@ -801,17 +820,22 @@ const (
 
 // Condition reasons of a ForecastPortfolio, shared with Events.
 const (
-	ReasonInvalidSchedule  = "InvalidSchedule"
-	ReasonInvalidTimeZone  = "InvalidTimeZone"
-	ReasonMissingSecret    = "MissingSecret"
-	ReasonRunActive        = "RunActive"
-	ReasonRunSucceeded     = "RunSucceeded"
-	ReasonRunFailed        = "RunFailed"
-	ReasonNoRunYet         = "NoRunYet"
-	ReasonSuspended        = "Suspended"
-	ReasonWithinThreshold  = "WithinThreshold"
-	ReasonAboveThreshold   = "AboveThreshold"
-	ReasonTooFewPoints     = "TooFewPoints"
+	ReasonInvalidSchedule = "InvalidSchedule"
+	ReasonInvalidTimeZone = "InvalidTimeZone"
+	ReasonMissingSecret   = "MissingSecret"
+	ReasonRunActive       = "RunActive"
+	ReasonRunSucceeded    = "RunSucceeded"
+	ReasonRunFailed       = "RunFailed"
+	ReasonNoRunYet        = "NoRunYet"
+	ReasonSuspended       = "Suspended"
+	ReasonWithinThreshold = "WithinThreshold"
+	ReasonAboveThreshold  = "AboveThreshold"
+	ReasonTooFewPoints    = "TooFewPoints"
+	// ReasonCalibrationOff: the published quantiles covered the new actuals more or less
+	// often than their levels by more than the binomial tolerance.
+	ReasonCalibrationOff = "CalibrationOff"
+	// ReasonBiased: the mean scaled error is beyond spec.drift.maxBiasPercent.
+	ReasonBiased           = "Biased"
 	ReasonNotEvaluated     = "NotEvaluated"
 	ReasonSpecValid        = "SpecValid"
 	ReasonMissedSchedule   = "MissedSchedule"
@@ -904,6 +928,24 @@ type AccuracyStatus struct {
 	// geometricSeries is how many series the geometric means are over.
 	// +optional
 	GeometricSeries int64 `json:"geometricSeries,omitempty"`
+	// calibration lists, per published quantile level, the share of new actuals at or below
+	// the quantile (a calibrated forecast expects the level) and the mean scaled pinball loss.
+	// +optional
+	// +listType=atomic
+	Calibration []QuantileCalibration `json:"calibration,omitempty"`
+	// bandCoverage is the share of new actuals inside the widest published band (between the
+	// lowest and highest quantile), to compare with bandLevel, its nominal coverage.
+	// +optional
+	BandCoverage string `json:"bandCoverage,omitempty"`
+	// +optional
+	BandLevel string `json:"bandLevel,omitempty"`
+	// bias is the mean of (forecast − actual) / scale over the new actuals, the scale being the
+	// series' in-sample mean absolute naive error: positive means over-forecasting.
+	// +optional
+	Bias string `json:"bias,omitempty"`
+	// calibrationPoints is how many new actuals the calibration and bias are over.
+	// +optional
+	CalibrationPoints int64 `json:"calibrationPoints,omitempty"`
 	// evaluatedSeries is how many series had new actuals to compare.
 	EvaluatedSeries int64 `json:"evaluatedSeries,omitempty"`
 	// evaluatedPoints is how many (series, period) actuals were compared.
@@ -912,6 +954,17 @@ type AccuracyStatus struct {
 	DriftedSeries int64 `json:"driftedSeries,omitempty"`
 	// run is the run that measured these values.
 	Run string `json:"run,omitempty"`
+}
+
+// QuantileCalibration is one published quantile's record on the new actuals.
+type QuantileCalibration struct {
+	// level is the quantile's probability level, the share of actuals expected at or below it.
+	Level string `json:"level"`
+	// realized is the share of new actuals at or below the quantile.
+	Realized string `json:"realized"`
+	// pinballLoss is the mean pinball loss scaled by the series' in-sample mean absolute naive
+	// error.
+	PinballLoss string `json:"pinballLoss"`
 }
 
 // +kubebuilder:object:root=true

@@ -154,6 +154,11 @@ type ForecastRunStatus struct {
 	// +optional
 	AccuracySums *AccuracySums `json:"accuracySums,omitempty"`
 
+	// calibrationSums holds the exact counts and sums the calibration in the accuracy block is
+	// computed from.
+	// +optional
+	CalibrationSums *CalibrationSums `json:"calibrationSums,omitempty"`
+
 	// output is where the run's results are.
 	// +optional
 	Output string `json:"output,omitempty"`
@@ -228,6 +233,23 @@ type AccuracySums struct {
 	RealizedLogSum string `json:"realizedLogSum,omitempty"`
 }
 
+// CalibrationSums are running counts and sums (decimal strings) over the new actuals of the
+// previous run's quantile and mean forecasts, each scaled by its series' in-sample mean
+// absolute naive error: per level levels[j], below[j] actuals were at or below the quantile
+// and pinballSums[j] is the sum of scaled pinball losses; biasSum sums (forecast − actual) /
+// scale; all over points actuals of series series.
+type CalibrationSums struct {
+	// +listType=atomic
+	Levels []string `json:"levels"`
+	Series int64    `json:"series"`
+	Points int64    `json:"points"`
+	// +listType=atomic
+	Below []int64 `json:"below"`
+	// +listType=atomic
+	PinballSums []string `json:"pinballSums"`
+	BiasSum     string   `json:"biasSum"`
+}
+
 // +kubebuilder:object:root=true
 // +kubebuilder:subresource:status
 // +kubebuilder:resource:shortName=frun,categories=almanac
@@ -242,6 +264,7 @@ type AccuracySums struct {
 // +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
 // +kubebuilder:printcolumn:name="Geo Ratio",type=string,JSONPath=`.status.accuracy.geometricRatio`,priority=1
+// +kubebuilder:printcolumn:name="Coverage",type=string,JSONPath=`.status.accuracy.bandCoverage`,priority=1
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 
 // ForecastRun is one retraining of a ForecastPortfolio: plan, train shards, publish.

@@ -32,38 +32,15 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 	if len(prev) == 0 || math.IsNaN(expected) || math.IsInf(expected, 0) {
 		return row, false
 	}
-	idx := make(map[int64]int, actual.Len())
-	for i := range actual.Values {
-		idx[actual.PeriodAt(i).Unix()] = i
-	}
-	rows := append([]tables.ForecastRow(nil), prev...)
-	sort.Slice(rows, func(i, j int) bool { return rows[i].Period.Before(rows[j].Period) })
-	first, ok := idx[rows[0].Period.Unix()]
-	if !ok || first < 2 {
-		// The forecast starts outside this run's history (a series trimmed or restarted).
+	y, matched, hist, ok := newActuals(actual, prev, nonNegative)
+	if !ok {
 		return row, false
 	}
-	var y, f []float64
-	for _, r := range rows {
-		i, ok := idx[r.Period.Unix()]
-		if !ok || math.IsNaN(actual.Values[i]) {
-			continue
-		}
-		v := actual.Values[i]
-		if nonNegative && v < 0 {
-			v = 0 // series.Clean's rule for demand
-		}
-		y = append(y, v)
-		f = append(f, r.Mean)
+	f := make([]float64, len(matched))
+	for i, r := range matched {
+		f[i] = r.Mean
 	}
-	if len(y) == 0 {
-		return row, false
-	}
-	hist := series.Series{Key: actual.Key, Start: actual.Start, Freq: actual.Freq, Values: append([]float64(nil), actual.Values[:first]...)}
-	if err := series.Clean(&hist, series.CleanRules{NonNegative: nonNegative, MaxGapFraction: 1}); err != nil {
-		return row, false
-	}
-	realized := backtest.Score(metric, y, f, hist.Values, actual.Freq.SeasonLength())
+	realized := backtest.Score(metric, y, f, hist, actual.Freq.SeasonLength())
 	if metric == backtest.Bias {
 		realized = math.Abs(realized)
 	}
@@ -73,6 +50,93 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 	row.Points, row.Realized = len(y), realized
 	row.Drifted = len(y) >= d.MinPoints && expected > 0 && realized/expected > d.Threshold
 	return row, true
+}
+
+// newActuals pairs the previous forecast rows of one series with the actuals that arrived since:
+// y are the observed actuals (negative ones set to 0 when nonNegative, series.Clean's rule for
+// demand), matched the forecast rows of the same periods in period order, and hist the history
+// before the first forecast period, gaps filled as series.Clean does. ok is false when the
+// forecast starts outside this run's history (a series trimmed or restarted), no forecast
+// period has an actual yet, or the history cannot be cleaned.
+func newActuals(actual series.Series, prev []tables.ForecastRow, nonNegative bool) (y []float64, matched []tables.ForecastRow, hist []float64, ok bool) {
+	if len(prev) == 0 {
+		return nil, nil, nil, false
+	}
+	idx := make(map[int64]int, actual.Len())
+	for i := range actual.Values {
+		idx[actual.PeriodAt(i).Unix()] = i
+	}
+	rows := append([]tables.ForecastRow(nil), prev...)
+	sort.Slice(rows, func(i, j int) bool { return rows[i].Period.Before(rows[j].Period) })
+	first, found := idx[rows[0].Period.Unix()]
+	if !found || first < 2 {
+		return nil, nil, nil, false
+	}
+	for _, r := range rows {
+		i, found := idx[r.Period.Unix()]
+		if !found || math.IsNaN(actual.Values[i]) {
+			continue
+		}
+		v := actual.Values[i]
+		if nonNegative && v < 0 {
+			v = 0
+		}
+		y = append(y, v)
+		matched = append(matched, r)
+	}
+	if len(y) == 0 {
+		return nil, nil, nil, false
+	}
+	h := series.Series{Key: actual.Key, Start: actual.Start, Freq: actual.Freq, Values: append([]float64(nil), actual.Values[:first]...)}
+	if err := series.Clean(&h, series.CleanRules{NonNegative: nonNegative, MaxGapFraction: 1}); err != nil {
+		return nil, nil, nil, false
+	}
+	return y, matched, h.Values, true
+}
+
+// Calibrate measures the previous run's published quantiles and mean of one series on the
+// actuals that arrived since (paired as newActuals does), scaled by the series' in-sample
+// mean absolute (seasonal) naive error s (backtest.NaiveScale, the MASE scale of Hyndman &
+// Koehler 2006). levels are the quantile levels of the previous forecast table's columns. Over
+// the h new actuals y_t with quantile forecasts q_τ,t and mean forecast f_t:
+//
+//	below[τ]      = #{ t : y_t <= q_τ,t }                 (a calibrated forecast expects h·τ)
+//	pinballSum[τ] = h · backtest.Pinball(τ, y, q_τ) / s    (the scaled pinball loss of the M5
+//	                uncertainty competition, Competitor's Guide 2020, times h)
+//	biasSum       = Σ_t (f_t − y_t) / s                    (positive: over-forecast)
+//
+// so that sums over series and shards divided by the points give the realized coverage of each
+// quantile, the mean scaled pinball loss and the mean scaled bias. ok is false when nothing is
+// comparable, the scale is 0 or undefined, or a row lacks a quantile of levels.
+func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64, nonNegative bool) (summary.Calibration, bool) {
+	c := summary.Calibration{Levels: levels}
+	y, matched, hist, ok := newActuals(actual, prev, nonNegative)
+	if !ok {
+		return c, false
+	}
+	scale := backtest.NaiveScale(hist, actual.Freq.SeasonLength(), 1)
+	if !(scale > 0) || math.IsInf(scale, 0) {
+		return c, false
+	}
+	c.Series, c.Points = 1, len(y)
+	c.Below, c.PinballSum = make([]int, len(levels)), make([]float64, len(levels))
+	q := make([]float64, len(y))
+	for j, tau := range levels {
+		for i, r := range matched {
+			if len(r.Quantiles) != len(levels) || math.IsNaN(r.Quantiles[j]) {
+				return c, false
+			}
+			q[i] = r.Quantiles[j]
+			if y[i] <= q[i] {
+				c.Below[j]++
+			}
+		}
+		c.PinballSum[j] = float64(len(y)) * backtest.Pinball(tau, y, q) / scale
+	}
+	for i, r := range matched {
+		c.BiasSum += (r.Mean - y[i]) / scale
+	}
+	return c, true
 }
 
 // accumulate adds an evaluation row to accuracy sums; a row whose expected and realized errors

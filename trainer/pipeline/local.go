@@ -25,6 +25,7 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 	}
 	var failed []string
 	var acc *summary.Accuracy
+	var cal summary.Calibration
 	trained, fitSeries := 0, 0
 	fitSeconds := 0.0
 	for i := 0; i < ps.Shards; i++ {
@@ -46,12 +47,18 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 			}
 			acc.Add(*ts.Accuracy)
 		}
+		if ts.Calibration != nil {
+			cal.Add(*ts.Calibration)
+		}
 	}
 	s, err := RunPublish(ctx, cfg, env)
 	if err != nil {
 		return s, err
 	}
 	s.Shards = ps.Shards
+	if cal.Series > 0 {
+		s.Calibration = &cal
+	}
 	s.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
 		s.SeriesPerSecond = float64(fitSeries) / fitSeconds

@@ -55,6 +55,8 @@ type UnitDone struct {
 	Counts  Counts `json:"counts"`
 	// Accuracy sums the unit's evaluation of the previous run (nil when nothing was evaluated).
 	Accuracy *summary.Accuracy `json:"accuracy,omitempty"`
+	// Calibration sums the coverage, pinball and bias of that evaluation (nil when none).
+	Calibration *summary.Calibration `json:"calibration,omitempty"`
 	// PreviousRun is the run whose forecasts were evaluated ("" on a first run).
 	PreviousRun string `json:"previousRun,omitempty"`
 }

@@ -468,6 +468,18 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, 
 		math.Abs(a.ExpectedSum-4.0/7) > 1e-12 || math.Abs(a.RealizedSum-9.0/7) > 1e-12 {
 		t.Fatalf("accuracy = %+v, want evaluated 2, points 6, expected 4/7, realized 9/7, drifted 1", a)
 	}
+	// The same 6 actuals measure the previous run's quantiles (levels 0.1, 0.5, 0.9 of
+	// testConfig): counts at or below each quantile can only grow with the level.
+	c := s.Calibration
+	if c == nil || c.Series != 2 || c.Points != 6 || len(c.Levels) != 3 || len(c.Below) != 3 ||
+		c.Below[0] > c.Below[1] || c.Below[1] > c.Below[2] || c.Below[2] > 6 || math.IsNaN(c.BiasSum) {
+		t.Fatalf("calibration = %+v, want 2 series, 6 points, 3 levels with increasing counts", c)
+	}
+	for j, p := range c.PinballSum {
+		if !(p >= 0) {
+			t.Errorf("pinball sum of level %v = %v", c.Levels[j], p)
+		}
+	}
 	out := mustOpen(t, "mem://flp-eval-out-"+name+"/")
 	m := checkPublished(t, out, "flp-0002")
 	var rows []tables.EvaluationRow

@@ -114,6 +114,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	fitSeconds := env.now().Sub(t0).Seconds()
 
 	var firstErr error
+	var cal summary.Calibration
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
 	off := 0
 	for _, u := range units {
@@ -148,9 +149,16 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
 		}
+		if done.Calibration != nil && !cal.Add(*done.Calibration) {
+			env.logf("train: shard %d unit %s: previous quantile levels %v differ from %v; its calibration is not counted",
+				shard, u.unit.ID, done.Calibration.Levels, cal.Levels)
+		}
 	}
 	if acc.Evaluated > 0 {
 		sum.Accuracy = &acc
+	}
+	if cal.Series > 0 {
+		sum.Calibration = &cal
 	}
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
@@ -282,13 +290,16 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
-	evals, acc, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
+	evals, acc, cal, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
 	if err != nil {
 		return done, err
 	}
 	done.PreviousRun = prevRun
 	if acc.Evaluated > 0 {
 		done.Accuracy = &acc
+	}
+	if cal.Series > 0 {
+		done.Calibration = &cal
 	}
 	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected)}
 	if len(models) > 0 {
@@ -367,17 +378,19 @@ func paramsText(r selection.Result) string {
 // forward from an older run). A unit the previous run did not have is not evaluated, nor are
 // units whose previous files were pruned.
 func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded) (
-	[]tables.EvaluationRow, summary.Accuracy, string, error) {
+	[]tables.EvaluationRow, summary.Accuracy, summary.Calibration, string, error) {
 	metric := d.Metric
 	acc := summary.Accuracy{Metric: string(metric)}
+	var cal summary.Calibration
 	if prev == nil {
-		return nil, acc, "", nil
+		return nil, acc, cal, "", nil
 	}
 	ours := make(map[string]bool, len(u.series))
 	for _, s := range u.series {
 		ours[s.Key] = true
 	}
 	bySeries := map[string][]tables.ForecastRow{}
+	levels := map[string][]float64{}
 	expected := map[string]float64{}
 	source := map[string]string{}
 	for _, entry := range previousUnits(prev, u.unit, u.buckets) {
@@ -389,7 +402,8 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 		format := strings.TrimPrefix(ff.Key[strings.LastIndex(ff.Key, "."):], ".")
 		var fcs []tables.ForecastRow
 		var mrs []tables.ModelRow
-		err := readTable(ctx, out, ff, func(r io.Reader) (err error) { _, fcs, err = tables.ReadForecasts(r, format, keys); return })
+		var header tables.Header
+		err := readTable(ctx, out, ff, func(r io.Reader) (err error) { header, fcs, err = tables.ReadForecasts(r, format, keys); return })
 		if err == nil {
 			err = readTable(ctx, out, mf, func(r io.Reader) (err error) { mrs, err = tables.ReadModels(r, format, keys); return })
 		}
@@ -397,11 +411,12 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 			continue // pruned: nothing to evaluate, which is not a failure
 		}
 		if err != nil {
-			return nil, acc, "", err
+			return nil, acc, cal, "", err
 		}
 		for _, r := range fcs {
 			if ours[r.Key] {
 				bySeries[r.Key] = append(bySeries[r.Key], r)
+				levels[r.Key] = header.Quantiles
 			}
 		}
 		for _, m := range mrs {
@@ -423,8 +438,13 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 		row.PreviousRun = source[s.Key]
 		rows = append(rows, row)
 		accumulate(&acc, row)
+		if len(levels[s.Key]) > 0 {
+			if c, ok := Calibrate(s, bySeries[s.Key], levels[s.Key], nonNegative); ok {
+				cal.Add(c) // a unit whose previous entries used other levels keeps the first's
+			}
+		}
 	}
-	return rows, acc, prev.Run, nil
+	return rows, acc, cal, prev.Run, nil
 }
 
 // previousUnits returns the previous manifest's entries that hold the previous forecasts of

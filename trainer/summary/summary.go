@@ -42,6 +42,8 @@ type Summary struct {
 	Designs map[string]int `json:"designs,omitempty"`
 	// Accuracy holds the error sums of this shard's evaluation of the previous run's forecasts.
 	Accuracy *Accuracy `json:"accuracy,omitempty"`
+	// Calibration holds the coverage counts, pinball and bias sums of that evaluation.
+	Calibration *Calibration `json:"calibration,omitempty"`
 	// DurationSeconds is the command's wall time; SeriesPerSecond its training throughput.
 	DurationSeconds float64 `json:"durationSeconds,omitempty"`
 	SeriesPerSecond float64 `json:"seriesPerSecond,omitempty"`
@@ -76,6 +78,47 @@ type Accuracy struct {
 	LogEvaluated    int     `json:"logEvaluated,omitempty"`
 	ExpectedLogSum  float64 `json:"expectedLogSum,omitempty"`
 	RealizedLogSum  float64 `json:"realizedLogSum,omitempty"`
+}
+
+// Calibration carries counts and sums over the new actuals of the previous run's quantile and
+// mean forecasts (see pipeline.Calibrate), so that they fold exactly across shards: for each
+// level τ = Levels[j], Below[j]/Points is the realized share of actuals at or below the τ
+// quantile (a calibrated forecast expects τ), PinballSum[j]/Points the mean scaled pinball loss,
+// and BiasSum/Points the mean scaled error forecast − actual.
+type Calibration struct {
+	Levels     []float64 `json:"levels"`
+	Series     int       `json:"series"`
+	Points     int       `json:"points"`
+	Below      []int     `json:"below"`
+	PinballSum []float64 `json:"pinballSum"`
+	BiasSum    float64   `json:"biasSum"`
+}
+
+// Add folds b into c. It returns false, leaving c as it was, when both hold series and their
+// levels differ (a run whose previous forecasts changed quantiles part way).
+func (c *Calibration) Add(b Calibration) bool {
+	if b.Series == 0 {
+		return true
+	}
+	if c.Series == 0 {
+		*c = Calibration{Levels: b.Levels, Below: make([]int, len(b.Levels)), PinballSum: make([]float64, len(b.Levels))}
+	}
+	if len(c.Levels) != len(b.Levels) || len(b.Below) != len(b.Levels) || len(b.PinballSum) != len(b.Levels) {
+		return false
+	}
+	for j := range c.Levels {
+		if c.Levels[j] != b.Levels[j] {
+			return false
+		}
+	}
+	c.Series += b.Series
+	c.Points += b.Points
+	for j := range c.Levels {
+		c.Below[j] += b.Below[j]
+		c.PinballSum[j] += b.PinballSum[j]
+	}
+	c.BiasSum += b.BiasSum
+	return true
 }
 
 // Add folds b into a; both must use the same metric.

@@ -56,3 +56,50 @@ func TestAccuracyAdd(t *testing.T) {
 		t.Fatalf("Add = %+v, want %+v", a, want)
 	}
 }
+
+// TestCalibrationFitsAtTheLevelLimit: the API allows 19 quantile levels; a train summary with
+// their calibration sums (full-precision floats), a long model list and a long error still
+// encodes within MaxBytes and keeps every calibration count.
+func TestCalibrationFitsAtTheLevelLimit(t *testing.T) {
+	c := Calibration{Series: 123456, Points: 987654}
+	for i := 1; i <= 19; i++ {
+		c.Levels = append(c.Levels, float64(5*i)/100)
+		c.Below = append(c.Below, 50000*i)
+		c.PinballSum = append(c.PinballSum, 1234567.0/3*float64(i))
+	}
+	c.BiasSum = -98765.0 / 7
+	s := Summary{Kind: KindTrain, Trained: 9, Error: strings.Repeat("x", 10000), Models: map[string]int{}, Calibration: &c,
+		Accuracy: &Accuracy{Metric: "MASE", Evaluated: 5, ExpectedSum: 1.0 / 3, RealizedSum: 2.0 / 3, LogEvaluated: 5, ExpectedLogSum: -1.0 / 3, RealizedLogSum: 1.0 / 7}}
+	for i := 0; i < 400; i++ {
+		s.Models[strings.Repeat("m", 20)+string(rune('a'+i%26))+strings.Repeat("z", i%7)+string(rune('A'+i/26))] = i
+	}
+	b, err := Encode(s)
+	if err != nil || len(b) > MaxBytes {
+		t.Fatalf("encode: %d bytes, %v", len(b), err)
+	}
+	got, err := Decode(b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Calibration == nil || len(got.Calibration.Below) != 19 || got.Calibration.Below[18] != 950000 ||
+		got.Calibration.PinballSum[2] != c.PinballSum[2] || got.Accuracy.RealizedLogSum != 1.0/7 {
+		t.Fatalf("calibration after the round trip = %+v", got.Calibration)
+	}
+}
+
+func TestCalibrationAdd(t *testing.T) {
+	var c Calibration
+	a := Calibration{Levels: []float64{0.1, 0.9}, Series: 1, Points: 3, Below: []int{0, 3}, PinballSum: []float64{0.5, 0.25}, BiasSum: 1}
+	if !c.Add(a) || !c.Add(a) {
+		t.Fatal("same levels refused")
+	}
+	if c.Series != 2 || c.Points != 6 || c.Below[1] != 6 || c.PinballSum[0] != 1 || c.BiasSum != 2 {
+		t.Fatalf("sum = %+v", c)
+	}
+	if c.Add(Calibration{Levels: []float64{0.2, 0.8}, Series: 1, Points: 1, Below: []int{0, 1}, PinballSum: []float64{0, 0}}) {
+		t.Fatal("other levels added")
+	}
+	if c.Series != 2 {
+		t.Fatalf("refused add changed the sums: %+v", c)
+	}
+}

@@ -1,0 +1,162 @@
+package controllers
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/google/go-cmp/cmp"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/pipeline"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/tables"
+)
+
+// z90 is Φ⁻¹(0.9) = 1.2815516 (standard normal table), so mean ± z90·σ are the 0.1 and 0.9
+// quantiles of N(mean, σ²) and bound its central 80% band.
+const z90 = 1.2815515655446004
+
+// gaussianShards builds `shards` shard calibration sums over n series each: a history of 24
+// iid N(100, 10²) points and 6 new actuals from the same law, the previous run's forecast
+// being mean 100+shift with quantiles 0.1, 0.5, 0.9 at 100+shift + (−z90, 0, z90)·10·width.
+// width 1 is the true law (calibrated); width < 1 an overconfident member.
+func gaussianShards(t fatalHelper, shards, n int, width, shift float64, seed uint64) []summary.Calibration {
+	t.Helper()
+	rng := rand.New(rand.NewPCG(seed, 2))
+	start := time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC)
+	levels := []float64{0.1, 0.5, 0.9}
+	out := make([]summary.Calibration, shards)
+	for sh := range out {
+		for i := range n {
+			v := make([]float64, 30)
+			for k := range v {
+				v[k] = 100 + 10*rng.NormFloat64()
+			}
+			s := series.Series{Key: fmt.Sprintf("depot-%d/item-%d", sh, i), Start: start, Freq: series.Yearly, Values: v}
+			m := 100 + shift
+			var rows []tables.ForecastRow
+			for k := range 6 {
+				rows = append(rows, tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(24 + k), Step: k + 1, Mean: m,
+					Quantiles: []float64{m - z90*10*width, m, m + z90*10*width}})
+			}
+			c, ok := pipeline.Calibrate(s, rows, levels, false)
+			if !ok {
+				t.Fatalf("%s: not calibrated", s.Key)
+			}
+			if !out[sh].Add(c) {
+				t.Fatalf("%s: levels differ", s.Key)
+			}
+		}
+	}
+	return out
+}
+
+// fatalHelper is what gaussianShards needs of *testing.T and GinkgoT().
+type fatalHelper interface {
+	Helper()
+	Fatalf(format string, args ...any)
+}
+
+func foldCalibration(t *testing.T, shards []summary.Calibration, order []int) *forecastingv1alpha1.CalibrationSums {
+	t.Helper()
+	var sums *forecastingv1alpha1.CalibrationSums
+	for _, i := range order {
+		var err error
+		if sums, err = addCalibration(sums, shards[i]); err != nil {
+			t.Fatalf("addCalibration: %v", err)
+		}
+	}
+	return sums
+}
+
+// TestCoverageTolerance checks z against the standard normal table: Φ⁻¹(0.995) = 2.5758 for
+// a 1% two-sided false-alarm rate on one level, Φ⁻¹(1 − 0.01/6) = 2.9352 on three.
+func TestCoverageTolerance(t *testing.T) {
+	for _, tc := range []struct {
+		alpha  float64
+		levels int
+		want   float64
+	}{{0.01, 1, 2.5758}, {0.01, 3, 2.9352}, {0.05, 1, 1.9600}} {
+		if got := coverageTolerance(tc.alpha, tc.levels); math.Abs(got-tc.want) > 5e-4 {
+			t.Errorf("coverageTolerance(%v, %d) = %.4f, want %.4f", tc.alpha, tc.levels, got, tc.want)
+		}
+	}
+}
+
+// TestGaussianBandCoverage: with known Gaussian noise and the true quantiles published, the
+// realized coverage of the 80% band over 400 series × 6 actuals lands within the binomial
+// error of 80%: |k/n − 0.8| <= z·sqrt(0.8·0.2/n) with z = Φ⁻¹(0.995) (the points are
+// independent by construction, so the count inside the band is Binomial(n, 0.8)). Folding the
+// shards in any order gives the same sums, and drift does not fire; an overconfident member
+// (band a third as wide: true coverage 2Φ(z90/3) − 1 ≈ 0.33) trips calibration drift, and a
+// member that forecasts one σ high trips bias drift (bias ≈ σ / E|x_t − x_{t−1}| = sqrt(π)/2
+// ≈ 0.886 for iid data, the half-normal mean of a N(0, 2σ²) difference).
+func TestGaussianBandCoverage(t *testing.T) {
+	shards := gaussianShards(t, 4, 100, 1, 0, 11)
+	sums := foldCalibration(t, shards, []int{0, 1, 2, 3})
+	if diff := cmp.Diff(sums, foldCalibration(t, shards, []int{3, 1, 0, 2})); diff != "" {
+		t.Fatalf("fold order matters (-0123,+3102):\n%s", diff)
+	}
+	acc := &forecastingv1alpha1.AccuracyStatus{}
+	withCalibration(acc, sums)
+	n := float64(sums.Points)
+	if n != 2400 {
+		t.Fatalf("points %v, want 2400", n)
+	}
+	cov, err := strconv.ParseFloat(acc.BandCoverage, 64)
+	if err != nil || acc.BandLevel != "0.800" {
+		t.Fatalf("band coverage %q level %q", acc.BandCoverage, acc.BandLevel)
+	}
+	tol := coverageTolerance(0.01, 1) * math.Sqrt(0.8*0.2/n)
+	t.Logf("80%% band coverage %s over %v actuals (tolerance ±%.4f); per level %+v; bias %s", acc.BandCoverage, n, tol, acc.Calibration, acc.Bias)
+	if math.Abs(cov-0.8) > tol+0.0005 { // 0.0005: BandCoverage is rounded to 3 places
+		t.Errorf("coverage %.3f is outside 0.8 ± %.4f", cov, tol)
+	}
+	spec := forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1, MaxBiasPercent: 50}
+	if fired, reason, msg := calibrationVerdict(sums, spec); fired {
+		t.Errorf("calibrated forecasts drift: %s %s", reason, msg)
+	}
+
+	over := foldCalibration(t, gaussianShards(t, 4, 100, 1.0/3, 0, 12), []int{0, 1, 2, 3})
+	fired, reason, msg := calibrationVerdict(over, spec)
+	if !fired || reason != forecastingv1alpha1.ReasonCalibrationOff {
+		t.Errorf("overconfident member: fired %v reason %q (%s)", fired, reason, msg)
+	}
+	if fired, _, _ := calibrationVerdict(over, forecastingv1alpha1.DriftSpec{}); fired {
+		t.Errorf("calibration judged although spec.drift does not ask for it")
+	}
+
+	high := foldCalibration(t, gaussianShards(t, 4, 100, 1, 10, 13), []int{0, 1, 2, 3})
+	acc = &forecastingv1alpha1.AccuracyStatus{}
+	withCalibration(acc, high)
+	bias, _ := strconv.ParseFloat(acc.Bias, 64)
+	if math.Abs(bias-math.Sqrt(math.Pi)/2) > 0.1 {
+		t.Errorf("bias %.4f, want about sqrt(π)/2 = 0.886", bias)
+	}
+	fired, reason, msg = calibrationVerdict(high, forecastingv1alpha1.DriftSpec{MaxBiasPercent: 50})
+	if !fired || reason != forecastingv1alpha1.ReasonBiased {
+		t.Errorf("biased member: fired %v reason %q (%s)", fired, reason, msg)
+	}
+}
+
+func TestAddCalibrationRejectsOtherLevels(t *testing.T) {
+	start, err := addCalibration(nil, summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 1, Points: 2, Below: []int{0, 2}, PinballSum: []float64{0.5, 0.25}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := addCalibration(start, summary.Calibration{Levels: []float64{0.05, 0.95}, Series: 1, Points: 2, Below: []int{0, 2}, PinballSum: []float64{1, 1}})
+	if err == nil {
+		t.Fatalf("no error for other levels")
+	}
+	if diff := cmp.Diff(start, got); diff != "" {
+		t.Errorf("sums changed on error:\n%s", diff)
+	}
+	if _, err := addCalibration(start, summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 1, Points: 2, Below: []int{0, 2}, PinballSum: []float64{math.NaN(), 1}}); err == nil {
+		t.Errorf("no error for a NaN sum")
+	}
+}
