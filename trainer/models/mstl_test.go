@@ -161,3 +161,22 @@ func TestMultiSeasonalUpdate(t *testing.T) {
 		checkWeeklyDip(t, fam, longer.Forecast(168, []float64{0.1, 0.9}))
 	}
 }
+
+// BenchmarkMultiSeasonalFit fits each multi-seasonal family, and seasonal naive and Theta for
+// scale, on 960 hours (M4 hourly's longest training length) of the demo orders.
+func BenchmarkMultiSeasonalFit(b *testing.B) {
+	y := hourlyOrders(960)
+	for _, fam := range []string{FamilySeasonalNaive, FamilyTheta, FamilyMSTLTheta, FamilyMSTLETS, FamilyMSTLARIMA, FamilyFourierARIMA} {
+		mod, err := New(Spec{Family: fam})
+		if err != nil {
+			b.Fatal(err)
+		}
+		b.Run(fam, func(b *testing.B) {
+			for b.Loop() {
+				if _, err := FitWith(mod, y, 24, &Inputs{Freq: series.Hourly}); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}
