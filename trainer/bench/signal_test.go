@@ -17,7 +17,8 @@ const envSignalChild = "ALMANAC_BENCH_SIGNAL_CHILD"
 
 // TestBenchStopsOnSIGTERM runs bench in a child process while it waits on R's ets over every
 // M3 series, sends SIGTERM, and expects the child to exit with status 1 and leave no process
-// of its R reference run behind (their command lines name the almanac-bench-r directory).
+// of its R reference run behind (their command lines name the almanac-bench-r directory, made
+// under a TMPDIR of this test's own, so R runs of other benches on the machine do not count).
 // Skipped without the M3 data or R.
 func TestBenchStopsOnSIGTERM(t *testing.T) {
 	if os.Getenv(envSignalChild) != "" {
@@ -31,7 +32,8 @@ func TestBenchStopsOnSIGTERM(t *testing.T) {
 		t.Skip("Rscript with the forecast package not installed")
 	}
 	cmd := exec.Command(os.Args[0], "-test.run", "^TestBenchStopsOnSIGTERM$")
-	cmd.Env = append(os.Environ(), envSignalChild+"="+d)
+	tmp := t.TempDir()
+	cmd.Env = append(os.Environ(), envSignalChild+"="+d, "TMPDIR="+tmp)
 	var out bytes.Buffer
 	cmd.Stdout, cmd.Stderr = &out, &out
 	if err := cmd.Start(); err != nil {
@@ -39,7 +41,7 @@ func TestBenchStopsOnSIGTERM(t *testing.T) {
 	}
 	// Wait until an R child of the run exists, then stop the bench.
 	deadline := time.Now().Add(60 * time.Second)
-	for len(rChildren()) == 0 {
+	for len(rChildren(tmp)) == 0 {
 		if time.Now().After(deadline) {
 			cmd.Process.Kill()
 			t.Fatalf("no R child appeared within 60 s; output:\n%s", out.String())
@@ -61,18 +63,18 @@ func TestBenchStopsOnSIGTERM(t *testing.T) {
 		t.Fatalf("bench still running 30 s after SIGTERM; output:\n%s", out.String())
 	}
 	time.Sleep(200 * time.Millisecond) // let the killed group be reaped
-	if left := rChildren(); len(left) > 0 {
+	if left := rChildren(tmp); len(left) > 0 {
 		t.Errorf("R processes left after SIGTERM: %v", left)
 	}
 }
 
-// rChildren lists the pids whose command line names a bench R working directory.
-func rChildren() []string {
+// rChildren lists the pids whose command line names a bench R working directory under tmp.
+func rChildren(tmp string) []string {
 	var out []string
 	ms, _ := filepath.Glob("/proc/[0-9]*/cmdline")
 	for _, m := range ms {
 		b, err := os.ReadFile(m)
-		if err == nil && strings.Contains(string(b), "almanac-bench-r") {
+		if err == nil && strings.Contains(string(b), filepath.Join(tmp, "almanac-bench-r")) {
 			out = append(out, filepath.Base(filepath.Dir(m)))
 		}
 	}
