@@ -177,6 +177,7 @@ const (
 // +kubebuilder:validation:XValidation:rule="!has(self.selection) || !has(self.selection.combine) || self.selection.combine.top <= size(self.models)",message="selection.combine.top must not exceed the number of models"
 // +kubebuilder:validation:XValidation:rule="!has(self.features) || !has(self.features.covariates) || self.features.covariates.all(c, has(self.source.columns) && has(self.source.columns.covariates) && c in self.source.columns.covariates)",message="features.covariates must be listed in source.columns.covariates"
 // +kubebuilder:validation:XValidation:rule="!has(self.features) || self.models.exists(m, m.family in ['Ridge', 'Lasso', 'GradientBoosting'])",message="features are used only by the regression families Ridge, Lasso and GradientBoosting: add one to models"
+// +kubebuilder:validation:XValidation:rule="!(self.source.uri.split('?')[0].endsWith('/') && (self.output.uri.split('?')[0].endsWith('/') ? self.output.uri.split('?')[0] : self.output.uri.split('?')[0] + '/').startsWith(self.source.uri.split('?')[0])) && !self.source.uri.split('?')[0].startsWith((self.output.uri.split('?')[0].endsWith('/') ? self.output.uri.split('?')[0] : self.output.uri.split('?')[0] + '/'))",message="output.uri and source.uri must not overlap: a run would read its own outputs as input"
 type ForecastPortfolioSpec struct {
 	// schedule is when to retrain, a 5-field cron expression (minute hour day-of-month month
 	// day-of-week) or a macro such as @daily, evaluated in timeZone. Time zones go in timeZone,

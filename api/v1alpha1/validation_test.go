@@ -344,6 +344,12 @@ var _ = Describe("CRD validation", func() {
 		Entry("a design cost budget below the simplest design", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(99), "spec", "selection", "designCostPercent") },
 			want:   []string{"spec.selection.designCostPercent", "greater than or equal to 100"}}),
+		Entry("output under the input prefix", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "file:///data/demand/forecasts/", "spec", "output", "uri") },
+			want:   []string{"spec", "output.uri and source.uri must not overlap"}}),
+		Entry("input under the output prefix", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, "file:///data", "spec", "output", "uri") },
+			want:   []string{"spec", "output.uri and source.uri must not overlap"}}),
 		Entry("a publish guard above 100%", invalidCase{
 			mutate: func(u *unstructured.Unstructured) { set(u, int64(101), "spec", "publish", "minForecastPercent") },
 			want:   []string{"spec.publish.minForecastPercent", "less than or equal to 100"}}),

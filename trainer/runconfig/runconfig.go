@@ -25,6 +25,7 @@ import (
 	"math"
 	"os"
 	"slices"
+	"strings"
 	"strconv"
 	"time"
 )
@@ -304,6 +305,19 @@ type Sharding struct {
 	Buckets int `json:"buckets,omitempty"`
 }
 
+// Overlap reports whether the output prefix and the source can hold the same objects: the
+// output prefix inside a source prefix (later runs would list their own outputs as input), or
+// the source inside the output prefix. Query parameters are ignored; the output URI is a prefix
+// whether or not it ends in "/". The portfolio's CEL rule on spec checks the same.
+func Overlap(source, output string) bool {
+	src, _, _ := strings.Cut(source, "?")
+	out, _, _ := strings.Cut(output, "?")
+	if !strings.HasSuffix(out, "/") {
+		out += "/"
+	}
+	return (strings.HasSuffix(src, "/") && strings.HasPrefix(out, src)) || strings.HasPrefix(src, out)
+}
+
 // MaxHorizon bounds Horizon: ten times the API's maximum (1000), for configurations written by
 // hand; far larger horizons exhaust memory in the runtime, a crash no exit code can report.
 const MaxHorizon = 10000
@@ -404,6 +418,8 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("output.uri: must be set")
 	case c.Output.Format != FormatCSV && c.Output.Format != FormatParquet:
 		return fmt.Errorf("output.format: %q is not %s or %s", c.Output.Format, FormatCSV, FormatParquet)
+	case Overlap(c.Source.URI, c.Output.URI):
+		return fmt.Errorf("output.uri: %s and source.uri %s overlap: a run would read its own outputs as input", c.Output.URI, c.Source.URI)
 	case c.Horizon < 1:
 		return fmt.Errorf("horizon: must be >= 1, got %d", c.Horizon)
 	case c.Horizon > MaxHorizon:

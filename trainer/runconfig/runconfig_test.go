@@ -176,3 +176,24 @@ func TestNoEngineImports(t *testing.T) {
 }
 
 func ptr[T any](v T) *T { return &v }
+
+// Issue 18 case 5: output under the input prefix made every later run read its own outputs.
+func TestOverlap(t *testing.T) {
+	for _, c := range []struct {
+		source, output string
+		want           bool
+	}{
+		{"s3://fenwick/demand/", "s3://fenwick/forecasts/", false},
+		{"s3://fenwick/demand/", "s3://fenwick/demand/forecasts/", true},                 // output inside the input prefix
+		{"s3://fenwick/demand/", "s3://fenwick/demand", true},                            // the same prefix
+		{"s3://fenwick/demand/", "s3://fenwick/", true},                                  // input inside the output prefix
+		{"s3://fenwick/demand.csv", "s3://fenwick/out/", false},                          // one object beside the output
+		{"s3://fenwick/demand.csv", "s3://fenwick/", true},                               // one object inside it
+		{"s3://fenwick/demand/", "s3://fenwick/demand-out/", false},                      // a shared name start is not a prefix
+		{"s3://fenwick/demand/?endpoint=x", "s3://fenwick/demand/out/?endpoint=x", true}, // queries ignored
+	} {
+		if got := Overlap(c.source, c.output); got != c.want {
+			t.Errorf("Overlap(%q, %q) = %v, want %v", c.source, c.output, got, c.want)
+		}
+	}
+}
