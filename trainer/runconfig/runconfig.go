@@ -25,8 +25,8 @@ import (
 	"math"
 	"os"
 	"slices"
-	"strings"
 	"strconv"
+	"strings"
 	"time"
 )
 
