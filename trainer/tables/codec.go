@@ -17,6 +17,7 @@ import (
 	"io"
 	"math"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/parquet-go/parquet-go"
@@ -96,10 +97,24 @@ func read(r io.Reader, format, name string, kinds kindOf) (grid, error) {
 	return g, nil
 }
 
+// neutralQuote is prefixed, in CSV only, to a text cell that a spreadsheet would run as a
+// formula: one starting with = + - @, a tab or a carriage return (OWASP, "CSV Injection"), and
+// to one already starting with the quote, so that parseCell can drop exactly one and read every
+// text back as written. Parquet cells are typed and stored as they are.
+const neutralQuote = '\''
+
+// neutralise returns s as a CSV text cell (see neutralQuote).
+func neutralise(s string) string {
+	if s != "" && strings.IndexByte("=+-@\t\r'", s[0]) >= 0 {
+		return string(neutralQuote) + s
+	}
+	return s
+}
+
 func formatCell(c cell, k kind) string {
 	switch k {
 	case text:
-		return c.s
+		return neutralise(c.s)
 	case integer:
 		return strconv.FormatInt(c.n, 10)
 	case number:
@@ -122,7 +137,7 @@ func parseCell(s string, k kind) (cell, error) {
 	var err error
 	switch k {
 	case text:
-		c.s = s
+		c.s = strings.TrimPrefix(s, string(neutralQuote))
 	case integer:
 		c.n, err = strconv.ParseInt(s, 10, 64)
 	case number:
