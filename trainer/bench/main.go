@@ -18,6 +18,7 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/cli"
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/selection"
@@ -79,14 +80,14 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	step := fs.Int("step", selection.DefaultStep, "distance between origins")
 	combine := fs.Int("combine", 0, "also score the combination of the best N members (0/1: none)")
 	combineMethod := fs.String("combine-method", selection.CombineMean, "combination: mean or median")
-	margin := fs.Float64("combine-margin", 0, "choose the combination unless the best member beats it by more than this relative margin")
+	marginPercent := fs.Int("combine-margin-percent", 0, "as a portfolio's spec.selection.combine.marginPercent: choose the combination unless the best member beats it by more than this percent of the best member's score")
 	mode := fs.String("design", string(design.Auto), `"auto": what a portfolio's default spec.selection.design Auto runs (design.Forecast: one design per segment, chosen on an inner holdout of training data from candidates built from --zoo); "perSeries": each series' best --zoo member by backtest; "fixed": exactly the zoo and combination the flags give`)
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
-	if err := fs.Parse(args); err != nil {
-		return 2
+	if code, ok := cli.Parse(fs, "usage: almanac-trainer bench (--data DIR | --m3) [flags]\nScores the model zoo on a dataset in the M3 or the long layout.", args, stdout, stderr); !ok {
+		return code
 	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "bench: unexpected arguments %v\n", fs.Args())
+	if *marginPercent < 0 {
+		fmt.Fprintln(stderr, "bench: --combine-margin-percent must be >= 0")
 		return 2
 	}
 	dir := *dataDir
@@ -95,6 +96,10 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	if dir == "" {
 		fmt.Fprintln(stderr, "bench: give --data DIR or --m3")
+		return 2
+	}
+	if fi, err := os.Stat(dir); err != nil || !fi.IsDir() {
+		fmt.Fprintf(stderr, "bench: --data %s: not a directory (%v)\n", dir, err)
 		return 2
 	}
 	if *every < 1 {
@@ -144,7 +149,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	writeTable(stdout, naive2, naive2)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
-		CombineMargin: *margin, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
+		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
 		Mode: design.Mode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
 	switch {
 	case !o.Mode.Valid():

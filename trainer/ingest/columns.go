@@ -53,7 +53,7 @@ func mapColumns(c runconfig.Columns, names []string) (mapping, error) {
 		m.covs = append(m.covs, find(k))
 	}
 	if len(missing) > 0 {
-		return mapping{}, fmt.Errorf("missing column %s (the file has %s)", strings.Join(missing, ", "), quoteList(names, 20))
+		return mapping{}, fmt.Errorf("missing column %s (the file has %s): %w", strings.Join(missing, ", "), quoteList(names, 20), ErrColumns)
 	}
 	return m, nil
 }

@@ -47,7 +47,7 @@ func ScanCSV(ctx context.Context, r io.Reader, object string, src runconfig.Sour
 	}
 	m, err := mapColumns(src.Columns, head)
 	if err != nil {
-		return brokenf("%s line 1: %v", object, err)
+		return fmt.Errorf("%s line 1: %w: %w", object, err, ErrBrokenInput) // err may be ErrColumns
 	}
 	rb := rowBuilder{m: m, layout: src.DateLayout}
 	for n := 0; ; n++ {

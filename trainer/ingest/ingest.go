@@ -21,6 +21,13 @@ import (
 // broken-input exit code.
 var ErrBrokenInput = errors.New("broken input")
 
+// ErrColumns marks an input whose header lacks a column the configuration maps
+// (source.columns). Such an error also wraps ErrBrokenInput (the object cannot be read as the
+// configured table), but the trainer exits with the configuration code (2): a mapping that
+// does not match the header is almost always a wrong mapping, and no retry or carry-forward
+// fixes it.
+var ErrColumns = errors.New("the column mapping (source.columns) does not match the input")
+
 // Row is one input row after column mapping.
 type Row struct {
 	// Key is the series key columns' cells encoded as one string (JoinKey, SplitKey).

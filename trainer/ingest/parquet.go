@@ -255,7 +255,7 @@ func ScanParquet(ctx context.Context, ra io.ReaderAt, size int64, object string,
 		return err
 	})
 	if err != nil {
-		return brokenf("%s: %v", object, err)
+		return fmt.Errorf("%s: %w: %w", object, err, ErrBrokenInput) // err may be ErrColumns
 	}
 	rgs := f.RowGroups()
 	from, to := 0, len(rgs)
@@ -318,7 +318,7 @@ func parquetColumns(s *parquet.Schema, c runconfig.Columns) ([]*pcol, error) {
 		for _, f := range s.Fields() {
 			names = append(names, f.Name())
 		}
-		return nil, fmt.Errorf("missing column %s (the file has %s)", strings.Join(missing, ", "), quoteList(names, 20))
+		return nil, fmt.Errorf("missing column %s (the file has %s): %w", strings.Join(missing, ", "), quoteList(names, 20), ErrColumns)
 	}
 	return cols, nil
 }

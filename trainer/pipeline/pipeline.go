@@ -62,7 +62,7 @@ func ExitCode(err error) int {
 	case err == nil:
 		return exitcode.OK
 	case errors.Is(err, ErrConfig), errors.Is(err, store.ErrBadURI), errors.Is(err, store.ErrBadKey),
-		errors.Is(err, store.ErrPermission):
+		errors.Is(err, store.ErrPermission), errors.Is(err, ingest.ErrColumns):
 		return exitcode.Config
 	case errors.Is(err, ErrRefused):
 		return exitcode.Refused

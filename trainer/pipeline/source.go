@@ -41,8 +41,12 @@ func openSource(ctx context.Context, src runconfig.Source) (*source, error) {
 		}
 	}
 	st, err := store.OpenExisting(ctx, u.String())
+	if errors.Is(err, store.ErrNotFound) {
+		// No such prefix or folder: the configuration names input that is not there.
+		return nil, fmt.Errorf("source.uri: %w: %w", ErrConfig, err)
+	}
 	if err != nil {
-		// A missing input folder is missing input (exit 3), like an object gone after plan.
+		// Other failures to open it (a symlink loop, a folder that cannot be read) are input errors.
 		return nil, inputErr(err)
 	}
 	return &source{st: st, single: single, cfg: src}, nil
@@ -163,6 +167,7 @@ func storageErr(err error) error {
 		return nil
 	case errors.Is(err, store.ErrBadURI), errors.Is(err, store.ErrBadKey), errors.Is(err, store.ErrPermission),
 		errors.Is(err, store.ErrNotFound), errors.Is(err, ErrStorage), errors.Is(err, ingest.ErrBrokenInput), errors.Is(err, store.ErrDamaged),
+		errors.Is(err, ingest.ErrColumns),
 		errors.Is(err, context.Canceled), errors.Is(err, context.DeadlineExceeded):
 		return err
 	}

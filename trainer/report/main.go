@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"syscall"
 
+	"almanac.dev/almanac/trainer/cli"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/store"
 )
@@ -19,15 +20,14 @@ import (
 // code: exitcode.OK, exitcode.Config for a bad command line, URI or run name, exitcode.Data
 // when the run's files cannot be read as tables, exitcode.Transient for storage failures.
 // It is meant to be wired as `almanac-trainer report`.
-func Main(args []string) int {
+func Main(args []string, stdout, stderr io.Writer) int {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	return run(ctx, args, os.Stdout, os.Stderr)
+	return run(ctx, args, stdout, stderr)
 }
 
 func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("report", flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	output := fs.String("output", "", "output URI of the portfolio (where runs/ and latest.json are)")
 	runName := fs.String("run", "", "run to report (default: the run latest.json points at)")
 	dir := fs.String("dir", "report", "directory to write index.html and the plots into")
@@ -36,10 +36,10 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	drifted := fs.Int("drifted", DefaultLimits.Drifted, "most drifted series to draw")
 	indexCap := fs.Int("index-cap", 1000, "most rows in the all-series and rejected tables")
 	noHistory := fs.Bool("no-history", false, "do not read the input; plot forecasts only")
-	if err := fs.Parse(args); err != nil {
-		return exitcode.Config
+	if code, ok := cli.Parse(fs, "usage: almanac-trainer report --output URI [--run NAME] [--dir DIR] [flags]\nWrites an HTML report of a published run.", args, stdout, stderr); !ok {
+		return code
 	}
-	if fs.NArg() > 0 || *output == "" || *largest < 0 || *inter < 0 || *drifted < 0 {
+	if *output == "" || *largest < 0 || *inter < 0 || *drifted < 0 {
 		fmt.Fprintln(stderr, "report: usage: report --output URI [--run NAME] [--dir DIR] (counts must be >= 0)")
 		return exitcode.Config
 	}

@@ -50,7 +50,7 @@ func TestSamplesReadGeneratedColumns(t *testing.T) {
 		mapped := append(append(slices.Clone(c.Series), c.Date, c.Value), c.Covariates...)
 		for _, col := range mapped {
 			if !slices.Contains(written, col) {
-				t.Errorf("%s maps column %q; generate --frequency weekly writes %q", filepath.Base(f), col, written)
+				t.Errorf("%s maps column %q; generate --frequency Weekly writes %q", filepath.Base(f), col, written)
 			}
 		}
 		if !slices.Equal(c.Series, []string{ColItem, ColDepot}) {

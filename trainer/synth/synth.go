@@ -33,8 +33,8 @@ import (
 
 // Frequencies the generator writes.
 const (
-	Daily  = "daily"
-	Weekly = "weekly"
+	Daily  = "Daily"
+	Weekly = "Weekly"
 )
 
 // Options describe a dataset. The zero value of a field takes the default shown.

@@ -12,6 +12,7 @@ import (
 
 	"github.com/parquet-go/parquet-go"
 
+	"almanac.dev/almanac/trainer/cli"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/store"
 )
@@ -206,13 +207,12 @@ func (o Options) Write(ctx context.Context, st *store.Store, prefix, format stri
 // Main is the trainer's generate command.
 func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("generate", flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	out := fs.String("output", "", "store `URI` to write depot-<name>.<format> objects under (required)")
 	format := fs.String("format", CSV, "csv or parquet")
 	var o Options
 	fs.IntVar(&o.Items, "items", 50, "items per depot")
 	fs.IntVar(&o.Depots, "depots", 4, "depots")
-	fs.StringVar(&o.Frequency, "frequency", Daily, "daily or weekly")
+	fs.StringVar(&o.Frequency, "frequency", Daily, "Daily or Weekly")
 	fs.IntVar(&o.Periods, "periods", 0, "periods of history (default 730 days or 104 weeks)")
 	end := fs.String("end", "2026-11-30", "last period of history (YYYY-MM-DD; a Monday for weekly)")
 	fs.Float64Var(&o.SpareShare, "spare-share", 0.1, "share of items that are intermittent spare parts (negative: none)")
@@ -220,8 +220,8 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs.Uint64Var(&o.Seed, "seed", 1, "random seed")
 	fs.StringVar(&o.Scenario, "scenario", ScenarioBaseline, `"" (baseline) or promotions (adds a price column; demand driven by promotions, price cuts and the harvest fair)`)
 	fs.IntVar(&o.Future, "future", 0, "planned periods after the history, units empty (promotions scenario)")
-	if err := fs.Parse(args); err != nil {
-		return exitcode.Config
+	if code, ok := cli.Parse(fs, "usage: almanac-trainer generate --output URI [flags]\nWrites a synthetic Fenwick Lane Provisions dataset, one object per depot.", args, stdout, stderr); !ok {
+		return code
 	}
 	t, err := time.Parse("2006-01-02", *end)
 	if err != nil || *out == "" {
@@ -245,6 +245,6 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 		return exitcode.Transient
 	}
 	fmt.Fprintf(stdout, "generate: %d series (%d items x %d depots, %d %s periods) in %d objects under %s\n",
-		o.Series(), o.withDefaults().Items, o.withDefaults().Depots, o.withDefaults().Periods, o.withDefaults().Frequency, len(keys), st)
+		o.Series(), o.withDefaults().Items, o.withDefaults().Depots, o.withDefaults().Periods, strings.ToLower(o.withDefaults().Frequency), len(keys), st)
 	return exitcode.OK
 }

@@ -116,7 +116,7 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 		{"a missing input folder", func(t *testing.T) []string {
 			_, out := published(t)
 			return localArgs("file://"+t.TempDir()+"/nowhere/", out, "r2")
-		}, nil, exitcode.Data, "nowhere"},
+		}, nil, exitcode.Config, "nowhere"}, // the portfolio names input that is not there (issue 17)
 		{"a symlink loop in the input", func(t *testing.T) []string {
 			in, out := published(t)
 			os.Symlink("loop.csv", path(in)+"loop.csv")

@@ -20,6 +20,7 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/bench"
+	"almanac.dev/almanac/trainer/cli"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/report"
@@ -61,6 +62,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 		return local(ctx, args[1:], stdout, stderr, env)
 	case "inspect":
 		return inspect(ctx, args[1:], stdout, stderr)
+	case "render":
+		return renderCmd(args[1:], stdout, stderr)
 	case "validate":
 		return validate(args[1:], os.Stdin, stdout, stderr)
 	case "generate":
@@ -68,7 +71,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 	case "bench":
 		return bench.Main(args[1:], stdout, stderr)
 	case "report":
-		return report.Main(args[1:])
+		return report.Main(args[1:], stdout, stderr)
 	case "version", "--version":
 		fmt.Fprintf(stdout, "almanac-trainer %s (%s)\n", version, commit)
 		return exitcode.OK
@@ -84,12 +87,16 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 // step runs plan, train or publish with a configuration file.
 func step(ctx context.Context, name string, args []string, stdout, stderr io.Writer, getenv func(string) string, env pipeline.Env) int {
 	fs := flag.NewFlagSet(name, flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	cfgPath := fs.String("config", "", "run configuration `file` (config.json)")
 	termLog := fs.String("termination-log", defaultTerminationLog, "`file` the summary JSON is written to")
-	shardFlag := fs.String("shard", "", "shard `index` (train; default $JOB_COMPLETION_INDEX)")
-	if err := fs.Parse(args); err != nil {
-		return exitcode.Config
+	var shardFlag *string
+	use := fmt.Sprintf("usage: almanac-trainer %s --config FILE [--termination-log FILE]", name)
+	if name == "train" {
+		shardFlag = fs.String("shard", "", "shard `index` (default $JOB_COMPLETION_INDEX)")
+		use = "usage: almanac-trainer train --config FILE [--shard N] [--termination-log FILE]"
+	}
+	if code, ok := cli.Parse(fs, use, args, stdout, stderr); !ok {
+		return code
 	}
 	kind := map[string]string{"plan": summary.KindPlan, "train": summary.KindTrain, "publish": summary.KindPublish}[name]
 	fail := func(err error) int {
@@ -187,91 +194,14 @@ func line(s summary.Summary) string {
 	return b.String()
 }
 
-// local runs the whole pipeline in this process, from --config or from flags.
-func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pipeline.Env) int {
-	fs := flag.NewFlagSet("local", flag.ContinueOnError)
-	fs.SetOutput(stderr)
-	cfgPath := fs.String("config", "", "run configuration `file`; the flags below are ignored when set")
-	termLog := fs.String("termination-log", "", "`file` the summary JSON is written to (default none)")
-	in := fs.String("input", "", "input `URI` (an object, or a prefix ending in /)")
-	out := fs.String("output", "", "output `URI`")
-	format := fs.String("format", "csv", "input format: csv or parquet")
-	outFormat := fs.String("output-format", "parquet", "output table format: csv or parquet")
-	freq := fs.String("frequency", "Daily", "Hourly, Daily, Weekly, Monthly, Quarterly or Yearly")
-	keys := fs.String("series", "series", "comma-separated series key `columns`")
-	date := fs.String("date", "date", "date `column`")
-	value := fs.String("value", "value", "value `column`")
-	covs := fs.String("covariates", "", "comma-separated covariate `columns`")
-	partitioning := fs.String("partitioning", runconfig.PartitionHashBuckets, "input layout: HashBuckets, Objects or RowGroups")
-	horizon := fs.Int("horizon", 14, "forecast horizon in periods")
-	zoo := fs.String("models", "Naive,SeasonalNaive,ETS,Theta", "comma-separated model `families`")
-	designFlag := fs.String("design", runconfig.DesignAuto, "how the design is decided, as spec.selection.design: Auto (chosen per segment on an inner holdout), PerSeries or Fixed")
-	quantiles := fs.String("quantile-percents", "10,50,90", "comma-separated quantile `percents`")
-	perShard := fs.Int("series-per-shard", 2000, "target series per shard")
-	runName := fs.String("run", "", "run `name` (default local-<UTC time>)")
-	workers := fs.Int("workers", 0, "forecasting goroutines (0: GOMAXPROCS)")
-	if err := fs.Parse(args); err != nil {
-		return exitcode.Config
-	}
-	env.Workers = *workers
-	var cfg *runconfig.Config
-	var err error
-	if *cfgPath != "" {
-		cfg, err = runconfig.Load(*cfgPath)
-	} else {
-		name := *runName
-		if name == "" {
-			name = "local-" + env.Now().UTC().Format("20060102-150405")
-		}
-		c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: name, Trigger: "Manual",
-			Source: runconfig.Source{URI: *in, Format: *format, Frequency: *freq, NonNegative: true, Partitioning: *partitioning,
-				Columns: runconfig.Columns{Series: split(*keys), Date: *date, Value: *value, Covariates: split(*covs)}},
-			Output:    runconfig.Output{URI: *out, Format: *outFormat},
-			Horizon:   *horizon,
-			Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce, Design: *designFlag, DesignCostPercent: 500},
-			Sharding:  runconfig.Sharding{TargetSeriesPerShard: *perShard},
-			Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 7},
-		}
-		for _, f := range split(*zoo) {
-			c.Models = append(c.Models, runconfig.Model{Family: f})
-		}
-		for _, q := range split(*quantiles) {
-			v, perr := strconv.Atoi(q)
-			if perr != nil {
-				err = fmt.Errorf("--quantile-percents: %q is not an integer percent", q)
-			}
-			c.QuantilePercents = append(c.QuantilePercents, v)
-		}
-		if err == nil {
-			err = c.Validate()
-		}
-		cfg = &c
-	}
-	if err != nil {
-		fmt.Fprintf(stderr, "almanac-trainer local: %v\n", err)
-		return exitcode.Config
-	}
-	s, err := recovered(summary.KindPublish, stderr, func() (summary.Summary, error) { return pipeline.RunLocal(ctx, cfg, env) })
-	code := pipeline.ExitCode(err)
-	if err != nil {
-		s.Error = err.Error()
-	}
-	finish(s, code, *termLog, stdout, stderr)
-	if err == nil {
-		fmt.Fprintf(stdout, "local: run %s, %d shards in %.1fs, %.1f series/s fitting\n", cfg.Run, s.Shards, s.DurationSeconds, s.SeriesPerSecond)
-	}
-	return code
-}
-
 // inspect prints a published run.
 func inspect(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("inspect", flag.ContinueOnError)
-	fs.SetOutput(stderr)
 	out := fs.String("output", "", "output `URI` of the portfolio")
 	run := fs.String("run", "", "run `name` (default: the run latest.json points at)")
 	sel := fs.String("series", "", "show one series, by its key columns: `item=X,depot=Y` (fields quoted as in CSV when a value holds a comma or quote)")
-	if err := fs.Parse(args); err != nil {
-		return exitcode.Config
+	if code, ok := cli.Parse(fs, "usage: almanac-trainer inspect --output URI [--run NAME] [--series item=X,depot=Y]", args, stdout, stderr); !ok {
+		return code
 	}
 	if *out == "" {
 		fmt.Fprintln(stderr, "almanac-trainer inspect: --output is required")
@@ -293,16 +223,6 @@ func inspect(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	return exitcode.OK
 }
 
-func split(s string) []string {
-	var out []string
-	for _, p := range strings.Split(s, ",") {
-		if p = strings.TrimSpace(p); p != "" {
-			out = append(out, p)
-		}
-	}
-	return out
-}
-
 func usage(w io.Writer) {
 	fmt.Fprint(w, `usage: almanac-trainer <command> [flags]
 
@@ -319,8 +239,11 @@ commands (the run's Jobs):
 commands (people and tests):
   validate  -f FILE: check ForecastPortfolio/ForecastRun manifests offline with the CRDs' schema,
             defaults and CEL rules, as the apiserver would; exit 2 naming every bad field
-  local     all three steps in one process: --config FILE, or --input URI --output URI and
-            the flags listed by 'local -h'
+  render    -f FILE [--run NAME]: print the run configuration (config.json) the controller would
+            write for the ForecastPortfolio in FILE
+  local     -f FILE [--input URI] [--output URI] [--run NAME]: run that portfolio's plan, train
+            and publish in one process; or --config FILE, or --input URI --output URI and the
+            portfolio flags listed by 'local -h'
   inspect   --output URI [--run NAME] [--series item=X,depot=Y]: print a published run's
             manifest, counts and accuracy, or one series' models row and forecast rows
   generate  write a synthetic Fenwick Lane Provisions dataset; 'generate -h' for flags
@@ -333,11 +256,12 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
      then says complete: false)
   1  internal error (a bug; a panic is reported with its value in the summary)
   2  configuration error: bad config or flags, unknown model, bad URI (an output URI on a file),
+     an input folder or prefix that does not exist, a column mapping the input's header lacks,
      refused credentials or permissions; also what the Go runtime exits with on a fatal error
      (out of memory), which the trainer cannot catch
   3  broken data: an input object that cannot be read as a table, changed or vanished after plan,
-     an input folder that is missing or has no objects; or damaged published state (latest.json
-     unreadable, its manifest gone or with another checksum)
+     an input folder with no objects; or damaged published state (latest.json unreadable, its
+     manifest gone or with another checksum)
   4  transient storage error: timeouts, refused connections, server errors
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
      units carried forward; no manifest is written and latest.json stays where it was

@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -67,7 +68,7 @@ func TestLocalGenerateInspect(t *testing.T) {
 		t.Fatalf("generate: exit %d: %s", code, errb.String())
 	}
 	args := []string{"local", "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out", "--series", "item,depot",
-		"--value", "units", "--covariates", "promo_flag", "--models", "Naive,SeasonalNaive", "--horizon", "7", "--series-per-shard", "4",
+		"--value", "units", "--covariates", "promo_flag", "--models", "Naive,SeasonalNaive", "--horizon", "7", "--target-series-per-shard", "4",
 		"--partitioning", "Objects", "--run", "flp-local-1"}
 	out.Reset()
 	if code := run(ctx, args, &out, &errb, noenv); code != 0 {
@@ -155,5 +156,103 @@ func TestJobSteps(t *testing.T) {
 	}
 	if code := run(ctx, []string{"train", "--config", cfg, "--termination-log", ""}, &out, &errb, noenv); code != exitcode.Config {
 		t.Fatalf("train without a shard: exit %d", code)
+	}
+}
+
+// TestLocalRunsThePromotionSample: the promotion sample runs with no edits on the data
+// `generate --scenario promotions` writes, only the storage overridden; render prints the run
+// configuration the controller would write for it, strict and round-tripping.
+func TestLocalRunsThePromotionSample(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	sample := filepath.Join("..", "..", "..", "config", "samples", "forecasting_v1alpha1_forecastportfolio_promotions.yaml")
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--scenario", "promotions", "--frequency", "Weekly",
+		"--items", "4", "--depots", "2", "--future", "8"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: exit %d: %s", code, errb.String())
+	}
+	out.Reset()
+	if code := run(ctx, []string{"local", "-f", sample, "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--run", "flp-promo-1"},
+		&out, &errb, noenv); code != 0 {
+		t.Fatalf("local -f: exit %d: %s", code, errb.String())
+	}
+	if !strings.Contains(out.String(), "8 series forecast") {
+		t.Fatalf("local -f stdout: %s", out.String())
+	}
+	out.Reset()
+	if code := run(ctx, []string{"render", "-f", sample, "--run", "flp-promo-2"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("render: exit %d: %s", code, errb.String())
+	}
+	c, err := runconfig.Parse(out.Bytes(), "render output")
+	if err != nil {
+		t.Fatal(err)
+	}
+	again, _ := runconfig.Encode(c)
+	if string(again) != out.String() || c.Run != "flp-promo-2" || c.Source.Columns.Date != "week_start" || c.Features == nil || c.Selection.BacktestStep != 2 {
+		t.Fatalf("render printed %s", out.String())
+	}
+}
+
+// TestCommandLineHygiene: every subcommand takes -h (exit 0, usage on stdout), refuses stray
+// arguments, empty list items and flags it would ignore (exit 2, naming them).
+func TestCommandLineHygiene(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	cfg := filepath.Join(dir, "config.json")
+	os.WriteFile(cfg, []byte(`{}`), 0o644)
+	for _, cmd := range []string{"plan", "train", "publish", "local", "render", "validate", "inspect", "generate", "report", "bench"} {
+		var out, errb bytes.Buffer
+		if code := run(ctx, []string{cmd, "-h"}, &out, &errb, noenv); code != exitcode.OK || !strings.Contains(out.String(), "usage: almanac-trainer "+cmd) {
+			t.Errorf("%s -h: exit %d, stdout %q", cmd, code, out.String())
+		}
+	}
+	for name, tc := range map[string]struct {
+		args []string
+		want string
+	}{
+		"models with a trailing comma":  {[]string{"local", "--input", "file:///x/", "--output", "file:///y/", "--models", "ETS,"}, `--models: item 2 of "ETS," is empty`},
+		"stray argument":                {[]string{"local", "--input", "file:///x/", "--output", "file:///y/", "Theta"}, `unexpected argument "Theta"`},
+		"config and a portfolio flag":   {[]string{"local", "--config", cfg, "--frequency", "Weekly"}, "--frequency: not allowed with --config"},
+		"file and a portfolio flag":     {[]string{"local", "-f", cfg, "--horizon", "8"}, "--horizon: not allowed with -f"},
+		"frequency spelled lower case":  {[]string{"local", "--input", "file:///x/", "--output", "file:///y/", "--frequency", "weekly"}, `--frequency: Unsupported value: "weekly"`},
+		"partitioning lower case":       {[]string{"local", "--input", "file:///x/", "--output", "file:///y/", "--partitioning", "object"}, `--partitioning: Unsupported value: "object"`},
+		"quantile fractions":            {[]string{"local", "--input", "file:///x/", "--output", "file:///y/", "--quantile-percents", "0.1,0.9"}, `--quantile-percents: "0.1" is not an integer`},
+		"stray plan argument":           {[]string{"plan", "--config", cfg, "now"}, `unexpected argument "now"`},
+		"render without a file":         {[]string{"render"}, "-f FILE is required"},
+		"generate stray":                {[]string{"generate", "--output", "mem://x/", "weekly"}, `unexpected argument "weekly"`},
+		"generate lower-case frequency": {[]string{"generate", "--output", "mem://x/", "--frequency", "weekly"}, `frequency "weekly"`},
+	} {
+		t.Run(name, func(t *testing.T) {
+			var out, errb bytes.Buffer
+			if code := run(ctx, tc.args, &out, &errb, noenv); code != exitcode.Config || !strings.Contains(errb.String(), tc.want) {
+				t.Fatalf("exit %d, stderr %q; want exit 2 naming %q", code, errb.String(), tc.want)
+			}
+		})
+	}
+}
+
+// TestExitCodesForConfiguration: input that is not there and a column mapping that does not
+// match the input are configuration errors (exit 2), not internal errors or broken data.
+func TestExitCodesForConfiguration(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--items", "3", "--depots", "1", "--periods", "60"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: %s", errb.String())
+	}
+	for name, tc := range map[string]struct {
+		args []string
+		want string
+	}{
+		"missing input folder": {[]string{"--input", "file://" + dir + "/nowhere/"}, "source.uri"},
+		"wrong date column":    {[]string{"--input", "file://" + dir + "/in/", "--series", "item,depot", "--date", "week_start"}, `missing column "week_start"`},
+	} {
+		t.Run(name, func(t *testing.T) {
+			errb.Reset()
+			args := append([]string{"local", "--output", "file://" + dir + "/out-" + strings.ReplaceAll(name, " ", "-") + "/"}, tc.args...)
+			if code := run(ctx, args, &out, &errb, noenv); code != exitcode.Config || !strings.Contains(errb.String(), tc.want) {
+				t.Fatalf("exit %d, stderr %q; want exit 2 naming %q", code, errb.String(), tc.want)
+			}
+		})
 	}
 }

@@ -56,7 +56,7 @@ func BenchmarkLocalScale(b *testing.B) {
 			for i := 0; i < b.N; i++ {
 				cmd := exec.Command(bin, "local", "--input", "file://"+dir+"/in/", "--output", "file://"+dir+fmt.Sprintf("/out%d", i),
 					"--series", "item,depot", "--value", "units", "--covariates", "promo_flag", "--models", "Naive,SeasonalNaive,Theta",
-					"--horizon", "14", "--partitioning", "Objects", "--series-per-shard", "5000", "--run", "bench")
+					"--horizon", "14", "--partitioning", "Objects", "--target-series-per-shard", "5000", "--run", "bench")
 				start := time.Now()
 				out, err := cmd.CombinedOutput()
 				wall := time.Since(start).Seconds()
