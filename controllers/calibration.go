@@ -141,3 +141,33 @@ func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecast
 	}
 	return false, "", ""
 }
+
+// addStability folds one shard's movement sums into the run's (exact, as addAccuracy).
+func addStability(sums *forecastingv1alpha1.StabilitySums, s summary.Stability) (*forecastingv1alpha1.StabilitySums, error) {
+	if s.Series == 0 {
+		return sums, nil
+	}
+	out := &forecastingv1alpha1.StabilitySums{MovementSum: "0"}
+	if sums != nil {
+		*out = *sums
+	}
+	m, err := addDecimal(out.MovementSum, s.MovementSum)
+	if err != nil {
+		return sums, fmt.Errorf("movement sum: %w", err)
+	}
+	out.MovementSum = m
+	out.Series += int64(s.Series)
+	out.Points += int64(s.Points)
+	return out, nil
+}
+
+// withStability adds movement = movementSum / points to an accuracy status.
+func withStability(acc *forecastingv1alpha1.AccuracyStatus, sums *forecastingv1alpha1.StabilitySums) {
+	if acc == nil || sums == nil || sums.Points == 0 {
+		return
+	}
+	if m, ok := new(big.Rat).SetString(orZero(sums.MovementSum)); ok {
+		acc.Movement = m.Quo(m, new(big.Rat).SetInt64(sums.Points)).FloatString(4)
+		acc.MovementPoints = sums.Points
+	}
+}

@@ -160,3 +160,33 @@ func TestAddCalibrationRejectsOtherLevels(t *testing.T) {
 		t.Errorf("no error for a NaN sum")
 	}
 }
+
+func TestStabilityFoldAndStatus(t *testing.T) {
+	a, b := summary.Stability{Series: 1, Points: 2, MovementSum: 0.1}, summary.Stability{Series: 1, Points: 3, MovementSum: 0.2}
+	s1, err := addStability(nil, a)
+	if err == nil {
+		s1, err = addStability(s1, b)
+	}
+	if err != nil {
+		t.Fatal(err)
+	}
+	s2, _ := addStability(nil, b)
+	s2, _ = addStability(s2, a)
+	want := &forecastingv1alpha1.StabilitySums{Series: 2, Points: 5,
+		// The exact sum of the doubles nearest 0.1 and 0.2, whatever the order.
+		MovementSum: "0.3000000000000000166533453693773481063544750213623046875"}
+	if diff := cmp.Diff(want, s1); diff != "" {
+		t.Errorf("sums (-want,+got):\n%s", diff)
+	}
+	if diff := cmp.Diff(s1, s2); diff != "" {
+		t.Errorf("order matters:\n%s", diff)
+	}
+	acc := &forecastingv1alpha1.AccuracyStatus{}
+	withStability(acc, s1)
+	if acc.Movement != "0.0600" || acc.MovementPoints != 5 {
+		t.Errorf("movement %q over %d, want 0.0600 over 5", acc.Movement, acc.MovementPoints)
+	}
+	if _, err := addStability(s1, summary.Stability{Series: 1, Points: 1, MovementSum: math.Inf(1)}); err == nil {
+		t.Errorf("no error for an infinite sum")
+	}
+}

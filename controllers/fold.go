@@ -275,6 +275,13 @@ func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs map[st
 		}
 		st.CalibrationSums = sums
 	}
+	if s.Stability != nil {
+		sums, err := addStability(st.StabilitySums, *s.Stability)
+		if err != nil {
+			return fmt.Sprintf("shard %d (pod %s): stability not counted: %v", i, p.Name, err)
+		}
+		st.StabilitySums = sums
+	}
 	return ""
 }
 

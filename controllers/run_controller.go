@@ -383,6 +383,7 @@ func (r *RunReconciler) fold(ctx context.Context, run *forecastingv1alpha1.Forec
 	}
 	w.status.Accuracy = accuracyStatus(w.status.AccuracySums, run.Name)
 	withCalibration(w.status.Accuracy, w.status.CalibrationSums)
+	withStability(w.status.Accuracy, w.status.StabilitySums)
 	return nil
 }
 

@@ -947,6 +947,13 @@ type AccuracyStatus struct {
 	// calibrationPoints is how many new actuals the calibration and bias are over.
 	// +optional
 	CalibrationPoints int64 `json:"calibrationPoints,omitempty"`
+	// movement is the mean of |new − previous forecast| / scale over the periods both the run
+	// and the previous run forecast (movementPoints of them): how much the forecast moved, in
+	// MASE units (1: by one typical in-sample naive step).
+	// +optional
+	Movement string `json:"movement,omitempty"`
+	// +optional
+	MovementPoints int64 `json:"movementPoints,omitempty"`
 	// evaluatedSeries is how many series had new actuals to compare.
 	EvaluatedSeries int64 `json:"evaluatedSeries,omitempty"`
 	// evaluatedPoints is how many (series, period) actuals were compared.

@@ -159,6 +159,10 @@ type ForecastRunStatus struct {
 	// +optional
 	CalibrationSums *CalibrationSums `json:"calibrationSums,omitempty"`
 
+	// stabilitySums holds the exact sums the movement in the accuracy block is computed from.
+	// +optional
+	StabilitySums *StabilitySums `json:"stabilitySums,omitempty"`
+
 	// output is where the run's results are.
 	// +optional
 	Output string `json:"output,omitempty"`
@@ -248,6 +252,15 @@ type CalibrationSums struct {
 	// +listType=atomic
 	PinballSums []string `json:"pinballSums"`
 	BiasSum     string   `json:"biasSum"`
+}
+
+// StabilitySums are running sums (decimal string) of how far the run's new forecasts moved
+// from the previous run's: movementSum adds |new − previous| / scale over the points periods
+// both forecast, of series series (scale: the series' in-sample mean absolute naive error).
+type StabilitySums struct {
+	Series      int64  `json:"series"`
+	Points      int64  `json:"points"`
+	MovementSum string `json:"movementSum"`
 }
 
 // +kubebuilder:object:root=true

@@ -139,6 +139,41 @@ func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64
 	return c, true
 }
 
+// Movement measures how far a series' new forecast moved from the previous run's over the
+// periods both forecast (nervousness of the forecast, common practice in demand planning):
+//
+//	movementSum = Σ_{t in both} |f_new,t − f_prev,t| / s
+//
+// with s the in-sample mean absolute (seasonal) naive error of the series as collected this
+// run (backtest.NaiveScale, the MASE scale of Hyndman & Koehler 2006), so movementSum/points is
+// in the same unit as MASE: 1 means the forecast moved, on average, by one typical naive step.
+// ok is false when no period overlaps or the scale is 0 or undefined.
+func Movement(s series.Series, next, prev []tables.ForecastRow) (summary.Stability, bool) {
+	var st summary.Stability
+	if len(next) == 0 || len(prev) == 0 {
+		return st, false
+	}
+	scale := backtest.NaiveScale(s.Values, s.Freq.SeasonLength(), 1)
+	if !(scale > 0) || math.IsInf(scale, 0) {
+		return st, false
+	}
+	old := make(map[int64]float64, len(prev))
+	for _, r := range prev {
+		old[r.Period.Unix()] = r.Mean
+	}
+	for _, r := range next {
+		if p, ok := old[r.Period.Unix()]; ok {
+			st.Points++
+			st.MovementSum += math.Abs(r.Mean-p) / scale
+		}
+	}
+	if st.Points == 0 {
+		return st, false
+	}
+	st.Series = 1
+	return st, true
+}
+
 // accumulate adds an evaluation row to accuracy sums; a row whose expected and realized errors
 // are both above 0 also adds their natural logarithms to the geometric means' sums (a zero
 // error has no logarithm; such series are in the arithmetic means only).

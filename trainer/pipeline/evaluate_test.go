@@ -113,3 +113,28 @@ func TestAccumulateSkipsZeroErrors(t *testing.T) {
 		t.Errorf("log sums %v, %v; want ln 2 and ln 8", a.ExpectedLogSum, a.RealizedLogSum)
 	}
 }
+
+// TestMovement works one case by hand: history 10, 12, 11, 13 has naive steps 2, 1, 2, so the
+// scale is 5/3 (Hyndman & Koehler 2006, eq. (5)); the previous run forecast 13 for the periods
+// 4, 5, 6 and this run forecasts 14, 12, 20 for 4, 5, 6 shifted by one (5, 6, 7 in the series'
+// index), so periods 5 and 6 overlap: (|14 − 13| + |12 − 13|) / (5/3) = 1.2 over 2 points.
+func TestMovement(t *testing.T) {
+	s := series.Series{Key: "fenwick/oats", Start: time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC), Freq: series.Yearly, Values: []float64{10, 12, 11, 13}}
+	row := func(i int, v float64) tables.ForecastRow {
+		return tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(i), Mean: v}
+	}
+	prev := []tables.ForecastRow{row(3, 13), row(4, 13), row(5, 13)}
+	next := []tables.ForecastRow{row(4, 14), row(5, 12), row(6, 20)}
+	m, ok := Movement(s, next, prev)
+	if !ok || m.Series != 1 || m.Points != 2 || math.Abs(m.MovementSum-1.2) > 1e-12 {
+		t.Fatalf("Movement = %+v, %v; want 1 series, 2 points, sum 1.2", m, ok)
+	}
+	if _, ok := Movement(s, []tables.ForecastRow{row(6, 20)}, prev); ok {
+		t.Errorf("no overlapping period, yet measured")
+	}
+	flat := s
+	flat.Values = []float64{5, 5, 5, 5}
+	if _, ok := Movement(flat, next, prev); ok {
+		t.Errorf("zero scale, yet measured")
+	}
+}

@@ -57,6 +57,8 @@ type UnitDone struct {
 	Accuracy *summary.Accuracy `json:"accuracy,omitempty"`
 	// Calibration sums the coverage, pinball and bias of that evaluation (nil when none).
 	Calibration *summary.Calibration `json:"calibration,omitempty"`
+	// Stability sums how far this run's forecasts moved from the previous run's (nil when none).
+	Stability *summary.Stability `json:"stability,omitempty"`
 	// PreviousRun is the run whose forecasts were evaluated ("" on a first run).
 	PreviousRun string `json:"previousRun,omitempty"`
 }

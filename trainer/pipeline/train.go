@@ -115,6 +115,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 
 	var firstErr error
 	var cal summary.Calibration
+	var stab summary.Stability
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
 	off := 0
 	for _, u := range units {
@@ -149,6 +150,9 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
 		}
+		if done.Stability != nil {
+			stab.Add(*done.Stability)
+		}
 		if done.Calibration != nil && !cal.Add(*done.Calibration) {
 			env.logf("train: shard %d unit %s: previous quantile levels %v differ from %v; its calibration is not counted",
 				shard, u.unit.ID, done.Calibration.Levels, cal.Levels)
@@ -159,6 +163,9 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	}
 	if cal.Series > 0 {
 		sum.Calibration = &cal
+	}
+	if stab.Series > 0 {
+		sum.Stability = &stab
 	}
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
@@ -290,9 +297,22 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
-	evals, acc, cal, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
+	evals, acc, cal, prevFc, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
 	if err != nil {
 		return done, err
+	}
+	var stab summary.Stability
+	newFc := map[string][]tables.ForecastRow{}
+	for _, r := range fc {
+		newFc[r.Key] = append(newFc[r.Key], r)
+	}
+	for _, s := range u.series {
+		if m, ok := Movement(s, newFc[s.Key], prevFc[s.Key]); ok {
+			stab.Add(m)
+		}
+	}
+	if stab.Series > 0 {
+		done.Stability = &stab
 	}
 	done.PreviousRun = prevRun
 	if acc.Evaluated > 0 {
@@ -378,12 +398,12 @@ func paramsText(r selection.Result) string {
 // forward from an older run). A unit the previous run did not have is not evaluated, nor are
 // units whose previous files were pruned.
 func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded) (
-	[]tables.EvaluationRow, summary.Accuracy, summary.Calibration, string, error) {
+	[]tables.EvaluationRow, summary.Accuracy, summary.Calibration, map[string][]tables.ForecastRow, string, error) {
 	metric := d.Metric
 	acc := summary.Accuracy{Metric: string(metric)}
 	var cal summary.Calibration
 	if prev == nil {
-		return nil, acc, cal, "", nil
+		return nil, acc, cal, nil, "", nil
 	}
 	ours := make(map[string]bool, len(u.series))
 	for _, s := range u.series {
@@ -411,7 +431,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 			continue // pruned: nothing to evaluate, which is not a failure
 		}
 		if err != nil {
-			return nil, acc, cal, "", err
+			return nil, acc, cal, nil, "", err
 		}
 		for _, r := range fcs {
 			if ours[r.Key] {
@@ -444,7 +464,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 			}
 		}
 	}
-	return rows, acc, cal, prev.Run, nil
+	return rows, acc, cal, bySeries, prev.Run, nil
 }
 
 // previousUnits returns the previous manifest's entries that hold the previous forecasts of

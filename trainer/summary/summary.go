@@ -44,6 +44,8 @@ type Summary struct {
 	Accuracy *Accuracy `json:"accuracy,omitempty"`
 	// Calibration holds the coverage counts, pinball and bias sums of that evaluation.
 	Calibration *Calibration `json:"calibration,omitempty"`
+	// Stability sums how far this shard's new forecasts moved from the previous run's.
+	Stability *Stability `json:"stability,omitempty"`
 	// DurationSeconds is the command's wall time; SeriesPerSecond its training throughput.
 	DurationSeconds float64 `json:"durationSeconds,omitempty"`
 	SeriesPerSecond float64 `json:"seriesPerSecond,omitempty"`
@@ -119,6 +121,21 @@ func (c *Calibration) Add(b Calibration) bool {
 	}
 	c.BiasSum += b.BiasSum
 	return true
+}
+
+// Stability carries the movement of the new forecast against the previous run's over the
+// periods both cover: MovementSum/Points is the mean scaled movement (see pipeline.Movement).
+type Stability struct {
+	Series      int     `json:"series"`
+	Points      int     `json:"points"`
+	MovementSum float64 `json:"movementSum"`
+}
+
+// Add folds b into s.
+func (s *Stability) Add(b Stability) {
+	s.Series += b.Series
+	s.Points += b.Points
+	s.MovementSum += b.MovementSum
 }
 
 // Add folds b into a; both must use the same metric.
