@@ -1,6 +1,7 @@
 package controllers
 
 import (
+	"encoding/json"
 	"fmt"
 	"strconv"
 	"time"
@@ -19,8 +20,8 @@ import (
 	"k8s.io/utils/ptr"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
+	"almanac.dev/almanac/api/offline"
 	"almanac.dev/almanac/api/render"
-	"almanac.dev/almanac/api/render/rendertest"
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
@@ -181,17 +182,25 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(conf["quantilePercents"]).To(Equal([]any{10.0, 50.0, 90.0}))
 		Expect(conf["run"]).To(Equal(name))
 		// The ConfigMap is the trainer's strict, versioned file, unchanged by a decode and
-		// encode; and the same spec defaulted offline from the generated CRD (as
-		// almanac-trainer validate, render and local -f do) renders the very same bytes.
+		// encode; and the same spec loaded as a file by validate's loader (as almanac-trainer
+		// validate, render -f and local -f do) renders the very same bytes.
 		raw := configText(ns, name)
 		parsed, err := runconfig.Parse([]byte(raw), "ConfigMap "+configMapName(name))
 		Expect(err).NotTo(HaveOccurred())
 		again, err := runconfig.Encode(parsed)
 		Expect(err).NotTo(HaveOccurred())
 		Expect(string(again)).To(Equal(raw))
-		offline := rendertest.Default(portfolioSpec(ns, "fenwick-daily", "* * * * *", mutate))
-		offline.Generation = getPortfolio(ns, "fenwick-daily").Generation
-		rendered, err := render.RunConfig(offline, getRun(ns, name), "")
+		// The file a user would commit: the spec as written, checked and defaulted by the
+		// trainer's validate loader (api/offline), not by the apiserver.
+		file := portfolioSpec(ns, "fenwick-daily", "* * * * *", mutate)
+		file.APIVersion, file.Kind = forecastingv1alpha1.GroupVersion.String(), "ForecastPortfolio"
+		doc, err := json.Marshal(file)
+		Expect(err).NotTo(HaveOccurred())
+		objs, err := offline.Load("fenwick-daily.json", doc)
+		Expect(err).NotTo(HaveOccurred())
+		fromFile := objs[0].Portfolio
+		fromFile.Generation = getPortfolio(ns, "fenwick-daily").Generation
+		rendered, err := render.RunConfig(fromFile, getRun(ns, name), "")
 		Expect(err).NotTo(HaveOccurred())
 		b, err := runconfig.Encode(&rendered)
 		Expect(err).NotTo(HaveOccurred())
