@@ -25,6 +25,7 @@ type Metrics struct {
 	realizedGeo   *prometheus.GaugeVec
 	coverage      *prometheus.GaugeVec
 	bias          *prometheus.GaugeVec
+	movement      *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
 
@@ -82,6 +83,10 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_forecast_bias",
 			Help: "Mean (forecast - actual) / scale over the new actuals of the portfolio's last evaluated run; the scale is each series' in-sample mean absolute naive error.",
 		}, []string{"namespace", "portfolio"}),
+		movement: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_forecast_movement",
+			Help: "Mean |new - previous forecast| / scale over the periods both the portfolio's last evaluated run and its previous run forecast (MASE units).",
+		}, []string{"namespace", "portfolio"}),
 		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_portfolio_condition",
 			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
@@ -91,7 +96,7 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
 		}, []string{"namespace", "portfolio"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.bias, m.conditions, m.missed} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.bias, m.movement, m.conditions, m.missed} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -142,6 +147,7 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	m.realizedGeo.DeletePartialMatch(labels)
 	m.coverage.DeletePartialMatch(labels)
 	m.bias.DeletePartialMatch(labels)
+	m.movement.DeletePartialMatch(labels)
 	if acc == nil {
 		return
 	}
@@ -165,6 +171,9 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	}
 	if v, err := strconv.ParseFloat(acc.Bias, 64); err == nil {
 		m.bias.WithLabelValues(namespace, portfolio).Set(v)
+	}
+	if v, err := strconv.ParseFloat(acc.Movement, 64); err == nil {
+		m.movement.WithLabelValues(namespace, portfolio).Set(v)
 	}
 }
 

@@ -36,13 +36,16 @@ func TestMetrics(t *testing.T) {
 		t.Errorf("duration series = %d, want 1", n)
 	}
 	m.accuracy("planning", "fenwick-weekly", &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8125", Realized: "0.9000",
-		ExpectedGeometric: "0.7500", RealizedGeometric: "0.6250", Bias: "-0.1250",
+		ExpectedGeometric: "0.7500", RealizedGeometric: "0.6250", Bias: "-0.1250", Movement: "0.3750",
 		Calibration: []forecastingv1alpha1.QuantileCalibration{{Level: "0.1", Realized: "0.125"}, {Level: "0.9", Realized: "0.875"}}})
 	if got := testutil.ToFloat64(m.coverage.WithLabelValues("planning", "fenwick-weekly", "0.9")); got != 0.875 {
 		t.Errorf("coverage of 0.9 = %v, want 0.875", got)
 	}
 	if got := testutil.ToFloat64(m.bias.WithLabelValues("planning", "fenwick-weekly")); got != -0.125 {
 		t.Errorf("bias = %v, want -0.125", got)
+	}
+	if got := testutil.ToFloat64(m.movement.WithLabelValues("planning", "fenwick-weekly")); got != 0.375 {
+		t.Errorf("movement = %v, want 0.375", got)
 	}
 	if got := testutil.ToFloat64(m.realized.WithLabelValues("planning", "fenwick-weekly", "MASE")); got != 0.9 {
 		t.Errorf("realized = %v, want 0.9", got)
@@ -54,7 +57,7 @@ func TestMetrics(t *testing.T) {
 		t.Errorf("expected geometric = %v, want 0.75", got)
 	}
 	m.accuracy("planning", "fenwick-weekly", nil)
-	if n := testutil.CollectAndCount(m.expected) + testutil.CollectAndCount(m.realizedGeo) + testutil.CollectAndCount(m.coverage) + testutil.CollectAndCount(m.bias); n != 0 {
+	if n := testutil.CollectAndCount(m.expected) + testutil.CollectAndCount(m.realizedGeo) + testutil.CollectAndCount(m.coverage) + testutil.CollectAndCount(m.bias) + testutil.CollectAndCount(m.movement); n != 0 {
 		t.Errorf("accuracy series after the portfolio went away = %d, want 0", n)
 	}
 	var none *Metrics
