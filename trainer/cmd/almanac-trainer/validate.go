@@ -8,6 +8,7 @@ import (
 
 	"almanac.dev/almanac/api/offline"
 	"almanac.dev/almanac/trainer/exitcode"
+	"almanac.dev/almanac/trainer/pipeline"
 )
 
 // fileList is a repeatable -f flag.
@@ -17,8 +18,9 @@ func (f *fileList) String() string     { return fmt.Sprint(*f) }
 func (f *fileList) Set(s string) error { *f = append(*f, s); return nil }
 
 // validate checks ForecastPortfolio and ForecastRun manifests offline with the CRDs' schema,
-// defaults and CEL rules (api/offline): exit 0 when every object of every file is valid, 2 with
-// every refused field's path otherwise.
+// defaults and CEL rules (api/offline), then each portfolio's rendered run configuration with
+// the trainer's own check (pipeline.Check, as plan runs it): exit 0 when every object of every
+// file is valid, 2 with every refused field's path otherwise.
 func validate(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("validate", flag.ContinueOnError)
 	fs.SetOutput(stderr)
@@ -64,6 +66,20 @@ func validate(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 			name := f
 			if f == "-" {
 				name = "<stdin>"
+			}
+			// The schema and CEL rules passed; the trainer's own rules (pipeline.Check: each
+			// member through the model registry, features, metrics) run on the run
+			// configuration the controller would render, as plan would run them.
+			if o.Portfolio != nil {
+				c, rerr := renderManual(o.Portfolio, "validate", "")
+				if rerr == nil {
+					_, rerr = pipeline.Check(&c)
+				}
+				if rerr != nil {
+					fmt.Fprintf(stderr, "%s:%d: %s %q: the trainer refuses it: %v\n", name, o.Line, o.Kind(), o.Name(), rerr)
+					code = exitcode.Config
+					continue
+				}
 			}
 			fmt.Fprintf(stdout, "%s: %s %s valid\n", name, o.Kind(), o.Name())
 		}
