@@ -178,3 +178,17 @@ func TestTallyMASEStdErr(t *testing.T) {
 		t.Errorf("one series: standard error %v, want NaN", one.MASEStdErr())
 	}
 }
+
+// --design takes the API's spelling of spec.selection.design in any case, so a value copied
+// from a portfolio file works on the command line.
+func TestParseModeTakesTheAPISpelling(t *testing.T) {
+	for in, want := range map[string]design.Mode{"Auto": design.Auto, "PerSeries": design.PerSeries,
+		"Fixed": design.Fixed, "perSeries": design.PerSeries, "fixed": design.Fixed, "AUTO": design.Auto} {
+		if got := parseMode(in); got != want {
+			t.Errorf("parseMode(%q) = %q, want %q", in, got, want)
+		}
+	}
+	if m := parseMode("Best"); m.Valid() {
+		t.Errorf("parseMode(%q) = %q is valid, want refused", "Best", m)
+	}
+}

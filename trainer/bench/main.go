@@ -81,7 +81,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	combine := fs.Int("combine", 0, "also score the combination of the best N members (0/1: none)")
 	combineMethod := fs.String("combine-method", selection.CombineMean, "combination: mean or median")
 	marginPercent := fs.Int("combine-margin-percent", 0, "as a portfolio's spec.selection.combine.marginPercent: choose the combination unless the best member beats it by more than this percent of the best member's score")
-	mode := fs.String("design", string(design.Auto), `"auto": what a portfolio's default spec.selection.design Auto runs (design.Forecast: one design per segment, chosen on an inner holdout of training data from candidates built from --zoo); "perSeries": each series' best --zoo member by backtest; "fixed": exactly the zoo and combination the flags give`)
+	mode := fs.String("design", "Auto", `as spec.selection.design, any case: "Auto": what a portfolio's default spec.selection.design Auto runs (design.Forecast: one design per segment, chosen on an inner holdout of training data from candidates built from --zoo); "PerSeries": each series' best --zoo member by backtest; "Fixed": exactly the zoo and combination the flags give`)
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
 	if code, ok := cli.Parse(fs, "usage: almanac-trainer bench (--data DIR | --m3) [flags]\nScores the model zoo on a dataset in the M3 or the long layout.", args, stdout, stderr); !ok {
 		return code
@@ -150,7 +150,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	writeTable(stdout, naive2, naive2)
 	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
-		Mode: design.Mode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
+		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
 	switch {
 	case !o.Mode.Valid():
 		fmt.Fprintf(stderr, "bench: --design %q: want one of %v\n", *mode, design.Modes())
@@ -325,4 +325,15 @@ func shortName(m string) string {
 		return "almanac"
 	}
 	return m
+}
+
+// parseMode reads --design in the API's spelling of spec.selection.design (Auto, PerSeries,
+// Fixed), in any case; anything else is returned as it is and refused by Mode.Valid.
+func parseMode(s string) design.Mode {
+	for _, m := range design.Modes() {
+		if strings.EqualFold(s, string(m)) {
+			return m
+		}
+	}
+	return design.Mode(s)
 }
