@@ -311,6 +311,49 @@ func newKindSet(fsys fs.FS) (kindSet, error) {
 	return kinds, nil
 }
 
+// PortfolioSchema returns the structural schema of the served ForecastPortfolio version, as
+// read from the embedded CRD (defaults pruned as the apiserver prunes them).
+func PortfolioSchema() (*structuralschema.Structural, error) {
+	ks, err := portfolioKind()
+	if err != nil {
+		return nil, err
+	}
+	return ks.structural, nil
+}
+
+// DefaultPortfolio applies the CRD's schema defaults to fp in place, as the apiserver does to an
+// object it stores, and returns fp. It does not validate: it is for objects built in Go (test
+// fixtures) before they go through render; files go through Load.
+func DefaultPortfolio(fp *v1alpha1.ForecastPortfolio) (*v1alpha1.ForecastPortfolio, error) {
+	ks, err := portfolioKind()
+	if err != nil {
+		return nil, err
+	}
+	u, err := runtime.DefaultUnstructuredConverter.ToUnstructured(fp)
+	if err != nil {
+		return nil, err
+	}
+	structuraldefaulting.Default(u, ks.structural)
+	var out v1alpha1.ForecastPortfolio
+	if err := runtime.DefaultUnstructuredConverter.FromUnstructured(u, &out); err != nil {
+		return nil, err
+	}
+	*fp = out
+	return fp, nil
+}
+
+func portfolioKind() (*kindSchema, error) {
+	kinds, err := loadKinds()
+	if err != nil {
+		return nil, fmt.Errorf("loading the embedded CRDs: %w", err)
+	}
+	ks := kinds[v1alpha1.GroupVersion.WithKind("ForecastPortfolio")]
+	if ks == nil {
+		return nil, errors.New("the embedded CRDs serve no ForecastPortfolio " + v1alpha1.GroupVersion.String())
+	}
+	return ks, nil
+}
+
 // check decodes and checks one document; it returns nil, nil for an empty document.
 func (kinds kindSet) check(text []byte) (*Object, *DocumentError) {
 	j, err := yaml.YAMLToJSONStrict(text)

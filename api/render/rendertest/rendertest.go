@@ -1,81 +1,31 @@
-// Package rendertest applies the generated CRD's schema defaults to ForecastPortfolios built in
-// Go tests, as the apiserver does to every object it stores and returns: the defaults are
-// declared once, in the API's markers, and tests read them from config/crd/bases rather than
-// spelling them again.
+// Package rendertest holds test fixtures for the render: ForecastPortfolios built in Go, with the
+// generated CRD's schema defaults applied through api/offline as the apiserver applies them to
+// every object it stores, so tests read the defaults from the CRD rather than spelling them again.
 package rendertest
 
 import (
 	"fmt"
-	"os"
-	"path/filepath"
-	"runtime"
-	"sync"
 	"time"
 
-	apiextensions "k8s.io/apiextensions-apiserver/pkg/apis/apiextensions"
-	apiextensionsv1 "k8s.io/apiextensions-apiserver/pkg/apis/apiextensions/v1"
 	structuralschema "k8s.io/apiextensions-apiserver/pkg/apiserver/schema"
-	structuraldefaulting "k8s.io/apiextensions-apiserver/pkg/apiserver/schema/defaulting"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
-	k8sruntime "k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/utils/ptr"
-	"sigs.k8s.io/yaml"
 
+	"almanac.dev/almanac/api/offline"
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
 
-// CRDPath is the generated ForecastPortfolio CRD in the repository.
-func CRDPath() string {
-	_, file, _, _ := runtime.Caller(0)
-	return filepath.Join(filepath.Dir(file), "..", "..", "..", "config", "crd", "bases", "forecasting.almanac.dev_forecastportfolios.yaml")
-}
+// Schema returns the structural schema of the ForecastPortfolio CRD, the one api/offline checks
+// files with.
+func Schema() (*structuralschema.Structural, error) { return offline.PortfolioSchema() }
 
-// Schema returns the structural schema of the ForecastPortfolio CRD's first version, read
-// once from CRDPath.
-func Schema() (*structuralschema.Structural, error) {
-	schemaOnce.Do(func() { schema, schemaErr = readSchema() })
-	return schema, schemaErr
-}
-
-var (
-	schemaOnce sync.Once
-	schema     *structuralschema.Structural
-	schemaErr  error
-)
-
-func readSchema() (*structuralschema.Structural, error) {
-	b, err := os.ReadFile(CRDPath())
-	if err != nil {
-		return nil, err
-	}
-	var crd apiextensionsv1.CustomResourceDefinition
-	if err := yaml.Unmarshal(b, &crd); err != nil {
-		return nil, fmt.Errorf("%s: %w", CRDPath(), err)
-	}
-	var props apiextensions.JSONSchemaProps
-	if err := apiextensionsv1.Convert_v1_JSONSchemaProps_To_apiextensions_JSONSchemaProps(crd.Spec.Versions[0].Schema.OpenAPIV3Schema, &props, nil); err != nil {
-		return nil, err
-	}
-	return structuralschema.NewStructural(&props)
-}
-
-// Default applies the CRD's defaults to fp in place (structural defaulting, as the apiserver
-// runs it) and returns fp. It panics when the CRD cannot be read: it is for test fixtures.
+// Default applies the CRD's defaults to fp in place (api/offline.DefaultPortfolio: structural
+// defaulting, as the apiserver runs it) and returns fp. It panics when the CRD cannot be read: it
+// is for test fixtures.
 func Default(fp *forecastingv1alpha1.ForecastPortfolio) *forecastingv1alpha1.ForecastPortfolio {
-	s, err := Schema()
-	if err != nil {
+	if _, err := offline.DefaultPortfolio(fp); err != nil {
 		panic(fmt.Sprintf("rendertest: %v", err))
 	}
-	u, err := k8sruntime.DefaultUnstructuredConverter.ToUnstructured(fp)
-	if err != nil {
-		panic(fmt.Sprintf("rendertest: %v", err))
-	}
-	structuraldefaulting.Default(u, s)
-	var out forecastingv1alpha1.ForecastPortfolio
-	if err := k8sruntime.DefaultUnstructuredConverter.FromUnstructured(u, &out); err != nil {
-		panic(fmt.Sprintf("rendertest: %v", err))
-	}
-	*fp = out
 	return fp
 }
 
