@@ -120,6 +120,21 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "bench: --reference-r-methods: %v\n", err)
 		return 2
 	}
+	// Every flag is checked before any data is read.
+	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
+		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
+		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
+	switch {
+	case !o.Mode.Valid():
+		fmt.Fprintf(stderr, "bench: --design %q: want one of %v\n", *mode, design.Modes())
+		return 2
+	case !o.Rule.Valid():
+		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
+		return 2
+	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1 || *innerOrigins < 1:
+		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max, --inner-min and --inner-origins >= 1")
+		return 2
+	}
 	// SIGTERM or Ctrl-C cancels the run: the workers stop and any R child is killed.
 	ctx, stop := signal.NotifyContext(context.Background(), syscall.SIGTERM, os.Interrupt)
 	defer stop()
@@ -148,20 +163,6 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		return 1
 	}
 	writeTable(stdout, naive2, naive2)
-	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
-		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
-		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
-	switch {
-	case !o.Mode.Valid():
-		fmt.Fprintf(stderr, "bench: --design %q: want one of %v\n", *mode, design.Modes())
-		return 2
-	case !o.Rule.Valid():
-		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
-		return 2
-	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1 || *innerOrigins < 1:
-		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max, --inner-min and --inner-origins >= 1")
-		return 2
-	}
 	if *zooFlag != "" {
 		for _, f := range strings.Split(*zooFlag, ",") {
 			o.Families = append(o.Families, strings.TrimSpace(f))
