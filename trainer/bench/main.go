@@ -126,7 +126,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
 	switch {
 	case !o.Mode.Valid():
-		fmt.Fprintf(stderr, "bench: --design %q: want one of %v\n", *mode, design.Modes())
+		fmt.Fprintf(stderr, "bench: --design %q: want Auto, PerSeries or Fixed (spec.selection.design)\n", *mode)
 		return 2
 	case !o.Rule.Valid():
 		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
