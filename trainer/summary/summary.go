@@ -17,6 +17,9 @@ const (
 	KindPlan    = "plan"
 	KindTrain   = "train"
 	KindPublish = "publish"
+	// KindReconcile is the summary of `almanac-trainer reconcile`, the step between train and
+	// publish that makes the nodes spanning shards add up (run only when the plan asks for it).
+	KindReconcile = "reconcile"
 )
 
 // Summary is one command's result. Fields a kind does not use stay zero and are omitted.
@@ -29,6 +32,9 @@ type Summary struct {
 	Units  int   `json:"units,omitempty"`
 	Shards int   `json:"shards,omitempty"`
 	Bytes  int64 `json:"bytes,omitempty"`
+	// Reconcile (plan) is true when the run has hierarchy nodes that span shards: the
+	// controller then runs the reconcile step after train and before publish.
+	Reconcile bool `json:"reconcile,omitempty"`
 
 	// Train: which shard, and its counts.
 	Shard    int `json:"shard,omitempty"`
@@ -46,6 +52,16 @@ type Summary struct {
 	Calibration *Calibration `json:"calibration,omitempty"`
 	// Stability sums how far this shard's new forecasts moved from the previous run's.
 	Stability *Stability `json:"stability,omitempty"`
+	// Levels (train and reconcile) holds, per hierarchy level, the nodes this command
+	// forecast and the accuracy sums of their evaluation: a shard reports the levels of the
+	// whole sub-trees it holds, the reconcile step the nodes that span shards. The controller
+	// adds every source's entry of the same Name (nodes and sums), so each node must be
+	// reported by exactly one source.
+	Levels []Level `json:"levels,omitempty"`
+	// MaxDeviation (reconcile) is the largest relative difference, over every aggregate,
+	// period and promised quantile, between an aggregate's reconciled forecast and the sum of
+	// its children's: the coherence the step checked before it wrote its results.
+	MaxDeviation float64 `json:"maxDeviation,omitempty"`
 	// DurationSeconds is the command's wall time; SeriesPerSecond its training throughput.
 	DurationSeconds float64 `json:"durationSeconds,omitempty"`
 	SeriesPerSecond float64 `json:"seriesPerSecond,omitempty"`
@@ -59,6 +75,17 @@ type Summary struct {
 	// Refused is true when the publish guard refused the run (exit 5): Error says why, with
 	// the counts and the most frequent rejection reasons; latest.json was not moved.
 	Refused bool `json:"refused,omitempty"`
+}
+
+// Level is one hierarchy level as one command saw it (see Summary.Levels).
+type Level struct {
+	// Name is the level's name, e.g. "total", "depot" or "item/depot" (the trainer's).
+	Name string `json:"name"`
+	// Nodes is how many nodes of the level this command forecast.
+	Nodes int `json:"nodes"`
+	// Accuracy holds the error sums of those nodes' evaluation of the previous run's
+	// forecasts (absent when none had new actuals).
+	Accuracy *Accuracy `json:"accuracy,omitempty"`
 }
 
 // Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,
@@ -185,7 +212,7 @@ func Decode(b []byte) (Summary, error) {
 	if err := json.Unmarshal(b, &s); err != nil {
 		return s, fmt.Errorf("summary: %w", err)
 	}
-	if s.Kind != KindPlan && s.Kind != KindTrain && s.Kind != KindPublish {
+	if s.Kind != KindPlan && s.Kind != KindTrain && s.Kind != KindPublish && s.Kind != KindReconcile {
 		return s, fmt.Errorf("summary: unknown kind %q", s.Kind)
 	}
 	return s, nil

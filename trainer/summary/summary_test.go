@@ -103,3 +103,30 @@ func TestCalibrationAdd(t *testing.T) {
 		t.Fatalf("refused add changed the sums: %+v", c)
 	}
 }
+
+// TestLevelsRoundTrip: a reconcile summary with eight levels of full-precision sums (more
+// than a hierarchy of item, depot, region and total has) fits the limit and comes back exact.
+func TestLevelsRoundTrip(t *testing.T) {
+	s := Summary{Kind: KindReconcile, MaxDeviation: 3.0 / 7 * 1e-12}
+	for i := range 8 {
+		s.Levels = append(s.Levels, Level{Name: strings.Repeat("l", 20) + string(rune('a'+i)), Nodes: 1000003 * (i + 1),
+			Accuracy: &Accuracy{Metric: "MASE", Evaluated: 99991, EvaluatedPoints: 1399874, ExpectedSum: 1.0 / 3 * float64(i+1),
+				RealizedSum: 2.0 / 3, Drifted: 7, LogEvaluated: 99990, ExpectedLogSum: -1.0 / 7, RealizedLogSum: 1.0 / 11}})
+	}
+	b, err := Encode(s)
+	if err != nil || len(b) > MaxBytes {
+		t.Fatalf("encode: %d bytes, %v", len(b), err)
+	}
+	got, err := Decode(b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Kind != KindReconcile || got.MaxDeviation != s.MaxDeviation || len(got.Levels) != 8 ||
+		got.Levels[7].Nodes != 8000024 || *got.Levels[2].Accuracy != *s.Levels[2].Accuracy {
+		t.Fatalf("round trip = %+v", got)
+	}
+	plan, err := Decode([]byte(`{"kind":"plan","shards":3,"reconcile":true}`))
+	if err != nil || !plan.Reconcile {
+		t.Fatalf("plan with reconcile = %+v, %v", plan, err)
+	}
+}
