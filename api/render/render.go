@@ -10,7 +10,8 @@
 // same generated CRD. The portfolio given to RunConfig must carry them; Missing names any
 // defaulted field that is absent. What render does resolve is what no marker can say: the week
 // anchor of weekly data (Monday), the drift metric when the portfolio names none (the
-// selection metric), and the per-series drift minimum (see seriesMinPoints).
+// selection metric), the per-series drift minimum (see seriesMinPoints), and the hierarchy's
+// shardBy and nonNegative when unset (see hierarchy).
 package render
 
 import (
@@ -107,6 +108,9 @@ func RunConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alph
 	if spec.Features != nil {
 		c.Features = featureSet(spec.Features)
 	}
+	if h := spec.Hierarchy; h != nil {
+		c.Hierarchy = hierarchy(h, c.Source.NonNegative)
+	}
 	if err := c.Validate(); err != nil {
 		return c, fmt.Errorf("portfolio %s/%s: spec.%w", fp.Namespace, fp.Name, err)
 	}
@@ -154,6 +158,7 @@ func Missing(spec *forecastingv1alpha1.ForecastPortfolioSpec) []string {
 	check(spec.ConcurrencyPolicy == "", "concurrencyPolicy")
 	check(spec.SuccessfulRunsHistoryLimit == nil, "successfulRunsHistoryLimit")
 	check(spec.FailedRunsHistoryLimit == nil, "failedRunsHistoryLimit")
+	check(spec.Hierarchy != nil && spec.Hierarchy.Method == "", "hierarchy.method")
 	return out
 }
 
@@ -172,6 +177,28 @@ func model(m forecastingv1alpha1.ModelSpec) runconfig.Model {
 	}
 	if r := m.Regression; r != nil {
 		out.Regression = &runconfig.Regression{Penalty: r.Penalty, Pooled: r.Pooled != nil && *r.Pooled}
+	}
+	return out
+}
+
+// hierarchy copies spec.hierarchy, resolving what no marker can say: shardBy defaults to the
+// first non-empty level (so that level's sub-trees stay on one shard), nonNegative to the
+// source's.
+func hierarchy(in *forecastingv1alpha1.HierarchySpec, sourceNonNegative bool) *runconfig.Hierarchy {
+	out := &runconfig.Hierarchy{Method: string(in.Method), ShardBy: in.ShardBy, NonNegative: sourceNonNegative}
+	for _, l := range in.Levels {
+		out.Levels = append(out.Levels, append([]string{}, l...))
+	}
+	if len(out.ShardBy) == 0 {
+		for _, l := range in.Levels {
+			if len(l) > 0 {
+				out.ShardBy = l
+				break
+			}
+		}
+	}
+	if in.NonNegative != nil {
+		out.NonNegative = *in.NonNegative
 	}
 	return out
 }

@@ -164,6 +164,31 @@ func TestRunConfigResolves(t *testing.T) {
 	}
 }
 
+func TestRunConfigHierarchy(t *testing.T) {
+	fp := fenwickSpec()
+	fp.Spec.Source.NonNegative = ptr.To(false)
+	fp.Spec.Hierarchy = &forecastingv1alpha1.HierarchySpec{Levels: []forecastingv1alpha1.HierarchyLevel{{}, {"depot"}, {"item"}}}
+	rendertest.Default(fp)
+	got, err := RunConfig(fp, fenwickRun("r"), "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"depot"}, Method: "StructuralScaling", NonNegative: false}
+	if diff := cmp.Diff(want, got.Hierarchy); diff != "" {
+		t.Errorf("shardBy from the first non-empty level, nonNegative from the source (-want,+got):\n%s", diff)
+	}
+	fp.Spec.Hierarchy.ShardBy = []string{"item"}
+	fp.Spec.Hierarchy.NonNegative = ptr.To(true)
+	fp.Spec.Hierarchy.Method = forecastingv1alpha1.ReconcileMinTShrink
+	if got, err = RunConfig(fp, fenwickRun("r"), ""); err != nil {
+		t.Fatal(err)
+	}
+	want = &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"item"}, Method: "MinTShrink", NonNegative: true}
+	if diff := cmp.Diff(want, got.Hierarchy); diff != "" {
+		t.Errorf("as written (-want,+got):\n%s", diff)
+	}
+}
+
 // promotionFeatures is the features block of the promotion sample (Fenwick Lane Provisions'
 // weekly demand driven by promotions and price cuts).
 func promotionFeatures() *forecastingv1alpha1.FeaturesSpec {

@@ -178,6 +178,9 @@ const (
 // +kubebuilder:validation:XValidation:rule="!has(self.features) || !has(self.features.covariates) || self.features.covariates.all(c, has(self.source.columns) && has(self.source.columns.covariates) && c in self.source.columns.covariates)",message="features.covariates must be listed in source.columns.covariates"
 // +kubebuilder:validation:XValidation:rule="!has(self.features) || self.models.exists(m, m.family in ['Ridge', 'Lasso', 'GradientBoosting'])",message="features are used only by the regression families Ridge, Lasso and GradientBoosting: add one to models"
 // +kubebuilder:validation:XValidation:rule="!(self.source.uri.split('?')[0].endsWith('/') && (self.output.uri.split('?')[0].endsWith('/') ? self.output.uri.split('?')[0] : self.output.uri.split('?')[0] + '/').startsWith(self.source.uri.split('?')[0])) && !self.source.uri.split('?')[0].startsWith((self.output.uri.split('?')[0].endsWith('/') ? self.output.uri.split('?')[0] : self.output.uri.split('?')[0] + '/'))",message="output.uri and source.uri must not overlap: a run would read its own outputs as input"
+// +kubebuilder:validation:XValidation:rule="!has(self.hierarchy) || self.hierarchy.levels.all(l, l.all(c, c in (has(self.source.columns) && has(self.source.columns.series) ? self.source.columns.series : ['series'])) && l.size() < size((has(self.source.columns) && has(self.source.columns.series) ? self.source.columns.series : ['series'])))",message="hierarchy.levels may name only columns of source.columns.series, and each level must leave at least one out (the bottom level, every key column, is implied)"
+// +kubebuilder:validation:XValidation:rule="!has(self.hierarchy) || !has(self.hierarchy.shardBy) || (self.hierarchy.shardBy.all(c, c in (has(self.source.columns) && has(self.source.columns.series) ? self.source.columns.series : ['series'])) && self.hierarchy.shardBy.size() < size((has(self.source.columns) && has(self.source.columns.series) ? self.source.columns.series : ['series'])))",message="hierarchy.shardBy may name only columns of source.columns.series, and must leave at least one out"
+// +kubebuilder:validation:XValidation:rule="!has(self.hierarchy) || !has(self.features) || !has(self.features.covariates)",message="hierarchy aggregates have no covariates (a sum of prices means nothing): drop features.covariates or the hierarchy"
 type ForecastPortfolioSpec struct {
 	// schedule is when to retrain, a 5-field cron expression (minute hour day-of-month month
 	// day-of-week) or a macro such as @daily, evaluated in timeZone. Time zones go in timeZone,
@@ -290,6 +293,12 @@ type ForecastPortfolioSpec struct {
 	// +optional
 	// +kubebuilder:default={}
 	Publish PublishSpec `json:"publish,omitempty"`
+
+	// hierarchy adds aggregation levels over the key columns (depot totals, item totals, the
+	// grand total), forecasts every node and reconciles them so that every level adds up.
+	// Absent: only the input series are forecast.
+	// +optional
+	Hierarchy *HierarchySpec `json:"hierarchy,omitempty"`
 }
 
 // PublishSpec is the publish guard; each check is off at its permissive end (0, or 100 for

@@ -134,6 +134,20 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Models[1].Regression.Penalty).To(Equal("0.25"))
 	})
 
+	It("accepts a hierarchy over the key columns and defaults its method", func() {
+		u := validPortfolio("with-hierarchy")
+		set(u, map[string]any{"levels": []any{[]any{"depot"}, []any{"item"}, []any{}}}, "spec", "hierarchy")
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		var fp forecastingv1alpha1.ForecastPortfolio
+		Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), &fp)).To(Succeed())
+		Expect(fp.Spec.Hierarchy.Levels).To(Equal([]forecastingv1alpha1.HierarchyLevel{{"depot"}, {"item"}, {}}))
+		Expect(fp.Spec.Hierarchy.Method).To(Equal(forecastingv1alpha1.ReconcileStructuralScaling))
+		Expect(fp.Spec.Hierarchy.NonNegative).To(BeNil(), "unset: render takes source.nonNegative")
+		other := validPortfolio("with-hierarchy-offline")
+		other.Object["spec"].(map[string]any)["hierarchy"] = u.Object["spec"].(map[string]any)["hierarchy"]
+		expectSameAsApiserver(other)
+	})
+
 	It("defaults the combination margin to 0 and keeps 10000 as written", func() {
 		for name, margin := range map[string]any{"combine-default": nil, "combine-fixed": int64(10000)} {
 			u := validPortfolio(name)
@@ -475,6 +489,39 @@ var _ = Describe("CRD validation", func() {
 				set(u, []any{map[string]any{"family": "GradientBoosting", "regression": map[string]any{"penalty": "0.5"}}}, "spec", "models")
 			},
 			want: []string{"spec.models[0]", "regression.penalty is only for families Ridge and Lasso"}}),
+		Entry("hierarchy level naming an unknown column", invalidCase{
+			mutate: withLevels([]any{"region"}),
+			want:   []string{"spec", "hierarchy.levels may name only columns of source.columns.series"}}),
+		Entry("hierarchy level naming every key column", invalidCase{
+			mutate: withLevels([]any{"depot", "item"}),
+			want:   []string{"spec", "each level must leave at least one out"}}),
+		Entry("hierarchy level naming a column twice", invalidCase{
+			mutate: withLevels([]any{"depot", "depot"}),
+			want:   []string{"spec.hierarchy", "a hierarchy level must name each column once"}}),
+		Entry("hierarchy with the same level twice", invalidCase{
+			mutate: withLevels([]any{}, []any{"depot"}, []any{}),
+			want:   []string{"spec.hierarchy", "hierarchy levels must be distinct"}}),
+		Entry("hierarchy without levels", invalidCase{
+			mutate: func(u *unstructured.Unstructured) { set(u, map[string]any{"levels": []any{}}, "spec", "hierarchy") },
+			want:   []string{"spec.hierarchy.levels"}}),
+		Entry("hierarchy sharded by an unknown column", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, map[string]any{"levels": []any{[]any{}}, "shardBy": []any{"region"}}, "spec", "hierarchy")
+			},
+			want: []string{"spec", "hierarchy.shardBy may name only columns of source.columns.series"}}),
+		Entry("hierarchy with an unknown method", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				set(u, map[string]any{"levels": []any{[]any{}}, "method": "TopDown"}, "spec", "hierarchy")
+			},
+			want: []string{"spec.hierarchy.method"}}),
+		Entry("hierarchy with covariate features", invalidCase{
+			mutate: func(u *unstructured.Unstructured) {
+				withFeatures(map[string]any{"covariates": []any{"price"}})(u)
+				set(u, []any{"price"}, "spec", "source", "columns", "covariates")
+				set(u, []any{map[string]any{"family": "Ridge"}}, "spec", "models")
+				withLevels([]any{})(u)
+			},
+			want: []string{"spec", "hierarchy aggregates have no covariates"}}),
 		Entry("zero penalty", invalidCase{
 			mutate: func(u *unstructured.Unstructured) {
 				set(u, []any{map[string]any{"family": "Ridge", "regression": map[string]any{"penalty": "0.000"}}}, "spec", "models")
@@ -559,4 +606,15 @@ func writeKubeconfig() string {
 	p := filepath.Join(GinkgoT().TempDir(), "kubeconfig")
 	Expect(os.WriteFile(p, b, 0o600)).To(Succeed())
 	return p
+}
+
+// withLevels sets spec.hierarchy.levels.
+func withLevels(levels ...[]any) func(u *unstructured.Unstructured) {
+	return func(u *unstructured.Unstructured) {
+		var ls []any
+		for _, l := range levels {
+			ls = append(ls, l)
+		}
+		set(u, map[string]any{"levels": ls}, "spec", "hierarchy")
+	}
 }

@@ -75,6 +75,8 @@ type Config struct {
 	Drift     Drift     `json:"drift"`
 	// Publish is the publish guard (spec.publish); nil means DefaultPublish.
 	Publish *Publish `json:"publish,omitempty"`
+	// Hierarchy adds aggregation levels (spec.hierarchy); nil forecasts the input series only.
+	Hierarchy *Hierarchy `json:"hierarchy,omitempty"`
 }
 
 // Publish is the least a run must forecast before publish moves latest.json to it; below
@@ -492,6 +494,14 @@ func (c *Config) Validate() error {
 	if c.Features != nil {
 		if err := c.Features.validate(c.Source.Columns.Covariates); err != nil {
 			return fmt.Errorf("features.%w", err)
+		}
+	}
+	if h := c.Hierarchy; h != nil {
+		if err := h.validate(c.Source.Columns.Series); err != nil {
+			return fmt.Errorf("hierarchy.%w", err)
+		}
+		if c.Features != nil && len(c.Features.Covariates) > 0 {
+			return fmt.Errorf("hierarchy: aggregates have no covariates; features.covariates must be empty")
 		}
 	}
 	return nil
