@@ -1,0 +1,205 @@
+package reconcile
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// varianceFloor is the smallest residual mean square a node gets, relative to the mean of the
+// positive ones: a node whose residuals are all zero (an exact fit, a constant zero series) is
+// then trusted almost exactly instead of making W singular.
+const varianceFloor = 1e-10
+
+// moments holds what the residual-based weights need: each node's residual count and mean
+// square. Residuals are base forecast errors, taken to have mean zero as the MinT derivation
+// assumes unbiased base forecasts (Wickramasuriya et al. 2019, section 2), so every moment is
+// about zero, not about the sample mean: a biased node's bias counts as error.
+type moments struct {
+	e     [][]float64 // node-major residuals, NaN where missing
+	count []int       // non-NaN residuals per node
+	ms    []float64   // σ̂²_i = Σ_t e_it² / count_i, floored at varianceFloor × mean
+	min   int         // node with the fewest residuals
+}
+
+// newMoments checks residuals' shape (one row per node, equal lengths, no Inf) and returns
+// their moments, or a note saying why they cannot weight the reconciliation (a node with fewer
+// than 2 residuals, or no non-zero residual at all).
+func newMoments(h Hierarchy, residuals [][]float64) (*moments, string, error) {
+	n := h.Nodes()
+	if len(residuals) != n {
+		return nil, "", fmt.Errorf("reconcile: residuals have %d rows, the hierarchy has %d nodes", len(residuals), n)
+	}
+	T := len(residuals[0])
+	mo := &moments{e: residuals, count: make([]int, n), ms: make([]float64, n)}
+	var sum float64
+	var positive int
+	for i, row := range residuals {
+		if len(row) != T {
+			return nil, "", fmt.Errorf("reconcile: residuals of %s have %d values, node 0 has %d", h.node(i), len(row), T)
+		}
+		var ss float64
+		for t, e := range row {
+			if math.IsInf(e, 0) {
+				return nil, "", fmt.Errorf("reconcile: residual %d of %s is %v", t, h.node(i), e)
+			}
+			if !math.IsNaN(e) {
+				ss += e * e
+				mo.count[i]++
+			}
+		}
+		if mo.count[i] < mo.count[mo.min] {
+			mo.min = i
+		}
+		if mo.count[i] > 0 {
+			mo.ms[i] = ss / float64(mo.count[i])
+		}
+		if mo.ms[i] > 0 {
+			sum += mo.ms[i]
+			positive++
+		}
+	}
+	if c := mo.count[mo.min]; c < 2 {
+		return nil, fmt.Sprintf("%s has %d residuals, fewer than 2", h.node(mo.min), c), nil
+	}
+	if positive == 0 {
+		return nil, "every residual is zero", nil
+	}
+	floor := varianceFloor * sum / float64(positive)
+	for i, v := range mo.ms {
+		mo.ms[i] = math.Max(v, floor)
+	}
+	return mo, "", nil
+}
+
+// diagonal returns W = diag(σ̂²_i) (VarianceScaling).
+func (mo *moments) diagonal() diagWeight { return diagWeight(append([]float64(nil), mo.ms...)) }
+
+// sampleCovariance returns W_ij = Σ_t e_it e_jt / n_ij over the n_ij periods where both are
+// present (pairwise complete), W_ii = σ̂²_i.
+func (mo *moments) sampleCovariance() *mat.SymDense {
+	n := len(mo.e)
+	w := mat.NewSymDense(n, nil)
+	for i := 0; i < n; i++ {
+		w.SetSym(i, i, mo.ms[i])
+		for j := i + 1; j < n; j++ {
+			if s, c := cross(mo.e[i], mo.e[j]); c > 0 {
+				w.SetSym(i, j, s/float64(c))
+			}
+		}
+	}
+	return w
+}
+
+// shrunkCovariance returns the residual covariance shrunk toward its diagonal and the
+// intensity λ, Schäfer & Strimmer (2005, Statistical Applications in Genetics and Molecular
+// Biology 4(1), article 32), target "D" (diagonal, unequal variances), which shrinks the
+// correlations toward zero and keeps the variances:
+//
+//	z_it  = e_it / σ̂_i                        standardised residuals
+//	w_ijt = z_it z_jt,   r_ij = mean_t w_ijt   correlation (moments about zero, see moments)
+//	Var̂(r_ij) = Σ_t (w_ijt − r_ij)² / (n_ij (n_ij − 1))
+//	λ* = Σ_{i≠j} Var̂(r_ij) / Σ_{i≠j} r_ij²,   λ = min(1, max(0, λ*))
+//	W_ii = σ̂²_i,   W_ij = (1 − λ) r_ij σ̂_i σ̂_j
+//
+// Their paper writes r and Var̂(r) with factors n/(n−1) and n/(n−1)³ (unbiased moments); both
+// scale as the same (n/(n−1))² and cancel in λ*. Means are over the n_ij periods where both
+// nodes have a residual; a pair with fewer than 2 such periods gets r_ij = 0 and adds nothing.
+// λ = 1 when every r_ij is 0. This is the W of MinT-shrink (Wickramasuriya et al. 2019).
+func (mo *moments) shrunkCovariance() (*mat.SymDense, float64) {
+	n := len(mo.e)
+	sd := make([]float64, n)
+	for i, v := range mo.ms {
+		sd[i] = math.Sqrt(v)
+	}
+	r := mat.NewSymDense(n, nil)
+	var num, den float64
+	for i := 0; i < n; i++ {
+		for j := i + 1; j < n; j++ {
+			s, c := cross(mo.e[i], mo.e[j])
+			if c < 2 {
+				continue
+			}
+			s /= sd[i] * sd[j]
+			mean := s / float64(c)
+			var dev float64
+			for t, x := range mo.e[i] {
+				y := mo.e[j][t]
+				if !math.IsNaN(x) && !math.IsNaN(y) {
+					d := x*y/(sd[i]*sd[j]) - mean
+					dev += d * d
+				}
+			}
+			num += dev / float64(c*(c-1))
+			den += mean * mean
+			r.SetSym(i, j, mean)
+		}
+	}
+	lambda := 1.0
+	if den > 0 {
+		lambda = math.Min(1, math.Max(0, num/den))
+	}
+	for i := 0; i < n; i++ {
+		r.SetSym(i, i, mo.ms[i])
+		for j := i + 1; j < n; j++ {
+			r.SetSym(i, j, (1-lambda)*r.At(i, j)*sd[i]*sd[j])
+		}
+	}
+	return r, lambda
+}
+
+// cross returns Σ_t x_t y_t over the periods where neither is NaN, and their count.
+func cross(x, y []float64) (float64, int) {
+	var s float64
+	var c int
+	for t, a := range x {
+		if b := y[t]; !math.IsNaN(a) && !math.IsNaN(b) {
+			s += a * b
+			c++
+		}
+	}
+	return s, c
+}
+
+// residualWeight returns the weight of a residual-based method, the method that will run, its
+// λ (NaN unless MinTShrink) and a note on any fallback taken before solving: to Structural when
+// the residuals cannot weight it; MinTSample to MinTShrink when a node has no more residuals
+// than there are nodes (the sample covariance would be singular); MinT to VarianceScaling when
+// the node count is above maxDense. The moments come back for a later fallback (nil with
+// Structural).
+func residualWeight(h Hierarchy, m Method, residuals [][]float64, maxDense int) (weight, Method, float64, string, *moments, error) {
+	mo, why, err := newMoments(h, residuals)
+	if err != nil {
+		return nil, "", 0, "", nil, err
+	}
+	if mo == nil {
+		return structuralWeight(h), Structural, math.NaN(), fmt.Sprintf("%s: %s instead of %s", why, Structural, m), nil, nil
+	}
+	var note string
+	n := h.Nodes()
+	if (m == MinTShrink || m == MinTSample) && n > maxDense {
+		note = fmt.Sprintf("%d nodes, more than MaxDenseNodes %d: %s (the diagonal of the shrunk covariance) instead of %s", n, maxDense, VarianceScaling, m)
+		m = VarianceScaling
+	}
+	if m == MinTSample && mo.count[mo.min] <= n {
+		note = fmt.Sprintf("%s has %d residuals, not more than the %d nodes, so the sample covariance is singular: %s instead of %s",
+			h.node(mo.min), mo.count[mo.min], n, MinTShrink, MinTSample)
+		m = MinTShrink
+	}
+	w, lambda := mo.weight(m)
+	return w, m, lambda, note, mo, nil
+}
+
+// weight returns W for VarianceScaling, MinTShrink or MinTSample, and λ (NaN unless
+// MinTShrink).
+func (mo *moments) weight(m Method) (weight, float64) {
+	switch m {
+	case MinTShrink:
+		w, lambda := mo.shrunkCovariance()
+		return denseWeight{w}, lambda
+	case MinTSample:
+		return denseWeight{mo.sampleCovariance()}, math.NaN()
+	}
+	return mo.diagonal(), math.NaN()
+}
