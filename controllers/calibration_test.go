@@ -44,7 +44,7 @@ func gaussianShards(t fatalHelper, shards, n int, width, shift float64, seed uin
 				rows = append(rows, tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(24 + k), Step: k + 1, Mean: m,
 					Quantiles: []float64{m - z90*10*width, m, m + z90*10*width}})
 			}
-			c, ok := pipeline.Calibrate(s, rows, levels, false)
+			c, ok := pipeline.Calibrate(s, rows, levels, false, nil)
 			if !ok {
 				t.Fatalf("%s: not calibrated", s.Key)
 			}

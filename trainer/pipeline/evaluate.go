@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"math"
+	"slices"
 	"sort"
 
 	"almanac.dev/almanac/trainer/backtest"
@@ -97,18 +98,22 @@ func newActuals(actual series.Series, prev []tables.ForecastRow, nonNegative boo
 // Calibrate measures the previous run's published quantiles and mean of one series on the
 // actuals that arrived since (paired as newActuals does), scaled by the series' in-sample
 // mean absolute (seasonal) naive error s (backtest.NaiveScale, the MASE scale of Hyndman &
-// Koehler 2006). levels are the quantile levels of the previous forecast table's columns. Over
-// the h new actuals y_t with quantile forecasts q_τ,t and mean forecast f_t:
+// Koehler 2006). levels are the quantile levels of the previous forecast table's columns;
+// promised is the series' record on its own backtest from the previous models table (nil
+// when it has none). Over the n new actuals y_t with quantile forecasts q_τ,t and mean
+// forecast f_t:
 //
-//	below[τ]      = #{ t : y_t <= q_τ,t }                 (a calibrated forecast expects h·τ)
-//	pinballSum[τ] = h · backtest.Pinball(τ, y, q_τ) / s    (the scaled pinball loss of the M5
-//	                uncertainty competition, Competitor's Guide 2020, times h)
+//	below[τ]      = #{ t : y_t <= q_τ,t }                 (a calibrated forecast expects n·τ)
+//	pinballSum[τ] = n · backtest.Pinball(τ, y, q_τ) / s    (the scaled pinball loss of the M5
+//	                uncertainty competition, Competitor's Guide 2020, times n)
 //	biasSum       = Σ_t (f_t − y_t) / s                    (positive: over-forecast)
 //
-// so that sums over series and shards divided by the points give the realized coverage of each
-// quantile, the mean scaled pinball loss and the mean scaled bias. ok is false when nothing is
+// and the expectation and pair counts of summary.Calibration: the promised share p_τ is the
+// backtest's below/points when promised has the same levels and points, τ otherwise. Sums
+// over series and shards divided by the points give the realized coverage of each quantile,
+// the mean scaled pinball loss and the mean scaled bias. ok is false when nothing is
 // comparable, the scale is 0 or undefined, or a row lacks a quantile of levels.
-func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64, nonNegative bool) (summary.Calibration, bool) {
+func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64, nonNegative bool, promised *tables.Calibration) (summary.Calibration, bool) {
 	c := summary.Calibration{Levels: levels}
 	y, matched, hist, ok := newActuals(actual, prev, nonNegative)
 	if !ok {
@@ -118,9 +123,10 @@ func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64
 	if !(scale > 0) || math.IsInf(scale, 0) {
 		return c, false
 	}
-	c.Series, c.Points = 1, len(y)
+	n := len(y)
+	c.Series, c.Points = 1, n
 	c.Below, c.PinballSum = make([]int, len(levels)), make([]float64, len(levels))
-	q := make([]float64, len(y))
+	q := make([]float64, n)
 	for j, tau := range levels {
 		for i, r := range matched {
 			if len(r.Quantiles) != len(levels) || math.IsNaN(r.Quantiles[j]) {
@@ -131,12 +137,53 @@ func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64
 				c.Below[j]++
 			}
 		}
-		c.PinballSum[j] = float64(len(y)) * backtest.Pinball(tau, y, q) / scale
+		c.PinballSum[j] = float64(n) * backtest.Pinball(tau, y, q) / scale
 	}
 	for i, r := range matched {
 		c.BiasSum += (r.Mean - y[i]) / scale
 	}
+	fn := float64(n)
+	c.Pairs = n * (n - 1)
+	c.BelowPairs, c.Expected = make([]int, len(levels)), make([]float64, len(levels))
+	c.ExpectedVar, c.ExpectedPinballSum = make([]float64, len(levels)), make([]float64, len(levels))
+	backtested := promised != nil && promised.Points > 0 && slices.Equal(promised.Levels, levels) &&
+		len(promised.Below) == len(levels) && len(promised.Pinball) == len(levels)
+	if backtested {
+		c.BacktestSeries, c.BacktestPoints, c.BacktestActuals = 1, promised.Points, n
+		c.ExpectedBiasSum = fn * promised.Bias
+	}
+	for j, tau := range levels {
+		c.BelowPairs[j] = c.Below[j] * (c.Below[j] - 1)
+		p := tau
+		if backtested {
+			m := float64(promised.Points)
+			p = float64(promised.Below[j]) / m
+			c.ExpectedVar[j] = fn * fn * p * (1 - p) / m
+			c.ExpectedPinballSum[j] = fn * promised.Pinball[j]
+		}
+		c.Expected[j] = fn * p
+	}
 	return c, true
+}
+
+// EvaluationRecord is the per-series record of a Calibrate result for the evaluation table:
+// means instead of sums, and the promised shares.
+func EvaluationRecord(c summary.Calibration) *tables.Calibration {
+	if c.Series != 1 || c.Points == 0 {
+		return nil
+	}
+	n := float64(c.Points)
+	r := &tables.Calibration{Levels: c.Levels, Points: c.Points, Below: c.Below, Bias: c.BiasSum / n, Pinball: make([]float64, len(c.Levels))}
+	for j := range c.Levels {
+		r.Pinball[j] = c.PinballSum[j] / n
+	}
+	if c.HasExpectation() {
+		r.Promised, r.PromisedPoints = make([]float64, len(c.Levels)), c.BacktestPoints
+		for j := range c.Levels {
+			r.Promised[j] = c.Expected[j] / n
+		}
+	}
+	return r
 }
 
 // Movement measures how far a series' new forecast moved from the previous run's over the

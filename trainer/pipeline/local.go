@@ -26,6 +26,7 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 	var failed []string
 	var acc *summary.Accuracy
 	var cal summary.Calibration
+	var stab summary.Stability
 	trained, fitSeries := 0, 0
 	fitSeconds := 0.0
 	for i := 0; i < ps.Shards; i++ {
@@ -50,6 +51,9 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 		if ts.Calibration != nil {
 			cal.Add(*ts.Calibration)
 		}
+		if ts.Stability != nil {
+			stab.Add(*ts.Stability)
+		}
 	}
 	s, err := RunPublish(ctx, cfg, env)
 	if err != nil {
@@ -58,6 +62,9 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 	s.Shards = ps.Shards
 	if cal.Series > 0 {
 		s.Calibration = &cal
+	}
+	if stab.Series > 0 {
+		s.Stability = &stab
 	}
 	s.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {

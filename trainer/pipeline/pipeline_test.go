@@ -9,6 +9,7 @@ import (
 	"os"
 	"path/filepath"
 	"reflect"
+	"slices"
 	"sort"
 	"strings"
 	"testing"
@@ -496,6 +497,50 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, 
 	if len(rows) != 2 || !rows[0].Drifted || rows[1].Drifted || rows[0].PreviousRun != "flp-0001" ||
 		math.Abs(rows[0].Realized-1) > 1e-12 || math.Abs(rows[1].Expected-2.0/7) > 1e-12 {
 		t.Fatalf("evaluation rows %+v", rows)
+	}
+	// The expectation comes from the first run's models table: Naive's quantiles scored on its
+	// own backtest (one origin, 3 steps per series), and each evaluation row says what it
+	// promised; the rows' counts add up to the summary's.
+	if !c.HasExpectation() || c.BacktestSeries != 2 || c.BacktestPoints != 6 || c.BacktestActuals != 6 || c.Pairs != 2*3*2 {
+		t.Fatalf("calibration expectation = %+v, want 2 backtested series over 6 backtest points", c)
+	}
+	below := make([]int, 3)
+	for _, r := range rows {
+		rc := r.Calibration
+		if rc == nil || rc.PromisedPoints != 3 || len(rc.Promised) != 3 || rc.Points != 3 {
+			t.Fatalf("evaluation row %s calibration %+v, want 3 points promised over 3 backtest points", r.Key, rc)
+		}
+		for j := range below {
+			below[j] += rc.Below[j]
+		}
+	}
+	if !slices.Equal(below, c.Below) {
+		t.Errorf("rows count %v below, the summary %v", below, c.Below)
+	}
+	// A third run on the same data forecasts the same 3 periods as the second: Naive does not
+	// move, so every series shows 3 movement points and a movement of 0 in the models table.
+	s3, err := RunLocal(ctx, cfg("flp-0003", buckets2), testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s3.Stability == nil || s3.Stability.Series != 2 || s3.Stability.Points != 6 || s3.Stability.MovementSum != 0 {
+		t.Fatalf("stability = %+v, want 2 series, 6 points, no movement", s3.Stability)
+	}
+	m3 := checkPublished(t, out, "flp-0003")
+	moved := 0
+	for _, e := range m3.Units {
+		for _, r := range unitModels(t, out, e, tables.CSV) {
+			if r.MovementPoints != 3 || r.Movement != 0 {
+				t.Errorf("%s: movement %v over %d points, want 0 over 3", r.Key, r.Movement, r.MovementPoints)
+			}
+			if r.Backtest == nil || r.Backtest.Points != 3 {
+				t.Errorf("%s: backtest record %+v, want 3 points", r.Key, r.Backtest)
+			}
+			moved++
+		}
+	}
+	if moved != 2 {
+		t.Errorf("%d models rows, want 2", moved)
 	}
 }
 

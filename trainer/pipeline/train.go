@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -291,7 +292,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		}
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
 			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features,
-			Design: r.Design, Segment: r.Segment.String()})
+			Design: r.Design, Segment: r.Segment.String(), Backtest: backtestRecord(r.Levels, r.Backtest)})
 		models[r.Family]++
 		designs[r.Design]++
 	}
@@ -306,9 +307,16 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	for _, r := range fc {
 		newFc[r.Key] = append(newFc[r.Key], r)
 	}
+	modelAt := make(map[string]int, len(mr))
+	for i, r := range mr {
+		modelAt[r.Key] = i
+	}
 	for _, s := range u.series {
 		if m, ok := Movement(s, newFc[s.Key], prevFc[s.Key]); ok {
 			stab.Add(m)
+			if i, ok := modelAt[s.Key]; ok {
+				mr[i].Movement, mr[i].MovementPoints = m.MovementSum/float64(m.Points), m.Points
+			}
 		}
 	}
 	if stab.Series > 0 {
@@ -354,6 +362,20 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		return done, storageErr(err)
 	}
 	return done, nil
+}
+
+// backtestRecord is the models table's record of a forecast's quantiles on its own backtest
+// (means of the pinball and bias sums), nil without one.
+func backtestRecord(levels []float64, b backtest.QuantileRecord) *tables.Calibration {
+	if b.Points == 0 || len(b.Below) != len(levels) {
+		return nil
+	}
+	n := float64(b.Points)
+	r := &tables.Calibration{Levels: levels, Points: b.Points, Below: b.Below, Bias: b.BiasSum / n, Pinball: make([]float64, len(levels))}
+	for j := range levels {
+		r.Pinball[j] = b.PinballSum[j] / n
+	}
+	return r
 }
 
 // unpublishable says why a forecast may not be published, or "": every mean and quantile must
@@ -412,6 +434,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 	bySeries := map[string][]tables.ForecastRow{}
 	levels := map[string][]float64{}
 	expected := map[string]float64{}
+	promised := map[string]*tables.Calibration{}
 	source := map[string]string{}
 	for _, entry := range previousUnits(prev, u.unit, u.buckets) {
 		ff, okf := entry.file(TableForecasts)
@@ -441,7 +464,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 		}
 		for _, m := range mrs {
 			if ours[m.Key] && m.Metric == string(metric) {
-				expected[m.Key], source[m.Key] = m.Score, entry.Source
+				expected[m.Key], source[m.Key], promised[m.Key] = m.Score, entry.Source, m.Backtest
 			}
 		}
 	}
@@ -456,13 +479,16 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 			continue
 		}
 		row.PreviousRun = source[s.Key]
-		rows = append(rows, row)
-		accumulate(&acc, row)
 		if len(levels[s.Key]) > 0 {
-			if c, ok := Calibrate(s, bySeries[s.Key], levels[s.Key], nonNegative); ok {
-				cal.Add(c) // a unit whose previous entries used other levels keeps the first's
+			if c, ok := Calibrate(s, bySeries[s.Key], levels[s.Key], nonNegative, promised[s.Key]); ok {
+				row.Calibration = EvaluationRecord(c)
+				if !cal.Add(c) { // a unit whose previous entries used other levels keeps the first's
+					row.Calibration = nil // one set of calibration columns per table
+				}
 			}
 		}
+		rows = append(rows, row)
+		accumulate(&acc, row)
 	}
 	return rows, acc, cal, bySeries, prev.Run, nil
 }

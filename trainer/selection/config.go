@@ -170,6 +170,10 @@ type Result struct {
 	StepErrors []float64
 	// Expected is the chosen member's overall backtest score (NaN without backtest).
 	Expected float64
+	// Backtest is how the published quantiles fared on the chosen forecast's rolling-origin
+	// backtest (backtest.QuantilesOnBacktest; Below and PinballSum by Levels); Points 0
+	// without backtest or quantiles.
+	Backtest backtest.QuantileRecord
 	// Metric is the metric Expected, Scores and StepErrors are in: Config.Metric, or MAE when
 	// that was undefined on the series for every member.
 	Metric backtest.Metric

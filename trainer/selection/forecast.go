@@ -250,6 +250,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 		res.Scores[name] = cs
 		if better := cs < ranked[0].score; better || (cfg.CombineMargin > 0 && cs <= ranked[0].score*(1+cfg.CombineMargin)) {
 			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
+				res.Backtest = onBacktest(res, y, m, plan, ca)
 				return res, nil
 			} else {
 				note("%s: refit failed, using the best single member: %v", name, err)
@@ -261,10 +262,25 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 			note("%s: refit on the whole series failed: %v", c.spec.DisplayName(), err)
 			continue
 		}
+		res.Backtest = onBacktest(res, y, m, plan, c.a)
 		return res, nil
 	}
 	note("every backtested member failed to refit: fallback order %s", strings.Join(FallbackOrder, ", "))
 	return finishFallback(&res, fit, y, cfg, FallbackOrder, note)
+}
+
+// onBacktest scores the published quantiles of res on the backtest a of its forecast (plan's
+// origins on y, season length m): see backtest.QuantilesOnBacktest. Empty when there is nothing
+// to score (Points 0).
+func onBacktest(res Result, y []float64, m int, plan backtest.Plan, a backtest.Assessment) backtest.QuantileRecord {
+	if len(res.Levels) == 0 || res.Quantiles == nil || len(a.Errors) != len(plan.Origins) {
+		return backtest.QuantileRecord{}
+	}
+	rec, ok := backtest.QuantilesOnBacktest(y, m, plan.Origins, a.Errors, res.Levels, res.Mean, res.Quantiles)
+	if !ok {
+		return backtest.QuantileRecord{}
+	}
+	return rec
 }
 
 // rankScore turns a metric value into a lower-is-better score.

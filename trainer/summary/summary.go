@@ -114,6 +114,19 @@ type Accuracy struct {
 // level τ = Levels[j], Below[j]/Points is the realized share of actuals at or below the τ
 // quantile (a calibrated forecast expects τ), PinballSum[j]/Points the mean scaled pinball loss,
 // and BiasSum/Points the mean scaled error forecast − actual.
+//
+// The remaining fields, absent from older trainers, carry the expectation and what the
+// tolerance needs (trainer/coverage.Judge), summed over series i with n_i new actuals, b_ij of
+// them at or below the level-j quantile, and p_ij the share the series' published forecast
+// promised at level j: its backtest share (models table backtest_below_<q> / backtest_points,
+// over m_i backtest points) when the previous models table has one, τ_j otherwise:
+//
+//	Pairs              = Σ_i n_i (n_i − 1)         BelowPairs[j]  = Σ_i b_ij (b_ij − 1)
+//	Expected[j]        = Σ_i n_i p_ij              ExpectedVar[j] = Σ_{i backtested} n_i² p_ij (1 − p_ij) / m_i
+//	BacktestSeries     = #{i backtested}           BacktestPoints = Σ_{i backtested} m_i
+//	BacktestActuals    = Σ_{i backtested} n_i
+//	ExpectedPinballSum[j] = Σ_{i backtested} n_i · (backtest mean scaled pinball of level j)
+//	ExpectedBiasSum       = Σ_{i backtested} n_i · (backtest mean scaled bias)
 type Calibration struct {
 	Levels     []float64 `json:"levels"`
 	Series     int       `json:"series"`
@@ -121,6 +134,23 @@ type Calibration struct {
 	Below      []int     `json:"below"`
 	PinballSum []float64 `json:"pinballSum"`
 	BiasSum    float64   `json:"biasSum"`
+
+	Pairs              int       `json:"pairs,omitempty"`
+	BelowPairs         []int     `json:"belowPairs,omitempty"`
+	Expected           []float64 `json:"expected,omitempty"`
+	ExpectedVar        []float64 `json:"expectedVar,omitempty"`
+	BacktestSeries     int       `json:"backtestSeries,omitempty"`
+	BacktestPoints     int       `json:"backtestPoints,omitempty"`
+	BacktestActuals    int       `json:"backtestActuals,omitempty"`
+	ExpectedPinballSum []float64 `json:"expectedPinballSum,omitempty"`
+	ExpectedBiasSum    float64   `json:"expectedBiasSum,omitempty"`
+}
+
+// HasExpectation reports whether c carries the expectation fields (a trainer that sends them
+// sends Expected for every level; BelowPairs and the backtest sums with it).
+func (c Calibration) HasExpectation() bool {
+	return len(c.Expected) == len(c.Levels) && len(c.BelowPairs) == len(c.Levels) &&
+		len(c.ExpectedVar) == len(c.Levels) && len(c.ExpectedPinballSum) == len(c.Levels)
 }
 
 // Add folds b into c. It returns false, leaving c as it was, when both hold series and their
@@ -131,6 +161,10 @@ func (c *Calibration) Add(b Calibration) bool {
 	}
 	if c.Series == 0 {
 		*c = Calibration{Levels: b.Levels, Below: make([]int, len(b.Levels)), PinballSum: make([]float64, len(b.Levels))}
+		if b.HasExpectation() {
+			n := len(b.Levels)
+			c.BelowPairs, c.Expected, c.ExpectedVar, c.ExpectedPinballSum = make([]int, n), make([]float64, n), make([]float64, n), make([]float64, n)
+		}
 	}
 	if len(c.Levels) != len(b.Levels) || len(b.Below) != len(b.Levels) || len(b.PinballSum) != len(b.Levels) {
 		return false
@@ -139,6 +173,23 @@ func (c *Calibration) Add(b Calibration) bool {
 		if c.Levels[j] != b.Levels[j] {
 			return false
 		}
+	}
+	if c.HasExpectation() && b.HasExpectation() {
+		c.Pairs += b.Pairs
+		c.BacktestSeries += b.BacktestSeries
+		c.BacktestPoints += b.BacktestPoints
+		c.BacktestActuals += b.BacktestActuals
+		c.ExpectedBiasSum += b.ExpectedBiasSum
+		for j := range c.Levels {
+			c.BelowPairs[j] += b.BelowPairs[j]
+			c.Expected[j] += b.Expected[j]
+			c.ExpectedVar[j] += b.ExpectedVar[j]
+			c.ExpectedPinballSum[j] += b.ExpectedPinballSum[j]
+		}
+	} else {
+		// one side from a trainer without the expectation: the sum has none
+		c.Pairs, c.BelowPairs, c.Expected, c.ExpectedVar, c.ExpectedPinballSum = 0, nil, nil, nil, nil
+		c.BacktestSeries, c.BacktestPoints, c.BacktestActuals, c.ExpectedBiasSum = 0, 0, 0, 0
 	}
 	c.Series += b.Series
 	c.Points += b.Points

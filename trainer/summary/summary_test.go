@@ -66,8 +66,13 @@ func TestCalibrationFitsAtTheLevelLimit(t *testing.T) {
 		c.Levels = append(c.Levels, float64(5*i)/100)
 		c.Below = append(c.Below, 50000*i)
 		c.PinballSum = append(c.PinballSum, 1234567.0/3*float64(i))
+		c.BelowPairs = append(c.BelowPairs, 5000000*i)
+		c.Expected = append(c.Expected, 987654.0/7*float64(i))
+		c.ExpectedVar = append(c.ExpectedVar, 4321.0/9*float64(i))
+		c.ExpectedPinballSum = append(c.ExpectedPinballSum, 1234567.0/11*float64(i))
 	}
-	c.BiasSum = -98765.0 / 7
+	c.BiasSum, c.ExpectedBiasSum = -98765.0/7, 98765.0/13
+	c.Pairs, c.BacktestSeries, c.BacktestPoints, c.BacktestActuals = 9876543, 123456, 2222222, 987654
 	s := Summary{Kind: KindTrain, Trained: 9, Error: strings.Repeat("x", 10000), Models: map[string]int{}, Calibration: &c,
 		Accuracy: &Accuracy{Metric: "MASE", Evaluated: 5, ExpectedSum: 1.0 / 3, RealizedSum: 2.0 / 3, LogEvaluated: 5, ExpectedLogSum: -1.0 / 3, RealizedLogSum: 1.0 / 7}}
 	for i := 0; i < 400; i++ {
@@ -82,7 +87,8 @@ func TestCalibrationFitsAtTheLevelLimit(t *testing.T) {
 		t.Fatal(err)
 	}
 	if got.Calibration == nil || len(got.Calibration.Below) != 19 || got.Calibration.Below[18] != 950000 ||
-		got.Calibration.PinballSum[2] != c.PinballSum[2] || got.Accuracy.RealizedLogSum != 1.0/7 {
+		got.Calibration.PinballSum[2] != c.PinballSum[2] || got.Accuracy.RealizedLogSum != 1.0/7 ||
+		!got.Calibration.HasExpectation() || got.Calibration.Expected[18] != c.Expected[18] {
 		t.Fatalf("calibration after the round trip = %+v", got.Calibration)
 	}
 }

@@ -54,6 +54,16 @@ type ModelRow struct {
 	// ("monthly/smooth/long"). Written as the design and segment columns, only when some row
 	// has a design.
 	Design, Segment string
+	// Backtest is how the published quantiles fared on the series' own rolling-origin
+	// backtest (selection.Result.Backtest, Pinball and Bias as means); written as the
+	// backtest_points, backtest_bias, backtest_below_<q> and backtest_pinball_<q> columns
+	// (<q> as QuantileColumn), only when some row has one.
+	Backtest *Calibration
+	// Movement is the mean of |new − previous forecast| / scale over the MovementPoints
+	// periods this forecast and the previous run's both cover (pipeline.Movement); written as
+	// the movement and movement_points columns, only when some row has movement points.
+	Movement       float64
+	MovementPoints int
 }
 
 // EvaluationRow compares a series' realized error on new actuals with the error the
@@ -66,6 +76,10 @@ type EvaluationRow struct {
 	Expected, Realized float64
 	Drifted            bool
 	PreviousRun        string
+	// Calibration is the previous forecast's record on the new actuals (pipeline.Calibrate,
+	// over the row's Points; Pinball and Bias as means): written as the bias, below_<q> and
+	// pinball_<q> columns, only when some row has one.
+	Calibration *Calibration
 }
 
 // RejectedRow is a series that could not be used, with the reason. Key is the series key
@@ -91,6 +105,8 @@ const (
 	colDrifted  = "drifted"
 	colPrevious = "previous_run"
 	colReason   = "reason"
+	colMovement = "movement"
+	colMovedPts = "movement_points"
 	// errPrefix starts the models table's per-step error columns: err_h1, err_h2, ...
 	errPrefix = "err_h"
 	// quantilePrefix starts a forecasts table's quantile columns (see QuantileColumn).
@@ -244,11 +260,16 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 // any row has Features, a last column kept_features holds each row's as a JSON object
 // ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
 func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) error {
-	steps, withFeatures, withDesign := 0, false, false
+	steps, withFeatures, withDesign, withMovement := 0, false, false, false
 	for _, r := range rows {
 		steps = max(steps, len(r.BacktestErrors))
 		withFeatures = withFeatures || len(r.Features) > 0
 		withDesign = withDesign || r.Design != ""
+		withMovement = withMovement || r.MovementPoints > 0
+	}
+	btLevels, err := calibrationLevels("models", len(rows), func(i int) *Calibration { return rows[i].Backtest })
+	if err != nil {
+		return err
 	}
 	cols, err := keyColumns(keys)
 	if err != nil {
@@ -264,6 +285,12 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 	}
 	if withFeatures {
 		cols = append(cols, column{colFeatures, text})
+	}
+	if withMovement {
+		cols = append(cols, column{colMovement, optNumber}, column{colMovedPts, optNumber})
+	}
+	if btLevels != nil {
+		cols = append(cols, calibrationColumns(backtestPrefix, btLevels, true, false)...)
 	}
 	g := grid{cols: cols, rows: make([][]cell, len(rows))}
 	ks := keySplitter{n: len(keys)}
@@ -294,6 +321,16 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 				f = string(b)
 			}
 			c = append(c, cell{s: f})
+		}
+		if withMovement {
+			if r.MovementPoints > 0 {
+				c = append(c, cell{f: r.Movement}, cell{f: float64(r.MovementPoints)})
+			} else {
+				c = append(c, cell{null: true, f: math.NaN()}, cell{null: true, f: math.NaN()})
+			}
+		}
+		if btLevels != nil {
+			c = append(c, calibrationCells(r.Backtest, len(btLevels), true, false)...)
 		}
 		g.rows[i] = c
 	}
@@ -326,6 +363,11 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 			return text, true
 		case colScore:
 			return number, true
+		case colMovement, colMovedPts:
+			return optNumber, true
+		}
+		if calibrationKind(backtestPrefix, name) {
+			return optNumber, true
 		}
 		_, ok := errStep(name)
 		return optNumber, ok
@@ -358,6 +400,15 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 	if errCols != len(steps) {
 		return nil, fmt.Errorf("tables: models: error columns are not %s1..%s%d without holes", errPrefix, errPrefix, len(steps))
 	}
+	bt, withBacktest, err := newCalibrationReader(g, backtestPrefix, true)
+	if err != nil {
+		return nil, wrap("models", err)
+	}
+	mvAt, withMovement := pos[colMovement]
+	mpAt, withMovedPts := pos[colMovedPts]
+	if withMovement != withMovedPts {
+		return nil, fmt.Errorf("tables: models: columns %s and %s come together", colMovement, colMovedPts)
+	}
 	out := make([]ModelRow, 0, len(g.rows))
 	for i, c := range g.rows {
 		key, ok := kr.key(c)
@@ -371,6 +422,18 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 		}
 		if at, ok := pos[colSegment]; ok {
 			m.Segment = c[at].s
+		}
+		if withBacktest {
+			if m.Backtest, err = bt.read(c, 0); err != nil {
+				return nil, fmt.Errorf("tables: models row %d (series %q): %s: %w", i+1, m.Key, backtestPrefix+"*", err)
+			}
+		}
+		if withMovement && !c[mvAt].null {
+			p := c[mpAt].f
+			if c[mpAt].null || !(p >= 1) || p != math.Trunc(p) || p > 1e15 {
+				return nil, fmt.Errorf("tables: models row %d (series %q): %s is %v, not a whole number >= 1", i+1, m.Key, colMovedPts, p)
+			}
+			m.Movement, m.MovementPoints = c[mvAt].f, int(p)
 		}
 		if at, ok := pos[colFeatures]; ok && c[at].s != "" {
 			if err := json.Unmarshal([]byte(c[at].s), &m.Features); err != nil {
@@ -397,11 +460,28 @@ var evaluationColumns = []column{{colPoints, integer}, {colMetric, text}, {colEx
 	{colRealized, number}, {colDrifted, flag}, {colPrevious, text}}
 
 // WriteEvaluation writes an evaluation table: the key columns keys, points, metric, expected,
-// realized, drifted, previous_run.
+// realized, drifted, previous_run and, when some row has a Calibration, bias, below_<q> and
+// pinball_<q> per level (<q> as QuantileColumn; absent for a row without).
 func WriteEvaluation(w io.Writer, format string, keys []string, rows []EvaluationRow) error {
-	g, err := keyedGrid(keys, evaluationColumns, len(rows), func(i int) (string, []cell) {
+	levels, err := calibrationLevels("evaluation", len(rows), func(i int) *Calibration { return rows[i].Calibration })
+	if err != nil {
+		return err
+	}
+	cols := evaluationColumns
+	withPromised := false
+	for _, r := range rows {
+		withPromised = withPromised || (r.Calibration != nil && r.Calibration.Promised != nil)
+	}
+	if levels != nil {
+		cols = append(slices.Clone(cols), calibrationColumns("", levels, false, withPromised)...)
+	}
+	g, err := keyedGrid(keys, cols, len(rows), func(i int) (string, []cell) {
 		r := rows[i]
-		return r.Key, []cell{{n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
+		c := []cell{{n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
+		if levels != nil {
+			c = append(c, calibrationCells(r.Calibration, len(levels), false, withPromised)...)
+		}
+		return r.Key, c
 	})
 	if err != nil {
 		return wrap("evaluation", err)
@@ -411,19 +491,57 @@ func WriteEvaluation(w io.Writer, format string, keys []string, rows []Evaluatio
 
 // ReadEvaluation reads a table written by WriteEvaluation with the key columns keys.
 func ReadEvaluation(r io.Reader, format string, keys []string) ([]EvaluationRow, error) {
-	g, pos, kr, err := readFixed(r, format, "evaluation", keys, evaluationColumns)
+	if err := CheckKeys(keys); err != nil {
+		return nil, wrap("evaluation", err)
+	}
+	g, err := read(r, format, "evaluation", func(n string) (kind, bool) {
+		if isKeyColumn(keys, n) {
+			return text, true
+		}
+		for _, c := range evaluationColumns {
+			if c.name == n {
+				return c.kind, true
+			}
+		}
+		if n != colPoints && calibrationKind("", n) {
+			return optNumber, true
+		}
+		return 0, false
+	})
 	if err != nil {
 		return nil, err
 	}
+	names := make([]string, len(evaluationColumns))
+	for i, c := range evaluationColumns {
+		names[i] = c.name
+	}
+	pos, err := g.need(names...)
+	if err != nil {
+		return nil, wrap("evaluation", err)
+	}
+	kr, err := keysOf(g, keys)
+	if err != nil {
+		return nil, wrap("evaluation", err)
+	}
+	cr, withCalibration, err := newCalibrationReader(g, "", false)
+	if err != nil {
+		return nil, wrap("evaluation", err)
+	}
 	out := make([]EvaluationRow, 0, len(g.rows))
-	for _, c := range g.rows {
+	for i, c := range g.rows {
 		key, ok := kr.key(c)
 		if !ok {
 			continue
 		}
-		out = append(out, EvaluationRow{Key: key, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
+		row := EvaluationRow{Key: key, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
 			Expected: c[pos[colExpected]].f, Realized: c[pos[colRealized]].f, Drifted: c[pos[colDrifted]].b,
-			PreviousRun: c[pos[colPrevious]].s})
+			PreviousRun: c[pos[colPrevious]].s}
+		if withCalibration {
+			if row.Calibration, err = cr.read(c, row.Points); err != nil {
+				return nil, fmt.Errorf("tables: evaluation row %d (series %q): %w", i+1, key, err)
+			}
+		}
+		out = append(out, row)
 	}
 	return out, nil
 }
