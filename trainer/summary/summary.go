@@ -231,8 +231,9 @@ func (a *Accuracy) Add(b Accuracy) {
 	a.RealizedLogSum += b.RealizedLogSum
 }
 
-// Encode marshals s, trimming the error text and then dropping the model counts if needed to
-// stay within MaxBytes (the design counts, a few short names, are kept).
+// Encode marshals s, trimming the error text, then dropping the model counts and then the
+// calibration's expectation if needed to stay within MaxBytes (the design counts, a few short
+// names, are kept).
 func Encode(s Summary) ([]byte, error) {
 	b, err := json.Marshal(s)
 	if err != nil {
@@ -250,6 +251,17 @@ func Encode(s Summary) ([]byte, error) {
 	s.Models = map[string]int{"(truncated)": s.Trained}
 	if b, err = json.Marshal(s); err != nil {
 		return nil, err
+	}
+	if len(b) > MaxBytes && s.Calibration != nil && s.Calibration.HasExpectation() {
+		// last resort: the calibration without its expectation (judged against the nominal
+		// levels, with the binomial tolerance) rather than no summary
+		c := *s.Calibration
+		c.Pairs, c.BelowPairs, c.Expected, c.ExpectedVar, c.ExpectedPinballSum = 0, nil, nil, nil, nil
+		c.BacktestSeries, c.BacktestPoints, c.BacktestActuals, c.ExpectedBiasSum = 0, 0, 0, 0
+		s.Calibration = &c
+		if b, err = json.Marshal(s); err != nil {
+			return nil, err
+		}
 	}
 	if len(b) > MaxBytes {
 		return nil, fmt.Errorf("summary: %d bytes after trimming, limit %d", len(b), MaxBytes)
