@@ -9,6 +9,7 @@ package s3test
 
 import (
 	"bufio"
+	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -103,4 +104,45 @@ func repoRoot() string {
 			return dir
 		}
 	}
+}
+
+// Silent starts a TCP listener on 127.0.0.1 that accepts connections and never answers them,
+// the stalled endpoint of issue 18 case 2, and returns its host:port; it closes when the
+// test ends.
+func Silent(t testing.TB) string {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var conns []net.Conn
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		for {
+			c, err := ln.Accept()
+			if err != nil {
+				return
+			}
+			conns = append(conns, c) // held open, never read or written
+		}
+	}()
+	t.Cleanup(func() {
+		ln.Close()
+		<-done
+		for _, c := range conns {
+			c.Close()
+		}
+	})
+	return ln.Addr().String()
+}
+
+// SilentURI is an s3:// URI of prefix in bucket on a Silent endpoint; the test credentials
+// are put into the environment as Start does, so the SDK asks no metadata service.
+func SilentURI(t testing.TB, bucket, prefix string) string {
+	t.Setenv("AWS_ACCESS_KEY_ID", "almanac-test")
+	t.Setenv("AWS_SECRET_ACCESS_KEY", "almanac-test-secret")
+	t.Setenv("AWS_REGION", "us-east-1")
+	t.Setenv("AWS_EC2_METADATA_DISABLED", "true")
+	return "s3://" + bucket + "/" + prefix + "?endpoint=http://" + Silent(t) + "&use_path_style=true&disable_https=true&region=us-east-1"
 }

@@ -23,6 +23,7 @@ import (
 	"strings"
 	"sync"
 	"syscall"
+	"time"
 
 	"gocloud.dev/blob"
 	_ "gocloud.dev/blob/azureblob" // azblob://
@@ -58,6 +59,11 @@ type Store struct {
 	prefix string // "" or ends in "/"
 	uri    string // redacted, for messages
 	owned  bool   // Close closes the bucket
+	// dir is the directory of a file:// store ("" for the others), whose writes go through
+	// writeFile (fsync of data and directory).
+	dir string
+	// timeout is RequestTimeout when the store was opened.
+	timeout time.Duration
 }
 
 var (
@@ -109,7 +115,7 @@ func open(ctx context.Context, uri string, create bool) (*Store, error) {
 		if err != nil {
 			return nil, fmt.Errorf("store: %s: %w", red, classify(err))
 		}
-		return &Store{bucket: b, uri: red, owned: true}, nil
+		return &Store{bucket: b, uri: red, owned: true, dir: dir, timeout: RequestTimeout}, nil
 	case "mem":
 		name := u.Host
 		memMu.Lock()
@@ -123,7 +129,7 @@ func open(ctx context.Context, uri string, create bool) (*Store, error) {
 		if err != nil {
 			return nil, fmt.Errorf("store: %s: %w", red, err)
 		}
-		return &Store{bucket: b, prefix: p, uri: red}, nil
+		return &Store{bucket: b, prefix: p, uri: red, timeout: RequestTimeout}, nil
 	case "s3", "gs", "azblob":
 		if u.Host == "" {
 			return nil, fmt.Errorf("store: %s: missing bucket name: %w", red, ErrBadURI)
@@ -137,7 +143,7 @@ func open(ctx context.Context, uri string, create bool) (*Store, error) {
 		if err != nil {
 			return nil, fmt.Errorf("store: %s: %w: %w", red, ErrBadURI, err)
 		}
-		return &Store{bucket: b, prefix: p, uri: red, owned: true}, nil
+		return &Store{bucket: b, prefix: p, uri: red, owned: true, timeout: RequestTimeout}, nil
 	}
 	return nil, fmt.Errorf("store: %s: scheme %q is not one of %v: %w", red, u.Scheme, Schemes, ErrBadURI)
 }
@@ -258,9 +264,16 @@ func (s *Store) List(ctx context.Context, prefix string) ([]ObjectInfo, error) {
 	it := s.bucket.List(&blob.ListOptions{Prefix: s.prefix + prefix})
 	var out []ObjectInfo
 	for {
-		o, err := it.Next(ctx)
+		var o *blob.ListObject
+		err := s.request(ctx, "list "+s.uri+prefix, func(ctx context.Context) (err error) {
+			o, err = it.Next(ctx)
+			return err
+		})
 		if err == io.EOF {
 			break
+		}
+		if errors.Is(err, ErrTimeout) {
+			return nil, err
 		}
 		if err != nil {
 			return nil, fmt.Errorf("store: list %s%s: %w", s.uri, prefix, classify(err))
@@ -279,7 +292,14 @@ func (s *Store) Stat(ctx context.Context, key string) (ObjectInfo, error) {
 	if err != nil {
 		return ObjectInfo{}, err
 	}
-	a, err := s.bucket.Attributes(ctx, k)
+	var a *blob.Attributes
+	err = s.request(ctx, "stat "+s.Describe(key), func(ctx context.Context) (err error) {
+		a, err = s.bucket.Attributes(ctx, k)
+		return err
+	})
+	if errors.Is(err, ErrTimeout) {
+		return ObjectInfo{}, err
+	}
 	if err != nil {
 		return ObjectInfo{}, fmt.Errorf("store: stat %s: %w", s.Describe(key), classify(err))
 	}
@@ -302,28 +322,22 @@ func (s *Store) OpenRange(ctx context.Context, key string, offset, length int64)
 	if err != nil {
 		return nil, err
 	}
-	r, err := s.bucket.NewRangeReader(ctx, k, offset, length, nil)
+	rctx, wd := newWatchdog(ctx, s.timeout, "read "+s.Describe(key))
+	var r *blob.Reader
+	err = wd.call(func() (err error) {
+		r, err = s.bucket.NewRangeReader(rctx, k, offset, length, nil)
+		return err
+	})
+	if errors.Is(err, ErrTimeout) {
+		wd.stop()
+		return nil, err
+	}
 	if err != nil {
+		wd.stop()
 		return nil, fmt.Errorf("store: read %s: %w", s.Describe(key), classify(err))
 	}
-	return &errReader{r: r, name: s.Describe(key)}, nil
+	return &watchedReader{r: r, w: wd, name: s.Describe(key)}, nil
 }
-
-// errReader classifies read errors and names the object in them.
-type errReader struct {
-	r    *blob.Reader
-	name string
-}
-
-func (e *errReader) Read(p []byte) (int, error) {
-	n, err := e.r.Read(p)
-	if err != nil && err != io.EOF {
-		err = fmt.Errorf("store: read %s: %w", e.name, classify(err))
-	}
-	return n, err
-}
-
-func (e *errReader) Close() error { return e.r.Close() }
 
 // Get reads a whole object.
 func (s *Store) Get(ctx context.Context, key string) ([]byte, error) {
@@ -341,7 +355,14 @@ func (s *Store) Exists(ctx context.Context, key string) (bool, error) {
 	if err != nil {
 		return false, err
 	}
-	ok, err := s.bucket.Exists(ctx, k)
+	var ok bool
+	err = s.request(ctx, "stat "+s.Describe(key), func(ctx context.Context) (err error) {
+		ok, err = s.bucket.Exists(ctx, k)
+		return err
+	})
+	if errors.Is(err, ErrTimeout) {
+		return false, err
+	}
 	if err != nil {
 		return false, fmt.Errorf("store: stat %s: %w", s.Describe(key), classify(err))
 	}
@@ -355,18 +376,31 @@ func (s *Store) Write(ctx context.Context, key string, fn func(w io.Writer) erro
 	if err != nil {
 		return err
 	}
-	wctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	w, err := s.bucket.NewWriter(wctx, k, &blob.WriterOptions{ContentType: contentType(key)})
+	if s.dir != "" {
+		return s.writeFile(k, fn)
+	}
+	wctx, wd := newWatchdog(ctx, s.timeout, "write "+s.Describe(key))
+	defer wd.stop()
+	var w *blob.Writer
+	err = wd.call(func() (err error) {
+		w, err = s.bucket.NewWriter(wctx, k, &blob.WriterOptions{ContentType: contentType(key)})
+		return err
+	})
+	if errors.Is(err, ErrTimeout) {
+		return err
+	}
 	if err != nil {
 		return fmt.Errorf("store: write %s: %w", s.Describe(key), classify(err))
 	}
-	if err := fn(w); err != nil {
-		cancel() // abort: the writer must not commit a partial object
+	if err := fn(&watchedWriter{w: w, wd: wd}); err != nil {
+		wd.cancel() // abort: the writer must not commit a partial object
 		_ = w.Close()
 		return err
 	}
-	if err := w.Close(); err != nil {
+	if err := wd.call(w.Close); err != nil {
+		if errors.Is(err, ErrTimeout) {
+			return err
+		}
 		return fmt.Errorf("store: write %s: %w", s.Describe(key), classify(err))
 	}
 	return nil
@@ -390,7 +424,11 @@ func (s *Store) Copy(ctx context.Context, dst, src string) error {
 	if err != nil {
 		return err
 	}
-	if err := s.bucket.Copy(ctx, d, sk, nil); err != nil {
+	err = s.request(ctx, "copy "+s.Describe(src), func(ctx context.Context) error { return s.bucket.Copy(ctx, d, sk, nil) })
+	if errors.Is(err, ErrTimeout) {
+		return err
+	}
+	if err != nil {
 		return fmt.Errorf("store: copy %s to %s: %w", s.Describe(src), s.Describe(dst), classify(err))
 	}
 	return nil
@@ -402,7 +440,11 @@ func (s *Store) Delete(ctx context.Context, key string) error {
 	if err != nil {
 		return err
 	}
-	if err := s.bucket.Delete(ctx, k); err != nil && gcerrors.Code(err) != gcerrors.NotFound {
+	err = s.request(ctx, "delete "+s.Describe(key), func(ctx context.Context) error { return s.bucket.Delete(ctx, k) })
+	if errors.Is(err, ErrTimeout) {
+		return err
+	}
+	if err != nil && gcerrors.Code(err) != gcerrors.NotFound {
 		return fmt.Errorf("store: delete %s: %w", s.Describe(key), classify(err))
 	}
 	return nil

@@ -9,9 +9,11 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/summary"
 )
@@ -171,6 +173,17 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 			t.Cleanup(func() { os.Chmod(path(in), 0o755) })
 			return localArgs(in, out, "r2")
 		}, nil, exitcode.Config, "permission denied"},
+		{"an S3 endpoint that accepts and never answers", func(t *testing.T) []string {
+			_, out := published(t)
+			return localArgs(s3test.SilentURI(t, "flp-exports", "daily/"), out, "r2", "--request-timeout", "300ms")
+		}, nil, exitcode.Transient, "no answer within 300ms"},
+		{"an input object that never answers (a named pipe nobody writes)", func(t *testing.T) []string {
+			in, out := published(t)
+			if err := syscall.Mkfifo(path(in)+"depot-brill.csv", 0o644); err != nil {
+				t.Skip("no named pipes here:", err)
+			}
+			return localArgs(in, out, "r2", "--step-timeout", "1s")
+		}, nil, exitcode.Transient, "did not finish within --step-timeout 1s"},
 		{"a run that lost its series (read as monthly)", func(t *testing.T) []string {
 			in, out := published(t)
 			return localArgs(in, out, "r2", "--frequency", "Monthly")

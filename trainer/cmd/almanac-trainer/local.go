@@ -59,6 +59,8 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	out := fs.String("output", "", "output `URI`; overrides spec.output.uri")
 	runName := fs.String("run", "", "run `name` (default local-<UTC time>)")
 	workers := fs.Int("workers", 0, "forecasting goroutines (0: GOMAXPROCS)")
+	var bounds timeoutFlags
+	bounds.register(fs)
 	var lf localFlags
 	fs.StringVar(&lf.format, "format", "", "spec.source.format: csv or parquet (default csv)")
 	fs.StringVar(&lf.outFormat, "output-format", "", "spec.output.format: csv or parquet (default parquet)")
@@ -87,7 +89,8 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	}
 	if *file != "" || *cfgPath != "" {
 		for name := range set {
-			if !map[string]bool{"f": true, "config": true, "termination-log": true, "input": true, "output": true, "run": true, "workers": true}[name] {
+			if !map[string]bool{"f": true, "config": true, "termination-log": true, "input": true, "output": true, "run": true, "workers": true,
+				"request-timeout": true, "step-timeout": true}[name] {
 				from := "-f"
 				if *cfgPath != "" {
 					from = "--config"
@@ -143,7 +146,7 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	if _, err := pipeline.Check(cfg); err != nil {
 		return fail(err)
 	}
-	s, err := recovered(summary.KindPublish, stderr, func() (summary.Summary, error) { return pipeline.RunLocal(ctx, cfg, env) })
+	s, err := bounds.bounded(ctx, summary.KindPublish, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunLocal(ctx, cfg, env) })
 	code := pipeline.ExitCode(err)
 	if err != nil {
 		s.Error = err.Error()

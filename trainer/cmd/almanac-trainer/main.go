@@ -89,11 +89,13 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	fs := flag.NewFlagSet(name, flag.ContinueOnError)
 	cfgPath := fs.String("config", "", "run configuration `file` (config.json)")
 	termLog := fs.String("termination-log", defaultTerminationLog, "`file` the summary JSON is written to")
+	var bounds timeoutFlags
+	bounds.register(fs)
 	var shardFlag *string
-	use := fmt.Sprintf("usage: almanac-trainer %s --config FILE [--termination-log FILE]", name)
+	use := fmt.Sprintf("usage: almanac-trainer %s --config FILE [--termination-log FILE] [--request-timeout D] [--step-timeout D]", name)
 	if name == "train" {
 		shardFlag = fs.String("shard", "", "shard `index` (default $JOB_COMPLETION_INDEX)")
-		use = "usage: almanac-trainer train --config FILE [--shard N] [--termination-log FILE]"
+		use = "usage: almanac-trainer train --config FILE [--shard N] [--termination-log FILE] [--request-timeout D] [--step-timeout D]"
 	}
 	if code, ok := cli.Parse(fs, use, args, stdout, stderr); !ok {
 		return code
@@ -115,9 +117,9 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	var s summary.Summary
 	switch name {
 	case "plan":
-		s, err = recovered(summary.KindPlan, stderr, func() (summary.Summary, error) { return pipeline.RunPlan(ctx, cfg, env) })
+		s, err = bounds.bounded(ctx, summary.KindPlan, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunPlan(ctx, cfg, env) })
 	case "publish":
-		s, err = recovered(summary.KindPublish, stderr, func() (summary.Summary, error) { return pipeline.RunPublish(ctx, cfg, env) })
+		s, err = bounds.bounded(ctx, summary.KindPublish, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunPublish(ctx, cfg, env) })
 	case "train":
 		idx := *shardFlag
 		if idx == "" {
@@ -127,7 +129,9 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 		if perr != nil || shard < 0 {
 			return fail(fmt.Errorf("train needs --shard or JOB_COMPLETION_INDEX (got %q): %w", idx, pipeline.ErrConfig))
 		}
-		s, err = recovered(summary.KindTrain, stderr, func() (summary.Summary, error) { return pipeline.RunTrain(ctx, cfg, shard, env) })
+		s, err = bounds.bounded(ctx, summary.KindTrain, stderr, func(ctx context.Context) (summary.Summary, error) {
+			return pipeline.RunTrain(ctx, cfg, shard, env)
+		})
 	}
 	code := pipeline.ExitCode(err)
 	if err != nil {
@@ -233,6 +237,9 @@ commands (the run's Jobs):
             forecast shard N (default $JOB_COMPLETION_INDEX) and write its units' tables
   publish   --config FILE [--termination-log FILE]
             verify every unit, carry forward failed ones, write MANIFEST.json, then latest.json
+  They (and local) also take --request-timeout D (default 2m: a storage request that answers
+  nothing, or a read or write that moves no byte, for that long fails with exit 4; 0 turns it
+  off) and --step-timeout D (default none: the whole command, past it exit 4).
   The summary JSON (at most 4 KiB) goes to --termination-log (default /dev/termination-log;
   a path that cannot be written gives a warning), one line to stdout, logs to stderr.
 
@@ -262,7 +269,8 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
   3  broken data: an input object that cannot be read as a table, changed or vanished after plan,
      an input folder with no objects; or damaged published state (latest.json unreadable, its
      manifest gone or with another checksum)
-  4  transient storage error: timeouts, refused connections, server errors
+  4  transient storage error: refused connections, server errors, a storage request with no
+     answer within --request-timeout (default 2m) or a command past --step-timeout
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
      units carried forward; no manifest is written and latest.json stays where it was
 `)
