@@ -105,9 +105,9 @@ func tableFormat(cfg *runconfig.Config) string {
 func previous(ctx context.Context, out *store.Store, cfg *runconfig.Config) (*Manifest, error) {
 	run := cfg.PreviousRun
 	if run == "" {
-		p, ok, err := out.ReadLatest(ctx)
+		p, ok, _, err := latest(ctx, out) // a damaged latest.json is read as rebuilt from the chain
 		if err != nil {
-			return nil, storageErr(err)
+			return nil, err
 		}
 		if !ok {
 			return nil, nil

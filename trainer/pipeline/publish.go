@@ -20,7 +20,8 @@ import (
 // unit, whose files are verified the same way, and is carried forward; a unit with neither is
 // missing. Then it writes MANIFEST.json and, only after that, replaces latest.json.
 //
-// Before writing anything, the run must pass the publish guard (runconfig.Publish, see
+// First a damaged latest.json is repaired from the manifest chain (repairLatest), whatever
+// the verdict on this run. Before writing anything, the run must pass the publish guard (runconfig.Publish, see
 // guard); a run below it writes no manifest and fails with ErrRefused, naming its counts and
 // the most frequent rejection reasons, so a run that lost its series never replaces good
 // forecasts.
@@ -33,6 +34,9 @@ import (
 func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPublish}
 	if _, err := Check(cfg); err != nil {
+		return sum, err
+	}
+	if err := repairOutput(ctx, cfg, env); err != nil {
 		return sum, err
 	}
 	out, p, prev, err := openRun(ctx, cfg)
@@ -96,9 +100,9 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 //   - If latest.json names a later run built on this one (a stale rerun), the manifest is
 //     written but latest.json is left alone; moved is false.
 func commit(ctx context.Context, out *store.Store, run string, prev *Manifest, key string, b []byte) (moved bool, err error) {
-	var cur store.Pointer
-	if err := out.GetJSON(ctx, store.LatestKey, &cur); err != nil && !errors.Is(err, store.ErrNotFound) {
-		return false, storageErr(err)
+	cur, _, _, err := latest(ctx, out)
+	if err != nil {
+		return false, err
 	}
 	sum := store.SHA256(b)
 	if cur.Run == run && cur.ManifestSHA256 != sum {

@@ -267,8 +267,8 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
      refused credentials or permissions; also what the Go runtime exits with on a fatal error
      (out of memory), which the trainer cannot catch
   3  broken data: an input object that cannot be read as a table, changed or vanished after plan,
-     an input folder with no objects; or damaged published state (latest.json unreadable, its
-     manifest gone or with another checksum)
+     an input folder with no objects; or a damaged manifest of a run named as previousRun (a
+     damaged latest.json is not an error: publish rebuilds it from the newest intact manifest)
   4  transient storage error: refused connections, server errors, a storage request with no
      answer within --request-timeout (default 2m) or a command past --step-timeout
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
