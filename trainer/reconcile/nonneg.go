@@ -26,7 +26,9 @@ const nonNegTol = 1e-9
 // the solution is optimal when every free b_j >= 0 and every held μ_j <= 0. Otherwise every
 // violating series changes side (full exchange); after 3 exchanges that do not reduce the
 // number of violations, only the violating series of largest index changes side (Murty's
-// rule), which ends in finitely many steps. It starts from Z = {j : unconstrained b_j < 0}.
+// rule), which ends in finitely many steps. The first period that needs it starts from
+// Z = {j : unconstrained b_j < 0}, each later one from the previous period's optimal Z
+// (neighbouring periods of one forecast mostly hold the same series at zero).
 func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 	bottom, _, err := p.solve(nil, ys)
 	if err != nil {
@@ -34,16 +36,21 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 	}
 	m := p.h.Bottom
 	limit := 3*m + 30
+	var last []bool // the previous period's optimal held set: the next period's start
 	for t, y := range ys {
-		held := make([]bool, m)
 		var any bool
-		for j, v := range bottom[t] {
-			if v < 0 {
-				held[j], any = true, true
-			}
+		for _, v := range bottom[t] {
+			any = any || v < 0
 		}
 		if !any {
-			continue
+			continue // the unconstrained solution is feasible, hence optimal
+		}
+		held := make([]bool, m)
+		for j, v := range bottom[t] {
+			held[j] = v < 0
+			if last != nil {
+				held[j] = last[j]
+			}
 		}
 		var scale float64
 		for _, v := range y {
@@ -88,6 +95,7 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 				}
 				bottom[t] = b
 				p.exchanges = max(p.exchanges, ex-1)
+				last = held
 				break
 			}
 			if len(bad) < best || backup > 0 {

@@ -22,8 +22,6 @@ const (
 type weight interface {
 	// mulVec sets dst = W v.
 	mulVec(dst, v []float64)
-	// combine sets dst = Σ_i val[i] W[:, idx[i]].
-	combine(dst []float64, idx []int, val []float64)
 	// diagonal returns W[i][i].
 	diagonal(i int) float64
 }
@@ -37,13 +35,6 @@ func (w diagWeight) mulVec(dst, v []float64) {
 	}
 }
 
-func (w diagWeight) combine(dst []float64, idx []int, val []float64) {
-	clear(dst)
-	for i, c := range idx {
-		dst[c] += val[i] * w[c]
-	}
-}
-
 func (w diagWeight) diagonal(i int) float64 { return w[i] }
 
 // denseWeight is a full symmetric W (MinT).
@@ -53,20 +44,30 @@ func (w denseWeight) mulVec(dst, v []float64) {
 	mat.NewVecDense(len(dst), dst).MulVec(w.w, mat.NewVecDense(len(v), v))
 }
 
-func (w denseWeight) combine(dst []float64, idx []int, val []float64) {
-	clear(dst)
-	n := len(dst)
-	raw := w.w.RawSymmetric() // upper triangle stored; W[i][c] = W[min][max]
-	for k, c := range idx {
-		v := val[k]
-		for i := 0; i < n; i++ {
-			if i <= c {
-				dst[i] += v * raw.Data[i*raw.Stride+c]
-			} else {
-				dst[i] += v * raw.Data[c*raw.Stride+i]
-			}
+// aggregateColumns returns W C'_a for each aggregate row a of C (n values each):
+// W[:, a] − Σ_{j∈a} W[:, k+j].
+func (w denseWeight) aggregateColumns(h Hierarchy) [][]float64 {
+	k, n := len(h.Sums), h.Nodes()
+	raw := w.w.RawSymmetric() // upper triangle: W[i][c] = Data[min*Stride+max]
+	at := func(i, c int) float64 {
+		if i > c {
+			i, c = c, i
 		}
+		return raw.Data[i*raw.Stride+c]
 	}
+	cols := make([][]float64, k)
+	for a, sum := range h.Sums {
+		col := make([]float64, n)
+		for i := range col {
+			s := at(i, a)
+			for _, j := range sum {
+				s -= at(i, k+j)
+			}
+			col[i] = s
+		}
+		cols[a] = col
+	}
+	return cols
 }
 
 func (w denseWeight) diagonal(i int) float64 { return w.w.At(i, i) }
@@ -107,6 +108,8 @@ type problem struct {
 	parents  [][]int // parents[j] = aggregates summing bottom series j (diagonal W only)
 
 	held []bool // bottom series eliminated at zero (diagonal W), nil when none
+
+	wct [][]float64 // W C'_a per aggregate a, computed once (dense W only)
 
 	// What ran, for Result.Note.
 	dense, cg bool
@@ -271,7 +274,8 @@ func (p *problem) solve(zero []int, ys [][]float64) (bottom, mus [][]float64, er
 
 // factor builds C W C' densely and returns its Cholesky factor: for a diagonal W from the
 // formula in the problem doc, through each bottom series' parents (Σ_j |parents_j|² updates);
-// otherwise column by column, W C' e_d from the non-zeros of row d.
+// for a dense W from the columns W C'_a, so that a changed set of held rows costs no more than
+// reading W.
 func (p *problem) factor(zero []int, r int) (*mat.Cholesky, error) {
 	m := mat.NewSymDense(r, nil)
 	if w, ok := p.w.(diagWeight); ok && len(zero) == 0 {
@@ -291,20 +295,27 @@ func (p *problem) factor(zero []int, r int) (*mat.Cholesky, error) {
 			}
 		}
 	} else {
-		u := make([]float64, p.n)
-		rows := make([][]int, r)
-		vals := make([][]float64, r)
-		for c := range rows {
-			rows[c], vals[c] = p.row(c, zero)
+		// Dense W: the aggregate block from W C' (computed once per problem); a held bottom
+		// series j adds row and column (C W)_{·,k+j} = (W C')_{k+j,·} and W[k+j][k+j'].
+		dw := p.w.(denseWeight)
+		if p.wct == nil {
+			p.wct = dw.aggregateColumns(p.h)
 		}
 		for d := 0; d < r; d++ {
-			p.w.combine(u, rows[d], vals[d])
 			for c := 0; c <= d; c++ {
-				var s float64
-				for i, x := range rows[c] {
-					s += vals[c][i] * u[x]
+				var v float64
+				switch {
+				case d < p.k:
+					v = p.wct[d][c]
+					for _, j := range p.h.Sums[c] {
+						v -= p.wct[d][p.k+j]
+					}
+				case c < p.k:
+					v = p.wct[c][p.k+zero[d-p.k]]
+				default:
+					v = dw.w.At(p.k+zero[c-p.k], p.k+zero[d-p.k])
 				}
-				m.SetSym(c, d, s)
+				m.SetSym(c, d, v)
 			}
 		}
 	}
