@@ -39,25 +39,31 @@ type config struct {
 	leaderElect         bool
 	namespaces          []string
 	maxConcurrentShards int
+	images              controllers.ImageAllowlist
 	zap                 zap.Options
 }
 
 // parseFlags reads the command line; errors name the flag.
 func parseFlags(args []string) (config, error) {
 	var c config
-	var watch string
+	var watch, images string
 	fs := flag.NewFlagSet("almanac-controller", flag.ContinueOnError)
 	fs.StringVar(&c.metricsAddr, "metrics-bind-address", ":8080", "address the Prometheus metrics endpoint binds to (0 disables it)")
 	fs.StringVar(&c.probeAddr, "health-probe-bind-address", ":8081", "address the /healthz and /readyz probes bind to")
 	fs.BoolVar(&c.leaderElect, "leader-elect", false, "take part in leader election so that only one replica reconciles")
 	fs.StringVar(&watch, "watch-namespace", "", "comma-separated namespaces to watch; empty watches all namespaces")
 	fs.IntVar(&c.maxConcurrentShards, "max-concurrent-shards", 32, "train pods all active runs may run at once, shared by weight (0: unlimited)")
+	fs.StringVar(&images, "trainer-image-prefixes", "", "comma-separated trainer images portfolios may name: a repository (any tag or digest) or a path ending in / (any image under it); empty allows every image")
 	c.zap.BindFlags(fs)
 	if err := fs.Parse(args); err != nil {
 		return c, err
 	}
 	if c.maxConcurrentShards < 0 || c.maxConcurrentShards > 1<<20 {
 		return c, fmt.Errorf("--max-concurrent-shards: %d is not in 0..%d", c.maxConcurrentShards, 1<<20)
+	}
+	var err error
+	if c.images, err = controllers.ParseImageAllowlist(images); err != nil {
+		return c, fmt.Errorf("--trainer-image-prefixes: %w", err)
 	}
 	for _, ns := range strings.Split(watch, ",") {
 		if ns = strings.TrimSpace(ns); ns != "" {
@@ -83,7 +89,7 @@ func main() {
 func run(ctx context.Context, c config) error {
 	log := ctrl.Log.WithName("setup")
 	log.Info("starting almanac-controller", "version", version, "commit", commit,
-		"namespaces", c.namespaces, "maxConcurrentShards", c.maxConcurrentShards)
+		"namespaces", c.namespaces, "maxConcurrentShards", c.maxConcurrentShards, "trainerImagePrefixes", []string(c.images))
 	scheme := runtime.NewScheme()
 	utilruntime.Must(clientgoscheme.AddToScheme(scheme))
 	utilruntime.Must(forecastingv1alpha1.AddToScheme(scheme))
@@ -112,6 +118,7 @@ func run(ctx context.Context, c config) error {
 	}
 	if err := controllers.SetupWithManager(ctx, mgr, controllers.Options{
 		MaxConcurrentShards: int32(c.maxConcurrentShards),
+		Images:              c.images,
 		Metrics:             m,
 	}); err != nil {
 		return fmt.Errorf("set up controllers: %w", err)

@@ -20,17 +20,22 @@ func TestParseFlags(t *testing.T) {
 		t.Errorf("defaults = %+v", c)
 	}
 	c, err = parseFlags([]string{"--leader-elect", "--metrics-bind-address=:9090", "--health-probe-bind-address=:9091",
-		"--max-concurrent-shards=8", "--zap-log-level=debug", "--watch-namespace=depot-north, depot-south,"})
+		"--max-concurrent-shards=8", "--zap-log-level=debug", "--watch-namespace=depot-north, depot-south,",
+		"--trainer-image-prefixes=registry.fenwick.example/almanac/,registry.fenwick.example/tools/almanac-trainer"})
 	if err != nil {
 		t.Fatal(err)
 	}
 	if diff := cmp.Diff([]string{"depot-north", "depot-south"}, c.namespaces); diff != "" {
 		t.Errorf("namespaces (-want,+got):\n%s", diff)
 	}
+	if diff := cmp.Diff([]string{"registry.fenwick.example/almanac/", "registry.fenwick.example/tools/almanac-trainer"}, []string(c.images)); diff != "" {
+		t.Errorf("trainer image prefixes (-want,+got):\n%s", diff)
+	}
 	if !c.leaderElect || c.metricsAddr != ":9090" || c.probeAddr != ":9091" || c.maxConcurrentShards != 8 {
 		t.Errorf("parsed = %+v", c)
 	}
-	for _, bad := range [][]string{{"--max-concurrent-shards=-1"}, {"--max-concurrent-shards=many"}, {"--shards=3"}} {
+	for _, bad := range [][]string{{"--max-concurrent-shards=-1"}, {"--max-concurrent-shards=many"}, {"--shards=3"},
+		{"--trainer-image-prefixes=registry.fenwick.example/almanac/almanac-trainer:1.4"}} {
 		if _, err := parseFlags(bad); err == nil {
 			t.Errorf("parseFlags(%v) accepted", bad)
 		} else if !strings.Contains(err.Error(), strings.TrimLeft(strings.SplitN(bad[0], "=", 2)[0], "-")) {

@@ -40,9 +40,14 @@ type portfolioPlan struct {
 	MissedDue time.Time
 }
 
+// stallCause is a reason and message for the portfolio's Stalled condition found outside its
+// schedule and name (see planPortfolio).
+type stallCause struct{ Reason, Message string }
+
 // planPortfolio computes a portfolio's status and next actions from its runs at now.
-// secretMessage is "" when the credentials Secret exists (or none is named), else the
-// sentence for the Stalled condition. It makes no client calls.
+// blocked, when its reason is set, stalls the portfolio with that reason and message: an
+// image the install does not allow, or an active run's Stalled condition (a missing
+// credentials Secret seen on its pod). It makes no client calls.
 //
 // It returns in the plan:
 //   - the status: active runs, backlog (unfinished shards; planned minus seen series), last
@@ -58,9 +63,8 @@ type portfolioPlan struct {
 //   - Prune: succeeded and failed runs beyond their history limits, oldest first;
 //   - Events: MissedSchedule, SkippedForbidden (once per due time), ReplacingRuns, RunCreated,
 //     AboveThreshold and the Stalled reasons (once per message);
-//   - RequeueAfter: until the next schedule time (or the drift cooldown's end), or secretRetry
-//     while the Secret is missing.
-func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecastingv1alpha1.ForecastRun, now time.Time, secretMessage string) portfolioPlan {
+//   - RequeueAfter: until the next schedule time (or the drift cooldown's end).
+func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecastingv1alpha1.ForecastRun, now time.Time, blocked stallCause) portfolioPlan {
 	st := fp.Status.DeepCopy()
 	p := portfolioPlan{Status: st}
 	st.ObservedGeneration = fp.Generation
@@ -127,9 +131,8 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 		reason = forecastingv1alpha1.ReasonNameTooLong
 		message = fmt.Sprintf("metadata.name %q has %d characters; at most %d leave room for run and Job names", fp.Name, len(fp.Name), maxPortfolioNameLength)
 	}
-	if reason == "" && secretMessage != "" {
-		reason, message = forecastingv1alpha1.ReasonMissingSecret, secretMessage
-		p.RequeueAfter = secretRetry
+	if reason == "" && blocked.Reason != "" {
+		reason, message = blocked.Reason, blocked.Message
 	}
 	if reason != "" {
 		if c := meta.FindStatusCondition(st.Conditions, forecastingv1alpha1.PortfolioStalled); c == nil || c.Message != message || c.Status != metav1.ConditionTrue {

@@ -6,7 +6,6 @@ import (
 
 	"k8s.io/apimachinery/pkg/api/equality"
 	apierrors "k8s.io/apimachinery/pkg/api/errors"
-	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/runtime"
 	"k8s.io/apimachinery/pkg/types"
@@ -24,12 +23,12 @@ import (
 // from its runs. The decisions are made by planPortfolio; this type only reads and writes.
 type PortfolioReconciler struct {
 	client.Client
-	// APIReader reads the credentials Secret's metadata around the cache.
-	APIReader client.Reader
-	Scheme    *runtime.Scheme
-	Recorder  recorder.EventRecorder
-	Clock     clock.PassiveClock
-	Metrics   *Metrics
+	Scheme   *runtime.Scheme
+	Recorder recorder.EventRecorder
+	Clock    clock.PassiveClock
+	Metrics  *Metrics
+	// Images is the install's allowlist of trainer images (empty: any).
+	Images ImageAllowlist
 }
 
 // +kubebuilder:rbac:groups=forecasting.almanac.dev,resources=forecastportfolios,verbs=get;list;watch
@@ -52,18 +51,13 @@ func (r *PortfolioReconciler) Reconcile(ctx context.Context, req reconcile.Reque
 		return reconcile.Result{}, err
 	}
 	now := r.Clock.Now()
-	secret, err := r.secretVerdict(ctx, &fp, false)
-	if err != nil {
-		return reconcile.Result{}, err
+	var blocked stallCause
+	if msg := r.Images.problem(fp.Spec.Trainer.Image); msg != "" {
+		blocked = stallCause{forecastingv1alpha1.ReasonImageNotAllowed, msg}
+	} else {
+		blocked.Reason, blocked.Message = activeRunStall(runs.Items)
 	}
-	p := planPortfolio(&fp, runs.Items, now, secret)
-	if p.Create != nil && !secretNeedsCheck(&fp, false) {
-		// About to start a run: make sure the Secret is still there.
-		if secret, err = r.secretVerdict(ctx, &fp, true); err != nil {
-			return reconcile.Result{}, err
-		}
-		p = planPortfolio(&fp, runs.Items, now, secret)
-	}
+	p := planPortfolio(&fp, runs.Items, now, blocked)
 	if err := r.apply(ctx, &fp, p); err != nil {
 		return reconcile.Result{}, err
 	}
@@ -115,24 +109,4 @@ func (r *PortfolioReconciler) apply(ctx context.Context, fp *forecastingv1alpha1
 		}
 	}
 	return nil
-}
-
-// secretChecked reports whether the Secret must be (re)read now: always when force is set, when
-// the spec changed since the last status, or while the portfolio is Stalled for a missing Secret.
-// Otherwise the last verdict (no problem) stands, which keeps reconciles free of uncached reads.
-func secretNeedsCheck(fp *forecastingv1alpha1.ForecastPortfolio, force bool) bool {
-	if force || fp.Status.ObservedGeneration != fp.Generation {
-		return true
-	}
-	c := meta.FindStatusCondition(fp.Status.Conditions, forecastingv1alpha1.PortfolioStalled)
-	return c == nil || c.Reason == forecastingv1alpha1.ReasonMissingSecret
-}
-
-// secretVerdict returns the Stalled message for a missing Secret ("" when fine), reading it
-// only when secretChecked says so.
-func (r *PortfolioReconciler) secretVerdict(ctx context.Context, fp *forecastingv1alpha1.ForecastPortfolio, force bool) (string, error) {
-	if !secretNeedsCheck(fp, force) {
-		return "", nil
-	}
-	return secretProblem(ctx, r.APIReader, fp)
 }

@@ -122,7 +122,7 @@ func TestPlanPortfolioSchedule(t *testing.T) {
 			if tc.lastSchedule != nil {
 				fp.Status.LastScheduleTime = &metav1.Time{Time: *tc.lastSchedule}
 			}
-			p := planPortfolio(fp, tc.runs, tc.now, "")
+			p := planPortfolio(fp, tc.runs, tc.now, stallCause{})
 			gotCreate := ""
 			if p.Create != nil {
 				gotCreate = p.Create.Name
@@ -170,9 +170,9 @@ func TestPlanPortfolioForbidEventOncePerDueTime(t *testing.T) {
 	fp.Spec.Source.CredentialsSecretRef = nil
 	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: monday.AddDate(0, 0, -7)}}
 	runs := []forecastingv1alpha1.ForecastRun{runAt("fenwick-weekly-manual", monday.Add(-time.Hour), "", time.Time{})}
-	first := planPortfolio(fp, runs, monday.Add(time.Minute), "")
+	first := planPortfolio(fp, runs, monday.Add(time.Minute), stallCause{})
 	fp.Status = *first.Status
-	second := planPortfolio(fp, runs, monday.Add(2*time.Minute), "")
+	second := planPortfolio(fp, runs, monday.Add(2*time.Minute), stallCause{})
 	if got := eventReasons(second); len(got) != 0 {
 		t.Errorf("second reconcile events = %v, want none", got)
 	}
@@ -192,7 +192,7 @@ func TestPlanPortfolioStatusFromRuns(t *testing.T) {
 		runAt("d", t0.AddDate(0, 0, 21), "ok", t0.AddDate(0, 0, 21).Add(time.Hour)),
 		runAt("e", t0.AddDate(0, 0, 28), "", time.Time{}),
 	}
-	p := planPortfolio(fp, runs, t0.AddDate(0, 1, 0).Add(time.Minute), "")
+	p := planPortfolio(fp, runs, t0.AddDate(0, 1, 0).Add(time.Minute), stallCause{})
 	if diff := cmp.Diff([]string{"a", "c"}, p.Prune); diff != "" {
 		t.Errorf("prune (-want,+got):\n%s", diff)
 	}
@@ -220,7 +220,7 @@ func TestPlanPortfolioStatusFromRuns(t *testing.T) {
 func TestPlanPortfolioStalled(t *testing.T) {
 	tests := map[string]struct {
 		mutate     func(*forecastingv1alpha1.ForecastPortfolio)
-		secret     string
+		blocked    stallCause
 		wantReason string
 		wantInMsg  string
 	}{
@@ -233,8 +233,12 @@ func TestPlanPortfolioStalled(t *testing.T) {
 			wantReason: forecastingv1alpha1.ReasonInvalidTimeZone, wantInMsg: `spec.timeZone "Europe/Fenwick"`,
 		},
 		"missing secret": {
-			secret:     "spec.source.credentialsSecretRef: Secret planning/fenwick-s3 not found",
+			blocked:    stallCause{forecastingv1alpha1.ReasonMissingSecret, "run fenwick-1: spec.source.credentialsSecretRef: Secret planning/fenwick-s3 not found"},
 			wantReason: forecastingv1alpha1.ReasonMissingSecret, wantInMsg: "fenwick-s3 not found",
+		},
+		"image not allowed": {
+			blocked:    stallCause{forecastingv1alpha1.ReasonImageNotAllowed, ImageAllowlist{"registry.fenwick.example/almanac/"}.problem("busybox:1")},
+			wantReason: forecastingv1alpha1.ReasonImageNotAllowed, wantInMsg: `spec.trainer.image: "busybox:1"`,
 		},
 		"name too long for run names": {
 			mutate:     func(fp *forecastingv1alpha1.ForecastPortfolio) { fp.Name = strings.Repeat("f", 47) },
@@ -247,7 +251,7 @@ func TestPlanPortfolioStalled(t *testing.T) {
 			if tc.mutate != nil {
 				tc.mutate(fp)
 			}
-			p := planPortfolio(fp, nil, time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC), tc.secret)
+			p := planPortfolio(fp, nil, time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC), tc.blocked)
 			c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioStalled)
 			if c == nil || c.Status != metav1.ConditionTrue || c.Reason != tc.wantReason || !strings.Contains(c.Message, tc.wantInMsg) {
 				t.Fatalf("Stalled = %+v, want True/%s containing %q", c, tc.wantReason, tc.wantInMsg)
@@ -303,7 +307,7 @@ func TestPlanPortfolioDriftRun(t *testing.T) {
 				r.Spec.Trigger = forecastingv1alpha1.TriggerDrift
 				runs = append(runs, r)
 			}
-			p := planPortfolio(fp, runs, tc.now, "")
+			p := planPortfolio(fp, runs, tc.now, stallCause{})
 			c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
 			if c == nil || c.Status != metav1.ConditionTrue {
 				t.Fatalf("AccuracyDrift = %+v, want True", c)

@@ -29,17 +29,12 @@ import (
 	"almanac.dev/almanac/trainer/summary"
 )
 
-// secretRetry is how soon a run or portfolio waiting for its credentials Secret looks again:
-// the controller may only get Secrets, not watch them.
-const secretRetry = 30 * time.Second
-
 // RunReconciler drives a ForecastRun through its steps: ConfigMap, Job plan, Indexed Job train,
 // Job publish. It folds each finished shard's termination-message summary into the run status
 // exactly once and shares the manager's budget of concurrent shards among all active runs.
 type RunReconciler struct {
 	client.Client
-	// APIReader reads around the cache: Secret metadata (never cached, never listed) and pods
-	// that the cache has not seen yet.
+	// APIReader reads around the cache: pods that the cache has not seen yet.
 	APIReader client.Reader
 	Scheme    *runtime.Scheme
 	Recorder  recorder.EventRecorder
@@ -48,6 +43,8 @@ type RunReconciler struct {
 	// MaxConcurrentShards is the manager's budget of train pods across all active runs
 	// (--max-concurrent-shards); 0 or less means unlimited.
 	MaxConcurrentShards int32
+	// Images is the install's allowlist of trainer images (empty: any).
+	Images ImageAllowlist
 }
 
 // runEvent is an Event to emit once the status write succeeded.
@@ -70,7 +67,6 @@ func (w *runWork) event(kind, reason, format string, args ...any) {
 // +kubebuilder:rbac:groups=batch,resources=jobs,verbs=get;list;watch;create;patch;delete
 // +kubebuilder:rbac:groups="",resources=configmaps,verbs=get;list;watch;create
 // +kubebuilder:rbac:groups="",resources=pods,verbs=get;list;watch
-// +kubebuilder:rbac:groups="",resources=secrets,verbs=get
 // +kubebuilder:rbac:groups=events.k8s.io,resources=events,verbs=create;patch
 
 // Reconcile advances one run by as many steps as the cluster allows and writes its status once.
@@ -160,6 +156,19 @@ func (r *RunReconciler) advance(ctx context.Context, run *forecastingv1alpha1.Fo
 	if err := r.adopt(ctx, run, &fp); err != nil {
 		return err
 	}
+	if msg := r.Images.problem(fp.Spec.Trainer.Image); msg != "" {
+		// Whatever step the run is in, no more pods of this image: the install refuses it.
+		if err := r.deleteJobs(ctx, run); err != nil {
+			return err
+		}
+		r.finish(run, w, false, forecastingv1alpha1.ReasonImageNotAllowed, msg)
+		return nil
+	}
+	if progressStep(st) != "" {
+		if err := r.checkPodConfig(ctx, run, &fp, w); err != nil {
+			return err
+		}
+	}
 	switch progressStep(st) {
 	case "":
 		return r.start(ctx, run, &fp, w)
@@ -211,7 +220,8 @@ func (r *RunReconciler) previousRun(ctx context.Context, run *forecastingv1alpha
 	return "", nil
 }
 
-// start renders the ConfigMap, checks the credentials Secret and creates the plan Job.
+// start renders the ConfigMap and creates the plan Job (a missing credentials Secret shows on
+// the plan pod: checkPodConfig).
 func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
 	st := w.status
 	var cm corev1.ConfigMap
@@ -241,13 +251,6 @@ func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.Fore
 	}
 	st.ConfigMapName = configMapName(run.Name)
 	st.Output = strings.TrimSuffix(fp.Spec.Output.URI, "/") + "/runs/" + run.Name + "/"
-	if msg, err := r.secretProblem(ctx, fp); err != nil {
-		return err
-	} else if msg != "" {
-		r.waiting(run, w, forecastingv1alpha1.ReasonMissingSecret, msg)
-		w.requeue = secretRetry
-		return nil
-	}
 	if err := r.createOwned(ctx, run, buildJob(fp, run, stepPlan, jobParams{})); err != nil {
 		return err
 	}
@@ -482,26 +485,6 @@ func (r *RunReconciler) readStep(ctx context.Context, run *forecastingv1alpha1.F
 		return summary.Summary{}, false, err
 	}
 	return stepSummary(pods, kind)
-}
-
-// secretProblem says what is wrong with the portfolio's credentials Secret, or "" when it exists
-// (or none is named). It reads only the Secret's metadata, around the cache.
-func (r *RunReconciler) secretProblem(ctx context.Context, fp *forecastingv1alpha1.ForecastPortfolio) (string, error) {
-	return secretProblem(ctx, r.APIReader, fp)
-}
-
-func secretProblem(ctx context.Context, reader client.Reader, fp *forecastingv1alpha1.ForecastPortfolio) (string, error) {
-	ref := fp.Spec.Source.CredentialsSecretRef
-	if ref == nil {
-		return "", nil
-	}
-	var s metav1.PartialObjectMetadata
-	s.SetGroupVersionKind(corev1.SchemeGroupVersion.WithKind("Secret"))
-	err := reader.Get(ctx, types.NamespacedName{Namespace: fp.Namespace, Name: ref.Name}, &s)
-	if apierrors.IsNotFound(err) {
-		return fmt.Sprintf("spec.source.credentialsSecretRef: Secret %s/%s not found", fp.Namespace, ref.Name), nil
-	}
-	return "", err
 }
 
 // deleteJobs deletes the run's Jobs; background propagation lets the garbage collector remove

@@ -11,6 +11,7 @@ import (
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/utils/clock"
 	ctrl "sigs.k8s.io/controller-runtime"
+	"sigs.k8s.io/controller-runtime/pkg/builder"
 	"sigs.k8s.io/controller-runtime/pkg/cache"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 	"sigs.k8s.io/controller-runtime/pkg/controller"
@@ -40,6 +41,9 @@ type Options struct {
 	Metrics *Metrics
 	// RunWorkers is the number of concurrent run reconciles (default 2).
 	RunWorkers int
+	// Images is the install's allowlist of trainer images (--trainer-image-prefixes); empty
+	// allows any image.
+	Images ImageAllowlist
 	// Wrap, when set, wraps each reconciler (named "forecastrun" or "forecastportfolio"), e.g.
 	// to time reconciles in the benchmark.
 	Wrap func(name string, r reconcile.Reconciler) reconcile.Reconciler
@@ -72,8 +76,8 @@ func CacheOptions(namespaces []string) (cache.Options, error) {
 }
 
 // slimPod keeps only what the run controller reads from a trainer pod (metadata without
-// managed fields, the phase and each container's terminated state), so a run of many shards
-// costs the cache little memory per pod.
+// managed fields, the phase, each container's terminated state and a CreateContainerConfigError
+// waiting state), so a run of many shards costs the cache little memory per pod.
 func slimPod(obj any) (any, error) {
 	pod, ok := obj.(*corev1.Pod)
 	if !ok {
@@ -83,8 +87,11 @@ func slimPod(obj any) (any, error) {
 	slim.ManagedFields = nil
 	slim.Status.Phase = pod.Status.Phase
 	for _, cs := range pod.Status.ContainerStatuses {
-		slim.Status.ContainerStatuses = append(slim.Status.ContainerStatuses,
-			corev1.ContainerStatus{Name: cs.Name, State: corev1.ContainerState{Terminated: cs.State.Terminated}})
+		state := corev1.ContainerState{Terminated: cs.State.Terminated}
+		if w := cs.State.Waiting; w != nil && w.Reason == waitingConfigError {
+			state.Waiting = w
+		}
+		slim.Status.ContainerStatuses = append(slim.Status.ContainerStatuses, corev1.ContainerStatus{Name: cs.Name, State: state})
 	}
 	return slim, nil
 }
@@ -110,10 +117,14 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 		func(obj client.Object) []string { return podShardKeys(obj.(*corev1.Pod)) }); err != nil {
 		return fmt.Errorf("index pods by shard: %w", err)
 	}
+	if err := mgr.GetFieldIndexer().IndexField(ctx, &corev1.Pod{}, IndexPodConfigError,
+		func(obj client.Object) []string { return podConfigErrorKeys(obj.(*corev1.Pod)) }); err != nil {
+		return fmt.Errorf("index pods by configuration error: %w", err)
+	}
 	runs := &RunReconciler{
 		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
 		Recorder: mgr.GetEventRecorder("almanac-run"), Clock: o.Clock, Metrics: o.Metrics,
-		MaxConcurrentShards: o.MaxConcurrentShards,
+		MaxConcurrentShards: o.MaxConcurrentShards, Images: o.Images,
 	}
 	// A portfolio change (created late, history limits, ...) wakes its unfinished runs.
 	portfolioToRuns := handler.EnqueueRequestsFromMapFunc(func(ctx context.Context, obj client.Object) []reconcile.Request {
@@ -133,6 +144,9 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 	if err := ctrl.NewControllerManagedBy(mgr).
 		For(&forecastingv1alpha1.ForecastRun{}).
 		Owns(&batchv1.Job{}).
+		// A trainer pod entering or leaving CreateContainerConfigError (a missing Secret)
+		// changes no Job status, so the pods themselves wake the run.
+		Watches(&corev1.Pod{}, handler.EnqueueRequestsFromMapFunc(podToRun), builder.WithPredicates(podConfigErrorChanged())).
 		Watches(&forecastingv1alpha1.ForecastPortfolio{}, portfolioToRuns).
 		WithOptions(controller.Options{MaxConcurrentReconciles: o.RunWorkers}).
 		Named("forecastrun").
@@ -140,8 +154,9 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 		return err
 	}
 	portfolios := &PortfolioReconciler{
-		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
+		Client: mgr.GetClient(), Scheme: mgr.GetScheme(),
 		Recorder: mgr.GetEventRecorder("almanac-portfolio"), Clock: o.Clock, Metrics: o.Metrics,
+		Images: o.Images,
 	}
 	// Every run, manual ones included before they are adopted, wakes its portfolio.
 	runToPortfolio := handler.EnqueueRequestsFromMapFunc(func(_ context.Context, obj client.Object) []reconcile.Request {

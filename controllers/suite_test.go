@@ -126,6 +126,10 @@ type testManager struct {
 
 var suiteMetrics *Metrics
 
+// suiteImages is the managers' trainer image allowlist: the repository every test portfolio
+// names (security_test.go names another one to see it refused).
+var suiteImages = ImageAllowlist{"registry.example/almanac-trainer"}
+
 // startManager starts the controllers with the given shard budget and the suite's fake clock.
 func startManager(budget int32) *testManager {
 	if suiteMetrics == nil {
@@ -145,7 +149,8 @@ func startManager(budget int32) *testManager {
 	})
 	Expect(err).NotTo(HaveOccurred())
 	ctx, cancel := context.WithCancel(context.Background())
-	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: suiteMetrics})).To(Succeed())
+	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: suiteMetrics,
+		Images: suiteImages})).To(Succeed())
 	tm := &testManager{cancel: cancel, done: make(chan struct{}), metrics: suiteMetrics, metricsAddr: addr}
 	go func() {
 		defer GinkgoRecover()

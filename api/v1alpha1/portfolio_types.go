@@ -382,8 +382,9 @@ type DataSource struct {
 	Partitioning Partitioning `json:"partitioning,omitempty"`
 
 	// credentialsSecretRef names a Secret in the portfolio's namespace whose keys are passed to
-	// the trainer pods as environment variables (e.g. AWS_ACCESS_KEY_ID). The controller only
-	// checks that it exists; it never reads the data.
+	// the trainer pods as environment variables (e.g. AWS_ACCESS_KEY_ID). The controller has no
+	// right to read it; a missing Secret shows as the run's Stalled condition (MissingSecret)
+	// once a trainer pod cannot start.
 	// +optional
 	CredentialsSecretRef *SecretReference `json:"credentialsSecretRef,omitempty"`
 }

@@ -61,6 +61,10 @@ const (
 	RunDegraded = "Degraded"
 	// RunProgressing is True while the run's Jobs are working.
 	RunProgressing = "Progressing"
+	// RunStalled is True while a trainer pod cannot start for a reason a user must fix (its
+	// container waits in CreateContainerConfigError, e.g. the credentials Secret is missing);
+	// absent otherwise. The run goes on by itself once the pod starts.
+	RunStalled = "Stalled"
 )
 
 // Condition reasons of a ForecastRun, shared with Events.
@@ -85,6 +89,12 @@ const (
 	// ReasonPublishRefused: the publish guard (spec.publish) found too few forecasts; the run
 	// published nothing and the portfolio's latest forecasts are the previous run's.
 	ReasonPublishRefused = "PublishRefused"
+	// ReasonPodConfigError: a trainer pod's container waits in CreateContainerConfigError for
+	// a reason other than a missing credentials Secret (the message quotes the kubelet).
+	ReasonPodConfigError = "PodConfigError"
+	// ReasonImageNotAllowed: spec.trainer.image is not in the install's allowed trainer images
+	// (the controller's --trainer-image-prefixes); shared with the portfolio's Stalled condition.
+	ReasonImageNotAllowed = "ImageNotAllowed"
 )
 
 // ForecastRunStatus is the observed state of a run.

@@ -119,13 +119,10 @@ func restrictedNamespace(name string) *unstructured.Unstructured {
 	}}
 }
 
-// TestServerSideApply applies each install path to a real kube-apiserver: a dry run of every
-// object first, then for real, then a second time, which must change nothing.
-func TestServerSideApply(t *testing.T) {
-	if os.Getenv("KUBEBUILDER_ASSETS") == "" {
-		t.Skip("KUBEBUILDER_ASSETS is not set: run `make controlplane` and `make test` (CI always sets it)")
-	}
-	env := &envtest.Environment{}
+// startEnvtest starts env (etcd and kube-apiserver), stops it when the test ends, and returns
+// it with the admin's rest config.
+func startEnvtest(t *testing.T, env *envtest.Environment) (*envtest.Environment, *rest.Config) {
+	t.Helper()
 	cfg, err := env.Start()
 	if err != nil {
 		t.Fatalf("start envtest: %v", err)
@@ -135,6 +132,16 @@ func TestServerSideApply(t *testing.T) {
 			t.Errorf("stop envtest: %v", err)
 		}
 	})
+	return env, cfg
+}
+
+// TestServerSideApply applies each install path to a real kube-apiserver: a dry run of every
+// object first, then for real, then a second time, which must change nothing.
+func TestServerSideApply(t *testing.T) {
+	if os.Getenv("KUBEBUILDER_ASSETS") == "" {
+		t.Skip("KUBEBUILDER_ASSETS is not set: run `make controlplane` and `make test` (CI always sets it)")
+	}
+	_, cfg := startEnvtest(t, &envtest.Environment{})
 	ctx := context.Background()
 	// Every warning the API server sends back (deprecated API versions, Pod Security
 	// violations of a Deployment's template, unknown fields...) fails the install it came from.

@@ -129,6 +129,8 @@ func TestChartDefaults(t *testing.T) {
 		"Service fenwick-system/fenwick-controller-manager-metrics",
 		"ServiceAccount fenwick-system/almanac-trainer",
 		"ServiceAccount fenwick-system/fenwick-controller-manager",
+		"ValidatingAdmissionPolicy /fenwick-portfolio-references",
+		"ValidatingAdmissionPolicyBinding /fenwick-portfolio-references",
 	}
 	if got := kindsAndNames(objs); !slices.Equal(got, want) {
 		t.Errorf("objects:\n got %q\nwant %q", got, want)

@@ -33,16 +33,7 @@ func TestControllerImageRuns(t *testing.T) {
 	needSandbox(t)
 	img, root, work := unpackForSandbox(t, dir, "almanac-controller")
 
-	env := &envtest.Environment{CRDDirectoryPaths: []string{filepath.Join(repoRoot, "config", "crd", "bases")}, ErrorIfCRDPathMissing: true}
-	cfg, err := env.Start()
-	if err != nil {
-		t.Fatalf("start envtest: %v", err)
-	}
-	t.Cleanup(func() {
-		if err := env.Stop(); err != nil {
-			t.Errorf("stop envtest: %v", err)
-		}
-	})
+	env, cfg := startEnvtest(t, &envtest.Environment{CRDDirectoryPaths: []string{filepath.Join(repoRoot, "config", "crd", "bases")}, ErrorIfCRDPathMissing: true})
 	user, err := env.AddUser(envtest.User{Name: "almanac-image-test", Groups: []string{"system:masters"}}, nil)
 	if err != nil {
 		t.Fatal(err)

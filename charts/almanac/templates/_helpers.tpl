@@ -64,11 +64,6 @@ ClusterRole (all namespaces) or one Role per watched namespace.
 - apiGroups: [""]
   resources: [pods]
   verbs: [get, list, watch]
-# Credentials Secrets: get only, to check that the Secret a portfolio names exists. No list or
-# watch, so the controller never caches Secrets; the data goes to the trainer pods by envFrom.
-- apiGroups: [""]
-  resources: [secrets]
-  verbs: [get]
 - apiGroups: [events.k8s.io]
   resources: [events]
   verbs: [create, patch]
