@@ -8,6 +8,7 @@ import (
 	"strings"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/coverage"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -45,29 +46,149 @@ func addCalibration(sums *forecastingv1alpha1.CalibrationSums, c summary.Calibra
 		return sums, fmt.Errorf("bias sum: %w", err)
 	}
 	out.BiasSum = bias
+	if err := addExpectation(out, c, sums == nil); err != nil {
+		return sums, err
+	}
 	out.Series += int64(c.Series)
 	out.Points += int64(c.Points)
 	return out, nil
 }
 
+// addExpectation folds the shard's expectation and pair counts into out (exact, as the other
+// sums). The run's sums carry an expectation only while every shard folded so far sent one:
+// first is true for the run's first shard, whose expectation (if any) starts the sums; a
+// later shard without one drops it.
+func addExpectation(out *forecastingv1alpha1.CalibrationSums, c summary.Calibration, first bool) error {
+	if !c.HasExpectation() || (!first && out.Expected == nil) {
+		out.Pairs, out.BelowPairs, out.Expected, out.ExpectedVariances, out.ExpectedPinballSums = 0, nil, nil, nil, nil
+		out.ExpectedBiasSum, out.BacktestSeries, out.BacktestPoints, out.BacktestActuals = "", 0, 0, 0
+		return nil
+	}
+	n := len(c.Levels)
+	if first {
+		out.BelowPairs, out.Expected = make([]int64, n), make([]string, n)
+		out.ExpectedVariances, out.ExpectedPinballSums = make([]string, n), make([]string, n)
+	}
+	for j := range n {
+		var err error
+		if out.Expected[j], err = addDecimal(out.Expected[j], c.Expected[j]); err != nil {
+			return fmt.Errorf("expected count of level %v: %w", c.Levels[j], err)
+		}
+		if out.ExpectedVariances[j], err = addDecimal(out.ExpectedVariances[j], c.ExpectedVar[j]); err != nil {
+			return fmt.Errorf("expected variance of level %v: %w", c.Levels[j], err)
+		}
+		if out.ExpectedPinballSums[j], err = addDecimal(out.ExpectedPinballSums[j], c.ExpectedPinballSum[j]); err != nil {
+			return fmt.Errorf("expected pinball sum of level %v: %w", c.Levels[j], err)
+		}
+		out.BelowPairs[j] += int64(c.BelowPairs[j])
+	}
+	b, err := addDecimal(out.ExpectedBiasSum, c.ExpectedBiasSum)
+	if err != nil {
+		return fmt.Errorf("expected bias sum: %w", err)
+	}
+	out.ExpectedBiasSum = b
+	out.Pairs += int64(c.Pairs)
+	out.BacktestSeries += int64(c.BacktestSeries)
+	out.BacktestPoints += int64(c.BacktestPoints)
+	out.BacktestActuals += int64(c.BacktestActuals)
+	return nil
+}
+
+// hasExpectation: the run's sums carry an expectation for every level.
+func hasExpectation(s *forecastingv1alpha1.CalibrationSums) bool {
+	n := len(s.Levels)
+	return len(s.Expected) == n && len(s.ExpectedVariances) == n && len(s.ExpectedPinballSums) == n && len(s.BelowPairs) == n
+}
+
+// ratFloat is the float64 nearest a decimal sum ("" is 0); ok false when it does not parse.
+func ratFloat(s string) (float64, bool) {
+	r, ok := new(big.Rat).SetString(orZero(s))
+	if !ok {
+		return 0, false
+	}
+	f, _ := r.Float64()
+	return f, true
+}
+
+// calibrationOf turns the run's exact sums into the float counts and sums coverage.Judge
+// reads (each sum rounded once, to the nearest float64). With nominal, or sums without an
+// expectation, the expectation is the levels themselves (Expected n·τ, no backtest variance)
+// but the pair counts are kept for the design effect.
+func calibrationOf(sums *forecastingv1alpha1.CalibrationSums, nominal bool) (summary.Calibration, error) {
+	c := summary.Calibration{Series: int(sums.Series), Points: int(sums.Points)}
+	n := len(sums.Levels)
+	if len(sums.Below) != n {
+		return c, fmt.Errorf("calibration sums have %d levels and %d counts", n, len(sums.Below))
+	}
+	for j, l := range sums.Levels {
+		tau, err := strconv.ParseFloat(l, 64)
+		if err != nil {
+			return c, fmt.Errorf("calibration level %q: %w", l, err)
+		}
+		c.Levels = append(c.Levels, tau)
+		c.Below = append(c.Below, int(sums.Below[j]))
+	}
+	if !hasExpectation(sums) {
+		return c, nil
+	}
+	c.Pairs = int(sums.Pairs)
+	c.BelowPairs, c.Expected, c.ExpectedVar, c.ExpectedPinballSum = make([]int, n), make([]float64, n), make([]float64, n), make([]float64, n)
+	for j := range n {
+		c.BelowPairs[j] = int(sums.BelowPairs[j])
+		c.Expected[j] = float64(sums.Points) * c.Levels[j]
+		if !nominal {
+			e, ok1 := ratFloat(sums.Expected[j])
+			v, ok2 := ratFloat(sums.ExpectedVariances[j])
+			if !ok1 || !ok2 {
+				return c, fmt.Errorf("expectation of level %s does not parse", sums.Levels[j])
+			}
+			c.Expected[j], c.ExpectedVar[j] = e, v
+		}
+	}
+	if !nominal {
+		c.BacktestSeries, c.BacktestPoints, c.BacktestActuals = int(sums.BacktestSeries), int(sums.BacktestPoints), int(sums.BacktestActuals)
+	}
+	return c, nil
+}
+
 // withCalibration adds the calibration block to an accuracy status: per level the realized
-// share below[j]/points and the mean scaled pinball loss pinballSums[j]/points, the widest
+// share below[j]/points, the mean scaled pinball loss pinballSums[j]/points, the promised share
+// expected[j]/points, the backtest's mean scaled pinball loss over the backtested series
+// (expectedPinballSums[j]/backtestActuals) and the design effect (coverage.Judge); the widest
 // band's coverage (below[last] − below[0]) / points against its nominal level
-// levels[last] − levels[0] (an actual at or below the lowest quantile is also at or below the
-// highest, the quantiles being increasing), and the mean scaled bias biasSum/points.
+// levels[last] − levels[0] and its promised share (an actual at or below the lowest quantile
+// is also at or below the highest, the quantiles being increasing); the mean scaled bias
+// biasSum/points and the backtest's expectedBiasSum/backtestActuals.
 func withCalibration(acc *forecastingv1alpha1.AccuracyStatus, sums *forecastingv1alpha1.CalibrationSums) {
 	if acc == nil || sums == nil || sums.Points == 0 {
 		return
 	}
 	n := new(big.Rat).SetInt64(sums.Points)
 	acc.Calibration = nil
+	withExp := hasExpectation(sums)
+	var judged []coverage.Level
+	if c, err := calibrationOf(sums, false); err == nil {
+		judged = coverage.Judge(c, 0.05) // the design effect does not depend on the rate
+	}
 	for j, l := range sums.Levels {
 		p, ok := new(big.Rat).SetString(orZero(sums.PinballSums[j]))
 		if !ok {
 			return
 		}
-		acc.Calibration = append(acc.Calibration, forecastingv1alpha1.QuantileCalibration{
-			Level: l, Realized: big.NewRat(sums.Below[j], sums.Points).FloatString(3), PinballLoss: p.Quo(p, n).FloatString(4)})
+		qc := forecastingv1alpha1.QuantileCalibration{
+			Level: l, Realized: big.NewRat(sums.Below[j], sums.Points).FloatString(3), PinballLoss: p.Quo(p, n).FloatString(4)}
+		if withExp {
+			if e, ok := new(big.Rat).SetString(orZero(sums.Expected[j])); ok {
+				qc.Expected = e.Quo(e, n).FloatString(3)
+			}
+			if e, ok := new(big.Rat).SetString(orZero(sums.ExpectedPinballSums[j])); ok && sums.BacktestActuals > 0 {
+				qc.ExpectedPinballLoss = e.Quo(e, new(big.Rat).SetInt64(sums.BacktestActuals)).FloatString(4)
+			}
+		}
+		if j < len(judged) {
+			qc.DesignEffect = strconv.FormatFloat(judged[j].DesignEffect, 'f', 2, 64)
+		}
+		acc.Calibration = append(acc.Calibration, qc)
 	}
 	if k := len(sums.Levels); k >= 2 {
 		lo, err1 := strconv.ParseFloat(sums.Levels[0], 64)
@@ -75,58 +196,59 @@ func withCalibration(acc *forecastingv1alpha1.AccuracyStatus, sums *forecastingv
 		if err1 == nil && err2 == nil && lo < 0.5 && hi > 0.5 {
 			acc.BandCoverage = big.NewRat(sums.Below[k-1]-sums.Below[0], sums.Points).FloatString(3)
 			acc.BandLevel = strconv.FormatFloat(hi-lo, 'f', 3, 64)
+			if withExp {
+				a, ok1 := new(big.Rat).SetString(orZero(sums.Expected[k-1]))
+				b, ok2 := new(big.Rat).SetString(orZero(sums.Expected[0]))
+				if ok1 && ok2 {
+					d := a.Sub(a, b)
+					acc.ExpectedBandCoverage = d.Quo(d, n).FloatString(3)
+				}
+			}
 		}
 	}
 	if b, ok := new(big.Rat).SetString(orZero(sums.BiasSum)); ok {
 		acc.Bias = b.Quo(b, n).FloatString(4)
 	}
+	if withExp && sums.BacktestActuals > 0 {
+		if b, ok := new(big.Rat).SetString(orZero(sums.ExpectedBiasSum)); ok {
+			acc.ExpectedBias = b.Quo(b, new(big.Rat).SetInt64(sums.BacktestActuals)).FloatString(4)
+		}
+		acc.BacktestSeries = sums.BacktestSeries
+	}
 	acc.CalibrationPoints = sums.Points
 }
 
-// minBinomialVariance is the least n·τ·(1−τ) for which a level's count is judged: the normal
-// approximation to the binomial is commonly used when this is at least 5 (common practice, a
-// textbook rule of thumb).
-const minBinomialVariance = 5
-
-// coverageTolerance is the z such that a calibrated forecast trips the calibration check with
-// probability at most alpha over L levels: if the n actuals are independent and the τ quantile
-// is right, the count k below it is Binomial(n, τ), approximately normal with mean n·τ and
-// variance n·τ·(1−τ) (de Moivre–Laplace), so P(|k − n·τ| > z·sqrt(n·τ·(1−τ))) ≈ 2(1 − Φ(z));
-// Bonferroni over L levels gives 2(1 − Φ(z)) = alpha/L, z = Φ⁻¹(1 − alpha/(2L)) =
-// sqrt(2)·erfinv(1 − alpha/L). Actuals of one series at several horizons are positively
-// correlated, which widens the true spread of k: the check then errs on the side of alarms.
-func coverageTolerance(alpha float64, levels int) float64 {
-	return math.Sqrt2 * math.Erfinv(1-alpha/float64(levels))
-}
-
 // calibrationVerdict judges a run's calibration and bias sums against spec.drift's
-// calibrationFalseAlarmPercent and maxBiasPercent (each only when set). fired is true with
-// the reason CalibrationOff or Biased and a message naming the levels or the bias.
+// calibrationFalseAlarmPercent (coverage.Judge: the promised counts of
+// calibrationExpectation, the design effect, the backtest's own sampling error) and
+// maxBiasPercent, each only when set. fired is true with the reason CalibrationOff or Biased
+// and a message naming the levels or the bias.
 func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecastingv1alpha1.DriftSpec) (fired bool, reason, message string) {
 	if sums == nil || sums.Points == 0 {
 		return false, "", ""
 	}
-	n := float64(sums.Points)
 	if spec.CalibrationFalseAlarmPercent > 0 {
-		z := coverageTolerance(float64(spec.CalibrationFalseAlarmPercent)/100, len(sums.Levels))
-		var off []string
-		for j, l := range sums.Levels {
-			tau, err := strconv.ParseFloat(l, 64)
-			if err != nil {
-				continue
+		nominal := spec.CalibrationExpectation == forecastingv1alpha1.ExpectationNominal
+		c, err := calibrationOf(sums, nominal)
+		if err == nil {
+			alpha := float64(spec.CalibrationFalseAlarmPercent) / 100
+			var off []string
+			for j, l := range coverage.Judge(c, alpha) {
+				if !l.Off {
+					continue
+				}
+				what := "the level"
+				if !l.Nominal && !nominal {
+					what = "promised"
+				}
+				off = append(off, fmt.Sprintf("%d of %d actuals at or below the %s quantile (%.3f), %s %.3f ± %.3f (design effect %.2f)",
+					sums.Below[j], sums.Points, sums.Levels[j], l.Realized, what, l.Expected, l.Tolerance, l.DesignEffect))
 			}
-			v := n * tau * (1 - tau)
-			if v < minBinomialVariance {
-				continue
+			if len(off) > 0 {
+				return true, forecastingv1alpha1.ReasonCalibrationOff,
+					fmt.Sprintf("calibration off (false-alarm rate %d%%, z = %.2f): %s", spec.CalibrationFalseAlarmPercent,
+						coverage.Z(alpha, len(sums.Levels)), strings.Join(off, "; "))
 			}
-			if d := float64(sums.Below[j]) - n*tau; math.Abs(d) > z*math.Sqrt(v) {
-				off = append(off, fmt.Sprintf("%d of %d actuals at or below the %s quantile, expected %.0f ± %.0f",
-					sums.Below[j], sums.Points, l, n*tau, z*math.Sqrt(v)))
-			}
-		}
-		if len(off) > 0 {
-			return true, forecastingv1alpha1.ReasonCalibrationOff,
-				fmt.Sprintf("calibration off (false-alarm rate %d%%, z = %.2f): %s", spec.CalibrationFalseAlarmPercent, z, strings.Join(off, "; "))
 		}
 	}
 	if spec.MaxBiasPercent > 0 {

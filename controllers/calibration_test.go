@@ -11,6 +11,7 @@ import (
 	"github.com/google/go-cmp/cmp"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/trainer/coverage"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/summary"
@@ -26,6 +27,12 @@ const z90 = 1.2815515655446004
 // being mean 100+shift with quantiles 0.1, 0.5, 0.9 at 100+shift + (−z90, 0, z90)·10·width.
 // width 1 is the true law (calibrated); width < 1 an overconfident member.
 func gaussianShards(t fatalHelper, shards, n int, width, shift float64, seed uint64) []summary.Calibration {
+	return promisedShards(t, shards, n, width, shift, seed, nil)
+}
+
+// promisedShards is gaussianShards with every series promising the backtest record promised
+// (nil: none, the levels are the promise).
+func promisedShards(t fatalHelper, shards, n int, width, shift float64, seed uint64, promised *tables.Calibration) []summary.Calibration {
 	t.Helper()
 	rng := rand.New(rand.NewPCG(seed, 2))
 	start := time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC)
@@ -44,7 +51,7 @@ func gaussianShards(t fatalHelper, shards, n int, width, shift float64, seed uin
 				rows = append(rows, tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(24 + k), Step: k + 1, Mean: m,
 					Quantiles: []float64{m - z90*10*width, m, m + z90*10*width}})
 			}
-			c, ok := pipeline.Calibrate(s, rows, levels, false, nil)
+			c, ok := pipeline.Calibrate(s, rows, levels, false, promised)
 			if !ok {
 				t.Fatalf("%s: not calibrated", s.Key)
 			}
@@ -82,8 +89,8 @@ func TestCoverageTolerance(t *testing.T) {
 		levels int
 		want   float64
 	}{{0.01, 1, 2.5758}, {0.01, 3, 2.9352}, {0.05, 1, 1.9600}} {
-		if got := coverageTolerance(tc.alpha, tc.levels); math.Abs(got-tc.want) > 5e-4 {
-			t.Errorf("coverageTolerance(%v, %d) = %.4f, want %.4f", tc.alpha, tc.levels, got, tc.want)
+		if got := coverage.Z(tc.alpha, tc.levels); math.Abs(got-tc.want) > 5e-4 {
+			t.Errorf("coverage.Z(%v, %d) = %.4f, want %.4f", tc.alpha, tc.levels, got, tc.want)
 		}
 	}
 }
@@ -112,7 +119,7 @@ func TestGaussianBandCoverage(t *testing.T) {
 	if err != nil || acc.BandLevel != "0.800" {
 		t.Fatalf("band coverage %q level %q", acc.BandCoverage, acc.BandLevel)
 	}
-	tol := coverageTolerance(0.01, 1) * math.Sqrt(0.8*0.2/n)
+	tol := coverage.Z(0.01, 1) * math.Sqrt(0.8*0.2/n)
 	t.Logf("80%% band coverage %s over %v actuals (tolerance ±%.4f); per level %+v; bias %s", acc.BandCoverage, n, tol, acc.Calibration, acc.Bias)
 	if math.Abs(cov-0.8) > tol+0.0005 { // 0.0005: BandCoverage is rounded to 3 places
 		t.Errorf("coverage %.3f is outside 0.8 ± %.4f", cov, tol)
@@ -188,5 +195,58 @@ func TestStabilityFoldAndStatus(t *testing.T) {
 	}
 	if _, err := addStability(s1, summary.Stability{Series: 1, Points: 1, MovementSum: math.Inf(1)}); err == nil {
 		t.Errorf("no error for an infinite sum")
+	}
+}
+
+// TestBacktestExpectation: a member whose bands are a third as wide as they should be (true
+// coverage of the 80% band 2Φ(z90/3) − 1 ≈ 0.33; 0.1 quantile share Φ(−z90/3) ≈ 0.335) and
+// whose own backtest showed exactly that (each series promising 0.335, 0.5, 0.665 over 24
+// backtest points) covers the new actuals as promised: drift judged against the backtest
+// (the default) does not fire, judged against the nominal levels it does. The status shows
+// the promise beside the realized share and the design effect (independent actuals: about 1).
+// A shard from a trainer without an expectation drops it from the run's sums.
+func TestBacktestExpectation(t *testing.T) {
+	promised := &tables.Calibration{Levels: []float64{0.1, 0.5, 0.9}, Points: 24, Below: []int{8, 12, 16}, Pinball: []float64{0.2, 0.4, 0.2}, Bias: 0}
+	shards := promisedShards(t, 4, 100, 1.0/3, 0, 21, promised)
+	sums := foldCalibration(t, shards, []int{0, 1, 2, 3})
+	if diff := cmp.Diff(sums, foldCalibration(t, shards, []int{2, 0, 3, 1})); diff != "" {
+		t.Fatalf("fold order matters:\n%s", diff)
+	}
+	if sums.BacktestSeries != 400 || sums.BacktestPoints != 400*24 || sums.BacktestActuals != 2400 || sums.Pairs != 400*6*5 {
+		t.Fatalf("backtest sums %d series, %d points, %d actuals, %d pairs", sums.BacktestSeries, sums.BacktestPoints, sums.BacktestActuals, sums.Pairs)
+	}
+	backtest := forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1}
+	if fired, reason, msg := calibrationVerdict(sums, backtest); fired {
+		t.Errorf("judged against its backtest: %s %s", reason, msg)
+	}
+	nominal := backtest
+	nominal.CalibrationExpectation = forecastingv1alpha1.ExpectationNominal
+	if fired, reason, msg := calibrationVerdict(sums, nominal); !fired || reason != forecastingv1alpha1.ReasonCalibrationOff {
+		t.Errorf("judged against the levels: fired %v %q %s", fired, reason, msg)
+	} else {
+		t.Log(msg)
+	}
+	acc := &forecastingv1alpha1.AccuracyStatus{}
+	withCalibration(acc, sums)
+	t.Logf("status %+v band %s promised %s", acc.Calibration, acc.BandCoverage, acc.ExpectedBandCoverage)
+	if acc.Calibration[0].Expected != "0.333" || acc.ExpectedBandCoverage != "0.333" || acc.BacktestSeries != 400 ||
+		acc.Calibration[1].ExpectedPinballLoss != "0.4000" || acc.ExpectedBias != "0.0000" {
+		t.Errorf("status %+v, expected band %q, backtest series %d", acc.Calibration, acc.ExpectedBandCoverage, acc.BacktestSeries)
+	}
+	for _, q := range acc.Calibration {
+		if d, _ := strconv.ParseFloat(q.DesignEffect, 64); d < 1 || d > 1.3 {
+			t.Errorf("level %s: design effect %s for independent actuals", q.Level, q.DesignEffect)
+		}
+	}
+	// A calibrated member judged against the same (wrong) promise is off: it covers 80%, the
+	// backtest promised 33%.
+	if fired, _, msg := calibrationVerdict(foldCalibration(t, promisedShards(t, 4, 100, 1, 0, 22, promised), []int{0, 1, 2, 3}), backtest); !fired {
+		t.Errorf("coverage moved from the backtest's 0.33 to 0.8 without drift (%s)", msg)
+	}
+	old := shards[2]
+	old.Pairs, old.BelowPairs, old.Expected, old.ExpectedVar, old.ExpectedPinballSum = 0, nil, nil, nil, nil
+	mixed := foldCalibration(t, []summary.Calibration{shards[0], shards[1], old, shards[3]}, []int{0, 1, 2, 3})
+	if mixed.Expected != nil || mixed.BacktestSeries != 0 || mixed.Points != sums.Points {
+		t.Errorf("a shard without expectation: sums %+v", mixed)
 	}
 }

@@ -25,6 +25,7 @@ import (
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/tables"
 )
 
 // yearly is a schedule the tests never reach, for tests about manual runs.
@@ -420,6 +421,43 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(err).NotTo(HaveOccurred())
 		Expect(cov).To(BeNumerically("<", 0.5))
 		Eventually(eventReasonsFor(ns, "fenwick-bands")).Should(ContainElement(forecastingv1alpha1.ReasonCalibrationOff))
+	})
+
+	It("judges coverage against what the backtest promised", func() {
+		ns := newNamespace()
+		createSecret(ns)
+		testPortfolio(ns, "fenwick-promise", yearly, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Drift.CalibrationFalseAlarmPercent = 1
+		})
+		manualRun(ns, "fenwick-promise-1", "fenwick-promise")
+		succeedSingle(ns, "fenwick-promise-1", stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 2})
+		train := getJob(ns, "fenwick-promise-1", stepTrain)
+		// The same overconfident member (band a third as wide as the noise's), but its own
+		// backtest showed it: every series promises shares 8, 12 and 16 of 24 backtest points
+		// (0.333, 0.5, 0.667). Judged against that promise (the default), it is not off.
+		promised := &tables.Calibration{Levels: []float64{0.1, 0.5, 0.9}, Points: 24, Below: []int{8, 12, 16}, Pinball: []float64{0.2, 0.4, 0.2}}
+		cal := promisedShards(GinkgoT(), 2, 50, 1.0/3, 0, 23, promised)
+		finishShards(train, []int{0, 1}, nil, func(i int) summary.Summary {
+			s := shardSummary(i)
+			s.Calibration = &cal[i]
+			return s
+		})
+		completeJob(train)
+		succeedSingle(ns, "fenwick-promise-1", stepPublish, summary.Summary{Kind: summary.KindPublish})
+		Eventually(phaseOf(ns, "fenwick-promise-1")).Should(Equal(forecastingv1alpha1.PhaseSucceeded))
+		fp := getPortfolio(ns, "fenwick-promise")
+		Eventually(conditionOf(fp, forecastingv1alpha1.PortfolioAccuracyDrift)).Should(HavePrefix("False/"))
+		run := getRun(ns, "fenwick-promise-1")
+		Expect(run.Status.Accuracy.ExpectedBandCoverage).To(Equal("0.333"))
+		Expect(run.Status.Accuracy.BacktestSeries).To(BeEquivalentTo(100))
+		Expect(run.Status.Accuracy.Calibration[0].Expected).To(Equal("0.333"))
+		// Against the nominal levels the same sums are off.
+		Eventually(func() error {
+			fp := getPortfolio(ns, "fenwick-promise")
+			fp.Spec.Drift.CalibrationExpectation = forecastingv1alpha1.ExpectationNominal
+			return k8sClient.Update(ctx(), fp)
+		}).Should(Succeed())
+		Eventually(conditionOf(fp, forecastingv1alpha1.PortfolioAccuracyDrift)).Should(Equal("True/CalibrationOff"))
 	})
 
 	It("counts each shard once across a manager restart mid-run", func() {

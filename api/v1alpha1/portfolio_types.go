@@ -774,15 +774,27 @@ type DriftSpec struct {
 	Aggregate DriftAggregate `json:"aggregate,omitempty"`
 
 	// calibrationFalseAlarmPercent, when set, also calls drift when the published quantiles
-	// are miscalibrated: for some level τ the count k of new actuals at or below the τ
-	// quantile is outside n·τ ± z·sqrt(n·τ·(1−τ)) over n actuals (the binomial error of the
-	// count), with z the normal quantile that makes a calibrated forecast trip this with at
-	// most this percent chance over all levels (Bonferroni). Levels with n·τ·(1−τ) < 5 are
-	// not judged. Absent: calibration is reported, not judged.
+	// did not cover the new actuals as promised: for some level τ the count k of the n new
+	// actuals at or below the τ quantile is outside E ± z·sqrt(deff·n·p(1−p) + V), E the
+	// promised count (calibrationExpectation), p = E/n, deff Kish's design effect for the
+	// correlation of one series' actuals across the horizon (estimated from the actuals), V
+	// the sampling variance of a backtest promise, and z the normal quantile that makes a
+	// forecast as good as promised trip this with at most this percent chance over all levels
+	// (Bonferroni). Levels with an effective n·p·(1−p) < 5 are not judged. Absent:
+	// calibration is reported, not judged.
 	// +optional
 	// +kubebuilder:validation:Minimum=1
 	// +kubebuilder:validation:Maximum=20
 	CalibrationFalseAlarmPercent int32 `json:"calibrationFalseAlarmPercent,omitempty"`
+
+	// calibrationExpectation is what the coverage is judged against: Backtest (default), per
+	// series the share its published quantiles covered on its own rolling-origin backtest
+	// (the level itself for a series without one), so drift means "covers differently from
+	// when it was trained"; or Nominal, the levels themselves, so drift means "the bands are
+	// not what they say", even when the backtest already showed it.
+	// +optional
+	// +kubebuilder:default=Backtest
+	CalibrationExpectation CalibrationExpectation `json:"calibrationExpectation,omitempty"`
 
 	// maxBiasPercent, when set, also calls drift when the mean scaled error (forecast −
 	// actual) / scale of the new actuals is beyond ± this percent of the scale. Absent: bias
@@ -803,6 +815,18 @@ type DriftSpec struct {
 	// +kubebuilder:validation:Minimum=0
 	CooldownSeconds *int64 `json:"cooldownSeconds,omitempty"`
 }
+
+// CalibrationExpectation is what realized coverage is compared with.
+// +kubebuilder:validation:Enum=Backtest;Nominal
+type CalibrationExpectation string
+
+// Expectations of drift.calibrationExpectation.
+const (
+	// ExpectationBacktest: each series' share on its own backtest, the level where it has none.
+	ExpectationBacktest CalibrationExpectation = "Backtest"
+	// ExpectationNominal: the quantile levels.
+	ExpectationNominal CalibrationExpectation = "Nominal"
+)
 
 // DriftAggregate combines per-series errors into one figure.
 // +kubebuilder:validation:Enum=GeometricMean;Mean
@@ -957,6 +981,18 @@ type AccuracyStatus struct {
 	// calibrationPoints is how many new actuals the calibration and bias are over.
 	// +optional
 	CalibrationPoints int64 `json:"calibrationPoints,omitempty"`
+	// expectedBandCoverage is the share the widest band promised on the same actuals (per
+	// series its backtest share, or bandLevel for a series without a backtest record).
+	// +optional
+	ExpectedBandCoverage string `json:"expectedBandCoverage,omitempty"`
+	// expectedBias is the mean scaled bias of the backtested series on their own backtest,
+	// weighted by their new actuals.
+	// +optional
+	ExpectedBias string `json:"expectedBias,omitempty"`
+	// backtestSeries is how many evaluated series promised their backtest share (the others
+	// promised the levels).
+	// +optional
+	BacktestSeries int64 `json:"backtestSeries,omitempty"`
 	// movement is the mean of |new − previous forecast| / scale over the periods both the run
 	// and the previous run forecast (movementPoints of them): how much the forecast moved, in
 	// MASE units (1: by one typical in-sample naive step).
@@ -983,6 +1019,19 @@ type QuantileCalibration struct {
 	// pinballLoss is the mean pinball loss scaled by the series' in-sample mean absolute naive
 	// error.
 	PinballLoss string `json:"pinballLoss"`
+	// expected is the share the forecasts promised at this level (per series its backtest
+	// share, or the level itself).
+	// +optional
+	Expected string `json:"expected,omitempty"`
+	// expectedPinballLoss is the mean scaled pinball loss on the backtest, over the series
+	// that have one.
+	// +optional
+	ExpectedPinballLoss string `json:"expectedPinballLoss,omitempty"`
+	// designEffect is Kish's design effect 1 + ρ·Σn_i(n_i−1)/Σn_i, with ρ the estimated
+	// correlation of this level's hits within a series: how much wider than the binomial the
+	// count's spread is.
+	// +optional
+	DesignEffect string `json:"designEffect,omitempty"`
 }
 
 // +kubebuilder:object:root=true

@@ -262,6 +262,35 @@ type CalibrationSums struct {
 	// +listType=atomic
 	PinballSums []string `json:"pinballSums"`
 	BiasSum     string   `json:"biasSum"`
+
+	// The expectation and what its tolerance needs (trainer/summary.Calibration): pairs sums
+	// n_i(n_i − 1) over series, belowPairs[j] the same of the per-series counts below level j,
+	// expected[j] the count the forecasts promised (per series its backtest share, or the
+	// level itself), expectedVariances[j] the sampling variance of that promise, and the
+	// backtest sums of the series whose promise came from their backtest. Absent when a shard's
+	// trainer did not send them (the levels themselves are then the expectation).
+	// +optional
+	Pairs int64 `json:"pairs,omitempty"`
+	// +optional
+	// +listType=atomic
+	BelowPairs []int64 `json:"belowPairs,omitempty"`
+	// +optional
+	// +listType=atomic
+	Expected []string `json:"expected,omitempty"`
+	// +optional
+	// +listType=atomic
+	ExpectedVariances []string `json:"expectedVariances,omitempty"`
+	// +optional
+	// +listType=atomic
+	ExpectedPinballSums []string `json:"expectedPinballSums,omitempty"`
+	// +optional
+	ExpectedBiasSum string `json:"expectedBiasSum,omitempty"`
+	// +optional
+	BacktestSeries int64 `json:"backtestSeries,omitempty"`
+	// +optional
+	BacktestPoints int64 `json:"backtestPoints,omitempty"`
+	// +optional
+	BacktestActuals int64 `json:"backtestActuals,omitempty"`
 }
 
 // StabilitySums are running sums (decimal string) of how far the run's new forecasts moved
