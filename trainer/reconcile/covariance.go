@@ -9,8 +9,10 @@ import (
 
 // varianceFloor is the smallest residual mean square a node gets, relative to the mean of the
 // positive ones: a node whose residuals are all zero (an exact fit, a constant zero series) is
-// then trusted almost exactly instead of making W singular.
-const varianceFloor = 1e-10
+// then trusted almost exactly instead of making W singular, and C W C' keeps a condition number
+// the solvers can work with (a floor of 1e-10 gave condition numbers near 1e11 and
+// rounding-driven cycles in the non-negative solver, found by FuzzReconcile).
+const varianceFloor = 1e-6
 
 // moments holds what the residual-based weights need: each node's residual count and mean
 // square. Residuals are base forecast errors, taken to have mean zero as the MinT derivation

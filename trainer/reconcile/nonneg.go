@@ -28,7 +28,9 @@ const nonNegTol = 1e-9
 // number of violations, only the violating series of largest index changes side (Murty's
 // rule), which ends in finitely many steps. The first period that needs it starts from
 // Z = {j : unconstrained b_j < 0}, each later one from the previous period's optimal Z
-// (neighbouring periods of one forecast mostly hold the same series at zero).
+// (neighbouring periods of one forecast mostly hold the same series at zero). Should rounding
+// bring back a held set already tried (an ill-conditioned C W C'), it stops there with the
+// negative free series set to 0, and Result.Note says so.
 func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 	bottom, _, err := p.solve(nil, ys)
 	if err != nil {
@@ -58,6 +60,7 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 		}
 		tolB := nonNegTol * math.Max(1, scale)
 		best, backup := math.MaxInt, 3
+		seen := map[string]bool{}
 		for ex := 1; ; ex++ {
 			if ex > limit {
 				return nil, fmt.Errorf("reconcile: non-negative reconciliation of period %d did not settle in %d exchanges", t, limit)
@@ -89,6 +92,15 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 					bad = append(bad, j)
 				}
 			}
+			key := fmt.Sprint(held)
+			if len(bad) > 0 && seen[key] {
+				// A held set seen before: exact arithmetic cannot return to one (Murty's
+				// rule), so rounding on an ill-conditioned system is flipping a series whose
+				// optimum is 0 up to that rounding. Stop at this iterate, made feasible.
+				p.cycles++
+				bad = nil
+			}
+			seen[key] = true
 			if len(bad) == 0 {
 				for j, v := range b {
 					b[j] = math.Max(0, v) // free series within tolerance of 0

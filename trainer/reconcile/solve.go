@@ -1,6 +1,7 @@
 package reconcile
 
 import (
+	"errors"
 	"fmt"
 	"math"
 
@@ -17,6 +18,12 @@ const (
 	cgTol     = 1e-11
 	cgMaxIter = 10000
 )
+
+// maxCond is the largest condition number of C W C' accepted from a residual covariance; above
+// it the multipliers would carry a relative error beyond about 1e-4 (1e-16 × maxCond), and the
+// method steps down to a better-conditioned W (see Reconcile). Diagonal weights are floored
+// (varianceFloor), which bounds their condition.
+const maxCond = 1e12
 
 // weight is the n × n weight matrix W of the projection.
 type weight interface {
@@ -115,6 +122,7 @@ type problem struct {
 	dense, cg bool
 	cgIters   int // most conjugate-gradient iterations one period needed
 	exchanges int // most active-set exchanges one period needed (NonNegative)
+	cycles    int // periods where the active set stopped at a rounding cycle
 }
 
 func newProblem(h Hierarchy, w weight, maxDense int) *problem {
@@ -143,6 +151,9 @@ func (p *problem) describe(nonNeg bool) string {
 	}
 	if nonNeg {
 		s = joinNote(s, fmt.Sprintf("non-negative by active set (at most %d exchanges)", p.exchanges))
+		if p.cycles > 0 {
+			s = joinNote(s, fmt.Sprintf("%d periods stopped at a rounding cycle, negative series set to 0", p.cycles))
+		}
 	}
 	return s
 }
@@ -237,7 +248,9 @@ func (p *problem) solve(zero []int, ys [][]float64) (bottom, mus [][]float64, er
 			rhs := make([]float64, r)
 			p.applyC(rhs, y, rows)
 			if chol != nil {
-				if err := chol.SolveVecTo(mat.NewVecDense(r, mu), mat.NewVecDense(r, rhs)); err != nil {
+				// A mat.Condition error is only a warning (the factor's condition number is
+				// checked in factor); the solution is written all the same.
+				if err := chol.SolveVecTo(mat.NewVecDense(r, mu), mat.NewVecDense(r, rhs)); err != nil && !errors.As(err, new(mat.Condition)) {
 					return nil, nil, fmt.Errorf("reconcile: solving C W C' at period %d: %w", t, err)
 				}
 			} else {
@@ -321,6 +334,11 @@ func (p *problem) factor(zero []int, r int) (*mat.Cholesky, error) {
 	}
 	var chol mat.Cholesky
 	if !chol.Factorize(m) {
+		return nil, errNotPositiveDefinite
+	}
+	if _, dense := p.w.(denseWeight); dense && chol.Cond() > maxCond {
+		// Numerically singular: a residual covariance with (near-)collinear nodes, such as an
+		// aggregate listed twice or one with a single child, under MinTSample.
 		return nil, errNotPositiveDefinite
 	}
 	return &chol, nil
