@@ -83,6 +83,7 @@ func RunConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alph
 		MinForecastPercent:       int(*pub.MinForecastPercent),
 		MinPreviousPercent:       int(*pub.MinPreviousPercent),
 		MaxCarriedForwardPercent: int(*pub.MaxCarriedForwardPercent),
+		MaxCarriedRuns:           int(*pub.MaxCarriedRuns),
 	}
 	if c.Trigger == "" {
 		c.Trigger = string(forecastingv1alpha1.TriggerManual)
@@ -155,6 +156,7 @@ func Missing(spec *forecastingv1alpha1.ForecastPortfolioSpec) []string {
 	check(spec.Publish.MinForecastPercent == nil, "publish.minForecastPercent")
 	check(spec.Publish.MinPreviousPercent == nil, "publish.minPreviousPercent")
 	check(spec.Publish.MaxCarriedForwardPercent == nil, "publish.maxCarriedForwardPercent")
+	check(spec.Publish.MaxCarriedRuns == nil, "publish.maxCarriedRuns")
 	check(spec.ConcurrencyPolicy == "", "concurrencyPolicy")
 	check(spec.SuccessfulRunsHistoryLimit == nil, "successfulRunsHistoryLimit")
 	check(spec.FailedRunsHistoryLimit == nil, "failedRunsHistoryLimit")

@@ -53,7 +53,7 @@ func TestRunConfig(t *testing.T) {
 		// Portfolio minimum 100 over all series; one series is judged on a full horizon (12).
 		Drift: runconfig.Drift{Metric: "MASE", ThresholdPercent: 125, MinEvaluatedPoints: 12},
 		// spec.publish left out: the API's defaults.
-		Publish: &runconfig.Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50},
+		Publish: &runconfig.Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50, MaxCarriedRuns: 3},
 	}
 	if diff := cmp.Diff(want, got); diff != "" {
 		t.Errorf("RunConfig (-want,+got):\n%s", diff)
@@ -248,7 +248,7 @@ func TestRunConfigFeatures(t *testing.T) {
 func TestRunConfigPublishGuard(t *testing.T) {
 	fp := fenwickSpec()
 	fp.Spec.Publish = forecastingv1alpha1.PublishSpec{MinForecastPercent: ptr.To[int32](0), MinPreviousPercent: ptr.To[int32](95),
-		MaxCarriedForwardPercent: ptr.To[int32](100)}
+		MaxCarriedForwardPercent: ptr.To[int32](100), MaxCarriedRuns: ptr.To[int32](0)}
 	got, err := RunConfig(rendertest.Default(fp), fenwickRun("fenwick-weekly-29933550"), "")
 	if err != nil {
 		t.Fatal(err)

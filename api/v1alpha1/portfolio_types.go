@@ -328,6 +328,18 @@ type PublishSpec struct {
 	// +kubebuilder:validation:Minimum=0
 	// +kubebuilder:validation:Maximum=100
 	MaxCarriedForwardPercent *int32 `json:"maxCarriedForwardPercent,omitempty"`
+
+	// maxCarriedRuns: a series that a run rejects (its rows are unusable, or no model could
+	// forecast it) keeps its previous forecast, marked in the forecasts table by the
+	// carried_runs and carried_from columns, for at most this many runs in a row; after that
+	// it has no forecast until a run accepts it again. 0 turns per-series carry-forward off.
+	// Carried series do not count as forecast for minForecastPercent and minPreviousPercent,
+	// and at most maxCarriedForwardPercent of the planned series may be carried. Default 3.
+	// +optional
+	// +kubebuilder:default=3
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=100
+	MaxCarriedRuns *int32 `json:"maxCarriedRuns,omitempty"`
 }
 
 // DataSource locates the input table (long format: one row per series and period).

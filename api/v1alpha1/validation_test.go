@@ -106,6 +106,7 @@ var _ = Describe("CRD validation", func() {
 		Expect(*fp.Spec.Publish.MinForecastPercent).To(Equal(int32(80)))
 		Expect(*fp.Spec.Publish.MinPreviousPercent).To(Equal(int32(80)))
 		Expect(*fp.Spec.Publish.MaxCarriedForwardPercent).To(Equal(int32(50)))
+		Expect(*fp.Spec.Publish.MaxCarriedRuns).To(Equal(int32(3)))
 	})
 
 	It("accepts a full features declaration and keeps it as written", func() {

@@ -26,6 +26,11 @@ var ErrRefused = errors.New("too few forecasts to publish")
 //	published * 100 >= g.MinForecastPercent * (series plan counted)
 //	published * 100 >= g.MinPreviousPercent * (series the previous run published), when there is one
 //	(carried-forward + missing units) * 100 <= g.MaxCarriedForwardPercent * (units)
+//	(series carried forward one by one) * 100 <= g.MaxCarriedForwardPercent * (series plan counted)
+//
+// A series carried forward one by one (carryForward) was rejected by this run: it counts in
+// the last check and not as forecast in the first two, so carrying cannot hide a run that lost
+// its series.
 //
 // Integer arithmetic, so 80% of 5 series needs 4, not 3.99. The thresholds are our own
 // choice (PROJECT-NOTES, sixth session: publish guard), not from a source.
@@ -43,6 +48,10 @@ func guard(g runconfig.Publish, p *Plan, prev *Manifest, m *Manifest) string {
 	if away := m.Totals.CarriedForward + m.Totals.Missing; away*100 > g.MaxCarriedForwardPercent*m.Totals.Units {
 		why = append(why, fmt.Sprintf("%d of %d units carried forward or missing, the guard allows %d%% (publish.maxCarriedForwardPercent)",
 			away, m.Totals.Units, g.MaxCarriedForwardPercent))
+	}
+	if c := m.Totals.Series.Carried; c*100 > g.MaxCarriedForwardPercent*p.Series {
+		why = append(why, fmt.Sprintf("%d of %d planned series carried forward one by one, the guard allows %d%% (publish.maxCarriedForwardPercent)",
+			c, p.Series, g.MaxCarriedForwardPercent))
 	}
 	return strings.Join(why, "; ")
 }

@@ -93,7 +93,11 @@ func Inspect(ctx context.Context, outputURI, run string, w io.Writer) error {
 	fmt.Fprintf(w, "units: %d (%d trained, %d carried forward, %d missing)\n",
 		m.Totals.Units, m.Totals.Trained, m.Totals.CarriedForward, m.Totals.Missing)
 	t := m.Totals.Series
-	fmt.Fprintf(w, "series: %d (%d forecast, %d rejected)\n", t.Series, t.Trained, t.Rejected)
+	fmt.Fprintf(w, "series: %d (%d forecast, %d rejected", t.Series, t.Trained, t.Rejected)
+	if t.Carried > 0 {
+		fmt.Fprintf(w, ", %d of them with their previous forecast carried forward", t.Carried)
+	}
+	fmt.Fprintln(w, ")")
 	if len(t.Models) > 0 {
 		fams := make([]string, 0, len(t.Models))
 		for f := range t.Models {

@@ -40,6 +40,9 @@ type Counts struct {
 	Series   int `json:"series"`
 	Trained  int `json:"trained"`
 	Rejected int `json:"rejected"`
+	// Carried counts the rejected series whose previous forecast was carried forward, series
+	// by series (carryForward; publish.maxCarriedRuns).
+	Carried int `json:"carried,omitempty"`
 	// Models counts trained series by chosen model family.
 	Models map[string]int `json:"models,omitempty"`
 	// Designs counts trained series by the design that forecast them (design.Result.Design).

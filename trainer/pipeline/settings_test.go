@@ -239,6 +239,7 @@ func TestDefaultsAreTheCRDs(t *testing.T) {
 		{"publish.minForecastPercent", cfg.PublishGuard().MinForecastPercent, num(crd("spec", "publish", "minForecastPercent"))},
 		{"publish.minPreviousPercent", cfg.PublishGuard().MinPreviousPercent, num(crd("spec", "publish", "minPreviousPercent"))},
 		{"publish.maxCarriedForwardPercent", cfg.PublishGuard().MaxCarriedForwardPercent, num(crd("spec", "publish", "maxCarriedForwardPercent"))},
+		{"publish.maxCarriedRuns", cfg.PublishGuard().MaxCarriedRuns, num(crd("spec", "publish", "maxCarriedRuns"))},
 		{"runconfig.DefaultPublish", runconfig.DefaultPublish, *cfg.Publish},
 	}
 	for _, c := range checks {

@@ -329,7 +329,12 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	if cal.Series > 0 {
 		done.Calibration = &cal
 	}
-	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected)}
+	carried, nCarried, err := carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
+	if err != nil {
+		return done, err
+	}
+	fc = append(fc, carried...)
+	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected), Carried: nCarried}
 	if len(models) > 0 {
 		done.Counts.Models = models
 		done.Counts.Designs = designs

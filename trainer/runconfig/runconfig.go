@@ -92,12 +92,19 @@ type Publish struct {
 	// MaxCarriedForwardPercent: at most this percent of the plan's units may be carried
 	// forward or missing (100 turns the check off).
 	MaxCarriedForwardPercent int `json:"maxCarriedForwardPercent"`
+	// MaxCarriedRuns: a series the run rejects keeps its previous forecast, marked, for at
+	// most this many runs in a row (0: never; configurations written before the field read
+	// as 0). At most MaxCarriedForwardPercent of the planned series may be carried.
+	MaxCarriedRuns int `json:"maxCarriedRuns"`
 }
 
 // DefaultPublish is the guard of a configuration without one (the controller always writes
 // it). It equals the API's defaults; TestDefaultsAreTheCRDs (trainer/pipeline) holds it to the
 // generated CRD.
-var DefaultPublish = Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50}
+var DefaultPublish = Publish{MinForecastPercent: 80, MinPreviousPercent: 80, MaxCarriedForwardPercent: 50, MaxCarriedRuns: 3}
+
+// MaxCarriedRuns bounds Publish.MaxCarriedRuns, as the API's maximum does.
+const MaxCarriedRuns = 100
 
 // PublishGuard returns the configured guard or DefaultPublish.
 func (c *Config) PublishGuard() Publish {
@@ -479,6 +486,9 @@ func (c *Config) Validate() error {
 			if f.v < 0 || f.v > 100 {
 				return fmt.Errorf("publish.%s: %d is not a percent in [0, 100]", f.name, f.v)
 			}
+		}
+		if g.MaxCarriedRuns < 0 || g.MaxCarriedRuns > MaxCarriedRuns {
+			return fmt.Errorf("publish.maxCarriedRuns: %d is not in [0, %d]", g.MaxCarriedRuns, MaxCarriedRuns)
 		}
 	}
 	names := map[string]bool{}

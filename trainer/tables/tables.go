@@ -32,6 +32,13 @@ type ForecastRow struct {
 	Mean  float64
 	// Quantiles holds one value per Header.Quantiles level.
 	Quantiles []float64
+	// CarriedRuns is 0 for a forecast made by the run that wrote the table; k >= 1 marks a
+	// forecast carried forward, series by series, through k runs in a row that rejected the
+	// series (pipeline: per-series carry-forward, up to publish.maxCarriedRuns), and
+	// CarriedFrom names the run that made it. Written as the carried_runs and carried_from
+	// columns, only when some row is carried.
+	CarriedRuns int
+	CarriedFrom string
 }
 
 // ModelRow is the chosen model of one series.
@@ -107,6 +114,8 @@ const (
 	colReason   = "reason"
 	colMovement = "movement"
 	colMovedPts = "movement_points"
+	colCarried  = "carried_runs"
+	colCarFrom  = "carried_from"
 	// errPrefix starts the models table's per-step error columns: err_h1, err_h2, ...
 	errPrefix = "err_h"
 	// quantilePrefix starts a forecasts table's quantile columns (see QuantileColumn).
@@ -163,9 +172,17 @@ func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) er
 	if err != nil {
 		return fmt.Errorf("tables: forecasts: %w", err)
 	}
+	carried := slices.ContainsFunc(rows, func(r ForecastRow) bool { return r.CarriedRuns != 0 })
+	if carried {
+		cols = append(cols, column{colCarried, integer}, column{colCarFrom, text})
+	}
 	g := grid{cols: cols, rows: make([][]cell, len(rows))}
 	ks := keySplitter{n: len(h.Keys)}
 	for i, r := range rows {
+		if r.CarriedRuns < 0 || (r.CarriedRuns == 0) != (r.CarriedFrom == "") {
+			return fmt.Errorf("tables: forecasts row %d (series %q step %d): carried %d runs from %q: a carried row needs both, a fresh one neither",
+				i, r.Key, r.Step, r.CarriedRuns, r.CarriedFrom)
+		}
 		if len(r.Quantiles) != len(h.Quantiles) {
 			return fmt.Errorf("tables: forecasts row %d (series %q step %d): %d quantiles, header has %d",
 				i, r.Key, r.Step, len(r.Quantiles), len(h.Quantiles))
@@ -177,6 +194,9 @@ func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) er
 		c = append(c, cell{t: r.Period}, cell{n: int64(r.Step)}, cell{s: r.Model}, cell{f: r.Mean})
 		for _, q := range r.Quantiles {
 			c = append(c, cell{f: q})
+		}
+		if carried {
+			c = append(c, cell{n: int64(r.CarriedRuns)}, cell{s: r.CarriedFrom})
 		}
 		g.rows[i] = c
 	}
@@ -194,8 +214,10 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 			return text, true
 		}
 		switch name {
-		case colModel:
+		case colModel, colCarFrom:
 			return text, true
+		case colCarried:
+			return integer, true
 		case colPeriod:
 			return instant, true
 		case colStep:
@@ -235,14 +257,25 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 	if _, err := forecastColumns(h); err != nil {
 		return Header{}, nil, wrap("forecasts", err)
 	}
+	carAt, withCarried := pos[colCarried]
+	fromAt, withFrom := pos[colCarFrom]
+	if withCarried != withFrom {
+		return Header{}, nil, fmt.Errorf("tables: forecasts: columns %s and %s come together", colCarried, colCarFrom)
+	}
 	out := make([]ForecastRow, 0, len(g.rows))
-	for _, c := range g.rows {
+	for i, c := range g.rows {
 		key, ok := kr.key(c)
 		if !ok {
 			continue
 		}
 		row := ForecastRow{Key: key, Period: c[pos[colPeriod]].t, Step: int(c[pos[colStep]].n),
 			Model: c[pos[colModel]].s, Mean: c[pos[colMean]].f}
+		if withCarried {
+			row.CarriedRuns, row.CarriedFrom = int(c[carAt].n), c[fromAt].s
+			if row.CarriedRuns < 0 || (row.CarriedRuns == 0) != (row.CarriedFrom == "") {
+				return Header{}, nil, fmt.Errorf("tables: forecasts row %d (series %q): carried %d runs from %q", i+1, key, row.CarriedRuns, row.CarriedFrom)
+			}
+		}
 		if len(qs) > 0 {
 			row.Quantiles = make([]float64, len(qs))
 			for j, q := range qs {
