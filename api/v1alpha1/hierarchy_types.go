@@ -63,14 +63,18 @@ type HierarchySpec struct {
 	// residuals, so it costs nothing beyond the base forecasts and never depends on how long
 	// the histories are; it weights a node by its number of bottom series), MinTShrink or
 	// MinTSample. The MinT methods need every node's in-sample one-step errors and a dense
-	// covariance of the nodes; above the trainer's dense limit (trainer/reconcile) a
-	// reconciliation falls back to StructuralScaling and its notes say so.
+	// covariance of the nodes; above the trainer's dense limit (2000 nodes, trainer/reconcile)
+	// a reconciliation falls back to weighting each node by its residual mean square (the
+	// diagonal the shrinkage keeps), with too few residuals to StructuralScaling, and its
+	// notes say so.
 	// +optional
 	// +kubebuilder:default=StructuralScaling
 	Method ReconcileMethod `json:"method,omitempty"`
 
-	// nonNegative clips reconciled forecasts of the bottom series at zero and sums them up
-	// again, so the levels still add up. Default: source.nonNegative.
+	// nonNegative keeps every reconciled forecast at or above zero: the bottom series solve
+	// the method's weighted least-squares problem under that constraint (BottomUp clips them
+	// at zero), and every aggregate is the sum of its bottom series, so the levels still add
+	// up. Default: source.nonNegative.
 	// +optional
 	NonNegative *bool `json:"nonNegative,omitempty"`
 }
