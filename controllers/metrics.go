@@ -24,6 +24,7 @@ type Metrics struct {
 	expectedGeo   *prometheus.GaugeVec
 	realizedGeo   *prometheus.GaugeVec
 	coverage      *prometheus.GaugeVec
+	promised      *prometheus.GaugeVec
 	bias          *prometheus.GaugeVec
 	movement      *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
@@ -79,6 +80,10 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_quantile_coverage",
 			Help: "Share of the new actuals at or below each published quantile of the portfolio's last evaluated run (a calibrated forecast gives the level).",
 		}, []string{"namespace", "portfolio", "level"}),
+		promised: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_quantile_coverage_expected",
+			Help: "Share of the same new actuals each published quantile promised: per series its share on its own backtest, or the level for a series without one.",
+		}, []string{"namespace", "portfolio", "level"}),
 		bias: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_forecast_bias",
 			Help: "Mean (forecast - actual) / scale over the new actuals of the portfolio's last evaluated run; the scale is each series' in-sample mean absolute naive error.",
@@ -96,7 +101,7 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
 		}, []string{"namespace", "portfolio"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.bias, m.movement, m.conditions, m.missed} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement, m.conditions, m.missed} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -146,6 +151,7 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	m.expectedGeo.DeletePartialMatch(labels)
 	m.realizedGeo.DeletePartialMatch(labels)
 	m.coverage.DeletePartialMatch(labels)
+	m.promised.DeletePartialMatch(labels)
 	m.bias.DeletePartialMatch(labels)
 	m.movement.DeletePartialMatch(labels)
 	if acc == nil {
@@ -167,6 +173,9 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	for _, q := range acc.Calibration {
 		if v, err := strconv.ParseFloat(q.Realized, 64); err == nil {
 			m.coverage.WithLabelValues(namespace, portfolio, q.Level).Set(v)
+		}
+		if v, err := strconv.ParseFloat(q.Expected, 64); err == nil {
+			m.promised.WithLabelValues(namespace, portfolio, q.Level).Set(v)
 		}
 	}
 	if v, err := strconv.ParseFloat(acc.Bias, 64); err == nil {

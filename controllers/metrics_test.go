@@ -37,7 +37,13 @@ func TestMetrics(t *testing.T) {
 	}
 	m.accuracy("planning", "fenwick-weekly", &forecastingv1alpha1.AccuracyStatus{Metric: "MASE", Expected: "0.8125", Realized: "0.9000",
 		ExpectedGeometric: "0.7500", RealizedGeometric: "0.6250", Bias: "-0.1250", Movement: "0.3750",
-		Calibration: []forecastingv1alpha1.QuantileCalibration{{Level: "0.1", Realized: "0.125"}, {Level: "0.9", Realized: "0.875"}}})
+		Calibration: []forecastingv1alpha1.QuantileCalibration{{Level: "0.1", Realized: "0.125"}, {Level: "0.9", Realized: "0.875", Expected: "0.917"}}})
+	if got := testutil.ToFloat64(m.promised.WithLabelValues("planning", "fenwick-weekly", "0.9")); got != 0.917 {
+		t.Errorf("promised coverage of 0.9 = %v, want 0.917", got)
+	}
+	if n := testutil.CollectAndCount(m.promised); n != 1 {
+		t.Errorf("%d promised coverage series, want 1 (the 0.1 level promised none)", n)
+	}
 	if got := testutil.ToFloat64(m.coverage.WithLabelValues("planning", "fenwick-weekly", "0.9")); got != 0.875 {
 		t.Errorf("coverage of 0.9 = %v, want 0.875", got)
 	}
@@ -57,7 +63,7 @@ func TestMetrics(t *testing.T) {
 		t.Errorf("expected geometric = %v, want 0.75", got)
 	}
 	m.accuracy("planning", "fenwick-weekly", nil)
-	if n := testutil.CollectAndCount(m.expected) + testutil.CollectAndCount(m.realizedGeo) + testutil.CollectAndCount(m.coverage) + testutil.CollectAndCount(m.bias) + testutil.CollectAndCount(m.movement); n != 0 {
+	if n := testutil.CollectAndCount(m.expected) + testutil.CollectAndCount(m.realizedGeo) + testutil.CollectAndCount(m.coverage) + testutil.CollectAndCount(m.promised) + testutil.CollectAndCount(m.bias) + testutil.CollectAndCount(m.movement); n != 0 {
 		t.Errorf("accuracy series after the portfolio went away = %d, want 0", n)
 	}
 	var none *Metrics
