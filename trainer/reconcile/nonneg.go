@@ -29,8 +29,8 @@ const nonNegTol = 1e-9
 // rule), which ends in finitely many steps. The first period that needs it starts from
 // Z = {j : unconstrained b_j < 0}, each later one from the previous period's optimal Z
 // (neighbouring periods of one forecast mostly hold the same series at zero). Should rounding
-// bring back a held set already tried (an ill-conditioned C W C'), it stops there with the
-// negative free series set to 0, and Result.Note says so.
+// bring Murty's rule back to a held set it already tried (an ill-conditioned C W C'), it stops
+// there with the negative free series set to 0, and Result.Note says so.
 func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 	bottom, _, err := p.solve(nil, ys)
 	if err != nil {
@@ -92,15 +92,18 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 					bad = append(bad, j)
 				}
 			}
-			key := fmt.Sprint(held)
-			if len(bad) > 0 && seen[key] {
-				// A held set seen before: exact arithmetic cannot return to one (Murty's
-				// rule), so rounding on an ill-conditioned system is flipping a series whose
-				// optimum is 0 up to that rounding. Stop at this iterate, made feasible.
-				p.cycles++
-				bad = nil
+			murty := len(bad) >= best && backup == 0
+			if murty {
+				key := fmt.Sprint(held)
+				if seen[key] {
+					// Murty's rule never returns to a held set in exact arithmetic, so this
+					// is rounding on an ill-conditioned system flipping a series whose
+					// optimum is 0 to within that rounding: stop here, made feasible.
+					p.cycles++
+					bad = nil
+				}
+				seen[key] = true
 			}
-			seen[key] = true
 			if len(bad) == 0 {
 				for j, v := range b {
 					b[j] = math.Max(0, v) // free series within tolerance of 0
@@ -110,9 +113,10 @@ func (p *problem) nonNegative(ys [][]float64) ([][]float64, error) {
 				last = held
 				break
 			}
-			if len(bad) < best || backup > 0 {
+			if !murty {
 				if len(bad) < best {
 					best, backup = len(bad), 3
+					clear(seen)
 				} else {
 					backup--
 				}

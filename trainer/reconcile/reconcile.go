@@ -171,24 +171,7 @@ func Reconcile(h Hierarchy, base [][]float64, m Method, residuals [][]float64, o
 	var mo *moments
 	switch m {
 	case BottomUp:
-		bottom := make([][]float64, horizon)
-		k := len(h.Sums)
-		for t := range bottom {
-			bottom[t] = make([]float64, h.Bottom)
-			for j := range bottom[t] {
-				bottom[t][j] = base[k+j][t]
-			}
-		}
-		if opt.NonNegative {
-			// Bottom-up keeps each bottom forecast; the closest non-negative one is max(0, b).
-			for _, b := range bottom {
-				for j, v := range b {
-					b[j] = math.Max(0, v)
-				}
-			}
-			res.Note = "negative bottom forecasts set to zero"
-		}
-		res.Forecasts = aggregate(h, bottom)
+		res.Forecasts, res.Note = bottomUp(h, base, horizon, opt.NonNegative)
 		return res, nil
 	case OLS:
 		w = olsWeight(h)
@@ -231,6 +214,27 @@ func Reconcile(h Hierarchy, base [][]float64, m Method, residuals [][]float64, o
 		res.Forecasts = aggregate(h, bottom)
 		return res, nil
 	}
+}
+
+// bottomUp returns S b with b the bottom series' base forecasts, clipped at zero when nonNeg
+// (the closest non-negative bottom-up forecast), and a note saying so.
+func bottomUp(h Hierarchy, base [][]float64, horizon int, nonNeg bool) ([][]float64, string) {
+	k := len(h.Sums)
+	bottom := make([][]float64, horizon)
+	for t := range bottom {
+		bottom[t] = make([]float64, h.Bottom)
+		for j := range bottom[t] {
+			bottom[t][j] = base[k+j][t]
+			if nonNeg {
+				bottom[t][j] = math.Max(0, bottom[t][j])
+			}
+		}
+	}
+	var note string
+	if nonNeg {
+		note = "negative bottom forecasts set to zero"
+	}
+	return aggregate(h, bottom), note
 }
 
 // checkBase returns the horizon of base or an error naming the node at fault.
