@@ -102,6 +102,10 @@ func TestLoadLongErrors(t *testing.T) {
 	if code := Main([]string{"--data", dir, "--frequency", "fortnightly"}, &out, &errb); code != 2 {
 		t.Errorf("--frequency fortnightly: exit %d, want 2", code)
 	}
+	errb.Reset()
+	if code := Main([]string{"--data", dir, "--frequency", "hourly", "--choice", "median"}, &out, &errb); code != 2 || !strings.Contains(errb.String(), "want one-se, lowest or relative-se") {
+		t.Errorf("--choice median: exit %d stderr %q, want 2 naming the rules", code, errb.String())
+	}
 	m3 := t.TempDir()
 	writeFile(t, m3, "series.csv", "series,category,frequency,horizon,n_train,start\n")
 	if _, err := LoadDir(m3, series.Hourly); err == nil || !strings.Contains(err.Error(), "--frequency is for the long layout only") {

@@ -62,7 +62,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	freqFlag := fs.String("frequency", "", "frequency of every series of the long layout: "+strings.Join(FrequencyNames(), ", "))
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
 	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family)")
-	choice := fs.String("choice", string(design.OneSE), `with --design auto: "one-se" (the simplest design within one standard error of the lowest inner MASE) or "lowest"`)
+	choice := fs.String("choice", string(design.OneSE), `with --design auto: "one-se" (the simplest design within one standard error of the lowest inner MASE), "lowest" or "relative-se" (one-se on each series' log ratio of inner MASE to the first candidate's)`)
 	costLimit := fs.Float64("cost-limit", design.DefaultCostLimit, "with --design auto: drop candidate designs costing more than this many times the simplest's CPU per series")
 	innerMax := fs.Int("inner-max", design.DefaultMaxSeries, "with --design auto: at most this many inner-holdout series per segment")
 	innerOrigins := fs.Int("inner-origins", design.DefaultInnerOrigins, "with --design auto: inner-holdout origins per series (the last h points, the h before them, ...)")
@@ -129,7 +129,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "bench: --design %q: want Auto, PerSeries or Fixed (spec.selection.design)\n", *mode)
 		return 2
 	case !o.Rule.Valid():
-		fmt.Fprintf(stderr, "bench: --choice %q: want one-se or lowest\n", *choice)
+		fmt.Fprintf(stderr, "bench: --choice %q: want one-se, lowest or relative-se\n", *choice)
 		return 2
 	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1 || *innerOrigins < 1:
 		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max, --inner-min and --inner-origins >= 1")

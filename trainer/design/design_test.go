@@ -153,6 +153,42 @@ func TestRulePick(t *testing.T) {
 	}
 }
 
+// Hand-worked log ratios to the first candidate. Candidate 1 is 10% better on every series:
+// log ratio log(0.9) with standard error 0, so it wins. Candidate 2 wins the arithmetic mean
+// through one series (50 against 10) but is 20% worse on the other four: log ratios
+// 4 x log(1.2) = 0.1823 and log(0.2) = -1.6094, mean -0.1760, sample sd 0.8013, standard error
+// 0.3584, so the limit is 0.1824 and the first candidate (0) is within it. The mean-of-MASE
+// rules take candidate 2 (10.8 against 2.96).
+func TestPickRelative(t *testing.T) {
+	nan := math.NaN()
+	c0 := []float64{1, 1, 1, 1, 50}
+	c1 := []float64{0.9, 0.9, 0.9, 0.9, 45}
+	c2 := []float64{1.2, 1.2, 1.2, 1.2, 10}
+	if got := PickRelative([][]float64{c0, c1}); got != 1 {
+		t.Errorf("consistently better: picked %d, want 1", got)
+	}
+	if got := PickRelative([][]float64{c0, c2}); got != 0 {
+		t.Errorf("better on one series only: picked %d, want 0", got)
+	}
+	means := []float64{10.8, 2.96}
+	if got := Lowest.Pick(means, []float64{nan, nan}); got != 1 {
+		t.Errorf("lowest mean MASE picked %d, want 1", got)
+	}
+	// A candidate not scored (NaN) is not eligible; a series with a zero score has no ratio.
+	if got := PickRelative([][]float64{c0, {nan}, c1}); got != 2 {
+		t.Errorf("with an unscored candidate: picked %d, want 2", got)
+	}
+	if got := PickRelative([][]float64{{0, 1, 1}, {1, 2, 2}}); got != 0 {
+		t.Errorf("zero score: picked %d, want 0 (ratios 2 and 2 on the rows left)", got)
+	}
+	if got := PickRelative([][]float64{{0}, {1}}); got != 0 {
+		t.Errorf("no usable row: picked %d, want 0", got)
+	}
+	if got := PickRelative([][]float64{{nan}}); got != -1 {
+		t.Errorf("nothing scored: picked %d, want -1", got)
+	}
+}
+
 // Sample standard deviation of {1, 2, 3} is 1, so the standard error is 1/sqrt(3).
 func TestMeanSE(t *testing.T) {
 	m, se := meanSE([]float64{1, 2, 3})

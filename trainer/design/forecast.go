@@ -156,6 +156,8 @@ type Choice struct {
 	// Means and StdErrs are each candidate's mean inner MASE on the basis and its standard
 	// error (NaN: not scored, e.g. dropped for cost).
 	Means, StdErrs []float64
+	// scores are the basis series' inner MASE by candidate ([candidate][series]).
+	scores [][]float64
 }
 
 // Forecast forecasts every series of in and calls emit once per series (from the calling
@@ -283,7 +285,11 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		ch := choose(sg, units, unitScores, o)
 		ch.Series = len(bySeg[sg])
 		if ch.Inner > 0 {
-			chosen[sg] = o.Rule.Pick(ch.Means, ch.StdErrs)
+			if o.Rule == RelativeSE {
+				chosen[sg] = PickRelative(ch.scores)
+			} else {
+				chosen[sg] = o.Rule.Pick(ch.Means, ch.StdErrs)
+			}
 		}
 		if chosen[sg] < 0 {
 			chosen[sg] = 0
@@ -480,7 +486,9 @@ func choose(sg Segment, inner []innerSeries, scores [][]float64, o Options) Choi
 			mean, se := meanSE(xs)
 			if len(xs) < len(members) { // dropped for cost: no score at all
 				mean, se = math.NaN(), math.NaN()
+				xs = []float64{math.NaN()}
 			}
+			ch.scores = append(ch.scores, xs)
 			ch.Means, ch.StdErrs = append(ch.Means, mean), append(ch.StdErrs, se)
 		}
 		return ch
