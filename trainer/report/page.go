@@ -14,6 +14,7 @@ import (
 	"gonum.org/v1/plot/vg"
 
 	"almanac.dev/almanac/trainer/backtest"
+	calib "almanac.dev/almanac/trainer/coverage"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
@@ -58,7 +59,17 @@ type page struct {
 	HistoryProblem         string
 	ModelsPlot, FamilyPlot string
 	EvalPlot               string
-	Shown                  []shownSeries
+	// Calibration of the previous forecast's quantiles on the new actuals (calibration.go).
+	CalPlot     string
+	CalRows     []calibrationRow
+	CalSeries   int
+	CalPoints   int
+	CalBacktest int
+	CalSkipped  int
+	CalSegments []segmentRow
+	// Moved lists the series whose forecast moved most against the previous run's.
+	Moved []movedRow
+	Shown []shownSeries
 	// KeyNames are the series key columns (source.columns.series); the rejected and index
 	// tables give each its own column.
 	KeyNames     []string
@@ -193,6 +204,25 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 		}
 	}
 
+	if c, skipped := calibrationSums(r.Evaluation); c.Points > 0 {
+		ls := calib.Judge(c, reportFalseAlarm)
+		p, err := calibrationPlot(ls)
+		if err != nil {
+			return nil, err
+		}
+		pg.CalPlot = "previous-run-calibration.svg"
+		if files, err = svgTo(files, dir, pg.CalPlot, "Share of new actuals at or below each quantile of the previous run's forecasts", p, plotWidth, vg.Points(440)); err != nil {
+			return nil, err
+		}
+		pg.CalRows = calibrationRows(c, ls)
+		pg.CalSeries, pg.CalPoints, pg.CalBacktest, pg.CalSkipped = c.Series, c.Points, c.BacktestSeries, skipped
+		segments := map[string]string{}
+		for _, m := range r.Models {
+			segments[m.Key] = m.Segment
+		}
+		pg.CalSegments = worstSegments(r.Evaluation, segments, 5)
+	}
+
 	models := map[string]tables.ModelRow{}
 	for _, m := range r.Models {
 		models[m.Key] = m
@@ -239,6 +269,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	}
 
 	pg.KeyNames = cfg.Source.Columns.Series
+	pg.Moved = movedMost(r.Models, evals, pg.KeyNames, anchors, 10)
 	for i, rj := range r.Rejected {
 		if i == o.IndexCap {
 			pg.RejectedMore = len(r.Rejected) - o.IndexCap

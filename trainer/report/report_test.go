@@ -167,9 +167,16 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, fo
 			mr[len(mr)-1].Design = "ets-theta"
 		}
 		if unit == "b-0000" && !math.IsNaN(s.score) {
-			e := tables.EvaluationRow{Key: s.key, Points: 1, Metric: "MASE", Expected: s.score, Realized: s.score * 1.1, PreviousRun: prevRun}
+			// Each evaluated series had 2 new actuals, one at or below q50 and both at or below
+			// q90; the backtest promised 0.125, 0.5 and 0.875 over 8 points. Its forecast moved
+			// by half its realized error, except the drifted one, which moved 3 naive steps.
+			e := tables.EvaluationRow{Key: s.key, Points: 2, Metric: "MASE", Expected: s.score, Realized: s.score * 1.1, PreviousRun: prevRun,
+				Calibration: &tables.Calibration{Levels: testLevels, Points: 2, Below: []int{0, 1, 2}, Pinball: []float64{0.2, 0.4, 0.1}, Bias: 0.25,
+					Promised: []float64{0.125, 0.5, 0.875}, PromisedPoints: 8}}
+			mr[len(mr)-1].Movement, mr[len(mr)-1].MovementPoints = e.Realized/2, 2
 			if s.key == "oat-flakes-1kg/kelso" {
 				e.Realized, e.Drifted = 2.1, true
+				mr[len(mr)-1].Movement = 3
 			}
 			ev = append(ev, e)
 		}
@@ -520,6 +527,27 @@ func TestReportOfPublishedRun(t *testing.T) {
 	} {
 		if !strings.Contains(page, s) {
 			t.Errorf("page lacks %q", s)
+		}
+	}
+	// Calibration: the fixture's evaluated series each put 0, 1 and 2 of 2 actuals at or below
+	// q10, q50 and q90, and promised 0.125, 0.5, 0.875.
+	cal := tableRows(byID(t, doc, "calibration-levels"))
+	if len(cal) != 3 || cal[0][0] != "q10" || cal[0][1] != "0.000" || cal[1][1] != "0.500" || cal[2][1] != "1.000" ||
+		cal[0][2] != "0.125" || cal[2][2] != "0.875" || cal[1][5] != "0.400" {
+		t.Errorf("calibration table %v", cal)
+	}
+	if seg := tableRows(byID(t, doc, "calibration-segments")); len(seg) != 1 || seg[0][0] != "weekly/smooth/long" || seg[0][3] != "1.000" || seg[0][4] != "0.750" {
+		t.Errorf("calibration segments %v", seg)
+	}
+	// Moved most: the drifted series moved 3 steps and its actuals missed by 2.1, not enough;
+	// the others moved half of what their actuals missed.
+	moved := tableRows(byID(t, doc, "moved-most-table"))
+	if len(moved) == 0 || moved[0][0] != "oat-flakes-1kg" || moved[0][1] != "kelso" || moved[0][2] != "3.00" || !strings.HasPrefix(moved[0][5], "no:") {
+		t.Errorf("moved most %v", moved)
+	}
+	for _, r := range moved[1:] {
+		if !strings.HasPrefix(r[5], "yes:") {
+			t.Errorf("moved most row %v, want justified", r)
 		}
 	}
 	idx := tableRows(byID(t, doc, "all-series"))
