@@ -48,8 +48,10 @@ const (
 	// "WLS with variance scaling"). It is what MinTShrink falls back to above the dense node
 	// limit: the diagonal of the shrunk covariance, which shrinkage toward the diagonal keeps.
 	VarianceScaling Method = "VarianceScaling"
-	// MinTShrink uses W = the residual covariance shrunk toward its diagonal with the
-	// Schäfer & Strimmer (2005) intensity (see shrunkCovariance).
+	// MinTShrink uses W = the residual covariance shrunk toward its diagonal (Wickramasuriya
+	// et al. 2019) with the Schäfer & Strimmer (2005, SAGMB 4(1)) intensity on the residual
+	// correlations r_ij: λ = clip₀¹(Σ_{i≠j} Var̂(r_ij) / Σ_{i≠j} r_ij²), W_ii = σ̂²_i,
+	// W_ij = (1 − λ) r_ij σ̂_i σ̂_j (moments about zero, pairwise over missing residuals).
 	MinTShrink Method = "MinTShrink"
 	// MinTSample uses W = the sample residual covariance; only where it can be positive
 	// definite (more residual periods than nodes) and the node count is within the limit.
@@ -111,13 +113,13 @@ func (h Hierarchy) Validate() error {
 
 // Options tunes Reconcile.
 type Options struct {
-	// NonNegative makes every reconciled forecast >= 0: the bottom series solve the weighted
-	// least-squares problem with b >= 0 (see nonNegative), and aggregates are their sums.
+	// NonNegative makes every reconciled forecast >= 0: the bottom series solve
+	// min (ŷ − S b)' W⁻¹ (ŷ − S b) subject to b >= 0 (Wickramasuriya, Turlach & Hyndman 2020)
+	// by an active-set method, and aggregates are their sums; BottomUp clips at zero.
 	NonNegative bool
 	// MaxDenseNodes bounds the side of any dense matrix (0 = DefaultMaxDenseNodes): MinT runs
-	// only when n <= MaxDenseNodes, and the diagonal-weight methods solve C W C' densely when
-	// k (plus the bottom series held at zero by NonNegative) <= MaxDenseNodes, by conjugate
-	// gradient above.
+	// only when n <= MaxDenseNodes, and the diagonal-weight methods solve their k × k C W C'
+	// densely when k <= MaxDenseNodes, by conjugate gradient above.
 	MaxDenseNodes int
 }
 
@@ -129,7 +131,8 @@ type Result struct {
 	Lambda float64
 	// Method is the method that ran: the one asked for, or its stated fallback.
 	Method Method
-	// Note says why a fallback ran, and how the system was solved; empty for BottomUp.
+	// Note says why a fallback ran and how the system was solved; empty for BottomUp unless
+	// NonNegative clipped.
 	Note string
 }
 
@@ -139,9 +142,9 @@ type Result struct {
 // the others ignore them and accept nil.
 //
 // Fallbacks, stated in Result.Method and Result.Note: MinTSample runs as MinTShrink when a node
-// has no more residuals than there are nodes or C W C' is not positive definite; either MinT
-// method runs as VarianceScaling above the dense node limit or when the shrunk C W C' is not
-// positive definite; every residual-based method runs as Structural when a node has fewer than 2
+// has no more residuals than there are nodes or C W C' is not positive definite (or has a
+// condition number above 1e12); either MinT method runs as VarianceScaling above the dense node
+// limit or when the shrunk C W C' is not positive definite; every residual-based method runs as Structural when a node has fewer than 2
 // residuals or all residuals are zero.
 //
 // The projection is linear and the same for every column, so sample paths (or any other
