@@ -166,8 +166,8 @@ type foldResult struct {
 // this runs, including after a controller restart (the folded set is in the same status write as
 // the sums).
 //
-// A succeeded index adds its series counts, model counts and accuracy sums (exact, see
-// addAccuracy). A failed index adds to shards.failed and shards.failedIndexes. A summary that
+// A succeeded index adds its series counts, model counts, accuracy sums (exact, see
+// addAccuracy) and hierarchy levels (addLevels). A failed index adds to shards.failed and shards.failedIndexes. A summary that
 // cannot be read is a Problem, not an error: that shard's counts are lost but the other shards'
 // are kept. When lostOK is true (the caller re-listed pods from the API server), an index with
 // no pod at all is folded as lost with a Problem; otherwise it is returned in Waiting.
@@ -281,6 +281,13 @@ func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs map[st
 			return fmt.Sprintf("shard %d (pod %s): stability not counted: %v", i, p.Name, err)
 		}
 		st.StabilitySums = sums
+	}
+	if len(s.Levels) > 0 {
+		h, err := addLevels(st.Hierarchy, s.Levels)
+		if err != nil {
+			return fmt.Sprintf("shard %d (pod %s): levels not counted: %v", i, p.Name, err)
+		}
+		st.Hierarchy = h
 	}
 	return ""
 }

@@ -19,7 +19,7 @@ const (
 	LabelRun = "forecasting.almanac.dev/run"
 	// LabelPortfolio names the ForecastPortfolio on runs, ConfigMaps, Jobs and pods.
 	LabelPortfolio = "forecasting.almanac.dev/portfolio"
-	// LabelStep is plan, train or publish on Jobs and pods.
+	// LabelStep is plan, train, reconcile or publish on Jobs and pods.
 	LabelStep = "forecasting.almanac.dev/step"
 	// AnnotationReplacedBy on a run says which run replaces it (concurrencyPolicy Replace); the
 	// run controller then deletes the run's Jobs and ends it Failed with reason Replaced.
@@ -43,21 +43,33 @@ const (
 	trainerUID = 65532
 )
 
-// step is one of the run's three Jobs.
+// step is one of the run's Jobs: plan, train, reconcile (only when the plan asks for it) and
+// publish. Its value is the trainer subcommand and the LabelStep value.
 type step string
 
 const (
-	stepPlan    step = "plan"
-	stepTrain   step = "train"
-	stepPublish step = "publish"
+	stepPlan      step = "plan"
+	stepTrain     step = "train"
+	stepReconcile step = "reconcile"
+	stepPublish   step = "publish"
 )
 
-// maxRunNameLength keeps "<run>-publish" within the 63 characters the Job controller's
-// job-name pod label allows.
+// steps are all the steps, in the order a run goes through them.
+var steps = []step{stepPlan, stepTrain, stepReconcile, stepPublish}
+
+// maxRunNameLength keeps "<run>-publish", the longest Job name, within the 63 characters the
+// Job controller's job-name pod label allows.
 const maxRunNameLength = 63 - len("-publish")
 
-// jobName is "<run>-plan", "<run>-train" or "<run>-publish".
-func jobName(run string, s step) string { return run + "-" + string(s) }
+// jobName is "<run>-plan", "<run>-train", "<run>-recon" or "<run>-publish". The reconcile
+// step's Job is "-recon", so that no Job name is longer than the publish one and the run and
+// portfolio name limits stay as they were before the step existed.
+func jobName(run string, s step) string {
+	if s == stepReconcile {
+		return run + "-recon"
+	}
+	return run + "-" + string(s)
+}
 
 // configMapName is "<run>-config".
 func configMapName(run string) string { return run + "-config" }
@@ -89,7 +101,7 @@ type jobParams struct {
 
 // buildJob returns the Job of one step of run, from the portfolio spec.
 //
-//   - plan and publish: one pod, backoffLimit = retriesPerShard, and a pod failure policy that
+//   - plan, reconcile and publish: one pod, backoffLimit = retriesPerShard, and a pod failure policy that
 //     fails the Job at once on the trainer's permanent exit codes (trainer/exitcode: 2
 //     configuration, 3 data, 5 publish refused by the guard).
 //   - train: an Indexed Job with completions = Shards and the given parallelism,
@@ -159,7 +171,10 @@ func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha
 const (
 	defaultPlanDeadline    = 2 * 3600 // plan reads every object once
 	defaultPublishDeadline = 3600     // publish reads every unit's files once
-	trainDeadlinePerWave   = 3600     // one wave of shards, maxParallel at once
+	// defaultReconcileDeadline: reconcile reads what the shards wrote for the nodes that span
+	// shards and their residual summaries once.
+	defaultReconcileDeadline = 3600
+	trainDeadlinePerWave     = 3600 // one wave of shards, maxParallel at once
 )
 
 // activeDeadline is the Job's activeDeadlineSeconds: the portfolio's, else the step's default;
@@ -173,6 +188,8 @@ func activeDeadline(sh forecastingv1alpha1.ShardingSpec, s step, p jobParams) in
 		return defaultPlanDeadline
 	case stepPublish:
 		return defaultPublishDeadline
+	case stepReconcile:
+		return defaultReconcileDeadline
 	}
 	par := int64(max(1, sh.MaxParallel))
 	waves := (int64(max(1, p.Shards)) + par - 1) / par

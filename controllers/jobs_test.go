@@ -1,13 +1,17 @@
 package controllers
 
 import (
+	"strings"
 	"testing"
 
 	"github.com/google/go-cmp/cmp"
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
 	"k8s.io/apimachinery/pkg/api/resource"
+	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/utils/ptr"
+
+	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 )
 
 func TestBuildTrainJob(t *testing.T) {
@@ -148,5 +152,58 @@ func TestJobDeadlines(t *testing.T) {
 	fp.Spec.Sharding.ActiveDeadlineSeconds = ptr.To[int64](900)
 	if got := buildJob(fp, run, stepTrain, jobParams{Shards: 400}).Spec.ActiveDeadlineSeconds; *got != 900 {
 		t.Errorf("declared 900: got %d", *got)
+	}
+}
+
+// The reconcile step's Job is built like publish's (one pod, the Job fails at once on the
+// permanent exit codes, the same pod contract), runs `almanac-trainer reconcile`, and its name
+// is no longer than the publish Job's, so the run name limit stays 55.
+func TestBuildReconcileJob(t *testing.T) {
+	fp := fenwickPortfolio()
+	run := fenwickRun("fenwick-weekly-29407950")
+	rec, pub := buildJob(fp, run, stepReconcile, jobParams{}), buildJob(fp, run, stepPublish, jobParams{})
+	checks := map[string]struct{ got, want any }{
+		"name":             {rec.Name, "fenwick-weekly-29407950-recon"},
+		"name length":      {len(rec.Name) <= len(pub.Name), true},
+		"step label":       {rec.Spec.Template.Labels[LabelStep], "reconcile"},
+		"args":             {rec.Spec.Template.Spec.Containers[0].Args, []string{"reconcile", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log"}},
+		"deadline":         {*rec.Spec.ActiveDeadlineSeconds, int64(3600)},
+		"completions":      {*rec.Spec.Completions, int32(1)},
+		"not indexed":      {rec.Spec.CompletionMode, (*batchv1.CompletionMode)(nil)},
+		"backoff":          {*rec.Spec.BackoffLimit, *pub.Spec.BackoffLimit},
+		"failure policy":   {rec.Spec.PodFailurePolicy, pub.Spec.PodFailurePolicy},
+		"permanent action": {rec.Spec.PodFailurePolicy.Rules[0].Action, batchv1.PodFailurePolicyActionFailJob},
+	}
+	for name, c := range checks {
+		if diff := cmp.Diff(c.want, c.got); diff != "" {
+			t.Errorf("%s (-want,+got):\n%s", name, diff)
+		}
+	}
+	// The pod is publish's but for its step: same security, volumes, message policy.
+	recPod, pubPod := rec.Spec.Template.Spec.DeepCopy(), pub.Spec.Template.Spec.DeepCopy()
+	recPod.Containers[0].Args, pubPod.Containers[0].Args = nil, nil
+	if diff := cmp.Diff(pubPod, recPod); diff != "" {
+		t.Errorf("reconcile pod differs from publish pod beyond args (-publish,+reconcile):\n%s", diff)
+	}
+	for _, s := range steps {
+		if n := len(jobName(strings.Repeat("r", maxRunNameLength), s)); n > 63 {
+			t.Errorf("%s: a %d-character run gives a %d-character Job name", s, maxRunNameLength, n)
+		}
+	}
+}
+
+// TestRunPhaseOfEachStep: the phase kubectl shows follows the Progressing reason, and the
+// reconcile step has its own.
+func TestRunPhaseOfEachStep(t *testing.T) {
+	for reason, want := range map[string]forecastingv1alpha1.RunPhase{
+		forecastingv1alpha1.ReasonPlanning:    forecastingv1alpha1.PhasePlanning,
+		forecastingv1alpha1.ReasonTraining:    forecastingv1alpha1.PhaseTraining,
+		forecastingv1alpha1.ReasonReconciling: forecastingv1alpha1.PhaseReconciling,
+		forecastingv1alpha1.ReasonPublishing:  forecastingv1alpha1.PhasePublishing,
+	} {
+		st := &forecastingv1alpha1.ForecastRunStatus{Conditions: []metav1.Condition{{Type: forecastingv1alpha1.RunProgressing, Status: metav1.ConditionTrue, Reason: reason}}}
+		if got := runPhase(st); got != want {
+			t.Errorf("reason %s: phase %s, want %s", reason, got, want)
+		}
 	}
 }

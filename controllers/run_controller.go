@@ -30,7 +30,7 @@ import (
 )
 
 // RunReconciler drives a ForecastRun through its steps: ConfigMap, Job plan, Indexed Job train,
-// Job publish. It folds each finished shard's termination-message summary into the run status
+// Job reconcile (only when the plan asks for it), Job publish. It folds each finished shard's termination-message summary into the run status
 // exactly once and shares the manager's budget of concurrent shards among all active runs.
 type RunReconciler struct {
 	client.Client
@@ -176,6 +176,8 @@ func (r *RunReconciler) advance(ctx context.Context, run *forecastingv1alpha1.Fo
 		return r.plan(ctx, run, &fp, w)
 	case stepTrain:
 		return r.train(ctx, run, &fp, w)
+	case stepReconcile:
+		return r.reconcileStep(ctx, run, &fp, w)
 	default:
 		return r.publish(ctx, run, &fp, w)
 	}
@@ -284,6 +286,9 @@ func (r *RunReconciler) plan(ctx context.Context, run *forecastingv1alpha1.Forec
 	st := w.status
 	st.Shards.Total = int32(s.Shards)
 	st.Series.Planned = int64(s.Series)
+	if s.Reconcile {
+		st.Hierarchy = &forecastingv1alpha1.HierarchyStatus{ReconcileStep: true}
+	}
 	share, err := r.rebalance(ctx, run, int32(s.Shards), fp)
 	if err != nil {
 		return err
@@ -298,7 +303,8 @@ func (r *RunReconciler) plan(ctx context.Context, run *forecastingv1alpha1.Forec
 }
 
 // train folds finished shards, keeps the parallelism at the run's share, and when the train
-// Job has ended either starts publish (failures within maxFailedShards) or fails the run.
+// Job has ended either starts the next step (failures within maxFailedShards: reconcile when
+// the plan asked for it, else publish) or fails the run.
 func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
 	st := w.status
 	job, err := r.stepJob(ctx, run, fp, stepTrain, jobParams{Shards: st.Shards.Total, Parallelism: 0})
@@ -339,11 +345,66 @@ func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.Fore
 		setCondition(run, &st.Conditions, forecastingv1alpha1.RunDegraded, metav1.ConditionFalse, forecastingv1alpha1.ReasonAllShardsTrained,
 			fmt.Sprintf("all %d shards trained", st.Shards.Total), r.Clock.Now())
 	}
+	if st.Hierarchy != nil && st.Hierarchy.ReconcileStep {
+		if err := r.createOwned(ctx, run, buildJob(fp, run, stepReconcile, jobParams{})); err != nil {
+			return err
+		}
+		r.progress(run, w, forecastingv1alpha1.ReasonReconciling,
+			"reconciling: making the hierarchy's nodes that span shards add up, from what the shards wrote")
+		return nil
+	}
+	return r.startPublish(ctx, run, fp, w)
+}
+
+// startPublish creates the publish Job and marks the run Publishing.
+func (r *RunReconciler) startPublish(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
 	if err := r.createOwned(ctx, run, buildJob(fp, run, stepPublish, jobParams{})); err != nil {
 		return err
 	}
 	r.progress(run, w, forecastingv1alpha1.ReasonPublishing, "publishing: checking every unit and moving the latest pointer")
 	return nil
+}
+
+// reconcileStep waits for the reconcile Job. When it failed, the run fails with the trainer's
+// own error (nothing was published). When it succeeded, the step's levels (the nodes that span
+// shards) are folded and the publish Job is created, in the same status write that moves the
+// run to Publishing, so the levels count once however often this runs. A succeeded step whose
+// summary is unusable loses only those levels (Warning Event): its results are written.
+func (r *RunReconciler) reconcileStep(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
+	job, err := r.stepJob(ctx, run, fp, stepReconcile, jobParams{})
+	if err != nil || job == nil {
+		return err
+	}
+	outcome, reason, message := jobResult(job)
+	if outcome == jobRunning {
+		return nil
+	}
+	s, ok, serr := r.readStep(ctx, run, stepReconcile, summary.KindReconcile)
+	if outcome == jobFailed {
+		r.finish(run, w, false, forecastingv1alpha1.ReasonReconcileFailed, stepFailure("reconcile", reason, message, s, serr))
+		return nil
+	}
+	st := w.status
+	if st.Hierarchy == nil {
+		st.Hierarchy = &forecastingv1alpha1.HierarchyStatus{ReconcileStep: true}
+	}
+	switch {
+	case serr != nil || !ok:
+		w.event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonReconciled,
+			"reconcile succeeded but its summary is unusable, its levels are not counted: %v", orMissing(serr))
+	default:
+		h, lerr := addLevels(st.Hierarchy, s.Levels)
+		if lerr != nil {
+			w.event(corev1.EventTypeWarning, forecastingv1alpha1.ReasonReconciled, "reconcile (job %s): levels not counted: %v", job.Name, lerr)
+		} else {
+			st.Hierarchy = h
+			showLevels(st.Hierarchy, run.Name)
+		}
+		st.Hierarchy.MaxDeviation = formatDeviation(s.MaxDeviation)
+		w.event(corev1.EventTypeNormal, forecastingv1alpha1.ReasonReconciled, "reconciled the nodes that span shards: %s; largest relative deviation %s",
+			orNone(levelNames(s.Levels)), st.Hierarchy.MaxDeviation)
+	}
+	return r.startPublish(ctx, run, fp, w)
 }
 
 // fold folds the train Job's newly finished indexes, reading only their pods from the cache
@@ -387,6 +448,7 @@ func (r *RunReconciler) fold(ctx context.Context, run *forecastingv1alpha1.Forec
 	w.status.Accuracy = accuracyStatus(w.status.AccuracySums, run.Name)
 	withCalibration(w.status.Accuracy, w.status.CalibrationSums)
 	withStability(w.status.Accuracy, w.status.StabilitySums)
+	showLevels(w.status.Hierarchy, run.Name)
 	return nil
 }
 
@@ -490,7 +552,7 @@ func (r *RunReconciler) readStep(ctx context.Context, run *forecastingv1alpha1.F
 // deleteJobs deletes the run's Jobs; background propagation lets the garbage collector remove
 // their pods (the trainer's publish is atomic, so a stopped run leaves no half-published state).
 func (r *RunReconciler) deleteJobs(ctx context.Context, run *forecastingv1alpha1.ForecastRun) error {
-	for _, s := range []step{stepPlan, stepTrain, stepPublish} {
+	for _, s := range steps {
 		job := &batchv1.Job{ObjectMeta: metav1.ObjectMeta{Namespace: run.Namespace, Name: jobName(run.Name, s)}}
 		if err := r.Delete(ctx, job, client.PropagationPolicy(metav1.DeletePropagationBackground)); err != nil && !apierrors.IsNotFound(err) {
 			return fmt.Errorf("delete job %s/%s: %w", job.Namespace, job.Name, err)
@@ -627,6 +689,8 @@ func progressStep(st *forecastingv1alpha1.ForecastRunStatus) step {
 		return stepPlan
 	case forecastingv1alpha1.ReasonTraining:
 		return stepTrain
+	case forecastingv1alpha1.ReasonReconciling:
+		return stepReconcile
 	case forecastingv1alpha1.ReasonPublishing:
 		return stepPublish
 	}
@@ -648,6 +712,8 @@ func runPhase(st *forecastingv1alpha1.ForecastRunStatus) forecastingv1alpha1.Run
 		return forecastingv1alpha1.PhasePlanning
 	case stepTrain:
 		return forecastingv1alpha1.PhaseTraining
+	case stepReconcile:
+		return forecastingv1alpha1.PhaseReconciling
 	case stepPublish:
 		return forecastingv1alpha1.PhasePublishing
 	}

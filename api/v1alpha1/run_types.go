@@ -19,17 +19,20 @@ const (
 
 // RunPhase is a one-word summary of a run for `kubectl get`. It is derived from the conditions
 // and never read back by the controller.
-// +kubebuilder:validation:Enum=Pending;Planning;Training;Publishing;Succeeded;Failed
+// +kubebuilder:validation:Enum=Pending;Planning;Training;Reconciling;Publishing;Succeeded;Failed
 type RunPhase string
 
 // The run phases.
 const (
-	PhasePending    RunPhase = "Pending"
-	PhasePlanning   RunPhase = "Planning"
-	PhaseTraining   RunPhase = "Training"
-	PhasePublishing RunPhase = "Publishing"
-	PhaseSucceeded  RunPhase = "Succeeded"
-	PhaseFailed     RunPhase = "Failed"
+	PhasePending  RunPhase = "Pending"
+	PhasePlanning RunPhase = "Planning"
+	PhaseTraining RunPhase = "Training"
+	// PhaseReconciling: the reconcile step makes the hierarchy's nodes that span shards add up
+	// (only runs whose plan asked for it).
+	PhaseReconciling RunPhase = "Reconciling"
+	PhasePublishing  RunPhase = "Publishing"
+	PhaseSucceeded   RunPhase = "Succeeded"
+	PhaseFailed      RunPhase = "Failed"
 )
 
 // ForecastRunSpec identifies one retraining of a portfolio. It is immutable.
@@ -95,6 +98,12 @@ const (
 	// ReasonImageNotAllowed: spec.trainer.image is not in the install's allowed trainer images
 	// (the controller's --trainer-image-prefixes); shared with the portfolio's Stalled condition.
 	ReasonImageNotAllowed = "ImageNotAllowed"
+	// ReasonReconciling: the reconcile step (forecast reconciliation across shards) is running.
+	ReasonReconciling = "Reconciling"
+	// ReasonReconcileFailed: the reconcile step failed; nothing was published.
+	ReasonReconcileFailed = "ReconcileFailed"
+	// ReasonReconciled (Event): the reconcile step finished and the run goes on to publish.
+	ReasonReconciled = "Reconciled"
 )
 
 // ForecastRunStatus is the observed state of a run.
@@ -173,9 +182,49 @@ type ForecastRunStatus struct {
 	// +optional
 	StabilitySums *StabilitySums `json:"stabilitySums,omitempty"`
 
+	// hierarchy reports a run of a portfolio with spec.hierarchy: whether its plan needed the
+	// reconcile step, the coherence that step checked, and accuracy per level.
+	// +optional
+	Hierarchy *HierarchyStatus `json:"hierarchy,omitempty"`
+
 	// output is where the run's results are.
 	// +optional
 	Output string `json:"output,omitempty"`
+}
+
+// HierarchyStatus is what a run knows of its hierarchy, folded from the plan, train and
+// reconcile summaries.
+type HierarchyStatus struct {
+	// reconcileStep is true when the plan found hierarchy nodes that span shards, so the run
+	// has a reconcile Job between train and publish.
+	// +optional
+	ReconcileStep bool `json:"reconcileStep,omitempty"`
+	// maxDeviation is the largest relative difference between an aggregate's reconciled
+	// forecast and the sum of its children's, over every aggregate, period and quantile that
+	// promises it, as the reconcile step checked it before writing (0 is exact coherence).
+	// +optional
+	MaxDeviation string `json:"maxDeviation,omitempty"`
+	// levels lists each level with its node count and the previous run's expected and realized
+	// accuracy on its nodes, summed over every shard and the reconcile step.
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	Levels []HierarchyLevelStatus `json:"levels,omitempty"`
+}
+
+// HierarchyLevelStatus is one level of the hierarchy in a run.
+type HierarchyLevelStatus struct {
+	// name of the level, as the trainer names it in the outputs (e.g. total, depot, item/depot).
+	Name string `json:"name"`
+	// nodes is how many nodes (series) of the level the run forecast.
+	Nodes int64 `json:"nodes"`
+	// accuracy compares the previous run's promised and realized accuracy on this level's
+	// nodes (metric, expected, realized, ratio and geometric means, as status.accuracy).
+	// +optional
+	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
+	// accuracySums holds the exact sums the accuracy is computed from.
+	// +optional
+	AccuracySums *AccuracySums `json:"accuracySums,omitempty"`
 }
 
 // ShardCounts counts shards of a run.
