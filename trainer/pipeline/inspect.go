@@ -125,7 +125,7 @@ func InspectSeries(ctx context.Context, outputURI, run, sel string, w io.Writer)
 		return err
 	}
 	units := m.Units
-	if hashedLayout(m.Partitioning) && m.Buckets > 0 {
+	if hashedLayout(m.Partitioning) && m.Buckets > 0 && cfg.Hierarchy == nil { // a hierarchy's aggregates may be in any unit
 		e, ok := m.unit(BucketID(BucketOf(key, m.Buckets), m.Buckets))
 		if !ok {
 			return fmt.Errorf("series %s: run %s has no unit %s: %w", sel, m.Run, BucketID(BucketOf(key, m.Buckets), m.Buckets), ErrConfig)

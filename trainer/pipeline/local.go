@@ -13,8 +13,8 @@ import (
 	"almanac.dev/almanac/trainer/summary"
 )
 
-// RunLocal runs plan, every shard's train in turn and publish in one process, as the Jobs
-// would, with the same outputs. A shard that fails on broken input is reported and left to
+// RunLocal runs plan, every shard's train in turn, the reconcile step when the plan asks for
+// it, and publish in one process, as the Jobs would, with the same outputs. A shard that fails on broken input is reported and left to
 // publish to carry forward, as in the cluster; any other failure stops the run before publish.
 // The summary is publish's, with the trained counts, accuracy sums and throughput of all shards.
 func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
@@ -53,6 +53,11 @@ func RunLocal(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summ
 		}
 		if ts.Stability != nil {
 			stab.Add(*ts.Stability)
+		}
+	}
+	if ps.Reconcile {
+		if rs, err := RunReconcile(ctx, cfg, env); err != nil {
+			return rs, fmt.Errorf("reconcile: %w", err)
 		}
 	}
 	s, err := RunPublish(ctx, cfg, env)
@@ -121,6 +126,9 @@ func Inspect(ctx context.Context, outputURI, run string, w io.Writer) error {
 		}
 	} else {
 		fmt.Fprintln(w, "accuracy: nothing evaluated (first run, or no new actuals)")
+	}
+	if err := inspectHierarchy(ctx, out, m, w); err != nil {
+		return err
 	}
 	fmt.Fprintln(w, "unit\tstate\tsource\tseries\ttrained\trejected\tnote")
 	for _, u := range m.Units {

@@ -64,6 +64,9 @@ type UnitDone struct {
 	Stability *summary.Stability `json:"stability,omitempty"`
 	// PreviousRun is the run whose forecasts were evaluated ("" on a first run).
 	PreviousRun string `json:"previousRun,omitempty"`
+	// Levels (hierarchical runs) counts the nodes the unit forecast per hierarchy level, with
+	// the accuracy of their evaluation.
+	Levels []summary.Level `json:"levels,omitempty"`
 }
 
 // ManifestUnit is one unit's entry in the manifest.

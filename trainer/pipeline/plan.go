@@ -50,6 +50,13 @@ type Plan struct {
 	// Series and Rows are the totals over all units.
 	Series int   `json:"series"`
 	Rows   int64 `json:"rows"`
+	// Reconcile is true when the run's hierarchy has levels that span units: the reconcile
+	// step must run between train and publish (the plan summary says so too).
+	Reconcile bool `json:"reconcile,omitempty"`
+	// HierarchyEnd (hierarchical runs) is the period of the newest history row of the whole
+	// input: train extends every bottom series with zeros up to it, so every node of the tree
+	// ends, and is forecast, at the same periods.
+	HierarchyEnd time.Time `json:"hierarchyEnd,omitzero"`
 }
 
 // Object is one input object as plan saw it: train compares Size and ETag with the object it

@@ -39,7 +39,7 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 	for _, o := range p.Objects {
 		sum.Bytes += o.Size
 	}
-	sum.Units, sum.Shards, sum.Series = len(p.Units), len(p.Shards), p.Series
+	sum.Units, sum.Shards, sum.Series, sum.Reconcile = len(p.Units), len(p.Shards), p.Series, p.Reconcile
 	cb, err := runconfig.Encode(cfg)
 	if err != nil {
 		return sum, err
@@ -73,12 +73,23 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	if cutoff.IsZero() {
 		cutoff = env.now()
 	}
-	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second)}
+	h := newHierarchy(cfg)
+	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second),
+		Reconcile: h != nil && h.spanning}
+	// latest records the newest history row's date (not after the cutoff) for a hierarchy.
+	latest := func(ingest.Row) {}
+	if h != nil {
+		latest = func(r ingest.Row) {
+			if r.Problem == "" && !r.Date.After(p.Cutoff) && r.Date.After(p.HierarchyEnd) {
+				p.HierarchyEnd = r.Date
+			}
+		}
+	}
 	switch cfg.Source.Partitioning {
 	case runconfig.PartitionObjects:
 		for _, o := range objs {
 			u := Unit{ID: ObjectID(o.Key, nil), Object: o.Key}
-			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil); err != nil {
+			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil, latest); err != nil {
 				return nil, err
 			}
 			p.Units = append(p.Units, u)
@@ -95,7 +106,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 				}
 				gr := &ingest.GroupRange{From: g, To: g + 1}
 				u := Unit{ID: ObjectID(o.Key, gr), Object: o.Key, Groups: gr}
-				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr); err != nil {
+				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr, latest); err != nil {
 					return nil, err
 				}
 				p.Units = append(p.Units, u)
@@ -103,9 +114,17 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 		}
 	default:
 		rows := map[uint64]int64{}
+		group := map[uint64]uint64{} // series key hash -> the hash its bucket is taken from
 		for _, o := range objs {
 			err := src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
-				rows[KeyHash(r.Key)]++
+				k := KeyHash(r.Key)
+				rows[k]++
+				latest(r)
+				if h != nil {
+					if _, ok := group[k]; !ok {
+						group[k] = KeyHash(h.bucketKey(r.Key))
+					}
+				}
 				return nil
 			})
 			if err != nil {
@@ -123,7 +142,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			}
 		}
 		p.Buckets = ChooseBuckets(cfg.Sharding.Buckets, prevBuckets, len(rows), cfg.Sharding.TargetSeriesPerShard)
-		p.Units = bucketUnits(rows, p.Buckets)
+		p.Units = bucketUnits(rows, group, p.Buckets)
 	}
 	sort.Slice(p.Units, func(i, j int) bool { return p.Units[i].ID < p.Units[j].ID })
 	for _, u := range p.Units {
@@ -133,6 +152,11 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	if len(p.Units) == 0 {
 		return nil, fmt.Errorf("%s: the input has no rows: %w", store.Redact(cfg.Source.URI), ingest.ErrBrokenInput)
 	}
+	if h != nil {
+		if p.HierarchyEnd, err = lastPeriod(cfg.Source, p.HierarchyEnd); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrConfig, err)
+		}
+	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
 	if err := p.Validate(); err != nil {
 		return nil, fmt.Errorf("pipeline: built an invalid plan: %w", err)
@@ -140,11 +164,17 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	return p, nil
 }
 
-// bucketUnits turns row counts by key hash into the non-empty bucket units.
-func bucketUnits(rows map[uint64]int64, buckets int) []Unit {
+// bucketUnits turns row counts by key hash into the non-empty bucket units; group maps a key
+// hash to the hash its bucket is taken from when that is not the key's own (a hierarchy's
+// shardBy cells, see hierarchy.bucketKey).
+func bucketUnits(rows map[uint64]int64, group map[uint64]uint64, buckets int) []Unit {
 	us := make([]Unit, buckets)
 	for h, n := range rows {
-		b := int(h & uint64(buckets-1))
+		g, ok := group[h]
+		if !ok {
+			g = h
+		}
+		b := int(g & uint64(buckets-1))
 		us[b].Series++
 		us[b].Rows += n
 	}
@@ -159,9 +189,10 @@ func bucketUnits(rows map[uint64]int64, buckets int) []Unit {
 }
 
 // countKeys counts the rows and distinct series keys of one object or row-group range.
-func countKeys(ctx context.Context, src *source, key string, groups *ingest.GroupRange) (series int, rows int64, err error) {
+func countKeys(ctx context.Context, src *source, key string, groups *ingest.GroupRange, latest func(ingest.Row)) (series int, rows int64, err error) {
 	seen := map[uint64]struct{}{}
 	err = src.scan(ctx, key, groups, func(r ingest.Row) error {
+		latest(r)
 		seen[KeyHash(r.Key)] = struct{}{}
 		rows++
 		return nil

@@ -57,6 +57,15 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 		m.Totals.add(e)
 	}
 	m.Complete = m.Totals.Missing == 0
+	rec, why, err := reconciledUnits(ctx, out, cfg.Run, p, &m)
+	if err != nil {
+		return sum, err
+	}
+	if why != "" {
+		sum.Refused = true
+		env.logf("publish: %s: refused: %s", cfg.Run, why)
+		return sum, fmt.Errorf("publish refused, latest.json left as it was: %s: %w", why, ErrRefused)
+	}
 	sum.Units = m.Totals.Units
 	sum.CarriedForward = m.Totals.CarriedForward
 	sum.Missing = m.Totals.Missing
@@ -71,6 +80,12 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 		}
 		env.logf("publish: %s: refused: %s", cfg.Run, verdict)
 		return sum, fmt.Errorf("publish refused, latest.json left as it was: %s%s: %w", verdict, reasons, ErrRefused)
+	}
+	if rec != nil {
+		e := ManifestUnit{ID: SpanningUnit, State: StateTrained, Source: cfg.Run, Files: rec.Files}
+		m.Units = append(m.Units, e)
+		m.Totals.add(e)
+		sum.Units = m.Totals.Units
 	}
 	key := store.RunKey(cfg.Run, store.ManifestName)
 	b, err := json.MarshalIndent(m, "", "  ")

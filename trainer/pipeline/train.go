@@ -3,6 +3,7 @@ package pipeline
 import (
 	"bytes"
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -67,6 +68,17 @@ type loaded struct {
 	series   []series.Series
 	rejected []ingest.Rejected
 	err      error
+	// nodes are the unit's within-unit aggregates and partials its partial sums of spanning
+	// nodes (hierarchy.go); nil without a hierarchy.
+	nodes, partials []series.Series
+}
+
+// seriesAt is the i-th series the unit forecasts: its bottom series, then its aggregates.
+func (l *loaded) seriesAt(i int) series.Series {
+	if i < len(l.series) {
+		return l.series[i]
+	}
+	return l.nodes[i-len(l.series)]
 }
 
 // RunTrain is the train command for one shard. It reads the shard's units (an object unit
@@ -97,9 +109,16 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		return sum, err
 	}
 
+	h := newHierarchy(cfg)
 	var all []series.Series
 	for _, u := range units {
+		if h != nil && u.err == nil {
+			extendTo(u.series, p.HierarchyEnd)
+			u.nodes = h.aggregate(u.series, h.levelsWhere(true))
+			u.partials = h.aggregate(u.series, h.levelsWhere(false))
+		}
 		all = append(all, u.series...)
+		all = append(all, u.nodes...)
 	}
 	results := make([]design.Result, len(all))
 	errs := make([]error, len(all))
@@ -118,6 +137,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	var cal summary.Calibration
 	var stab summary.Stability
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
+	levelNodes, levelAcc := map[string]int{}, map[string]*summary.Accuracy{}
 	off := 0
 	for _, u := range units {
 		if u.err != nil {
@@ -127,8 +147,8 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 			}
 			continue
 		}
-		n := len(u.series)
-		done, err := writeUnit(ctx, out, cfg, st, prev, u, results[off:off+n], errs[off:off+n])
+		n := len(u.series) + len(u.nodes)
+		done, err := writeUnit(ctx, out, cfg, st, h, prev, u, results[off:off+n], errs[off:off+n])
 		off += n
 		if err != nil {
 			return sum, err
@@ -151,6 +171,15 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
 		}
+		for _, l := range done.Levels {
+			levelNodes[l.Name] += l.Nodes
+			if l.Accuracy != nil {
+				if levelAcc[l.Name] == nil {
+					levelAcc[l.Name] = &summary.Accuracy{}
+				}
+				levelAcc[l.Name].Add(*l.Accuracy)
+			}
+		}
 		if done.Stability != nil {
 			stab.Add(*done.Stability)
 		}
@@ -168,6 +197,9 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	if stab.Series > 0 {
 		sum.Stability = &stab
 	}
+	if h != nil {
+		sum.Levels = levelSummaries(levelNodes, levelAcc)
+	}
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
 		sum.SeriesPerSecond = math.Round(float64(len(all))/fitSeconds*10) / 10
@@ -179,6 +211,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 // loadShard reads and collects the shard's units. A unit's broken input is kept in its err.
 // Configuration errors (frequency, layout) end the shard.
 func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, now time.Time) ([]*loaded, error) {
+	h := newHierarchy(cfg)
 	src, err := openSource(ctx, cfg.Source)
 	if err != nil {
 		return nil, err
@@ -218,7 +251,7 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 				break
 			}
 			scanErr = src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
-				if l, ok := byBucket[BucketOf(r.Key, p.Buckets)]; ok {
+				if l, ok := byBucket[seriesBucket(h, r.Key, p.Buckets)]; ok {
 					collectors[l.unit.ID].Add(r)
 				}
 				return nil
@@ -261,10 +294,17 @@ func fatal(ctx context.Context, err error) error {
 }
 
 // writeUnit evaluates, builds and writes one unit's tables and then its unit.json.
-func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st Settings, prev *Manifest,
+func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st Settings, h *hierarchy, prev *Manifest,
 	u *loaded, results []design.Result, errs []error) (UnitDone, error) {
 	format := tableFormat(cfg)
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
+	var uh unitHierarchy
+	if h != nil {
+		var err error
+		if uh, err = h.reconcileUnit(cfg.Run, cfg.Source.Frequency, u, results, errs); err != nil {
+			return done, err
+		}
+	}
 	var rejected []tables.RejectedRow
 	for _, r := range u.rejected {
 		rejected = append(rejected, tables.RejectedRow{Key: r.Key, Reason: r.Reason})
@@ -272,8 +312,14 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	var fc []tables.ForecastRow
 	var mr []tables.ModelRow
 	models, designs := map[string]int{}, map[string]int{}
-	for i, s := range u.series {
+	trained := 0
+	for i := range results {
+		s := u.seriesAt(i)
 		r := results[i]
+		level := ""
+		if h != nil {
+			level = h.levelOf(s.Key)
+		}
 		if errs[i] != nil {
 			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: errs[i].Error()})
 			continue
@@ -284,7 +330,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		}
 		last := s.Len() - 1
 		for k := 0; k < len(r.Mean); k++ {
-			row := tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k]}
+			row := tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k], Level: level}
 			for j := range r.Levels {
 				row.Quantiles = append(row.Quantiles, r.Quantiles[j][k])
 			}
@@ -292,7 +338,11 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		}
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
 			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features,
-			Design: r.Design, Segment: r.Segment.String(), Backtest: backtestRecord(r.Levels, r.Backtest)})
+			Design: r.Design, Segment: r.Segment.String(), Backtest: backtestRecord(r.Levels, r.Backtest), Level: level})
+		if i >= len(u.series) {
+			continue // an aggregate: counted by level, not as an input series
+		}
+		trained++
 		models[r.Family]++
 		designs[r.Design]++
 	}
@@ -329,12 +379,28 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	if cal.Series > 0 {
 		done.Calibration = &cal
 	}
-	carried, nCarried, err := carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
-	if err != nil {
-		return done, err
+	var carried []tables.ForecastRow
+	nCarried := 0
+	if h == nil { // a hierarchy is reconciled over this run's series only: no per-series carry-forward
+		carried, nCarried, err = carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
+		if err != nil {
+			return done, err
+		}
 	}
 	fc = append(fc, carried...)
-	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: len(mr), Rejected: len(rejected), Carried: nCarried}
+	if h != nil {
+		aggRows, levelAcc, err := evaluateNodes(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u, h)
+		if err != nil {
+			return done, err
+		}
+		evals = append(evals, aggRows...)
+		if acc.Evaluated > 0 {
+			a := acc
+			levelAcc[h.bottom] = &a
+		}
+		done.Levels = uh.levels(levelAcc)
+	}
+	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: trained, Rejected: len(rejected), Carried: nCarried}
 	if len(models) > 0 {
 		done.Counts.Models = models
 		done.Counts.Designs = designs
@@ -351,6 +417,12 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		{TableModels, TableModels + "." + format, func(w io.Writer) error { return tables.WriteModels(w, format, keys, mr) }},
 		{TableEvaluation, TableEvaluation + "." + format, func(w io.Writer) error { return tables.WriteEvaluation(w, format, keys, evals) }},
 		{TableRejected, store.RejectedName, func(w io.Writer) error { return tables.WriteRejected(w, tables.CSV, keys, rejected) }},
+	}
+	if uh.nodes != nil {
+		writers = append(writers, struct {
+			table, name string
+			fn          func(w io.Writer) error
+		}{TableNodes, NodesName, func(w io.Writer) error { return json.NewEncoder(w).Encode(uh.nodes) }})
 	}
 	for _, wr := range writers {
 		var buf bytes.Buffer

@@ -187,6 +187,11 @@ type Result struct {
 	Features map[string][]string
 	// Notes lists the cleaning and fallback decisions, in order.
 	Notes []string
+	// Residuals are the chosen forecast's in-sample one-step errors y − fitted, the last one at
+	// the series' last period (NaN where the model has no fitted value; for a combination, y
+	// minus the combined fitted values); nil when the model gives none. Hierarchy
+	// reconciliation (trainer/reconcile, MinT) estimates the error covariance from them.
+	Residuals []float64
 }
 
 // FamilyCombination is Result.Family for a combination of members.

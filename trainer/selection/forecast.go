@@ -407,6 +407,7 @@ func finishSingle(res *Result, c *candidate, a backtest.Assessment, y []float64,
 	res.Mean = fc.Mean
 	res.Expected = a.Overall
 	res.StepErrors = a.Steps
+	res.Residuals = residuals(y, fitted)
 	res.Features = nil
 	recordFeatures(res, c.spec.DisplayName(), fitted)
 	switch {
@@ -443,6 +444,13 @@ func finishCombination(res *Result, name string, top []*candidate, a backtest.As
 	res.Chosen, res.Family, res.Model, res.Params = name, FamilyCombination, name, nil
 	res.Mean = combine(cfg.CombineMethod, means)
 	res.Expected, res.StepErrors = a.Overall, a.Steps
+	res.Residuals = nil
+	if ins := inSamples(fitted, len(y)); ins != nil {
+		res.Residuals = make([]float64, len(y))
+		for t, f := range combine(cfg.CombineMethod, ins) {
+			res.Residuals[t] = y[t] - f
+		}
+	}
 	switch {
 	case len(cfg.Levels) == 0:
 	case allQ:
@@ -510,6 +518,18 @@ func fallbackSeason(cfgM int, zoo []*candidate) int {
 		}
 	}
 	return 1
+}
+
+// inSamples returns every member's in-sample one-step values, or nil when one has none of
+// length n.
+func inSamples(fitted []models.Fitted, n int) [][]float64 {
+	out := make([][]float64, len(fitted))
+	for i, f := range fitted {
+		if out[i] = f.InSample(); len(out[i]) != n {
+			return nil
+		}
+	}
+	return out
 }
 
 // residuals returns y − fitted one-step values (NaN where the model has none).

@@ -39,6 +39,9 @@ type ForecastRow struct {
 	// columns, only when some row is carried.
 	CarriedRuns int
 	CarriedFrom string
+	// Level is the hierarchy level of the row's node ("" outside a hierarchy; see
+	// colLevel): its key cells outside the level are empty.
+	Level string
 }
 
 // ModelRow is the chosen model of one series.
@@ -71,6 +74,8 @@ type ModelRow struct {
 	// the movement and movement_points columns, only when some row has movement points.
 	Movement       float64
 	MovementPoints int
+	// Level is the hierarchy level of the row's node, as in ForecastRow.
+	Level string
 }
 
 // EvaluationRow compares a series' realized error on new actuals with the error the
@@ -116,6 +121,11 @@ const (
 	colMovedPts = "movement_points"
 	colCarried  = "carried_runs"
 	colCarFrom  = "carried_from"
+	// colLevel names a row's hierarchy level (runconfig.LevelName: "depot", "item+depot",
+	// "total"); written after the key columns when some row has a level. An aggregate's key
+	// cells outside its level are empty, which no input series has (an empty key cell rejects
+	// it).
+	colLevel = "hierarchy_level"
 	// errPrefix starts the models table's per-step error columns: err_h1, err_h2, ...
 	errPrefix = "err_h"
 	// quantilePrefix starts a forecasts table's quantile columns (see QuantileColumn).
@@ -144,10 +154,13 @@ func ParseQuantileColumn(name string) (float64, bool) {
 	return q, true
 }
 
-func forecastColumns(h Header) ([]column, error) {
+func forecastColumns(h Header, levels bool) ([]column, error) {
 	cols, err := keyColumns(h.Keys)
 	if err != nil {
 		return nil, err
+	}
+	if levels {
+		cols = append(cols, column{colLevel, text})
 	}
 	cols = append(cols, column{colPeriod, instant}, column{colStep, integer}, column{colModel, text}, column{colMean, number})
 	seen := map[string]bool{}
@@ -168,7 +181,8 @@ func forecastColumns(h Header) ([]column, error) {
 // WriteForecasts writes a forecasts table: the key columns, period, step, model, mean and one
 // column per quantile level. Each row must carry len(h.Quantiles) quantiles.
 func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) error {
-	cols, err := forecastColumns(h)
+	levels := slices.ContainsFunc(rows, func(r ForecastRow) bool { return r.Level != "" })
+	cols, err := forecastColumns(h, levels)
 	if err != nil {
 		return fmt.Errorf("tables: forecasts: %w", err)
 	}
@@ -190,6 +204,9 @@ func WriteForecasts(w io.Writer, format string, h Header, rows []ForecastRow) er
 		c, err := ks.appendCells(make([]cell, 0, len(cols)), r.Key)
 		if err != nil {
 			return fmt.Errorf("tables: forecasts row %d: %w", i, err)
+		}
+		if levels {
+			c = append(c, cell{s: r.Level})
 		}
 		c = append(c, cell{t: r.Period}, cell{n: int64(r.Step)}, cell{s: r.Model}, cell{f: r.Mean})
 		for _, q := range r.Quantiles {
@@ -214,7 +231,7 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 			return text, true
 		}
 		switch name {
-		case colModel, colCarFrom:
+		case colModel, colCarFrom, colLevel:
 			return text, true
 		case colCarried:
 			return integer, true
@@ -254,7 +271,7 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 	for _, q := range qs {
 		h.Quantiles = append(h.Quantiles, q.level)
 	}
-	if _, err := forecastColumns(h); err != nil {
+	if _, err := forecastColumns(h, false); err != nil {
 		return Header{}, nil, wrap("forecasts", err)
 	}
 	carAt, withCarried := pos[colCarried]
@@ -276,6 +293,9 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 				return Header{}, nil, fmt.Errorf("tables: forecasts row %d (series %q): carried %d runs from %q", i+1, key, row.CarriedRuns, row.CarriedFrom)
 			}
 		}
+		if at, ok := pos[colLevel]; ok {
+			row.Level = c[at].s
+		}
 		if len(qs) > 0 {
 			row.Quantiles = make([]float64, len(qs))
 			for j, q := range qs {
@@ -293,8 +313,9 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 // any row has Features, a last column kept_features holds each row's as a JSON object
 // ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
 func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) error {
-	steps, withFeatures, withDesign, withMovement := 0, false, false, false
+	steps, withFeatures, withDesign, withMovement, withLevel := 0, false, false, false, false
 	for _, r := range rows {
+		withLevel = withLevel || r.Level != ""
 		steps = max(steps, len(r.BacktestErrors))
 		withFeatures = withFeatures || len(r.Features) > 0
 		withDesign = withDesign || r.Design != ""
@@ -307,6 +328,9 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 	cols, err := keyColumns(keys)
 	if err != nil {
 		return wrap("models", err)
+	}
+	if withLevel {
+		cols = append(cols, column{colLevel, text})
 	}
 	cols = append(cols, column{colModel, text}, column{colParams, text}, column{colMetric, text}, column{colScore, number})
 	for h := 1; h <= steps; h++ {
@@ -331,6 +355,9 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 		c, err := ks.appendCells(make([]cell, 0, len(cols)), r.Key)
 		if err != nil {
 			return fmt.Errorf("tables: models row %d: %w", i, err)
+		}
+		if withLevel {
+			c = append(c, cell{s: r.Level})
 		}
 		c = append(c, cell{s: r.Model}, cell{s: r.Params}, cell{s: r.Metric}, cell{f: r.Score})
 		for h := 0; h < steps; h++ {
@@ -392,7 +419,7 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 			return text, true
 		}
 		switch name {
-		case colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment:
+		case colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment, colLevel:
 			return text, true
 		case colScore:
 			return number, true
@@ -455,6 +482,9 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 		}
 		if at, ok := pos[colSegment]; ok {
 			m.Segment = c[at].s
+		}
+		if at, ok := pos[colLevel]; ok {
+			m.Level = c[at].s
 		}
 		if withBacktest {
 			if m.Backtest, err = bt.read(c, 0); err != nil {

@@ -56,7 +56,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 	}
 	env := pipeline.Env{Now: clock, Log: stderr}
 	switch args[0] {
-	case "plan", "publish", "train":
+	case "plan", "publish", "train", "reconcile":
 		return step(ctx, args[0], args[1:], stdout, stderr, getenv, env)
 	case "local":
 		return local(ctx, args[1:], stdout, stderr, env)
@@ -100,7 +100,7 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	if code, ok := cli.Parse(fs, use, args, stdout, stderr); !ok {
 		return code
 	}
-	kind := map[string]string{"plan": summary.KindPlan, "train": summary.KindTrain, "publish": summary.KindPublish}[name]
+	kind := map[string]string{"plan": summary.KindPlan, "train": summary.KindTrain, "publish": summary.KindPublish, "reconcile": summary.KindReconcile}[name]
 	fail := func(err error) int {
 		code := pipeline.ExitCode(err)
 		s := summary.Summary{Kind: kind, Error: err.Error()}
@@ -120,6 +120,8 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 		s, err = bounds.bounded(ctx, summary.KindPlan, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunPlan(ctx, cfg, env) })
 	case "publish":
 		s, err = bounds.bounded(ctx, summary.KindPublish, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunPublish(ctx, cfg, env) })
+	case "reconcile":
+		s, err = bounds.bounded(ctx, summary.KindReconcile, stderr, func(ctx context.Context) (summary.Summary, error) { return pipeline.RunReconcile(ctx, cfg, env) })
 	case "train":
 		idx := *shardFlag
 		if idx == "" {
@@ -181,9 +183,14 @@ func line(s summary.Summary) string {
 	switch s.Kind {
 	case summary.KindPlan:
 		fmt.Fprintf(&b, "plan: %d series in %d units, %d shards, %d input bytes", s.Series, s.Units, s.Shards, s.Bytes)
+		if s.Reconcile {
+			b.WriteString("; the hierarchy spans units: reconcile step needed")
+		}
 	case summary.KindTrain:
 		fmt.Fprintf(&b, "train shard %d: %d series, %d forecast, %d rejected in %.1fs (%.1f series/s)",
 			s.Shard, s.Series, s.Trained, s.Rejected, s.DurationSeconds, s.SeriesPerSecond)
+	case summary.KindReconcile:
+		fmt.Fprintf(&b, "reconcile: %d spanning nodes forecast, %d rejected; largest deviation %.3g", s.Trained, s.Rejected, s.MaxDeviation)
 	case summary.KindPublish:
 		fmt.Fprintf(&b, "publish: %d units (%d carried forward, %d missing), %d series forecast, manifest %s",
 			s.Units, s.CarriedForward, s.Missing, s.Trained, s.Manifest)
@@ -235,6 +242,9 @@ commands (the run's Jobs):
             list the input, count series, cut units into shards, write runs/<run>/plan.json
   train     --config FILE [--shard N] [--termination-log FILE]
             forecast shard N (default $JOB_COMPLETION_INDEX) and write its units' tables
+  reconcile --config FILE [--termination-log FILE]
+            (hierarchies whose levels span units, when plan says so) forecast the spanning
+            nodes from the units' partial sums and reconcile the whole tree
   publish   --config FILE [--termination-log FILE]
             verify every unit, carry forward failed ones, write MANIFEST.json, then latest.json
   They (and local) also take --request-timeout D (default 2m: a storage request that answers
@@ -272,6 +282,8 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
   4  transient storage error: refused connections, server errors, a storage request with no
      answer within --request-timeout (default 2m) or a command past --step-timeout
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
-     units carried forward; no manifest is written and latest.json stays where it was
+     units carried forward; no manifest is written and latest.json stays where it was; also
+     reconcile and publish of a hierarchy that spans units when a unit was not trained by
+     this run (a hierarchy is published whole or not at all)
 `)
 }

@@ -1,0 +1,108 @@
+package pipeline
+
+import (
+	"context"
+	"strings"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/synth"
+)
+
+// hierarchyRun writes Fenwick Lane Provisions' weekly demand (invented: 5 items at 4 depots,
+// two years ending the Monday before anchor) to mem:// and returns a run configuration over it
+// with the given levels, sharded by depot.
+func hierarchyRun(t *testing.T, name string, levels [][]string, method string) *runconfig.Config {
+	t.Helper()
+	ctx := context.Background()
+	in := "mem://" + name + "-in/"
+	st := mustOpen(t, in)
+	o := synth.Options{Items: 5, Depots: 4, Frequency: synth.Weekly, Periods: 104, End: time.Date(2026, 2, 23, 0, 0, 0, 0, time.UTC), SpareShare: -1}
+	if _, err := o.Write(ctx, st, "", synth.CSV); err != nil {
+		t.Fatal(err)
+	}
+	cfg := testConfig(name+"-1", in, "mem://"+name+"-out/")
+	cfg.Source.Frequency, cfg.Source.WeekAnchor = "Weekly", "Monday"
+	cfg.Source.Columns = runconfig.Columns{Series: []string{"item", "depot"}, Date: o.DateColumn(), Value: "units"}
+	cfg.Horizon = 8
+	cfg.Models = []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilyETS}}
+	cfg.Sharding = runconfig.Sharding{TargetSeriesPerShard: 5, Buckets: 64}
+	cfg.Hierarchy = &runconfig.Hierarchy{Levels: levels, ShardBy: []string{"depot"}, Method: method, NonNegative: true}
+	if err := cfg.Validate(); err != nil {
+		t.Fatal(err)
+	}
+	return cfg
+}
+
+// TestHierarchyAcrossShards runs a hierarchy of depot totals (within a shard), item totals
+// across depots and the grand total (spanning shards) through plan, train on every shard,
+// reconcile and publish, for each method, and checks that the published run adds up to 1e-9
+// relative at every node and period, cross-shard nodes included.
+func TestHierarchyAcrossShards(t *testing.T) {
+	for _, method := range []string{"BottomUp", "OLS", "StructuralScaling", "MinTShrink"} {
+		t.Run(method, func(t *testing.T) {
+			cfg := hierarchyRun(t, "flp-hier-"+strings.ToLower(method), [][]string{{"depot"}, {"item"}, {}}, method)
+			ctx := context.Background()
+			s, err := RunLocal(ctx, cfg, testEnv())
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s.Shards < 3 {
+				t.Fatalf("%d shards, want at least 3 (one per depot bucket)", s.Shards)
+			}
+			out := mustOpen(t, cfg.Output.URI)
+			m := checkPublished(t, out, cfg.Run)
+			p, err := readPlan(ctx, out, cfg.Run)
+			if err != nil || !p.Reconcile {
+				t.Fatalf("plan.reconcile = false (%v), want true: item totals and the grand total span shards", err)
+			}
+			if _, ok := m.unit(SpanningUnit); !ok {
+				t.Fatalf("the manifest has no %s unit", SpanningUnit)
+			}
+			if m.Totals.Series.Trained != 20 {
+				t.Errorf("%d input series forecast, want 20 (aggregates are not counted as input series)", m.Totals.Series.Trained)
+			}
+			c, err := CheckCoherence(ctx, out, m, cfg)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if c.Bottom != 20 || c.Aggregates != 4+5+1 || c.Periods != 8 {
+				t.Errorf("coherence over %d bottom, %d aggregates, %d periods; want 20, 10, 8", c.Bottom, c.Aggregates, c.Periods)
+			}
+			if !c.Coherent() {
+				t.Errorf("largest relative deviation %g at %s, want <= %g", c.MaxDeviation, c.Worst, CoherenceTolerance)
+			}
+			var b strings.Builder
+			if err := Inspect(ctx, cfg.Output.URI, "", &b); err != nil {
+				t.Fatal(err)
+			}
+			if !strings.Contains(b.String(), "hierarchy: coherent: 10 aggregates over 20 bottom series") {
+				t.Errorf("inspect does not report the coherence:\n%s", b.String())
+			}
+		})
+	}
+}
+
+// TestHierarchyWithinShards: depot totals only, sharded by depot, need no reconcile step; train
+// reconciles each depot's sub-tree and the published run adds up.
+func TestHierarchyWithinShards(t *testing.T) {
+	cfg := hierarchyRun(t, "flp-hier-within", [][]string{{"depot"}}, "StructuralScaling")
+	ctx := context.Background()
+	if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, cfg.Run)
+	if p, _ := readPlan(ctx, out, cfg.Run); p == nil || p.Reconcile {
+		t.Fatal("plan.reconcile is true for levels within shards")
+	}
+	c, err := CheckCoherence(ctx, out, m, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Aggregates != 4 || !c.Coherent() {
+		t.Errorf("%d aggregates, largest deviation %g at %s; want 4 and <= %g", c.Aggregates, c.MaxDeviation, c.Worst, CoherenceTolerance)
+	}
+}
