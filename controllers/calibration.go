@@ -166,8 +166,8 @@ func withCalibration(acc *forecastingv1alpha1.AccuracyStatus, sums *forecastingv
 	n := new(big.Rat).SetInt64(sums.Points)
 	acc.Calibration = nil
 	withExp := hasExpectation(sums)
-	var judged []coverage.Level
-	if c, err := calibrationOf(sums, false); err == nil {
+	var judged []coverage.Level // the design effect needs the pair counts of an expectation
+	if c, err := calibrationOf(sums, false); err == nil && withExp {
 		judged = coverage.Judge(c, 0.05) // the design effect does not depend on the rate
 	}
 	for j, l := range sums.Levels {

@@ -202,9 +202,12 @@ func shardSummary(i int) summary.Summary {
 		Models: map[string]int{"ETS": 60, "Theta": 39 + i},
 		Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 10, EvaluatedPoints: 50, ExpectedSum: 5, RealizedSum: 6, Drifted: 1,
 			LogEvaluated: 10, ExpectedLogSum: 10 * math.Log(0.5), RealizedLogSum: 10 * math.Log(0.6)},
-		// 50 actuals: 5 at or below the 0.1 quantile and 45 at or below the 0.9 one (an 80% band
-		// covering 80%), scaled pinball sums 10 and 10, no bias.
-		Calibration: &summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 10, Points: 50, Below: []int{5, 45}, PinballSum: []float64{10, 10}},
+		// 50 actuals of 10 series, 5 each: 5 at or below the 0.1 quantile (one in each of 5
+		// series: no pairs) and 45 at or below the 0.9 one (5 series with 5, 5 with 4: pairs
+		// 5·20 + 5·12 = 160 of 10·20), an 80% band covering 80% as the levels promise (no
+		// backtest record), scaled pinball sums 10 and 10, no bias.
+		Calibration: &summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 10, Points: 50, Below: []int{5, 45}, PinballSum: []float64{10, 10},
+			Pairs: 200, BelowPairs: []int{0, 160}, Expected: []float64{5, 45}, ExpectedVar: []float64{0, 0}, ExpectedPinballSum: []float64{0, 0}},
 	}
 }
 

@@ -243,10 +243,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(run.Status.Accuracy).To(Equal(&forecastingv1alpha1.AccuracyStatus{
 			Metric: "MASE", Expected: "0.5000", Realized: "0.6000", Ratio: "1.200",
 			ExpectedGeometric: "0.5000", RealizedGeometric: "0.6000", GeometricRatio: "1.200", GeometricSeries: 40,
-			// 4 shards of 50 actuals: 20 and 180 of 200 below the 0.1 and 0.9 quantiles, pinball 40/200.
-			Calibration: []forecastingv1alpha1.QuantileCalibration{{Level: "0.1", Realized: "0.100", PinballLoss: "0.2000"},
-				{Level: "0.9", Realized: "0.900", PinballLoss: "0.2000"}},
-			BandCoverage: "0.800", BandLevel: "0.800", Bias: "0.0000", CalibrationPoints: 200,
+			// 4 shards of 50 actuals: 20 and 180 of 200 below the 0.1 and 0.9 quantiles, pinball 40/200,
+			// as the levels promised; the hits' pair counts are below the binomial's (ρ < 0: deff 1).
+			Calibration: []forecastingv1alpha1.QuantileCalibration{{Level: "0.1", Realized: "0.100", PinballLoss: "0.2000", Expected: "0.100", DesignEffect: "1.00"},
+				{Level: "0.9", Realized: "0.900", PinballLoss: "0.2000", Expected: "0.900", DesignEffect: "1.00"}},
+			BandCoverage: "0.800", BandLevel: "0.800", ExpectedBandCoverage: "0.800", Bias: "0.0000", CalibrationPoints: 200,
 			EvaluatedSeries: 40, EvaluatedPoints: 200, DriftedSeries: 4, Run: name,
 		}))
 		Expect(conditionOf(run, forecastingv1alpha1.RunDegraded)()).To(Equal("False/AllShardsTrained"))

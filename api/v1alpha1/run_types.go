@@ -366,6 +366,7 @@ type StabilitySums struct {
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`
 // +kubebuilder:printcolumn:name="Geo Ratio",type=string,JSONPath=`.status.accuracy.geometricRatio`,priority=1
 // +kubebuilder:printcolumn:name="Coverage",type=string,JSONPath=`.status.accuracy.bandCoverage`,priority=1
+// +kubebuilder:printcolumn:name="Promised",type=string,JSONPath=`.status.accuracy.expectedBandCoverage`,priority=1
 // +kubebuilder:printcolumn:name="Age",type=date,JSONPath=`.metadata.creationTimestamp`
 
 // ForecastRun is one retraining of a ForecastPortfolio: plan, train shards, publish.
