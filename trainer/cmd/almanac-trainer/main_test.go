@@ -5,6 +5,7 @@ import (
 	"context"
 	"os"
 	"path/filepath"
+	"regexp"
 	"strconv"
 	"strings"
 	"testing"
@@ -190,6 +191,46 @@ func TestLocalRunsThePromotionSample(t *testing.T) {
 	again, _ := runconfig.Encode(c)
 	if string(again) != out.String() || c.Run != "flp-promo-2" || c.Source.Columns.Date != "week_start" || c.Features == nil || c.Selection.BacktestStep != 2 {
 		t.Fatalf("render printed %s", out.String())
+	}
+}
+
+// TestLocalRunsTheHierarchySample: the hierarchy sample runs with no edits on `generate`'s
+// weekly data across several shards (depots hashed apart), and inspect reports the published
+// run coherent: every depot total, item total and the grand total equals the sum of its item x
+// depot forecasts to 1e-9 relative (pipeline.CoherenceTolerance).
+func TestLocalRunsTheHierarchySample(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	sample := filepath.Join("..", "..", "..", "config", "samples", "forecasting_v1alpha1_forecastportfolio_hierarchy.yaml")
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--frequency", "Weekly", "--items", "6", "--depots", "4"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: exit %d: %s", code, errb.String())
+	}
+	out.Reset()
+	errb.Reset()
+	if code := run(ctx, []string{"local", "-f", sample, "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--run", "flp-hier-1"},
+		&out, &errb, noenv); code != 0 {
+		t.Fatalf("local -f: exit %d: %s", code, errb.String())
+	}
+	if !strings.Contains(out.String(), "24 series forecast") || !strings.Contains(errb.String(), "reconcile: flp-hier-1: 35 nodes (7 spanning)") {
+		t.Fatalf("local -f stdout: %s\nstderr: %s", out.String(), errb.String())
+	}
+	if m := regexp.MustCompile(`(\d+) shards`).FindStringSubmatch(out.String()); m == nil || len(m[1]) == 1 && m[1] < "2" {
+		t.Errorf("local -f ran %v shards, want several: %s", m, out.String())
+	}
+	out.Reset()
+	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out/"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("inspect: exit %d: %s", code, errb.String())
+	}
+	if !strings.Contains(out.String(), "hierarchy: coherent: 11 aggregates over 24 bottom series, 12 periods") {
+		t.Fatalf("inspect: %s", out.String())
+	}
+	out.Reset()
+	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out/", "--series", "item=,depot=brill"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("inspect --series of a depot total: exit %d: %s", code, errb.String())
+	}
+	if !strings.Contains(out.String(), ",brill,depot,") {
+		t.Errorf("inspect --series item=,depot=brill: %s", out.String())
 	}
 }
 
