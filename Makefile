@@ -97,6 +97,10 @@ test-fuzz: ## Run every fuzz target briefly.
 	    echo "fuzz ./$$(dirname $$f) $$t ($(FUZZTIME))"; \
 	    go test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZTIME) ./$$(dirname $$f) || exit 1; done; done
 
+.PHONY: test-crash
+test-crash: s3server ## The long crash proofs: 60 SIGKILLs per store (file://, S3 test server) over plan, train, publish and republish, and every crash point (test/crash; about 6 minutes on 2 cores).
+	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server ALMANAC_CRASH_KILLS=60 go test -count=1 -timeout 60m -v -run 'TestKillAndRerun|TestCrashPoints' ./test/crash/
+
 .PHONY: test-e2e
 test-e2e: ## End-to-end tests with the real Job controller (when present).
 	@if [ -d test/e2e ]; then go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi

@@ -131,7 +131,11 @@ var suiteMetrics *Metrics
 var suiteImages = ImageAllowlist{"registry.example/almanac-trainer"}
 
 // startManager starts the controllers with the given shard budget and the suite's fake clock.
-func startManager(budget int32) *testManager {
+func startManager(budget int32) *testManager { return startManagerWith(managerCfg, budget) }
+
+// startManagerWith is startManager with the manager's rest config (the exactly-once test wraps
+// its transport).
+func startManagerWith(restCfg *rest.Config, budget int32) *testManager {
 	if suiteMetrics == nil {
 		m, err := NewMetrics(metrics.Registry)
 		Expect(err).NotTo(HaveOccurred())
@@ -140,7 +144,7 @@ func startManager(budget int32) *testManager {
 	cacheOpts, err := CacheOptions(nil)
 	Expect(err).NotTo(HaveOccurred())
 	addr := freeAddress()
-	mgr, err := ctrl.NewManager(managerCfg, ctrl.Options{
+	mgr, err := ctrl.NewManager(restCfg, ctrl.Options{
 		Scheme:  scheme,
 		Cache:   cacheOpts,
 		Metrics: metricsserver.Options{BindAddress: addr},

@@ -1,22 +1,24 @@
-// Package crash kills the trainer binary with SIGKILL at random points of train and publish,
-// reruns the killed step, and checks after every kill and at the end that latest.json always
-// points at a complete, verified run and that the outputs equal those of an uninterrupted
-// run byte for byte.
+// Package crash kills the trainer binary with SIGKILL at random points of plan, train,
+// publish and republish (TestKillAndRerun*) and after every committed storage write
+// (TestCrashPoints*), on file:// and on the S3 test server, reruns the killed step, and checks
+// after every kill and at the end that latest.json always points at a complete, verified run
+// and that the outputs equal those of an uninterrupted run byte for byte.
 package crash
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
 	"math/rand/v2"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"syscall"
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -24,16 +26,31 @@ import (
 	"almanac.dev/almanac/trainer/synth"
 )
 
-// kills bounds the loop; the seed fixes the kill points.
+// defaultKills is the length of each kill loop in `make test`; ALMANAC_CRASH_KILLS sets
+// another (`make test-crash`: 60 per store). The seed fixes the kill points.
 const (
-	kills = 10
-	seed  = 20261202
+	defaultKills = 10
+	seed         = 20261202
 )
 
-func build(t *testing.T) string {
+// killCount is ALMANAC_CRASH_KILLS, else defaultKills.
+func killCount(t *testing.T) int {
+	v := os.Getenv("ALMANAC_CRASH_KILLS")
+	if v == "" {
+		return defaultKills
+	}
+	n, err := strconv.Atoi(v)
+	if err != nil || n < 1 {
+		t.Fatalf("ALMANAC_CRASH_KILLS=%q is not a count", v)
+	}
+	return n
+}
+
+// build compiles the trainer with the given build tags (test builds only: `crashpoints`).
+func build(t *testing.T, tags ...string) string {
 	t.Helper()
 	bin := filepath.Join(t.TempDir(), "almanac-trainer")
-	cmd := exec.Command("go", "build", "-o", bin, "almanac.dev/almanac/trainer/cmd/almanac-trainer")
+	cmd := exec.Command("go", "build", "-tags", strings.Join(tags, ","), "-o", bin, "almanac.dev/almanac/trainer/cmd/almanac-trainer")
 	if out, err := cmd.CombinedOutput(); err != nil {
 		t.Fatalf("go build: %v\n%s", err, out)
 	}
@@ -116,17 +133,13 @@ func steps(t *testing.T, bin, cfg string, shards int) map[string]time.Duration {
 	return d
 }
 
-func itoa(i int) string { return string(rune('0' + i)) }
+func itoa(i int) string { return strconv.Itoa(i) }
 
 // checkLatest follows latest.json (if any) and verifies the run it names is complete.
 func checkLatest(t *testing.T, out string, when string) string {
 	t.Helper()
 	ctx := context.Background()
-	st, err := store.Open(ctx, out)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer st.Close()
+	st := openTree(t, out)
 	p, ok, err := st.ReadLatest(ctx)
 	if err != nil || !ok {
 		t.Fatalf("%s: latest.json: ok %v, %v", when, ok, err)
@@ -149,35 +162,33 @@ func checkLatest(t *testing.T, out string, when string) string {
 	return p.Run
 }
 
-// files reads every output file except the in-flight temporaries a killed write leaves and
-// config.json (it names the output URI, which differs between the two trees).
-func files(t *testing.T, root string) map[string][]byte {
-	t.Helper()
-	got := map[string][]byte{}
-	err := filepath.Walk(root, func(p string, info os.FileInfo, err error) error {
-		if err != nil || info.IsDir() || strings.HasSuffix(p, ".tmp") || filepath.Base(p) == store.ConfigName {
-			return err
-		}
-		b, err := os.ReadFile(p)
-		got[strings.TrimPrefix(p, root)] = b
-		return err
-	})
-	if err != nil {
-		t.Fatal(err)
-	}
-	return got
-}
-
-func TestKillAndRerun(t *testing.T) {
+func TestKillAndRerunFile(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds the trainer and runs it about 30 times")
 	}
-	bin := build(t)
 	dir := t.TempDir()
+	killAndRerun(t, build(t), dir, func(name string) string { return "file://" + filepath.Join(dir, name) })
+}
+
+func TestKillAndRerunS3(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the trainer and runs it about 30 times")
+	}
+	srv := s3test.Start(t, "fenwick-kills")
+	killAndRerun(t, build(t), t.TempDir(), func(name string) string { return srv.URI("fenwick-kills", name+"/") })
+}
+
+// killAndRerun: two uninterrupted runs into the reference tree; run 1 uninterrupted into the
+// crash tree, then run 2 with killCount kills at random times of random steps: plan, a train
+// shard, publish (a republish once run 2 is published: the second half of the kills starts
+// after one clean publish). Every killed step is rerun before the next kill except publish,
+// whose kill leaves whatever it left for the next step to meet.
+func killAndRerun(t *testing.T, bin, dir string, tree func(name string) string) {
+	kills := killCount(t)
 	in1, in2 := filepath.Join(dir, "in1"), filepath.Join(dir, "in2")
 	dataset(t, in1, 0)
 	dataset(t, in2, 10) // the second run sees 10 new days and evaluates the first run
-	ref, crash := "file://"+filepath.Join(dir, "ref"), "file://"+filepath.Join(dir, "crash")
+	ref, crash := tree("ref"), tree("crash")
 	const shards = 4 // 600 series, 150 per shard, one depot object per shard
 
 	// Reference: two uninterrupted runs.
@@ -185,34 +196,61 @@ func TestKillAndRerun(t *testing.T) {
 	times := steps(t, bin, writeConfig(t, dir+"/", "flp-r2", "file://"+in2+"/", ref), shards)
 	checkLatest(t, ref, "reference")
 
-	// Crash tree: run 1 uninterrupted, then run 2 with kills during train and publish.
+	// Crash tree: run 1 uninterrupted, then run 2 with kills.
 	steps(t, bin, writeConfig(t, dir+"/crash-", "flp-r1", "file://"+in1+"/", crash), shards)
 	checkLatest(t, crash, "after run 1")
 	cfg2 := writeConfig(t, dir+"/crash-", "flp-r2", "file://"+in2+"/", crash)
 	trainer(t, bin, "plan", "--config", cfg2)
 
 	rng := rand.New(rand.NewPCG(seed, 1))
-	landed := 0
+	landed := map[string]int{}
 	for k := 0; k < kills; k++ {
-		step := rng.IntN(shards + 1) // shards 0..3 train, 4 publish
-		args := []string{"publish", "--config", cfg2}
-		name := "publish"
-		if step < shards {
-			args = []string{"train", "--config", cfg2, "--shard", itoa(step)}
-			name = "train-" + itoa(step)
+		if k == kills/2 {
+			// From here on publish is a republish: run 2 is what latest.json names.
+			for i := 0; i < shards; i++ {
+				trainer(t, bin, "train", "--config", cfg2, "--shard", itoa(i))
+			}
+			trainer(t, bin, "publish", "--config", cfg2)
+			if run := checkLatest(t, crash, "after the clean publish"); run != "flp-r2" {
+				t.Fatalf("latest -> %s after a clean publish of flp-r2", run)
+			}
 		}
-		delay := time.Duration(rng.Float64() * 1.1 * float64(times[name]))
+		step := rng.IntN(shards + 2) // 0..3 train, 4 publish, 5 plan
+		args, name := []string{"publish", "--config", cfg2}, "publish"
+		switch {
+		case step < shards:
+			args, name = []string{"train", "--config", cfg2, "--shard", itoa(step)}, "train-"+itoa(step)
+		case step == shards+1:
+			args, name = []string{"plan", "--config", cfg2}, "plan"
+		}
+		kind := name
+		if name == "publish" && k >= kills/2 {
+			kind = "republish"
+		}
+		delay := time.Duration(rng.Float64() * 0.9 * float64(times[name]))
 		if killed(t, bin, delay, args...) {
-			landed++
+			landed[strings.SplitN(kind, "-", 2)[0]]++
 		}
-		run := checkLatest(t, crash, "after kill "+itoa(k)+" of "+name)
-		t.Logf("kill %d: %s after %v (step takes %v); latest -> %s", k, name, delay.Round(time.Millisecond), times[name].Round(time.Millisecond), run)
-		if step < shards { // rerun the killed shard so that the next kills hit later steps too
+		run := checkLatest(t, crash, "after kill "+itoa(k)+" of "+kind)
+		t.Logf("kill %d: %s after %v (step takes %v); latest -> %s", k, kind, delay.Round(time.Millisecond), times[name].Round(time.Millisecond), run)
+		if name != "publish" { // rerun the killed step so that the next kills hit later steps too
 			trainer(t, bin, args...)
 		}
 	}
-	if landed < kills/2 {
-		t.Fatalf("only %d of %d kills landed before the step ended; the delays are too long", landed, kills)
+	total := 0
+	for _, n := range landed {
+		total += n
+	}
+	t.Logf("%d of %d kills landed before the step ended: %v", total, kills, landed)
+	if total < kills/2 {
+		t.Fatalf("only %d of %d kills landed before the step ended; the delays are too long", total, kills)
+	}
+	if kills >= 40 {
+		for _, kind := range []string{"plan", "train", "publish", "republish"} {
+			if landed[kind] == 0 {
+				t.Errorf("no kill landed in %s", kind)
+			}
+		}
 	}
 	// Finish: every shard and publish, as the Job controller's retries would.
 	for i := 0; i < shards; i++ {
@@ -224,7 +262,10 @@ func TestKillAndRerun(t *testing.T) {
 	}
 	// Run 2 saw 10 new days, so it evaluated run 1's Parquet forecasts.
 	var m pipeline.Manifest
-	st, _ := store.Open(context.Background(), crash)
+	st, err := store.Open(context.Background(), crash)
+	if err != nil {
+		t.Fatal(err)
+	}
 	defer st.Close()
 	if err := st.GetJSON(context.Background(), "runs/flp-r2/MANIFEST.json", &m); err != nil {
 		t.Fatal(err)
@@ -232,15 +273,7 @@ func TestKillAndRerun(t *testing.T) {
 	if a := m.Totals.Accuracy; a == nil || a.Evaluated < 500 || a.EvaluatedPoints != 10*a.Evaluated {
 		t.Fatalf("run 2 accuracy %+v, want about 600 series evaluated on 10 points each", a)
 	}
-	want, got := files(t, filepath.Join(dir, "ref")), files(t, filepath.Join(dir, "crash"))
-	for k, v := range want {
-		if !bytes.Equal(v, got[k]) {
-			t.Errorf("%s differs from the uninterrupted run (%d vs %d bytes)", k, len(got[k]), len(v))
-		}
-	}
-	for k := range got {
-		if _, ok := want[k]; !ok {
-			t.Errorf("%s exists only in the crashed tree", k)
-		}
+	for _, d := range diffTrees(storeFiles(t, ref), storeFiles(t, crash)) {
+		t.Error(d)
 	}
 }

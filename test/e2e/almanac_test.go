@@ -10,6 +10,8 @@ import (
 	. "github.com/onsi/ginkgo/v2"
 	. "github.com/onsi/gomega"
 	batchv1 "k8s.io/api/batch/v1"
+	corev1 "k8s.io/api/core/v1"
+	apimeta "k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/utils/ptr"
 	"sigs.k8s.io/controller-runtime/pkg/client"
@@ -183,6 +185,33 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		expectClean(finishedRun(ctx, c, ns, "fenwick-restart-1"))
 		Expect(d.latestRun()).To(Equal("fenwick-restart-1"))
 	}, SpecTimeout(4*time.Minute))
+
+	It("learns a missing credentials Secret from the plan pod, reports it Stalled, and runs once it exists", func(ctx SpecContext) {
+		// The controller has no right on Secrets: localnode, as the kubelet, leaves the plan
+		// pod waiting in CreateContainerConfigError until the Secret appears.
+		ns, d, fp := newPortfolio(ctx, c, "nosecret", "fenwick-nosecret", trainerImage, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Source.CredentialsSecretRef = &forecastingv1alpha1.SecretReference{Name: "fenwick-store"}
+		})
+		manualRun(ctx, c, fp, "fenwick-nosecret-1")
+		Eventually(func(g Gomega) {
+			var run forecastingv1alpha1.ForecastRun
+			g.Expect(c.Get(ctx, client.ObjectKey{Namespace: ns, Name: "fenwick-nosecret-1"}, &run)).To(Succeed())
+			cond := apimeta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunStalled)
+			g.Expect(cond).NotTo(BeNil())
+			g.Expect(cond.Reason).To(Equal(forecastingv1alpha1.ReasonMissingSecret))
+			g.Expect(cond.Message).To(HavePrefix("spec.source.credentialsSecretRef: Secret " + ns + "/fenwick-store not found"))
+			var got forecastingv1alpha1.ForecastPortfolio
+			g.Expect(c.Get(ctx, client.ObjectKeyFromObject(fp), &got)).To(Succeed())
+			g.Expect(conditionStatus(got.Status.Conditions, forecastingv1alpha1.PortfolioStalled)).To(Equal(metav1.ConditionTrue))
+		}).WithContext(ctx).WithTimeout(time.Minute).WithPolling(250 * time.Millisecond).Should(Succeed())
+
+		By("creating the Secret: the pod starts and the run publishes")
+		Expect(c.Create(ctx, &corev1.Secret{ObjectMeta: metav1.ObjectMeta{Namespace: ns, Name: "fenwick-store"}})).To(Succeed())
+		run := finishedRun(ctx, c, ns, "fenwick-nosecret-1")
+		expectClean(run)
+		Expect(apimeta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunStalled)).To(BeNil())
+		Expect(d.latestRun()).To(Equal("fenwick-nosecret-1"))
+	}, SpecTimeout(3*time.Minute))
 
 	It("rejects bad series with reasons and forecasts the rest", func(ctx SpecContext) {
 		ns := newNamespace(ctx, "badseries")

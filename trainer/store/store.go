@@ -372,6 +372,14 @@ func (s *Store) Exists(ctx context.Context, key string) (bool, error) {
 // Write streams an object through fn and commits it atomically when fn returns nil; if fn
 // fails, nothing is written and fn's error is returned.
 func (s *Store) Write(ctx context.Context, key string, fn func(w io.Writer) error) error {
+	err := s.write(ctx, key, fn)
+	if err == nil {
+		committed("write", key)
+	}
+	return err
+}
+
+func (s *Store) write(ctx context.Context, key string, fn func(w io.Writer) error) error {
 	k, err := s.full(key)
 	if err != nil {
 		return err
@@ -431,6 +439,7 @@ func (s *Store) Copy(ctx context.Context, dst, src string) error {
 	if err != nil {
 		return fmt.Errorf("store: copy %s to %s: %w", s.Describe(src), s.Describe(dst), classify(err))
 	}
+	committed("copy", dst)
 	return nil
 }
 
@@ -447,6 +456,7 @@ func (s *Store) Delete(ctx context.Context, key string) error {
 	if err != nil && gcerrors.Code(err) != gcerrors.NotFound {
 		return fmt.Errorf("store: delete %s: %w", s.Describe(key), classify(err))
 	}
+	committed("delete", key)
 	return nil
 }
 
