@@ -36,6 +36,8 @@ type Options struct {
 	Combinations []design.Combination
 	// Log, when set, receives each group's design.Outcome.
 	Log io.Writer
+	// Levels are the quantile levels to publish (selection.Config.Levels; nil: none).
+	Levels []float64
 }
 
 // Run forecasts every entry with design.Forecast, the function a portfolio's train step
@@ -52,7 +54,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 	}
 	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
 		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin,
-		BacktestUpdate: o.BacktestUpdate}
+		BacktestUpdate: o.BacktestUpdate, Levels: o.Levels}
 	type group struct {
 		cat string
 		h   int

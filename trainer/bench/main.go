@@ -83,6 +83,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	marginPercent := fs.Int("combine-margin-percent", 0, "as a portfolio's spec.selection.combine.marginPercent: choose the combination unless the best member beats it by more than this percent of the best member's score")
 	mode := fs.String("design", "Auto", `as spec.selection.design, any case: "Auto": what a portfolio's default spec.selection.design Auto runs (design.Forecast: one design per segment, chosen on an inner holdout of training data from candidates built from --zoo); "PerSeries": each series' best --zoo member by backtest; "Fixed": exactly the zoo and combination the flags give`)
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
+	quantiles := fs.String("quantiles", "", `also publish these quantiles (percents, "10,50,90") and measure their calibration on the test data against the nominal levels and each series' backtest promise`)
 	if code, ok := cli.Parse(fs, "usage: almanac-trainer bench (--data DIR | --m3) [flags]\nScores the model zoo on a dataset in the M3 or the long layout.", args, stdout, stderr); !ok {
 		return code
 	}
@@ -120,8 +121,13 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "bench: --reference-r-methods: %v\n", err)
 		return 2
 	}
+	levels, err := ParseQuantiles(*quantiles)
+	if err != nil {
+		fmt.Fprintf(stderr, "bench: --quantiles %v\n", err)
+		return 2
+	}
 	// Every flag is checked before any data is read.
-	o := Options{Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
+	o := Options{Levels: levels, Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
 		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
 	switch {
@@ -191,6 +197,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	if rep.All.ExpectedN > 0 {
 		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
 			o.Metric, rep.All.Expected/float64(rep.All.ExpectedN), rep.All.ExpectedN)
+	}
+	if len(levels) > 0 {
+		writeCalibration(stdout, Calibration(entries, results, levels))
 	}
 	var refs []*Report
 	if *refR {
