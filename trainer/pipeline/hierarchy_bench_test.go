@@ -1,0 +1,189 @@
+package pipeline
+
+import (
+	"context"
+	"math"
+	"slices"
+	"sort"
+	"testing"
+	"time"
+
+	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/reconcile"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/synth"
+)
+
+// BenchmarkHierarchy measures what reconciliation buys and costs on generated item x depot
+// data with known shared structure: Fenwick Lane Provisions' weekly demand (trainer/synth: every
+// series shares the distributor's yearly cycle, with its own level, trend, promotions and
+// noise), 30 items at 6 depots, three years; four origins, each holding out the next 12 weeks (the last 48 weeks in all). Every node (180 item x
+// depot series, 6 depot totals, 30 item totals, the grand total) gets a base forecast from the
+// same zoo and design (ETS, Theta, Naive, SeasonalNaive, the fixed per-series choice); each
+// method then reconciles them. Reported per level: the mean MASE (scale: the in-sample mean
+// absolute one-step naive error, Hyndman & Koehler 2006) of the reconciled forecasts over the
+// base forecasts' (below 1: reconciliation helped), and the share of held-out actuals inside
+// the 10-90% band (nominal 0.80) for base and reconciled; and the extra cost per bottom series,
+// (aggregates' forecasts + reconciliation) / (the bottom series' forecasts), wall time in the
+// same run.
+//
+//	go test ./trainer/pipeline -run '^$' -bench Hierarchy -benchtime 1x
+func BenchmarkHierarchy(b *testing.B) {
+	const horizon, items, depots, periods, origins = 12, 30, 6, 156, 4
+	o := synth.Options{Items: items, Depots: depots, Frequency: synth.Weekly, Periods: periods, SpareShare: -1, Seed: 7}
+	full := map[string]*series.Series{}
+	var keys []string
+	for d := 0; d < depots; d++ {
+		err := o.Depot(d, func(r synth.Record) error {
+			s := full[r.Key()]
+			if s == nil {
+				s = &series.Series{Key: r.Key(), Start: r.Date, Freq: series.Weekly}
+				full[r.Key()] = s
+				keys = append(keys, r.Key())
+			}
+			s.Values = append(s.Values, r.Units)
+			return nil
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	sort.Strings(keys)
+	cfg := &runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: "bench",
+		Source: runconfig.Source{URI: "mem://in/", Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true,
+			Partitioning: runconfig.PartitionHashBuckets, Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units"}},
+		Output: runconfig.Output{URI: "mem://out/", Format: "csv"}, Horizon: horizon, QuantilePercents: []int{10, 50, 90},
+		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}},
+		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 2, BacktestRefit: runconfig.RefitOnce,
+			Design: runconfig.DesignFixed, DesignCostPercent: 500},
+		Sharding:  runconfig.Sharding{TargetSeriesPerShard: 1000},
+		Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 1},
+		Hierarchy: &runconfig.Hierarchy{Levels: [][]string{{"depot"}, {"item"}, {}}, ShardBy: []string{"depot"}, Method: "StructuralScaling", NonNegative: true},
+	}
+	st, err := Check(cfg)
+	if err != nil {
+		b.Fatal(err)
+	}
+	h := newHierarchy(cfg)
+	levels := []string{h.bottom, "depot", "item", "total"}
+	methods := []string{"base", "BottomUp", "OLS", "StructuralScaling", "MinTShrink"}
+	forecast := func(in []series.Series) ([]NodeBase, time.Duration) {
+		t0 := time.Now()
+		out := make([]NodeBase, len(in))
+		_, err := design.Forecast(context.Background(), in, st.Design(2), func(i int, r design.Result, err error) {
+			if err != nil {
+				b.Fatalf("%s: %v", in[i].Key, err)
+			}
+			out[i] = baseOf(in[i], h.levelOf(in[i].Key), r)
+		})
+		if err != nil {
+			b.Fatal(err)
+		}
+		return out, time.Since(t0)
+	}
+	for it := 0; it < b.N; it++ {
+		scores := map[string]*levelScore{}
+		for _, m := range methods {
+			scores[m] = newLevelScore(len(levels))
+		}
+		var tBottom, tAggs time.Duration
+		tRec := map[string]time.Duration{}
+		for origin := 1; origin <= origins; origin++ {
+			cut := periods - origin*horizon
+			var bottom, next []series.Series
+			for _, k := range keys {
+				s := *full[k]
+				s.Values = slices.Clone(s.Values[:cut])
+				bottom = append(bottom, s)
+				s2 := *full[k]
+				s2.Values = s2.Values[:cut+horizon]
+				next = append(next, s2)
+			}
+			aggs := h.aggregate(bottom, h.levels)
+			actual, history := map[string][]float64{}, map[string][]float64{}
+			for _, s := range append(next, h.aggregate(next, h.levels)...) {
+				actual[s.Key] = s.Values[cut:]
+			}
+			for _, s := range append(slices.Clone(bottom), aggs...) {
+				history[s.Key] = s.Values
+			}
+			bottomBase, t1 := forecast(bottom)
+			aggBase, t2 := forecast(aggs)
+			tBottom, tAggs = tBottom+t1, tAggs+t2
+			nodes := append(bottomBase, aggBase...)
+			scores["base"].add(h, nodes, nil, actual, history, levels)
+			for _, m := range methods[1:] {
+				h.method = reconcile.Method(m)
+				t0 := time.Now()
+				tr, err := h.reconcileTree(nodes, series.Weekly)
+				tRec[m] += time.Since(t0)
+				if err != nil {
+					b.Fatal(err)
+				}
+				scores[m].add(h, nodes, &tr, actual, history, levels)
+			}
+		}
+		b.Logf("%d items x %d depots (%d bottom series, %d aggregates), horizon %d, %d origins; base forecasts %.2fs (bottom) + %.2fs (aggregates)",
+			items, depots, len(keys), 1+items+depots, horizon, origins, tBottom.Seconds(), tAggs.Seconds())
+		b.Logf("%-18s %-11s %8s %8s %8s %8s", "method", "", levels[0], levels[1], levels[2], levels[3])
+		base := scores["base"]
+		for _, m := range methods {
+			sc := scores[m]
+			if m == "base" {
+				b.Logf("%-18s %-11s %8.4f %8.4f %8.4f %8.4f", m, "MASE", sc.mase(0), sc.mase(1), sc.mase(2), sc.mase(3))
+			} else {
+				extra := (tAggs + tRec[m]).Seconds() / tBottom.Seconds()
+				b.Logf("%-18s %-11s %8.4f %8.4f %8.4f %8.4f   extra cost per bottom series %.3f of its base forecast (reconcile %.1f ms per origin)", m, "MASE ratio",
+					sc.mase(0)/base.mase(0), sc.mase(1)/base.mase(1), sc.mase(2)/base.mase(2), sc.mase(3)/base.mase(3), extra, tRec[m].Seconds()*1000/origins)
+				for j, l := range levels {
+					b.ReportMetric(sc.mase(j)/base.mase(j), m+"/"+l+"-ratio")
+				}
+				if m == "MinTShrink" {
+					b.ReportMetric(extra, "extra-cost-ratio")
+				}
+			}
+			b.Logf("%-18s %-11s %8.3f %8.3f %8.3f %8.3f", m, "cover 10-90", sc.cover(0), sc.cover(1), sc.cover(2), sc.cover(3))
+		}
+	}
+}
+
+// levelScore sums, per level, MASE over nodes and origins and the held-out actuals inside the
+// 10-90% band.
+type levelScore struct {
+	sum           []float64
+	n, in, points []int
+}
+
+func newLevelScore(levels int) *levelScore {
+	return &levelScore{sum: make([]float64, levels), n: make([]int, levels), in: make([]int, levels), points: make([]int, levels)}
+}
+
+func (ls *levelScore) mase(j int) float64  { return ls.sum[j] / float64(ls.n[j]) }
+func (ls *levelScore) cover(j int) float64 { return float64(ls.in[j]) / float64(ls.points[j]) }
+
+// add scores the nodes' forecasts (the reconciled ones when tr is set) on the held-out actuals.
+func (ls *levelScore) add(h *hierarchy, nodes []NodeBase, tr *treeResult, actual, history map[string][]float64, levels []string) {
+	for _, nd := range nodes {
+		j := slices.Index(levels, nd.Level)
+		mean := []float64(nd.Mean)
+		lo, hi := []float64(nd.Quantiles[0]), []float64(nd.Quantiles[len(nd.Quantiles)-1])
+		if tr != nil {
+			mean = tr.mean[nd.Key]
+			lo, hi = tr.quantiles[nd.Key][0], tr.quantiles[nd.Key][len(nd.Quantiles)-1]
+		}
+		y := actual[nd.Key]
+		if e := backtest.MeanAbsScaledError(y, mean, history[nd.Key], 1); !math.IsNaN(e) && !math.IsInf(e, 0) {
+			ls.sum[j] += e
+			ls.n[j]++
+		}
+		for t := range y {
+			ls.points[j]++
+			if y[t] >= lo[t] && y[t] <= hi[t] {
+				ls.in[j]++
+			}
+		}
+	}
+}
