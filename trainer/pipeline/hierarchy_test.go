@@ -6,8 +6,10 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/summary"
 	"almanac.dev/almanac/trainer/synth"
 )
 
@@ -104,5 +106,96 @@ func TestHierarchyWithinShards(t *testing.T) {
 	}
 	if c.Aggregates != 4 || !c.Coherent() {
 		t.Errorf("%d aggregates, largest deviation %g at %s; want 4 and <= %g", c.Aggregates, c.MaxDeviation, c.Worst, CoherenceTolerance)
+	}
+}
+
+// TestHierarchySecondRunEvaluatesEveryLevel: a second run evaluates the first run's published
+// forecasts at every level against the new actuals: the shards report the bottom level and
+// the depot totals they hold, the reconcile step the item totals and the grand total, each
+// node once (summary.Levels, the controller's per-level status).
+func TestHierarchySecondRunEvaluatesEveryLevel(t *testing.T) {
+	cfg := hierarchyRun(t, "flp-hier-eval", [][]string{{"depot"}, {"item"}, {}}, "StructuralScaling")
+	ctx := context.Background()
+	first := time.Date(2026, 1, 27, 6, 0, 0, 0, time.UTC) // four weeks before the data ends
+	cfg.ScheduledTime = first
+	if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	second := *cfg
+	second.Run, second.ScheduledTime = "flp-hier-eval-2", anchor
+	ps, err := RunPlan(ctx, &second, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	nodes := map[string]int{}
+	evaluated := map[string]int{}
+	add := func(levels []summary.Level) {
+		for _, l := range levels {
+			nodes[l.Name] += l.Nodes
+			if l.Accuracy != nil {
+				evaluated[l.Name] += l.Accuracy.Evaluated
+			}
+		}
+	}
+	for i := 0; i < ps.Shards; i++ {
+		ts, err := RunTrain(ctx, &second, i, testEnv())
+		if err != nil {
+			t.Fatal(err)
+		}
+		add(ts.Levels)
+		for _, l := range ts.Levels {
+			if l.Name == "item" || l.Name == "total" {
+				t.Errorf("shard %d reports level %s, which spans shards", i, l.Name)
+			}
+		}
+	}
+	rs, err := RunReconcile(ctx, &second, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	add(rs.Levels)
+	if rs.MaxDeviation > CoherenceTolerance {
+		t.Errorf("reconcile summary: largest deviation %g", rs.MaxDeviation)
+	}
+	want := map[string]int{"item+depot": 20, "depot": 4, "item": 5, "total": 1}
+	for l, n := range want {
+		if nodes[l] != n || evaluated[l] != n {
+			t.Errorf("level %s: %d nodes, %d evaluated; want %d of each", l, nodes[l], evaluated[l], n)
+		}
+	}
+	if _, err := RunPublish(ctx, &second, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, second.Run)
+	if c, err := CheckCoherence(ctx, out, m, &second); err != nil || !c.Coherent() {
+		t.Errorf("second run: %+v %v", c, err)
+	}
+}
+
+// TestHierarchyRefusesAMissingUnit: a shard that did not finish leaves its depots out of the
+// tree; reconcile refuses (exit 5) and latest.json stays on the previous run.
+func TestHierarchyRefusesAMissingUnit(t *testing.T) {
+	cfg := hierarchyRun(t, "flp-hier-missing", [][]string{{"depot"}, {"item"}, {}}, "OLS")
+	ctx := context.Background()
+	ps, err := RunPlan(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 1; i < ps.Shards; i++ { // shard 0 never runs
+		if _, err := RunTrain(ctx, cfg, i, testEnv()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	_, err = RunReconcile(ctx, cfg, testEnv())
+	if ExitCode(err) != exitcode.Refused || !strings.Contains(err.Error(), "published only whole") && !strings.Contains(err.Error(), "every unit trained in this run") {
+		t.Fatalf("reconcile with a missing unit: exit %d: %v", ExitCode(err), err)
+	}
+	_, err = RunPublish(ctx, cfg, testEnv())
+	if ExitCode(err) != exitcode.Refused || !strings.Contains(err.Error(), "reconcile step did not finish") {
+		t.Fatalf("publish without the reconcile step: exit %d: %v", ExitCode(err), err)
+	}
+	if _, ok, _ := mustOpen(t, cfg.Output.URI).ReadLatest(ctx); ok {
+		t.Error("latest.json was written")
 	}
 }
