@@ -315,6 +315,24 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(testutil.ToFloat64(current.runsCounter(ns, "fenwick-degraded", "degraded"))).To(Equal(1.0))
 	})
 
+	It("publishes a run that went without broken input objects and marks it Degraded naming them", func() {
+		ns := newNamespace()
+		createSecret(ns)
+		testPortfolio(ns, "fenwick-broken", yearly, nil)
+		manualRun(ns, "fenwick-broken-1", "fenwick-broken")
+		broken := "1 input object broken, their series carried forward: depot-brill.csv (at plan: line 1: header column 1 holds NUL bytes)"
+		succeedSingle(ns, "fenwick-broken-1", stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 1, Series: 100, Broken: broken})
+		train := getJob(ns, "fenwick-broken-1", stepTrain)
+		finishShards(train, []int{0}, nil, shardSummary)
+		completeJob(train)
+		Eventually(phaseOf(ns, "fenwick-broken-1")).Should(Equal(forecastingv1alpha1.PhasePublishing))
+		succeedSingle(ns, "fenwick-broken-1", stepPublish, summary.Summary{Kind: summary.KindPublish, CarriedForward: 1, Broken: broken})
+		Eventually(phaseOf(ns, "fenwick-broken-1")).Should(Equal(forecastingv1alpha1.PhaseSucceeded))
+		run := getRun(ns, "fenwick-broken-1")
+		Expect(conditionOf(run, forecastingv1alpha1.RunDegraded)()).To(Equal("True/BrokenInput"))
+		Expect(meta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunDegraded).Message).To(ContainSubstring("depot-brill.csv (at plan: "))
+	})
+
 	It("fails the run with PublishRefused when the publish guard refuses, and says so on the portfolio", func() {
 		ns := newNamespace()
 		createSecret(ns)

@@ -494,6 +494,15 @@ func (r *RunReconciler) publish(ctx context.Context, run *forecastingv1alpha1.Fo
 		setCondition(run, &w.status.Conditions, forecastingv1alpha1.RunDegraded, metav1.ConditionTrue, forecastingv1alpha1.ReasonShardsFailed, msg, r.Clock.Now())
 		note += fmt.Sprintf("; %d units without a forecast", s.Missing)
 	}
+	if ok && serr == nil && s.Broken != "" {
+		// Input objects the trainer could not read and went on without (issue 18 case 4).
+		msg := s.Broken
+		if c := meta.FindStatusCondition(w.status.Conditions, forecastingv1alpha1.RunDegraded); c != nil && c.Status == metav1.ConditionTrue {
+			msg = c.Message + "; " + msg
+		}
+		setCondition(run, &w.status.Conditions, forecastingv1alpha1.RunDegraded, metav1.ConditionTrue, forecastingv1alpha1.ReasonBrokenInput, msg, r.Clock.Now())
+		note += "; " + s.Broken
+	}
 	r.finish(run, w, true, forecastingv1alpha1.ReasonPublished, note)
 	return nil
 }

@@ -92,6 +92,9 @@ const (
 	// ReasonPublishRefused: the publish guard (spec.publish) found too few forecasts; the run
 	// published nothing and the portfolio's latest forecasts are the previous run's.
 	ReasonPublishRefused = "PublishRefused"
+	// ReasonBrokenInput (Degraded): the run published without input objects it could not read;
+	// their series kept their previous forecasts. The message names the objects.
+	ReasonBrokenInput = "BrokenInput"
 	// ReasonPodConfigError: a trainer pod's container waits in CreateContainerConfigError for
 	// a reason other than a missing credentials Secret (the message quotes the kubelet).
 	ReasonPodConfigError = "PodConfigError"

@@ -43,6 +43,11 @@ func ScanCSV(ctx context.Context, r io.Reader, object string, src runconfig.Sour
 		if !utf8.ValidString(head[i]) {
 			return brokenf("%s line 1: header column %d is not valid UTF-8", object, i+1)
 		}
+		if strings.ContainsRune(head[i], 0) {
+			// UTF-16 text without a byte-order mark is valid UTF-8 with a NUL after every ASCII
+			// letter: the encoding is wrong, not the column names.
+			return brokenf("%s line 1: header column %d holds NUL bytes: not UTF-8 text (UTF-16?)", object, i+1)
+		}
 		head[i] = strings.TrimSpace(strings.TrimPrefix(head[i], "\ufeff"))
 	}
 	m, err := mapColumns(src.Columns, head)

@@ -23,19 +23,37 @@ import (
 // one record of why a series was not forecast. It returns the carried rows and how many series
 // they hold; maxRuns 0 carries nothing (publish.maxCarriedRuns).
 //
+// When the unit went without some input objects (loaded.broken: a hash-bucket shard skipped
+// objects it could not read), the series of the previous forecasts that are absent from this
+// run's input are added to the rejections, naming those objects, and carried the same way:
+// their rows were most likely in the objects that could not be read. The returned rejections
+// are rejected with those rows added.
+//
 // The forecast is not shortened: periods that are already past stay in it, as a reader of the
 // previous run saw them. The series stays rejected in the counts (Counts.Rejected) and counts
 // in Counts.Carried; the publish guard does not count it as forecast.
 func carryForward(ctx context.Context, out *store.Store, keys []string, levels []float64, maxRuns int,
-	prev *Manifest, u *loaded, rejected []tables.RejectedRow) ([]tables.ForecastRow, int, error) {
-	if prev == nil || maxRuns <= 0 || len(rejected) == 0 {
-		return nil, 0, nil
+	prev *Manifest, u *loaded, rejected []tables.RejectedRow) ([]tables.RejectedRow, []tables.ForecastRow, int, error) {
+	if prev == nil || maxRuns <= 0 || (len(rejected) == 0 && len(u.broken) == 0) {
+		return rejected, nil, 0, nil
 	}
 	at := make(map[string]int, len(rejected))
 	for i, r := range rejected {
 		if r.Key != "" {
 			at[r.Key] = i
 		}
+	}
+	present := map[string]bool{}
+	absent := ""
+	if len(u.broken) > 0 {
+		for _, s := range u.series {
+			present[s.Key] = true
+		}
+		var names []string
+		for _, b := range u.broken {
+			names = append(names, b.Key)
+		}
+		absent = "not in this run's input, which went without the broken objects " + clip(strings.Join(names, ", "), 300)
 	}
 	rows := map[string][]tables.ForecastRow{}
 	otherLevels := map[string]bool{}
@@ -52,10 +70,14 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 			continue // pruned: nothing to carry
 		}
 		if err != nil {
-			return nil, 0, err
+			return nil, nil, 0, err
 		}
 		same := slices.Equal(h.Quantiles, levels)
 		for _, r := range fcs {
+			if _, ok := at[r.Key]; !ok && absent != "" && !present[r.Key] {
+				rejected = append(rejected, tables.RejectedRow{Key: r.Key, Reason: absent})
+				at[r.Key] = len(rejected) - 1
+			}
 			if _, ok := at[r.Key]; !ok {
 				continue
 			}
@@ -93,5 +115,6 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 		}
 		return carried[i].Step < carried[j].Step
 	})
-	return carried, n, nil
+	sort.SliceStable(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
+	return rejected, carried, n, nil
 }

@@ -67,6 +67,9 @@ type UnitDone struct {
 	// Levels (hierarchical runs) counts the nodes the unit forecast per hierarchy level, with
 	// the accuracy of their evaluation.
 	Levels []summary.Level `json:"levels,omitempty"`
+	// Broken lists the input objects the unit's shard could not read (hash buckets: every
+	// shard reads every object) and went on without (loadBuckets).
+	Broken []BrokenObject `json:"broken,omitempty"`
 }
 
 // ManifestUnit is one unit's entry in the manifest.
@@ -95,6 +98,9 @@ type Manifest struct {
 	Complete bool           `json:"complete"`
 	Units    []ManifestUnit `json:"units"`
 	Totals   Totals         `json:"totals"`
+	// Broken lists the input objects the run could not read, at plan or in train; their
+	// series kept their previous forecasts (carried forward by unit or by series).
+	Broken []BrokenObject `json:"brokenObjects,omitempty"`
 }
 
 // Totals add up the manifest's units.

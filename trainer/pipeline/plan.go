@@ -67,6 +67,10 @@ type Object struct {
 	// ETag is the store's version tag of the object at plan time ("" when the backend has none,
 	// and in plans written before it was recorded).
 	ETag string `json:"etag,omitempty"`
+	// Broken, when set, says why plan could not read the object (broken input: an empty or
+	// UTF-16 export, a ragged row, damaged Parquet). No shard reads it; publish carries its
+	// series forward and the run reports it (BrokenObject).
+	Broken string `json:"broken,omitempty"`
 }
 
 // Unit is a stable piece of input. Exactly one of Object and Bucket applies: an object unit

@@ -16,8 +16,10 @@ import (
 // and distinct series keys (the counts weigh the units and size the shards), builds the units
 // the source's partitioning calls for, cuts them into shards (Cut), and writes
 // runs/<run>/config.json and then runs/<run>/plan.json. The summary carries units, shards,
-// series and input bytes. A broken object fails the plan naming it (exit 3): the shard count
-// cannot be known without it.
+// series and input bytes. A broken object (isolate) is recorded in plan.json with the reason
+// and the plan goes on without its rows (with partitioning Objects its unit stays, empty, for
+// publish to carry forward); the summary names it. Only input with no readable row fails the
+// plan (exit 3).
 //
 // Reading everything once costs one pass over the input, the same as training it; it buys
 // exact series counts for the controller and for balancing. Memory is a set of 64-bit key
@@ -40,6 +42,7 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 		sum.Bytes += o.Size
 	}
 	sum.Units, sum.Shards, sum.Series, sum.Reconcile = len(p.Units), len(p.Shards), p.Series, p.Reconcile
+	sum.Broken = brokenText(p.brokenAtPlan())
 	cb, err := runconfig.Encode(cfg)
 	if err != nil {
 		return sum, err
@@ -73,6 +76,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	if cutoff.IsZero() {
 		cutoff = env.now()
 	}
+	var firstBroken error
 	h := newHierarchy(cfg)
 	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second),
 		Reconcile: h != nil && h.spanning}
@@ -87,38 +91,49 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	}
 	switch cfg.Source.Partitioning {
 	case runconfig.PartitionObjects:
-		for _, o := range objs {
+		for i, o := range objs {
+			// A broken object keeps its unit (no series counted): train skips it and publish
+			// carries the unit's previous forecast forward.
 			u := Unit{ID: ObjectID(o.Key, nil), Object: o.Key}
-			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil, latest); err != nil {
+			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil, latest); isolate(ctx, &objs[i], err, &firstBroken) != nil {
 				return nil, err
+			}
+			if objs[i].Broken != "" {
+				u.Series, u.Rows = 0, 0
 			}
 			p.Units = append(p.Units, u)
 		}
 	case runconfig.PartitionRowGroups:
-		for _, o := range objs {
+		for i, o := range objs {
 			groups, err := src.rowGroups(ctx, o.Key)
-			if err != nil {
+			if isolate(ctx, &objs[i], err, &firstBroken) != nil {
 				return nil, err
 			}
+			var units []Unit
 			for g, info := range groups {
-				if info.Rows == 0 {
+				if info.Rows == 0 || objs[i].Broken != "" {
 					continue
 				}
 				gr := &ingest.GroupRange{From: g, To: g + 1}
 				u := Unit{ID: ObjectID(o.Key, gr), Object: o.Key, Groups: gr}
-				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr, latest); err != nil {
+				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr, latest); isolate(ctx, &objs[i], err, &firstBroken) != nil {
 					return nil, err
 				}
-				p.Units = append(p.Units, u)
+				units = append(units, u)
+			}
+			if objs[i].Broken == "" {
+				p.Units = append(p.Units, units...)
 			}
 		}
 	default:
 		rows := map[uint64]int64{}
 		group := map[uint64]uint64{} // series key hash -> the hash its bucket is taken from
-		for _, o := range objs {
+		for i, o := range objs {
+			// Counted apart and merged only when the object reads whole, so a broken one adds nothing.
+			own := map[uint64]int64{}
 			err := src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
 				k := KeyHash(r.Key)
-				rows[k]++
+				own[k]++
 				latest(r)
 				if h != nil {
 					if _, ok := group[k]; !ok {
@@ -127,14 +142,20 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 				}
 				return nil
 			})
-			if err != nil {
+			if isolate(ctx, &objs[i], err, &firstBroken) != nil {
 				return nil, err
+			}
+			if objs[i].Broken != "" {
+				continue
+			}
+			for h, n := range own {
+				rows[h] += n
 			}
 		}
 		prevBuckets := 0
-		if cfg.Sharding.Buckets == 0 {
-			prev, err := previous(ctx, out, cfg)
-			if err != nil {
+		var prev *Manifest
+		if cfg.Sharding.Buckets == 0 || firstBroken != nil {
+			if prev, err = previous(ctx, out, cfg); err != nil {
 				return nil, err
 			}
 			if prev != nil && hashedLayout(prev.Partitioning) {
@@ -143,14 +164,25 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 		}
 		p.Buckets = ChooseBuckets(cfg.Sharding.Buckets, prevBuckets, len(rows), cfg.Sharding.TargetSeriesPerShard)
 		p.Units = bucketUnits(rows, group, p.Buckets)
+		if firstBroken != nil && prevBuckets == p.Buckets {
+			// The previous run's buckets that only broken objects filled stay, empty, so that
+			// train carries their series forward (carryForward).
+			p.Units = keepPreviousBuckets(p.Units, prev, p.Buckets)
+		}
 	}
 	sort.Slice(p.Units, func(i, j int) bool { return p.Units[i].ID < p.Units[j].ID })
 	for _, u := range p.Units {
 		p.Series += u.Series
 		p.Rows += u.Rows
 	}
-	if len(p.Units) == 0 {
-		return nil, fmt.Errorf("%s: the input has no rows: %w", store.Redact(cfg.Source.URI), ingest.ErrBrokenInput)
+	if p.Series == 0 && firstBroken != nil && len(p.brokenAtPlan()) == len(p.Objects) {
+		return nil, fmt.Errorf("every input object is broken; the first: %w", firstBroken)
+	}
+	if p.Series == 0 {
+		return nil, fmt.Errorf("%s: the input has no rows%s: %w", store.Redact(cfg.Source.URI), prefixed("; ", brokenText(p.brokenAtPlan())), ingest.ErrBrokenInput)
+	}
+	for _, b := range p.brokenAtPlan() {
+		env.logf("plan: %s is broken, its series are carried forward: %s", b.Key, b.Reason)
 	}
 	if h != nil {
 		if p.HierarchyEnd, err = lastPeriod(cfg.Source, p.HierarchyEnd); err != nil {

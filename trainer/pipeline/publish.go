@@ -48,14 +48,23 @@ func RunPublish(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Su
 	if prev != nil {
 		m.PreviousRun = prev.Run
 	}
+	m.Broken = p.brokenAtPlan()
 	for _, u := range p.Units {
-		e, err := publishUnit(ctx, out, cfg.Run, prev, u.ID)
+		e, broken, err := publishUnit(ctx, out, cfg.Run, prev, u.ID)
 		if err != nil {
 			return sum, err
 		}
+		if o, ok := p.object(u.Object); ok && o.Broken != "" && e.State != StateTrained {
+			e.Reason = fmt.Sprintf("input object %s was broken at plan: %s", o.Key, o.Broken)
+			if e.State == StateMissing {
+				e.Reason += "; no earlier run has the unit"
+			}
+		}
+		m.Broken = mergeBroken(m.Broken, broken)
 		m.Units = append(m.Units, e)
 		m.Totals.add(e)
 	}
+	sum.Broken = brokenText(m.Broken)
 	m.Complete = m.Totals.Missing == 0
 	rec, why, err := reconciledUnits(ctx, out, cfg.Run, p, &m)
 	if err != nil {
@@ -150,15 +159,23 @@ func stepBack(ctx context.Context, out *store.Store, prev *Manifest) error {
 	return storageErr(out.WriteLatest(ctx, store.Pointer{Run: prev.Run, Manifest: key, ManifestSHA256: store.SHA256(pb)}))
 }
 
-// publishUnit decides one unit's manifest entry.
-func publishUnit(ctx context.Context, out *store.Store, run string, prev *Manifest, id string) (ManifestUnit, error) {
+// publishUnit decides one unit's manifest entry and returns the input objects its unit.json
+// says the shard went without.
+func publishUnit(ctx context.Context, out *store.Store, run string, prev *Manifest, id string) (ManifestUnit, []BrokenObject, error) {
 	done, reason, err := verifyUnit(ctx, out, run, id)
 	if err != nil {
-		return ManifestUnit{}, err
+		return ManifestUnit{}, nil, err
 	}
 	if reason == "" {
-		return ManifestUnit{ID: id, State: StateTrained, Source: run, Files: done.Files, Counts: done.Counts, Accuracy: done.Accuracy}, nil
+		return ManifestUnit{ID: id, State: StateTrained, Source: run, Files: done.Files, Counts: done.Counts, Accuracy: done.Accuracy}, done.Broken, nil
 	}
+	e, err := earlierEntry(ctx, out, prev, id, reason)
+	return e, nil, err
+}
+
+// earlierEntry is the entry of a unit this run did not train: the previous manifest's,
+// carried forward, when its files verify; else missing.
+func earlierEntry(ctx context.Context, out *store.Store, prev *Manifest, id, reason string) (ManifestUnit, error) {
 	if prev != nil {
 		if e, ok := prev.unit(id); ok && e.State != StateMissing {
 			bad, err := verifyFiles(ctx, out, e.Files)

@@ -68,6 +68,13 @@ type loaded struct {
 	series   []series.Series
 	rejected []ingest.Rejected
 	err      error
+	// skip says why the unit is not trained at all (its object was broken at plan); such a
+	// unit writes nothing and is not an error: publish carries it forward.
+	skip string
+	// broken are the input objects this unit could not read (hash buckets: every object of
+	// the pass, loadBuckets); dropped are series keys whose rows were in one of them, with why.
+	broken  []BrokenObject
+	dropped map[string]string
 	// nodes are the unit's within-unit aggregates and partials its partial sums of spanning
 	// nodes (hierarchy.go); nil without a hierarchy.
 	nodes, partials []series.Series
@@ -134,12 +141,19 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	fitSeconds := env.now().Sub(t0).Seconds()
 
 	var firstErr error
+	var broken []BrokenObject
 	var cal summary.Calibration
 	var stab summary.Stability
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
 	levelNodes, levelAcc := map[string]int{}, map[string]*summary.Accuracy{}
 	off := 0
 	for _, u := range units {
+		if u.skip != "" {
+			env.logf("train: shard %d unit %s: not trained: %s", shard, u.unit.ID, u.skip)
+			broken = mergeBroken(broken, p.brokenAtPlan())
+			continue
+		}
+		broken = mergeBroken(broken, u.broken)
 		if u.err != nil {
 			env.logf("train: shard %d unit %s: %v", shard, u.unit.ID, u.err)
 			if firstErr == nil {
@@ -191,6 +205,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	if acc.Evaluated > 0 {
 		sum.Accuracy = &acc
 	}
+	sum.Broken = brokenText(broken)
 	if cal.Series > 0 {
 		sum.Calibration = &cal
 	}
@@ -237,6 +252,10 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 			continue
 		}
 		o, _ := p.object(u.Object)
+		if o.Broken != "" {
+			l.skip = fmt.Sprintf("input object %s was broken at plan: %s", src.st.Describe(o.Key), o.Broken)
+			continue
+		}
 		if l.err = src.unchanged(ctx, o); l.err == nil {
 			l.err = src.scan(ctx, u.Object, u.Groups, func(r ingest.Row) error { c.Add(r); return nil })
 		}
@@ -245,31 +264,14 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		}
 	}
 	if len(byBucket) > 0 {
-		var scanErr error
-		for _, o := range p.Objects {
-			if scanErr = src.unchanged(ctx, o); scanErr != nil {
-				break
-			}
-			scanErr = src.scan(ctx, o.Key, nil, func(r ingest.Row) error {
-				if l, ok := byBucket[seriesBucket(h, r.Key, p.Buckets)]; ok {
-					collectors[l.unit.ID].Add(r)
-				}
-				return nil
-			})
-			if scanErr != nil {
-				break
-			}
-		}
-		if err := fatal(ctx, scanErr); err != nil {
+		if err := loadBuckets(ctx, src, p, h, byBucket, collectors); err != nil {
 			return nil, err
-		}
-		for _, l := range byBucket {
-			l.err = scanErr
 		}
 	}
 	for _, l := range units {
-		if l.err == nil {
+		if l.err == nil && l.skip == "" {
 			l.series, l.rejected = collectors[l.unit.ID].Finish()
+			l.dropBroken()
 		}
 		delete(collectors, l.unit.ID)
 	}
@@ -380,9 +382,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		done.Calibration = &cal
 	}
 	var carried []tables.ForecastRow
-	nCarried := 0
+	nCarried, found := 0, len(rejected)
 	if h == nil { // a hierarchy is reconciled over this run's series only: no per-series carry-forward
-		carried, nCarried, err = carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
+		rejected, carried, nCarried, err = carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
 		if err != nil {
 			return done, err
 		}
@@ -400,7 +402,8 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		}
 		done.Levels = uh.levels(levelAcc)
 	}
-	done.Counts = Counts{Series: len(u.series) + len(u.rejected), Trained: trained, Rejected: len(rejected), Carried: nCarried}
+	done.Broken = u.broken
+	done.Counts = Counts{Series: len(u.series) + len(u.rejected) + len(rejected) - found, Trained: trained, Rejected: len(rejected), Carried: nCarried}
 	if len(models) > 0 {
 		done.Counts.Models = models
 		done.Counts.Designs = designs

@@ -72,6 +72,10 @@ type Summary struct {
 	// Missing counts units with neither this run's output nor a previous forecast; the
 	// manifest then says the run is incomplete.
 	Missing int `json:"missing,omitempty"`
+	// Broken (plan, train, publish) names the input objects the command could not read and went
+	// on without (at most three, with their reasons, and the count); their series keep their
+	// previous forecasts. The controller marks a published run with broken input Degraded.
+	Broken string `json:"broken,omitempty"`
 	// Refused is true when the publish guard refused the run (exit 5): Error says why, with
 	// the counts and the most frequent rejection reasons; latest.json was not moved.
 	Refused bool `json:"refused,omitempty"`

@@ -184,16 +184,28 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 			}
 			return localArgs(in, out, "r2", "--step-timeout", "1s")
 		}, nil, exitcode.Transient, "did not finish within --step-timeout 1s"},
+		{"an input object broken at plan (UTF-16; isolated, the run goes on)", func(t *testing.T) []string {
+			in, out := published(t)
+			utf16 := []byte{}
+			for _, c := range string(dailyCSV("FLP-RYE-500")) {
+				utf16 = append(utf16, byte(c), 0)
+			}
+			os.WriteFile(path(in)+"depot-brill.csv", utf16, 0o644)
+			return localArgs(in, out, "r2", "--partitioning", "Objects")
+		}, nil, exitcode.OK, ""},
 		{"a run that lost its series (read as monthly)", func(t *testing.T) []string {
 			in, out := published(t)
 			return localArgs(in, out, "r2", "--frequency", "Monthly")
 		}, nil, exitcode.Refused, "0 of 3 planned series forecast"},
 	}
+	// brokenIn holds what a row's summary must name as broken input.
+	brokenIn := map[string]string{"an input object broken at plan (UTF-16; isolated, the run goes on)": "depot-brill.csv (at plan: "}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			code, s, stderr := trainerProcess(t, tc.env, tc.args(t)...)
-			if code != tc.code || !strings.Contains(s.Error, tc.want) || (tc.want == "") != (s.Error == "") {
-				t.Fatalf("exit %d, summary error %q; want exit %d and an error with %q\nstderr:\n%s", code, s.Error, tc.code, tc.want, stderr)
+			if code != tc.code || !strings.Contains(s.Error, tc.want) || (tc.want == "") != (s.Error == "") || !strings.Contains(s.Broken, brokenIn[tc.name]) {
+				t.Fatalf("exit %d, summary error %q, broken %q; want exit %d, an error with %q, broken %q\nstderr:\n%s",
+					code, s.Error, s.Broken, tc.code, tc.want, brokenIn[tc.name], stderr)
 			}
 		})
 	}
