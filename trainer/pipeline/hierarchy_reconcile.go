@@ -191,8 +191,9 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		return sum, err
 	}
 	levelAcc := map[string]*summary.Accuracy{}
-	for _, r := range evals {
+	for i, r := range evals {
 		l := h.levelOf(r.Key)
+		evals[i].Level = l
 		if levelAcc[l] == nil {
 			levelAcc[l] = &summary.Accuracy{}
 		}

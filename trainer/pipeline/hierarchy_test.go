@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"io"
 	"strings"
 	"testing"
 	"time"
@@ -11,6 +12,9 @@ import (
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/summary"
 	"almanac.dev/almanac/trainer/synth"
+	"almanac.dev/almanac/trainer/tables"
+
+	"github.com/google/go-cmp/cmp"
 )
 
 // hierarchyRun writes Fenwick Lane Provisions' weekly demand (invented: 5 items at 4 depots,
@@ -171,6 +175,23 @@ func TestHierarchySecondRunEvaluatesEveryLevel(t *testing.T) {
 	if c, err := CheckCoherence(ctx, out, m, &second); err != nil || !c.Coherent() {
 		t.Errorf("second run: %+v %v", c, err)
 	}
+	levels := map[string]int{}
+	for _, u := range m.Units {
+		f, _ := u.file(TableEvaluation)
+		err := readTable(ctx, out, f, func(r io.Reader) error {
+			rows, err := tables.ReadEvaluation(r, formatOf(f), second.Source.Columns.Series)
+			for _, row := range rows {
+				levels[row.Level]++
+			}
+			return err
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	if diff := cmp.Diff(want, levels); diff != "" {
+		t.Errorf("evaluation rows by hierarchy_level (-want,+got):\n%s", diff)
+	}
 }
 
 // TestHierarchyRefusesAMissingUnit: a shard that did not finish leaves its depots out of the
@@ -197,5 +218,28 @@ func TestHierarchyRefusesAMissingUnit(t *testing.T) {
 	}
 	if _, ok, _ := mustOpen(t, cfg.Output.URI).ReadLatest(ctx); ok {
 		t.Error("latest.json was written")
+	}
+}
+
+// TestHierarchyOnObjects: with Objects input (one object per depot here, but the layout
+// promises nothing about sub-trees) every level spans units: train reconciles nothing, the
+// reconcile step builds all aggregates from the partial sums, and the published run adds up.
+func TestHierarchyOnObjects(t *testing.T) {
+	cfg := hierarchyRun(t, "flp-hier-objects", [][]string{{"depot"}, {"item"}, {}}, "StructuralScaling")
+	cfg.Source.Partitioning = runconfig.PartitionObjects
+	cfg.Sharding.Buckets = 0
+	ctx := context.Background()
+	s, err := RunLocal(ctx, cfg, testEnv())
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := mustOpen(t, cfg.Output.URI)
+	m := checkPublished(t, out, cfg.Run)
+	c, err := CheckCoherence(ctx, out, m, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.Shards < 2 || c.Bottom != 20 || c.Aggregates != 10 || !c.Coherent() {
+		t.Errorf("%d shards; coherence %+v", s.Shards, c)
 	}
 }

@@ -103,8 +103,9 @@ func evaluateNodes(ctx context.Context, out *store.Store, d DriftRule, nonNegati
 	ua := *u
 	ua.series = u.nodes
 	rows, _, _, _, _, err := evaluateUnit(ctx, out, d, nonNegative, keys, prev, &ua)
-	for _, r := range rows {
+	for i, r := range rows {
 		l := h.levelOf(r.Key)
+		rows[i].Level = l
 		if acc[l] == nil {
 			acc[l] = &summary.Accuracy{}
 		}

@@ -395,6 +395,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		if err != nil {
 			return done, err
 		}
+		for i := range evals {
+			evals[i].Level = h.bottom
+		}
 		evals = append(evals, aggRows...)
 		if acc.Evaluated > 0 {
 			a := acc

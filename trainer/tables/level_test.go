@@ -44,6 +44,20 @@ func TestLevelRoundTrips(t *testing.T) {
 			t.Errorf("%s models (-want,+got):\n%s", format, diff)
 		}
 	}
+	ev := []EvaluationRow{{Key: "/", Level: "total", Points: 4, Metric: "MASE", Expected: 0.8, Realized: 0.9, PreviousRun: "flp-1"}}
+	for _, format := range []string{CSV, Parquet} {
+		var b bytes.Buffer
+		if err := WriteEvaluation(&b, format, keys, ev); err != nil {
+			t.Fatal(err)
+		}
+		got, err := ReadEvaluation(&b, format, keys)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if diff := cmp.Diff(ev, got); diff != "" {
+			t.Errorf("%s evaluation (-want,+got):\n%s", format, diff)
+		}
+	}
 	if err := CheckKeys([]string{"hierarchy_level", "item"}); err == nil {
 		t.Error("a key column named hierarchy_level was accepted")
 	}

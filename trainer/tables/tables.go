@@ -92,6 +92,8 @@ type EvaluationRow struct {
 	// over the row's Points; Pinball and Bias as means): written as the bias, below_<q> and
 	// pinball_<q> columns, only when some row has one.
 	Calibration *Calibration
+	// Level is the hierarchy level of the row's node, as in ForecastRow (the last column).
+	Level string
 }
 
 // RejectedRow is a series that could not be used, with the reason. Key is the series key
@@ -538,11 +540,18 @@ func WriteEvaluation(w io.Writer, format string, keys []string, rows []Evaluatio
 	if levels != nil {
 		cols = append(slices.Clone(cols), calibrationColumns("", levels, false, withPromised)...)
 	}
+	withLevel := slices.ContainsFunc(rows, func(r EvaluationRow) bool { return r.Level != "" })
+	if withLevel {
+		cols = append(slices.Clone(cols), column{colLevel, text})
+	}
 	g, err := keyedGrid(keys, cols, len(rows), func(i int) (string, []cell) {
 		r := rows[i]
 		c := []cell{{n: int64(r.Points)}, {s: r.Metric}, {f: r.Expected}, {f: r.Realized}, {b: r.Drifted}, {s: r.PreviousRun}}
 		if levels != nil {
 			c = append(c, calibrationCells(r.Calibration, len(levels), false, withPromised)...)
+		}
+		if withLevel {
+			c = append(c, cell{s: r.Level})
 		}
 		return r.Key, c
 	})
@@ -565,6 +574,9 @@ func ReadEvaluation(r io.Reader, format string, keys []string) ([]EvaluationRow,
 			if c.name == n {
 				return c.kind, true
 			}
+		}
+		if n == colLevel {
+			return text, true
 		}
 		if n != colPoints && calibrationKind("", n) {
 			return optNumber, true
@@ -599,6 +611,9 @@ func ReadEvaluation(r io.Reader, format string, keys []string) ([]EvaluationRow,
 		row := EvaluationRow{Key: key, Points: int(c[pos[colPoints]].n), Metric: c[pos[colMetric]].s,
 			Expected: c[pos[colExpected]].f, Realized: c[pos[colRealized]].f, Drifted: c[pos[colDrifted]].b,
 			PreviousRun: c[pos[colPrevious]].s}
+		if at, ok := pos[colLevel]; ok {
+			row.Level = c[at].s
+		}
 		if withCalibration {
 			if row.Calibration, err = cr.read(c, row.Points); err != nil {
 				return nil, fmt.Errorf("tables: evaluation row %d (series %q): %w", i+1, key, err)
