@@ -98,7 +98,7 @@ test-fuzz: ## Run every fuzz target briefly.
 	    go test -run '^$$' -fuzz "^$$t$$" -fuzztime $(FUZZTIME) ./$$(dirname $$f) || exit 1; done; done
 
 .PHONY: test-crash
-test-crash: s3server ## The long crash proofs: 60 SIGKILLs per store (file://, S3 test server) over plan, train, publish and republish, and every crash point (test/crash; about 6 minutes on 2 cores).
+test-crash: s3server ## The long crash proofs: 60 SIGKILLs per store (file://, S3 test server) over plan, train, publish and republish, and every crash point (test/crash; about 6.5 minutes on 2 cores).
 	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server ALMANAC_CRASH_KILLS=60 go test -count=1 -timeout 60m -v -run 'TestKillAndRerun|TestCrashPoints' ./test/crash/
 
 .PHONY: test-e2e

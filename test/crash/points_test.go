@@ -18,11 +18,11 @@ import (
 )
 
 // The crash-point enumeration (issue 18 case 8): a `crashpoints` build of the trainer kills
-// itself with SIGKILL right after its k-th committed storage mutation
-// (trainer/store/crashpoint_hook.go). For each step of a second run (plan, each train shard,
-// publish, and a republish after a late shard) and for every k = 1, 2, ... until the step ends
-// by itself, the state before the step is copied to a fresh output prefix, the step is killed
-// after write k, and then:
+// itself with SIGKILL right after its k-th committed storage mutation, or just before it
+// commits with its bytes written (trainer/store/crashpoint_hook.go). For each step of a second
+// run (plan, each train shard, publish, and a republish after a late shard), both ways and for
+// every k = 1, 2, ... until the step ends by itself, the state before the step is copied to a
+// fresh output prefix, the step is killed at write k, and then:
 //   - latest.json names a complete run whose every file has the manifest's checksum;
 //   - rerunning the killed step and the steps after it ends with latest.json on run 2 and
 //     outputs equal, byte for byte, to those of an uninterrupted run.
@@ -243,30 +243,33 @@ func crashPoints(t *testing.T, bin, dir string, uri func(prefix string) string, 
 		if name == "republish" {
 			want = refs["republish"]
 		}
-		for k := 1; ; k++ {
-			r := newRun(fmt.Sprintf("%s-k%d", name, k))
-			copyTree(t, base.out, r.out)
-			r.crashEnv = fmt.Sprintf("%s=%d", store.CrashAfterWritesEnv, k)
-			killed := r.step(name, false)
-			r.crashEnv = ""
-			latest := checkLatest(t, r.out, fmt.Sprintf("%s killed after write %d", name, k))
-			if !killed {
-				if k == 1 {
-					t.Errorf("%s: no committed write at all", name)
+		for _, mode := range []struct{ env, when string }{{store.CrashAfterWritesEnv, "after"}, {store.CrashBeforeWritesEnv, "before"}} {
+			for k := 1; ; k++ {
+				where := fmt.Sprintf("%s killed %s write %d", name, mode.when, k)
+				r := newRun(fmt.Sprintf("%s-%s%d", name, mode.when, k))
+				copyTree(t, base.out, r.out)
+				r.crashEnv = fmt.Sprintf("%s=%d", mode.env, k)
+				killed := r.step(name, false)
+				r.crashEnv = ""
+				latest := checkLatest(t, r.out, where)
+				if !killed {
+					if k == 1 {
+						t.Errorf("%s: no write at all", name)
+					}
+					t.Logf("%s: %d crash points %s a write", name, k-1, mode.when)
+					break
 				}
-				t.Logf("%s: %d crash points (the step commits %d mutations)", name, k-1, k-1)
-				break
-			}
-			points++
-			r.stepsFrom(name)
-			if run := checkLatest(t, r.out, fmt.Sprintf("%s after write %d, rerun", name, k)); run != "flp-r2" {
-				t.Errorf("%s after write %d: latest -> %s after the rerun, want flp-r2", name, k, run)
-			}
-			if d := diffTrees(want, storeFiles(t, r.out)); len(d) > 0 {
-				t.Errorf("%s killed after write %d (latest then %s), rerun: %s", name, k, latest, strings.Join(d, "; "))
-			}
-			if k > 200 {
-				t.Fatalf("%s: still killed after write %d; the step never ends", name, k)
+				points++
+				r.stepsFrom(name)
+				if run := checkLatest(t, r.out, where+", rerun"); run != "flp-r2" {
+					t.Errorf("%s: latest -> %s after the rerun, want flp-r2", where, run)
+				}
+				if d := diffTrees(want, storeFiles(t, r.out)); len(d) > 0 {
+					t.Errorf("%s (latest then %s), rerun: %s", where, latest, strings.Join(d, "; "))
+				}
+				if k > 200 {
+					t.Fatalf("%s: the step never ends", where)
+				}
 			}
 		}
 	}

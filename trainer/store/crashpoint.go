@@ -1,10 +1,19 @@
 package store
 
-// afterCommit, when set, is called after every mutation the store committed: a Write whose
-// object is in place, a Copy, a Delete. Only test builds set it (crashpoint_hook.go, build tag
-// `crashpoints`, for test/crash's crash-point enumeration); in every other build it stays nil
-// and committed costs one comparison.
-var afterCommit func(op, key string)
+// beforeCommit and afterCommit, when set, are called around every mutation of the store:
+// before with the new object's bytes written but not yet in place (file://: the synced
+// temporary file before its rename; other stores: the writer before Close completes the
+// upload; Copy and Delete: before the request), after once it is committed. Only test builds
+// set them (crashpoint_hook.go, build tag `crashpoints`, for test/crash's crash-point
+// enumeration); in every other build they stay nil and cost one comparison each.
+var beforeCommit, afterCommit func(op, key string)
+
+// committing reports a mutation about to commit to beforeCommit.
+func committing(op, key string) {
+	if beforeCommit != nil {
+		beforeCommit(op, key)
+	}
+}
 
 // committed reports one committed mutation to afterCommit.
 func committed(op, key string) {
@@ -20,6 +29,10 @@ func committed(op, key string) {
 // CrashMarker to stderr first. Unset, nothing happens. Builds without the tag have no such
 // variable.
 const CrashAfterWritesEnv = "ALMANAC_CRASH_AFTER_WRITES"
+
+// CrashBeforeWritesEnv is CrashAfterWritesEnv's twin: the kill comes just before the k-th
+// mutation commits, its bytes written (a temporary file, an unfinished upload) but not in place.
+const CrashBeforeWritesEnv = "ALMANAC_CRASH_BEFORE_WRITES"
 
 // CrashMarker starts the line a crash point prints before the kill.
 const CrashMarker = "crashpoint:"

@@ -8,12 +8,13 @@ import (
 	"testing"
 )
 
-// The crash-point hook sees exactly the committed mutations, in order: a Write whose fn fails
-// commits nothing and is not counted.
+// The crash-point hooks see exactly the mutations, in order, before and after each commit: a
+// Write whose fn fails reaches neither.
 func TestCommittedMutationsAreReported(t *testing.T) {
 	var seen []string
 	afterCommit = func(op, key string) { seen = append(seen, op+" "+key) }
-	t.Cleanup(func() { afterCommit = nil })
+	beforeCommit = func(op, key string) { seen = append(seen, "before "+op+" "+key) }
+	t.Cleanup(func() { afterCommit, beforeCommit = nil, nil })
 	ctx := context.Background()
 	for _, uri := range []string{"mem://crashpoint-hook/", "file://" + t.TempDir()} {
 		seen = nil
@@ -37,7 +38,8 @@ func TestCommittedMutationsAreReported(t *testing.T) {
 		if _, err := s.Get(ctx, "runs/r1/c.json"); err != nil {
 			t.Fatal(err)
 		}
-		want := []string{"write runs/r1/a.json", "copy runs/r1/c.json", "delete runs/r1/a.json"}
+		want := []string{"before write runs/r1/a.json", "write runs/r1/a.json", "before copy runs/r1/c.json", "copy runs/r1/c.json",
+			"before delete runs/r1/a.json", "delete runs/r1/a.json"}
 		if !slices.Equal(seen, want) {
 			t.Errorf("%s: reported %q, want %q", uri, seen, want)
 		}

@@ -61,6 +61,7 @@ func (s *Store) writeFile(key string, fn func(w io.Writer) error) (err error) {
 	if err := os.Chmod(tmp, 0o644); err != nil {
 		return werr(err)
 	}
+	committing("write", key)
 	if err := os.Rename(tmp, path); err != nil {
 		return werr(err)
 	}

@@ -405,6 +405,7 @@ func (s *Store) write(ctx context.Context, key string, fn func(w io.Writer) erro
 		_ = w.Close()
 		return err
 	}
+	committing("write", key)
 	if err := wd.call(w.Close); err != nil {
 		if errors.Is(err, ErrTimeout) {
 			return err
@@ -432,6 +433,7 @@ func (s *Store) Copy(ctx context.Context, dst, src string) error {
 	if err != nil {
 		return err
 	}
+	committing("copy", dst)
 	err = s.request(ctx, "copy "+s.Describe(src), func(ctx context.Context) error { return s.bucket.Copy(ctx, d, sk, nil) })
 	if errors.Is(err, ErrTimeout) {
 		return err
@@ -449,6 +451,7 @@ func (s *Store) Delete(ctx context.Context, key string) error {
 	if err != nil {
 		return err
 	}
+	committing("delete", key)
 	err = s.request(ctx, "delete "+s.Describe(key), func(ctx context.Context) error { return s.bucket.Delete(ctx, k) })
 	if errors.Is(err, ErrTimeout) {
 		return err
