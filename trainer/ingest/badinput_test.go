@@ -180,10 +180,10 @@ func badCases() []badCase {
 		{name: "a 10 MB quoted field split over short lines (issue 18 case 6) / broken at the line it starts, bounded like a line",
 			csv:    header + good + "south,\"" + strings.Repeat("kippers\n", 10<<20/8) + "\",2026-11-01,1\n",
 			broken: []string{"line 5", "a record longer than 1048576 bytes"}},
-		{name: "a 900 KiB quoted key with doubled quotes over short lines / read, one series",
+		{name: "a 900 KiB quoted key with doubled quotes over short lines / read within the record limit, then rejected: a key cell is capped at 256 bytes",
 			csv: header + "south,\"say \"\"hi\"\"\n" + longCell + "\",2026-11-01,1\n" +
 				"south,\"say \"\"hi\"\"\n" + longCell + "\",2026-11-02,2\n",
-			keep: []string{strconv.Quote("south") + "/" + strconv.Quote("say \"hi\"\n"+longCell)}},
+			reject: map[string]string{strconv.Quote("south") + "/" + strconv.Quote(("say \"hi\"\n" + longCell)[:MaxKeyCellBytes]+"..."): `line 2: column "item": series key is 921609 bytes, more than 256 (it starts "say \"hi\"\nx\nx`}},
 		{name: "path traversal in a series key / kept as data: keys never become storage paths",
 			csv: header + "../../etc,passwd,2026-11-01,1\n../../etc,passwd,2026-11-02,2\n", keep: []string{`"../../etc"/"passwd"`}},
 		{name: "key cells whose join with / would collide (depot A/1 item x, depot A item 1/x) / two series, both kept",

@@ -124,6 +124,9 @@ func (b *rowBuilder) buildKey(rec []string) (string, string) {
 	problem := ""
 	for j, ci := range b.m.keys {
 		b.key.b = append(b.key.b, rec[ci]...)
+		if p := b.key.capCell(b.m.cols.Series[j]); p != "" && problem == "" {
+			problem = p
+		}
 		b.key.end()
 		if p := checkKeyCell(b.m.cols.Series[j], rec[ci]); p != "" && problem == "" {
 			problem = p

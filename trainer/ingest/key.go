@@ -152,3 +152,31 @@ func (k *keyBuilder) encoded() []byte {
 	}
 	return k.q
 }
+
+// MaxKeyCellBytes bounds one key cell. A longer cell is not an identifier but a mistake or an
+// attack (a mapped free-text column, a 1 MiB field): it would be copied into every row of every
+// output table. The series is rejected, naming the column, the length and the cell's start,
+// and the key written to rejected.csv is cut to this length and marked with "...". 256 bytes
+// holds any article number, GTIN or depot name we know of; our choice, no source.
+const MaxKeyCellBytes = 256
+
+// capCell cuts the cell appended to b since the previous end to MaxKeyCellBytes (on a rune
+// boundary, then "...") when it is longer, and returns the problem naming column col, or "".
+// Call it before end.
+func (k *keyBuilder) capCell(col string) string {
+	start := 0
+	if len(k.ends) > 0 {
+		start = k.ends[len(k.ends)-1] + 1
+	}
+	n := len(k.b) - start
+	if n <= MaxKeyCellBytes {
+		return ""
+	}
+	cut := start + MaxKeyCellBytes
+	for cut > start && !utf8.RuneStart(k.b[cut]) {
+		cut--
+	}
+	k.b = append(k.b[:cut], "..."...)
+	show := k.b[start:min(len(k.b), start+40)]
+	return fmt.Sprintf("column %q: series key is %d bytes, more than %d (it starts %q)", col, n, MaxKeyCellBytes, show)
+}

@@ -554,6 +554,9 @@ func (sc *parquetScan) key(i, nk int) (string, string) {
 		default:
 			k.b = strconv.AppendInt(k.b, v.Int64(), 10)
 		}
+		if p := k.capCell(c.name); p != "" && problem == "" {
+			problem = p
+		}
 		k.end()
 	}
 	return intern(&sc.keyCache, k.encoded()), problem

@@ -193,6 +193,11 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 			os.WriteFile(path(in)+"depot-brill.csv", utf16, 0o644)
 			return localArgs(in, out, "r2", "--partitioning", "Objects")
 		}, nil, exitcode.OK, ""},
+		{"a 100 KB key cell (the series rejected naming it, the run goes on)", func(t *testing.T) []string {
+			in, out := published(t)
+			os.WriteFile(path(in)+"depot-brill.csv", dailyCSV("FLP-"+strings.Repeat("RYE", 33_000), "FLP-RYE-500", "FLP-RYE-800", "FLP-BRAN-250", "FLP-BRAN-500"), 0o644)
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.OK, ""},
 		{"a run that lost its series (read as monthly)", func(t *testing.T) []string {
 			in, out := published(t)
 			return localArgs(in, out, "r2", "--frequency", "Monthly")
