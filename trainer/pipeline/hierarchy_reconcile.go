@@ -171,6 +171,10 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		if errs[i] != nil {
 			continue
 		}
+		if _, ok := tr.mean[s.Key]; !ok {
+			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: "no bottom series under it has a forecast"})
+			continue
+		}
 		r := results[i]
 		r.Mean, r.Quantiles = tr.mean[s.Key], tr.quantiles[s.Key]
 		r.Notes = append(r.Notes, note)

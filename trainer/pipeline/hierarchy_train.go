@@ -56,7 +56,11 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 		for _, i := range all {
 			s := u.seriesAt(i)
 			m, ok := tr.mean[s.Key]
-			if !ok || errs[i] != nil {
+			if errs[i] != nil {
+				continue
+			}
+			if !ok { // an aggregate none of whose bottom series has a forecast
+				errs[i] = fmt.Errorf("no bottom series under it has a forecast")
 				continue
 			}
 			results[i].Mean, results[i].Quantiles = m, tr.quantiles[s.Key]
