@@ -37,10 +37,15 @@ type Env struct {
 	Log io.Writer
 	// Workers is the number of forecasting goroutines; <= 0 means GOMAXPROCS.
 	Workers int
+	// ProgressEvery is how often train prints a progress line between phase changes (0:
+	// summary.ProgressInterval; below 0: only at phase changes).
+	ProgressEvery time.Duration
 }
 
 func (e Env) logf(format string, a ...any) {
 	if e.Log != nil {
+		logMu.Lock()
+		defer logMu.Unlock()
 		fmt.Fprintf(e.Log, format+"\n", a...)
 	}
 }

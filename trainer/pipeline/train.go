@@ -8,9 +8,11 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"runtime"
 	"sort"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
 
 	"almanac.dev/almanac/trainer/backtest"
@@ -91,9 +93,11 @@ func (l *loaded) seriesAt(i int) series.Series {
 // RunTrain is the train command for one shard. It reads the shard's units (an object unit
 // reads its object or row groups; bucket units share one pass over every input object that
 // keeps only their buckets' rows, so memory grows with the shard, not the input), collects
-// and cleans the series, evaluates the previous run's forecasts against the new actuals,
-// forecasts every series with selection.ForecastMany and writes each unit's tables and then
-// its unit.json. A series that cannot be used goes to rejected.csv with the reason. A unit
+// and cleans the series, forecasts them with one design.Forecast call and writes each unit's
+// tables (with the evaluation of the previous run's forecasts against the new actuals) and then
+// its unit.json as soon as the unit's series are done, while the rest are fitted (fitAndWrite).
+// It prints a progress line (summary.Progress) at each phase and every Env.ProgressEvery. A
+// series that cannot be used goes to rejected.csv with the reason. A unit
 // whose input is broken or gone is not written; the others are, and RunTrain then returns
 // the first such error (exit 3) so the shard counts as failed and publish carries it forward.
 func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (summary.Summary, error) {
@@ -111,34 +115,33 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	if shard < 0 || shard >= len(p.Shards) {
 		return sum, fmt.Errorf("shard %d: the plan has shards 0..%d: %w", shard, len(p.Shards)-1, ErrConfig)
 	}
-	units, err := loadShard(ctx, cfg, p, shard, p.Cutoff)
+	tr := startTracker(env, shard, len(p.Shards[shard].Units))
+	defer tr.stopTicker()
+	units, err := loadShard(ctx, cfg, p, shard, p.Cutoff, env.Workers, tr)
 	if err != nil {
 		return sum, err
 	}
-
 	h := newHierarchy(cfg)
-	var all []series.Series
+	planned, rejected := 0, 0
 	for _, u := range units {
 		if h != nil && u.err == nil {
 			extendTo(u.series, p.HierarchyEnd)
 			u.nodes = h.aggregate(u.series, h.levelsWhere(true))
 			u.partials = h.aggregate(u.series, h.levelsWhere(false))
 		}
-		all = append(all, u.series...)
-		all = append(all, u.nodes...)
+		planned += len(u.series) + len(u.rejected)
+		rejected += len(u.rejected)
 	}
-	results := make([]design.Result, len(all))
-	errs := make([]error, len(all))
-	t0 := env.now()
-	outcome, err := design.Forecast(ctx, all, st.Design(env.Workers), func(i int, r design.Result, err error) {
-		results[i], errs[i] = r, err
-	})
+	tr.fitting(planned)
+	tr.done(rejected)
+	fit, err := fitAndWrite(ctx, cfg, st, h, out, prev, units, st.Design(env.Workers), tr, env)
 	if err != nil {
-		return sum, err // the context ended (cfg was validated above)
+		return sum, err // the context ended or a write failed (cfg was validated above)
 	}
+	outcome := fit.outcome
 	env.logf("train: shard %d: design %s, %d inner-holdout series in %.1fs CPU, series per design %v",
 		shard, outcome.Mode, outcome.InnerSeries, outcome.InnerCPU.Seconds(), outcome.Counts())
-	fitSeconds := env.now().Sub(t0).Seconds()
+	fitSeconds := fit.fitSeconds
 
 	var firstErr error
 	var broken []BrokenObject
@@ -146,8 +149,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	var stab summary.Stability
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
 	levelNodes, levelAcc := map[string]int{}, map[string]*summary.Accuracy{}
-	off := 0
-	for _, u := range units {
+	for k, u := range units {
 		if u.skip != "" {
 			env.logf("train: shard %d unit %s: not trained: %s", shard, u.unit.ID, u.skip)
 			broken = mergeBroken(broken, p.brokenAtPlan())
@@ -161,12 +163,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 			}
 			continue
 		}
-		n := len(u.series) + len(u.nodes)
-		done, err := writeUnit(ctx, out, cfg, st, h, prev, u, results[off:off+n], errs[off:off+n])
-		off += n
-		if err != nil {
-			return sum, err
-		}
+		done := fit.dones[k]
 		sum.Series += done.Counts.Series
 		sum.Trained += done.Counts.Trained
 		sum.Rejected += done.Counts.Rejected
@@ -217,15 +214,20 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	}
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
-		sum.SeriesPerSecond = math.Round(float64(len(all))/fitSeconds*10) / 10
+		sum.SeriesPerSecond = math.Round(float64(fit.series)/fitSeconds*10) / 10
 	}
+	tr.finish()
 	env.logf("train: shard %d: %d series, %d trained, %d rejected in %.1fs", shard, sum.Series, sum.Trained, sum.Rejected, sum.DurationSeconds)
 	return sum, firstErr
 }
 
 // loadShard reads and collects the shard's units. A unit's broken input is kept in its err.
-// Configuration errors (frequency, layout) end the shard.
-func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, now time.Time) ([]*loaded, error) {
+// Configuration errors (frequency, layout) end the shard. Object units are read by up to
+// `workers` goroutines at once (each unit has its own collector, so every unit's series are
+// what a sequential read gives); bucket units share one sequential pass over every object.
+// Memory: the shard's collected series, which the design needs all together anyway, plus one
+// object's decoding buffers per reader.
+func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, now time.Time, workers int, tr *tracker) ([]*loaded, error) {
 	h := newHierarchy(cfg)
 	src, err := openSource(ctx, cfg.Source)
 	if err != nil {
@@ -235,6 +237,7 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 	var units []*loaded
 	collectors := map[string]*ingest.Collector{}
 	byBucket := map[int]*loaded{}
+	var objectUnits []*loaded
 	for _, id := range p.Shards[shard].Units {
 		u, _ := p.unit(id)
 		c, err := ingest.NewCollector(cfg.Source, now)
@@ -254,18 +257,20 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		o, _ := p.object(u.Object)
 		if o.Broken != "" {
 			l.skip = fmt.Sprintf("input object %s was broken at plan: %s", src.st.Describe(o.Key), o.Broken)
+			tr.read() // nothing to read: counted as read, never written
 			continue
 		}
-		if l.err = src.unchanged(ctx, o); l.err == nil {
-			l.err = src.scan(ctx, u.Object, u.Groups, func(r ingest.Row) error { c.Add(r); return nil })
-		}
-		if err := fatal(ctx, l.err); err != nil {
-			return nil, err
-		}
+		objectUnits = append(objectUnits, l)
+	}
+	if err := readObjectUnits(ctx, src, p, objectUnits, collectors, workers, tr); err != nil {
+		return nil, err
 	}
 	if len(byBucket) > 0 {
 		if err := loadBuckets(ctx, src, p, h, byBucket, collectors); err != nil {
 			return nil, err
+		}
+		for range byBucket {
+			tr.read()
 		}
 	}
 	for _, l := range units {
@@ -276,6 +281,57 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		delete(collectors, l.unit.ID)
 	}
 	return units, nil
+}
+
+// readObjectUnits reads object units on up to workers goroutines. The first error that ends
+// the shard (see fatal) stops the others and is returned; broken input stays in the unit.
+func readObjectUnits(ctx context.Context, src *source, p *Plan, units []*loaded, collectors map[string]*ingest.Collector, workers int, tr *tracker) error {
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	rctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	next := make(chan *loaded)
+	var (
+		wg       sync.WaitGroup
+		mu       sync.Mutex
+		firstErr error
+	)
+	for w := 0; w < min(workers, len(units)); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for l := range next {
+				c := collectors[l.unit.ID] // read-only map access: no writer while reading
+				o, _ := p.object(l.unit.Object)
+				if l.err = src.unchanged(rctx, o); l.err == nil {
+					l.err = src.scan(rctx, l.unit.Object, l.unit.Groups, func(r ingest.Row) error { c.Add(r); return nil })
+				}
+				if err := fatal(ctx, l.err); err != nil {
+					mu.Lock()
+					if firstErr == nil {
+						firstErr = err
+						cancel()
+					}
+					mu.Unlock()
+					continue
+				}
+				tr.read()
+			}
+		}()
+	}
+	for _, l := range units {
+		if rctx.Err() != nil {
+			break
+		}
+		next <- l
+	}
+	close(next)
+	wg.Wait()
+	if firstErr != nil {
+		return firstErr
+	}
+	return ctx.Err()
 }
 
 // usesCovariates reports whether the regression members read covariates as features

@@ -1,0 +1,111 @@
+package pipeline
+
+import (
+	"context"
+	"slices"
+	"sync"
+
+	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/series"
+	"almanac.dev/almanac/trainer/store"
+)
+
+// unitWriters is how many goroutines evaluate, encode and write finished units while the
+// remaining series are fitted. Two keep the storage round trip of one unit from holding up
+// the next; more would only take cores from fitting.
+const unitWriters = 2
+
+// fitted is fitAndWrite's outcome.
+type fitted struct {
+	dones      []UnitDone // per unit, in the shard's order (zero for units with an input error)
+	outcome    *design.Outcome
+	series     int     // series passed to design.Forecast
+	fitSeconds float64 // wall time of design.Forecast
+}
+
+// fitAndWrite forecasts the shard's series with one design.Forecast call over all of them (the
+// design is chosen on the whole shard, exactly as when every unit was written afterwards) and
+// writes each unit as soon as its last series is forecast, on unitWriters goroutines, while
+// the other series are still being fitted. A unit with no series is written at once; a unit
+// whose input failed, or that was skipped (its object broken at plan), is not written (the
+// caller reports it).
+//
+// Memory: the shard's series and results are held as before; a written unit's results are
+// released, and each writer holds one unit's encoded tables, so the peak is the shard's input
+// plus its results plus unitWriters units' tables, never more than the sequential order held.
+// The first write error cancels the fitting and is returned.
+func fitAndWrite(ctx context.Context, cfg *runconfig.Config, st Settings, h *hierarchy, out *store.Store, prev *Manifest,
+	units []*loaded, opts design.Options, tr *tracker, env Env) (fitted, error) {
+	var all []series.Series
+	var unitOf []int
+	var node []bool // aggregated hierarchy nodes, not counted as series done
+	offs := make([]int, len(units))
+	left := make([]int, len(units))
+	for k, u := range units {
+		offs[k], left[k] = len(all), len(u.series)+len(u.nodes)
+		all = append(all, u.series...)
+		all = append(all, u.nodes...)
+		for j := 0; j < left[k]; j++ {
+			unitOf = append(unitOf, k)
+			node = append(node, j >= len(u.series))
+		}
+	}
+	left0 := slices.Clone(left)
+	results := make([]design.Result, len(all))
+	errs := make([]error, len(all))
+	res := fitted{dones: make([]UnitDone, len(units)), series: len(all)}
+
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	queue := make(chan int, len(units)) // each unit is queued once: sends never block
+	var (
+		wg      sync.WaitGroup
+		errOnce sync.Once
+		werr    error
+	)
+	for w := 0; w < min(unitWriters, max(len(units), 1)); w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for k := range queue {
+				if ctx.Err() != nil {
+					continue
+				}
+				u, lo, hi := units[k], offs[k], offs[k]+left0[k]
+				d, err := writeUnit(ctx, out, cfg, st, h, prev, u, results[lo:hi], errs[lo:hi])
+				if err != nil {
+					errOnce.Do(func() { werr = err; cancel() })
+					continue
+				}
+				res.dones[k] = d
+				clear(results[lo:hi])
+				tr.written()
+			}
+		}()
+	}
+	for k, u := range units {
+		if u.err == nil && u.skip == "" && left[k] == 0 {
+			queue <- k
+		}
+	}
+	t0 := env.now()
+	outcome, ferr := design.Forecast(ctx, all, opts, func(i int, r design.Result, err error) {
+		results[i], errs[i] = r, err
+		if !node[i] {
+			tr.done(1)
+		}
+		k := unitOf[i]
+		if left[k]--; left[k] == 0 {
+			queue <- k
+		}
+	})
+	res.fitSeconds = env.now().Sub(t0).Seconds()
+	res.outcome = outcome
+	close(queue)
+	wg.Wait()
+	if werr != nil {
+		return res, werr
+	}
+	return res, ferr
+}
