@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"os"
 	"strings"
+	"time"
 
 	"k8s.io/apimachinery/pkg/runtime"
 	utilruntime "k8s.io/apimachinery/pkg/util/runtime"
@@ -40,6 +41,7 @@ type config struct {
 	namespaces          []string
 	maxConcurrentShards int
 	images              controllers.ImageAllowlist
+	progressInterval    time.Duration
 	zap                 zap.Options
 }
 
@@ -54,12 +56,17 @@ func parseFlags(args []string) (config, error) {
 	fs.StringVar(&watch, "watch-namespace", "", "comma-separated namespaces to watch; empty watches all namespaces")
 	fs.IntVar(&c.maxConcurrentShards, "max-concurrent-shards", 32, "train pods all active runs may run at once, shared by weight (0: unlimited)")
 	fs.StringVar(&images, "trainer-image-prefixes", "", "comma-separated trainer images portfolios may name: a repository (any tag or digest) or a path ending in / (any image under it); empty allows every image")
+	fs.DurationVar(&c.progressInterval, "progress-interval", controllers.DefaultProgressInterval,
+		"how often a training run reads its running train pods' progress lines (pods/log, the last lines only)")
 	c.zap.BindFlags(fs)
 	if err := fs.Parse(args); err != nil {
 		return c, err
 	}
 	if c.maxConcurrentShards < 0 || c.maxConcurrentShards > 1<<20 {
 		return c, fmt.Errorf("--max-concurrent-shards: %d is not in 0..%d", c.maxConcurrentShards, 1<<20)
+	}
+	if c.progressInterval < time.Second || c.progressInterval > time.Hour {
+		return c, fmt.Errorf("--progress-interval: %s is not in 1s..1h", c.progressInterval)
 	}
 	var err error
 	if c.images, err = controllers.ParseImageAllowlist(images); err != nil {
@@ -119,6 +126,7 @@ func run(ctx context.Context, c config) error {
 	if err := controllers.SetupWithManager(ctx, mgr, controllers.Options{
 		MaxConcurrentShards: int32(c.maxConcurrentShards),
 		Images:              c.images,
+		ProgressInterval:    c.progressInterval,
 		Metrics:             m,
 	}); err != nil {
 		return fmt.Errorf("set up controllers: %w", err)

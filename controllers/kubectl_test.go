@@ -56,8 +56,8 @@ func checkKubectlGet(ns string) {
 			Expect(lines[1]).To(MatchRegexp(`^fenwick-daily\s+True\s+\* \* \* \* \*\s+false\s+\S+\s+fenwick-daily-\d+\s+0\.5000\s+0\.6000\s+1\.200\s+False\s+\d{4}-\d\d-\d\dT\S+Z\s+\S+$`))
 		case "frun":
 			Expect(strings.Fields(lines[0])).To(HaveExactElements("NAME", "PORTFOLIO", "TRIGGER", "PHASE", "SHARDS", "DONE",
-				"FAILED", "SERIES", "PARALLEL", "EXPECTED", "REALIZED", "GEO", "RATIO", "COVERAGE", "PROMISED", "AGE"))
-			Expect(lines[1]).To(MatchRegexp(`^fenwick-daily-\d+\s+fenwick-daily\s+Schedule\s+Succeeded\s+4\s+4\s+0\s+402\s+0\s+0\.5000\s+0\.6000\s+1\.200\s+0\.800\s+0\.800\s+\S+$`))
+				"FAILED", "SERIES", "PROGRESS", "SERIES/S", "EST-END", "PARALLEL", "EXPECTED", "REALIZED", "GEO", "RATIO", "COVERAGE", "PROMISED", "AGE"))
+			Expect(lines[1]).To(MatchRegexp(`^fenwick-daily-\d+\s+fenwick-daily\s+Schedule\s+Succeeded\s+4\s+4\s+0\s+402\s+100\s+[0-9.]+\s+\d{4}-\d\d-\d\dT\S+Z\s+0\s+0\.5000\s+0\.6000\s+1\.200\s+0\.800\s+0\.800\s+\S+$`))
 		}
 	}
 	if os.Getenv("ALMANAC_UPDATE_GOLDEN") == "1" {

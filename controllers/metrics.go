@@ -29,6 +29,11 @@ type Metrics struct {
 	movement      *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
+	seriesDone    *prometheus.GaugeVec
+	seriesPlanned *prometheus.GaugeVec
+	seriesRate    *prometheus.GaugeVec
+	remaining     *prometheus.GaugeVec
+	stalled       *prometheus.GaugeVec
 
 	mu sync.Mutex
 	// missedDue is, per "namespace/portfolio", the schedule time whose misses were counted last.
@@ -100,8 +105,29 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_schedule_missed_total",
 			Help: "Schedule times that passed without a run (past startingDeadlineSeconds, or skipped while the controller caught up).",
 		}, []string{"namespace", "portfolio"}),
+		seriesDone: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_run_series_done",
+			Help: "Series an active run has forecast or rejected (folded shards plus the running shards' progress lines).",
+		}, []string{"namespace", "portfolio", "run"}),
+		seriesPlanned: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_run_series_planned",
+			Help: "Series the active run's plan counted.",
+		}, []string{"namespace", "portfolio", "run"}),
+		seriesRate: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_run_series_per_second",
+			Help: "An active run's current training rate (status.progress.seriesPerSecond).",
+		}, []string{"namespace", "portfolio", "run"}),
+		remaining: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_run_remaining_seconds",
+			Help: "Seconds until the active run's estimated end of training (status.progress.estimatedEnd); absent without a rate.",
+		}, []string{"namespace", "portfolio", "run"}),
+		stalled: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_run_stalled_shards",
+			Help: "Running train shards of an active run with no progress for the portfolio's spec.sharding.stallAfterSeconds.",
+		}, []string{"namespace", "portfolio", "run"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement, m.conditions, m.missed} {
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement, m.conditions, m.missed,
+		m.seriesDone, m.seriesPlanned, m.seriesRate, m.remaining, m.stalled} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
 		}
@@ -138,6 +164,27 @@ func (m *Metrics) forgetRun(namespace, run string) {
 	labels := prometheus.Labels{"namespace": namespace, "run": run}
 	m.shardsPending.DeletePartialMatch(labels)
 	m.parallelism.DeletePartialMatch(labels)
+	for _, g := range []*prometheus.GaugeVec{m.seriesDone, m.seriesPlanned, m.seriesRate, m.remaining, m.stalled} {
+		g.DeletePartialMatch(labels)
+	}
+}
+
+// runSeries sets an active run's progress gauges from status.progress.
+func (m *Metrics) runSeries(run *forecastingv1alpha1.ForecastRun, p *forecastingv1alpha1.RunProgress, stalled int) {
+	if m == nil || p == nil {
+		return
+	}
+	lv := []string{run.Namespace, run.Spec.PortfolioName, run.Name}
+	m.seriesDone.WithLabelValues(lv...).Set(float64(p.SeriesDone))
+	m.seriesPlanned.WithLabelValues(lv...).Set(float64(p.SeriesPlanned))
+	m.stalled.WithLabelValues(lv...).Set(float64(stalled))
+	if v, err := strconv.ParseFloat(p.SeriesPerSecond, 64); err == nil {
+		m.seriesRate.WithLabelValues(lv...).Set(v)
+	}
+	m.remaining.DeleteLabelValues(lv...)
+	if p.EstimatedEnd != nil && p.ObservedTime != nil {
+		m.remaining.WithLabelValues(lv...).Set(max(p.EstimatedEnd.Sub(p.ObservedTime.Time).Seconds(), 0))
+	}
 }
 
 // accuracy sets a portfolio's accuracy gauges from its status block (nil: drop them).

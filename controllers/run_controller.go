@@ -45,6 +45,10 @@ type RunReconciler struct {
 	MaxConcurrentShards int32
 	// Images is the install's allowlist of trainer images (empty: any).
 	Images ImageAllowlist
+	// Logs reads the running train pods' progress lines (nil: progress shows folded shards only).
+	Logs PodLogs
+	// ProgressInterval is how often a training run is requeued to read them (0: the default).
+	ProgressInterval time.Duration
 }
 
 // runEvent is an Event to emit once the status write succeeded.
@@ -67,6 +71,7 @@ func (w *runWork) event(kind, reason, format string, args ...any) {
 // +kubebuilder:rbac:groups=batch,resources=jobs,verbs=get;list;watch;create;patch;delete
 // +kubebuilder:rbac:groups="",resources=configmaps,verbs=get;list;watch;create
 // +kubebuilder:rbac:groups="",resources=pods,verbs=get;list;watch
+// +kubebuilder:rbac:groups="",resources=pods/log,verbs=get
 // +kubebuilder:rbac:groups=events.k8s.io,resources=events,verbs=create;patch
 
 // Reconcile advances one run by as many steps as the cluster allows and writes its status once.
@@ -323,8 +328,9 @@ func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.Fore
 	st.Parallelism = share
 	r.Metrics.runProgress(run, st.Shards.Total-st.Shards.Succeeded-st.Shards.Failed, share)
 	if outcome == jobRunning {
-		return nil
+		return r.trainProgress(ctx, run, fp, job, w)
 	}
+	r.trainEnded(run, job, w)
 	st.Shards.Active, st.Parallelism = 0, 0
 	allowed := ptr.Deref(job.Spec.MaxFailedIndexes, 0)
 	switch {

@@ -3,12 +3,14 @@ package controllers
 import (
 	"context"
 	"fmt"
+	"time"
 
 	batchv1 "k8s.io/api/batch/v1"
 	corev1 "k8s.io/api/core/v1"
 	"k8s.io/apimachinery/pkg/labels"
 	"k8s.io/apimachinery/pkg/selection"
 	"k8s.io/apimachinery/pkg/types"
+	"k8s.io/client-go/kubernetes"
 	"k8s.io/utils/clock"
 	ctrl "sigs.k8s.io/controller-runtime"
 	"sigs.k8s.io/controller-runtime/pkg/builder"
@@ -44,6 +46,11 @@ type Options struct {
 	// Images is the install's allowlist of trainer images (--trainer-image-prefixes); empty
 	// allows any image.
 	Images ImageAllowlist
+	// ProgressInterval is how often a training run reads its running pods' progress lines
+	// (0: DefaultProgressInterval).
+	ProgressInterval time.Duration
+	// Logs reads them; nil: pods/log through a client built from the manager's config.
+	Logs PodLogs
 	// Wrap, when set, wraps each reconciler (named "forecastrun" or "forecastportfolio"), e.g.
 	// to time reconciles in the benchmark.
 	Wrap func(name string, r reconcile.Reconciler) reconcile.Reconciler
@@ -76,8 +83,9 @@ func CacheOptions(namespaces []string) (cache.Options, error) {
 }
 
 // slimPod keeps only what the run controller reads from a trainer pod (metadata without
-// managed fields, the phase, each container's terminated state and a CreateContainerConfigError
-// waiting state), so a run of many shards costs the cache little memory per pod.
+// managed fields, the phase, each container's running and terminated state and a
+// CreateContainerConfigError waiting state), so a run of many shards costs the cache little
+// memory per pod.
 func slimPod(obj any) (any, error) {
 	pod, ok := obj.(*corev1.Pod)
 	if !ok {
@@ -87,7 +95,7 @@ func slimPod(obj any) (any, error) {
 	slim.ManagedFields = nil
 	slim.Status.Phase = pod.Status.Phase
 	for _, cs := range pod.Status.ContainerStatuses {
-		state := corev1.ContainerState{Terminated: cs.State.Terminated}
+		state := corev1.ContainerState{Terminated: cs.State.Terminated, Running: cs.State.Running}
 		if w := cs.State.Waiting; w != nil && w.Reason == waitingConfigError {
 			state.Waiting = w
 		}
@@ -121,10 +129,17 @@ func SetupWithManager(ctx context.Context, mgr manager.Manager, o Options) error
 		func(obj client.Object) []string { return podConfigErrorKeys(obj.(*corev1.Pod)) }); err != nil {
 		return fmt.Errorf("index pods by configuration error: %w", err)
 	}
+	if o.Logs == nil {
+		cs, err := kubernetes.NewForConfig(mgr.GetConfig())
+		if err != nil {
+			return fmt.Errorf("client for pod logs: %w", err)
+		}
+		o.Logs = NewPodLogs(cs)
+	}
 	runs := &RunReconciler{
 		Client: mgr.GetClient(), APIReader: mgr.GetAPIReader(), Scheme: mgr.GetScheme(),
 		Recorder: mgr.GetEventRecorder("almanac-run"), Clock: o.Clock, Metrics: o.Metrics,
-		MaxConcurrentShards: o.MaxConcurrentShards, Images: o.Images,
+		MaxConcurrentShards: o.MaxConcurrentShards, Images: o.Images, Logs: o.Logs, ProgressInterval: o.ProgressInterval,
 	}
 	// A portfolio change (created late, history limits, ...) wakes its unfinished runs.
 	portfolioToRuns := handler.EnqueueRequestsFromMapFunc(func(ctx context.Context, obj client.Object) []reconcile.Request {

@@ -707,6 +707,16 @@ type ShardingSpec struct {
 	// +optional
 	// +kubebuilder:validation:Minimum=1
 	ActiveDeadlineSeconds *int64 `json:"activeDeadlineSeconds,omitempty"`
+
+	// stallAfterSeconds: a running train shard whose progress (units read, series done, units
+	// written) has not moved for this long, or that printed no progress line for this long, is
+	// named in the run's ShardsStalled condition. Default 900. At least 60: pods print a
+	// progress line every 30 seconds.
+	// +optional
+	// +kubebuilder:default=900
+	// +kubebuilder:validation:Minimum=60
+	// +kubebuilder:validation:Maximum=604800
+	StallAfterSeconds int32 `json:"stallAfterSeconds,omitempty"`
 }
 
 // TrainerSpec describes the trainer pods.

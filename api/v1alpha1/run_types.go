@@ -68,6 +68,9 @@ const (
 	// container waits in CreateContainerConfigError, e.g. the credentials Secret is missing);
 	// absent otherwise. The run goes on by itself once the pod starts.
 	RunStalled = "Stalled"
+	// RunShardsStalled is True while some running train shard has shown no progress for
+	// spec.sharding.stallAfterSeconds of its portfolio; the message names the shards.
+	RunShardsStalled = "ShardsStalled"
 )
 
 // Condition reasons of a ForecastRun, shared with Events.
@@ -107,6 +110,12 @@ const (
 	ReasonReconcileFailed = "ReconcileFailed"
 	// ReasonReconciled (Event): the reconcile step finished and the run goes on to publish.
 	ReasonReconciled = "Reconciled"
+	// ReasonNoProgress: ShardsStalled True, a running shard's progress has not moved.
+	ReasonNoProgress = "NoProgress"
+	// ReasonShardsProgressing: ShardsStalled False, every running shard moved recently.
+	ReasonShardsProgressing = "ShardsProgressing"
+	// ReasonTrainingEnded: ShardsStalled False, the train Job has ended.
+	ReasonTrainingEnded = "TrainingEnded"
 )
 
 // ForecastRunStatus is the observed state of a run.
@@ -119,7 +128,7 @@ type ForecastRunStatus struct {
 	// +optional
 	Phase RunPhase `json:"phase,omitempty"`
 
-	// conditions: Succeeded, Progressing, Degraded.
+	// conditions: Succeeded, Progressing, Degraded, ShardsStalled.
 	// +optional
 	// +listType=map
 	// +listMapKey=type
@@ -193,6 +202,49 @@ type ForecastRunStatus struct {
 	// output is where the run's results are.
 	// +optional
 	Output string `json:"output,omitempty"`
+
+	// progress is where training stands: series done of planned, the current rate, the
+	// estimated end and the stalled shards. The controller reads the last progress line each
+	// running train pod prints to its log every 30 seconds (no storage read, no connection
+	// held), each time it requeues the run (--progress-interval).
+	// +optional
+	Progress *RunProgress `json:"progress,omitempty"`
+}
+
+// RunProgress is a training's progress as of observedTime.
+type RunProgress struct {
+	// seriesDone counts series forecast or rejected so far: those of the folded shards plus
+	// those the running shards' last progress lines report.
+	SeriesDone int64 `json:"seriesDone"`
+	// seriesPlanned is status.series.planned (the plan's count, an estimate when the input is
+	// not partitioned by series).
+	// +optional
+	SeriesPlanned int64 `json:"seriesPlanned,omitempty"`
+	// percent is 100 * seriesDone / seriesPlanned, rounded down, at most 100 (100 once the
+	// train Job has ended).
+	Percent int32 `json:"percent"`
+	// seriesPerSecond is the current rate (a decimal string): the change of seriesDone between
+	// two readings divided by the time between them, smoothed exponentially with weight 0.5
+	// on the newest reading. Once training ended: the mean rate over the whole training.
+	// +optional
+	SeriesPerSecond string `json:"seriesPerSecond,omitempty"`
+	// estimatedEnd is when training should end at the current rate: observedTime +
+	// (seriesPlanned - seriesDone) / seriesPerSecond. Once training ended: when it did.
+	// +optional
+	EstimatedEnd *metav1.Time `json:"estimatedEnd,omitempty"`
+	// trainingStartTime is when the controller first saw the train Job.
+	// +optional
+	TrainingStartTime *metav1.Time `json:"trainingStartTime,omitempty"`
+	// observedTime is when the progress lines were last read.
+	// +optional
+	ObservedTime *metav1.Time `json:"observedTime,omitempty"`
+	// runningShards counts the train pods running at observedTime.
+	// +optional
+	RunningShards int32 `json:"runningShards,omitempty"`
+	// stalledShards are the running shard indexes, as ranges like "3,7-9", whose progress has
+	// not moved for the portfolio's spec.sharding.stallAfterSeconds (condition ShardsStalled).
+	// +optional
+	StalledShards string `json:"stalledShards,omitempty"`
 }
 
 // HierarchyStatus is what a run knows of its hierarchy, folded from the plan, train and
@@ -364,6 +416,9 @@ type StabilitySums struct {
 // +kubebuilder:printcolumn:name="Done",type=integer,JSONPath=`.status.shards.succeeded`
 // +kubebuilder:printcolumn:name="Failed",type=integer,JSONPath=`.status.shards.failed`,priority=1
 // +kubebuilder:printcolumn:name="Series",type=integer,JSONPath=`.status.series.trained`
+// +kubebuilder:printcolumn:name="Progress",type=integer,JSONPath=`.status.progress.percent`,description="percent of planned series done"
+// +kubebuilder:printcolumn:name="Series/s",type=string,JSONPath=`.status.progress.seriesPerSecond`,priority=1
+// +kubebuilder:printcolumn:name="Est-End",type=string,JSONPath=`.status.progress.estimatedEnd`,priority=1
 // +kubebuilder:printcolumn:name="Parallel",type=integer,JSONPath=`.status.parallelism`,priority=1
 // +kubebuilder:printcolumn:name="Expected",type=string,JSONPath=`.status.accuracy.expected`
 // +kubebuilder:printcolumn:name="Realized",type=string,JSONPath=`.status.accuracy.realized`

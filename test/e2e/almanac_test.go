@@ -3,6 +3,7 @@ package e2e
 import (
 	"encoding/csv"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"time"
@@ -212,6 +213,57 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		Expect(apimeta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunStalled)).To(BeNil())
 		Expect(d.latestRun()).To(Equal("fenwick-nosecret-1"))
 	}, SpecTimeout(3*time.Minute))
+
+	It("shows training progress in kubectl get frun from the running pods' progress lines", func(ctx SpecContext) {
+		ns, _, fp := newPortfolio(ctx, c, "progress", "fenwick-progress", lingeringImage, nil)
+		manualRun(ctx, c, fp, "fenwick-progress-1")
+		kubectl := filepath.Join(os.Getenv("KUBEBUILDER_ASSETS"), "kubectl")
+		if _, err := os.Stat(kubectl); err != nil {
+			Skip("kubectl is not next to the control-plane binaries: " + err.Error())
+		}
+
+		By("waiting until every shard printed its last progress line while its pod still runs")
+		Eventually(func(g Gomega) {
+			var run forecastingv1alpha1.ForecastRun
+			g.Expect(c.Get(ctx, client.ObjectKey{Namespace: ns, Name: "fenwick-progress-1"}, &run)).To(Succeed())
+			g.Expect(run.Status.Phase).To(Equal(forecastingv1alpha1.PhaseTraining))
+			g.Expect(run.Status.Shards.Folded).To(BeEmpty(), "nothing is folded while the pods run")
+			p := run.Status.Progress
+			g.Expect(p).NotTo(BeNil())
+			g.Expect(p.RunningShards).To(Equal(int32(4)))
+			g.Expect(p.SeriesDone).To(Equal(int64(40)), "10 series per shard, all from the pods' logs")
+			g.Expect(p.Percent).To(Equal(int32(100)))
+		}).WithContext(ctx).WithTimeout(2 * time.Minute).WithPolling(500 * time.Millisecond).Should(Succeed())
+
+		By("reading it with kubectl get frun, as an operator would")
+		out, err := exec.CommandContext(ctx, kubectl, "--kubeconfig", cluster.Kubeconfig, "get", "frun", "-n", ns, "-o", "wide").CombinedOutput()
+		Expect(err).NotTo(HaveOccurred(), string(out))
+		lines := strings.Split(strings.TrimSpace(string(out)), "\n")
+		Expect(lines).To(HaveLen(2), string(out))
+		// kubectl aligns each value under the start of its column's name and leaves an unset
+		// value blank (the accuracy columns of a first run), so cut the row by the header.
+		col := func(name string) string {
+			GinkgoHelper()
+			i := strings.Index(lines[0], " "+name+" ")
+			Expect(i).To(BeNumerically(">=", 0), "no column %s in %q", name, lines[0])
+			Expect(len(lines[1])).To(BeNumerically(">", i+1), lines[1])
+			Expect(lines[1][i+1]).NotTo(Equal(byte(' ')), "column %s is blank: %q", name, lines[1])
+			return strings.Fields(lines[1][i+1:])[0]
+		}
+		Expect(col("PHASE")).To(Equal("Training"))
+		Expect(col("PROGRESS")).To(Equal("100"))
+		Expect(col("SERIES/S")).To(MatchRegexp(`^[0-9.]+$`))
+		Expect(col("EST-END")).To(MatchRegexp(`^\d{4}-\d\d-\d\dT\S+Z$`))
+
+		By("letting the pods end: the run publishes and progress keeps its final figures")
+		Expect(os.WriteFile(filepath.Join(gateDir, fp.Name), nil, 0o644)).To(Succeed())
+		run := finishedRun(ctx, c, ns, "fenwick-progress-1")
+		expectClean(run)
+		Expect(run.Status.Progress).NotTo(BeNil())
+		Expect(run.Status.Progress.Percent).To(Equal(int32(100)))
+		Expect(run.Status.Progress.SeriesDone).To(Equal(int64(40)))
+		Expect(conditionStatus(run.Status.Conditions, forecastingv1alpha1.RunShardsStalled)).NotTo(Equal(metav1.ConditionTrue))
+	}, SpecTimeout(4*time.Minute))
 
 	It("rejects bad series with reasons and forecasts the rest", func(ctx SpecContext) {
 		ns := newNamespace(ctx, "badseries")

@@ -44,6 +44,10 @@ const (
 	brokenImage = "fenwick-lane/almanac-trainer:broken-shard-1"
 	// gatedImage holds train shards 1 and up until the file gates/<portfolio> exists.
 	gatedImage = "fenwick-lane/almanac-trainer:gated"
+	// lingeringImage runs train and then keeps every train pod running until the file
+	// gates/<portfolio> exists, so the run stays in Training with the trainer's progress lines
+	// in the pods' logs and no shard folded.
+	lingeringImage = "fenwick-lane/almanac-trainer:lingering"
 )
 
 // trainerBinary is the built almanac-trainer; markerDir and gateDir are the wrappers' state.
@@ -85,6 +89,18 @@ fi`, gateDir),
 		}
 		images[map[string]string{"flaky": flakyImage, "broken": brokenImage, "gated": gatedImage}[name]] = path
 	}
+	lingering := filepath.Join(dir, "almanac-trainer-lingering")
+	script := fmt.Sprintf(`#!/bin/sh
+if [ "$1" != train ]; then exec %[1]s "$@"; fi
+%[1]s "$@"
+rc=$?
+while [ ! -e %[2]s/"$ALMANAC_PORTFOLIO" ]; do sleep 0.2; done
+exit $rc
+`, trainerBinary, gateDir)
+	if err := os.WriteFile(lingering, []byte(script), 0o755); err != nil {
+		return nil, nil, err
+	}
+	images[lingeringImage] = lingering
 	return images, []string{"../../config/crd/bases"}, nil
 }
 
@@ -137,7 +153,8 @@ func runManager(ctx context.Context, cfg *rest.Config) error {
 	if err != nil {
 		return err
 	}
-	if err := controllers.SetupWithManager(ctx, mgr, controllers.Options{MaxConcurrentShards: 8}); err != nil {
+	// Progress is read every second (the default is 30 s) so that a scenario sees it quickly.
+	if err := controllers.SetupWithManager(ctx, mgr, controllers.Options{MaxConcurrentShards: 8, ProgressInterval: time.Second}); err != nil {
 		return err
 	}
 	return mgr.Start(ctx)

@@ -62,6 +62,8 @@ type Agent struct {
 	// them a little longer).
 	deleted map[types.UID]bool
 	wg      sync.WaitGroup
+	// logPort serves the pods' container logs (logs.go).
+	logPort int32
 }
 
 // New checks the options and returns an agent; Run starts it.
@@ -87,6 +89,11 @@ func New(opts Options) (*Agent, error) {
 // runs the pods bound to its Nodes until ctx ends; then it kills every process it started (all
 // of its process group) and returns once they are gone.
 func (a *Agent) Run(ctx context.Context) error {
+	port, err := a.serveLogs(ctx)
+	if err != nil {
+		return fmt.Errorf("localnode: serve container logs: %w", err)
+	}
+	a.logPort = int32(port)
 	for _, n := range a.opts.Nodes {
 		if err := a.register(ctx, n); err != nil {
 			return fmt.Errorf("localnode: register node %s: %w", n.Name, err)
@@ -354,6 +361,7 @@ func (a *Agent) updateNodeStatus(ctx context.Context, node *corev1.Node) error {
 	node.Status.Capacity, node.Status.Allocatable = capacity, capacity
 	node.Status.Addresses = []corev1.NodeAddress{{Type: corev1.NodeInternalIP, Address: loopback}, {Type: corev1.NodeHostName, Address: node.Name}}
 	node.Status.NodeInfo.KubeletVersion = "localnode"
+	node.Status.DaemonEndpoints.KubeletEndpoint.Port = a.logPort
 	node.Status.NodeInfo.OperatingSystem, node.Status.NodeInfo.Architecture = "linux", "amd64"
 	ready := corev1.NodeCondition{Type: corev1.NodeReady, Status: corev1.ConditionTrue, Reason: "LocalnodeReady", Message: "localnode agent is running", LastHeartbeatTime: now, LastTransitionTime: now}
 	for _, c := range node.Status.Conditions {

@@ -8,6 +8,7 @@
 // /etc/app/config.json reads <pod dir>/volumes/<volume>/config.json instead. The agent reports
 // pod phases, container states, exit codes and the termination message, and on pod deletion
 // stops the process (SIGTERM, grace period, SIGKILL) before it removes the pod with grace 0.
+// It serves the container logs the API server asks for (kubectl logs, pods/log; logs.go).
 //
 // No isolation: processes share the host's network, users and file system. It is for tests on
 // loopback only.

@@ -64,6 +64,10 @@ ClusterRole (all namespaces) or one Role per watched namespace.
 - apiGroups: [""]
   resources: [pods]
   verbs: [get, list, watch]
+# Running train pods' logs: the last lines only, for their progress lines (status.progress).
+- apiGroups: [""]
+  resources: [pods/log]
+  verbs: [get]
 - apiGroups: [events.k8s.io]
   resources: [events]
   verbs: [create, patch]

@@ -139,6 +139,9 @@ func Start(ctx context.Context, opts Options) (c *Cluster, err error) {
 	api := c.env.ControlPlane.GetAPIServer()
 	c.env.ControlPlane.Etcd = &envtest.Etcd{Path: etcd}
 	api.Path = apiserver
+	// pods/log reaches localnode's log endpoint at the Node's InternalIP (127.0.0.1); its
+	// Hostname address does not resolve.
+	api.Configure().Set("kubelet-preferred-address-types", "InternalIP")
 	etcdLog, err := os.Create(filepath.Join(opts.Dir, "etcd.log"))
 	if err != nil {
 		return c, err
