@@ -53,14 +53,25 @@ const (
 // trainerBinary is the built almanac-trainer; markerDir and gateDir are the wrappers' state.
 var trainerBinary, markerDir, gateDir string
 
-// almanacImages builds the trainer into dir and writes the wrappers; it returns the image map
-// entries and the CRD directory for the suite's cluster.
+// almanacImages builds the trainer into dir (or, with ALMANAC_IMAGES set, takes it from the
+// trainer image, see imageEntrypoint) and writes the wrappers; it returns the image map entries
+// and the CRD directory for the suite's cluster.
 func almanacImages(ctx context.Context, dir string) (map[string]string, []string, error) {
 	trainerBinary = filepath.Join(dir, "almanac-trainer")
-	build := exec.CommandContext(ctx, "go", "build", "-o", trainerBinary, "../../trainer/cmd/almanac-trainer")
-	build.Env = append(os.Environ(), "CGO_ENABLED=0")
-	if out, err := build.CombinedOutput(); err != nil {
-		return nil, nil, fmt.Errorf("build almanac-trainer: %v: %s", err, out)
+	if images := os.Getenv("ALMANAC_IMAGES"); images != "" {
+		// The binary the trainer image holds (make images), not one built here.
+		archive := filepath.Join(images, "almanac-trainer.oci.tar")
+		entry, err := imageEntrypoint(archive, trainerBinary)
+		if err != nil {
+			return nil, nil, fmt.Errorf("ALMANAC_IMAGES is set: %w", err)
+		}
+		fmt.Fprintf(os.Stderr, "e2e: trainer binary %s from %s\n", entry, archive)
+	} else {
+		build := exec.CommandContext(ctx, "go", "build", "-o", trainerBinary, "../../trainer/cmd/almanac-trainer")
+		build.Env = append(os.Environ(), "CGO_ENABLED=0")
+		if out, err := build.CombinedOutput(); err != nil {
+			return nil, nil, fmt.Errorf("build almanac-trainer: %v: %s", err, out)
+		}
 	}
 	markerDir, gateDir = filepath.Join(dir, "markers"), filepath.Join(dir, "gates")
 	for _, d := range []string{markerDir, gateDir} {
