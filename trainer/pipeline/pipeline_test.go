@@ -113,7 +113,7 @@ func putInput(t *testing.T, st *store.Store) {
 	}
 }
 
-func mustOpen(t *testing.T, uri string) *store.Store {
+func mustOpen(t testing.TB, uri string) *store.Store {
 	t.Helper()
 	st, err := store.Open(context.Background(), uri)
 	if err != nil {
