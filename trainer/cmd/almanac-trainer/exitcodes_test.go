@@ -198,6 +198,11 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 			os.WriteFile(path(in)+"depot-brill.csv", dailyCSV("FLP-"+strings.Repeat("RYE", 33_000), "FLP-RYE-500", "FLP-RYE-800", "FLP-BRAN-250", "FLP-BRAN-500"), 0o644)
 			return localArgs(in, out, "r2")
 		}, nil, exitcode.OK, ""},
+		{"every input object broken (an empty export)", func(t *testing.T) []string {
+			in, out := published(t)
+			os.WriteFile(path(in)+"depot-ashby.csv", nil, 0o644)
+			return localArgs(in, out, "r2")
+		}, nil, exitcode.Data, "every input object is broken; the first: "},
 		{"a run that lost its series (read as monthly)", func(t *testing.T) []string {
 			in, out := published(t)
 			return localArgs(in, out, "r2", "--frequency", "Monthly")
