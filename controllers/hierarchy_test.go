@@ -13,7 +13,7 @@ import (
 )
 
 // hierarchySources are the level reports of a run of item x depot demand cut into two shards
-// by depot: each shard holds its depot's items (bottom level "item/depot") and the depot total;
+// by depot: each shard holds its depot's items (bottom level "item+depot") and the depot total;
 // the reconcile step reports the nodes that span shards, the item totals and the grand total.
 func hierarchySources() [][]summary.Level {
 	mase := func(n int, exp, real float64) *summary.Accuracy {
@@ -21,8 +21,8 @@ func hierarchySources() [][]summary.Level {
 			LogEvaluated: n, ExpectedLogSum: float64(n) * math.Log(exp/float64(n)), RealizedLogSum: float64(n) * math.Log(real/float64(n))}
 	}
 	return [][]summary.Level{
-		{{Name: "item/depot", Nodes: 3, Accuracy: mase(3, 0.3, 0.6)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
-		{{Name: "item/depot", Nodes: 2, Accuracy: mase(2, 0.2, 0.4)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
+		{{Name: "item+depot", Nodes: 3, Accuracy: mase(3, 0.3, 0.6)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
+		{{Name: "item+depot", Nodes: 2, Accuracy: mase(2, 0.2, 0.4)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
 		{{Name: "total", Nodes: 1, Accuracy: mase(1, 0.5, 0.5)}, {Name: "item", Nodes: 3}},
 	}
 }
@@ -52,7 +52,7 @@ func TestAddLevelsIsExactAndOrderFree(t *testing.T) {
 	for _, l := range a.Levels {
 		names, nodes = append(names, l.Name), append(nodes, l.Nodes)
 	}
-	if diff := cmp.Diff([]string{"total", "depot", "item", "item/depot"}, names); diff != "" {
+	if diff := cmp.Diff([]string{"total", "depot", "item", "item+depot"}, names); diff != "" {
 		t.Errorf("level order (-want,+got):\n%s", diff)
 	}
 	if diff := cmp.Diff([]int64{1, 2, 3, 5}, nodes); diff != "" {
@@ -86,7 +86,7 @@ func TestAddLevelsIsAllOrNothing(t *testing.T) {
 		"no name":      {{Name: "depot", Nodes: 1}, {Name: "", Nodes: 1}},
 		"twice":        {{Name: "depot", Nodes: 1}, {Name: "depot", Nodes: 1}},
 		"negative":     {{Name: "depot", Nodes: -1}},
-		"other metric": {{Name: "item/depot", Nodes: 1}, {Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "RMSSE", Evaluated: 1}}},
+		"other metric": {{Name: "item+depot", Nodes: 1}, {Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "RMSSE", Evaluated: 1}}},
 		"not finite":   {{Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 1, ExpectedSum: math.Inf(1)}}},
 	}
 	for name, levels := range tests {
@@ -125,7 +125,7 @@ func TestFoldShardsAddsLevels(t *testing.T) {
 	for _, l := range st.Hierarchy.Levels {
 		got[l.Name] = l.Nodes
 	}
-	if diff := cmp.Diff(map[string]int64{"depot": 2, "item/depot": 5}, got); diff != "" {
+	if diff := cmp.Diff(map[string]int64{"depot": 2, "item+depot": 5}, got); diff != "" {
 		t.Errorf("levels (-want,+got):\n%s", diff)
 	}
 	if !st.Hierarchy.ReconcileStep || st.Hierarchy.Levels[1].AccuracySums.Evaluated != 5 {

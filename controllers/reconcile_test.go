@@ -48,7 +48,7 @@ func hierarchyShard(i int) summary.Summary {
 	if i < 2 {
 		s.Levels = hierarchySources()[i]
 	} else {
-		s.Levels = []summary.Level{{Name: "item/depot", Nodes: 4}, {Name: "depot", Nodes: 1}}
+		s.Levels = []summary.Level{{Name: "item+depot", Nodes: 4}, {Name: "depot", Nodes: 1}}
 	}
 	return s
 }
@@ -76,7 +76,7 @@ func expectLevels(h *forecastingv1alpha1.HierarchyStatus) {
 	for _, l := range h.Levels {
 		nodes[l.Name] = l.Nodes
 	}
-	Expect(nodes).To(Equal(map[string]int64{"total": 1, "depot": 3, "item": 3, "item/depot": 9}))
+	Expect(nodes).To(Equal(map[string]int64{"total": 1, "depot": 3, "item": 3, "item+depot": 9}))
 	Expect(h.Levels[0].Name).To(Equal("total"))
 	// The grand total, evaluated once by the reconcile step: expected 0.5, realized 0.5.
 	Expect(h.Levels[0].Accuracy.Expected).To(Equal("0.5000"))
@@ -137,7 +137,7 @@ var _ = Describe("ForecastRun reconcile step", func() {
 		if noKubectl == nil {
 			out := kubectl(&golden, "get", "frun", "fenwick-tree-2", "-n", ns, "-o",
 				`jsonpath={.status.hierarchy.maxDeviation}{"\n"}{range .status.hierarchy.levels[*]}{.name}{"\t"}{.nodes}{"\t"}{.accuracy.expected}{"\t"}{.accuracy.realized}{"\n"}{end}`)
-			Expect(out).To(Equal("2.22e-16\ntotal\t1\t0.5000\t0.5000\ndepot\t3\t0.1000\t0.2000\nitem\t3\t\t\nitem/depot\t9\t0.1000\t0.2000\n"))
+			Expect(out).To(Equal("2.22e-16\ntotal\t1\t0.5000\t0.5000\ndepot\t3\t0.1000\t0.2000\nitem\t3\t\t\nitem+depot\t9\t0.1000\t0.2000\n"))
 			if os.Getenv("ALMANAC_UPDATE_GOLDEN") == "1" {
 				Expect(os.WriteFile(filepath.Join("testdata", "kubectl-get-hierarchy.txt"), []byte(golden.String()), 0o644)).To(Succeed())
 			}

@@ -269,7 +269,7 @@ type HierarchyStatus struct {
 
 // HierarchyLevelStatus is one level of the hierarchy in a run.
 type HierarchyLevelStatus struct {
-	// name of the level, as the trainer names it in the outputs (e.g. total, depot, item/depot).
+	// name of the level, as the trainer names it in the outputs (e.g. total, depot, item+depot).
 	Name string `json:"name"`
 	// nodes is how many nodes (series) of the level the run forecast.
 	Nodes int64 `json:"nodes"`

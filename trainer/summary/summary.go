@@ -83,7 +83,7 @@ type Summary struct {
 
 // Level is one hierarchy level as one command saw it (see Summary.Levels).
 type Level struct {
-	// Name is the level's name, e.g. "total", "depot" or "item/depot" (the trainer's).
+	// Name is the level's name, e.g. "total", "depot" or "item+depot" (the trainer's).
 	Name string `json:"name"`
 	// Nodes is how many nodes of the level this command forecast.
 	Nodes int `json:"nodes"`
