@@ -60,7 +60,14 @@ type Run struct {
 	Carried map[string]string
 	// Missing lists the units the manifest has no files for, with the reason.
 	Missing []string
-	units   []unitFiles
+	// Nodes and NodeEvaluation are a hierarchy's aggregates (models and evaluation rows),
+	// kept apart from Models and Evaluation, which hold the input series; Levels sums both by
+	// level and Coherence is the published run's check (nil without a hierarchy or manifest).
+	Nodes          []tables.ModelRow
+	NodeEvaluation []tables.EvaluationRow
+	Levels         []LevelRow
+	Coherence      *pipeline.Coherence
+	units          []unitFiles
 }
 
 // unitFiles is one unit's table files: table name -> key and expected SHA-256 ("" unknown).
@@ -105,6 +112,9 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 	sort.Slice(r.Models, func(i, j int) bool { return r.Models[i].Key < r.Models[j].Key })
 	sort.Slice(r.Rejected, func(i, j int) bool { return r.Rejected[i].Key < r.Rejected[j].Key })
 	sort.Slice(r.Evaluation, func(i, j int) bool { return r.Evaluation[i].Key < r.Evaluation[j].Key })
+	if err := r.splitLevels(ctx, st); err != nil {
+		return nil, err
+	}
 	return r, nil
 }
 
