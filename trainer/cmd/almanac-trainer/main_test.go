@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"maps"
 	"os"
 	"path/filepath"
 	"regexp"
@@ -234,6 +235,65 @@ func TestLocalRunsTheHierarchySample(t *testing.T) {
 	}
 }
 
+// TestHierarchyStepsAsJobs: the commands the run's Jobs execute, with their termination
+// messages (the controller's contract): plan says reconcile, each train shard reports the levels
+// it holds, reconcile reports the spanning levels and the coherence it checked, publish the run.
+func TestHierarchyStepsAsJobs(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--frequency", "Weekly", "--items", "5", "--depots", "4"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: exit %d: %s", code, errb.String())
+	}
+	cfg := filepath.Join(dir, "config.json")
+	os.WriteFile(cfg, []byte(`{"apiVersion":"trainer.almanac.dev/v1alpha1","kind":"ForecastRunConfig",
+		"run":"flp-tree-1","trigger":"Manual",
+		"source":{"uri":"file://`+dir+`/in/","format":"csv","frequency":"Weekly","weekAnchor":"Monday","nonNegative":true,"partitioning":"HashBuckets",
+			"columns":{"series":["item","depot"],"date":"week_start","value":"units"}},
+		"output":{"uri":"file://`+dir+`/out/","format":"csv"},"horizon":6,"quantilePercents":[10,90],
+		"models":[{"family":"Naive"},{"family":"Theta"}],
+		"selection":{"metric":"MASE","backtestOrigins":2,"backtestStep":1,"backtestRefit":"Once","design":"Fixed","designCostPercent":500},
+		"sharding":{"targetSeriesPerShard":5,"buckets":64},"drift":{"metric":"MASE","thresholdPercent":130,"minEvaluatedPoints":3},
+		"hierarchy":{"levels":[["depot"],["item"],[]],"shardBy":["depot"],"method":"OLS","nonNegative":true}}`), 0o644)
+	term := filepath.Join(dir, "term")
+	step := func(getenv func(string) string, args ...string) summary.Summary {
+		t.Helper()
+		if code := run(ctx, append(args, "--config", cfg, "--termination-log", term), &out, &errb, getenv); code != 0 {
+			t.Fatalf("%v: exit %d: %s", args, code, errb.String())
+		}
+		b, _ := os.ReadFile(term)
+		s, err := summary.Decode(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return s
+	}
+	ps := step(noenv, "plan")
+	if !ps.Reconcile || ps.Shards < 3 {
+		t.Fatalf("plan summary %+v: want reconcile and 3 or more shards", ps)
+	}
+	nodes := map[string]int{}
+	for i := 0; i < ps.Shards; i++ {
+		s := step(noenv, "train", "--shard", strconv.Itoa(i))
+		for _, l := range s.Levels {
+			nodes[l.Name] += l.Nodes
+		}
+	}
+	rs := step(noenv, "reconcile")
+	if rs.Kind != summary.KindReconcile || rs.MaxDeviation > 1e-9 || rs.Trained != 6 {
+		t.Fatalf("reconcile summary %+v", rs)
+	}
+	for _, l := range rs.Levels {
+		nodes[l.Name] += l.Nodes
+	}
+	if want := map[string]int{"item+depot": 20, "depot": 4, "item": 5, "total": 1}; !maps.Equal(nodes, want) {
+		t.Errorf("nodes by level over every summary %v, want %v", nodes, want)
+	}
+	if s := step(noenv, "publish"); s.Kind != summary.KindPublish || s.Trained != 20 || s.Units != ps.Units+1 {
+		t.Fatalf("publish summary %+v", s)
+	}
+}
+
 // TestCommandLineHygiene: every subcommand takes -h (exit 0, usage on stdout), refuses stray
 // arguments, empty list items and flags it would ignore (exit 2, naming them).
 func TestCommandLineHygiene(t *testing.T) {
@@ -241,7 +301,7 @@ func TestCommandLineHygiene(t *testing.T) {
 	dir := t.TempDir()
 	cfg := filepath.Join(dir, "config.json")
 	os.WriteFile(cfg, []byte(`{}`), 0o644)
-	for _, cmd := range []string{"plan", "train", "publish", "local", "render", "validate", "inspect", "generate", "report", "bench"} {
+	for _, cmd := range []string{"plan", "train", "reconcile", "publish", "local", "render", "validate", "inspect", "generate", "report", "bench"} {
 		var out, errb bytes.Buffer
 		if code := run(ctx, []string{cmd, "-h"}, &out, &errb, noenv); code != exitcode.OK || !strings.Contains(out.String(), "usage: almanac-trainer "+cmd) {
 			t.Errorf("%s -h: exit %d, stdout %q", cmd, code, out.String())
