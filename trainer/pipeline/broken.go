@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"slices"
 	"sort"
+	"strconv"
 	"strings"
 
 	"almanac.dev/almanac/trainer/ingest"
@@ -180,4 +181,29 @@ func keepPreviousBuckets(units []Unit, prev *Manifest, buckets int) []Unit {
 		}
 	}
 	return units
+}
+
+// previousGroupUnits returns, empty, the row-group units the previous manifest has for object
+// key (ids ObjectID(key, groups)): the units of an object broken at plan, whose row groups
+// cannot be listed now.
+func previousGroupUnits(prev *Manifest, key string) []Unit {
+	if prev == nil {
+		return nil
+	}
+	var out []Unit
+	for _, e := range prev.Units {
+		i := strings.LastIndex(e.ID, "-g")
+		if i < 0 || e.State == StateMissing {
+			continue
+		}
+		g, err := strconv.Atoi(e.ID[i+2:])
+		if err != nil || g < 0 {
+			continue
+		}
+		gr := &ingest.GroupRange{From: g, To: g + 1}
+		if ObjectID(key, gr) == e.ID {
+			out = append(out, Unit{ID: e.ID, Object: key, Groups: gr})
+		}
+	}
+	return out
 }

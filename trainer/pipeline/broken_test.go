@@ -187,3 +187,46 @@ func TestDamagedParquetAtPlan(t *testing.T) {
 		t.Fatalf("plan with a column no object has: exit %d, %v", ExitCode(err), err)
 	}
 }
+
+// With partitioning RowGroups an object broken at plan has no row groups to list: its units
+// are the previous run's for the object, carried forward whole.
+func TestDamagedParquetAtPlanRowGroups(t *testing.T) {
+	ctx := context.Background()
+	in := mustOpen(t, "mem://flp-damaged-rg-in/")
+	o := synth.Options{Items: 8, Depots: 2, Periods: 60, End: anchor.Truncate(24 * time.Hour).AddDate(0, 0, -1)}
+	for d := 0; d < 2; d++ {
+		if err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*60) }); err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := func(run string) *runconfig.Config {
+		c := testConfig(run, "mem://flp-damaged-rg-in/", "mem://flp-damaged-rg-out/")
+		c.Source.Format, c.Source.Partitioning, c.Output.Format = "parquet", runconfig.PartitionRowGroups, "parquet"
+		c.Sharding.TargetSeriesPerShard = 4
+		return c
+	}
+	runAll(t, cfg("flp-0001"))
+	key := synth.ObjectKey(1, synth.Parquet)
+	b, err := in.Get(ctx, key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	in.Put(ctx, key, b[:len(b)-12])
+	_, errs := runAll(t, cfg("flp-0002"))
+	for i, err := range errs {
+		if err != nil {
+			t.Fatalf("shard %d: %v", i, err)
+		}
+	}
+	m := checkPublished(t, mustOpen(t, cfg("flp-0002").Output.URI), "flp-0002")
+	carried := 0
+	for _, u := range m.Units {
+		if u.State == StateCarried && strings.HasPrefix(u.ID, ObjectID(key, nil)+"-g") && strings.Contains(u.Reason, "was broken at plan") {
+			carried++
+		}
+	}
+	// 8 items in row groups of 4 series: 2 units per depot object.
+	if carried != 2 || m.Totals.Series.Trained != 16 || len(m.Broken) != 1 {
+		t.Fatalf("%d units of the broken object carried, totals %+v, broken %+v", carried, m.Totals.Series, m.Broken)
+	}
+}

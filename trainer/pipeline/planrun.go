@@ -123,7 +123,15 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			}
 			if objs[i].Broken == "" {
 				p.Units = append(p.Units, units...)
+				continue
 			}
+			// The row groups of a broken object cannot be read: its units are the previous
+			// run's for the object, kept empty so that publish carries them forward.
+			prev, err := previous(ctx, out, cfg)
+			if err != nil {
+				return nil, err
+			}
+			p.Units = append(p.Units, previousGroupUnits(prev, o.Key)...)
 		}
 	default:
 		rows := map[uint64]int64{}
