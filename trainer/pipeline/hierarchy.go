@@ -292,12 +292,22 @@ type Partial struct {
 	Values floats    `json:"values"`
 }
 
-// baseOf records a forecast node's base forecast (residuals: the last MaxResiduals).
-func baseOf(s series.Series, level string, r design.Result) NodeBase {
+// usesResiduals reports whether the run's method reads residuals (the MinT methods); the
+// others get none in nodes.json, which then holds little more than the forecasts.
+func (h *hierarchy) usesResiduals() bool {
+	return h.method == reconcile.MinTShrink || h.method == reconcile.MinTSample
+}
+
+// baseOf records a forecast node's base forecast, with the last MaxResiduals residuals when
+// the method uses them.
+func (h *hierarchy) baseOf(s series.Series, level string, r design.Result) NodeBase {
 	nb := NodeBase{Key: s.Key, Level: level, Model: r.Chosen, First: s.PeriodAt(s.Len()), Mean: slices.Clone(r.Mean),
 		ResidualEnd: s.PeriodAt(s.Len() - 1)}
 	for _, q := range r.Quantiles {
 		nb.Quantiles = append(nb.Quantiles, slices.Clone(q))
+	}
+	if !h.usesResiduals() {
+		return nb
 	}
 	res := r.Residuals
 	if len(res) > MaxResiduals {
@@ -388,7 +398,7 @@ func (h *hierarchy) reconcileTree(nodes []NodeBase, freq series.Frequency) (tree
 		}
 	}
 	var resid [][]float64
-	if h.method == reconcile.MinTShrink || h.method == reconcile.MinTSample {
+	if h.usesResiduals() {
 		resid = make([][]float64, len(order))
 		for k, i := range order {
 			row := make([]float64, MaxResiduals)

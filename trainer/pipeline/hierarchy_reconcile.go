@@ -138,7 +138,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: errs[i].Error()})
 			continue
 		}
-		nodes = append(nodes, baseOf(s, h.levelOf(s.Key), results[i]))
+		nodes = append(nodes, h.baseOf(s, h.levelOf(s.Key), results[i]))
 		levelNodes[h.levelOf(s.Key)]++
 	}
 	tr, err := h.reconcileTree(nodes, freq)

@@ -41,7 +41,7 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 			continue
 		}
 		level := h.levelOf(s.Key)
-		bases = append(bases, baseOf(s, level, r))
+		bases = append(bases, h.baseOf(s, level, r))
 		uh.levelNodes[level]++
 	}
 	if len(u.nodes) > 0 && len(bases) > 0 {
