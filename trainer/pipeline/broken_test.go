@@ -193,7 +193,7 @@ func TestDamagedParquetAtPlan(t *testing.T) {
 func TestDamagedParquetAtPlanRowGroups(t *testing.T) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-damaged-rg-in/")
-	o := synth.Options{Items: 8, Depots: 2, Periods: 60, End: anchor.Truncate(24 * time.Hour).AddDate(0, 0, -1)}
+	o := synth.Options{Items: 8, Depots: 2, Periods: 60, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}
 	for d := 0; d < 2; d++ {
 		if err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*60) }); err != nil {
 			t.Fatal(err)
