@@ -29,8 +29,8 @@ import (
 // Where each node is forecast. With HashBuckets input the bucket of a series is the hash of its
 // shardBy cells (bucketKey), so a unit holds whole sub-trees: a level whose columns include every
 // shardBy column has each node inside one unit ("within" levels). Train builds those nodes from
-// the unit's series, forecasts them with the same design as the bottom series, and reconciles the
-// unit's sub-tree. Every other level ("spanning" levels: item totals across depots, the grand
+// the unit's series and forecasts them with the same design as the bottom series; when no level
+// spans units it also reconciles each unit's sub-trees, and that is final. Every other level ("spanning" levels: item totals across depots, the grand
 // total, and every level with Objects or RowGroups input, whose units promise nothing about
 // sub-trees) is left to the reconcile step: train writes, per unit, the partial sums of those
 // nodes over the unit's series (histories, not forecasts: a shard that holds part of an item's

@@ -21,7 +21,9 @@ type unitHierarchy struct {
 // reconcileUnit builds the unit's hierarchy work before its tables are written. results and
 // errs hold the unit's bottom series (u.series) then its within-unit aggregates (u.nodes). It
 // records every publishable node's base forecast (for nodes.json), reconciles the unit's
-// sub-trees when it has within-unit levels, replacing the means and quantiles in results, and
+// sub-trees when the run has within-unit levels only (with spanning levels the reconcile step
+// reconciles the whole tree from the base forecasts and replaces the unit's forecasts table),
+// replacing the means and quantiles in results, and
 // rejects an aggregate whose own forecast failed (its reason says so; the aggregate is not
 // published, its bottom series are).
 func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, results []design.Result, errs []error) (unitHierarchy, error) {
@@ -44,7 +46,7 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 		bases = append(bases, h.baseOf(s, level, r))
 		uh.levelNodes[level]++
 	}
-	if len(u.nodes) > 0 && len(bases) > 0 {
+	if len(u.nodes) > 0 && len(bases) > 0 && !h.spanning { // else the reconcile step reconciles the whole tree from the bases
 		tr, err := h.reconcileTree(bases, u.series[0].Freq)
 		if err != nil {
 			return uh, fmt.Errorf("unit %s: %w", u.unit.ID, err)
