@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"fmt"
 	"io"
 	"strings"
 	"testing"
@@ -241,5 +242,54 @@ func TestHierarchyOnObjects(t *testing.T) {
 	}
 	if s.Shards < 2 || c.Bottom != 20 || c.Aggregates != 10 || !c.Coherent() {
 		t.Errorf("%d shards; coherence %+v", s.Shards, c)
+	}
+}
+
+// TestHierarchyExtendsShortSeries: an item whose rows stop three days before the others'
+// (delisted at one depot) is extended with zeros to the input's last period, so it is
+// forecast for the same periods as its depot total and the grand total, and the run adds up.
+func TestHierarchyExtendsShortSeries(t *testing.T) {
+	ctx := context.Background()
+	in, out := "mem://flp-hier-short-in/", "mem://flp-hier-short-out/"
+	st := mustOpen(t, in)
+	for _, depot := range []string{"brill", "corrie"} {
+		rows := depotRows(depot, []string{"P001", "P002"}, 60, func(item string, n, d int, day time.Time) string {
+			return fmt.Sprintf("%d", 10+n+3*int(day.Weekday())+(d%5))
+		})
+		if depot == "corrie" { // P002 at corrie: its last three days are absent
+			var kept []string
+			for _, line := range strings.Split(strings.TrimSpace(string(rows)), "\n") {
+				if !strings.HasPrefix(line, "P002,corrie,2026-02-27") && !strings.HasPrefix(line, "P002,corrie,2026-02-28") && !strings.HasPrefix(line, "P002,corrie,2026-03-01") {
+					kept = append(kept, line)
+				}
+			}
+			rows = []byte(strings.Join(kept, "\n") + "\n")
+		}
+		if err := st.Put(ctx, depot+".csv", rows); err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := testConfig("flp-hier-short-1", in, out)
+	cfg.Source.Columns.Covariates = nil
+	cfg.Sharding = runconfig.Sharding{TargetSeriesPerShard: 2, Buckets: 16}
+	cfg.Hierarchy = &runconfig.Hierarchy{Levels: [][]string{{"depot"}, {}}, ShardBy: []string{"depot"}, Method: "StructuralScaling", NonNegative: true}
+	if _, err := RunLocal(ctx, cfg, testEnv()); err != nil {
+		t.Fatal(err)
+	}
+	o := mustOpen(t, out)
+	m := checkPublished(t, o, cfg.Run)
+	c, err := CheckCoherence(ctx, o, m, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Bottom != 4 || c.Aggregates != 3 || c.Periods != cfg.Horizon || !c.Coherent() {
+		t.Fatalf("coherence %+v, want 4 bottom series, 3 aggregates, %d periods, coherent", c, cfg.Horizon)
+	}
+	var b strings.Builder
+	if err := InspectSeries(ctx, out, "", "item=P002,depot=corrie", &b); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(b.String(), "extended with 3 zero periods") || !strings.Contains(b.String(), "2026-03-02T00:00:00Z,1,") {
+		t.Errorf("the short series is not extended to the others' last day:\n%s", b.String())
 	}
 }
