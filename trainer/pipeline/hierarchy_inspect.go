@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -141,6 +142,9 @@ func CheckCoherence(ctx context.Context, out *store.Store, m *Manifest, cfg *run
 // inspectHierarchy prints the coherence line of a hierarchical run.
 func inspectHierarchy(ctx context.Context, out *store.Store, m *Manifest, w io.Writer) error {
 	cfg, err := publishedConfig(ctx, out, m.Run)
+	if errors.Is(err, store.ErrNotFound) {
+		return nil // a run without its config.json (written by hand): nothing says it has a hierarchy
+	}
 	if err != nil || cfg.Hierarchy == nil {
 		return err
 	}
