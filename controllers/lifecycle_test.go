@@ -341,9 +341,10 @@ var _ = Describe("ForecastRun life cycle", func() {
 		})
 		manualRun(ns, "fenwick-guard-1", "fenwick-guard")
 		succeedSingle(ns, "fenwick-guard-1", stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 1, Series: 359})
-		// The apiserver defaults the rest of spec.publish; all four reach the trainer.
+		// The apiserver defaults the rest of spec.publish; all five reach the trainer.
 		Expect(configOf(ns, "fenwick-guard-1")["publish"]).To(Equal(map[string]any{
-			"minForecastPercent": 80.0, "minPreviousPercent": 90.0, "maxCarriedForwardPercent": 50.0, "maxCarriedRuns": 3.0}))
+			"minForecastPercent": 80.0, "minPreviousPercent": 90.0, "maxCarriedForwardPercent": 50.0, "maxCarriedRuns": 3.0,
+			"maxStalePeriods": 0.0}))
 		train := getJob(ns, "fenwick-guard-1", stepTrain)
 		finishShards(train, []int{0}, nil, func(int) summary.Summary { return summary.Summary{Series: 359, Rejected: 359} })
 		completeJob(train)

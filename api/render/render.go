@@ -84,6 +84,7 @@ func RunConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alph
 		MinPreviousPercent:       int(*pub.MinPreviousPercent),
 		MaxCarriedForwardPercent: int(*pub.MaxCarriedForwardPercent),
 		MaxCarriedRuns:           int(*pub.MaxCarriedRuns),
+		MaxStalePeriods:          int(*pub.MaxStalePeriods),
 	}
 	if c.Trigger == "" {
 		c.Trigger = string(forecastingv1alpha1.TriggerManual)
@@ -157,6 +158,7 @@ func Missing(spec *forecastingv1alpha1.ForecastPortfolioSpec) []string {
 	check(spec.Publish.MinPreviousPercent == nil, "publish.minPreviousPercent")
 	check(spec.Publish.MaxCarriedForwardPercent == nil, "publish.maxCarriedForwardPercent")
 	check(spec.Publish.MaxCarriedRuns == nil, "publish.maxCarriedRuns")
+	check(spec.Publish.MaxStalePeriods == nil, "publish.maxStalePeriods")
 	check(spec.ConcurrencyPolicy == "", "concurrencyPolicy")
 	check(spec.SuccessfulRunsHistoryLimit == nil, "successfulRunsHistoryLimit")
 	check(spec.FailedRunsHistoryLimit == nil, "failedRunsHistoryLimit")

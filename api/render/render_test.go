@@ -248,7 +248,7 @@ func TestRunConfigFeatures(t *testing.T) {
 func TestRunConfigPublishGuard(t *testing.T) {
 	fp := fenwickSpec()
 	fp.Spec.Publish = forecastingv1alpha1.PublishSpec{MinForecastPercent: ptr.To[int32](0), MinPreviousPercent: ptr.To[int32](95),
-		MaxCarriedForwardPercent: ptr.To[int32](100), MaxCarriedRuns: ptr.To[int32](0)}
+		MaxCarriedForwardPercent: ptr.To[int32](100), MaxCarriedRuns: ptr.To[int32](0), MaxStalePeriods: ptr.To[int32](0)}
 	got, err := RunConfig(rendertest.Default(fp), fenwickRun("fenwick-weekly-29933550"), "")
 	if err != nil {
 		t.Fatal(err)

@@ -340,6 +340,18 @@ type PublishSpec struct {
 	// +kubebuilder:validation:Minimum=0
 	// +kubebuilder:validation:Maximum=100
 	MaxCarriedRuns *int32 `json:"maxCarriedRuns,omitempty"`
+
+	// maxStalePeriods declares how stale a series may be: with a value above 0, a series whose
+	// last observation lies more than this many periods before the run's cutoff (its scheduled
+	// time, or the time a manual run planned) is rejected as stale, and no published forecast
+	// has a period that ends at or before the cutoff (the past periods of a series within the
+	// limit are left out). 0, the default, checks nothing: data with fixed dates (a demo, a
+	// replay) stays usable as the calendar moves on.
+	// +optional
+	// +kubebuilder:default=0
+	// +kubebuilder:validation:Minimum=0
+	// +kubebuilder:validation:Maximum=10000
+	MaxStalePeriods *int32 `json:"maxStalePeriods,omitempty"`
 }
 
 // DataSource locates the input table (long format: one row per series and period).

@@ -107,6 +107,7 @@ var _ = Describe("CRD validation", func() {
 		Expect(*fp.Spec.Publish.MinPreviousPercent).To(Equal(int32(80)))
 		Expect(*fp.Spec.Publish.MaxCarriedForwardPercent).To(Equal(int32(50)))
 		Expect(*fp.Spec.Publish.MaxCarriedRuns).To(Equal(int32(3)))
+		Expect(*fp.Spec.Publish.MaxStalePeriods).To(Equal(int32(0)))
 	})
 
 	It("accepts a full features declaration and keeps it as written", func() {

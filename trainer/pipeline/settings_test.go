@@ -240,6 +240,7 @@ func TestDefaultsAreTheCRDs(t *testing.T) {
 		{"publish.minPreviousPercent", cfg.PublishGuard().MinPreviousPercent, num(crd("spec", "publish", "minPreviousPercent"))},
 		{"publish.maxCarriedForwardPercent", cfg.PublishGuard().MaxCarriedForwardPercent, num(crd("spec", "publish", "maxCarriedForwardPercent"))},
 		{"publish.maxCarriedRuns", cfg.PublishGuard().MaxCarriedRuns, num(crd("spec", "publish", "maxCarriedRuns"))},
+		{"publish.maxStalePeriods", cfg.PublishGuard().MaxStalePeriods, num(crd("spec", "publish", "maxStalePeriods"))},
 		{"runconfig.DefaultPublish", runconfig.DefaultPublish, *cfg.Publish},
 	}
 	for _, c := range checks {

@@ -77,6 +77,8 @@ type loaded struct {
 	// the pass, loadBuckets); dropped are series keys whose rows were in one of them, with why.
 	broken  []BrokenObject
 	dropped map[string]string
+	// cutoff is the plan's (publish.maxStalePeriods judges staleness against it).
+	cutoff time.Time
 	// nodes are the unit's within-unit aggregates and partials its partial sums of spanning
 	// nodes (hierarchy.go); nil without a hierarchy.
 	nodes, partials []series.Series
@@ -247,7 +249,7 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 		if usesCovariates(cfg) {
 			c.KeepFuture(cfg.Horizon)
 		}
-		l := &loaded{unit: u, buckets: p.Buckets}
+		l := &loaded{unit: u, buckets: p.Buckets, cutoff: now}
 		units = append(units, l)
 		collectors[id] = c
 		if u.Object == "" {
@@ -387,7 +389,15 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 			continue
 		}
 		last := s.Len() - 1
-		for k := 0; k < len(r.Mean); k++ {
+		from := 0
+		if h == nil { // a hierarchy publishes every node's whole horizon, reconciled
+			var why string
+			if from, why = staleness(s, last, len(r.Mean), u.cutoff, cfg.PublishGuard().MaxStalePeriods); why != "" {
+				rejected = append(rejected, tables.RejectedRow{Key: s.Key, Reason: why})
+				continue
+			}
+		}
+		for k := from; k < len(r.Mean); k++ {
 			row := tables.ForecastRow{Key: s.Key, Period: s.PeriodAt(last + k + 1), Step: k + 1, Model: r.Chosen, Mean: r.Mean[k], Level: level}
 			for j := range r.Levels {
 				row.Quantiles = append(row.Quantiles, r.Quantiles[j][k])

@@ -96,6 +96,10 @@ type Publish struct {
 	// most this many runs in a row (0: never; configurations written before the field read
 	// as 0). At most MaxCarriedForwardPercent of the planned series may be carried.
 	MaxCarriedRuns int `json:"maxCarriedRuns"`
+	// MaxStalePeriods: above 0, a series whose last observation is more than this many
+	// periods before the cutoff is rejected as stale, and forecast periods that end at or
+	// before the cutoff are not published. 0 checks nothing.
+	MaxStalePeriods int `json:"maxStalePeriods"`
 }
 
 // DefaultPublish is the guard of a configuration without one (the controller always writes
@@ -489,6 +493,9 @@ func (c *Config) Validate() error {
 		}
 		if g.MaxCarriedRuns < 0 || g.MaxCarriedRuns > MaxCarriedRuns {
 			return fmt.Errorf("publish.maxCarriedRuns: %d is not in [0, %d]", g.MaxCarriedRuns, MaxCarriedRuns)
+		}
+		if g.MaxStalePeriods < 0 || g.MaxStalePeriods > MaxHorizon {
+			return fmt.Errorf("publish.maxStalePeriods: %d is not in [0, %d]", g.MaxStalePeriods, MaxHorizon)
 		}
 	}
 	names := map[string]bool{}
