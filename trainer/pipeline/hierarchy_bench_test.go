@@ -10,6 +10,7 @@ import (
 
 	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/reconcile"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -28,7 +29,10 @@ import (
 // base forecasts' (below 1: reconciliation helped), and the share of held-out actuals inside
 // the 10-90% band (nominal 0.80) for base and reconciled; and the extra cost per bottom series,
 // (aggregates' forecasts + reconciliation) / (the bottom series' forecasts), wall time in the
-// same run.
+// same run. It also logs why an aggregate level can lose: the mean pairwise correlation of the
+// bottom series' base forecast errors (steps 1-12 of every origin), for pairs at the same depot
+// and at different depots, beside that of their one-step in-sample residuals (the last origin's),
+// which is what MinT estimates W from; StructuralScaling assumes none.
 //
 //	go test ./trainer/pipeline -run '^$' -bench Hierarchy -benchtime 1x
 func BenchmarkHierarchy(b *testing.B) {
@@ -91,6 +95,7 @@ func BenchmarkHierarchy(b *testing.B) {
 		}
 		var tBottom, tAggs time.Duration
 		tRec := map[string]time.Duration{}
+		errs, resid := map[string][]float64{}, map[string][]float64{} // bottom series only
 		for origin := 1; origin <= origins; origin++ {
 			cut := periods - origin*horizon
 			var bottom, next []series.Series
@@ -114,6 +119,14 @@ func BenchmarkHierarchy(b *testing.B) {
 			aggBase, t2 := forecast(aggs)
 			tBottom, tAggs = tBottom+t1, tAggs+t2
 			nodes := append(bottomBase, aggBase...)
+			for _, nd := range bottomBase {
+				for t, y := range actual[nd.Key] {
+					errs[nd.Key] = append(errs[nd.Key], y-nd.Mean[t])
+				}
+				if origin == origins {
+					resid[nd.Key] = nd.Residuals
+				}
+			}
 			scores["base"].add(h, nodes, nil, actual, history, levels)
 			for _, m := range methods[1:] {
 				h.method = reconcile.Method(m)
@@ -128,6 +141,10 @@ func BenchmarkHierarchy(b *testing.B) {
 		}
 		b.Logf("%d items x %d depots (%d bottom series, %d aggregates), horizon %d, %d origins; base forecasts %.2fs (bottom) + %.2fs (aggregates)",
 			items, depots, len(keys), 1+items+depots, horizon, origins, tBottom.Seconds(), tAggs.Seconds())
+		sameE, otherE := depotCorrelations(keys, errs)
+		sameR, otherR := depotCorrelations(keys, resid)
+		b.Logf("bottom series, mean pairwise correlation: forecast errors (steps 1-%d, %d origins) %.3f same depot, %.3f other depots; one-step residuals %.3f, %.3f",
+			horizon, origins, sameE, otherE, sameR, otherR)
 		b.Logf("%-18s %-11s %8s %8s %8s %8s", "method", "", levels[0], levels[1], levels[2], levels[3])
 		base := scores["base"]
 		for _, m := range methods {
@@ -186,4 +203,57 @@ func (ls *levelScore) add(h *hierarchy, nodes []NodeBase, tr *treeResult, actual
 			}
 		}
 	}
+}
+
+// depotCorrelations is the mean Pearson correlation of x over pairs of item x depot keys at the
+// same depot and at different depots; vectors are aligned at their ends and a pair skips the
+// periods where either is NaN.
+func depotCorrelations(keys []string, x map[string][]float64) (same, other float64) {
+	var nSame, nOther int
+	for i, a := range keys {
+		ca, _ := ingest.SplitKey(a, 2)
+		for _, c := range keys[i+1:] {
+			cc, _ := ingest.SplitKey(c, 2)
+			r := pearson(x[a], x[c])
+			if math.IsNaN(r) {
+				continue
+			}
+			if ca[1] == cc[1] {
+				same, nSame = same+r, nSame+1
+			} else {
+				other, nOther = other+r, nOther+1
+			}
+		}
+	}
+	return same / float64(nSame), other / float64(nOther)
+}
+
+// pearson is the sample correlation of the end-aligned common part of x and y, NaN pairs
+// skipped (NaN with fewer than 3 pairs or no variation).
+func pearson(x, y []float64) float64 {
+	n := min(len(x), len(y))
+	x, y = x[len(x)-n:], y[len(y)-n:]
+	var sx, sy, sxx, syy, sxy, k float64
+	for i := range x {
+		if math.IsNaN(x[i]) || math.IsNaN(y[i]) {
+			continue
+		}
+		sx, sy, k = sx+x[i], sy+y[i], k+1
+	}
+	if k < 3 {
+		return math.NaN()
+	}
+	mx, my := sx/k, sy/k
+	for i := range x {
+		if math.IsNaN(x[i]) || math.IsNaN(y[i]) {
+			continue
+		}
+		sxx += (x[i] - mx) * (x[i] - mx)
+		syy += (y[i] - my) * (y[i] - my)
+		sxy += (x[i] - mx) * (y[i] - my)
+	}
+	if sxx == 0 || syy == 0 {
+		return math.NaN()
+	}
+	return sxy / math.Sqrt(sxx*syy)
 }
