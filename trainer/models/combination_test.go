@@ -100,7 +100,9 @@ func TestARIMAAndTrioUpdate(t *testing.T) {
 		t.Fatal(err)
 	}
 	members := tf.(*combinationFit).fits
-	etsU, err := members[0].(*ETSFit).Update(y)
+	etsU, err := members[0].(interface { // the Akaike-weighted ETS forms (etsAkaikeFit) or one form
+		Update([]float64) (Fitted, error)
+	}).Update(y)
 	if err != nil {
 		t.Fatal(err)
 	}

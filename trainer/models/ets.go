@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 	"strconv"
 
@@ -82,6 +83,7 @@ type ETSFit struct {
 	endS                []float64 // seasonal states at time n, newest first
 	evals               int
 	candidates          []ETSCandidate
+	refined             []*ETSFit // SelectETS: every refined form's fit, best first
 }
 
 // ETSCandidate records one form tried by the automatic search and its AICc (NaN if the fit
@@ -723,6 +725,7 @@ func selectETS(y []float64, m int, opts *ETSOptions, refine int) (*ETSFit, error
 	sort.SliceStable(order, func(a, b int) bool { return screened[order[a]].aicc < screened[order[b]].aicc })
 	refined := map[int]bool{}
 	var best *ETSFit
+	var fits []*ETSFit
 	for _, i := range order[:min(refine, len(order))] {
 		sc := &screened[i]
 		copy(ft.x0, sc.x0)
@@ -737,6 +740,9 @@ func selectETS(y []float64, m int, opts *ETSOptions, refine int) (*ETSFit, error
 		evals += fit.evals
 		ic := fit.AICc()
 		cands = append(cands, ETSCandidate{Form: sc.form, AICc: ic})
+		if !math.IsNaN(ic) {
+			fits = append(fits, fit)
+		}
 		if !math.IsNaN(ic) && (best == nil || ic < best.AICc()) {
 			best = fit
 		}
@@ -754,6 +760,7 @@ func selectETS(y []float64, m int, opts *ETSOptions, refine int) (*ETSFit, error
 	}
 	best.evals = evals
 	best.candidates = cands
+	best.refined = append([]*ETSFit{best}, slices.DeleteFunc(fits, func(f *ETSFit) bool { return f == best })...)
 	return best, nil
 }
 
@@ -817,7 +824,9 @@ func (e *etsModel) MinLength(seasonLength int) int {
 	return best
 }
 
-// Fit runs the automatic search (SelectETS) over the allowed forms.
+// Fit runs the automatic search (SelectETS) over the allowed forms and forecasts with the
+// Akaike-weighted mean of the forms it refined (AkaikeWeighted); with one form refined, that
+// form's fit itself.
 func (e *etsModel) Fit(y []float64, m int) (Fitted, error) {
 	if m < 1 {
 		panic("models: ETS: season length must be >= 1")
@@ -826,7 +835,7 @@ func (e *etsModel) Fit(y []float64, m int) (Fitted, error) {
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", e.name, err)
 	}
-	return fit, nil
+	return AkaikeWeighted(fit), nil
 }
 
 // Update returns the fit with the same weights and seed states filtered over y, a longer
