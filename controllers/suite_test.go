@@ -153,8 +153,9 @@ func startManagerWith(restCfg *rest.Config, budget int32) *testManager {
 	})
 	Expect(err).NotTo(HaveOccurred())
 	ctx, cancel := context.WithCancel(context.Background())
+	// Progress is read from suiteLogs (progress_envtest_test.go) as often as a run requeues.
 	Expect(SetupWithManager(ctx, mgr, Options{MaxConcurrentShards: budget, Clock: fakeClock, Metrics: suiteMetrics,
-		Images: suiteImages})).To(Succeed())
+		Images: suiteImages, Logs: suiteLogs, ProgressInterval: 200 * time.Millisecond})).To(Succeed())
 	tm := &testManager{cancel: cancel, done: make(chan struct{}), metrics: suiteMetrics, metricsAddr: addr}
 	go func() {
 		defer GinkgoRecover()
