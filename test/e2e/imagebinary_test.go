@@ -2,11 +2,6 @@ package e2e
 
 import (
 	"archive/tar"
-	"bytes"
-	"compress/gzip"
-	"crypto/sha256"
-	"encoding/hex"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -16,6 +11,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"almanac.dev/almanac/test/ociarchive"
 )
 
 // imageEntrypoint writes the entrypoint binary of an OCI image archive (what `make images`
@@ -24,77 +21,26 @@ import (
 // the trainer binary taken from bin/almanac-trainer.oci.tar instead of one built from source.
 // Every blob is checked against its digest; the last layer holding the path wins.
 func imageEntrypoint(archive, dst string) (string, error) {
-	f, err := os.Open(archive)
+	a, err := ociarchive.Read(archive)
 	if err != nil {
 		return "", err
-	}
-	defer f.Close()
-	blobs := map[string][]byte{}
-	tr := tar.NewReader(f)
-	for {
-		h, err := tr.Next()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			return "", fmt.Errorf("%s: %w", archive, err)
-		}
-		if h.Typeflag == tar.TypeReg {
-			b, err := io.ReadAll(tr)
-			if err != nil {
-				return "", fmt.Errorf("%s: %s: %w", archive, h.Name, err)
-			}
-			blobs[path.Clean(h.Name)] = b
-		}
-	}
-	blob := func(digest string) ([]byte, error) {
-		algo, hexDigest, _ := strings.Cut(digest, ":")
-		b, ok := blobs["blobs/"+algo+"/"+hexDigest]
-		if sum := sha256.Sum256(b); !ok || algo != "sha256" || hex.EncodeToString(sum[:]) != hexDigest {
-			return nil, fmt.Errorf("%s: blob %s missing or not matching its digest", archive, digest)
-		}
-		return b, nil
-	}
-	type descriptor struct{ Digest string }
-	var index struct{ Manifests []descriptor }
-	if err := json.Unmarshal(blobs["index.json"], &index); err != nil || len(index.Manifests) != 1 {
-		return "", fmt.Errorf("%s: index.json: %v, %d manifests (want 1)", archive, err, len(index.Manifests))
-	}
-	var manifest struct {
-		Config descriptor
-		Layers []descriptor
 	}
 	var config struct {
 		Config struct{ Entrypoint []string }
 	}
-	b, err := blob(index.Manifests[0].Digest)
-	if err == nil {
-		err = json.Unmarshal(b, &manifest)
-	}
-	if err == nil {
-		b, err = blob(manifest.Config.Digest)
-	}
-	if err == nil {
-		err = json.Unmarshal(b, &config)
-	}
-	if err != nil {
-		return "", fmt.Errorf("%s: manifest or config: %w", archive, err)
+	if err := a.Config(&config); err != nil {
+		return "", err
 	}
 	if len(config.Config.Entrypoint) == 0 {
 		return "", fmt.Errorf("%s: the image has no entrypoint", archive)
 	}
 	entry := config.Config.Entrypoint[0]
 	var found []byte
-	for _, l := range manifest.Layers {
-		b, err := blob(l.Digest)
+	for _, l := range a.Manifest.Layers {
+		lr, err := a.Layer(l)
 		if err != nil {
 			return "", err
 		}
-		zr, err := gzip.NewReader(bytes.NewReader(b))
-		if err != nil {
-			return "", fmt.Errorf("%s: layer %s: %w", archive, l.Digest, err)
-		}
-		lr := tar.NewReader(zr)
 		for {
 			h, err := lr.Next()
 			if errors.Is(err, io.EOF) {

@@ -3,7 +3,6 @@ package packaging
 import (
 	"archive/tar"
 	"bytes"
-	"compress/gzip"
 	"context"
 	"crypto/sha256"
 	"crypto/x509"
@@ -24,6 +23,7 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/test/ociarchive"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -100,71 +100,25 @@ func readImage(t *testing.T, dir, name, root string) *ociImage {
 	if err != nil {
 		t.Fatalf("%v (ALMANAC_IMAGES is set, so `make images` should have written it)", err)
 	}
-	blobs := map[string][]byte{}
-	f, err := os.Open(file)
+	a, err := ociarchive.Read(file)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer f.Close()
-	tr := tar.NewReader(f)
-	for {
-		h, err := tr.Next()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			t.Fatalf("%s: %v", file, err)
-		}
-		if h.Typeflag == tar.TypeReg {
-			b, err := io.ReadAll(tr)
-			if err != nil {
-				t.Fatalf("%s: %s: %v", file, h.Name, err)
-			}
-			blobs[path.Clean(h.Name)] = b
-		}
-	}
-	blob := func(desc string) []byte {
-		algo, hexDigest, _ := strings.Cut(desc, ":")
-		b, ok := blobs["blobs/"+algo+"/"+hexDigest]
-		if !ok || algo != "sha256" {
-			t.Fatalf("%s: blob %s missing", file, desc)
-		}
-		if sum := sha256.Sum256(b); hex.EncodeToString(sum[:]) != hexDigest {
-			t.Fatalf("%s: blob %s does not match its digest", file, desc)
-		}
-		return b
-	}
-	type descriptor struct {
-		MediaType string `json:"mediaType"`
-		Digest    string `json:"digest"`
-		Size      int64  `json:"size"`
-	}
-	var index struct{ Manifests []descriptor }
-	if err := json.Unmarshal(blobs["index.json"], &index); err != nil || len(index.Manifests) != 1 {
-		t.Fatalf("%s: index.json: %v, %d manifests (want 1)", file, err, len(index.Manifests))
-	}
-	var manifest struct {
-		Config descriptor
-		Layers []descriptor
-	}
-	if err := json.Unmarshal(blob(index.Manifests[0].Digest), &manifest); err != nil {
-		t.Fatalf("%s: manifest: %v", file, err)
-	}
 	img := &ociImage{name: name, archiveSize: st.Size(), files: map[string]entry{}, data: map[string][]byte{}}
-	if err := json.Unmarshal(blob(manifest.Config.Digest), &img.config); err != nil {
-		t.Fatalf("%s: config: %v", file, err)
+	if err := a.Config(&img.config); err != nil {
+		t.Fatal(err)
 	}
-	for _, l := range manifest.Layers {
+	for _, l := range a.Manifest.Layers {
 		img.layers = append(img.layers, l.Digest)
 		img.layerSizes = append(img.layerSizes, l.Size)
 		if l.MediaType != "application/vnd.oci.image.layer.v1.tar+gzip" {
 			t.Fatalf("%s: layer %s has media type %s", file, l.Digest, l.MediaType)
 		}
-		zr, err := gzip.NewReader(bytes.NewReader(blob(l.Digest)))
+		lr, err := a.Layer(l)
 		if err != nil {
-			t.Fatalf("%s: layer %s: %v", file, l.Digest, err)
+			t.Fatal(err)
 		}
-		img.readLayer(t, tar.NewReader(zr), root)
+		img.readLayer(t, lr, root)
 	}
 	return img
 }
