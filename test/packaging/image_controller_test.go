@@ -30,8 +30,7 @@ func TestControllerImageRuns(t *testing.T) {
 	if os.Getenv("KUBEBUILDER_ASSETS") == "" {
 		t.Skip("KUBEBUILDER_ASSETS is not set: run `make controlplane` and `make test` (CI always sets it)")
 	}
-	needSandbox(t)
-	img, root, work := unpackForSandbox(t, dir, "almanac-controller")
+	img, work := unpackForSandbox(t, dir, "almanac-controller")
 
 	env, cfg := startEnvtest(t, &envtest.Environment{CRDDirectoryPaths: []string{filepath.Join(repoRoot, "config", "crd", "bases")}, ErrorIfCRDPathMissing: true})
 	user, err := env.AddUser(envtest.User{Name: "almanac-image-test", Groups: []string{"system:masters"}}, nil)
@@ -46,7 +45,7 @@ func TestControllerImageRuns(t *testing.T) {
 		t.Fatal(err)
 	}
 	probe := freePort(t)
-	cmd := sandboxCommand(img, root, work, []string{"KUBECONFIG=/tmp/kubeconfig"},
+	cmd := sandboxCommand(t, img, work, []string{"KUBECONFIG=/tmp/kubeconfig"},
 		"--metrics-bind-address=0", "--health-probe-bind-address=127.0.0.1:"+probe)
 	var out bytes.Buffer
 	cmd.Stdout, cmd.Stderr = &out, &out
@@ -58,9 +57,8 @@ func TestControllerImageRuns(t *testing.T) {
 	var waitErr error
 	go func() { waitErr = cmd.Wait(); close(exited) }()
 	t.Cleanup(func() {
-		// unshare's --kill-child does not reach the controller: the parent-death signal is
-		// cleared when chroot --userspec changes the credentials. The controller is the PID
-		// namespace's first process, so ending it ends everything in the sandbox.
+		// A clean stop first: SIGTERM to the controller (the sandbox's leaf process); killing
+		// unshare then ends whatever is left (test/sandbox: its PID namespace goes with it).
 		if pid, err := leafPID(cmd.Process.Pid); err == nil && pid != cmd.Process.Pid {
 			_ = syscall.Kill(pid, syscall.SIGTERM)
 			select {
@@ -95,7 +93,8 @@ func TestControllerImageRuns(t *testing.T) {
 		t.Fatalf("controller from the image not ready: %v\n%s", err, out.String())
 	}
 
-	// It runs as 65532: the process at the end of unshare's chain (sh, env and chroot exec it).
+	// It runs as 65532: the process at the end of unshare's chain (unshare, sh, then the
+	// controller, which env and chroot exec).
 	if uid, err := childUID(cmd.Process.Pid); err != nil || uid != nonRootUID {
 		t.Errorf("controller process uid %d (err %v), want %d", uid, err, nonRootUID)
 	}

@@ -24,6 +24,7 @@ import (
 	"time"
 
 	"almanac.dev/almanac/test/ociarchive"
+	"almanac.dev/almanac/test/sandbox"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -91,9 +92,8 @@ type ociImage struct {
 	data        map[string][]byte
 }
 
-// readImage reads bin/<name>.oci.tar. When root is not empty the layers are also unpacked
-// there, owners and modes as recorded (the caller must be root for the owners).
-func readImage(t *testing.T, dir, name, root string) *ociImage {
+// readImage reads bin/<name>.oci.tar: its config, layers and files (unpacked only in memory).
+func readImage(t *testing.T, dir, name string) *ociImage {
 	t.Helper()
 	file := filepath.Join(dir, name+".oci.tar")
 	st, err := os.Stat(file)
@@ -118,14 +118,14 @@ func readImage(t *testing.T, dir, name, root string) *ociImage {
 		if err != nil {
 			t.Fatal(err)
 		}
-		img.readLayer(t, lr, root)
+		img.readLayer(t, lr)
 	}
 	return img
 }
 
 // readLayer adds a layer's files. Whiteouts (deletions by a later layer) are refused: images
 // built FROM scratch with COPY only add files.
-func (img *ociImage) readLayer(t *testing.T, tr *tar.Reader, root string) {
+func (img *ociImage) readLayer(t *testing.T, tr *tar.Reader) {
 	t.Helper()
 	for {
 		h, err := tr.Next()
@@ -140,10 +140,10 @@ func (img *ociImage) readLayer(t *testing.T, tr *tar.Reader, root string) {
 			t.Fatalf("%s: whiteout %s: a layer deletes files; this reader does not apply deletions", img.name, name)
 		}
 		e := entry{typ: h.Typeflag, mode: h.Mode & 0o7777, uid: h.Uid, gid: h.Gid, link: h.Linkname, size: h.Size}
-		var data []byte
 		switch h.Typeflag {
 		case tar.TypeReg:
-			if data, err = io.ReadAll(tr); err != nil {
+			data, err := io.ReadAll(tr)
+			if err != nil {
 				t.Fatalf("%s: %s: %v", img.name, name, err)
 			}
 			sum := sha256.Sum256(data)
@@ -155,43 +155,7 @@ func (img *ociImage) readLayer(t *testing.T, tr *tar.Reader, root string) {
 			t.Fatalf("%s: %s has tar type %c; the images hold only files, directories and symlinks", img.name, name, h.Typeflag)
 		}
 		img.files[name] = e
-		if root == "" || name == "/" {
-			continue
-		}
-		dst := filepath.Join(root, filepath.FromSlash(name))
-		switch h.Typeflag {
-		case tar.TypeDir:
-			err = os.MkdirAll(dst, 0o755)
-		case tar.TypeReg:
-			err = os.WriteFile(dst, data, 0o600)
-		case tar.TypeSymlink:
-			err = os.Symlink(h.Linkname, dst)
-		}
-		if err == nil {
-			err = os.Lchown(dst, h.Uid, h.Gid)
-		}
-		if err == nil && h.Typeflag != tar.TypeSymlink {
-			err = os.Chmod(dst, fs.FileMode(h.Mode&0o777)|unixModeBits(h.Mode))
-		}
-		if err != nil {
-			t.Fatalf("unpack %s: %v", name, err)
-		}
 	}
-}
-
-// unixModeBits converts the setuid, setgid and sticky bits of a tar mode to fs.FileMode.
-func unixModeBits(mode int64) fs.FileMode {
-	var m fs.FileMode
-	if mode&0o4000 != 0 {
-		m |= fs.ModeSetuid
-	}
-	if mode&0o2000 != 0 {
-		m |= fs.ModeSetgid
-	}
-	if mode&0o1000 != 0 {
-		m |= fs.ModeSticky
-	}
-	return m
 }
 
 // treeOnDisk describes the files under dir as image entries.
@@ -262,7 +226,7 @@ func TestImages(t *testing.T) {
 	want := rootScriptTree(t)
 	images := map[string]*ociImage{}
 	for _, name := range []string{"almanac-controller", "almanac-trainer"} {
-		img := readImage(t, dir, name, "")
+		img := readImage(t, dir, name)
 		images[name] = img
 		t.Run(name, func(t *testing.T) {
 			c := img.config.Config
@@ -401,70 +365,48 @@ func sum(xs []int64) int64 {
 	return s
 }
 
-// sandbox runs argv inside the unpacked image root the way a restricted pod runs it: a private
-// mount namespace and PID namespace, the root bind-mounted read-only, a writable directory
-// mounted on /tmp (the emptyDir), /proc, and a /dev with only null, zero, random and urandom;
-// then chroot into it as uid and gid 65532 with no supplementary groups and only the
-// environment in $ALMANAC_IMAGE_ENV (the image's PATH, space-separated NAME=value words). The
-// unshare around it runs with --kill-child, so ending unshare ends the process. It needs root (to mount and chroot), as a container runtime does.
-const sandbox = `set -eu
-r=$1; w=$2; shift 2
-mount --bind "$r" "$r"
-mount -o remount,bind,ro,nosuid,nodev "$r"
-mount --bind "$w" "$r/tmp"
-mount -t proc -o nosuid,nodev,noexec proc "$r/proc"
-mount -t tmpfs -o nosuid,noexec,mode=0755,size=64k tmpfs "$r/dev"
-for d in null zero random urandom; do touch "$r/dev/$d"; mount --bind "/dev/$d" "$r/dev/$d"; done
-exec env -i $ALMANAC_IMAGE_ENV chroot --userspec=65532:65532 --groups=65532 "$r" "$@"
-`
-
-// sandboxCommand returns the command that runs the image's entrypoint with args in the sandbox
-// (see sandbox): root is the unpacked image, work the directory mounted on /tmp, env extra
-// NAME=value words for the process besides the image's PATH.
-func sandboxCommand(img *ociImage, root, work string, env []string, args ...string) *exec.Cmd {
+// sandboxCommand returns the command that runs the image's entrypoint with args the way a
+// restricted pod runs it (test/sandbox): the image's root read-only, as uid and gid 65532, work
+// mounted on /tmp (the emptyDir), and only the image's PATH and env (NAME=value) in the
+// environment.
+func sandboxCommand(t *testing.T, img *sandbox.Image, work string, env []string, args ...string) *exec.Cmd {
+	t.Helper()
 	pathEnv := "PATH=/"
-	for _, e := range img.config.Config.Env {
+	for _, e := range img.Env {
 		if strings.HasPrefix(e, "PATH=") {
 			pathEnv = e
 		}
 	}
-	argv := append([]string{"--mount", "--pid", "--fork", "--kill-child", "--propagation", "private", "sh", "-c", sandbox, "sandbox", root, work}, img.config.Config.Entrypoint...)
-	cmd := exec.Command("unshare", append(argv, args...)...)
-	cmd.Env = append(os.Environ(), "ALMANAC_IMAGE_ENV="+strings.Join(append([]string{pathEnv}, env...), " "))
+	cmd, err := sandbox.Spec{
+		Root: img.Root, ReadOnlyRoot: true, UID: nonRootUID, GID: nonRootUID,
+		Env:    append([]string{pathEnv}, env...),
+		Mounts: []sandbox.Mount{{Source: work, Target: "/tmp"}},
+		Argv:   append(slices.Clone(img.Entrypoint), args...),
+	}.Command()
+	if err != nil {
+		t.Fatal(err)
+	}
 	return cmd
 }
 
-// unpackForSandbox unpacks an image into a new directory with mount points for /proc and /dev
-// (made before the root turns read-only, as a container runtime makes them) and returns it
-// with an empty directory for /tmp (mode 1777, like the image's /tmp and an emptyDir).
-func unpackForSandbox(t *testing.T, dir, name string) (img *ociImage, root, work string) {
+// unpackForSandbox skips unless this process can run sandboxes, then unpacks an image into a
+// new directory of its own (the sandbox makes its mount points there) and returns it with an
+// empty directory for /tmp (mode 1777, like the image's /tmp and an emptyDir).
+func unpackForSandbox(t *testing.T, dir, name string) (img *sandbox.Image, work string) {
 	t.Helper()
+	if err := sandbox.Available(); err != nil {
+		t.Skip(err)
+	}
 	base := t.TempDir()
-	root = filepath.Join(base, "rootfs")
-	img = readImage(t, dir, name, root)
-	for _, d := range []string{"proc", "dev"} {
-		if err := os.Mkdir(filepath.Join(root, d), 0o755); err != nil {
-			t.Fatal(err)
-		}
+	img, err := sandbox.Unpack(filepath.Join(dir, name+".oci.tar"), base)
+	if err != nil {
+		t.Fatal(err)
 	}
 	work = filepath.Join(base, "tmp")
 	if err := os.Mkdir(work, 0o755); err != nil || os.Chmod(work, 0o777|fs.ModeSticky) != nil {
 		t.Fatal(err)
 	}
-	return img, root, work
-}
-
-// needSandbox skips unless this process can build the sandbox.
-func needSandbox(t *testing.T) {
-	t.Helper()
-	if os.Geteuid() != 0 {
-		t.Skip("mounting the image's root read-only and chroot into it need root (CI runs as root)")
-	}
-	for _, tool := range []string{"unshare", "mount", "chroot", "env"} {
-		if _, err := exec.LookPath(tool); err != nil {
-			t.Fatalf("%s (util-linux, coreutils) is needed to run the image: %v", tool, err)
-		}
-	}
+	return img, work
 }
 
 // TestTrainerImageRuns runs a whole run (plan, every train shard, publish) with the trainer
@@ -476,11 +418,10 @@ func needSandbox(t *testing.T) {
 // the binary.
 func TestTrainerImageRuns(t *testing.T) {
 	dir := imagesDir(t)
-	needSandbox(t)
-	img, root, work := unpackForSandbox(t, dir, "almanac-trainer")
+	img, work := unpackForSandbox(t, dir, "almanac-trainer")
 	run := func(args ...string) (string, error) {
 		t.Helper()
-		cmd := sandboxCommand(img, root, work, nil, args...)
+		cmd := sandboxCommand(t, img, work, nil, args...)
 		var out bytes.Buffer
 		cmd.Stdout, cmd.Stderr = &out, &out
 		ctx, cancel := context.WithTimeout(context.Background(), 5*time.Minute)
@@ -509,7 +450,7 @@ func TestTrainerImageRuns(t *testing.T) {
 		return out
 	}
 
-	labels := img.config.Config.Labels
+	labels := readImage(t, dir, "almanac-trainer").config.Config.Labels
 	if got, want := strings.TrimSpace(mustRun("version")), "almanac-trainer "+labels["org.opencontainers.image.version"]+" ("+labels["org.opencontainers.image.revision"]+")"; got != want {
 		t.Errorf("version in the image: %q, want %q (the labels)", got, want)
 	}
