@@ -120,6 +120,10 @@ type Assessment struct {
 	Steps []float64
 	// Errors[i][k] is actual minus forecast at origin i, step k+1.
 	Errors [][]float64
+	// Held[i] is the number of observations after origin i (len(y) − Origins[i]): origin i's
+	// step k+1 is the observation Held[i] − k − 1 periods before the last one, which aligns the
+	// errors of series that end in the same period whatever their starts.
+	Held []int
 }
 
 // Assess scores the forecasts of one plan against y. At origin i the in-sample history for
@@ -131,7 +135,7 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 	if len(forecasts) != len(p.Origins) {
 		panic("backtest: Assess needs one forecast per origin")
 	}
-	a := Assessment{Steps: make([]float64, p.Horizon), Errors: make([][]float64, len(p.Origins))}
+	a := Assessment{Steps: make([]float64, p.Horizon), Errors: make([][]float64, len(p.Origins)), Held: make([]int, len(p.Origins))}
 	sum, cnt := 0.0, 0
 	scale1 := make([]float64, len(p.Origins))
 	scale2 := make([]float64, len(p.Origins))
@@ -150,6 +154,7 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 			e[k] = act[k] - forecasts[i][k]
 		}
 		a.Errors[i] = e
+		a.Held[i] = len(y) - t
 		scale1[i] = NaiveScale(y[:t], m, 1)
 		scale2[i] = NaiveScale(y[:t], m, 2)
 	}

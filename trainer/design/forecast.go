@@ -431,6 +431,7 @@ func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, wor
 		idx := byZoo[k]
 		cfg := cands[idx[0]].Config
 		cfg.Levels = nil
+		cfg.ErrorOrigins = 0 // the inner holdout scores means only
 		cfg.Horizon = len(inner[0].test)
 		variants := make([]selection.Variant, len(idx))
 		for v, ci := range idx {
@@ -626,6 +627,7 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 		return math.NaN(), nil
 	}
 	c.Levels = nil
+	c.ErrorOrigins = 0
 	c.Horizon = len(inner[pilot[0]].test)
 	sub := make([]series.Series, len(pilot))
 	for j, i := range pilot {

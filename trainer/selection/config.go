@@ -67,6 +67,16 @@ type Config struct {
 	// forward to the later origins without re-estimating, for families that support it
 	// (backtest.Plan.Update); the final fit on the whole series is always a full fit.
 	BacktestUpdate bool
+	// ErrorOrigins > 0 measures the published forecast's errors again at up to ErrorOrigins
+	// origins one horizon apart (non-overlapping test windows, the latest ending at the last
+	// observation; fitted as the selection backtest is) and returns those as
+	// Result.BacktestErrors instead of the selection backtest's. The selection's origins sit a
+	// step (default 1) apart, so their errors share most of their target periods and show one
+	// stretch of history; hierarchy reconciliation estimates an error covariance from them and
+	// needs draws that differ (trainer/pipeline sets it for hierarchical runs). A series too
+	// short for 2 such origins keeps the selection backtest's errors. Costs ErrorOrigins fits of
+	// the published member(s) per series (fewer with BacktestUpdate).
+	ErrorOrigins int
 
 	// shard holds the members fitted across all series of the call (set by ForecastMany).
 	shard *shardModels
@@ -121,6 +131,9 @@ func (c Config) Validate() error {
 	}
 	if !c.Metric.Valid() {
 		return fmt.Errorf("selection: unknown metric %q (known: %v)", c.Metric, backtest.Metrics())
+	}
+	if c.ErrorOrigins < 0 {
+		return fmt.Errorf("selection: errorOrigins must be >= 0, got %d", c.ErrorOrigins)
 	}
 	if c.Origins < 1 || c.Step < 1 {
 		return fmt.Errorf("selection: origins and step must be >= 1, got %d and %d", c.Origins, c.Step)
@@ -192,6 +205,14 @@ type Result struct {
 	// minus the combined fitted values); nil when the model gives none. Hierarchy
 	// reconciliation (trainer/reconcile, MinT) estimates the error covariance from them.
 	Residuals []float64
+	// BacktestErrors[i][k] is actual − forecast of the published forecast (the chosen member or
+	// combination) at backtest origin i (latest first), step k+1, and BacktestHeld[i] the number
+	// of observations after origin i (backtest.Assessment.Held): the selection backtest's, or
+	// with Config.ErrorOrigins those of its own origins a horizon apart; nil without backtest
+	// (constant series, fallbacks). Hierarchy reconciliation estimates its weights and its aggregates'
+	// bands from them, aligned across nodes by origin and step.
+	BacktestErrors [][]float64
+	BacktestHeld   []int
 }
 
 // FamilyCombination is Result.Family for a combination of members.

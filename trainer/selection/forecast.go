@@ -251,6 +251,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 		if better := cs < ranked[0].score; better || (cfg.CombineMargin > 0 && cs <= ranked[0].score*(1+cfg.CombineMargin)) {
 			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
 				res.Backtest = onBacktest(res, y, m, plan, ca)
+				errorBacktest(&res, top, y, m, cfg)
 				return res, nil
 			} else {
 				note("%s: refit failed, using the best single member: %v", name, err)
@@ -263,10 +264,49 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 			continue
 		}
 		res.Backtest = onBacktest(res, y, m, plan, c.a)
+		errorBacktest(&res, []*candidate{c}, y, m, cfg)
 		return res, nil
 	}
 	note("every backtested member failed to refit: fallback order %s", strings.Join(FallbackOrder, ", "))
 	return finishFallback(&res, fit, y, cfg, FallbackOrder, note)
+}
+
+// errorBacktest replaces res's backtest errors by those of the published forecast (members,
+// combined by cfg.CombineMethod when more than one) at up to cfg.ErrorOrigins origins one
+// horizon apart (see Config.ErrorOrigins); it leaves them when that is off, the series holds
+// fewer than 2 such origins, or a member fails at one.
+func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Config) {
+	if cfg.ErrorOrigins <= 0 {
+		return
+	}
+	floor := 0
+	for _, c := range members {
+		floor = max(floor, c.model.MinLength(c.m))
+	}
+	p, err := backtest.NewPlan(len(y), cfg.Horizon, cfg.ErrorOrigins, cfg.Horizon, floor)
+	if err != nil || len(p.Origins) < 2 {
+		return
+	}
+	p.Update = cfg.BacktestUpdate
+	fcs := make([][][]float64, len(members))
+	for i, c := range members {
+		if fcs[i], err = safeForecasts(c, y, p); err != nil {
+			return
+		}
+	}
+	out := fcs[0]
+	if len(members) > 1 {
+		out = make([][]float64, len(p.Origins))
+		for o := range out {
+			paths := make([][]float64, len(members))
+			for i := range members {
+				paths[i] = fcs[i][o]
+			}
+			out[o] = combine(cfg.CombineMethod, paths)
+		}
+	}
+	a := backtest.Assess(backtest.MAE, y, m, p, out)
+	res.BacktestErrors, res.BacktestHeld = a.Errors, a.Held
 }
 
 // onBacktest scores the published quantiles of res on the backtest a of its forecast (plan's
@@ -407,6 +447,7 @@ func finishSingle(res *Result, c *candidate, a backtest.Assessment, y []float64,
 	res.Mean = fc.Mean
 	res.Expected = a.Overall
 	res.StepErrors = a.Steps
+	res.BacktestErrors, res.BacktestHeld = a.Errors, a.Held
 	res.Residuals = residuals(y, fitted)
 	res.Features = nil
 	recordFeatures(res, c.spec.DisplayName(), fitted)
@@ -444,6 +485,7 @@ func finishCombination(res *Result, name string, top []*candidate, a backtest.As
 	res.Chosen, res.Family, res.Model, res.Params = name, FamilyCombination, name, nil
 	res.Mean = combine(cfg.CombineMethod, means)
 	res.Expected, res.StepErrors = a.Overall, a.Steps
+	res.BacktestErrors, res.BacktestHeld = a.Errors, a.Held
 	res.Residuals = nil
 	if ins := inSamples(fitted, len(y)); ins != nil {
 		res.Residuals = make([]float64, len(y))
