@@ -8,6 +8,8 @@ import (
 	"sort"
 	"time"
 
+	"gonum.org/v1/gonum/stat/distuv"
+
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/reconcile"
@@ -42,15 +44,56 @@ import (
 // the MinT optimum; reconciling sub-trees and then the top separately is not), replacing the
 // units' forecasts with the reconciled ones (RunReconcile).
 //
-// Quantiles. Reconciliation moves the means; each node's quantiles keep their distance from
-// the node's mean (q̃ = q̂ + ỹ − ŷ, clipped at zero for non-negative data): the node's own base
-// predictive spread, from its model or its backtest errors, re-centred on the coherent mean.
+// Weights. VarianceScaling and the MinT methods estimate W from every node's rolling-origin
+// backtest errors of its published forecast (selection.Result.BacktestErrors), not from one-step
+// in-sample residuals: a forecast of h steps errs by what the next h periods bring, and a shock
+// common to many series (a season stronger than the history showed) makes the bottom series'
+// multi-step errors correlate where their one-step residuals hardly do (BenchmarkHierarchy logs
+// both; PROJECT-NOTES, "why depot totals lose"). Wickramasuriya, Athanasopoulos & Hyndman (2019,
+// section 2) write the h-step reconciliation with W_h, the covariance of the h-step base errors,
+// and take W_h = k_h W_1 only because W_h is hard to estimate; we estimate it. The errors of all
+// nodes are aligned by origin and step: a column is one (origin period, step) pair, found from
+// each node's last period and BacktestHeld, so column t of every node is the error of a forecast
+// of the same target period made from the same origin; a node without that origin is NaN there
+// (reconcile skips such pairs). Steps are pooled without scaling: one G serves every step, and
+// the G that minimises the summed mean squared error over steps 1..H, Σ_h tr(S G W_h G' S') with
+// G S = I, is the MinT G of W = Σ_h W_h (the objective is linear in W), which is what the pooled
+// second moments estimate (each column is one draw of one step's error). Scaling each step to
+// unit spread would instead weight the short steps as much as the long ones, whose errors are the
+// ones the planners see largest. Caveat: the columns of one origin are serially correlated, so the
+// shrinkage intensity's variance estimate treats dependent draws as independent (λ comes out
+// smaller than for independent draws). Memory: origins × horizon numbers per node (36 at the
+// defaults' 3 origins and a horizon of 12), whatever the history length.
+//
+// Quantiles come from the reconciled backtest errors (issue 21 offers sample paths or these).
+// The projection is linear, ỹ = P ŷ with P = S G, and the actuals of one origin are coherent
+// (aggregate histories are sums of the bottom histories), so P y = y and the reconciled forecast's
+// error at an origin is ẽ = y − P ŷ = P (y − ŷ) = P e: the same reconciliation applied to the
+// backtest errors. reconcileTree reconciles every error column with the run's method (and the
+// same W), without the non-negativity constraint (an error may be negative; for non-negative
+// runs P e is the error of the unconstrained projection, an approximation where the constraint
+// binds), with a node's missing error counted as 0 in the product. Each node's bands are then
+// selection.EmpiricalQuantiles of its reconciled errors at the origins where it has its own
+// error, around its reconciled mean (the spread per step from the errors, the shape pooled over
+// steps and shrunk towards the normal), clipped at zero for non-negative data: non-decreasing
+// in the level and finite by construction. A node without backtest errors (a constant series, a
+// fallback model) keeps its own base spread re-centred on the reconciled mean (q̃ = q̂ + ỹ − ŷ).
 // Quantiles of sums are not sums of quantiles, so coherence is promised for the means only.
 
-// MaxResiduals bounds the one-step residuals per node kept for the MinT methods: the last
-// MaxResiduals periods (five years of weekly data). A covariance of n nodes needs more periods
-// than nodes to be estimated without shrinkage; more periods cost memory in nodes.json.
-const MaxResiduals = 260
+// MaxErrorOrigins bounds the origins of the hierarchy's error backtest (memory: MaxErrorOrigins
+// × horizon numbers per node).
+const MaxErrorOrigins = 8
+
+// hierarchyErrorOrigins is selection.Config.ErrorOrigins for a hierarchical run with season
+// length m, horizon h and the selection's origins: enough non-overlapping test windows of h
+// periods to span one season, ceil(m / h), so that the errors see every phase of the cycle (a
+// shock common to many series comes with the season: see the Weights paragraph), at least the
+// selection's own origin count and at most MaxErrorOrigins. Weekly data with a horizon of 12
+// gets 5 windows (60 weeks), monthly with 18 the selection's 3.
+func hierarchyErrorOrigins(m, h, origins int) int {
+	k := max((m+h-1)/h, origins, 3)
+	return min(k, MaxErrorOrigins)
+}
 
 // hierarchy is a run's spec.hierarchy in the trainer's terms.
 type hierarchy struct {
@@ -61,6 +104,8 @@ type hierarchy struct {
 	shardBy     []int // key column indices, ascending
 	method      reconcile.Method
 	nonNegative bool
+	// quantileLevels are the run's quantile levels (percents / 100), those of NodeBase.Quantiles.
+	quantileLevels []float64
 	// spanning is true when some level spans units: the run needs the reconcile step.
 	spanning bool
 }
@@ -81,6 +126,9 @@ func newHierarchy(cfg *runconfig.Config) *hierarchy {
 	}
 	keys := cfg.Source.Columns.Series
 	h := &hierarchy{keys: keys, bottom: runconfig.LevelName(keys, keys), method: reconcile.Method(hc.Method), nonNegative: hc.NonNegative}
+	for _, p := range cfg.QuantilePercents {
+		h.quantileLevels = append(h.quantileLevels, float64(p)/100)
+	}
 	hashed := cfg.Source.Partitioning == runconfig.PartitionHashBuckets
 	for i, k := range keys {
 		if slices.Contains(hc.ShardBy, k) {
@@ -255,7 +303,7 @@ func (x *floats) UnmarshalJSON(b []byte) error {
 }
 
 // NodesVersion is the version of nodes.json.
-const NodesVersion = 1
+const NodesVersion = 2
 
 // NodesFile is nodes.json, what a unit of a hierarchical run leaves for the reconcile step:
 // the base (unreconciled) forecasts and residuals of every node train forecast, and the
@@ -279,9 +327,19 @@ type NodeBase struct {
 	First     time.Time `json:"first"`
 	Mean      floats    `json:"mean"`
 	Quantiles []floats  `json:"quantiles,omitempty"`
-	// ResidualEnd is the period of the last residual (the node's last history period).
-	ResidualEnd time.Time `json:"residualEnd"`
-	Residuals   floats    `json:"residuals,omitempty"`
+	// End is the node's last history period, which the backtest origins count back from.
+	End time.Time `json:"end"`
+	// Backtest holds the backtest errors of the node's published forecast, one entry per origin
+	// (selection.Result.BacktestErrors and BacktestHeld); empty without backtest.
+	Backtest []OriginErrors `json:"backtest,omitempty"`
+}
+
+// OriginErrors are a node's backtest errors (actual − forecast) from one origin, by step; Held
+// is the number of history periods after the origin, so step k+1 forecast the period
+// Held − k − 1 periods before End.
+type OriginErrors struct {
+	Held   int    `json:"held"`
+	Errors floats `json:"errors"`
 }
 
 // Partial is a spanning node's history summed over one unit's series.
@@ -292,32 +350,31 @@ type Partial struct {
 	Values floats    `json:"values"`
 }
 
-// usesResiduals reports whether the run's method reads residuals (the MinT methods); the
-// others get none in nodes.json, which then holds little more than the forecasts.
-func (h *hierarchy) usesResiduals() bool {
-	return h.method == reconcile.MinTShrink || h.method == reconcile.MinTSample
-}
-
-// baseOf records a forecast node's base forecast, with the last MaxResiduals residuals when
-// the method uses them.
+// baseOf records a forecast node's base forecast with its backtest errors.
 func (h *hierarchy) baseOf(s series.Series, level string, r design.Result) NodeBase {
 	nb := NodeBase{Key: s.Key, Level: level, Model: r.Chosen, First: s.PeriodAt(s.Len()), Mean: slices.Clone(r.Mean),
-		ResidualEnd: s.PeriodAt(s.Len() - 1)}
+		End: s.PeriodAt(s.Len() - 1)}
 	for _, q := range r.Quantiles {
 		nb.Quantiles = append(nb.Quantiles, slices.Clone(q))
 	}
-	if !h.usesResiduals() {
-		return nb
+	for i, e := range r.BacktestErrors {
+		if i < len(r.BacktestHeld) {
+			nb.Backtest = append(nb.Backtest, OriginErrors{Held: r.BacktestHeld[i], Errors: slices.Clone(e)})
+		}
 	}
-	res := r.Residuals
-	if len(res) > MaxResiduals {
-		res = res[len(res)-MaxResiduals:]
-	}
-	nb.Residuals = slices.Clone(res)
 	return nb
 }
 
-// treeResult is a reconciled tree: coherent means and re-centred quantiles by node key.
+// usesErrors reports whether the run's method estimates W from the backtest errors.
+func (h *hierarchy) usesErrors() bool {
+	switch h.method {
+	case reconcile.VarianceScaling, reconcile.MinTShrink, reconcile.MinTSample:
+		return true
+	}
+	return false
+}
+
+// treeResult is a reconciled tree: coherent means and their quantiles by node key.
 type treeResult struct {
 	mean      map[string][]float64
 	quantiles map[string][][]float64
@@ -328,12 +385,15 @@ type treeResult struct {
 	deviation float64
 	// dropped lists aggregates with no bottom series under them, left out.
 	dropped []string
+	// bands says where the quantiles came from.
+	bands string
 }
 
 // reconcileTree reconciles the nodes (bottom series and aggregates, any order) with the run's
-// method. Every node must have a mean of the same horizon; residuals are aligned at their
-// ResidualEnd periods. Aggregates whose level the nodes hold but with no bottom node under them
-// are dropped (named in dropped).
+// method. Every node must have a mean of the same horizon; backtest errors are aligned by origin
+// and step from their End periods, weight the methods that estimate W and give every node's
+// bands (see the top of this file). Aggregates whose level the nodes hold but with no bottom
+// node under them are dropped (named in dropped).
 func (h *hierarchy) reconcileTree(nodes []NodeBase, freq series.Frequency) (treeResult, error) {
 	var bottom, aggs []int
 	for i, n := range nodes {
@@ -390,57 +450,236 @@ func (h *hierarchy) reconcileTree(nodes []NodeBase, freq series.Frequency) (tree
 	hs.Bottom = len(bottom)
 	order = append(order, bottom...)
 	base := make([][]float64, len(order))
-	end := time.Time{}
 	for k, i := range order {
 		base[k] = nodes[i].Mean
-		if nodes[i].ResidualEnd.After(end) {
-			end = nodes[i].ResidualEnd
+	}
+	cols := h.errorColumns(nodes, order, freq)
+	var weightsFrom [][]float64
+	if h.usesErrors() {
+		weightsFrom = cols.e
+	}
+	horizon := len(base[0])
+	// Without non-negativity the error columns ride along with the means (one W, one
+	// factorisation); with it they need the unconstrained projection, a second call.
+	withErrors := cols.n > 0 && len(h.quantileLevels) > 0
+	in := base
+	if withErrors && !h.nonNegative {
+		in = make([][]float64, len(order))
+		for k := range order {
+			in[k] = append(slices.Clone(base[k]), cols.zeroed(k)...)
 		}
 	}
-	var resid [][]float64
-	if h.usesResiduals() {
-		resid = make([][]float64, len(order))
-		for k, i := range order {
-			row := make([]float64, MaxResiduals)
-			for t := range row {
-				row[t] = math.NaN()
-			}
-			r := nodes[i].Residuals
-			shift := periodsBetween(freq, nodes[i].ResidualEnd, end)
-			for t := 0; t < len(r); t++ {
-				at := MaxResiduals - 1 - shift - (len(r) - 1 - t)
-				if at >= 0 && at < MaxResiduals {
-					row[at] = r[t]
-				}
-			}
-			resid[k] = row
-		}
-	}
-	res, err := reconcile.Reconcile(hs, base, h.method, resid, reconcile.Options{NonNegative: h.nonNegative})
+	res, err := reconcile.Reconcile(hs, in, h.method, weightsFrom, reconcile.Options{NonNegative: h.nonNegative})
 	if err != nil {
 		return treeResult{}, fmt.Errorf("hierarchy: %w", err)
 	}
+	fc := res.Forecasts
+	var recErr [][]float64 // reconciled error columns, node-major
+	if withErrors {
+		if h.nonNegative {
+			zs := make([][]float64, len(order))
+			for k := range order {
+				zs[k] = cols.zeroed(k)
+			}
+			er, err := reconcile.Reconcile(hs, zs, h.method, weightsFrom, reconcile.Options{})
+			if err != nil {
+				return treeResult{}, fmt.Errorf("hierarchy: reconciling the backtest errors: %w", err)
+			}
+			recErr = er.Forecasts
+		} else {
+			recErr = make([][]float64, len(order))
+			for k := range order {
+				fc[k], recErr[k] = fc[k][:horizon], fc[k][horizon:]
+			}
+		}
+	}
 	tr.method, tr.lambda, tr.note = res.Method, res.Lambda, res.Note
-	tr.deviation = reconcile.MaxDeviation(hs, res.Forecasts)
+	tr.deviation = reconcile.MaxDeviation(hs, fc)
 	tr.mean = make(map[string][]float64, len(order))
 	tr.quantiles = make(map[string][][]float64, len(order))
+	recentred := 0
 	for k, i := range order {
 		n := nodes[i]
-		tr.mean[n.Key] = res.Forecasts[k]
-		qs := make([][]float64, len(n.Quantiles))
-		for j, q := range n.Quantiles {
-			qs[j] = make([]float64, len(q))
-			for t := range q {
-				v := q[t] + res.Forecasts[k][t] - n.Mean[t]
-				if h.nonNegative && v < 0 {
-					v = 0
-				}
-				qs[j][t] = v
-			}
+		tr.mean[n.Key] = fc[k]
+		var qs [][]float64
+		if recErr != nil {
+			qs = h.errorBands(fc[k], cols.own(k, recErr[k]))
+		}
+		if qs == nil && len(n.Quantiles) > 0 {
+			qs = h.recentred(n, fc[k])
+			recentred++
 		}
 		tr.quantiles[n.Key] = qs
 	}
+	if len(h.quantileLevels) > 0 {
+		tr.bands = fmt.Sprintf("bands from reconciled backtest errors, %d of %d nodes re-centred base bands (no backtest errors)", recentred, len(order))
+	}
 	return tr, nil
+}
+
+// errorCols are the nodes' backtest errors aligned by origin and step (see the Weights
+// paragraph at the top of this file): e[k][c] is node order[k]'s error in column c, NaN where
+// it has none; origin[k] lists, per origin of the node, its column per step.
+type errorCols struct {
+	n      int
+	e      [][]float64
+	origin [][][]int
+}
+
+// errorColumns aligns the backtest errors of nodes (in order) by origin period and step. A
+// column is (p, k): the origin lies p periods before the tree's last period (p = the node's
+// periods behind that last period + Held) and k is the step.
+func (h *hierarchy) errorColumns(nodes []NodeBase, order []int, freq series.Frequency) errorCols {
+	end := time.Time{}
+	for _, i := range order {
+		if nodes[i].End.After(end) {
+			end = nodes[i].End
+		}
+	}
+	type col struct{ p, k int }
+	at := map[col]int{}
+	var keys []col
+	shift := make([]int, len(order))
+	for k, i := range order {
+		shift[k] = periodsBetween(freq, nodes[i].End, end)
+		for _, o := range nodes[i].Backtest {
+			for s := range o.Errors {
+				c := col{shift[k] + o.Held, s}
+				if _, ok := at[c]; !ok {
+					at[c] = 0
+					keys = append(keys, c)
+				}
+			}
+		}
+	}
+	sort.Slice(keys, func(a, b int) bool {
+		if keys[a].p != keys[b].p {
+			return keys[a].p < keys[b].p
+		}
+		return keys[a].k < keys[b].k
+	})
+	for j, c := range keys {
+		at[c] = j
+	}
+	ec := errorCols{n: len(keys), e: make([][]float64, len(order)), origin: make([][][]int, len(order))}
+	if ec.n == 0 {
+		return ec
+	}
+	for k, i := range order {
+		row := make([]float64, ec.n)
+		for j := range row {
+			row[j] = math.NaN()
+		}
+		for _, o := range nodes[i].Backtest {
+			idx := make([]int, 0, len(o.Errors))
+			for s, v := range o.Errors {
+				j := at[col{shift[k] + o.Held, s}]
+				if !math.IsNaN(v) && !math.IsInf(v, 0) {
+					row[j] = v
+				}
+				idx = append(idx, j)
+			}
+			ec.origin[k] = append(ec.origin[k], idx)
+		}
+		ec.e[k] = row
+	}
+	return ec
+}
+
+// zeroed is node k's error row with missing errors as 0 (no error known: none propagated).
+func (ec errorCols) zeroed(k int) []float64 {
+	out := slices.Clone(ec.e[k])
+	for j, v := range out {
+		if math.IsNaN(v) {
+			out[j] = 0
+		}
+	}
+	return out
+}
+
+// own returns node k's reconciled errors rec (one per column) at its own origins and steps,
+// origin-major, keeping only the origins where the node had every step's error (the rectangle
+// errorBands wants); nil when none.
+func (ec errorCols) own(k int, rec []float64) [][]float64 {
+	var out [][]float64
+	for _, idx := range ec.origin[k] {
+		row := make([]float64, len(idx))
+		whole := len(idx) > 0 && (len(out) == 0 || len(idx) == len(out[0]))
+		for s, j := range idx {
+			whole = whole && !math.IsNaN(ec.e[k][j])
+			row[s] = rec[j]
+		}
+		if whole {
+			out = append(out, row)
+		}
+	}
+	return out
+}
+
+// errorBands returns a node's quantiles from its reconciled backtest errors errs[i][k] (origin
+// i, step k+1, n >= 2 origins) around its reconciled mean:
+//
+//	s_k  = sqrt(Σ_i errs[i][k]² / n)          (about zero, as for W: a bias counts as error)
+//	q_jk = mean_k + s_k · t_n(p_j)
+//
+// the normal prediction interval for one new error when its variance is estimated from n
+// independent zero-mean errors: n s_k² / σ² is χ²_n, so e_new / s_k follows Student's t with n
+// degrees of freedom (common practice). The origins are a horizon apart, so their test windows
+// do not overlap. Past the errors' horizon s_k grows as s_last · sqrt(k / last) (the random-walk
+// rule selection's empirical quantiles use). Clipped at zero for non-negative data; nil with
+// fewer than 2 origins or a spread that is not finite. Quantiles are non-decreasing in the
+// level since t_n is.
+func (h *hierarchy) errorBands(mean []float64, errs [][]float64) [][]float64 {
+	n := len(errs)
+	if n < 2 || len(errs[0]) == 0 {
+		return nil
+	}
+	hb := min(len(errs[0]), len(mean))
+	s := make([]float64, len(mean))
+	for k := 0; k < hb; k++ {
+		var ss float64
+		for _, e := range errs {
+			ss += e[k] * e[k]
+		}
+		s[k] = math.Sqrt(ss / float64(n))
+	}
+	for k := hb; k < len(mean); k++ {
+		s[k] = s[hb-1] * math.Sqrt(float64(k+1)/float64(hb))
+	}
+	t := distuv.StudentsT{Mu: 0, Sigma: 1, Nu: float64(n)}
+	qs := make([][]float64, len(h.quantileLevels))
+	for j, p := range h.quantileLevels {
+		c := t.Quantile(p)
+		qs[j] = make([]float64, len(mean))
+		for k := range mean {
+			v := mean[k] + s[k]*c
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil
+			}
+			if h.nonNegative && v < 0 {
+				v = 0
+			}
+			qs[j][k] = v
+		}
+	}
+	return qs
+}
+
+// recentred is a node's base quantiles moved by its reconciliation, q̃ = q̂ + ỹ − ŷ, clipped at
+// zero for non-negative data.
+func (h *hierarchy) recentred(n NodeBase, mean []float64) [][]float64 {
+	qs := make([][]float64, len(n.Quantiles))
+	for j, q := range n.Quantiles {
+		qs[j] = make([]float64, len(q))
+		for t := range q {
+			v := q[t] + mean[t] - n.Mean[t]
+			if h.nonNegative && v < 0 {
+				v = 0
+			}
+			qs[j][t] = v
+		}
+	}
+	return qs
 }
 
 // levelSummaries turns per-level node counts and accuracy into summary levels, sorted by name.

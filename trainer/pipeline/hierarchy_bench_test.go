@@ -67,13 +67,14 @@ func BenchmarkHierarchy(b *testing.B) {
 		Drift:     runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 1},
 		Hierarchy: &runconfig.Hierarchy{Levels: [][]string{{"depot"}, {"item"}, {}}, ShardBy: []string{"depot"}, Method: "MinTShrink", NonNegative: true},
 	}
-	st, err := Check(cfg) // MinTShrink: the base forecasts keep their residuals for every method below
+	st, err := Check(cfg)
 	if err != nil {
 		b.Fatal(err)
 	}
 	h := newHierarchy(cfg)
 	levels := []string{h.bottom, "depot", "item", "total"}
-	methods := []string{"base", "BottomUp", "OLS", "StructuralScaling", "MinTShrink"}
+	methods := []string{"base", "BottomUp", "OLS", "StructuralScaling", "VarianceScaling", "MinTShrink"}
+	oneStep := map[string][]float64{} // the last forecast's one-step in-sample residuals by key
 	forecast := func(in []series.Series) ([]NodeBase, time.Duration) {
 		t0 := time.Now()
 		out := make([]NodeBase, len(in))
@@ -82,6 +83,7 @@ func BenchmarkHierarchy(b *testing.B) {
 				b.Fatalf("%s: %v", in[i].Key, err)
 			}
 			out[i] = h.baseOf(in[i], h.levelOf(in[i].Key), r)
+			oneStep[in[i].Key] = r.Residuals
 		})
 		if err != nil {
 			b.Fatal(err)
@@ -95,7 +97,8 @@ func BenchmarkHierarchy(b *testing.B) {
 		}
 		var tBottom, tAggs time.Duration
 		tRec := map[string]time.Duration{}
-		errs, resid := map[string][]float64{}, map[string][]float64{} // bottom series only
+		errs, resid, inner := map[string][]float64{}, map[string][]float64{}, map[string][]float64{} // bottom series only
+		lambda := map[string][]float64{}
 		for origin := 1; origin <= origins; origin++ {
 			cut := periods - origin*horizon
 			var bottom, next []series.Series
@@ -123,8 +126,11 @@ func BenchmarkHierarchy(b *testing.B) {
 				for t, y := range actual[nd.Key] {
 					errs[nd.Key] = append(errs[nd.Key], y-nd.Mean[t])
 				}
+				for _, o := range nd.Backtest { // every bottom series ends together: origins align
+					inner[nd.Key] = append(inner[nd.Key], o.Errors...)
+				}
 				if origin == origins {
-					resid[nd.Key] = nd.Residuals
+					resid[nd.Key] = oneStep[nd.Key]
 				}
 			}
 			scores["base"].add(h, nodes, nil, actual, history, levels)
@@ -137,14 +143,17 @@ func BenchmarkHierarchy(b *testing.B) {
 					b.Fatal(err)
 				}
 				scores[m].add(h, nodes, &tr, actual, history, levels)
+				lambda[m] = append(lambda[m], tr.lambda)
 			}
 		}
 		b.Logf("%d items x %d depots (%d bottom series, %d aggregates), horizon %d, %d origins; base forecasts %.2fs (bottom) + %.2fs (aggregates)",
 			items, depots, len(keys), 1+items+depots, horizon, origins, tBottom.Seconds(), tAggs.Seconds())
 		sameE, otherE := depotCorrelations(keys, errs)
 		sameR, otherR := depotCorrelations(keys, resid)
-		b.Logf("bottom series, mean pairwise correlation: forecast errors (steps 1-%d, %d origins) %.3f same depot, %.3f other depots; one-step residuals %.3f, %.3f",
-			horizon, origins, sameE, otherE, sameR, otherR)
+		sameB, otherB := depotCorrelations(keys, inner)
+		b.Logf("bottom series, mean pairwise correlation: forecast errors (steps 1-%d, %d origins) %.3f same depot, %.3f other depots; one-step residuals %.3f, %.3f; backtest errors (what W is estimated from) %.3f, %.3f",
+			horizon, origins, sameE, otherE, sameR, otherR, sameB, otherB)
+		b.Logf("MinTShrink intensity by origin: %.3f", lambda["MinTShrink"])
 		b.Logf("%-18s %-11s %8s %8s %8s %8s", "method", "", levels[0], levels[1], levels[2], levels[3])
 		base := scores["base"]
 		for _, m := range methods {

@@ -120,6 +120,9 @@ func settings(cfg *runconfig.Config) (Settings, error) {
 		}
 		sc.Features = &fc
 	}
+	if cfg.Hierarchy != nil {
+		sc.ErrorOrigins = hierarchyErrorOrigins(f.SeasonLength(), cfg.Horizon, sc.Origins)
+	}
 	if err := sc.Validate(); err != nil {
 		return s, err
 	}
