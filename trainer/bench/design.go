@@ -32,6 +32,10 @@ type Options struct {
 	CostLimit            float64
 	MaxSeries, MinSeries int
 	InnerOrigins         int
+	// SampleSeries (Auto) is the most series of a group the design is decided on, drawn by
+	// key hash as a portfolio's plan step draws them (design.Sample; 0:
+	// design.DefaultSampleSeries).
+	SampleSeries int
 	// Combinations are design.Options.Combinations (nil: design.Combinations).
 	Combinations []design.Combination
 	// Log, when set, receives each group's design.Outcome.
@@ -40,10 +44,12 @@ type Options struct {
 	Levels []float64
 }
 
-// Run forecasts every entry with design.Forecast, the function a portfolio's train step
-// runs, and scores it. Entries are grouped by category and horizon, and each group is one
-// call, as one portfolio (shard) of one frequency and horizon would be: its inner holdout
-// and choices see only that group's training data. It returns the report and the per-entry
+// Run forecasts every entry as a portfolio's run does, and scores it. Entries are grouped by
+// category and horizon, and each group is one portfolio of one frequency and horizon: under
+// Auto its design is chosen once by design.Decide on a sample of the group (design.Sample,
+// the plan step's draw) and applied by design.Forecast (the train step), so the inner holdout
+// and the choices see only that group's training data. A group no larger than the sample is
+// decided on whole, which gives exactly what one Forecast call choosing by itself gives. It returns the report and the per-entry
 // results. CPU time (user + system, getrusage) covers the whole call, inner holdout
 // included, and is reported per series in All.CPUMilliseconds. A series whose forecast
 // fails is scored with the naive forecast (last value) and counted in Failed.
@@ -88,6 +94,23 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		}
 		do := design.Options{Mode: o.Mode, Base: cfg, Rule: o.Rule, CostLimit: o.CostLimit,
 			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations, InnerOrigins: o.InnerOrigins}
+		var dec *design.Outcome
+		if do.Mode == "" || do.Mode == design.Auto {
+			k := o.SampleSeries
+			if k <= 0 {
+				k = design.DefaultSampleSeries
+			}
+			sample := design.Sample(in, k)
+			sub := make([]series.Series, len(sample))
+			for j, i := range sample {
+				sub[j] = in[i]
+			}
+			var err error
+			if dec, err = design.Decide(ctx, sub, do); err != nil {
+				return nil, nil, err
+			}
+			do.Decided = dec
+		}
 		out, err := design.Forecast(ctx, in, do, func(j int, r design.Result, err error) {
 			results[idx[j]], errs[idx[j]] = r.Result, err
 			counts[r.Design]++
@@ -97,7 +120,11 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		}
 		if o.Log != nil {
 			fmt.Fprintf(o.Log, "%s (h=%d): ", g.cat, g.h)
-			out.Write(o.Log)
+			if dec != nil && out.Fallback == nil {
+				dec.Write(o.Log) // the decision, with its inner holdout and scores
+			} else {
+				out.Write(o.Log)
+			}
 		}
 	}
 	cpu := cpuTime() - cpu0

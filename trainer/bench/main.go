@@ -66,6 +66,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	costLimit := fs.Float64("cost-limit", design.DefaultCostLimit, "with --design auto: drop candidate designs costing more than this many times the simplest's CPU per series")
 	innerMax := fs.Int("inner-max", design.DefaultMaxSeries, "with --design auto: at most this many inner-holdout series per segment")
 	innerOrigins := fs.Int("inner-origins", design.DefaultInnerOrigins, "with --design auto: inner-holdout origins per series (the last h points, the h before them, ...)")
+	sampleMax := fs.Int("design-sample", design.DefaultSampleSeries, "with --design auto: the design is chosen once per group on at most this many of its series, drawn by key hash (a portfolio's plan step draws its sample the same way)")
 	innerMin := fs.Int("inner-min", design.DefaultMinSeries, "with --design auto: a segment with fewer inner-holdout series takes the choice of the next coarser one")
 	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS, ARIMA and ETS+ARIMA+Theta fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
@@ -129,7 +130,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	// Every flag is checked before any data is read.
 	o := Options{Levels: levels, Origins: *origins, Step: *step, CombineTop: *combine, CombineMethod: *combineMethod,
 		CombineMargin: float64(*marginPercent) / 100, Metric: backtest.Metric(*metric), Workers: *workers, BacktestUpdate: *update,
-		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, Log: stdout}
+		Mode: parseMode(*mode), Rule: design.Rule(*choice), CostLimit: *costLimit, MaxSeries: *innerMax, MinSeries: *innerMin, InnerOrigins: *innerOrigins, SampleSeries: *sampleMax, Log: stdout}
 	switch {
 	case !o.Mode.Valid():
 		fmt.Fprintf(stderr, "bench: --design %q: want Auto, PerSeries or Fixed (spec.selection.design)\n", *mode)

@@ -63,6 +63,11 @@ type Options struct {
 	Workers int
 	// CPU is the clock costs are measured with (nil: ProcessCPU).
 	CPU func() time.Duration
+	// Decided (Auto) is the run's choice made once by Decide, on a sample of the whole
+	// portfolio (the plan step): a segment it holds takes its design with no inner holdout
+	// here; the others are chosen on this call's series. Its candidates must be this run's
+	// (the same Base and Combinations), or Forecast fails.
+	Decided *Outcome
 }
 
 func (o Options) withDefaults() Options {
@@ -117,6 +122,8 @@ type Result struct {
 	selection.Result
 	// Design is the candidate's name (Candidate.Name).
 	Design string
+	// From says where the design was chosen (FromPlan, FromShard; "" outside Auto).
+	From string
 	// Segment is the series' segment (zero when the series could not be cleaned).
 	Segment Segment
 }
@@ -134,18 +141,30 @@ type Outcome struct {
 	DroppedMembers   []string
 	// CostMillis is each candidate's cost: the sum of its members' MemberCostMillis.
 	CostMillis []float64
+	// Members are each candidate's zoo members (DisplayName), in zoo order.
+	Members [][]string
 	// InnerSeries is the number of inner-holdout series (each at up to InnerOrigins origins), InnerCPU the CPU time of the pilot
 	// and the inner holdout together (0 when there was nothing to choose between).
 	InnerSeries int
 	InnerCPU    time.Duration
-	// Choices holds one entry per segment of the input, by segment name.
+	// Choices holds one entry per segment of the input, by segment name; with
+	// Options.Decided, first the segments it held (From FromPlan), then those chosen here.
 	Choices []Choice
+	// SampleSeries is the number of series Decide chose on (0 when Forecast chose).
+	SampleSeries int
+	// Fallback is this call's own choice for the segments Options.Decided did not hold (nil
+	// when it held all, or none was given); the Means of a FromShard Choice index its
+	// Candidates.
+	Fallback *Outcome
 }
 
 // Choice is the design of one segment.
 type Choice struct {
 	Segment Segment
 	Design  string
+	// From says where it was chosen: FromPlan (Decide, applied through Options.Decided) or
+	// FromShard (this Forecast call).
+	From string
 	// Series is the number of input series in the segment.
 	Series int
 	// Basis is the segment whose inner series decided (the segment itself, or a coarser one
@@ -160,37 +179,52 @@ type Choice struct {
 	scores [][]float64
 }
 
+// Where a segment's design was chosen (Choice.From, Result.From).
+const (
+	// FromPlan: chosen once for the run on a sample of its series (Decide, the plan step)
+	// and applied by every shard through Options.Decided.
+	FromPlan = "plan"
+	// FromShard: chosen by this Forecast call on its own series, because no Decided choice
+	// was given or it did not hold the segment (a segment the plan's sample did not see).
+	FromShard = "shard"
+)
+
 // Forecast forecasts every series of in and calls emit once per series (from the calling
 // goroutine, in no promised order) with its result, design and segment.
 //
 // Fixed runs o.Base on every series; PerSeries runs it without its combination. Auto:
 //
 //  1. Every series is cleaned (o.Base.Clean) and put in its Segment.
-//  2. Inner holdout (Tashman 2000, section 2: hold out the end of the in-sample data): a
+//  2. Each segment takes its design from o.Decided when that holds the segment (From
+//     FromPlan: no inner holdout here). The other segments (all of them without o.Decided)
+//     are chosen here on their own series, steps 3 to 5 (From FromShard).
+//  3. Inner holdout (Tashman 2000, section 2: hold out the end of the in-sample data): a
 //     series with n >= 2h + 2m + 2 cleaned observations is eligible; of each segment's
 //     eligible series at most MaxSeries are used (every k-th in input order). Each loses its
 //     last h observations, which the candidates forecast from the rest; forecasts are scored
 //     by MASE with the shortened history's seasonal-naive scale (Hyndman & Koehler 2006). A
 //     candidate that fails on a series is scored with the naive forecast (last value).
-//  3. Cost: every zoo member runs alone on a pilot (the first Pilot inner series of each
+//  4. Cost: every zoo member runs alone on a pilot (the first Pilot inner series of each
 //     segment); the budget is CostLimit times the summed cost of the first candidate's
 //     members, and members are taken out of the zoo until the rest fit it (withinBudget).
 //     The candidates are then built from that zoo, so every candidate costs at most the
 //     budget (a candidate's cost is the sum of its members').
-//  4. Per segment, o.Rule picks among the candidates kept, on the segment's inner series or,
+//  5. Per segment, o.Rule picks among the candidates kept, on the segment's inner series or,
 //     below MinSeries, on those of the next coarser segment (band pooled, then class);
 //     without MinSeries anywhere, the first (simplest) candidate is used.
-//  5. Each series is forecast on its full history with its segment's design.
+//  6. Each series is forecast on its full history with its segment's design.
 //
-// Series are chosen for, and forecast by, this call alone: shards of a run choose apart.
-// The test data of a benchmark is never passed in, so it cannot influence the choice.
+// Steps 3 to 5 are Decide; a run calls Decide once in its plan step on a sample of the whole
+// portfolio (Sample) and every shard passes the result as o.Decided, so that one segment gets
+// one design across shards. The test data of a benchmark is never passed in, so it cannot
+// influence the choice.
 func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i int, r Result, err error)) (*Outcome, error) {
 	if err := o.Validate(); err != nil {
 		return nil, err
 	}
 	o = o.withDefaults()
-	out := &Outcome{Mode: o.Mode}
 	if o.Mode != Auto {
+		out := &Outcome{Mode: o.Mode}
 		c := ForMode(o.Mode, o.Base)
 		out.Candidates = []string{c.Name}
 		idx := make([]int, len(in))
@@ -199,17 +233,134 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 			idx[i] = i
 			segs[i] = segmentOf(in[i], o.Base)
 		}
-		return out, run(ctx, in, idx, c, segs, o.Workers, emit)
+		return out, run(ctx, in, idx, c, "", segs, o.Workers, emit)
+	}
+	p := prepare(in, o)
+	var out *Outcome
+	// designOf maps a segment to its candidate and the choice's origin.
+	type assigned struct {
+		cand *Candidate
+		from string
+	}
+	designOf := map[Segment]assigned{}
+	undecided := p.order
+	var first *Candidate // uncleanable series go with it (it rejects them)
+	if o.Decided != nil {
+		cands, err := decidedCandidates(o)
+		if err != nil {
+			return nil, err
+		}
+		first = &cands[0]
+		byName := map[string]int{}
+		for ci, c := range cands {
+			byName[c.Name] = ci
+		}
+		planned := map[string]Choice{}
+		for _, ch := range o.Decided.Choices {
+			planned[ch.Segment.String()] = ch
+		}
+		d := o.Decided
+		out = &Outcome{Mode: Auto, Candidates: d.Candidates, Members: d.Members, MemberCostMillis: d.MemberCostMillis, BudgetMillis: d.BudgetMillis,
+			DroppedMembers: d.DroppedMembers, CostMillis: d.CostMillis, SampleSeries: d.SampleSeries}
+		undecided = nil
+		for _, sg := range p.order {
+			ch, ok := planned[sg.String()]
+			if !ok {
+				undecided = append(undecided, sg)
+				continue
+			}
+			ci, ok := byName[ch.Design]
+			if !ok {
+				return nil, fmt.Errorf("design: the decided design %q of segment %s is not a candidate of this run (%v)", ch.Design, sg, d.Candidates)
+			}
+			ch.Segment, ch.Series, ch.From = sg, len(p.bySeg[sg]), FromPlan
+			out.Choices = append(out.Choices, ch)
+			designOf[sg] = assigned{&cands[ci], FromPlan}
+		}
+	}
+	if len(undecided) > 0 || out == nil {
+		own, cands, chosen, err := decide(ctx, p, undecided, o)
+		if err != nil {
+			return nil, err
+		}
+		for i := range own.Choices {
+			own.Choices[i].From = FromShard
+		}
+		for _, sg := range undecided {
+			designOf[sg] = assigned{&cands[chosen[sg]], FromShard}
+		}
+		if out == nil {
+			out, first = own, &cands[0]
+		} else {
+			out.Fallback = own
+			out.Choices = append(out.Choices, own.Choices...)
+		}
 	}
 
-	cands := Candidates(o.Base, o.Combinations)
-	for _, c := range cands {
-		out.Candidates = append(out.Candidates, c.Name)
+	// The final run, one design at a time; series that could not be cleaned go with the
+	// first candidate, which rejects them with the cleaning error.
+	type group struct {
+		a   assigned
+		idx []int
 	}
+	var groups []*group
+	byCand := map[*Candidate]*group{}
+	for i := range in {
+		a := assigned{first, FromShard}
+		if p.cleaned[i] != nil {
+			a = designOf[p.segs[i]]
+		}
+		g := byCand[a.cand]
+		if g == nil {
+			g = &group{a: a}
+			byCand[a.cand] = g
+			groups = append(groups, g)
+		}
+		g.idx = append(g.idx, i)
+	}
+	for _, g := range groups {
+		if err := run(ctx, in, g.idx, *g.a.cand, g.a.from, p.segs, o.Workers, emit); err != nil {
+			return nil, err
+		}
+	}
+	return out, nil
+}
+
+// Decide chooses the design of every segment of in (Forecast's steps 1 and 3 to 5) without
+// forecasting: the plan step calls it once per run on a sample of the portfolio (Sample) and
+// writes the outcome into plan.json; every shard passes it to Forecast as Options.Decided.
+// Only Auto chooses; for the other modes the outcome names their single design.
+func Decide(ctx context.Context, in []series.Series, o Options) (*Outcome, error) {
+	if err := o.Validate(); err != nil {
+		return nil, err
+	}
+	o = o.withDefaults()
+	if o.Mode != Auto {
+		return &Outcome{Mode: o.Mode, Candidates: []string{ForMode(o.Mode, o.Base).Name}}, nil
+	}
+	p := prepare(in, o)
+	out, _, _, err := decide(ctx, p, p.order, o)
+	if err != nil {
+		return nil, err
+	}
+	for i := range out.Choices {
+		out.Choices[i].From = FromPlan
+	}
+	out.SampleSeries = len(in)
+	return out, nil
+}
+
+// prepared is the input of an Auto call cleaned and grouped by segment.
+type prepared struct {
+	segs    []Segment
+	cleaned []*series.Series // nil: could not be cleaned
+	bySeg   map[Segment][]int
+	order   []Segment // the segments present, by name
+}
+
+func prepare(in []series.Series, o Options) *prepared {
 	h := o.Base.Horizon
-	segs := make([]Segment, len(in))
-	cleaned := make([]*series.Series, len(in))
-	bySeg := map[Segment][]int{}
+	p := &prepared{segs: make([]Segment, len(in)), cleaned: make([]*series.Series, len(in)), bySeg: map[Segment][]int{}}
 	for i, s := range in {
 		cp := s
 		cp.Values = append([]float64(nil), s.Values...)
@@ -217,16 +368,65 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		if err := series.Clean(&cp, o.Base.Clean); err != nil {
 			continue // the final run rejects it with the same reason
 		}
-		cleaned[i] = &cp
-		segs[i] = SegmentOf(cp, h, seasonLength(o.Base, cp.Freq))
-		bySeg[segs[i]] = append(bySeg[segs[i]], i)
+		p.cleaned[i] = &cp
+		p.segs[i] = SegmentOf(cp, h, seasonLength(o.Base, cp.Freq))
+		p.bySeg[p.segs[i]] = append(p.bySeg[p.segs[i]], i)
 	}
-	order := make([]Segment, 0, len(bySeg))
-	for sg := range bySeg {
-		order = append(order, sg)
+	for sg := range p.bySeg {
+		p.order = append(p.order, sg)
 	}
-	sort.Slice(order, func(a, b int) bool { return order[a].String() < order[b].String() })
+	sort.Slice(p.order, func(a, b int) bool { return p.order[a].String() < p.order[b].String() })
+	return p
+}
 
+// decidedCandidates rebuilds the candidates o.Decided chose among: the declared zoo without
+// the members it dropped for cost. They must be the ones it names (the same run
+// configuration and combinations), or the decision cannot be applied.
+func decidedCandidates(o Options) ([]Candidate, error) {
+	cands := Candidates(withoutMembers(o.Base, o.Decided.DroppedMembers), o.Combinations)
+	got := make([]string, len(cands))
+	same := len(cands) == len(o.Decided.Candidates)
+	for i, c := range cands {
+		got[i] = c.Name
+		same = same && c.Name == o.Decided.Candidates[i] &&
+			(o.Decided.Members == nil || slices.Equal(members(c), o.Decided.Members[i]))
+	}
+	if !same {
+		return nil, fmt.Errorf("design: the decided candidates %v (members %v) differ from this run's %v (another zoo or trainer version)",
+			o.Decided.Candidates, o.Decided.Members, got)
+	}
+	return cands, nil
+}
+
+// members are c's zoo members by DisplayName.
+func members(c Candidate) []string {
+	out := make([]string, len(c.Config.Zoo))
+	for i, sp := range c.Config.Zoo {
+		out[i] = sp.DisplayName()
+	}
+	return out
+}
+
+// withoutMembers is c without the named zoo members (DisplayName), its combination size
+// capped at the members left.
+func withoutMembers(c selection.Config, names []string) selection.Config {
+	c.Zoo = slices.DeleteFunc(slices.Clone(c.Zoo), func(sp models.Spec) bool { return slices.Contains(names, sp.DisplayName()) })
+	if c.CombineTop > len(c.Zoo) {
+		c.CombineTop = len(c.Zoo)
+	}
+	return c
+}
+
+// decide is Forecast's steps 3 to 5 for the segments in order (of p): it returns the outcome
+// (one Choice per segment), the candidates weighed and each segment's chosen index.
+func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outcome, []Candidate, map[Segment]int, error) {
+	out := &Outcome{Mode: Auto}
+	cands := Candidates(o.Base, o.Combinations)
+	for _, c := range cands {
+		out.Candidates = append(out.Candidates, c.Name)
+		out.Members = append(out.Members, members(c))
+	}
+	h := o.Base.Horizon
 	// The inner-holdout sample, segment by segment; the first Pilot of each are the pilot.
 	var inner []innerSeries
 	var pilot []int
@@ -235,15 +435,15 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 			break // nothing to choose between
 		}
 		var elig []int
-		for _, i := range bySeg[sg] {
-			if len(cleaned[i].Values) >= minInner(h, seasonLength(o.Base, sg.Frequency)) {
+		for _, i := range p.bySeg[sg] {
+			if len(p.cleaned[i].Values) >= minInner(h, seasonLength(o.Base, sg.Frequency)) {
 				elig = append(elig, i)
 			}
 		}
 		k := (len(elig) + o.MaxSeries - 1) / o.MaxSeries
 		m := seasonLength(o.Base, sg.Frequency)
 		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
-			s := *cleaned[elig[j]]
+			s := *p.cleaned[elig[j]]
 			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minInner(h, m); org++ {
 				cut := s
 				cut.Values = s.Values[:len(s.Values)-org*h]
@@ -262,18 +462,19 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		cpu0 := o.CPU()
 		base, err := withinBudget(ctx, inner, pilot, cands[0], o, out)
 		if err != nil {
-			return nil, err
+			return nil, nil, nil, err
 		}
 		cands = Candidates(base, o.Combinations)
-		out.Candidates = out.Candidates[:0]
+		out.Candidates, out.Members = out.Candidates[:0], out.Members[:0]
 		for _, c := range cands {
 			out.Candidates = append(out.Candidates, c.Name)
+			out.Members = append(out.Members, members(c))
 			out.CostMillis = append(out.CostMillis, sumCost(c.Config, out.MemberCostMillis))
 		}
 		if len(cands) > 1 {
 			scores = make([][]float64, len(cands))
 			if err := scoreInner(ctx, inner, cands, o.Workers, scores); err != nil {
-				return nil, err
+				return nil, nil, nil, err
 			}
 		}
 		out.InnerCPU = o.CPU() - cpu0
@@ -283,7 +484,7 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 	chosen := map[Segment]int{}
 	for _, sg := range order {
 		ch := choose(sg, units, unitScores, o)
-		ch.Series = len(bySeg[sg])
+		ch.Series = len(p.bySeg[sg])
 		if ch.Inner > 0 {
 			if o.Rule == RelativeSE {
 				chosen[sg] = PickRelative(ch.scores)
@@ -297,26 +498,7 @@ func Forecast(ctx context.Context, in []series.Series, o Options, emit func(i in
 		ch.Design = cands[chosen[sg]].Name
 		out.Choices = append(out.Choices, ch)
 	}
-
-	// The final run, one design at a time; series that could not be cleaned go with the
-	// first candidate, which rejects them with the cleaning error.
-	groups := make([][]int, len(cands))
-	for i := range in {
-		ci := 0
-		if cleaned[i] != nil {
-			ci = chosen[segs[i]]
-		}
-		groups[ci] = append(groups[ci], i)
-	}
-	for ci, idx := range groups {
-		if len(idx) == 0 {
-			continue
-		}
-		if err := run(ctx, in, idx, cands[ci], segs, o.Workers, emit); err != nil {
-			return nil, err
-		}
-	}
-	return out, nil
+	return out, cands, chosen, nil
 }
 
 // seasonLength is the season length of the bands and of the inner MASE scale: the declared
@@ -339,14 +521,15 @@ func segmentOf(s series.Series, c selection.Config) Segment {
 	return SegmentOf(cp, c.Horizon, seasonLength(c, cp.Freq))
 }
 
-// run forecasts the series in[idx] with candidate c and emits their results.
-func run(ctx context.Context, in []series.Series, idx []int, c Candidate, segs []Segment, workers int, emit func(int, Result, error)) error {
+// run forecasts the series in[idx] with candidate c and emits their results; from is where
+// the design was chosen ("" outside Auto).
+func run(ctx context.Context, in []series.Series, idx []int, c Candidate, from string, segs []Segment, workers int, emit func(int, Result, error)) error {
 	sub := make([]series.Series, len(idx))
 	for j, i := range idx {
 		sub[j] = in[i]
 	}
 	return selection.ForecastMany(ctx, sub, c.Config, workers, func(j int, r selection.Result, err error) {
-		emit(idx[j], Result{Result: r, Design: c.Name, Segment: segs[idx[j]]}, err)
+		emit(idx[j], Result{Result: r, Design: c.Name, From: from, Segment: segs[idx[j]]}, err)
 	})
 }
 
@@ -502,28 +685,58 @@ func within(s, b Segment) bool {
 	return s.Frequency == b.Frequency && (b.Class == Any || s.Class == b.Class) && (b.Band == Any || s.Band == b.Band)
 }
 
-// Write prints the outcome: candidates with cost, then per segment the choice and its basis.
+// Write prints the outcome: candidates with cost, then per segment the choice, where it was
+// chosen and its basis; then, when a Decided outcome did not hold every segment, this call's
+// own choice for the rest.
 func (out *Outcome) Write(w io.Writer) {
-	if out.Mode != Auto || len(out.Candidates) < 2 {
+	if out.Mode != Auto || len(out.Candidates) < 2 && out.Fallback == nil {
 		fmt.Fprintf(w, "design %s: %s for every series\n", out.Mode, strings.Join(out.Candidates, ", "))
 		return
 	}
-	fmt.Fprintf(w, "design auto: %d inner-holdout series, %.2f s CPU; budget %.2f ms/series", out.InnerSeries, out.InnerCPU.Seconds(), out.BudgetMillis)
+	out.writeHead(w)
+	for _, ch := range out.Choices {
+		cands := out.Candidates
+		if ch.From == FromShard && out.Fallback != nil {
+			cands = out.Fallback.Candidates
+		}
+		fmt.Fprintf(w, "  %-28s %5d series: %-16s (%s; basis %s, %d inner series", ch.Segment, ch.Series, ch.Design, orShard(ch.From), ch.Basis, ch.Inner)
+		for i, m := range ch.Means {
+			if !math.IsNaN(m) && i < len(cands) {
+				fmt.Fprintf(w, "; %s %.4f (%.4f)", cands[i], m, ch.StdErrs[i])
+			}
+		}
+		fmt.Fprintln(w, ")")
+	}
+	if out.Fallback != nil {
+		fmt.Fprint(w, "  segments the decided design did not hold, chosen here: ")
+		out.Fallback.writeHead(w)
+	}
+}
+
+func orShard(from string) string {
+	if from == "" {
+		return FromShard
+	}
+	return from
+}
+
+// writeHead prints the inner holdout's size and cost and the candidates with their cost.
+func (out *Outcome) writeHead(w io.Writer) {
+	fmt.Fprintf(w, "design auto: %d inner-holdout series, %.2f s CPU", out.InnerSeries, out.InnerCPU.Seconds())
+	if out.SampleSeries > 0 {
+		fmt.Fprintf(w, ", chosen once on a sample of %d series", out.SampleSeries)
+	}
+	fmt.Fprintf(w, "; budget %.2f ms/series", out.BudgetMillis)
 	if len(out.DroppedMembers) > 0 {
 		fmt.Fprintf(w, "; over budget: %s", strings.Join(out.DroppedMembers, ", "))
 	}
 	fmt.Fprintln(w)
 	for i, c := range out.Candidates {
-		fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, out.CostMillis[i])
-	}
-	for _, ch := range out.Choices {
-		fmt.Fprintf(w, "  %-28s %5d series: %-16s (basis %s, %d inner series", ch.Segment, ch.Series, ch.Design, ch.Basis, ch.Inner)
-		for i, m := range ch.Means {
-			if !math.IsNaN(m) {
-				fmt.Fprintf(w, "; %s %.4f (%.4f)", out.Candidates[i], m, ch.StdErrs[i])
-			}
+		cost := math.NaN()
+		if i < len(out.CostMillis) {
+			cost = out.CostMillis[i]
 		}
-		fmt.Fprintln(w, ")")
+		fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, cost)
 	}
 }
 
