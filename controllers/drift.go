@@ -231,3 +231,29 @@ func driftVerdict(sums *forecastingv1alpha1.AccuracySums, spec forecastingv1alph
 		fmt.Sprintf("realized %s %s is %s times the expected %s, within the threshold of %d%%",
 			sums.Metric, acc.Realized, acc.Ratio, acc.Expected, threshold)
 }
+
+// levelDrift applies spec.drift's rule to each hierarchy level of a run on its own: the same
+// driftVerdict (threshold, aggregate and minEvaluatedPoints) over the sums of the level's nodes
+// instead of the run's input series. It returns the portfolio's per-level accuracy, in the
+// run's order (top to bottom), each with its verdict's reason, and, when some level is above
+// the threshold, a message naming every such level with its verdict.
+//
+// The threshold is a fixed ratio, not a test at a false-alarm rate, so judging L levels is not
+// corrected for multiplicity (calibrationVerdict's Bonferroni split has no counterpart here).
+// The bottom level's nodes are the input series, so its verdict is the run's own; the
+// aggregates usually have fewer new actuals than minEvaluatedPoints asks for (the grand total
+// has one node, so horizon-many points a run): such levels say TooFewPoints and are not judged.
+func levelDrift(h *forecastingv1alpha1.HierarchyStatus, spec forecastingv1alpha1.DriftSpec) (levels []forecastingv1alpha1.LevelAccuracy, drifted string) {
+	if h == nil {
+		return nil, ""
+	}
+	var above []string
+	for _, l := range h.Levels {
+		status, reason, message := driftVerdict(l.AccuracySums, spec)
+		levels = append(levels, forecastingv1alpha1.LevelAccuracy{Name: l.Name, Nodes: l.Nodes, Accuracy: l.Accuracy.DeepCopy(), Drift: reason})
+		if status == metav1.ConditionTrue {
+			above = append(above, fmt.Sprintf("level %s: %s", l.Name, message))
+		}
+	}
+	return levels, strings.Join(above, "; ")
+}

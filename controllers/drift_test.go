@@ -2,6 +2,7 @@ package controllers
 
 import (
 	"math"
+	"strings"
 	"testing"
 
 	"github.com/google/go-cmp/cmp"
@@ -172,5 +173,92 @@ func TestDriftVerdict(t *testing.T) {
 				t.Errorf("empty message")
 			}
 		})
+	}
+}
+
+// driftedTree is a run's hierarchy, folded by addLevels from one train summary, whose levels
+// drift differently. Hand-worked (logarithms exact in the sums, as the trainer sends them):
+//   - total: 1 node, 12 new actuals, realized 3 against expected 1 (ratio 3), but 12 < 100
+//     points: TooFewPoints, not judged;
+//   - depot: 20 nodes, 160 points; 10 nodes promised 1 and realized 3 (ratio 3), 10 promised
+//     4 and realized 3 (ratio 0.75). Geometric ratio sqrt(3·0.75) = 1.5 > 1.3: AboveThreshold;
+//     arithmetic ratio 60/50 = 1.2 < 1.3: within under aggregate Mean. Geometric means
+//     exp(10·ln 4/20) = 2 and 3;
+//   - item: 30 nodes, 240 points, every node 1.2 times its promise 1: WithinThreshold;
+//   - item+depot (the input series): 120 nodes, 960 points, as promised: WithinThreshold;
+//   - category: nodes but no evaluation (first run of the level): NotEvaluated.
+func driftedTree(t *testing.T) *forecastingv1alpha1.HierarchyStatus {
+	t.Helper()
+	acc := func(n, points int, exp, real, expLog, realLog float64) *summary.Accuracy {
+		return &summary.Accuracy{Metric: "MASE", Evaluated: n, EvaluatedPoints: points, ExpectedSum: exp, RealizedSum: real,
+			LogEvaluated: n, ExpectedLogSum: expLog, RealizedLogSum: realLog}
+	}
+	h, err := addLevels(nil, []summary.Level{
+		{Name: "total", Nodes: 1, Accuracy: acc(1, 12, 1, 3, 0, math.Log(3))},
+		{Name: "depot", Nodes: 20, Accuracy: acc(20, 160, 50, 60, 10*math.Log(4), 20*math.Log(3))},
+		{Name: "item", Nodes: 30, Accuracy: acc(30, 240, 30, 36, 0, 30*math.Log(1.2))},
+		{Name: "item+depot", Nodes: 120, Accuracy: acc(120, 960, 120, 120, 0, 0)},
+		{Name: "category", Nodes: 5},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	showLevels(h, "fenwick-weekly-2")
+	return h
+}
+
+// TestLevelDrift: spec.drift's rule per level, with its minimum of new actuals and its
+// aggregate, and a message naming the drifted level.
+func TestLevelDrift(t *testing.T) {
+	h := driftedTree(t)
+	spec := forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100}
+	levels, drifted := levelDrift(h, spec)
+	got := map[string]string{}
+	var names []string
+	for _, l := range levels {
+		got[l.Name] = l.Drift
+		names = append(names, l.Name)
+	}
+	want := map[string]string{
+		"total":      forecastingv1alpha1.ReasonTooFewPoints,
+		"category":   forecastingv1alpha1.ReasonNotEvaluated,
+		"depot":      forecastingv1alpha1.ReasonAboveThreshold,
+		"item":       forecastingv1alpha1.ReasonWithinThreshold,
+		"item+depot": forecastingv1alpha1.ReasonWithinThreshold,
+	}
+	if diff := cmp.Diff(want, got); diff != "" {
+		t.Errorf("verdicts (-want,+got):\n%s", diff)
+	}
+	// The run's order, top to bottom by node count.
+	if diff := cmp.Diff([]string{"total", "category", "depot", "item", "item+depot"}, names); diff != "" {
+		t.Errorf("order (-want,+got):\n%s", diff)
+	}
+	wantMsg := "level depot: realized MASE geometric mean 3.0000 is 1.500 times the expected 2.0000 (over 20 series; arithmetic means 3.0000 and 2.5000), above the threshold of 130%; 0 of 20 series drifted"
+	if drifted != wantMsg {
+		t.Errorf("message\n got %s\nwant %s", drifted, wantMsg)
+	}
+	if d := levels[2]; d.Nodes != 20 || d.Accuracy == nil || d.Accuracy.GeometricRatio != "1.500" || d.Accuracy.Run != "fenwick-weekly-2" {
+		t.Errorf("depot level %+v", d)
+	}
+	// The portfolio's copy is its own: changing it leaves the run's status alone.
+	levels[2].Accuracy.Ratio = "9"
+	if h.Levels[2].Accuracy.Ratio != "1.200" {
+		t.Errorf("the run's level accuracy changed to %s", h.Levels[2].Accuracy.Ratio)
+	}
+
+	// Under aggregate Mean the depot level is within (60/50 = 1.2) and nothing drifts.
+	mean := spec
+	mean.Aggregate = forecastingv1alpha1.AggregateMean
+	if levels, drifted := levelDrift(h, mean); drifted != "" || levels[2].Drift != forecastingv1alpha1.ReasonWithinThreshold {
+		t.Errorf("Mean: depot %s, message %q", levels[2].Drift, drifted)
+	}
+	// A lower minimum judges the total too (ratio 3), and both levels are named.
+	few := spec
+	few.MinEvaluatedPoints = 12
+	if _, drifted := levelDrift(h, few); !strings.HasPrefix(drifted, "level total: ") || !strings.Contains(drifted, "; level depot: ") {
+		t.Errorf("minEvaluatedPoints 12: %s", drifted)
+	}
+	if levels, drifted := levelDrift(nil, spec); levels != nil || drifted != "" {
+		t.Errorf("no hierarchy: %v %q", levels, drifted)
 	}
 }

@@ -11,6 +11,12 @@ import (
 	"almanac.dev/almanac/trainer/summary"
 )
 
+// maxHierarchyLevels bounds the levels a run's status holds, and with it the portfolio's
+// status.hierarchyLevels and the almanac_hierarchy_* series (one per level and portfolio): the
+// 8 aggregation levels spec.hierarchy.levels allows (its MaxItems, checked against the CRD in
+// a test) and the implied bottom level.
+const maxHierarchyLevels = 8 + 1
+
 // addLevels folds one source's hierarchy levels (a train shard's or the reconcile step's
 // summary.Levels) into h and returns the new status; h is not modified.
 //
@@ -20,7 +26,8 @@ import (
 // a shard reports its whole sub-trees, the reconcile step the nodes that span shards), so the
 // sums are the level's totals once every source is folded. The folding is all or nothing: an
 // error (a level without a name, one reported twice by the same source, a metric that differs
-// from the one already folded, a sum that is not finite) returns h unchanged with the error.
+// from the one already folded, a sum that is not finite, more than maxHierarchyLevels distinct
+// levels in all) returns h unchanged with the error.
 //
 // The levels are kept ordered by node count, then name: top to bottom, since a level has at
 // most as many nodes as the level below it (a function of the sums only, so also order-free).
@@ -55,6 +62,9 @@ func addLevels(h *forecastingv1alpha1.HierarchyStatus, levels []summary.Level) (
 			}
 			lv.AccuracySums = sums
 		}
+	}
+	if len(out.Levels) > maxHierarchyLevels {
+		return h, fmt.Errorf("%d hierarchy levels, more than the %d a hierarchy has at most (spec.hierarchy.levels and the bottom level)", len(out.Levels), maxHierarchyLevels)
 	}
 	slices.SortFunc(out.Levels, func(a, b forecastingv1alpha1.HierarchyLevelStatus) int {
 		if c := cmp.Compare(a.Nodes, b.Nodes); c != 0 {

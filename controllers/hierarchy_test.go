@@ -7,8 +7,10 @@ import (
 
 	"github.com/google/go-cmp/cmp"
 	corev1 "k8s.io/api/core/v1"
+	"sigs.k8s.io/yaml"
 
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
+	"almanac.dev/almanac/config/crd"
 	"almanac.dev/almanac/trainer/summary"
 )
 
@@ -88,6 +90,8 @@ func TestAddLevelsIsAllOrNothing(t *testing.T) {
 		"negative":     {{Name: "depot", Nodes: -1}},
 		"other metric": {{Name: "item+depot", Nodes: 1}, {Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "RMSSE", Evaluated: 1}}},
 		"not finite":   {{Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 1, ExpectedSum: math.Inf(1)}}},
+		// start holds 2 levels; 8 more names make 10, above maxHierarchyLevels.
+		"too many levels": {{Name: "l1"}, {Name: "l2"}, {Name: "l3"}, {Name: "l4"}, {Name: "l5"}, {Name: "l6"}, {Name: "l7"}, {Name: "l8"}},
 	}
 	for name, levels := range tests {
 		t.Run(name, func(t *testing.T) {
@@ -102,6 +106,45 @@ func TestAddLevelsIsAllOrNothing(t *testing.T) {
 				t.Errorf("the input was modified (-want,+got):\n%s", diff)
 			}
 		})
+	}
+}
+
+// TestAddLevelsTakesTheLargestHierarchy: 7 more names make 9 levels, the most a hierarchy has.
+func TestAddLevelsTakesTheLargestHierarchy(t *testing.T) {
+	start, err := addLevels(nil, hierarchySources()[0])
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := addLevels(start, []summary.Level{{Name: "l1"}, {Name: "l2"}, {Name: "l3"}, {Name: "l4"}, {Name: "l5"}, {Name: "l6"}, {Name: "l7"}})
+	if err != nil || len(got.Levels) != maxHierarchyLevels {
+		t.Errorf("%d levels, %v; want %d", len(got.Levels), err, maxHierarchyLevels)
+	}
+}
+
+// TestMaxHierarchyLevelsIsTheAPIs: the cap is spec.hierarchy.levels' maxItems in the generated
+// CRD plus the implied bottom level.
+func TestMaxHierarchyLevelsIsTheAPIs(t *testing.T) {
+	raw, err := crd.Bases.ReadFile("bases/forecasting.almanac.dev_forecastportfolios.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var doc map[string]any
+	if err := yaml.Unmarshal(raw, &doc); err != nil {
+		t.Fatal(err)
+	}
+	node := any(doc)
+	for _, k := range []string{"spec", "versions", "0", "schema", "openAPIV3Schema", "properties", "spec", "properties", "hierarchy", "properties", "levels", "maxItems"} {
+		switch n := node.(type) {
+		case map[string]any:
+			node = n[k]
+		case []any:
+			node = n[0]
+		default:
+			t.Fatalf("CRD: no %s", k)
+		}
+	}
+	if got, ok := node.(float64); !ok || int(got)+1 != maxHierarchyLevels {
+		t.Errorf("spec.hierarchy.levels maxItems %v; maxHierarchyLevels %d should be it plus 1", node, maxHierarchyLevels)
 	}
 }
 

@@ -51,8 +51,10 @@ type stallCause struct{ Reason, Message string }
 //
 // It returns in the plan:
 //   - the status: active runs, backlog (unfinished shards; planned minus seen series), last
-//     successful run, accuracy of the newest run that evaluated any, and the conditions Ready,
-//     Reconciling, Stalled and AccuracyDrift, each with observedGeneration;
+//     successful run, accuracy of the newest run that evaluated any (per hierarchy level too,
+//     each judged by levelDrift), and the conditions Ready, Reconciling, Stalled and
+//     AccuracyDrift, each with observedGeneration; AccuracyDrift is judged on the input series
+//     first, then on each hierarchy level (LevelAboveThreshold), then on calibration and bias;
 //   - Create: a scheduled run when the most recent schedule time since the last one is due,
 //     within startingDeadlineSeconds, the portfolio is not suspended and no run is active
 //     (at most one catch-up run, however many times were missed); else a drift run when the
@@ -62,7 +64,7 @@ type stallCause struct{ Reason, Message string }
 //     run is created once they have ended (a later reconcile);
 //   - Prune: succeeded and failed runs beyond their history limits, oldest first;
 //   - Events: MissedSchedule, SkippedForbidden (once per due time), ReplacingRuns, RunCreated,
-//     AboveThreshold and the Stalled reasons (once per message);
+//     the AccuracyDrift reasons when it turns True, and the Stalled reasons (once per message);
 //   - RequeueAfter: until the next schedule time (or the drift cooldown's end).
 func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecastingv1alpha1.ForecastRun, now time.Time, blocked stallCause) portfolioPlan {
 	st := fp.Status.DeepCopy()
@@ -102,6 +104,12 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 	if evaluated != nil {
 		st.Accuracy = evaluated.Status.Accuracy.DeepCopy()
 		driftStatus, driftReason, driftMessage = driftVerdict(evaluated.Status.AccuracySums, fp.Spec.Drift)
+		var levelsAbove string
+		st.HierarchyLevels, levelsAbove = levelDrift(evaluated.Status.Hierarchy, fp.Spec.Drift)
+		if driftStatus != metav1.ConditionTrue && levelsAbove != "" {
+			driftStatus, driftReason, driftMessage = metav1.ConditionTrue, forecastingv1alpha1.ReasonLevelAboveThreshold,
+				fmt.Sprintf("%s; input series: %s", levelsAbove, driftMessage)
+		}
 		if driftStatus != metav1.ConditionTrue {
 			if fired, reason, message := calibrationVerdict(evaluated.Status.CalibrationSums, fp.Spec.Drift); fired {
 				driftStatus, driftReason, driftMessage = metav1.ConditionTrue, reason, message

@@ -1,6 +1,7 @@
 package controllers
 
 import (
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -322,5 +323,72 @@ func TestPlanPortfolioDriftRun(t *testing.T) {
 				t.Errorf("drift run %+v, lastDriftRunTime %v", p.Create.Spec, p.Status.LastDriftRunTime)
 			}
 		})
+	}
+}
+
+// TestPlanPortfolioLevelDrift: a run whose input series are within the threshold but whose
+// depot totals are above it (driftedTree) makes AccuracyDrift True with LevelAboveThreshold,
+// names the level, emits the reason once, starts a drift run under Retrain, and shows every
+// level's verdict in status.hierarchyLevels; the run's own drift still wins.
+func TestPlanPortfolioLevelDrift(t *testing.T) {
+	t0 := time.Date(2026, 12, 1, 6, 0, 0, 0, time.UTC)
+	run := runAt("fenwick-weekly-29933550", t0.Add(-time.Hour), "ok", t0)
+	run.Status.Hierarchy = driftedTree(t)
+	// The input series are the bottom level: the run's sums are that level's.
+	run.Status.AccuracySums = run.Status.Hierarchy.Levels[4].AccuracySums.DeepCopy()
+	run.Status.Accuracy = accuracyStatus(run.Status.AccuracySums, run.Name)
+	fp := fenwickPortfolio()
+	fp.Spec.Source.CredentialsSecretRef = nil
+	fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, Action: forecastingv1alpha1.DriftRetrain}
+	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+
+	p := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run}, t0.Add(time.Minute), stallCause{})
+	c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
+	if c == nil || c.Status != metav1.ConditionTrue || c.Reason != forecastingv1alpha1.ReasonLevelAboveThreshold {
+		t.Fatalf("AccuracyDrift = %+v, want True/LevelAboveThreshold", c)
+	}
+	if !strings.HasPrefix(c.Message, "run fenwick-weekly-29933550: level depot: realized MASE geometric mean 3.0000 is 1.500 times") ||
+		!strings.Contains(c.Message, "; input series: realized MASE geometric mean 1.0000 is 1.000 times the expected 1.0000") {
+		t.Errorf("message %q", c.Message)
+	}
+	if got := eventReasons(p); !slices.Contains(got, forecastingv1alpha1.ReasonLevelAboveThreshold) || p.Create == nil || p.Create.Spec.Trigger != forecastingv1alpha1.TriggerDrift {
+		t.Errorf("events %v, run %+v; want LevelAboveThreshold and a drift run", got, p.Create)
+	}
+	var verdicts []string
+	for _, l := range p.Status.HierarchyLevels {
+		verdicts = append(verdicts, l.Name+"="+l.Drift)
+	}
+	want := []string{"total=TooFewPoints", "category=NotEvaluated", "depot=AboveThreshold", "item=WithinThreshold", "item+depot=WithinThreshold"}
+	if diff := cmp.Diff(want, verdicts); diff != "" {
+		t.Errorf("hierarchyLevels (-want,+got):\n%s", diff)
+	}
+	if d := p.Status.HierarchyLevels[2]; d.Nodes != 20 || d.Accuracy.ExpectedGeometric != "2.0000" || d.Accuracy.RealizedGeometric != "3.0000" {
+		t.Errorf("depot %+v", d)
+	}
+
+	// The condition already True: no second Event.
+	fp.Status = *p.Status
+	if again := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run}, t0.Add(2*time.Minute), stallCause{}); slices.Contains(eventReasons(again), forecastingv1alpha1.ReasonLevelAboveThreshold) {
+		t.Errorf("LevelAboveThreshold emitted again: %v", eventReasons(again))
+	}
+
+	// The input series above the threshold too: the run's reason wins.
+	worse := run.DeepCopy()
+	worse.Status.AccuracySums.RealizedSum = "240"
+	worse.Status.AccuracySums.RealizedLogSum = "120"
+	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+	p = planPortfolio(fp, []forecastingv1alpha1.ForecastRun{*worse}, t0.Add(time.Minute), stallCause{})
+	if c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift); c.Reason != forecastingv1alpha1.ReasonAboveThreshold {
+		t.Errorf("input series above the threshold: reason %s", c.Reason)
+	}
+
+	// A run without a hierarchy clears the levels.
+	flat := runAt("fenwick-weekly-29933610", t0, "ok", t0.Add(time.Hour))
+	flat.Status.AccuracySums = run.Status.AccuracySums.DeepCopy()
+	flat.Status.Accuracy = accuracyStatus(flat.Status.AccuracySums, flat.Name)
+	fp.Status = *p.Status
+	p = planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run, flat}, t0.Add(2*time.Hour), stallCause{})
+	if p.Status.HierarchyLevels != nil || meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift).Status != metav1.ConditionFalse {
+		t.Errorf("after a run without levels: %+v", p.Status.HierarchyLevels)
 	}
 }

@@ -900,6 +900,9 @@ const (
 	ReasonWithinThreshold = "WithinThreshold"
 	ReasonAboveThreshold  = "AboveThreshold"
 	ReasonTooFewPoints    = "TooFewPoints"
+	// ReasonLevelAboveThreshold: the run as a whole is within spec.drift.thresholdPercent,
+	// but the nodes of some hierarchy level are above it (status.hierarchyLevels).
+	ReasonLevelAboveThreshold = "LevelAboveThreshold"
 	// ReasonCalibrationOff: the published quantiles covered the new actuals more or less
 	// often than their levels by more than the binomial tolerance.
 	ReasonCalibrationOff = "CalibrationOff"
@@ -958,9 +961,38 @@ type ForecastPortfolioStatus struct {
 	// +optional
 	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
 
+	// hierarchyLevels is expected vs realized accuracy per hierarchy level (portfolios with
+	// spec.hierarchy), from the same run as accuracy, top to bottom, with spec.drift's verdict
+	// on each level alone. At most 9 entries: the 8 levels spec.hierarchy allows and the
+	// bottom level.
+	// +optional
+	// +listType=map
+	// +listMapKey=name
+	HierarchyLevels []LevelAccuracy `json:"hierarchyLevels,omitempty"`
+
 	// lastDriftRunTime is when the last drift-triggered run was started (for the cooldown).
 	// +optional
 	LastDriftRunTime *metav1.Time `json:"lastDriftRunTime,omitempty"`
+}
+
+// LevelAccuracy is one hierarchy level's accuracy as a run measured it on the previous run's
+// forecasts of the level's nodes, and the drift verdict on it.
+type LevelAccuracy struct {
+	// name of the level, as the outputs' hierarchy_level column names it (e.g. total, depot,
+	// item+depot).
+	Name string `json:"name"`
+	// nodes is how many nodes (series) of the level the run forecast.
+	Nodes int64 `json:"nodes"`
+	// accuracy compares the promised (backtest) and realized errors of the level's evaluated
+	// nodes: metric, expected, realized, ratio and the geometric means, as status.accuracy.
+	// +optional
+	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`
+	// drift is spec.drift's rule (threshold, aggregate, minEvaluatedPoints) applied to this
+	// level's nodes alone: AboveThreshold, WithinThreshold, TooFewPoints or NotEvaluated. A
+	// level above the threshold makes AccuracyDrift True with reason LevelAboveThreshold
+	// unless the run as a whole already is above it.
+	// +optional
+	Drift string `json:"drift,omitempty"`
 }
 
 // Backlog is the work still to do.
