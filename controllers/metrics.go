@@ -27,6 +27,11 @@ type Metrics struct {
 	promised      *prometheus.GaugeVec
 	bias          *prometheus.GaugeVec
 	movement      *prometheus.GaugeVec
+	levelExp      *prometheus.GaugeVec
+	levelReal     *prometheus.GaugeVec
+	levelExpGeo   *prometheus.GaugeVec
+	levelRealGeo  *prometheus.GaugeVec
+	levelDrift    *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
 	seriesDone    *prometheus.GaugeVec
@@ -97,6 +102,26 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_forecast_movement",
 			Help: "Mean |new - previous forecast| / scale over the periods both the portfolio's last evaluated run and its previous run forecast (MASE units).",
 		}, []string{"namespace", "portfolio"}),
+		levelExp: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_accuracy_expected",
+			Help: "Mean backtest error the nodes of one hierarchy level promised, as of the portfolio's last evaluated run, in its metric (status.hierarchyLevels).",
+		}, []string{"namespace", "portfolio", "hierarchy_level", "metric"}),
+		levelReal: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_accuracy_realized",
+			Help: "Mean error the nodes of one hierarchy level realized on new actuals, as of the portfolio's last evaluated run, in its metric.",
+		}, []string{"namespace", "portfolio", "hierarchy_level", "metric"}),
+		levelExpGeo: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_accuracy_expected_geometric",
+			Help: "Geometric mean backtest error the nodes of one hierarchy level promised (nodes with both errors above 0).",
+		}, []string{"namespace", "portfolio", "hierarchy_level", "metric"}),
+		levelRealGeo: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_accuracy_realized_geometric",
+			Help: "Geometric mean error the nodes of one hierarchy level realized on new actuals; drift judges realized/expected of these per level by default.",
+		}, []string{"namespace", "portfolio", "hierarchy_level", "metric"}),
+		levelDrift: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_accuracy_drift",
+			Help: "spec.drift's rule on one hierarchy level's nodes alone: 1 above the threshold, 0 within; absent while the level is not judged (too few new actuals, none evaluated).",
+		}, []string{"namespace", "portfolio", "hierarchy_level"}),
 		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_portfolio_condition",
 			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
@@ -126,7 +151,8 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Help: "Running train shards of an active run with no progress for the portfolio's spec.sharding.stallAfterSeconds.",
 		}, []string{"namespace", "portfolio", "run"}),
 	}
-	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement, m.conditions, m.missed,
+	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement,
+		m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift, m.conditions, m.missed,
 		m.seriesDone, m.seriesPlanned, m.seriesRate, m.remaining, m.stalled} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
@@ -230,6 +256,40 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 	}
 	if v, err := strconv.ParseFloat(acc.Movement, 64); err == nil {
 		m.movement.WithLabelValues(namespace, portfolio).Set(v)
+	}
+}
+
+// levels sets a portfolio's per-level accuracy gauges from status.hierarchyLevels (nil: drop
+// them). The series are apart from the run-level almanac_accuracy_* ones, not those with a
+// level label, so that a selector of one portfolio's run-level accuracy keeps matching one
+// series; their label is hierarchy_level (the tables' column) because level already means a
+// quantile's probability on almanac_quantile_coverage. At most maxHierarchyLevels levels
+// (addLevels refuses more), so at most 9 series of each name per portfolio.
+func (m *Metrics) levels(namespace, portfolio string, levels []forecastingv1alpha1.LevelAccuracy) {
+	if m == nil {
+		return
+	}
+	labels := prometheus.Labels{"namespace": namespace, "portfolio": portfolio}
+	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift} {
+		g.DeletePartialMatch(labels)
+	}
+	for _, l := range levels[:min(len(levels), maxHierarchyLevels)] {
+		switch l.Drift {
+		case forecastingv1alpha1.ReasonAboveThreshold:
+			m.levelDrift.WithLabelValues(namespace, portfolio, l.Name).Set(1)
+		case forecastingv1alpha1.ReasonWithinThreshold:
+			m.levelDrift.WithLabelValues(namespace, portfolio, l.Name).Set(0)
+		}
+		acc := l.Accuracy
+		if acc == nil {
+			continue
+		}
+		lv := []string{namespace, portfolio, l.Name, string(acc.Metric)}
+		for g, v := range map[*prometheus.GaugeVec]string{m.levelExp: acc.Expected, m.levelReal: acc.Realized, m.levelExpGeo: acc.ExpectedGeometric, m.levelRealGeo: acc.RealizedGeometric} {
+			if f, err := strconv.ParseFloat(v, 64); err == nil {
+				g.WithLabelValues(lv...).Set(f)
+			}
+		}
 	}
 }
 

@@ -117,3 +117,57 @@ func TestPortfolioStateMetrics(t *testing.T) {
 		}
 	}
 }
+
+// TestLevelMetrics: the per-level series from status.hierarchyLevels (driftedTree's
+// hand-worked values), a drift series only for judged levels, all gone with the portfolio.
+func TestLevelMetrics(t *testing.T) {
+	m, err := NewMetrics(prometheus.NewRegistry())
+	if err != nil {
+		t.Fatal(err)
+	}
+	levels, _ := levelDrift(driftedTree(t), forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100})
+	m.levels("planning", "fenwick-weekly", levels)
+	for _, tc := range []struct {
+		g     *prometheus.GaugeVec
+		level string
+		want  float64
+	}{
+		{m.levelExp, "depot", 2.5}, {m.levelReal, "depot", 3}, {m.levelExpGeo, "depot", 2}, {m.levelRealGeo, "depot", 3},
+		{m.levelExp, "total", 1}, {m.levelReal, "total", 3}, {m.levelRealGeo, "item", 1.2},
+	} {
+		if got := testutil.ToFloat64(tc.g.WithLabelValues("planning", "fenwick-weekly", tc.level, "MASE")); got != tc.want {
+			t.Errorf("%s level %s = %v, want %v", describe(tc.g), tc.level, got, tc.want)
+		}
+	}
+	for level, want := range map[string]float64{"depot": 1, "item": 0, "item+depot": 0} {
+		if got := testutil.ToFloat64(m.levelDrift.WithLabelValues("planning", "fenwick-weekly", level)); got != want {
+			t.Errorf("drift of %s = %v, want %v", level, got, want)
+		}
+	}
+	// total (TooFewPoints) and category (NotEvaluated) are not judged: no drift series; category
+	// has no accuracy either: 4 levels with accuracy.
+	if n := testutil.CollectAndCount(m.levelDrift); n != 3 {
+		t.Errorf("%d level drift series, want 3", n)
+	}
+	if n := testutil.CollectAndCount(m.levelExp); n != 4 {
+		t.Errorf("%d level expected series, want 4", n)
+	}
+	// A later status with fewer levels replaces the series.
+	m.levels("planning", "fenwick-weekly", levels[2:3])
+	if n := testutil.CollectAndCount(m.levelExp) + testutil.CollectAndCount(m.levelDrift); n != 2 {
+		t.Errorf("%d series after one level remained, want 2", n)
+	}
+	m.levels("planning", "fenwick-weekly", nil)
+	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift} {
+		if n := testutil.CollectAndCount(g); n != 0 {
+			t.Errorf("%s: %d series after the portfolio went away", describe(g), n)
+		}
+	}
+}
+
+// describe names a collector for a test message.
+func describe(c prometheus.Collector) string {
+	ch := make(chan *prometheus.Desc, 1)
+	c.Describe(ch)
+	return (<-ch).String()
+}

@@ -42,6 +42,7 @@ func (r *PortfolioReconciler) Reconcile(ctx context.Context, req reconcile.Reque
 	if err := r.Get(ctx, req.NamespacedName, &fp); err != nil {
 		if apierrors.IsNotFound(err) {
 			r.Metrics.accuracy(req.Namespace, req.Name, nil)
+			r.Metrics.levels(req.Namespace, req.Name, nil)
 			r.Metrics.portfolioGone(req.Namespace, req.Name)
 		}
 		return reconcile.Result{}, client.IgnoreNotFound(err)
@@ -71,6 +72,7 @@ func (r *PortfolioReconciler) Reconcile(ctx context.Context, req reconcile.Reque
 		r.Recorder.Eventf(&fp, nil, e.kind, e.reason, e.reason, "%s", e.note)
 	}
 	r.Metrics.accuracy(fp.Namespace, fp.Name, fp.Status.Accuracy)
+	r.Metrics.levels(fp.Namespace, fp.Name, fp.Status.HierarchyLevels)
 	r.Metrics.portfolioState(fp.Namespace, fp.Name, fp.Status.Conditions, p.Missed, p.MissedDue)
 	return reconcile.Result{RequeueAfter: p.RequeueAfter}, nil
 }

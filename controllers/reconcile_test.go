@@ -1,6 +1,7 @@
 package controllers
 
 import (
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -142,6 +143,64 @@ var _ = Describe("ForecastRun reconcile step", func() {
 				Expect(os.WriteFile(filepath.Join("testdata", "kubectl-get-hierarchy.txt"), []byte(golden.String()), 0o644)).To(Succeed())
 			}
 		}
+	})
+
+	It("shows the published run's accuracy per level on the portfolio and in the metrics, and calls drift on a level", func() {
+		ns := newNamespace()
+		createSecret(ns)
+		// minEvaluatedPoints 10: the grand total (1 node, 7 new actuals) is not judged.
+		testPortfolio(ns, "fenwick-levels", yearly, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 10}
+		})
+		manualRun(ns, "fenwick-levels-1", "fenwick-levels")
+		trainHierarchy(ns, "fenwick-levels-1")
+		succeedSingle(ns, "fenwick-levels-1", stepReconcile, reconcileSummary())
+		succeedSingle(ns, "fenwick-levels-1", stepPublish, summary.Summary{Kind: summary.KindPublish})
+		Eventually(phaseOf(ns, "fenwick-levels-1")).Should(Equal(forecastingv1alpha1.PhaseSucceeded))
+
+		// The input series as a whole (shardSummary: geometric ratio 0.6/0.5 = 1.2) are within
+		// 130%; the depot totals and the item+depot nodes of hierarchySources realize twice
+		// their promise (geometric ratio 2 on 14 and 35 new actuals).
+		fp := getPortfolio(ns, "fenwick-levels")
+		Eventually(conditionOf(fp, forecastingv1alpha1.PortfolioAccuracyDrift)).Should(Equal("True/LevelAboveThreshold"))
+		c := meta.FindStatusCondition(getPortfolio(ns, "fenwick-levels").Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
+		Expect(c.Message).To(And(HavePrefix("run fenwick-levels-1: level depot: realized MASE geometric mean 0.2000 is 2.000 times the expected 0.1000"),
+			ContainSubstring("; level item+depot: realized MASE geometric mean 0.2000 is 2.000 times"),
+			ContainSubstring("; input series: realized MASE geometric mean 0.6000 is 1.200 times the expected 0.5000"),
+			Not(ContainSubstring("level total"))))
+		Eventually(eventReasonsFor(ns, "fenwick-levels")).Should(ContainElement(forecastingv1alpha1.ReasonLevelAboveThreshold))
+		levels := getPortfolio(ns, "fenwick-levels").Status.HierarchyLevels
+		verdicts := map[string]string{}
+		for _, l := range levels {
+			verdicts[l.Name] = fmt.Sprintf("%d %s", l.Nodes, l.Drift)
+		}
+		Expect(verdicts).To(Equal(map[string]string{"total": "1 TooFewPoints", "depot": "3 AboveThreshold", "item": "3 NotEvaluated", "item+depot": "9 AboveThreshold"}))
+		Expect(levels[0].Name).To(Equal("total"))
+		Expect(levels[0].Accuracy.Run).To(Equal("fenwick-levels-1"))
+
+		labels := fmt.Sprintf(`namespace=%q,portfolio="fenwick-levels"`, ns)
+		Eventually(current.scrape).Should(And(
+			ContainSubstring(`almanac_hierarchy_accuracy_drift{hierarchy_level="depot",`+labels+`} 1`),
+			ContainSubstring(`almanac_hierarchy_accuracy_drift{hierarchy_level="item+depot",`+labels+`} 1`),
+			ContainSubstring(`almanac_hierarchy_accuracy_realized{hierarchy_level="depot",metric="MASE",`+labels+`} 0.2`),
+			ContainSubstring(`almanac_hierarchy_accuracy_expected_geometric{hierarchy_level="total",metric="MASE",`+labels+`} 0.5`),
+			ContainSubstring(`almanac_portfolio_condition{`+labels+`,reason="LevelAboveThreshold",type="AccuracyDrift"} 1`)))
+		Expect(current.scrape()).NotTo(Or(ContainSubstring(`almanac_hierarchy_accuracy_drift{hierarchy_level="total",`+labels),
+			ContainSubstring(`almanac_hierarchy_accuracy_expected{hierarchy_level="item",`)))
+
+		var golden strings.Builder
+		if _, err := exec.LookPath(kubectlPath()); err == nil {
+			out := kubectl(&golden, "get", "fp", "fenwick-levels", "-n", ns, "-o",
+				`jsonpath={range .status.hierarchyLevels[*]}{.name}{"\t"}{.nodes}{"\t"}{.accuracy.expectedGeometric}{"\t"}{.accuracy.realizedGeometric}{"\t"}{.drift}{"\n"}{end}`)
+			Expect(out).To(Equal("total\t1\t0.5000\t0.5000\tTooFewPoints\ndepot\t3\t0.1000\t0.2000\tAboveThreshold\nitem\t3\t\t\tNotEvaluated\nitem+depot\t9\t0.1000\t0.2000\tAboveThreshold\n"))
+			if os.Getenv("ALMANAC_UPDATE_GOLDEN") == "1" {
+				Expect(os.WriteFile(filepath.Join("testdata", "kubectl-get-levels.txt"), []byte(golden.String()), 0o644)).To(Succeed())
+			}
+		}
+
+		By("deleting the portfolio drops its per-level series")
+		Expect(k8sClient.Delete(ctx(), getPortfolio(ns, "fenwick-levels"))).To(Succeed())
+		Eventually(current.scrape).ShouldNot(ContainSubstring(`almanac_hierarchy_accuracy_drift{hierarchy_level="depot",` + labels))
 	})
 
 	It("fails the run with the trainer's own error when the reconcile step fails, and never publishes", func() {
