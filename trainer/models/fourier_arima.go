@@ -23,8 +23,8 @@ import (
 // non-integer periods such as 365.25 and 52.18 are used as they are), keeping those with at least
 // two full cycles in the data.
 //
-// Estimation, in two stages (documented departures from R's auto.arima(y, xreg = fourier(...)),
-// which estimates the coefficients jointly with the ARIMA errors by maximum likelihood):
+// Estimation, in three stages (R's auto.arima(y, xreg = fourier(...)) estimates the
+// coefficients jointly with the ARIMA errors by maximum likelihood for every order it tries):
 //
 //  1. K_i per period by AICc of the least-squares regression of y on an intercept and the
 //     terms, coordinate-wise: periods shortest first, each K_i from 0 to min(floor(p_i/2),
@@ -32,11 +32,17 @@ import (
 //     n log(RSS/n) + 2(k+1) + 2(k+1)(k+2)/(n-k-2) with k regression coefficients (Hurvich &
 //     Tsai 1989). Choosing K by AICc is what FPP2 section 11.1 does; there the AICc is the
 //     full model's, which costs one ARIMA search per K.
-//  2. The coefficients by that regression, then the ARIMA search (SelectARIMA, m = 1) on
-//     e_t = y_t - (the Fourier part), which keeps the intercept so that the search decides
-//     the mean, differencing and drift. Forecasts add the Fourier part ahead to the ARIMA
-//     forecast of e; the intervals are the ARIMA's (the coefficients' uncertainty is ignored,
-//     as R's forecast.Arima does for xreg).
+//  2. The ARIMA order by the search (SelectARIMA, m = 1) on e_t = y_t - (the least-squares
+//     Fourier part), which keeps the intercept so that the search decides the mean,
+//     differencing and drift. Departure from R: the order is chosen on the least-squares
+//     remainder, not with the coefficients re-estimated for every candidate order.
+//  3. The Fourier and ARIMA coefficients of that order jointly (refineJoint: iterated
+//     feasible generalised least squares, kept only while the likelihood rises). At R's own
+//     order this reproduces R's estimates to 0.1% (test/reference); on the M4 hourly
+//     development half it cut this member's MASE from 1.630 to 1.472 at 1.17x its CPU.
+//
+// Forecasts add the Fourier part ahead to the ARIMA forecast of e; the intervals are the
+// ARIMA's (the coefficients' uncertainty is ignored, as R's forecast.Arima does for xreg).
 //
 // Checked against R's auto.arima with fourier regressors in test/reference.
 const FamilyFourierARIMA = "FourierARIMA"
@@ -105,10 +111,7 @@ func (m *fourierARIMAModel) fit(y []float64, periods []float64) (Fitted, error) 
 				return nil, fmt.Errorf("models: %s: %w", m.spec.DisplayName(), err)
 			}
 			out.coef = coef[1:]
-			e = make([]float64, n)
-			for t := range e {
-				e[t] = y[t] - out.seasonal(float64(t+1))
-			}
+			e = out.remainder(y)
 		}
 	}
 	a, err := m.arima.Fit(e, 1)
@@ -116,7 +119,154 @@ func (m *fourierARIMAModel) fit(y []float64, periods []float64) (Fitted, error) 
 		return nil, fmt.Errorf("models: %s: errors: %w", m.spec.DisplayName(), err)
 	}
 	out.arima = a
+	if af, ok := a.(*ARIMAFit); ok && len(out.terms) > 0 {
+		out.coef, out.arima = refineJoint(y, out.terms, out.coef, af)
+	}
 	return out, nil
+}
+
+// FitFourierARIMA fits the dynamic harmonic regression with the given periods, pairs per
+// period (K[i] may be 0) and ARIMA order of the errors, instead of the family's choices: the
+// least-squares start, the order's maximum-likelihood fit on the remainder, then refineJoint.
+// It is the family's estimator at a fixed specification (reference checks and studies).
+func FitFourierARIMA(y []float64, periods []float64, K []int, o ARIMAOrder) (Fitted, error) {
+	if len(periods) != len(K) {
+		return nil, fmt.Errorf("models: %s: %d periods but %d pair counts", FamilyFourierARIMA, len(periods), len(K))
+	}
+	out := &fourierARIMAFit{periods: periods, K: K, n: len(y)}
+	terms, err := fourier.Terms(periods, K)
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: %w", FamilyFourierARIMA, err)
+	}
+	out.terms = terms
+	e := y
+	if len(terms) > 0 {
+		coef, _, err := harmonicOLS(y, terms)
+		if err != nil {
+			return nil, fmt.Errorf("models: %s: %w", FamilyFourierARIMA, err)
+		}
+		if coef == nil {
+			return nil, fmt.Errorf("models: %s: %d observations for %d regressors: %w", FamilyFourierARIMA, len(y), len(terms)+1, ErrTooShort)
+		}
+		out.coef = coef[1:]
+		e = out.remainder(y)
+	}
+	a, err := FitARIMA(e, 1, o)
+	if err != nil {
+		return nil, fmt.Errorf("models: %s: errors: %w", FamilyFourierARIMA, err)
+	}
+	out.arima = a
+	if len(terms) > 0 {
+		out.coef, out.arima = refineJoint(y, terms, out.coef, a)
+	}
+	return out, nil
+}
+
+// jointRounds bounds the rounds of refineJoint (each costs one ARIMA fit of a known order and
+// one Kalman pass per regressor; two rounds reach the fixtures' joint estimates, see
+// test/reference).
+const jointRounds = 3
+
+// refineJoint moves the Fourier coefficients beta and the ARIMA coefficients toward their
+// joint maximum-likelihood estimate for the order chosen on the least-squares remainder, as
+// R's arima with xreg estimates them, by iterated feasible generalised least squares (the
+// Cochrane-Orcutt iteration generalised to ARMA errors; Brockwell & Davis, Introduction to Time
+// Series and Forecasting, 2nd ed., section 6.6, from memory). One round:
+//
+//  1. Prewhiten y and every regressor x_j with the current ARMA coefficients: v(x) are the
+//     Kalman innovations of x differenced as the order says, under the order without its
+//     constant (ARIMAAt); v is linear in x.
+//  2. Regress v(y) on the v(x_j) and, when the order has a constant, on v(1) (the mean, d = 0)
+//     or v(t) (the drift, d = 1): the generalised least-squares estimate of beta. Departure
+//     from exact GLS: the innovations are not divided by sqrt(F_t); F_t reaches its steady
+//     value 1 within the first few steps of the filter, so only those weigh differently.
+//  3. Refit the order on e = y - X beta (FitARIMA).
+//
+// A round is kept only if the log-likelihood of the refit is higher than the current one's.
+// That compares likelihoods of y itself (e is y less a fixed function of t, Jacobian 1), so
+// the result is never worse in likelihood than the two-stage start; the loop stops at the first
+// round that does not gain 1e-6.
+func refineJoint(y []float64, terms []fourier.Term, beta []float64, a *ARIMAFit) ([]float64, Fitted) {
+	n, o := len(y), a.Order()
+	white := o
+	white.Constant = false
+	cols := make([][]float64, 0, len(terms)+1)
+	for _, term := range terms {
+		x := make([]float64, n)
+		for t := range x {
+			x[t] = term.At(float64(t + 1))
+		}
+		cols = append(cols, x)
+	}
+	if o.Constant {
+		x := make([]float64, n)
+		for t := range x {
+			x[t] = 1
+			if o.D == 1 {
+				x[t] = float64(t + 1)
+			}
+		}
+		cols = append(cols, x)
+	}
+	prewhiten := func(c ARIMACoef, x []float64) []float64 {
+		f, err := ARIMAAt(x, 1, white, c)
+		if err != nil {
+			return nil
+		}
+		return f.Residuals()
+	}
+	best, bestFit := beta, a
+	for round := 0; round < jointRounds; round++ {
+		c := bestFit.Coef()
+		c.Constant = 0
+		vy := prewhiten(c, y)
+		if vy == nil {
+			break
+		}
+		X := mat.NewDense(len(vy), len(cols), nil)
+		ok := true
+		for j, x := range cols {
+			v := prewhiten(c, x)
+			if len(v) != len(vy) {
+				ok = false
+				break
+			}
+			X.SetCol(j, v)
+		}
+		var b mat.VecDense
+		if !ok || b.SolveVec(X, mat.NewVecDense(len(vy), vy)) != nil {
+			break
+		}
+		next := make([]float64, len(terms))
+		for j := range next {
+			next[j] = b.AtVec(j)
+			if math.IsNaN(next[j]) || math.IsInf(next[j], 0) {
+				ok = false
+			}
+		}
+		if !ok {
+			break
+		}
+		e := make([]float64, n)
+		for t := range e {
+			e[t] = y[t] - dot(next, terms, float64(t+1))
+		}
+		f, err := FitARIMA(e, 1, o)
+		if err != nil || !(f.LogLik() > bestFit.LogLik()+1e-6) {
+			break
+		}
+		best, bestFit = next, f
+	}
+	return best, bestFit
+}
+
+// dot is sum_j beta_j x_j(t).
+func dot(beta []float64, terms []fourier.Term, t float64) float64 {
+	s := 0.0
+	for j, term := range terms {
+		s += beta[j] * term.At(t)
+	}
+	return s
 }
 
 // checkPeriods validates Spec.SeasonalPeriods.
@@ -210,11 +360,7 @@ func (f *fourierARIMAFit) Update(y []float64) (Fitted, error) {
 	if !ok {
 		return nil, fmt.Errorf("models: %s: the ARIMA fit cannot be updated", FamilyFourierARIMA)
 	}
-	e := make([]float64, len(y))
-	for t := range e {
-		e[t] = y[t] - f.seasonal(float64(t+1))
-	}
-	a, err := u.Update(e)
+	a, err := u.Update(f.remainder(y))
 	if err != nil {
 		return nil, err
 	}
@@ -224,12 +370,15 @@ func (f *fourierARIMAFit) Update(y []float64) (Fitted, error) {
 }
 
 // seasonal is the Fourier part at time t (1-based).
-func (f *fourierARIMAFit) seasonal(t float64) float64 {
-	s := 0.0
-	for j, term := range f.terms {
-		s += f.coef[j] * term.At(t)
+func (f *fourierARIMAFit) seasonal(t float64) float64 { return dot(f.coef, f.terms, t) }
+
+// remainder is y less the Fourier part, at t = 1..len(y).
+func (f *fourierARIMAFit) remainder(y []float64) []float64 {
+	e := make([]float64, len(y))
+	for t := range e {
+		e[t] = y[t] - f.seasonal(float64(t+1))
 	}
-	return s
+	return e
 }
 
 // Name is "Fourier(p1:K1,p2:K2)+ARIMA(...)".
