@@ -23,11 +23,23 @@ type moments struct {
 	count []int       // non-NaN residuals per node
 	ms    []float64   // σ̂²_i = Σ_t e_it² / count_i, floored at varianceFloor × mean
 	min   int         // node with the fewest residuals
+	// note says how many nodes had their variance imputed (see newMoments); empty if none.
+	note string
 }
 
 // newMoments checks residuals' shape (one row per node, equal lengths, no Inf) and returns
-// their moments, or a note saying why they cannot weight the reconciliation (a node with fewer
-// than 2 residuals, or no non-zero residual at all).
+// their moments, or a note saying why they cannot weight the reconciliation (no node with 2
+// residuals, or no non-zero residual at all).
+//
+// A node with fewer than 2 residuals (a series too short to backtest, a fallback model) is
+// weighted as the least trusted node per bottom series and uncorrelated with the rest:
+//
+//	σ̂²_i = s_i · max_j (σ̂²_j / s_j)   over the nodes j with 2 or more residuals
+//
+// s_i being the number of bottom series under node i (structural scaling's diag(S 1)): a node
+// the data say nothing about is trusted no more than the worst node measured, size for size
+// (this project's rule: it keeps one new series from sending the whole tree to Structural). Its
+// residuals are then ignored (count 0, no covariance).
 func newMoments(h Hierarchy, residuals [][]float64) (*moments, string, error) {
 	n := h.Nodes()
 	if len(residuals) != n {
@@ -51,19 +63,47 @@ func newMoments(h Hierarchy, residuals [][]float64) (*moments, string, error) {
 				mo.count[i]++
 			}
 		}
-		if mo.count[i] < mo.count[mo.min] {
-			mo.min = i
-		}
 		if mo.count[i] > 0 {
 			mo.ms[i] = ss / float64(mo.count[i])
+		}
+	}
+	size := func(i int) float64 {
+		if i < len(h.Sums) {
+			return float64(len(h.Sums[i]))
+		}
+		return 1
+	}
+	var worst float64 // max σ̂²_j / s_j over the measured nodes
+	var few []int
+	for i := range residuals {
+		if mo.count[i] < 2 {
+			few = append(few, i)
+			continue
+		}
+		worst = math.Max(worst, mo.ms[i]/size(i))
+	}
+	if len(few) == n {
+		return nil, fmt.Sprintf("%s has %d residuals, fewer than 2", h.node(few[0]), mo.count[few[0]]), nil
+	}
+	if len(few) > 0 {
+		mo.e = append([][]float64(nil), residuals...)
+		empty := make([]float64, T)
+		for t := range empty {
+			empty[t] = math.NaN()
+		}
+		for _, i := range few {
+			mo.e[i], mo.count[i], mo.ms[i] = empty, 0, worst*size(i)
+		}
+		mo.note = fmt.Sprintf("%d nodes with fewer than 2 residuals (first %s) weighted as the least trusted node per bottom series", len(few), h.node(few[0]))
+	}
+	for i := range residuals {
+		if mo.count[i] < mo.count[mo.min] {
+			mo.min = i
 		}
 		if mo.ms[i] > 0 {
 			sum += mo.ms[i]
 			positive++
 		}
-	}
-	if c := mo.count[mo.min]; c < 2 {
-		return nil, fmt.Sprintf("%s has %d residuals, fewer than 2", h.node(mo.min), c), nil
 	}
 	if positive == 0 {
 		return nil, "every residual is zero", nil
@@ -166,7 +206,7 @@ func cross(x, y []float64) (float64, int) {
 
 // residualWeight returns the weight of a residual-based method, the method that will run, its
 // λ (NaN unless MinTShrink) and a note on any fallback taken before solving: to Structural when
-// the residuals cannot weight it; MinTSample to MinTShrink when a node has no more residuals
+// the residuals cannot weight it (and on nodes whose variance was imputed); MinTSample to MinTShrink when a node has no more residuals
 // than there are nodes (the sample covariance would be singular); MinT to VarianceScaling when
 // the node count is above maxDense. The moments come back for a later fallback (nil with
 // Structural).
@@ -178,15 +218,15 @@ func residualWeight(h Hierarchy, m Method, residuals [][]float64, maxDense int) 
 	if mo == nil {
 		return structuralWeight(h), Structural, math.NaN(), fmt.Sprintf("%s: %s instead of %s", why, Structural, m), nil, nil
 	}
-	var note string
+	note := mo.note
 	n := h.Nodes()
 	if (m == MinTShrink || m == MinTSample) && n > maxDense {
-		note = fmt.Sprintf("%d nodes, more than MaxDenseNodes %d: %s (the diagonal of the shrunk covariance) instead of %s", n, maxDense, VarianceScaling, m)
+		note = joinNote(note, fmt.Sprintf("%d nodes, more than MaxDenseNodes %d: %s (the diagonal of the shrunk covariance) instead of %s", n, maxDense, VarianceScaling, m))
 		m = VarianceScaling
 	}
 	if m == MinTSample && mo.count[mo.min] <= n {
-		note = fmt.Sprintf("%s has %d residuals, not more than the %d nodes, so the sample covariance is singular: %s instead of %s",
-			h.node(mo.min), mo.count[mo.min], n, MinTShrink, MinTSample)
+		note = joinNote(note, fmt.Sprintf("%s has %d residuals, not more than the %d nodes, so the sample covariance is singular: %s instead of %s",
+			h.node(mo.min), mo.count[mo.min], n, MinTShrink, MinTSample))
 		m = MinTShrink
 	}
 	w, lambda := mo.weight(m)

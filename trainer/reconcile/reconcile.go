@@ -144,8 +144,10 @@ type Result struct {
 // Fallbacks, stated in Result.Method and Result.Note: MinTSample runs as MinTShrink when a node
 // has no more residuals than there are nodes or C W C' is not positive definite (or has a
 // condition number above 1e12); either MinT method runs as VarianceScaling above the dense node
-// limit or when the shrunk C W C' is not positive definite; every residual-based method runs as Structural when a node has fewer than 2
-// residuals or all residuals are zero.
+// limit or when the shrunk C W C' is not positive definite; every residual-based method runs as
+// Structural when no node has 2 residuals or all residuals are zero. A node with fewer than 2
+// residuals among nodes that have them is weighted as the least trusted node per bottom series
+// (see newMoments), stated in Result.Note.
 //
 // The projection is linear and the same for every column, so sample paths (or any other
 // vectors to be made coherent with the same W) may be passed as further columns of base: one

@@ -427,7 +427,8 @@ func TestFallbacks(t *testing.T) {
 		{"sample with too few periods", MinTSample, short, Options{}, MinTShrink, "not more than the 12 nodes"},
 		{"MinT above the dense limit", MinTShrink, short, Options{MaxDenseNodes: 11}, VarianceScaling, "12 nodes, more than MaxDenseNodes 11"},
 		{"sample above the dense limit", MinTSample, short, Options{MaxDenseNodes: 11}, VarianceScaling, "more than MaxDenseNodes 11"},
-		{"a node with one residual", MinTShrink, withOne(short, 7), Options{}, Structural, "node 7 (bottom series 1) has 1 residuals, fewer than 2"},
+		{"a node with one residual", MinTShrink, withOne(short, 7), Options{}, MinTShrink, "1 nodes with fewer than 2 residuals (first node 7 (bottom series 1)) weighted as the least trusted"},
+		{"every node with one residual", MinTShrink, allOne(short), Options{}, Structural, "node 0 (aggregate 0) has 1 residuals, fewer than 2"},
 		{"all residuals zero", VarianceScaling, zeros(h.Nodes(), 5), Options{}, Structural, "every residual is zero"},
 	} {
 		got, err := Reconcile(h, base, c.m, c.resid, c.opt)
@@ -454,6 +455,65 @@ func withOne(e [][]float64, i int) [][]float64 {
 		out[i][t] = math.NaN()
 	}
 	return out
+}
+
+// allOne returns a copy of e where every node has a single residual.
+func allOne(e [][]float64) [][]float64 {
+	out := e
+	for i := range e {
+		out = withOne(out, i)
+	}
+	return out
+}
+
+// A node without 2 residuals is weighted σ̂²_i = s_i max_j σ̂²_j / s_j (the package's own rule,
+// see newMoments), uncorrelated: VarianceScaling then equals the dense S G ŷ with that diagonal.
+func TestImputedVariance(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 5))
+	h := itemDepot(3, 2)
+	base := incoherentBase(h, 3, rng)
+	resid := withOne(correlatedResiduals(h, 20, rng), 2) // aggregate 2
+	n := h.Nodes()
+	size := func(i int) float64 {
+		if i < len(h.Sums) {
+			return float64(len(h.Sums[i]))
+		}
+		return 1
+	}
+	ms := make([]float64, n)
+	var worst float64
+	for i := range resid {
+		if i == 2 {
+			continue
+		}
+		for _, e := range resid[i] {
+			ms[i] += e * e / float64(len(resid[i]))
+		}
+		worst = math.Max(worst, ms[i]/size(i))
+	}
+	ms[2] = worst * size(2)
+	got, err := Reconcile(h, base, VarianceScaling, resid, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Method != VarianceScaling || !strings.Contains(got.Note, "weighted as the least trusted node per bottom series") {
+		t.Fatalf("ran %s: %s", got.Method, got.Note)
+	}
+	wantClose(t, "imputed variance", got.Forecasts, referenceSG(h, diagMatrix(ms), base), 1e-9)
+	// MinTShrink: the node's row and column of W are its variance alone.
+	mo, _, err := newMoments(h, resid)
+	if err != nil {
+		t.Fatal(err)
+	}
+	w, _ := mo.shrunkCovariance()
+	for j := 0; j < n; j++ {
+		if j != 2 && w.At(2, j) != 0 {
+			t.Errorf("W[2][%d] = %v, want 0", j, w.At(2, j))
+		}
+	}
+	if math.Abs(w.At(2, 2)-ms[2]) > 1e-12*ms[2] {
+		t.Errorf("W[2][2] = %v, want %v", w.At(2, 2), ms[2])
+	}
 }
 
 // zeros returns n rows of T zeros.
