@@ -173,17 +173,17 @@ func TestRunConfigHierarchy(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	want := &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"depot"}, Method: "StructuralScaling", NonNegative: false}
+	want := &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"depot"}, Method: "MinTShrink", NonNegative: false}
 	if diff := cmp.Diff(want, got.Hierarchy); diff != "" {
 		t.Errorf("shardBy from the first non-empty level, nonNegative from the source (-want,+got):\n%s", diff)
 	}
 	fp.Spec.Hierarchy.ShardBy = []string{"item"}
 	fp.Spec.Hierarchy.NonNegative = ptr.To(true)
-	fp.Spec.Hierarchy.Method = forecastingv1alpha1.ReconcileMinTShrink
+	fp.Spec.Hierarchy.Method = forecastingv1alpha1.ReconcileStructuralScaling
 	if got, err = RunConfig(fp, fenwickRun("r"), ""); err != nil {
 		t.Fatal(err)
 	}
-	want = &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"item"}, Method: "MinTShrink", NonNegative: true}
+	want = &runconfig.Hierarchy{Levels: [][]string{{}, {"depot"}, {"item"}}, ShardBy: []string{"item"}, Method: "StructuralScaling", NonNegative: true}
 	if diff := cmp.Diff(want, got.Hierarchy); diff != "" {
 		t.Errorf("as written (-want,+got):\n%s", diff)
 	}

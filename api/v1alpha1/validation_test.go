@@ -143,7 +143,7 @@ var _ = Describe("CRD validation", func() {
 		var fp forecastingv1alpha1.ForecastPortfolio
 		Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), &fp)).To(Succeed())
 		Expect(fp.Spec.Hierarchy.Levels).To(Equal([]forecastingv1alpha1.HierarchyLevel{{"depot"}, {"item"}, {}}))
-		Expect(fp.Spec.Hierarchy.Method).To(Equal(forecastingv1alpha1.ReconcileStructuralScaling))
+		Expect(fp.Spec.Hierarchy.Method).To(Equal(forecastingv1alpha1.ReconcileMinTShrink))
 		Expect(fp.Spec.Hierarchy.NonNegative).To(BeNil(), "unset: render takes source.nonNegative")
 		other := validPortfolio("with-hierarchy-offline")
 		other.Object["spec"].(map[string]any)["hierarchy"] = u.Object["spec"].(map[string]any)["hierarchy"]
