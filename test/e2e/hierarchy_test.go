@@ -13,6 +13,7 @@ import (
 
 	. "github.com/onsi/ginkgo/v2"
 	. "github.com/onsi/gomega"
+	"k8s.io/apimachinery/pkg/api/meta"
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"sigs.k8s.io/controller-runtime/pkg/client"
 
@@ -117,6 +118,45 @@ var _ = Describe("hierarchies end to end", Ordered, func() {
 			Expect(l.Accuracy.Realized).NotTo(BeEmpty())
 		}
 		checkCoherent(publishedMeans(d, "fenwick-tree-2", fp.Spec.Source.Columns.Series))
+
+		By("reading the second run's accuracy per level on the portfolio, with drift judged per level")
+		Eventually(func(g Gomega) {
+			var p forecastingv1alpha1.ForecastPortfolio
+			g.Expect(c.Get(ctx, client.ObjectKeyFromObject(fp), &p)).To(Succeed())
+			g.Expect(p.Status.Accuracy).NotTo(BeNil())
+			g.Expect(p.Status.Accuracy.Run).To(Equal("fenwick-tree-2"))
+			levels := p.Status.HierarchyLevels
+			g.Expect(levels).To(HaveLen(len(h.Levels)))
+			drift := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
+			g.Expect(drift).NotTo(BeNil())
+			for i, l := range levels {
+				GinkgoWriter.Printf("portfolio level %s: %d nodes, drift %s\n", l.Name, l.Nodes, l.Drift)
+				g.Expect(l.Name).To(Equal(h.Levels[i].Name))
+				g.Expect(l.Nodes).To(Equal(h.Levels[i].Nodes))
+				g.Expect(l.Accuracy).To(Equal(h.Levels[i].Accuracy))
+				minPoints, threshold := int64(p.Spec.Drift.MinEvaluatedPoints), float64(p.Spec.Drift.ThresholdPercent)/100
+				if l.Accuracy.EvaluatedPoints < minPoints {
+					// The grand total has 4 new actuals, below the suite's minEvaluatedPoints 10.
+					g.Expect(l.Drift).To(Equal(forecastingv1alpha1.ReasonTooFewPoints), "level %s", l.Name)
+					continue
+				}
+				// Judged: the geometric ratio (the default aggregate) against the threshold; the
+				// status shows it to 3 decimals, so a ratio that close to the threshold is left alone.
+				ratio, err := strconv.ParseFloat(l.Accuracy.GeometricRatio, 64)
+				g.Expect(err).NotTo(HaveOccurred(), "level %s", l.Name)
+				if math.Abs(ratio-threshold) > 1e-3 {
+					want := forecastingv1alpha1.ReasonWithinThreshold
+					if ratio > threshold {
+						want = forecastingv1alpha1.ReasonAboveThreshold
+					}
+					g.Expect(l.Drift).To(Equal(want), "level %s: geometric ratio %s, threshold %v", l.Name, l.Accuracy.GeometricRatio, threshold)
+				}
+				if l.Name == "item+depot" {
+					// The bottom level's nodes are the input series: its verdict is the run's.
+					g.Expect(l.Drift == forecastingv1alpha1.ReasonAboveThreshold).To(Equal(drift.Reason == forecastingv1alpha1.ReasonAboveThreshold), "level %s, condition %s", l.Name, drift.Reason)
+				}
+			}
+		}).WithContext(ctx).WithTimeout(time.Minute).Should(Succeed())
 	}, SpecTimeout(8*time.Minute))
 })
 
