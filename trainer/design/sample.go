@@ -10,14 +10,18 @@ import (
 // DefaultSampleSeries is how many series of a portfolio Decide chooses on (the plan step's
 // sample): the series with the DefaultSampleSeries smallest SampleHash values of their keys.
 //
-// Why 4000: the inner holdout uses at most MaxSeries (100) series per segment whatever the
-// sample size, so a larger sample costs the plan pod memory (its series' values, about 2 MB
-// for 4000 monthly series of 60 points, 64 MB for 4000 hourly series of 1000) and cleaning,
-// not model fits. A segment holding 2.5% of the portfolio still gets its full 100 inner
-// series from 4000 (binomial mean 100), and one holding 0.5% gets MinSeries (20) to choose
-// by itself; rarer segments take a coarser segment's choice, as in a shard. A segment with
-// no series in the sample is chosen by each shard that has it (FromShard).
-const DefaultSampleSeries = 4000
+// Why 2000, by cost. Model fits: the inner holdout uses at most MaxSeries (100) series per
+// segment whatever the sample size, so the sample's size does not change what the plan fits.
+// Memory: the plan pod holds the sample's values (16 bytes a point while collected, 8 more
+// for the cleaned copy), and it runs with the same resources as a train pod; 2000 is the
+// default spec.sharding.targetSeriesPerShard, so at default settings plan holds no more
+// series than one train pod (2000 weekly series of 3 years: under 6 MB; of hourly series of
+// one year: about 420 MB, as a train pod of the same portfolio). What it buys: a segment
+// holding 5% of the portfolio still gets its full 100 inner series, one holding 1% gets
+// MinSeries (20) to choose by itself; rarer segments take a coarser segment's choice, as in a
+// shard, and a segment with no series in the sample is chosen by each shard that has it
+// (FromShard).
+const DefaultSampleSeries = 2000
 
 // SampleHash ranks a series key for the decision sample: 64-bit FNV-1a of the key's bytes
 // passed through SplitMix64's finalizer (Steele, Lea & Flood 2014, "Fast splittable

@@ -141,6 +141,12 @@ func (c *Collector) Add(r Row) {
 	p.covs = append(p.covs, r.Covariates...)
 }
 
+// Drop forgets every row of the series key (a sample that no longer keeps it).
+func (c *Collector) Drop(key string) { delete(c.series, key) }
+
+// Len is the number of series the Collector holds.
+func (c *Collector) Len() int { return len(c.series) }
+
 func (p *pending) reject(reason string) {
 	*p = pending{reason: reason}
 }

@@ -121,7 +121,11 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 	}
 	results := make([]design.Result, len(spanning))
 	errs := make([]error, len(spanning))
-	if _, err := design.Forecast(ctx, spanning, st.Design(env.Workers), func(i int, r design.Result, err error) {
+	opts, err := designOptions(st, p, env.Workers)
+	if err != nil {
+		return sum, err
+	}
+	if _, err := design.Forecast(ctx, spanning, opts, func(i int, r design.Result, err error) {
 		results[i], errs[i] = r, err
 	}); err != nil {
 		return sum, err
@@ -188,7 +192,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			fc = append(fc, row)
 		}
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
-			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Design: r.Design, Segment: r.Segment.String(), Level: level})
+			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Design: r.Design, Segment: r.Segment.String(), DesignBy: r.From, Level: level})
 	}
 	evals, _, _, _, _, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, keyCols, prev, &loaded{unit: Unit{ID: SpanningUnit}, series: spanning})
 	if err != nil {

@@ -47,6 +47,9 @@ type Counts struct {
 	Models map[string]int `json:"models,omitempty"`
 	// Designs counts trained series by the design that forecast them (design.Result.Design).
 	Designs map[string]int `json:"designs,omitempty"`
+	// DesignsByShard counts, of those, the series whose design the shard chose on its own
+	// series (their segment was not in the plan's decision; design.FromShard).
+	DesignsByShard map[string]int `json:"designsByShard,omitempty"`
 }
 
 // UnitDone is unit.json, written by train last in a unit's folder.

@@ -21,6 +21,7 @@ import (
 	"io"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -40,6 +41,16 @@ type Env struct {
 	// ProgressEvery is how often train prints a progress line between phase changes (0:
 	// summary.ProgressInterval; below 0: only at phase changes).
 	ProgressEvery time.Duration
+	// DesignSample is the most series plan decides the run's design on (0:
+	// design.DefaultSampleSeries; see designSample).
+	DesignSample int
+}
+
+func (e Env) designSample() int {
+	if e.DesignSample <= 0 {
+		return design.DefaultSampleSeries
+	}
+	return e.DesignSample
 }
 
 func (e Env) logf(format string, a ...any) {

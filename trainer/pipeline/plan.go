@@ -12,6 +12,7 @@ import (
 	"strings"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
@@ -57,6 +58,10 @@ type Plan struct {
 	// input: train extends every bottom series with zeros up to it, so every node of the tree
 	// ends, and is forecast, at the same periods.
 	HierarchyEnd time.Time `json:"hierarchyEnd,omitzero"`
+	// Design (selection.design Auto) is the run's design per segment, chosen once here on a
+	// sample of the portfolio's series (design.Decide on the designSample): every shard
+	// applies it, and chooses by itself only for a segment it does not hold.
+	Design *design.Record `json:"design,omitempty"`
 }
 
 // Object is one input object as plan saw it: train compares Size and ETag with the object it
@@ -307,6 +312,11 @@ func (p *Plan) Validate() error {
 	for id, at := range inShard {
 		if at < 0 {
 			return fmt.Errorf("unit %q is in no shard", id)
+		}
+	}
+	if p.Design != nil {
+		if _, err := p.Design.Outcome(); err != nil {
+			return fmt.Errorf("design: %w", err)
 		}
 	}
 	return nil

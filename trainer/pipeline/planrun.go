@@ -4,8 +4,10 @@ import (
 	"context"
 	"fmt"
 	"sort"
+	"strings"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/store"
@@ -24,6 +26,11 @@ import (
 // Reading everything once costs one pass over the input, the same as training it; it buys
 // exact series counts for the controller and for balancing. Memory is a set of 64-bit key
 // hashes per object (all keys for hash buckets), not the rows.
+//
+// With selection.design Auto the same pass draws the design sample (designSample: the rows
+// of at most Env.DesignSample series, design.DefaultSampleSeries by default, chosen by key
+// hash), and plan decides the design of every segment it holds once for the run
+// (design.Decide) and writes it into plan.json (Plan.Design); the shards apply it.
 func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPlan}
 	if _, err := Check(cfg); err != nil {
@@ -78,15 +85,20 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	}
 	var firstBroken error
 	h := newHierarchy(cfg)
+	smp, err := planSample(cfg, cutoff.UTC().Truncate(time.Second), env)
+	if err != nil {
+		return nil, err
+	}
 	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second),
 		Reconcile: h != nil && h.spanning}
 	// latest records the newest history row's date (not after the cutoff) for a hierarchy.
-	latest := func(ingest.Row) {}
-	if h != nil {
-		latest = func(r ingest.Row) {
-			if r.Problem == "" && !r.Date.After(p.Cutoff) && r.Date.After(p.HierarchyEnd) {
-				p.HierarchyEnd = r.Date
-			}
+	// (and every row goes to the design sample, when there is one).
+	latest := func(r ingest.Row) {
+		if smp != nil {
+			smp.add(r)
+		}
+		if h != nil && r.Problem == "" && !r.Date.After(p.Cutoff) && r.Date.After(p.HierarchyEnd) {
+			p.HierarchyEnd = r.Date
 		}
 	}
 	switch cfg.Source.Partitioning {
@@ -98,6 +110,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, nil, latest); isolate(ctx, &objs[i], err, &firstBroken) != nil {
 				return nil, err
 			}
+			smp.commit(objs[i].Broken != "")
 			if objs[i].Broken != "" {
 				u.Series, u.Rows = 0, 0
 			}
@@ -119,6 +132,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 				if u.Series, u.Rows, err = countKeys(ctx, src, o.Key, gr, latest); isolate(ctx, &objs[i], err, &firstBroken) != nil {
 					return nil, err
 				}
+				smp.commit(objs[i].Broken != "")
 				units = append(units, u)
 			}
 			if objs[i].Broken == "" {
@@ -153,6 +167,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 			if isolate(ctx, &objs[i], err, &firstBroken) != nil {
 				return nil, err
 			}
+			smp.commit(objs[i].Broken != "")
 			if objs[i].Broken != "" {
 				continue
 			}
@@ -198,6 +213,11 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 		}
 	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
+	if smp != nil {
+		if err := decidePlanDesign(ctx, cfg, p, smp, env); err != nil {
+			return nil, err
+		}
+	}
 	if err := p.Validate(); err != nil {
 		return nil, fmt.Errorf("pipeline: built an invalid plan: %w", err)
 	}
@@ -238,4 +258,52 @@ func countKeys(ctx context.Context, src *source, key string, groups *ingest.Grou
 		return nil
 	})
 	return len(seen), rows, err
+}
+
+// planSample returns the design sample plan draws (nil unless selection.design is Auto).
+func planSample(cfg *runconfig.Config, cutoff time.Time, env Env) (*designSample, error) {
+	st, err := Check(cfg)
+	if err != nil || st.DesignMode != design.Auto {
+		return nil, err
+	}
+	s, err := newDesignSample(cfg, cutoff, env.designSample())
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrConfig, err)
+	}
+	return s, nil
+}
+
+// decidePlanDesign chooses the run's design per segment on the plan's design sample (after
+// the same extension to the hierarchy's last period train gives bottom series) and records it
+// in p.Design.
+func decidePlanDesign(ctx context.Context, cfg *runconfig.Config, p *Plan, smp *designSample, env Env) error {
+	st, err := Check(cfg)
+	if err != nil {
+		return err
+	}
+	in := smp.finish()
+	if newHierarchy(cfg) != nil {
+		extendTo(in, p.HierarchyEnd)
+	}
+	opts := st.Design(env.Workers)
+	out, err := design.Decide(ctx, in, opts)
+	if err != nil {
+		return err
+	}
+	p.Design = design.NewRecord(out, opts.Rule, env.designSample())
+	env.logf("plan: design chosen once for the run on a sample of %d series (%d inner-holdout series, %.1fs CPU): %s",
+		len(in), out.InnerSeries, out.InnerCPU.Seconds(), choicesText(out))
+	return nil
+}
+
+// choicesText lists the decided design per segment: "monthly/smooth/long ets-theta, ...".
+func choicesText(out *design.Outcome) string {
+	var parts []string
+	for _, ch := range out.Choices {
+		parts = append(parts, ch.Segment.String()+" "+ch.Design)
+	}
+	if len(parts) == 0 {
+		return "no segment (no usable series in the sample)"
+	}
+	return strings.Join(parts, ", ")
 }

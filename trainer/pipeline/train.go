@@ -136,13 +136,17 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	}
 	tr.fitting(planned)
 	tr.done(rejected)
-	fit, err := fitAndWrite(ctx, cfg, st, h, out, prev, units, st.Design(env.Workers), tr, env)
+	opts, err := designOptions(st, p, env.Workers)
+	if err != nil {
+		return sum, err
+	}
+	fit, err := fitAndWrite(ctx, cfg, st, h, out, prev, units, opts, tr, env)
 	if err != nil {
 		return sum, err // the context ended or a write failed (cfg was validated above)
 	}
 	outcome := fit.outcome
-	env.logf("train: shard %d: design %s, %d inner-holdout series in %.1fs CPU, series per design %v",
-		shard, outcome.Mode, outcome.InnerSeries, outcome.InnerCPU.Seconds(), outcome.Counts())
+	env.logf("train: shard %d: design %s, %s, series per design %v",
+		shard, outcome.Mode, designSource(outcome), outcome.Counts())
 	fitSeconds := fit.fitSeconds
 
 	var firstErr error
@@ -180,6 +184,12 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 				sum.Designs = map[string]int{}
 			}
 			sum.Designs[d] += c
+		}
+		for d, c := range done.Counts.DesignsByShard {
+			if sum.DesignsByShard == nil {
+				sum.DesignsByShard = map[string]int{}
+			}
+			sum.DesignsByShard[d] += c
 		}
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
@@ -371,7 +381,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	}
 	var fc []tables.ForecastRow
 	var mr []tables.ModelRow
-	models, designs := map[string]int{}, map[string]int{}
+	models, designs, byShard := map[string]int{}, map[string]int{}, map[string]int{}
 	trained := 0
 	for i := range results {
 		s := u.seriesAt(i)
@@ -406,13 +416,16 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		}
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
 			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Features: r.Features,
-			Design: r.Design, Segment: r.Segment.String(), Backtest: backtestRecord(r.Levels, r.Backtest), Level: level})
+			Design: r.Design, Segment: r.Segment.String(), DesignBy: r.From, Backtest: backtestRecord(r.Levels, r.Backtest), Level: level})
 		if i >= len(u.series) {
 			continue // an aggregate: counted by level, not as an input series
 		}
 		trained++
 		models[r.Family]++
 		designs[r.Design]++
+		if r.From == design.FromShard {
+			byShard[r.Design]++
+		}
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
@@ -476,6 +489,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	if len(models) > 0 {
 		done.Counts.Models = models
 		done.Counts.Designs = designs
+		if len(byShard) > 0 {
+			done.Counts.DesignsByShard = byShard
+		}
 	}
 
 	keys := cfg.Source.Columns.Series
@@ -683,4 +699,43 @@ func readTable(ctx context.Context, out *store.Store, f File, decode func(io.Rea
 		return fmt.Errorf("%s: %w", out.Describe(f.Key), err)
 	}
 	return nil
+}
+
+// designOptions is the run's design.Forecast options; under Auto with a plan that decided
+// the design (Plan.Design) they carry that decision, so every shard applies the plan's
+// choice and chooses by itself only for segments the plan's sample did not hold.
+func designOptions(st Settings, p *Plan, workers int) (design.Options, error) {
+	o := st.Design(workers)
+	if o.Mode != design.Auto || p.Design == nil {
+		return o, nil
+	}
+	dec, err := p.Design.Outcome()
+	if err != nil {
+		return o, fmt.Errorf("plan.json: design: %w: %w", err, ErrConfig)
+	}
+	o.Decided = dec
+	return o, nil
+}
+
+// designSource says where a Forecast outcome's designs were chosen, for the log.
+func designSource(out *design.Outcome) string {
+	if out.Mode != design.Auto {
+		return "declared"
+	}
+	plan, own := 0, 0
+	for _, ch := range out.Choices {
+		if ch.From == design.FromPlan {
+			plan++
+		} else {
+			own++
+		}
+	}
+	inner := out.InnerSeries
+	cpu := out.InnerCPU
+	if out.Fallback != nil {
+		inner, cpu = out.Fallback.InnerSeries, out.Fallback.InnerCPU
+	} else if plan > 0 {
+		inner, cpu = 0, 0
+	}
+	return fmt.Sprintf("%d segments chosen by the plan, %d by this shard (%d inner-holdout series in %.1fs CPU)", plan, own, inner, cpu.Seconds())
 }

@@ -46,6 +46,10 @@ type Summary struct {
 	// Designs counts series by the design that forecast them (trainer/design; a handful of
 	// names such as "ets-theta" or "per-series").
 	Designs map[string]int `json:"designs,omitempty"`
+	// DesignsByShard (selection.design Auto) counts, of Designs, the series whose design the
+	// shard chose on its own series because the plan's decision did not hold their segment;
+	// the others' design was chosen once for the run by the plan.
+	DesignsByShard map[string]int `json:"designsByShard,omitempty"`
 	// Accuracy holds the error sums of this shard's evaluation of the previous run's forecasts.
 	Accuracy *Accuracy `json:"accuracy,omitempty"`
 	// Calibration holds the coverage counts, pinball and bias sums of that evaluation.

@@ -22,12 +22,12 @@ const colLegacySeries = "series"
 
 // fixedColumns are the columns of the four tables apart from the key columns; a key column may
 // not take one of these names, nor a name of the form err_h<N> or q<level>.
-var fixedColumns = []string{colPeriod, colStep, colModel, colMean, colParams, colMetric, colScore, colNotes, colFeatures, colDesign, colSegment,
+var fixedColumns = []string{colPeriod, colStep, colModel, colMean, colParams, colMetric, colScore, colNotes, colFeatures, colDesign, colSegment, colDesignBy,
 	colPoints, colExpected, colRealized, colDrifted, colPrevious, colReason, colLevel}
 
 // CheckKeys checks the key column names tables are written with: at least one, none empty,
 // no name twice, and none that another column of an output table uses (period, step, model,
-// mean, params, metric, score, notes, design, segment, kept_features, points, expected,
+// mean, params, metric, score, notes, design, segment, design_chosen_by, kept_features, points, expected,
 // realized, drifted, previous_run, reason, hierarchy_level, err_h<N>, q<level>). The error names the column and
 // its position in keys.
 func CheckKeys(keys []string) error {

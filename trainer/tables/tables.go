@@ -62,8 +62,11 @@ type ModelRow struct {
 	// Design is the design that forecast the series (trainer/design: a candidate's name such
 	// as "ets-theta", "per-series" or "declared") and Segment the segment it was chosen for
 	// ("monthly/smooth/long"). Written as the design and segment columns, only when some row
-	// has a design.
-	Design, Segment string
+	// has a design. DesignBy says where the segment's design was chosen: "plan" (once for
+	// the run, on a sample of the portfolio) or "shard" (by the shard on its own series, for
+	// a segment the plan's sample did not hold); written as the design_chosen_by column after
+	// segment, only when some row has one.
+	Design, Segment, DesignBy string
 	// Backtest is how the published quantiles fared on the series' own rolling-origin
 	// backtest (selection.Result.Backtest, Pinball and Bias as means); written as the
 	// backtest_points, backtest_bias, backtest_below_<q> and backtest_pinball_<q> columns
@@ -113,6 +116,7 @@ const (
 	colFeatures = "kept_features"
 	colDesign   = "design"
 	colSegment  = "segment"
+	colDesignBy = "design_chosen_by"
 	colPoints   = "points"
 	colExpected = "expected"
 	colRealized = "realized"
@@ -311,12 +315,14 @@ func ReadForecasts(r io.Reader, format string, keys []string) (Header, []Forecas
 
 // WriteModels writes a models table: the key columns keys, model, params, metric, score,
 // err_h1..err_hN, notes, where N is the longest BacktestErrors; a shorter row leaves its last
-// columns absent. When any row has a Design, columns design and segment follow notes. When
+// columns absent. When any row has a Design, columns design and segment follow notes (then
+// design_chosen_by, when any row has a DesignBy). When
 // any row has Features, a last column kept_features holds each row's as a JSON object
 // ({"Lasso":["covariate:promo","lag:1"]}, members sorted; empty for a row without).
 func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) error {
-	steps, withFeatures, withDesign, withMovement, withLevel := 0, false, false, false, false
+	steps, withFeatures, withDesign, withMovement, withLevel, withBy := 0, false, false, false, false, false
 	for _, r := range rows {
+		withBy = withBy || r.DesignBy != ""
 		withLevel = withLevel || r.Level != ""
 		steps = max(steps, len(r.BacktestErrors))
 		withFeatures = withFeatures || len(r.Features) > 0
@@ -341,6 +347,9 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 	cols = append(cols, column{colNotes, text})
 	if withDesign {
 		cols = append(cols, column{colDesign, text}, column{colSegment, text})
+	}
+	if withBy {
+		cols = append(cols, column{colDesignBy, text})
 	}
 	if withFeatures {
 		cols = append(cols, column{colFeatures, text})
@@ -372,6 +381,9 @@ func WriteModels(w io.Writer, format string, keys []string, rows []ModelRow) err
 		c = append(c, cell{s: r.Notes})
 		if withDesign {
 			c = append(c, cell{s: r.Design}, cell{s: r.Segment})
+		}
+		if withBy {
+			c = append(c, cell{s: r.DesignBy})
 		}
 		if withFeatures {
 			f := ""
@@ -421,7 +433,7 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 			return text, true
 		}
 		switch name {
-		case colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment, colLevel:
+		case colModel, colParams, colMetric, colNotes, colFeatures, colDesign, colSegment, colDesignBy, colLevel:
 			return text, true
 		case colScore:
 			return number, true
@@ -484,6 +496,9 @@ func ReadModels(r io.Reader, format string, keys []string) ([]ModelRow, error) {
 		}
 		if at, ok := pos[colSegment]; ok {
 			m.Segment = c[at].s
+		}
+		if at, ok := pos[colDesignBy]; ok {
+			m.DesignBy = c[at].s
 		}
 		if at, ok := pos[colLevel]; ok {
 			m.Level = c[at].s

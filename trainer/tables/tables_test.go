@@ -140,23 +140,24 @@ func TestModelsRoundTrip(t *testing.T) {
 	}
 }
 
-// The design and segment columns appear when a row has a design, and round-trip in both formats.
+// The design and segment columns appear when a row has a design, design_chosen_by when a row
+// says where its design was chosen, and all round-trip in both formats.
 func TestModelsDesignColumns(t *testing.T) {
 	rows := sampleModels()
-	rows[0].Design, rows[0].Segment = "ets-theta", "weekly/smooth/long"
+	rows[0].Design, rows[0].Segment, rows[0].DesignBy = "ets-theta", "weekly/smooth/long", "plan"
 	for _, f := range formats {
 		var buf bytes.Buffer
 		if err := WriteModels(&buf, f, keys, rows); err != nil {
 			t.Fatal(err)
 		}
-		if f == CSV && !strings.Contains(strings.SplitN(buf.String(), "\n", 2)[0], ",notes,design,segment") {
+		if f == CSV && !strings.Contains(strings.SplitN(buf.String(), "\n", 2)[0], ",notes,design,segment,design_chosen_by") {
 			t.Errorf("header %q, want design and segment after notes", strings.SplitN(buf.String(), "\n", 2)[0])
 		}
 		got, err := ReadModels(bytes.NewReader(buf.Bytes()), f, keys)
 		if err != nil {
 			t.Fatalf("%s: %v", f, err)
 		}
-		if got[0].Design != "ets-theta" || got[0].Segment != "weekly/smooth/long" || got[1].Design != "" {
+		if got[0].Design != "ets-theta" || got[0].Segment != "weekly/smooth/long" || got[0].DesignBy != "plan" || got[1].Design != "" || got[1].DesignBy != "" {
 			t.Errorf("%s: designs %q/%q and %q", f, got[0].Design, got[0].Segment, got[1].Design)
 		}
 	}
