@@ -192,12 +192,15 @@ func foldShards(st *forecastingv1alpha1.ForecastRunStatus, job *batchv1.Job, pod
 		}
 	}
 	byIndex := pickPods(pods)
-	models, designs := map[string]int64{}, map[string]int64{}
+	models, designs, byShard := map[string]int64{}, map[string]int64{}, map[string]int64{}
 	for _, m := range st.Models {
 		models[m.Model] = m.Series
 	}
 	for _, d := range st.Designs {
 		designs[d.Design] = d.Series
+		if d.ChosenByShard > 0 {
+			byShard[d.Design] = d.ChosenByShard
+		}
 	}
 	fold := func(i int, ok bool) {
 		p := byIndex[i]
@@ -218,7 +221,7 @@ func foldShards(st *forecastingv1alpha1.ForecastRunStatus, job *batchv1.Job, pod
 			res.Problems = append(res.Problems, fmt.Sprintf("shard %d succeeded but its pod is gone; its counts are lost", i))
 			return
 		}
-		if problem := foldTrain(st, models, designs, i, p); problem != "" {
+		if problem := foldTrain(st, models, designs, byShard, i, p); problem != "" {
 			res.Problems = append(res.Problems, problem)
 		}
 	}
@@ -235,12 +238,12 @@ func foldShards(st *forecastingv1alpha1.ForecastRunStatus, job *batchv1.Job, pod
 	st.Shards.Folded = folded.String()
 	st.Shards.FailedIndexes = failedSet.String()
 	st.Models = modelCounts(models)
-	st.Designs = designCounts(designs)
+	st.Designs = designCounts(designs, byShard)
 	return res, nil
 }
 
 // foldTrain adds one succeeded shard's summary to the status; it returns a Problem or "".
-func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs map[string]int64, i int, p *corev1.Pod) string {
+func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs, byShard map[string]int64, i int, p *corev1.Pod) string {
 	msg, _ := terminationMessage(p)
 	s, err := summary.Decode([]byte(msg))
 	if err == nil && s.Kind != summary.KindTrain {
@@ -260,6 +263,9 @@ func foldTrain(st *forecastingv1alpha1.ForecastRunStatus, models, designs map[st
 	}
 	for d, n := range s.Designs {
 		designs[d] += int64(n)
+	}
+	for d, n := range s.DesignsByShard {
+		byShard[d] += int64(n)
 	}
 	if s.Accuracy != nil {
 		sums, err := addAccuracy(st.AccuracySums, *s.Accuracy)
@@ -328,13 +334,13 @@ func modelCounts(m map[string]int64) []forecastingv1alpha1.ModelCount {
 }
 
 // designCounts lists the counts sorted by design name, so status writes are stable.
-func designCounts(m map[string]int64) []forecastingv1alpha1.DesignCount {
+func designCounts(m, byShard map[string]int64) []forecastingv1alpha1.DesignCount {
 	if len(m) == 0 {
 		return nil
 	}
 	out := make([]forecastingv1alpha1.DesignCount, 0, len(m))
 	for k, v := range m {
-		out = append(out, forecastingv1alpha1.DesignCount{Design: k, Series: v})
+		out = append(out, forecastingv1alpha1.DesignCount{Design: k, Series: v, ChosenByShard: byShard[k]})
 	}
 	sort.Slice(out, func(a, b int) bool { return out[a].Design < out[b].Design })
 	return out

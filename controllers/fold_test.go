@@ -62,9 +62,10 @@ func TestFoldShardsCountsEachIndexOnce(t *testing.T) {
 	}
 	pods := []corev1.Pod{
 		finishedPod(0, corev1.PodSucceeded, trainMessage(t, summary.Summary{Shard: 0, Series: 12, Trained: 11, Rejected: 1,
-			Models: map[string]int{"ETS": 7, "Naive": 4}, Designs: map[string]int{"ets-theta": 7, "per-series": 4}, Accuracy: acc(8.5, 9.25)}), t0),
+			Models: map[string]int{"ETS": 7, "Naive": 4}, Designs: map[string]int{"ets-theta": 7, "per-series": 4}, DesignsByShard: map[string]int{"per-series": 3},
+			Accuracy: acc(8.5, 9.25)}), t0),
 		finishedPod(1, corev1.PodSucceeded, trainMessage(t, summary.Summary{Shard: 1, Series: 10, Trained: 10,
-			Models: map[string]int{"ETS": 10}, Designs: map[string]int{"ets-theta": 10}, Accuracy: acc(0.1, 0.2)}), t0),
+			Models: map[string]int{"ETS": 10}, Designs: map[string]int{"ets-theta": 10}, DesignsByShard: map[string]int{"ets-theta": 2}, Accuracy: acc(0.1, 0.2)}), t0),
 		// Index 2 failed twice; the newer pod's summary is the one reported.
 		finishedPod(2, corev1.PodFailed, `{"kind":"train","shard":2,"error":"old"}`, t0),
 		finishedPod(2, corev1.PodFailed, `{"kind":"train","shard":2,"error":"units/0007: bad header at line 1"}`, t0.Add(time.Minute)),
@@ -94,7 +95,9 @@ func TestFoldShardsCountsEachIndexOnce(t *testing.T) {
 	if diff := cmp.Diff(wantModels, st.Models); diff != "" {
 		t.Errorf("models (-want,+got):\n%s", diff)
 	}
-	wantDesigns := []forecastingv1alpha1.DesignCount{{Design: "ets-theta", Series: 17}, {Design: "per-series", Series: 4}}
+	// Of 21 series, 3 per-series and 2 ets-theta had their design chosen by their shard (a
+	// segment the plan's sample did not hold); the rest the plan's.
+	wantDesigns := []forecastingv1alpha1.DesignCount{{Design: "ets-theta", Series: 17, ChosenByShard: 2}, {Design: "per-series", Series: 4, ChosenByShard: 3}}
 	if diff := cmp.Diff(wantDesigns, st.Designs); diff != "" {
 		t.Errorf("designs (-want,+got):\n%s", diff)
 	}

@@ -169,8 +169,9 @@ type ForecastRunStatus struct {
 	Models []ModelCount `json:"models,omitempty"`
 
 	// designs counts series by the design that forecast them (spec.selection.design: with
-	// Auto, the design each shard chose per segment, e.g. ets-theta or per-series; with
-	// PerSeries and Fixed, per-series and declared).
+	// Auto, the design chosen per segment, e.g. ets-theta or per-series, once for the run by
+	// the plan step on a sample of the portfolio, or by a shard for a segment the sample did
+	// not hold (chosenByShard); with PerSeries and Fixed, per-series and declared).
 	// +optional
 	// +listType=map
 	// +listMapKey=design
@@ -331,6 +332,11 @@ type DesignCount struct {
 	Design string `json:"design"`
 	// series it forecast.
 	Series int64 `json:"series"`
+	// chosenByShard counts the series among them whose design their shard chose on its own
+	// series, because the plan's sample held no series of their segment; the design of the
+	// others was chosen once for the run by the plan.
+	// +optional
+	ChosenByShard int64 `json:"chosenByShard,omitempty"`
 }
 
 // AccuracySums are running sums (decimal strings) behind an AccuracyStatus.

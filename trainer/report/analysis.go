@@ -250,31 +250,36 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 	return out
 }
 
-// DesignRow is how many series of one segment one design forecast. Shards choose apart, so
-// a segment can have more than one row.
+// DesignRow is how many series of one segment one design forecast, and where it was chosen
+// (ChosenBy: the models table's design_chosen_by, "plan" or "shard"; "" for tables written
+// before it). The plan chooses once per segment for the run; a segment its sample did not
+// hold is chosen by each shard apart, so such a segment can have more than one row.
 type DesignRow struct {
-	Segment, Design string
-	Series          int
+	Segment, Design, ChosenBy string
+	Series                    int
 }
 
-// designRows counts the models rows by segment and design.
+// designRows counts the models rows by segment, design and where the design was chosen.
 func designRows(rows []tables.ModelRow) []DesignRow {
-	type key struct{ seg, design string }
+	type key struct{ seg, design, by string }
 	n := map[key]int{}
 	for _, m := range rows {
 		if m.Design != "" {
-			n[key{m.Segment, m.Design}]++
+			n[key{m.Segment, m.Design, m.DesignBy}]++
 		}
 	}
 	out := make([]DesignRow, 0, len(n))
 	for k, c := range n {
-		out = append(out, DesignRow{Segment: k.seg, Design: k.design, Series: c})
+		out = append(out, DesignRow{Segment: k.seg, Design: k.design, ChosenBy: k.by, Series: c})
 	}
 	sort.Slice(out, func(i, j int) bool {
 		if out[i].Segment != out[j].Segment {
 			return out[i].Segment < out[j].Segment
 		}
-		return out[i].Design < out[j].Design
+		if out[i].Design != out[j].Design {
+			return out[i].Design < out[j].Design
+		}
+		return out[i].ChosenBy < out[j].ChosenBy
 	})
 	if len(out) == 0 {
 		return nil

@@ -162,9 +162,9 @@ func writeUnit(t *testing.T, ctx context.Context, st *store.Store, run, unit, fo
 		}
 		mr = append(mr, tables.ModelRow{Key: s.key, Model: s.model, Params: s.model + " alpha=0.3",
 			BacktestErrors: []float64{s.score, s.score}, Metric: "MASE", Score: s.score, Notes: notes,
-			Design: "per-series", Segment: "weekly/smooth/long"})
+			Design: "per-series", Segment: "weekly/smooth/long", DesignBy: "plan"})
 		if unit == "b-0000" {
-			mr[len(mr)-1].Design = "ets-theta"
+			mr[len(mr)-1].Design, mr[len(mr)-1].DesignBy = "ets-theta", "shard"
 		}
 		if unit == "b-0000" && !math.IsNaN(s.score) {
 			// Each evaluated series had 2 new actuals, one at or below q50 and both at or below
@@ -440,17 +440,17 @@ func TestReportOfPublishedRun(t *testing.T) {
 		}
 	}
 
-	// Design counts by segment equal those of the models tables.
+	// Design counts by segment, and where each was chosen, equal those of the models tables.
 	wantDesigns, gotDesigns := map[string]int{}, map[string]int{}
 	for _, m := range readModels(t, f.out) {
-		wantDesigns[m.Segment+" "+m.Design]++
+		wantDesigns[m.Segment+" "+m.Design+" "+m.DesignBy]++
 	}
 	for _, row := range tableRows(byID(t, doc, "design-choices")) {
 		n, err := strconv.Atoi(row[2])
 		if err != nil {
 			t.Fatalf("design-choices row %v: %v", row, err)
 		}
-		gotDesigns[row[0]+" "+row[1]] = n
+		gotDesigns[row[0]+" "+row[1]+" "+row[3]] = n
 	}
 	if len(wantDesigns) < 2 || fmt.Sprint(gotDesigns) != fmt.Sprint(wantDesigns) {
 		t.Errorf("design choices %v, models tables %v", gotDesigns, wantDesigns)

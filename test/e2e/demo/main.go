@@ -418,7 +418,14 @@ func summarize(ctx context.Context, cl client.Client, fp *forecastingv1alpha1.Fo
 		fmt.Printf("  chosen models in %s: %s\n", r.Name, strings.Join(parts, ", "))
 		parts = parts[:0]
 		for _, d := range r.Status.Designs {
-			parts = append(parts, fmt.Sprintf("%s %d", d.Design, d.Series))
+			by := "" // Fixed and PerSeries run the declaration: nothing is chosen
+			if p.Spec.Selection.Design == forecastingv1alpha1.DesignAuto {
+				by = " (chosen once by the plan)"
+				if d.ChosenByShard > 0 {
+					by = fmt.Sprintf(" (%d of them chosen by their shard)", d.ChosenByShard)
+				}
+			}
+			parts = append(parts, fmt.Sprintf("%s %d%s", d.Design, d.Series, by))
 		}
 		fmt.Printf("  designs (spec.selection.design %s): %s\n", p.Spec.Selection.Design, strings.Join(parts, ", "))
 	}
