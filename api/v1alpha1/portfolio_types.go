@@ -341,13 +341,14 @@ type PublishSpec struct {
 	// +kubebuilder:validation:Maximum=100
 	MaxCarriedRuns *int32 `json:"maxCarriedRuns,omitempty"`
 
-	// maxStalePeriods declares how stale a series may be: with a value above 0, a series whose
-	// last observation lies more than this many periods before the run's cutoff (its scheduled
-	// time, or the time a manual run planned) is rejected as stale, and no published forecast
-	// has a period that ends at or before the cutoff (the past periods of a series within the
-	// limit are left out). 0, the default, checks nothing: data with fixed dates (a demo, a
-	// replay) stays usable as the calendar moves on.
-	// +optional
+	// maxStalePeriods declares how stale a series may be. A forecast period is past when it
+	// ends at or before the run's cutoff (its scheduled time, or the time a manual run
+	// planned). Whatever the value, a series whose whole forecast is past is rejected as
+	// stale (a hierarchical run whose newest period is that old fails). With a value above 0,
+	// a series with more past periods than this is rejected too, and no published forecast
+	// has a past period (those of a series within the limit are left out). 0, the default,
+	// sets no limit short of the horizon: a series whose data arrives late publishes every
+	// step, past ones included, which the next run evaluates.
 	// +kubebuilder:default=0
 	// +kubebuilder:validation:Minimum=0
 	// +kubebuilder:validation:Maximum=10000

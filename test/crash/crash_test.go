@@ -65,16 +65,23 @@ func dataset(t *testing.T, dir string, extra int) {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	o := synth.Options{Items: 150, Depots: 4, Periods: 400 + extra, End: time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC).AddDate(0, 0, extra), Bad: 2}
+	o := synth.Options{Items: 150, Depots: 4, Periods: 400 + extra, End: dataEnd(extra), Bad: 2}
 	if _, err := o.Write(context.Background(), st, "", synth.CSV); err != nil {
 		t.Fatal(err)
 	}
 }
 
-// writeConfig writes a run configuration file and returns its path.
-func writeConfig(t *testing.T, dir, run, in, out string) string {
+// dataEnd is the last day of a dataset with extra days (dataset, smallDataset).
+func dataEnd(extra int) time.Time {
+	return time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC).AddDate(0, 0, extra)
+}
+
+// writeConfig writes a run configuration file for data with extra days and returns its path.
+// The run's cutoff is the morning after the data's last day (a cutoff past the whole horizon
+// would reject every series as stale).
+func writeConfig(t *testing.T, dir, run, in, out string, extra int) string {
 	t.Helper()
-	c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: run, Trigger: "Manual", ScheduledTime: time.Date(2026, 11, 20, 0, 0, 0, 0, time.UTC),
+	c := runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: run, Trigger: "Manual", ScheduledTime: dataEnd(extra).Add(30 * time.Hour),
 		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "Daily", NonNegative: true, Partitioning: runconfig.PartitionObjects,
 			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "date", Value: "units", Covariates: []string{"promo_flag"}}},
 		Output:           runconfig.Output{URI: out, Format: "parquet"},
@@ -192,14 +199,14 @@ func killAndRerun(t *testing.T, bin, dir string, tree func(name string) string) 
 	const shards = 4 // 600 series, 150 per shard, one depot object per shard
 
 	// Reference: two uninterrupted runs.
-	steps(t, bin, writeConfig(t, dir+"/", "flp-r1", "file://"+in1+"/", ref), shards)
-	times := steps(t, bin, writeConfig(t, dir+"/", "flp-r2", "file://"+in2+"/", ref), shards)
+	steps(t, bin, writeConfig(t, dir+"/", "flp-r1", "file://"+in1+"/", ref, 0), shards)
+	times := steps(t, bin, writeConfig(t, dir+"/", "flp-r2", "file://"+in2+"/", ref, 10), shards)
 	checkLatest(t, ref, "reference")
 
 	// Crash tree: run 1 uninterrupted, then run 2 with kills.
-	steps(t, bin, writeConfig(t, dir+"/crash-", "flp-r1", "file://"+in1+"/", crash), shards)
+	steps(t, bin, writeConfig(t, dir+"/crash-", "flp-r1", "file://"+in1+"/", crash, 0), shards)
 	checkLatest(t, crash, "after run 1")
-	cfg2 := writeConfig(t, dir+"/crash-", "flp-r2", "file://"+in2+"/", crash)
+	cfg2 := writeConfig(t, dir+"/crash-", "flp-r2", "file://"+in2+"/", crash, 10)
 	trainer(t, bin, "plan", "--config", cfg2)
 
 	rng := rand.New(rand.NewPCG(seed, 1))

@@ -10,7 +10,6 @@ import (
 	"sort"
 	"strings"
 	"testing"
-	"time"
 
 	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/store"
@@ -44,7 +43,7 @@ func smallDataset(t *testing.T, uri string, extra int) {
 		t.Fatal(err)
 	}
 	defer st.Close()
-	o := synth.Options{Items: 12, Depots: pointShards, Periods: 120 + extra, End: time.Date(2026, 11, 1, 0, 0, 0, 0, time.UTC).AddDate(0, 0, extra), Bad: 1}
+	o := synth.Options{Items: 12, Depots: pointShards, Periods: 120 + extra, End: dataEnd(extra), Bad: 1}
 	if _, err := o.Write(context.Background(), st, "", synth.CSV); err != nil {
 		t.Fatal(err)
 	}
@@ -218,8 +217,8 @@ func crashPoints(t *testing.T, bin, dir string, uri func(prefix string) string, 
 	newRun := func(prefix string) *pointRun {
 		out := uri(prefix)
 		return &pointRun{t: t, bin: bin, out: out,
-			cfg1: smallShards(t, writeConfig(t, dir+"/"+prefix+"-", "flp-r1", in1, out)),
-			cfg2: smallShards(t, writeConfig(t, dir+"/"+prefix+"-", "flp-r2", in2, out))}
+			cfg1: smallShards(t, writeConfig(t, dir+"/"+prefix+"-", "flp-r1", in1, out, 0)),
+			cfg2: smallShards(t, writeConfig(t, dir+"/"+prefix+"-", "flp-r2", in2, out, 10))}
 	}
 	// References: uninterrupted runs, the plain order and the late-shard order.
 	refs := map[string]map[string][]byte{}

@@ -200,12 +200,20 @@ func newDataset() dataset {
 	return d
 }
 
-// smallDemand is Fenwick Lane weekly demand: 10 items x 4 depots, 60 weeks, one spare part
-// item per depot.
+// smallDemand is Fenwick Lane weekly demand: 10 items x 4 depots, 60 weeks ending demandEnd,
+// one spare part item per depot.
 func smallDemand() synth.Options {
-	return synth.Options{Items: 10, Depots: 4, Frequency: synth.Weekly, Periods: 60,
-		End: time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC)}
+	return synth.Options{Items: 10, Depots: 4, Frequency: synth.Weekly, Periods: 60, End: demandEnd}
 }
+
+// demandEnd is four weeks before the Monday of the suite's current week. Every run here takes
+// the real clock as its cutoff (manual runs the time plan runs, scheduled ones their schedule
+// time), so the data must move with it: on fixed dates the 8-week horizon would one day lie
+// wholly before the cutoff and every series would be rejected as stale (issue 18 case 6).
+// The four weeks the drift and hierarchy specs append end on the current week's Monday, not
+// after any run's cutoff; the first run's last forecast week ends four weeks after the
+// suite's start. Computed once, so that specs straddling a Monday agree.
+var demandEnd = synth.LastComplete(synth.Weekly, time.Now()).AddDate(0, 0, -21)
 
 // write writes o's depots as CSV (the columns generate writes, o.ColumnsOf); scale, when not
 // nil, multiplies each row's units (a level shift).

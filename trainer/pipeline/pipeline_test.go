@@ -452,15 +452,20 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, 
 		c.Sharding.Buckets = buckets
 		return c
 	}
+	// Each run at its own clock, the morning after its history's last day (a run whose whole
+	// forecast were past would reject every series as stale).
+	at := func(day int) Env {
+		return Env{Now: func() time.Time { return time.Date(2026, 2, day, 6, 0, 0, 0, time.UTC) }, Workers: 2}
+	}
 	write(false)
-	if _, err := RunLocal(ctx, cfg("flp-0001", buckets1), testEnv()); err != nil {
+	if _, err := RunLocal(ctx, cfg("flp-0001", buckets1), at(15)); err != nil {
 		t.Fatal(err)
 	}
 	if seriesColumn {
 		rewriteAsSeriesColumn(t, mustOpen(t, "mem://flp-eval-out-"+name+"/"), "flp-0001")
 	}
 	write(true)
-	s, err := RunLocal(ctx, cfg("flp-0002", buckets2), testEnv())
+	s, err := RunLocal(ctx, cfg("flp-0002", buckets2), at(18))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -519,7 +524,7 @@ func secondRunEvaluatesFirst(t *testing.T, name string, buckets1, buckets2 int, 
 	}
 	// A third run on the same data forecasts the same 3 periods as the second: Naive does not
 	// move, so every series shows 3 movement points and a movement of 0 in the models table.
-	s3, err := RunLocal(ctx, cfg("flp-0003", buckets2), testEnv())
+	s3, err := RunLocal(ctx, cfg("flp-0003", buckets2), at(18))
 	if err != nil {
 		t.Fatal(err)
 	}

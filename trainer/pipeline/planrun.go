@@ -211,6 +211,9 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 		if p.HierarchyEnd, err = lastPeriod(cfg.Source, p.HierarchyEnd); err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrConfig, err)
 		}
+		if err := hierarchyStale(cfg, p.HierarchyEnd, p.Cutoff); err != nil {
+			return nil, err
+		}
 	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
 	if smp != nil {

@@ -25,9 +25,11 @@ func staleCSV(item string, end time.Time) []byte {
 }
 
 // Issue 18 case 6: a history that ended long ago used to get forecasts dated in the past (a
-// history ending in 1850 got forecasts for 1850). With publish.maxStalePeriods declared, a
-// series more than that many periods stale is rejected, and a series within it publishes only
-// the periods that end after the cutoff (anchor, 2026-03-02 06:00, is the test clock).
+// history ending in 1850 got forecasts for 1850). By default a series whose whole forecast is
+// past at the cutoff is rejected ("stale: ... the whole forecast is past") and the others
+// publish every step; with publish.maxStalePeriods declared, a series more than that many
+// periods stale is rejected too, and a series within it publishes only the periods that end
+// after the cutoff (anchor, 2026-03-02 06:00, is the test clock).
 func TestStaleSeriesAndPastPeriods(t *testing.T) {
 	dir := t.TempDir()
 	in := mustOpen(t, "file://"+dir)
@@ -67,10 +69,20 @@ func TestStaleSeriesAndPastPeriods(t *testing.T) {
 		return rows
 	}
 	rye, bran, malt := ingest.JoinKey("FLP-RYE-500", "dunmore"), ingest.JoinKey("FLP-BRAN-250", "dunmore"), ingest.JoinKey("FLP-MALT-1850", "dunmore")
-	// Not declared (the default): every series forecast from its last observation, 1850 included.
+	// Not declared (the default): the 1850 series and bran (last observation 2026-02-20, its 7
+	// days all ended by the cutoff) are rejected; rye, 2 periods stale, publishes all 7 steps
+	// from its last observation. Before the default rule malt published 7 rows dated 1850.
 	off := run("flp-0001", 0)
-	if len(off[malt]) != 7 || off[malt][0].Period.Year() != 1850 || len(off[rye]) != 7 {
-		t.Fatalf("without a limit: malt %d rows, rye %d", len(off[malt]), len(off[rye]))
+	if len(off[malt]) != 0 || len(off[bran]) != 0 || len(off[rye]) != 7 || off[rye][0].Step != 1 || len(off[ingest.JoinKey("FLP-TEA-80", "ashby")]) != 7 {
+		t.Fatalf("default: malt %d rows, bran %d, rye %d", len(off[malt]), len(off[bran]), len(off[rye]))
+	}
+	for _, k := range []string{malt, bran} {
+		if why := off["rejected "+k]; len(why) != 1 || !strings.Contains(why[0].Model, "the whole forecast is past") {
+			t.Errorf("default: %s: %+v", k, why)
+		}
+	}
+	if why := off["rejected "+malt]; len(why) != 1 || !strings.Contains(why[0].Model, "stale: its last observation 1850-03-01") {
+		t.Errorf("default: malt: %+v", why)
 	}
 	on := run("flp-0002", 3)
 	cutoffDay := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
@@ -101,5 +113,24 @@ func TestStaleSeriesAndPastPeriods(t *testing.T) {
 	tight := run("flp-0003", 1)
 	if why := tight["rejected "+rye]; len(why) != 1 || !strings.Contains(why[0].Model, "is 2 periods before the cutoff 2026-03-02T06:00:00Z, more than publish.maxStalePeriods 1") {
 		t.Errorf("rye at limit 1: %+v", why)
+	}
+}
+
+// A hierarchical run forecasts every node from the input's newest period; when all of its
+// horizon has ended at the cutoff, plan fails (exit 3) naming that period instead of
+// publishing a tree of past forecasts. The same data planned before its horizon ran out
+// plans as before.
+func TestStaleHierarchyFailsAtPlan(t *testing.T) {
+	cfg := hierarchyRun(t, "flp-stale-tree", [][]string{{"depot"}, {}}, "BottomUp")
+	ctx := context.Background()
+	// History ends Monday 2026-02-23; horizon 8 weeks: the last forecast week ends 2026-04-27.
+	late := Env{Now: func() time.Time { return time.Date(2026, 4, 27, 0, 0, 0, 0, time.UTC) }, Workers: 2}
+	_, err := RunPlan(ctx, cfg, late)
+	if ExitCode(err) != 3 || err == nil || !strings.Contains(err.Error(), "stale input: its newest period 2026-02-23 is at least 8 periods before the cutoff 2026-04-27T00:00:00Z") {
+		t.Fatalf("plan at 2026-04-27: exit %d, %v", ExitCode(err), err)
+	}
+	inTime := Env{Now: func() time.Time { return time.Date(2026, 4, 26, 23, 0, 0, 0, time.UTC) }, Workers: 2}
+	if _, err := RunPlan(ctx, cfg, inTime); err != nil {
+		t.Fatalf("plan at 2026-04-26 23:00: %v", err)
 	}
 }

@@ -96,9 +96,10 @@ type Publish struct {
 	// most this many runs in a row (0: never; configurations written before the field read
 	// as 0). At most MaxCarriedForwardPercent of the planned series may be carried.
 	MaxCarriedRuns int `json:"maxCarriedRuns"`
-	// MaxStalePeriods: above 0, a series whose last observation is more than this many
-	// periods before the cutoff is rejected as stale, and forecast periods that end at or
-	// before the cutoff are not published. 0 checks nothing.
+	// MaxStalePeriods: a series whose whole forecast ends at or before the cutoff is
+	// rejected as stale whatever the value; above 0, so is a series whose last observation
+	// is more than this many periods before the cutoff, and forecast periods that end at or
+	// before the cutoff are not published. 0 sets no limit short of the horizon.
 	MaxStalePeriods int `json:"maxStalePeriods"`
 }
 

@@ -45,7 +45,9 @@ type Options struct {
 	Frequency string
 	// Periods of history (default 730 days or 104 weeks), ending at End.
 	Periods int
-	// End is the last period of history (default 2026-11-30, a Monday).
+	// End is the last period of history (default 2026-11-30, a Monday: a fixed date keeps the
+	// benchmarks and tests that take the default reproducible; the generate command defaults
+	// to LastComplete of the clock instead).
 	End time.Time
 	// SpareShare is the share of items that are intermittent spare parts (default 0.1;
 	// negative: none).
@@ -93,6 +95,19 @@ func (o Options) withDefaults() Options {
 		o.Seed = 1
 	}
 	return o
+}
+
+// LastComplete is the start of the last period of frequency (Daily or Weekly, weeks starting
+// on Mondays, in UTC) that has ended at now: yesterday for daily data, the Monday before the
+// current week's for weekly. History ending there is current: a run at now forecasts from the
+// period now is in, so none of its forecast is past.
+func LastComplete(frequency string, now time.Time) time.Time {
+	day := now.UTC().Truncate(24 * time.Hour)
+	if frequency == Weekly {
+		monday := day.AddDate(0, 0, -((int(day.Weekday()) + 6) % 7))
+		return monday.AddDate(0, 0, -7)
+	}
+	return day.AddDate(0, 0, -1)
 }
 
 // Validate reports the first invalid option.

@@ -180,3 +180,56 @@ func TestNegativeSpareShareMeansNone(t *testing.T) {
 		}
 	}
 }
+
+// The generate command's history ends at the last complete period before its clock (issue 18
+// case 6: with data ending on a fixed date, a run taking the clock as its cutoff would find the
+// whole forecast past once the calendar had moved on, and reject every series as stale);
+// --end still fixes it. Calendar facts (any calendar): 2026-12-04 is a Friday, 2026-11-30 and
+// 2026-11-23 Mondays.
+func TestGenerateEndsAtTheLastCompletePeriod(t *testing.T) {
+	for _, c := range []struct {
+		now, freq, want string
+	}{
+		{"2026-12-04T10:00:00Z", Weekly, "2026-11-23"},
+		{"2026-11-30T00:00:00Z", Weekly, "2026-11-23"}, // Monday 00:00: the week before has just ended
+		{"2026-11-29T23:59:59Z", Weekly, "2026-11-16"}, // Sunday: the current week began 2026-11-23
+		{"2026-12-04T10:00:00+05:00", Daily, "2026-12-03"},
+		{"2026-12-04T00:00:00Z", Daily, "2026-12-03"},
+	} {
+		now, _ := time.Parse(time.RFC3339, c.now)
+		if got := LastComplete(c.freq, now).Format(time.DateOnly); got != c.want {
+			t.Errorf("LastComplete(%s, %s) = %s, want %s", c.freq, c.now, got, c.want)
+		}
+	}
+	friday := func() time.Time { return time.Date(2026, 12, 4, 10, 0, 0, 0, time.UTC) }
+	lastRow := func(t *testing.T, args ...string) string {
+		t.Helper()
+		uri := "mem://flp-generate-" + strings.Join(args, "-") + "/"
+		var out, errb bytes.Buffer
+		if code := Main(context.Background(), append([]string{"--output", uri, "--items", "1", "--depots", "1", "--periods", "10"}, args...), &out, &errb, friday); code != 0 {
+			t.Fatalf("generate %v: exit %d: %s", args, code, errb.String())
+		}
+		st, err := store.Open(context.Background(), uri)
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := st.Get(context.Background(), ObjectKey(0, CSV))
+		if err != nil {
+			t.Fatal(err)
+		}
+		lines := strings.Split(strings.TrimSpace(string(b)), "\n")
+		return strings.Split(lines[len(lines)-1], ",")[2] + " | " + out.String()
+	}
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{nil, "2026-12-03 | generate: 1 series (1 items x 1 depots, 10 daily periods ending 2026-12-03)"},
+		{[]string{"--frequency", Weekly}, "2026-11-23 | generate: 1 series (1 items x 1 depots, 10 weekly periods ending 2026-11-23)"},
+		{[]string{"--end", "2026-11-02", "--frequency", Weekly}, "2026-11-02 |"},
+	} {
+		if got := lastRow(t, c.args...); !strings.HasPrefix(got, c.want) {
+			t.Errorf("generate %v: last row and output %q, want %q", c.args, got, c.want)
+		}
+	}
+}

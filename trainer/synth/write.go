@@ -204,8 +204,8 @@ func (o Options) Write(ctx context.Context, st *store.Store, prefix, format stri
 	return keys, nil
 }
 
-// Main is the trainer's generate command.
-func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
+// Main is the trainer's generate command; now is the clock --end defaults from.
+func Main(ctx context.Context, args []string, stdout, stderr io.Writer, now func() time.Time) int {
 	fs := flag.NewFlagSet("generate", flag.ContinueOnError)
 	out := fs.String("output", "", "store `URI` to write depot-<name>.<format> objects under (required)")
 	format := fs.String("format", CSV, "csv or parquet")
@@ -214,7 +214,7 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	fs.IntVar(&o.Depots, "depots", 4, "depots")
 	fs.StringVar(&o.Frequency, "frequency", Daily, "Daily or Weekly")
 	fs.IntVar(&o.Periods, "periods", 0, "periods of history (default 730 days or 104 weeks)")
-	end := fs.String("end", "2026-11-30", "last period of history (YYYY-MM-DD; a Monday for weekly)")
+	end := fs.String("end", "", "last period of history (YYYY-MM-DD; a Monday for weekly; default the last complete period: yesterday, or the Monday of last week)")
 	fs.Float64Var(&o.SpareShare, "spare-share", 0.1, "share of items that are intermittent spare parts (negative: none)")
 	fs.IntVar(&o.Bad, "bad", 0, "number of deliberately defective series")
 	fs.Uint64Var(&o.Seed, "seed", 1, "random seed")
@@ -223,12 +223,19 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	if code, ok := cli.Parse(fs, "usage: almanac-trainer generate --output URI [flags]\nWrites a synthetic Fenwick Lane Provisions dataset, one object per depot.", args, stdout, stderr); !ok {
 		return code
 	}
-	t, err := time.Parse("2006-01-02", *end)
-	if err != nil || *out == "" {
-		fmt.Fprintln(stderr, "almanac-trainer generate: --output URI and a valid --end are required")
+	if *out == "" {
+		fmt.Fprintln(stderr, "almanac-trainer generate: --output URI is required")
 		return exitcode.Config
 	}
-	o.End = t
+	o.End = LastComplete(o.Frequency, now())
+	if *end != "" {
+		t, err := time.Parse("2006-01-02", *end)
+		if err != nil {
+			fmt.Fprintf(stderr, "almanac-trainer generate: --end %q is not a date (YYYY-MM-DD)\n", *end)
+			return exitcode.Config
+		}
+		o.End = t
+	}
 	if err := o.Validate(); err != nil {
 		fmt.Fprintf(stderr, "almanac-trainer generate: %v\n", err)
 		return exitcode.Config
@@ -244,7 +251,8 @@ func Main(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "almanac-trainer generate: %v\n", err)
 		return exitcode.Transient
 	}
-	fmt.Fprintf(stdout, "generate: %d series (%d items x %d depots, %d %s periods) in %d objects under %s\n",
-		o.Series(), o.withDefaults().Items, o.withDefaults().Depots, o.withDefaults().Periods, strings.ToLower(o.withDefaults().Frequency), len(keys), st)
+	fmt.Fprintf(stdout, "generate: %d series (%d items x %d depots, %d %s periods ending %s) in %d objects under %s\n",
+		o.Series(), o.withDefaults().Items, o.withDefaults().Depots, o.withDefaults().Periods, strings.ToLower(o.withDefaults().Frequency),
+		o.End.Format(time.DateOnly), len(keys), st)
 	return exitcode.OK
 }

@@ -52,10 +52,13 @@ const (
 
 // The demo's data: items per depot, depots, and the two history ends (both Mondays). The
 // first run sees history up to firstEnd; four weeks of actuals later the second run does.
+// secondEnd is the Monday of the current week: the runs take the clock as their cutoff, and a
+// history on fixed dates would, once the calendar passed its horizon, have every forecast
+// rejected as stale (issue 18 case 6).
 var (
 	items, depots = 150, 4
-	firstEnd      = time.Date(2026, 11, 2, 0, 0, 0, 0, time.UTC)
-	secondEnd     = time.Date(2026, 11, 30, 0, 0, 0, 0, time.UTC)
+	secondEnd     = synth.LastComplete(synth.Weekly, time.Now()).AddDate(0, 0, 7)
+	firstEnd      = secondEnd.AddDate(0, 0, -28)
 	firstPeriods  = 100
 )
 

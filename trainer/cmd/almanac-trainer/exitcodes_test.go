@@ -16,6 +16,7 @@ import (
 	"almanac.dev/almanac/test/s3test"
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/synth"
 )
 
 // TestMain lets the test binary stand in for the trainer: with ALMANAC_TRAINER_PROCESS set it
@@ -65,11 +66,13 @@ func trainerProcess(t *testing.T, env []string, args ...string) (int, summary.Su
 	return code, s, stderr.String()
 }
 
-// dailyCSV is a Fenwick Lane Provisions history (invented): items x 60 days ending 2026-03-01.
+// dailyCSV is a Fenwick Lane Provisions history (invented): items x 60 days ending yesterday.
+// The trainer processes take the real clock as their cutoff, so a fixed end date would find
+// the whole 7-day forecast past (every series rejected as stale) once the calendar passed it.
 func dailyCSV(items ...string) []byte {
 	var b bytes.Buffer
 	b.WriteString("item,date,value\n")
-	end := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	end := synth.LastComplete(synth.Daily, time.Now())
 	for n, item := range items {
 		for d := 59; d >= 0; d-- {
 			day := end.AddDate(0, 0, -d)

@@ -67,7 +67,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer, getenv fu
 	case "validate":
 		return validate(args[1:], os.Stdin, stdout, stderr)
 	case "generate":
-		return synth.Main(ctx, args[1:], stdout, stderr)
+		return synth.Main(ctx, args[1:], stdout, stderr, clock)
 	case "bench":
 		return bench.Main(args[1:], stdout, stderr)
 	case "report":
