@@ -53,9 +53,11 @@ func TestBrokenObjectAtPlanIsCarriedForward(t *testing.T) {
 				cfg := func(run string) *runconfig.Config {
 					c := testConfig(run, "file://"+dir+"/in/", "file://"+dir+"/out")
 					c.Source.Partitioning = layout
-					// Hash buckets carry brill's series one by one, which the minimums do not
-					// count as forecast: 4 of the 6 the first run published.
-					c.Publish = &runconfig.Publish{MinForecastPercent: 80, MinPreviousPercent: 60, MaxCarriedForwardPercent: 50, MaxCarriedRuns: 3}
+					// The default guard for both layouts: hash buckets carry brill's series one
+					// by one, and those count as forecast as brill's unit carried whole does
+					// with Objects (6 of the 6 the first run published; before they counted,
+					// 4 of 6 fell below minPreviousPercent 80 and the run was refused).
+					c.Publish = nil
 					return c
 				}
 				runAll(t, cfg("flp-0001"))
@@ -94,8 +96,8 @@ func TestBrokenObjectAtPlanIsCarriedForward(t *testing.T) {
 					return
 				}
 				// OATS and HONEY of brill were forecast by flp-0001; JAM never was.
-				if m.Totals.Series.Carried != 2 || m.Totals.Series.Trained != 4 {
-					t.Fatalf("totals %+v, want 2 series carried and 4 forecast", m.Totals.Series)
+				if m.Totals.Series.Carried != 2 || m.Totals.Series.CarriedBroken != 2 || m.Totals.Series.Trained != 4 {
+					t.Fatalf("totals %+v, want 2 series carried for the broken object and 4 forecast", m.Totals.Series)
 				}
 			})
 		}
@@ -110,7 +112,7 @@ func TestObjectBrokenAfterPlanFailsNoHashShard(t *testing.T) {
 	putInput(t, mustOpen(t, "file://"+dir))
 	cfg := func(run string) *runconfig.Config {
 		c := testConfig(run, "file://"+dir+"/in/", "file://"+dir+"/out")
-		c.Publish = &runconfig.Publish{MinForecastPercent: 50, MinPreviousPercent: 60, MaxCarriedForwardPercent: 50, MaxCarriedRuns: 3}
+		c.Publish = nil // the default guard: brill's carried series count as forecast
 		return c
 	}
 	runAll(t, cfg("flp-0001"))
@@ -134,7 +136,7 @@ func TestObjectBrokenAfterPlanFailsNoHashShard(t *testing.T) {
 		t.Fatalf("publish %+v, %v", s, err)
 	}
 	m := checkPublished(t, mustOpen(t, cfg("flp-0002").Output.URI), "flp-0002")
-	if m.Totals.Series.Carried != 2 || m.Totals.Series.Trained != 4 || m.Totals.Trained != m.Totals.Units {
+	if m.Totals.Series.Carried != 2 || m.Totals.Series.CarriedBroken != 2 || m.Totals.Series.Trained != 4 || m.Totals.Trained != m.Totals.Units {
 		t.Fatalf("totals %+v", m.Totals)
 	}
 }

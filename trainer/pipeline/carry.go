@@ -31,11 +31,18 @@ import (
 //
 // The forecast is not shortened: periods that are already past stay in it, as a reader of the
 // previous run saw them. The series stays rejected in the counts (Counts.Rejected) and counts
-// in Counts.Carried; the publish guard does not count it as forecast.
+// in Counts.Carried. The publish guard does not count it as forecast unless its rows were in
+// a broken object (absent from the input, or dropped by loadBuckets): those are also counted
+// in the returned broken (Counts.CarriedBroken) and count as forecast, as the series of a
+// broken object's unit carried forward whole do with the Objects layout.
 func carryForward(ctx context.Context, out *store.Store, keys []string, levels []float64, maxRuns int,
-	prev *Manifest, u *loaded, rejected []tables.RejectedRow) ([]tables.RejectedRow, []tables.ForecastRow, int, error) {
+	prev *Manifest, u *loaded, rejected []tables.RejectedRow) (_ []tables.RejectedRow, _ []tables.ForecastRow, n, broken int, _ error) {
 	if prev == nil || maxRuns <= 0 || (len(rejected) == 0 && len(u.broken) == 0) {
-		return rejected, nil, 0, nil
+		return rejected, nil, 0, 0, nil
+	}
+	inBroken := map[string]bool{}
+	for key := range u.dropped {
+		inBroken[key] = true
 	}
 	at := make(map[string]int, len(rejected))
 	for i, r := range rejected {
@@ -70,13 +77,14 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 			continue // pruned: nothing to carry
 		}
 		if err != nil {
-			return nil, nil, 0, err
+			return nil, nil, 0, 0, err
 		}
 		same := slices.Equal(h.Quantiles, levels)
 		for _, r := range fcs {
 			if _, ok := at[r.Key]; !ok && absent != "" && !present[r.Key] {
 				rejected = append(rejected, tables.RejectedRow{Key: r.Key, Reason: absent})
 				at[r.Key] = len(rejected) - 1
+				inBroken[r.Key] = true
 			}
 			if _, ok := at[r.Key]; !ok {
 				continue
@@ -93,7 +101,6 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 		}
 	}
 	var carried []tables.ForecastRow
-	n := 0
 	for key, i := range at {
 		rs := rows[key]
 		switch {
@@ -107,6 +114,9 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 			rejected[i].Reason += fmt.Sprintf("; the forecast from %s is carried forward (%d of at most %d runs)", rs[0].CarriedFrom, rs[0].CarriedRuns, maxRuns)
 			carried = append(carried, rs...)
 			n++
+			if inBroken[key] {
+				broken++
+			}
 		}
 	}
 	sort.SliceStable(carried, func(i, j int) bool {
@@ -116,5 +126,5 @@ func carryForward(ctx context.Context, out *store.Store, keys []string, levels [
 		return carried[i].Step < carried[j].Step
 	})
 	sort.SliceStable(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
-	return rejected, carried, n, nil
+	return rejected, carried, n, broken, nil
 }

@@ -148,7 +148,7 @@ func TestCarriedSeriesAreCapped(t *testing.T) {
 	capped.MaxCarriedForwardPercent = 10 // 1 of 7 series is 14%
 	_, _, _, err := carriedRun(t, dir, "flp-0002", capped)
 	refusedLeavesLatest(t, &runconfig.Config{Run: "flp-0002", Output: runconfig.Output{URI: "file://" + dir + "/out"}}, "flp-0001", err,
-		"1 of 7 planned series carried forward one by one, the guard allows 10% (publish.maxCarriedForwardPercent)")
+		"1 of 7 series carried forward one by one, the guard allows 10% (publish.maxCarriedForwardPercent)")
 	off := guard
 	off.MaxCarriedRuns = 0
 	m, _, _, err := carriedRun(t, dir, "flp-0003", off)

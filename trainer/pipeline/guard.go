@@ -20,22 +20,27 @@ var ErrRefused = errors.New("too few forecasts to publish")
 
 // guard applies the publish guard g to a manifest about to be written and returns why the run
 // may not be published, or "". Published series are the trained series of every unit that has
-// files (this run's units and carried-forward ones): what a reader following latest.json
-// would find. The checks, each off at 0 (100 for the cap):
+// files (this run's units and carried-forward ones), plus the series carried forward one by one
+// because their rows were in a broken input object (Counts.CarriedBroken, hash buckets): what a
+// reader following latest.json would find, counted alike for both layouts (with Objects a
+// broken object's unit is carried forward whole and its trained series count). The checks,
+// each off at 0 (100 for the cap):
 //
 //	published * 100 >= g.MinForecastPercent * (series plan counted)
 //	published * 100 >= g.MinPreviousPercent * (series the previous run published), when there is one
 //	(carried-forward + missing units) * 100 <= g.MaxCarriedForwardPercent * (units)
-//	(series carried forward one by one) * 100 <= g.MaxCarriedForwardPercent * (series plan counted)
+//	(series carried forward one by one) * 100 <= g.MaxCarriedForwardPercent * max(series plan counted, published)
 //
-// A series carried forward one by one (carryForward) was rejected by this run: it counts in
-// the last check and not as forecast in the first two, so carrying cannot hide a run that lost
-// its series.
+// Any other series carried forward one by one (carryForward) was rejected by this run: it
+// counts in the last check and not as forecast in the first two, so carrying cannot hide a run
+// that lost its series. The last check's base is at least published because the series of an
+// object broken at plan are not in the plan's count (as an Objects unit broken at plan is in
+// the unit count).
 //
 // Integer arithmetic, so 80% of 5 series needs 4, not 3.99. The thresholds are our own
 // choice (PROJECT-NOTES, sixth session: publish guard), not from a source.
 func guard(g runconfig.Publish, p *Plan, prev *Manifest, m *Manifest) string {
-	published := m.Totals.Series.Trained
+	published := m.Totals.Series.Trained + m.Totals.Series.CarriedBroken
 	var why []string
 	if published*100 < g.MinForecastPercent*p.Series {
 		why = append(why, fmt.Sprintf("%d of %d planned series forecast, the guard needs %d%% (publish.minForecastPercent)",
@@ -49,9 +54,9 @@ func guard(g runconfig.Publish, p *Plan, prev *Manifest, m *Manifest) string {
 		why = append(why, fmt.Sprintf("%d of %d units carried forward or missing, the guard allows %d%% (publish.maxCarriedForwardPercent)",
 			away, m.Totals.Units, g.MaxCarriedForwardPercent))
 	}
-	if c := m.Totals.Series.Carried; c*100 > g.MaxCarriedForwardPercent*p.Series {
-		why = append(why, fmt.Sprintf("%d of %d planned series carried forward one by one, the guard allows %d%% (publish.maxCarriedForwardPercent)",
-			c, p.Series, g.MaxCarriedForwardPercent))
+	if c, base := m.Totals.Series.Carried, max(p.Series, published); c*100 > g.MaxCarriedForwardPercent*base {
+		why = append(why, fmt.Sprintf("%d of %d series carried forward one by one, the guard allows %d%% (publish.maxCarriedForwardPercent)",
+			c, base, g.MaxCarriedForwardPercent))
 	}
 	return strings.Join(why, "; ")
 }

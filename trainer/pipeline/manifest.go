@@ -43,6 +43,10 @@ type Counts struct {
 	// Carried counts the rejected series whose previous forecast was carried forward, series
 	// by series (carryForward; publish.maxCarriedRuns).
 	Carried int `json:"carried,omitempty"`
+	// CarriedBroken counts the carried series whose rows were in a broken input object (hash
+	// buckets; part of Carried). The publish guard counts them as forecast, as it counts the
+	// series of a broken object's unit carried forward whole with the Objects layout.
+	CarriedBroken int `json:"carriedBroken,omitempty"`
 	// Models counts trained series by chosen model family.
 	Models map[string]int `json:"models,omitempty"`
 	// Designs counts trained series by the design that forecast them (design.Result.Design).

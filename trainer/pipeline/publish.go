@@ -263,6 +263,7 @@ func (t *Totals) add(e ManifestUnit) {
 	t.Series.Trained += e.Counts.Trained
 	t.Series.Rejected += e.Counts.Rejected
 	t.Series.Carried += e.Counts.Carried
+	t.Series.CarriedBroken += e.Counts.CarriedBroken
 	for f, n := range e.Counts.Models {
 		if t.Series.Models == nil {
 			t.Series.Models = map[string]int{}

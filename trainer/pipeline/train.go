@@ -461,9 +461,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		done.Calibration = &cal
 	}
 	var carried []tables.ForecastRow
-	nCarried, found := 0, len(rejected)
+	nCarried, nBroken, found := 0, 0, len(rejected)
 	if h == nil { // a hierarchy is reconciled over this run's series only: no per-series carry-forward
-		rejected, carried, nCarried, err = carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
+		rejected, carried, nCarried, nBroken, err = carryForward(ctx, out, cfg.Source.Columns.Series, st.Selection.Levels, cfg.PublishGuard().MaxCarriedRuns, prev, u, rejected)
 		if err != nil {
 			return done, err
 		}
@@ -485,7 +485,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		done.Levels = uh.levels(levelAcc)
 	}
 	done.Broken = u.broken
-	done.Counts = Counts{Series: len(u.series) + len(u.rejected) + len(rejected) - found, Trained: trained, Rejected: len(rejected), Carried: nCarried}
+	done.Counts = Counts{Series: len(u.series) + len(u.rejected) + len(rejected) - found, Trained: trained, Rejected: len(rejected), Carried: nCarried, CarriedBroken: nBroken}
 	if len(models) > 0 {
 		done.Counts.Models = models
 		done.Counts.Designs = designs
