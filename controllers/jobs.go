@@ -1,6 +1,8 @@
 package controllers
 
 import (
+	"time"
+
 	"strconv"
 
 	batchv1 "k8s.io/api/batch/v1"
@@ -97,6 +99,9 @@ type jobParams struct {
 	Shards int32
 	// Parallelism is the train Job's initial parallelism (ignored for plan and publish).
 	Parallelism int32
+	// Created is when the Job is created (the reconciler's clock); the trainer gets
+	// --step-deadline stepDeadline(Created, the Job's deadline). Zero passes none.
+	Created time.Time
 }
 
 // buildJob returns the Job of one step of run, from the portfolio spec.
@@ -127,6 +132,10 @@ func buildJob(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alpha
 				Spec:       podSpec(fp, run, s),
 			},
 		},
+	}
+	if !p.Created.IsZero() {
+		c := &job.Spec.Template.Spec.Containers[0]
+		c.Args = append(c.Args, "--step-deadline", stepDeadline(p.Created, *job.Spec.ActiveDeadlineSeconds).Format(time.RFC3339))
 	}
 	permanent := batchv1.PodFailurePolicyActionFailJob
 	if s == stepTrain {
@@ -196,8 +205,27 @@ func activeDeadline(sh forecastingv1alpha1.ShardingSpec, s step, p jobParams) in
 	return trainDeadlinePerWave * (waves + 1)
 }
 
+// stepDeadline is the time the trainer of a Job created at created with activeDeadlineSeconds
+// deadline must have ended by: the Job's deadline less a margin of a quarter of it, at most
+// maxStepMargin. The Job controller counts the deadline from the Job's start, which is not
+// before its creation, and kills every pod at it with no summary; a trainer past its own
+// deadline writes its summary and exits 4 (trainer/cmd: --step-deadline), which the run's
+// failure reason then quotes. The margin covers the trainer's stepGrace (10 s) for a call
+// that ignores cancellation, the summary's write and clock skew between controller and node.
+// Every pod of the Job gets the same time, so a retried pod or a later wave of shards stops
+// at it too (a --step-timeout would count from each pod's own start).
+func stepDeadline(created time.Time, deadline int64) time.Time {
+	d := time.Duration(deadline) * time.Second
+	return created.UTC().Add(d - min(d/4, maxStepMargin)).Truncate(time.Second)
+}
+
+// maxStepMargin bounds stepDeadline's margin (our choice: NTP keeps clocks within well under
+// a second; two minutes leaves room for a slow summary write and the grace).
+const maxStepMargin = 2 * time.Minute
+
 // podSpec is the trainer pod of one step: the image entrypoint with
-// args [step, --config, /etc/almanac/run/config.json, --termination-log, /dev/termination-log],
+// args [step, --config, /etc/almanac/run/config.json, --termination-log, /dev/termination-log]
+// (buildJob adds --step-deadline),
 // the run's ConfigMap read-only at /etc/almanac/run, an emptyDir at /tmp, the credentials
 // Secret's keys as environment variables, and ALMANAC_RUN and ALMANAC_PORTFOLIO. Train pods
 // take their shard from JOB_COMPLETION_INDEX, which the Job controller sets.

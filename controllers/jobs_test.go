@@ -1,6 +1,8 @@
 package controllers
 
 import (
+	"time"
+
 	"strings"
 	"testing"
 
@@ -60,7 +62,7 @@ func TestBuildPlanJobAndPod(t *testing.T) {
 	fp.Spec.Trainer.PriorityClassName = "batch-low"
 	fp.Spec.Trainer.NodeSelector = map[string]string{"pool": "forecast"}
 	run := fenwickRun("fenwick-weekly-29407950")
-	job := buildJob(fp, run, stepPlan, jobParams{})
+	job := buildJob(fp, run, stepPlan, jobParams{Created: time.Date(2026, 12, 7, 4, 30, 0, 0, time.UTC)})
 	if job.Spec.CompletionMode != nil || *job.Spec.Completions != 1 || *job.Spec.BackoffLimit != 2 {
 		t.Errorf("plan job spec: mode %v completions %d backoff %d", job.Spec.CompletionMode, *job.Spec.Completions, *job.Spec.BackoffLimit)
 	}
@@ -69,7 +71,9 @@ func TestBuildPlanJobAndPod(t *testing.T) {
 	}
 	pod := job.Spec.Template.Spec
 	c := pod.Containers[0]
-	wantArgs := []string{"plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log"}
+	// The plan Job's default deadline is 7200 s: the trainer must end 2 minutes before it.
+	wantArgs := []string{"plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log",
+		"--step-deadline", "2026-12-07T06:28:00Z"}
 	if diff := cmp.Diff(wantArgs, c.Args); diff != "" {
 		t.Errorf("args (-want,+got):\n%s", diff)
 	}
@@ -152,6 +156,62 @@ func TestJobDeadlines(t *testing.T) {
 	fp.Spec.Sharding.ActiveDeadlineSeconds = ptr.To[int64](900)
 	if got := buildJob(fp, run, stepTrain, jobParams{Shards: 400}).Spec.ActiveDeadlineSeconds; *got != 900 {
 		t.Errorf("declared 900: got %d", *got)
+	}
+}
+
+// Issue 18 case 2: every step's trainer gets --step-deadline, its Job's activeDeadlineSeconds
+// from the Job's creation less a margin (a quarter of the deadline, at most 2 minutes), so a
+// stalled pod writes its summary and exits 4 before the Job controller kills it. Every pod of
+// a Job gets the same time (a retry, a later wave of shards). Without it a stalled step ended
+// only at the Job's deadline, DeadlineExceeded with no summary.
+func TestStepDeadlineBelowTheJobDeadline(t *testing.T) {
+	fp := fenwickPortfolio()
+	fp.Spec.Sharding.MaxParallel = 4
+	run := fenwickRun("fenwick-weekly-29407950")
+	created := time.Date(2026, 12, 7, 4, 30, 0, 0, time.UTC)
+	deadlineArg := func(job *batchv1.Job) string {
+		args := job.Spec.Template.Spec.Containers[0].Args
+		for i, a := range args {
+			if a == "--step-deadline" && i+1 < len(args) {
+				return args[i+1]
+			}
+		}
+		return ""
+	}
+	for _, c := range []struct {
+		s        step
+		p        jobParams
+		declared int64
+		want     string
+	}{
+		{stepPlan, jobParams{}, 0, "2026-12-07T06:28:00Z"},                             // 7200 s - 120 s
+		{stepReconcile, jobParams{}, 0, "2026-12-07T05:28:00Z"},                        // 3600 s - 120 s
+		{stepPublish, jobParams{}, 0, "2026-12-07T05:28:00Z"},                          // 3600 s - 120 s
+		{stepTrain, jobParams{Shards: 9, Parallelism: 4}, 0, "2026-12-07T08:28:00Z"},   // 4 x 3600 s - 120 s
+		{stepTrain, jobParams{Shards: 9, Parallelism: 4}, 900, "2026-12-07T04:43:00Z"}, // declared 900 s - 120 s
+		{stepPublish, jobParams{}, 60, "2026-12-07T04:30:45Z"},                         // 60 s - 15 s (a quarter)
+		{stepTrain, jobParams{Shards: 1, Parallelism: 1}, 1, "2026-12-07T04:30:00Z"},   // 1 s - 0.25 s, to the second
+	} {
+		fp.Spec.Sharding.ActiveDeadlineSeconds = nil
+		if c.declared > 0 {
+			fp.Spec.Sharding.ActiveDeadlineSeconds = ptr.To(c.declared)
+		}
+		c.p.Created = created
+		job := buildJob(fp, run, c.s, c.p)
+		got := deadlineArg(job)
+		if got != c.want {
+			t.Errorf("%s %+v declared %d: --step-deadline %q, want %q", c.s, c.p, c.declared, got, c.want)
+			continue
+		}
+		at, _ := time.Parse(time.RFC3339, got)
+		if end := created.Add(time.Duration(*job.Spec.ActiveDeadlineSeconds) * time.Second); !at.Before(end) && *job.Spec.ActiveDeadlineSeconds > 1 {
+			t.Errorf("%s: --step-deadline %s is not before the Job's deadline %s", c.s, got, end)
+		}
+	}
+	// The trainer parses what the controller writes (the trainer's own flag test holds the
+	// parsing; here the layout): RFC 3339 in UTC.
+	if _, err := time.Parse(time.RFC3339, deadlineArg(buildJob(fp, run, stepPlan, jobParams{Created: created.In(time.FixedZone("", 3600))}))); err != nil {
+		t.Error(err)
 	}
 }
 

@@ -187,6 +187,19 @@ func TestExitCodeOfEveryCondition(t *testing.T) {
 			}
 			return localArgs(in, out, "r2", "--step-timeout", "1s")
 		}, nil, exitcode.Transient, "did not finish within --step-timeout 1s"},
+		// The controller passes --step-deadline (its Job's activeDeadlineSeconds less a margin):
+		// a stalled step ends with a summary at that time, not at the Job controller's kill.
+		{"an input object that never answers, past --step-deadline", func(t *testing.T) []string {
+			in, out := published(t)
+			if err := syscall.Mkfifo(path(in)+"depot-brill.csv", 0o644); err != nil {
+				t.Skip("no named pipes here:", err)
+			}
+			return localArgs(in, out, "r2", "--step-deadline", time.Now().Add(2*time.Second).UTC().Format(time.RFC3339))
+		}, nil, exitcode.Transient, "did not finish within --step-deadline "},
+		{"a step that starts after its --step-deadline", func(t *testing.T) []string {
+			in, out := published(t)
+			return localArgs(in, out, "r2", "--step-deadline", "2000-01-01T00:00:00Z")
+		}, nil, exitcode.Transient, "did not finish within --step-deadline 2000-01-01T00:00:00Z"},
 		{"an input object broken at plan (UTF-16; isolated, the run goes on)", func(t *testing.T) []string {
 			in, out := published(t)
 			utf16 := []byte{}

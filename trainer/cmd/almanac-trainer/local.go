@@ -90,7 +90,7 @@ func local(ctx context.Context, args []string, stdout, stderr io.Writer, env pip
 	if *file != "" || *cfgPath != "" {
 		for name := range set {
 			if !map[string]bool{"f": true, "config": true, "termination-log": true, "input": true, "output": true, "run": true, "workers": true,
-				"request-timeout": true, "step-timeout": true}[name] {
+				"request-timeout": true, "step-timeout": true, "step-deadline": true}[name] {
 				from := "-f"
 				if *cfgPath != "" {
 					from = "--config"

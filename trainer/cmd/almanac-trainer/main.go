@@ -92,10 +92,10 @@ func step(ctx context.Context, name string, args []string, stdout, stderr io.Wri
 	var bounds timeoutFlags
 	bounds.register(fs)
 	var shardFlag *string
-	use := fmt.Sprintf("usage: almanac-trainer %s --config FILE [--termination-log FILE] [--request-timeout D] [--step-timeout D]", name)
+	use := fmt.Sprintf("usage: almanac-trainer %s --config FILE [--termination-log FILE] [--request-timeout D] [--step-timeout D] [--step-deadline T]", name)
 	if name == "train" {
 		shardFlag = fs.String("shard", "", "shard `index` (default $JOB_COMPLETION_INDEX)")
-		use = "usage: almanac-trainer train --config FILE [--shard N] [--termination-log FILE] [--request-timeout D] [--step-timeout D]"
+		use = "usage: almanac-trainer train --config FILE [--shard N] [--termination-log FILE] [--request-timeout D] [--step-timeout D] [--step-deadline T]"
 	}
 	if code, ok := cli.Parse(fs, use, args, stdout, stderr); !ok {
 		return code
@@ -249,7 +249,8 @@ commands (the run's Jobs):
             verify every unit, carry forward failed ones, write MANIFEST.json, then latest.json
   They (and local) also take --request-timeout D (default 2m: a storage request that answers
   nothing, or a read or write that moves no byte, for that long fails with exit 4; 0 turns it
-  off) and --step-timeout D (default none: the whole command, past it exit 4).
+  off), --step-timeout D and --step-deadline T (RFC 3339) (default none: the whole command,
+  past the shorter bound exit 4; the controller passes its Job's deadline less a margin).
   The summary JSON (at most 4 KiB) goes to --termination-log (default /dev/termination-log;
   a path that cannot be written gives a warning), one line to stdout, logs to stderr.
 
@@ -280,7 +281,8 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
      an input folder with no objects; or a damaged manifest of a run named as previousRun (a
      damaged latest.json is not an error: publish rebuilds it from the newest intact manifest)
   4  transient storage error: refused connections, server errors, a storage request with no
-     answer within --request-timeout (default 2m) or a command past --step-timeout
+     answer within --request-timeout (default 2m) or a command past --step-timeout or
+     --step-deadline
   5  publish refused: fewer series forecast than the run's publish guard needs, or too many
      units carried forward; no manifest is written and latest.json stays where it was; also
      reconcile and publish of a hierarchy that spans units when a unit was not trained by
