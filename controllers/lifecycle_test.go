@@ -177,7 +177,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 		name := runName(fp.Name, due)
 
 		plan := getJob(ns, name, stepPlan)
-		Expect(plan.Spec.Template.Spec.Containers[0].Args).To(HaveExactElements("plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log"))
+		// --step-deadline: the Job's deadline from the reconciler's clock at creation, less the
+		// margin (TestStepDeadlineBelowTheJobDeadline holds the arithmetic).
+		Expect(plan.Spec.Template.Spec.Containers[0].Args).To(HaveExactElements("plan", "--config", "/etc/almanac/run/config.json", "--termination-log", "/dev/termination-log",
+			"--step-deadline", stepDeadline(fakeClock.Now(), *plan.Spec.ActiveDeadlineSeconds).Format(time.RFC3339)))
+		Expect(stepDeadline(fakeClock.Now(), *plan.Spec.ActiveDeadlineSeconds)).To(BeTemporally("<", fakeClock.Now().Add(time.Duration(*plan.Spec.ActiveDeadlineSeconds)*time.Second)))
 		Expect(metav1.IsControlledBy(plan, getRun(ns, name))).To(BeTrue())
 		conf := configOf(ns, name)
 		Expect(conf["quantilePercents"]).To(Equal([]any{10.0, 50.0, 90.0}))

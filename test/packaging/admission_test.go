@@ -113,7 +113,7 @@ func TestAdmissionPolicyRefusesWithoutRights(t *testing.T) {
 			map[string]any{"apiGroups": []any{"forecasting.almanac.dev"}, "resources": []any{"forecastportfolios"}, "verbs": []any{"get", "create", "update", "patch"}}}}),
 		obj("rbac.authorization.k8s.io/v1", "Role", ns, "planning-credentials", map[string]any{"rules": []any{
 			map[string]any{"apiGroups": []any{""}, "resources": []any{"secrets"}, "resourceNames": []any{"fenwick-planning-s3"}, "verbs": []any{"get"}},
-			map[string]any{"apiGroups": []any{""}, "resources": []any{"serviceaccounts"}, "resourceNames": []any{"fenwick-cloud"}, "verbs": []any{"impersonate"}}}}),
+			map[string]any{"apiGroups": []any{""}, "resources": []any{"serviceaccounts"}, "resourceNames": []any{"fenwick-cloud", "default"}, "verbs": []any{"impersonate"}}}}),
 		binding(ns, "edit-ana", "portfolio-editor", "ana"), binding(ns, "edit-bo", "portfolio-editor", "bo"),
 		binding(ns, "credentials-bo", "planning-credentials", "bo"),
 	)
@@ -144,6 +144,13 @@ func TestAdmissionPolicyRefusesWithoutRights(t *testing.T) {
 		s["trainer"].(map[string]any)["serviceAccountName"] = "almanac-trainer" // the install's, no rights
 	})
 	both := portfolio(func(s map[string]any) { s["trainer"].(map[string]any)["serviceAccountName"] = "fenwick-cloud" })
+	// No ServiceAccount named: the pods run as the namespace's default one, which is checked
+	// like a named one (it used to be let through: a user who may not create pods then had
+	// pods run as it through the controller).
+	unnamed := portfolio(func(s map[string]any) {
+		delete(s["source"].(map[string]any), "credentialsSecretRef")
+		delete(s["trainer"].(map[string]any), "serviceAccountName")
+	})
 	foreignImage := portfolio(func(s map[string]any) {
 		s["trainer"].(map[string]any)["image"] = "registry.example.com/almanac-fork/almanac-trainer:1"
 	})
@@ -179,6 +186,8 @@ func TestAdmissionPolicyRefusesWithoutRights(t *testing.T) {
 		{"secret without get", ana, withSecret, "spec.source.credentialsSecretRef: user ana may not get Secret depot-north/fenwick-planning-s3"},
 		{"service account without impersonate", ana, withAccount, "spec.trainer.serviceAccountName: user ana may neither impersonate ServiceAccount depot-north/fenwick-cloud nor create pods in namespace depot-north"},
 		{"the install's trainer account, no secret", ana, plain, ""},
+		{"no account named, without impersonate on the default one", ana, unnamed, "spec.trainer.serviceAccountName (unset: the pods run as the namespace's default ServiceAccount): user ana may neither impersonate ServiceAccount depot-north/default nor create pods in namespace depot-north"},
+		{"no account named, with impersonate on the default one", bo, unnamed, ""},
 		{"secret and account with the rights", bo, both, ""},
 		{"image outside the allowlist", bo, foreignImage, `spec.trainer.image: "registry.example.com/almanac-fork/almanac-trainer:1" is not in the install's allowed trainer images (registry.example.com/almanac/)`},
 		{"image outside the allowlist, cluster admin", admin, foreignImage, "is not in the install's allowed trainer images"},
