@@ -38,15 +38,17 @@ import (
 // nodes over the unit's series (histories, not forecasts: a shard that holds part of an item's
 // depots cannot forecast the item's total, and a sum of partial forecasts is the bottom-up
 // forecast, which forgoes what the aggregate's own history shows), together with the base
-// forecasts and one-step residuals of every node it forecast (nodes.json). The reconcile step
+// forecasts and backtest errors of every node it forecast (nodes.json). The reconcile step
 // adds the partial sums into the spanning nodes' histories, forecasts them with the same design,
 // and reconciles the whole tree at once from the base forecasts (one projection over all nodes is
 // the MinT optimum; reconciling sub-trees and then the top separately is not), replacing the
 // units' forecasts with the reconciled ones (RunReconcile).
 //
 // Weights. VarianceScaling and the MinT methods estimate W from every node's rolling-origin
-// backtest errors of its published forecast (selection.Result.BacktestErrors), not from one-step
-// in-sample residuals: a forecast of h steps errs by what the next h periods bring, and a shock
+// backtest errors of its published forecast (selection.Result.BacktestErrors, measured at
+// hierarchyErrorOrigins origins one horizon apart: the selection's own origins are a step apart,
+// share most target periods and show one stretch of history), not from one-step in-sample
+// residuals: a forecast of h steps errs by what the next h periods bring, and a shock
 // common to many series (a season stronger than the history showed) makes the bottom series'
 // multi-step errors correlate where their one-step residuals hardly do (BenchmarkHierarchy logs
 // both; PROJECT-NOTES, "why depot totals lose"). Wickramasuriya, Athanasopoulos & Hyndman (2019,
@@ -62,21 +64,21 @@ import (
 // unit spread would instead weight the short steps as much as the long ones, whose errors are the
 // ones the planners see largest. Caveat: the columns of one origin are serially correlated, so the
 // shrinkage intensity's variance estimate treats dependent draws as independent (λ comes out
-// smaller than for independent draws). Memory: origins × horizon numbers per node (36 at the
-// defaults' 3 origins and a horizon of 12), whatever the history length.
+// smaller than for independent draws). Memory: origins × horizon numbers per node (60 for weekly
+// data at a horizon of 12, at most MaxErrorOrigins × horizon), whatever the history length.
 //
 // Quantiles come from the reconciled backtest errors (issue 21 offers sample paths or these).
 // The projection is linear, ỹ = P ŷ with P = S G, and the actuals of one origin are coherent
 // (aggregate histories are sums of the bottom histories), so P y = y and the reconciled forecast's
 // error at an origin is ẽ = y − P ŷ = P (y − ŷ) = P e: the same reconciliation applied to the
-// backtest errors. reconcileTree reconciles every error column with the run's method (and the
-// same W), without the non-negativity constraint (an error may be negative; for non-negative
-// runs P e is the error of the unconstrained projection, an approximation where the constraint
-// binds), with a node's missing error counted as 0 in the product. Each node's bands are then
-// selection.EmpiricalQuantiles of its reconciled errors at the origins where it has its own
-// error, around its reconciled mean (the spread per step from the errors, the shape pooled over
-// steps and shrunk towards the normal), clipped at zero for non-negative data: non-decreasing
-// in the level and finite by construction. A node without backtest errors (a constant series, a
+// backtest errors. reconcileErrors reconciles every error column with the run's method, each
+// origin with the W of the other origins when W comes from these errors (leave one origin out),
+// without the non-negativity constraint (an error may be negative; for non-negative runs P e is
+// the error of the unconstrained projection, an approximation where the constraint binds), with
+// a node's missing error counted as 0 in the product. Each node's bands are then errorBands of
+// its reconciled errors at the origins where it has its own errors, around its reconciled mean
+// (the spread per step from the errors, Student's t for the n origins it rests on), clipped at
+// zero for non-negative data: non-decreasing in the level and finite by construction. A node without backtest errors (a constant series, a
 // fallback model) keeps its own base spread re-centred on the reconciled mean (q̃ = q̂ + ỹ − ŷ).
 // Quantiles of sums are not sums of quantiles, so coherence is promised for the means only.
 
@@ -306,7 +308,7 @@ func (x *floats) UnmarshalJSON(b []byte) error {
 const NodesVersion = 2
 
 // NodesFile is nodes.json, what a unit of a hierarchical run leaves for the reconcile step:
-// the base (unreconciled) forecasts and residuals of every node train forecast, and the
+// the base (unreconciled) forecasts and backtest errors of every node train forecast, and the
 // unit's partial sums of the spanning nodes. Listed in unit.json as table "nodes".
 type NodesFile struct {
 	Version int    `json:"version"`

@@ -49,7 +49,7 @@ type Reconciled struct {
 
 // RunReconcile is the reconcile command, run between train and publish when the plan says
 // Reconcile. It reads only what the shards wrote: every unit's unit.json and nodes.json (base
-// forecasts and residuals of the bottom series and within-unit aggregates, partial sums of the
+// forecasts and backtest errors of the bottom series and within-unit aggregates, partial sums of the
 // spanning nodes). It adds the partial sums into the spanning nodes' histories, forecasts them
 // with the run's design, evaluates the previous run's spanning forecasts against those
 // histories, reconciles the whole tree at once, and writes each unit's reconciled forecasts
@@ -233,8 +233,8 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 	sum.Levels = rec.Levels
 	sum.MaxDeviation = tr.deviation
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
-	env.logf("reconcile: %s: %d nodes (%d spanning) reconciled by %s, largest deviation %.3g%s",
-		cfg.Run, len(nodes), len(mr), tr.method, tr.deviation, noteText(tr.note))
+	env.logf("reconcile: %s: %d nodes (%d spanning) reconciled by %s, largest deviation %.3g%s%s",
+		cfg.Run, len(nodes), len(mr), tr.method, tr.deviation, noteText(tr.note), noteText(tr.bands))
 	return sum, nil
 }
 
