@@ -304,6 +304,11 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 			Expect(strings.TrimSpace(reasons[key])).NotTo(BeEmpty())
 		}
 		Expect(reasons).To(HaveLen(len(want)))
+
+		if trainerEntrypoint != "" {
+			By("checking that the trainer image's pods wrote everything as the image's user, 65532")
+			expectOwnedByImageUser(d.output)
+		}
 	}, SpecTimeout(3*time.Minute))
 
 	It("reports AccuracyDrift after a level shift and, with action Retrain, starts a Drift run", func(ctx SpecContext) {

@@ -57,15 +57,17 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 	out, err := build.CombinedOutput()
 	Expect(err).NotTo(HaveOccurred(), "build test program: %s", out)
 
-	images, crds, err := almanacImages(ctx, suiteDir) // fixtures_test.go: trainer and its wrappers
+	images, sandboxed, crds, err := almanacImages(ctx, suiteDir) // fixtures_test.go: trainer and its wrappers
 	Expect(err).NotTo(HaveOccurred())
 	images[progImage] = prog
 
 	start := time.Now()
 	cluster, err = harness.Start(ctx, harness.Options{
-		Dir:     suiteDir,
-		Images:  images,
-		CRDDirs: crds,
+		Dir:        suiteDir,
+		Images:     images,
+		Sandboxed:  sandboxed,
+		SharedDirs: []string{storageDir},
+		CRDDirs:    crds,
 	})
 	Expect(err).NotTo(HaveOccurred())
 	DeferCleanup(func() {

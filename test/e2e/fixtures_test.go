@@ -30,6 +30,7 @@ import (
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 	"almanac.dev/almanac/controllers"
 	"almanac.dev/almanac/test/e2e/harness"
+	"almanac.dev/almanac/test/sandbox"
 	"almanac.dev/almanac/trainer/synth"
 )
 
@@ -50,33 +51,51 @@ const (
 	lingeringImage = "fenwick-lane/almanac-trainer:lingering"
 )
 
-// trainerBinary is the built almanac-trainer; markerDir and gateDir are the wrappers' state.
-var trainerBinary, markerDir, gateDir string
+// trainerBinary is the trainer on the host (built, or the image's file); markerDir and gateDir
+// are the wrappers' state; storageDir holds every scenario's file:// input and output.
+var trainerBinary, markerDir, gateDir, storageDir string
 
-// almanacImages builds the trainer into dir (or, with ALMANAC_IMAGES set, takes it from the
-// trainer image, see imageEntrypoint) and writes the wrappers; it returns the image map entries
-// and the CRD directory for the suite's cluster.
-func almanacImages(ctx context.Context, dir string) (map[string]string, []string, error) {
+// trainerEntrypoint is the trainer's path inside its image when trainerImage pods run in the
+// image's root (test/sandbox), "" when they run trainerBinary on the host.
+var trainerEntrypoint string
+
+// almanacImages builds the trainer into dir, or, with ALMANAC_IMAGES set, unpacks the trainer
+// image (bin/almanac-trainer.oci.tar) and takes its binary; as root, trainerImage pods then run
+// in that image's root as their security context says (localnode's Sandboxed images), the
+// wrappers below still on the host. It writes the wrappers and returns localnode's image map,
+// its sandboxed images, and the CRD directory for the suite's cluster.
+func almanacImages(ctx context.Context, dir string) (map[string]string, map[string]*sandbox.Image, []string, error) {
 	trainerBinary = filepath.Join(dir, "almanac-trainer")
+	var sandboxed map[string]*sandbox.Image
 	if images := os.Getenv("ALMANAC_IMAGES"); images != "" {
-		// The binary the trainer image holds (make images), not one built here.
 		archive := filepath.Join(images, "almanac-trainer.oci.tar")
-		entry, err := imageEntrypoint(archive, trainerBinary)
+		img, err := unpackImage(archive, filepath.Join(dir, "images", "almanac-trainer"))
 		if err != nil {
-			return nil, nil, fmt.Errorf("ALMANAC_IMAGES is set: %w", err)
+			return nil, nil, nil, fmt.Errorf("ALMANAC_IMAGES is set: %w", err)
 		}
-		fmt.Fprintf(os.Stderr, "e2e: trainer binary %s from %s\n", entry, archive)
+		trainerBinary = filepath.Join(img.Root, img.Entrypoint[0])
+		if err := sandbox.Available(); err != nil {
+			fmt.Fprintf(os.Stderr, "e2e: trainer binary %s from %s, run on the host: %v\n", img.Entrypoint[0], archive, err)
+		} else {
+			sandboxed = map[string]*sandbox.Image{trainerImage: img}
+			trainerEntrypoint = img.Entrypoint[0]
+			fmt.Fprintf(os.Stderr, "e2e: %s pods run %s in the image's root from %s\n", trainerImage, img.Entrypoint[0], archive)
+		}
 	} else {
 		build := exec.CommandContext(ctx, "go", "build", "-o", trainerBinary, "../../trainer/cmd/almanac-trainer")
 		build.Env = append(os.Environ(), "CGO_ENABLED=0")
 		if out, err := build.CombinedOutput(); err != nil {
-			return nil, nil, fmt.Errorf("build almanac-trainer: %v: %s", err, out)
+			return nil, nil, nil, fmt.Errorf("build almanac-trainer: %v: %s", err, out)
 		}
+	}
+	storageDir = filepath.Join(dir, "storage")
+	if err := os.MkdirAll(storageDir, 0o755); err != nil {
+		return nil, nil, nil, err
 	}
 	markerDir, gateDir = filepath.Join(dir, "markers"), filepath.Join(dir, "gates")
 	for _, d := range []string{markerDir, gateDir} {
 		if err := os.MkdirAll(d, 0o755); err != nil {
-			return nil, nil, err
+			return nil, nil, nil, err
 		}
 	}
 	wrappers := map[string]string{
@@ -96,7 +115,7 @@ fi`, gateDir),
 		path := filepath.Join(dir, "almanac-trainer-"+name)
 		script := "#!/bin/sh\n" + body + "\nexec " + trainerBinary + " \"$@\"\n"
 		if err := os.WriteFile(path, []byte(script), 0o755); err != nil {
-			return nil, nil, err
+			return nil, nil, nil, err
 		}
 		images[map[string]string{"flaky": flakyImage, "broken": brokenImage, "gated": gatedImage}[name]] = path
 	}
@@ -109,10 +128,10 @@ while [ ! -e %[2]s/"$ALMANAC_PORTFOLIO" ]; do sleep 0.2; done
 exit $rc
 `, trainerBinary, gateDir)
 	if err := os.WriteFile(lingering, []byte(script), 0o755); err != nil {
-		return nil, nil, err
+		return nil, nil, nil, err
 	}
 	images[lingeringImage] = lingering
-	return images, []string{"../../config/crd/bases"}, nil
+	return images, sandboxed, []string{"../../config/crd/bases"}, nil
 }
 
 // manager is the almanac manager of the scenarios, run in the test process so that a scenario
@@ -190,13 +209,17 @@ type dataset struct {
 	dir, data, output string
 }
 
-// newDataset makes the directories under a fresh temporary directory.
+// newDataset makes the directories under a fresh directory of storageDir; the output is
+// writable by any user (the trainer image's pods run as 65532), as a bucket the trainer's
+// credentials may write.
 func newDataset() dataset {
-	dir, err := os.MkdirTemp(suiteDir, "data-")
+	dir, err := os.MkdirTemp(storageDir, "data-")
 	Expect(err).NotTo(HaveOccurred())
+	Expect(os.Chmod(dir, 0o755)).To(Succeed()) // MkdirTemp's 0700 would stop any other user
 	d := dataset{dir: dir, data: filepath.Join(dir, "in"), output: filepath.Join(dir, "out")}
 	Expect(os.MkdirAll(d.data, 0o755)).To(Succeed())
 	Expect(os.MkdirAll(d.output, 0o755)).To(Succeed())
+	Expect(os.Chmod(d.output, 0o777)).To(Succeed())
 	return d
 }
 
@@ -395,13 +418,16 @@ func podsRunning(ctx context.Context, ns, portfolio string) []string {
 	return out
 }
 
-// trainerProcesses returns the command lines of live processes running the suite's trainer.
+// trainerProcesses returns the command lines of live processes running the suite's trainer:
+// on the host (trainerBinary in the command line, wrappers included) or in the image's root
+// (argv[0] the image's entrypoint).
 func trainerProcesses() []string {
 	entries, _ := os.ReadDir("/proc")
 	var out []string
 	for _, e := range entries {
 		b, err := os.ReadFile(filepath.Join("/proc", e.Name(), "cmdline"))
-		if err != nil || !strings.Contains(string(b), trainerBinary) {
+		argv0, _, _ := strings.Cut(string(b), "\x00")
+		if err != nil || !(strings.Contains(string(b), trainerBinary) || (trainerEntrypoint != "" && argv0 == trainerEntrypoint)) {
 			continue
 		}
 		if stat, err := os.ReadFile(filepath.Join("/proc", e.Name(), "stat")); err == nil {

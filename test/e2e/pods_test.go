@@ -32,6 +32,21 @@ func getPod(ctx context.Context, ns, name string) func(Gomega) *corev1.Pod {
 	}
 }
 
+// expectWaiting waits up to 20 s until the pod is in phase with its one container waiting for
+// reason, with a message containing message.
+func expectWaiting(ctx context.Context, ns, name string, phase corev1.PodPhase, reason, message string) {
+	GinkgoHelper()
+	Eventually(func(g Gomega) {
+		p := getPod(ctx, ns, name)(g)
+		g.Expect(p.Status.Phase).To(Equal(phase))
+		g.Expect(p.Status.ContainerStatuses).To(HaveLen(1))
+		w := p.Status.ContainerStatuses[0].State.Waiting
+		g.Expect(w).NotTo(BeNil())
+		g.Expect(w.Reason).To(Equal(reason))
+		g.Expect(w.Message).To(ContainSubstring(message))
+	}).WithTimeout(20 * time.Second).WithPolling(200 * time.Millisecond).Should(Succeed())
+}
+
 var _ = Describe("localnode pod handling", func() {
 	It("fails a pod whose image is not in the map, with a waiting reason", func(ctx SpecContext) {
 		ns := newNamespace(ctx, "image")
@@ -39,15 +54,7 @@ var _ = Describe("localnode pod handling", func() {
 		pod.Spec.Containers[0].Image = "fenwick-lane/unknown:1"
 		_, err := cluster.Client.CoreV1().Pods(ns).Create(ctx, pod, metav1.CreateOptions{})
 		Expect(err).NotTo(HaveOccurred())
-		Eventually(func(g Gomega) {
-			p := getPod(ctx, ns, "unknown-image")(g)
-			g.Expect(p.Status.Phase).To(Equal(corev1.PodFailed))
-			g.Expect(p.Status.ContainerStatuses).To(HaveLen(1))
-			w := p.Status.ContainerStatuses[0].State.Waiting
-			g.Expect(w).NotTo(BeNil())
-			g.Expect(w.Reason).To(Equal("ErrImagePull"))
-			g.Expect(w.Message).To(ContainSubstring(`"fenwick-lane/unknown:1" is not in localnode's image map`))
-		}).WithTimeout(20 * time.Second).WithPolling(200 * time.Millisecond).Should(Succeed())
+		expectWaiting(ctx, ns, "unknown-image", corev1.PodFailed, "ErrImagePull", `"fenwick-lane/unknown:1" is not in localnode's image map`)
 	}, SpecTimeout(30*time.Second))
 
 	It("leaves a pod no node fits Pending with PodScheduled=False", func(ctx SpecContext) {

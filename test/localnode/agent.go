@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"os"
 	"path/filepath"
 	"sync"
 	"time"
@@ -19,6 +20,8 @@ import (
 	"k8s.io/client-go/kubernetes"
 	"k8s.io/client-go/tools/cache"
 	"k8s.io/client-go/util/workqueue"
+
+	"almanac.dev/almanac/test/sandbox"
 )
 
 // NodeSpec describes one Node the agent registers.
@@ -40,7 +43,16 @@ type Options struct {
 	// Images maps an image reference, exactly as written in the pod spec, to the host binary
 	// that stands for the image's entrypoint.
 	Images map[string]string
-	// Dir holds one directory per pod (volumes, termination message, log, working directory).
+	// Sandboxed maps an image reference to an unpacked image (test/sandbox). A pod naming one
+	// runs the image's own program inside the image's root, as its security context says
+	// (sandboxed.go), instead of a host binary; it takes precedence over Images. Needs root.
+	Sandboxed map[string]*sandbox.Image
+	// SharedDirs are host directories bound read-write at their own paths into every sandbox:
+	// the storage every node reaches (file:// URIs in tests). They must exist.
+	SharedDirs []string
+	// Dir holds one directory per pod (volumes, termination message, log, working directory,
+	// a sandbox's root tree). It must be on the file system of the Sandboxed images' roots,
+	// whose files each pod's tree links.
 	Dir string
 	// MaxPodsPerNode caps the unfinished pods bound to one node (0: 110, the kubelet's default
 	// maxPods, from memory).
@@ -74,6 +86,16 @@ func New(opts Options) (*Agent, error) {
 	for _, n := range opts.Nodes {
 		if n.Name == "" {
 			return nil, errors.New("localnode: a node has no name")
+		}
+	}
+	if len(opts.Sandboxed) > 0 {
+		if err := sandbox.Available(); err != nil {
+			return nil, fmt.Errorf("localnode: Sandboxed images: %w", err)
+		}
+	}
+	for _, d := range opts.SharedDirs {
+		if st, err := os.Stat(d); err != nil || !st.IsDir() || !filepath.IsAbs(d) {
+			return nil, fmt.Errorf("localnode: shared directory %q is not an existing absolute directory", d)
 		}
 	}
 	if opts.MaxPodsPerNode == 0 {

@@ -10,6 +10,9 @@
 // stops the process (SIGTERM, grace period, SIGKILL) before it removes the pod with grace 0.
 // It serves the container logs the API server asks for (kubectl logs, pods/log; logs.go).
 //
-// No isolation: processes share the host's network, users and file system. It is for tests on
-// loopback only.
+// Host processes are not isolated: they share the host's network, users and file system. A pod
+// whose image is one of Options.Sandboxed runs the image's own program in the image's root
+// instead (sandboxed.go, test/sandbox): the pod's user, groups and read-only root, its volumes
+// and termination message file bound at their paths (no rewriting), the shared directories at
+// theirs; the network is still the host's. It is for tests on loopback only.
 package localnode

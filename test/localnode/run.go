@@ -64,9 +64,8 @@ func (r *podRun) stopping() bool {
 
 // process is a prepared container process.
 type process struct {
-	argv        []string
-	env         []string
-	workDir     string
+	cmd         *exec.Cmd // not started; exec sets its output and process group
+	argv        []string  // the container's command line, for the log
 	logFile     string
 	messageFile string
 }
@@ -107,13 +106,15 @@ func (r *podRun) runContainer(ctx context.Context, pod *corev1.Pod, cr *containe
 	}
 	c := &pod.Spec.Containers[0]
 	cr.name, cr.image = c.Name, c.Image
-	binary, ok := r.a.opts.Images[c.Image]
-	if !ok {
+	prepare := func() (process, error) { return r.prepareHost(ctx, pod, c, r.a.opts.Images[c.Image]) }
+	if img, ok := r.a.opts.Sandboxed[c.Image]; ok {
+		prepare = func() (process, error) { return r.prepareSandbox(ctx, pod, c, img) }
+	} else if _, ok := r.a.opts.Images[c.Image]; !ok {
 		cr.waiting, cr.waitingMessage = "ErrImagePull", fmt.Sprintf("image %q is not in localnode's image map", c.Image)
 		return true
 	}
 	for backoff := time.Second; ; backoff = min(2*backoff, 10*time.Second) {
-		p, err := r.prepare(ctx, pod, c, binary)
+		p, err := prepare()
 		for err != nil {
 			if errors.Is(err, errStart) {
 				now := metav1.Now()
@@ -131,7 +132,7 @@ func (r *podRun) runContainer(ctx context.Context, pod *corev1.Pod, cr *containe
 				return true
 			case <-time.After(2 * time.Second):
 			}
-			p, err = r.prepare(ctx, pod, c, binary)
+			p, err = prepare()
 		}
 		cr.terminated = r.exec(ctx, pod, cr, p, start)
 		if ctx.Err() != nil {
@@ -158,15 +159,15 @@ func (r *podRun) runContainer(ctx context.Context, pod *corev1.Pod, cr *containe
 	}
 }
 
-// prepare materialises the volumes and computes the process's argv, env and paths.
-func (r *podRun) prepare(ctx context.Context, pod *corev1.Pod, c *corev1.Container, binary string) (process, error) {
+// files makes the pod's volumes and the container's log and termination message files; it
+// returns the mounts, the process with its file names and the resolved environment.
+func (r *podRun) files(ctx context.Context, pod *corev1.Pod, c *corev1.Container) ([]volumeMount, process, []envVar, error) {
 	src := apiData{r.a.opts.Client}
 	mounts, err := materialize(ctx, pod, c, r.dir, src)
 	if err != nil {
-		return process{}, err
+		return nil, process{}, nil, err
 	}
 	p := process{
-		workDir:     filepath.Join(r.dir, "work"),
 		logFile:     filepath.Join(r.dir, c.Name+".log"),
 		messageFile: filepath.Join(r.dir, c.Name+".termination-log"),
 	}
@@ -174,17 +175,40 @@ func (r *podRun) prepare(ctx context.Context, pod *corev1.Pod, c *corev1.Contain
 	if msgPath == "" {
 		msgPath = corev1.TerminationMessagePathDefault
 	}
-	mounts[msgPath] = p.messageFile
-	paths := newPathMap(mounts)
+	// Empty and writable by any user, as the kubelet makes it (mode 0666, from memory of its
+	// source).
+	if err := os.WriteFile(p.messageFile, nil, 0o666); err != nil {
+		return nil, process{}, nil, err
+	}
+	if err := os.Chmod(p.messageFile, 0o666); err != nil {
+		return nil, process{}, nil, err
+	}
+	mounts = append(mounts, volumeMount{path: msgPath, host: p.messageFile})
 	env, err := resolveEnv(ctx, pod, c, src)
+	if err != nil {
+		return nil, process{}, nil, err
+	}
+	return mounts, p, env, nil
+}
+
+// prepareHost prepares the container as a host process of binary: every mount path is
+// rewritten to its host path in the args and env values (see the package comment).
+func (r *podRun) prepareHost(ctx context.Context, pod *corev1.Pod, c *corev1.Container, binary string) (process, error) {
+	mounts, p, env, err := r.files(ctx, pod, c)
 	if err != nil {
 		return process{}, err
 	}
+	pairs := map[string]string{}
+	for _, m := range mounts {
+		pairs[m.path] = m.host
+	}
+	paths := newPathMap(pairs)
+	workDir := filepath.Join(r.dir, "work")
 	vals := map[string]string{}
-	p.env = []string{"PATH=/usr/local/sbin:/usr/local/bin:/usr/sbin:/usr/bin:/sbin:/bin", "HOME=" + p.workDir, "HOSTNAME=" + pod.Name}
+	envList := []string{"PATH=/usr/local/sbin:/usr/local/bin:/usr/sbin:/usr/bin:/sbin:/bin", "HOME=" + workDir, "HOSTNAME=" + pod.Name}
 	for _, e := range env {
 		vals[e.name] = e.value
-		p.env = append(p.env, e.name+"="+paths.rewrite(e.value))
+		envList = append(envList, e.name+"="+paths.rewrite(e.value))
 	}
 	argv := []string{binary}
 	if len(c.Command) > 0 {
@@ -197,16 +221,20 @@ func (r *podRun) prepare(ctx context.Context, pod *corev1.Pod, c *corev1.Contain
 	for i := 1; i < len(argv); i++ {
 		argv[i] = paths.rewrite(expand(argv[i], vals))
 	}
-	p.argv = argv
 	if c.WorkingDir != "" {
 		if w := paths.rewrite(c.WorkingDir); w != c.WorkingDir {
-			p.workDir = w
+			workDir = w
 		}
 	}
-	if err := os.MkdirAll(p.workDir, 0o755); err != nil {
+	if err := os.MkdirAll(workDir, 0o755); err != nil {
 		return process{}, err
 	}
-	return p, os.WriteFile(p.messageFile, nil, 0o666)
+	p.argv = argv
+	p.cmd = exec.Command(argv[0], argv[1:]...)
+	p.cmd.Env, p.cmd.Dir = envList, workDir
+	// SIGKILL if the agent's process dies first.
+	p.cmd.SysProcAttr = &syscall.SysProcAttr{Pdeathsig: syscall.SIGKILL}
+	return p, nil
 }
 
 // errStart marks a container that cannot be started (the runtime's StartError).
@@ -225,11 +253,10 @@ func (r *podRun) exec(ctx context.Context, pod *corev1.Pod, cr *containerRun, p 
 		return failed(err)
 	}
 	defer log.Close()
-	cmd := exec.Command(p.argv[0], p.argv[1:]...)
-	cmd.Env, cmd.Dir, cmd.Stdout, cmd.Stderr = p.env, p.workDir, log, log
-	// Own process group so that the whole tree can be signalled; SIGKILL if the agent's
-	// process dies first.
-	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true, Pdeathsig: syscall.SIGKILL}
+	cmd := p.cmd
+	cmd.Stdout, cmd.Stderr = log, log
+	// Own process group so that the whole tree can be signalled.
+	cmd.SysProcAttr.Setpgid = true
 	if err := cmd.Start(); err != nil {
 		return failed(err)
 	}

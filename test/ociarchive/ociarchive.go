@@ -141,8 +141,9 @@ func (a *Archive) RuntimeConfig() (ImageConfig, error) {
 }
 
 // Unpack writes the layers, base first, into root (which must exist): regular files,
-// directories and symbolic links, with the owners and modes the layers record (so the caller
-// must be root, as a container runtime is). A later layer's file replaces an earlier one. A
+// directories and symbolic links, with the modes the layers record, and with their owners when
+// the caller is root, as a container runtime is (otherwise the caller owns them, as with tar).
+// A later layer's file replaces an earlier one. A
 // whiteout (a deletion by a later layer, OCI image-spec layer.md), another entry type, a name
 // leaving root or a path through a symbolic link of the tree is an error naming the archive and
 // the entry: the images `make images` builds FROM scratch with COPY only add files.
@@ -211,7 +212,7 @@ func unpackEntry(root string, h *tar.Header, r io.Reader) error {
 	default:
 		return fmt.Errorf("tar type %c: the images hold only files, directories and symbolic links", h.Typeflag)
 	}
-	if err == nil {
+	if err == nil && os.Geteuid() == 0 {
 		err = os.Lchown(dst, h.Uid, h.Gid)
 	}
 	if err == nil && h.Typeflag != tar.TypeSymlink {

@@ -36,6 +36,7 @@ import (
 	"sigs.k8s.io/controller-runtime/pkg/log/zap"
 
 	"almanac.dev/almanac/test/localnode"
+	"almanac.dev/almanac/test/sandbox"
 )
 
 // DefaultControllers are the kube-controller-manager controllers the harness runs: the Job
@@ -57,6 +58,10 @@ type Options struct {
 	Nodes []localnode.NodeSpec
 	// Images is localnode's image-to-binary map.
 	Images map[string]string
+	// Sandboxed and SharedDirs are passed to localnode: images whose pods run in the image's
+	// root (test/sandbox; needs root), and host directories bound into every such pod.
+	Sandboxed  map[string]*sandbox.Image
+	SharedDirs []string
 	// MaxPodsPerNode is passed to localnode.
 	MaxPodsPerNode int
 	// Manager, when set, is started last and stopped first.
@@ -208,6 +213,8 @@ func (c *Cluster) startNode(opts Options) error {
 		Client:         c.Client,
 		Nodes:          opts.Nodes,
 		Images:         opts.Images,
+		Sandboxed:      opts.Sandboxed,
+		SharedDirs:     opts.SharedDirs,
 		Dir:            filepath.Join(opts.Dir, "pods"),
 		MaxPodsPerNode: opts.MaxPodsPerNode,
 		Log:            zap.New(zap.WriteTo(f), zap.UseDevMode(true), zap.Level(zapcore.DebugLevel)),
