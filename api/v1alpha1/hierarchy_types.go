@@ -66,9 +66,9 @@ type HierarchySpec struct {
 	// there once more), so a shock shared by many series counts against their sums; MinTShrink
 	// is the default because it alone beat the base forecasts at every level of the generated
 	// item x depot benchmark (README). Above the trainer's dense limit (2000 nodes,
-	// trainer/reconcile) it falls back to weighting each node by its error mean square (the
-	// diagonal the shrinkage keeps), without any node's errors to StructuralScaling, and the
-	// notes say so.
+	// trainer/reconcile) MinTShrink keeps its covariance as a diagonal plus low rank (a missing
+	// error counts as zero) and MinTSample weights each node by its error mean square; without
+	// any node's errors both run as StructuralScaling, and the notes say so.
 	// +optional
 	// +kubebuilder:default=MinTShrink
 	Method ReconcileMethod `json:"method,omitempty"`

@@ -11,8 +11,9 @@ import (
 // Provisions) with their item totals, depot totals and grand total (201 aggregates), 14
 // periods, and reports the time per bottom series and its ratio to bottom-up summing of the
 // same tree, run alternately with it in the same loop ("x-bottomup"; ns/op covers both). "cg" forces the matrix-free path (MaxDenseNodes 100 < 201
-// aggregates); MinTShrink at this size runs as VarianceScaling (above DefaultMaxDenseNodes), so
-// it is measured on a 20 × 20 tree (441 nodes), also against bottom-up on that tree.
+// aggregates); MinTShrink at this size (above DefaultMaxDenseNodes) runs with W as a diagonal
+// plus low rank by conjugate gradient, and is also measured dense on a 20 × 20 tree (441 nodes),
+// against bottom-up on that tree.
 //
 //	go test -run '^$' -bench Reconcile -benchtime 5x ./trainer/reconcile
 func BenchmarkReconcile(b *testing.B) {
@@ -38,6 +39,8 @@ func BenchmarkReconcile(b *testing.B) {
 		{"10k/StructuralScaling-cg", large, largeBase, nil, Structural, Options{MaxDenseNodes: 100}},
 		{"10k/VarianceScaling", large, largeBase, largeResid, VarianceScaling, Options{}},
 		{"10k/StructuralScaling-nonneg", large, shifted(large, largeBase, -9), nil, Structural, Options{NonNegative: true}},
+		{"10k/MinTShrink-lowrank", large, largeBase, largeResid, MinTShrink, Options{}},
+		{"10k/MinTShrink-lowrank-nonneg", large, shifted(large, largeBase, -9), largeResid, MinTShrink, Options{NonNegative: true}},
 		{"400/MinTShrink", small, smallBase, smallResid, MinTShrink, Options{}},
 	} {
 		b.Run(c.name, func(b *testing.B) {

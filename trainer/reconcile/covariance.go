@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -206,9 +207,10 @@ func cross(x, y []float64) (float64, int) {
 
 // residualWeight returns the weight of a residual-based method, the method that will run, its
 // λ (NaN unless MinTShrink) and a note on any fallback taken before solving: to Structural when
-// the residuals cannot weight it (and on nodes whose variance was imputed); MinTSample to MinTShrink when a node has no more residuals
-// than there are nodes (the sample covariance would be singular); MinT to VarianceScaling when
-// the node count is above maxDense. The moments come back for a later fallback (nil with
+// the residuals cannot weight it (and on nodes whose variance was imputed); MinTSample to
+// MinTShrink when a node has no more residuals than there are nodes (the sample covariance would
+// be singular); MinTSample to VarianceScaling when the node count is above maxDense, where
+// MinTShrink's W is the diagonal plus low rank form (shrunkLowRank). The moments come back for a later fallback (nil with
 // Structural).
 func residualWeight(h Hierarchy, m Method, residuals [][]float64, maxDense int) (weight, Method, float64, string, *moments, error) {
 	mo, why, err := newMoments(h, residuals)
@@ -220,7 +222,12 @@ func residualWeight(h Hierarchy, m Method, residuals [][]float64, maxDense int) 
 	}
 	note := mo.note
 	n := h.Nodes()
-	if (m == MinTShrink || m == MinTSample) && n > maxDense {
+	if m == MinTShrink && n > maxDense {
+		w, lambda := mo.shrunkLowRank()
+		note = joinNote(note, fmt.Sprintf("%d nodes, more than MaxDenseNodes %d: W as a diagonal plus rank %d (missing residuals as zero), by conjugate gradient", n, maxDense, len(residuals[0])))
+		return w, m, lambda, note, mo, nil
+	}
+	if m == MinTSample && n > maxDense {
 		note = joinNote(note, fmt.Sprintf("%d nodes, more than MaxDenseNodes %d: %s (the diagonal of the shrunk covariance) instead of %s", n, maxDense, VarianceScaling, m))
 		m = VarianceScaling
 	}
@@ -244,4 +251,113 @@ func (mo *moments) weight(m Method) (weight, float64) {
 		return denseWeight{mo.sampleCovariance()}, math.NaN()
 	}
 	return mo.diagonal(), math.NaN()
+}
+
+// lowRankWeight is W = diag(d) + U U' with U n × T: MinTShrink's shrunk covariance above the
+// dense node limit, applied in O(n T) per product and never formed (see shrunkLowRank).
+type lowRankWeight struct {
+	d    []float64   // diagonal part, > 0
+	u    [][]float64 // u[t] = column t of U (length n)
+	diag []float64   // W_ii = d_i + Σ_t U_it²
+	coef []float64   // scratch, length T
+}
+
+func (w lowRankWeight) mulVec(dst, v []float64) {
+	for t, col := range w.u {
+		w.coef[t] = floats.Dot(col, v)
+	}
+	floats.MulTo(dst, w.d, v)
+	for t, col := range w.u {
+		floats.AddScaled(dst, w.coef[t], col)
+	}
+}
+
+func (w lowRankWeight) diagonal(i int) float64 { return w.diag[i] }
+
+// shrunkLowRank is shrunkCovariance for trees above the dense node limit, written as a diagonal
+// plus a matrix of rank T (the number of residual periods) so that W v costs O(n T) and the
+// conjugate gradient never needs W itself. With every residual present it is the same W and λ
+// as shrunkCovariance; a missing residual counts as zero here (mean over all T periods, not over
+// the pair's common periods: pairwise means would break the low rank), which pulls the pair's
+// correlation towards zero. With z_it = e_it / σ̂_i (0 where missing), w_ijt = z_it z_jt,
+// r_ij = Σ_t w_ijt / T:
+//
+//	Σ_{i≠j} r_ij²               = (Σ_{t,s} G_ts² − Σ_i (Σ_t z_it²)²) / T²,   G = Z Z' (T × T)
+//	Σ_{i≠j} Σ_t w_ijt²          = Σ_t ((Σ_i z_it²)² − Σ_i z_it⁴)
+//	Σ_{i≠j} Var̂(r_ij)           = (Σ_{i≠j} Σ_t w_ijt² − T Σ_{i≠j} r_ij²) / (T (T − 1))
+//
+// (Schäfer & Strimmer 2005, as in shrunkCovariance, summed over ordered pairs: the factor 2
+// cancels in λ), all in O(n T²). Then W_ij = (1 − λ) r_ij σ̂_i σ̂_j = Σ_t U_it U_jt with
+// U = sqrt((1 − λ) / T) E (E zero-filled), and W_ii = σ̂_i² gives d_i = σ̂_i² − Σ_t U_it²,
+// floored at varianceFloor times the mean σ̂² (d_i >= λ σ̂_i² otherwise) so that W stays
+// positive definite with λ = 0.
+func (mo *moments) shrunkLowRank() (lowRankWeight, float64) {
+	n := len(mo.e)
+	T := len(mo.e[0])
+	z := make([][]float64, T) // z[t][i]
+	for t := range z {
+		z[t] = make([]float64, n)
+	}
+	var meanMS float64
+	for i, row := range mo.e {
+		sd := math.Sqrt(mo.ms[i])
+		meanMS += mo.ms[i] / float64(n)
+		for t, e := range row {
+			if !math.IsNaN(e) {
+				z[t][i] = e / sd
+			}
+		}
+	}
+	var sumW2 float64 // Σ_{i≠j} Σ_t w_ijt²
+	for t := range z {
+		var sq, q4 float64
+		for _, v := range z[t] {
+			sq += v * v
+			q4 += v * v * v * v
+		}
+		sumW2 += sq*sq - q4
+	}
+	var gg float64 // Σ_{t,s} G_ts²
+	for t := range z {
+		for s := t; s < T; s++ {
+			g := floats.Dot(z[t], z[s])
+			if s == t {
+				gg += g * g
+			} else {
+				gg += 2 * g * g
+			}
+		}
+	}
+	var rows4 float64 // Σ_i (Σ_t z_it²)²
+	for i := 0; i < n; i++ {
+		var s float64
+		for t := range z {
+			s += z[t][i] * z[t][i]
+		}
+		rows4 += s * s
+	}
+	tt := float64(T)
+	den := (gg - rows4) / (tt * tt)
+	num := (sumW2 - tt*den) / (tt * (tt - 1))
+	lambda := 1.0
+	if den > 0 {
+		lambda = math.Min(1, math.Max(0, num/den))
+	}
+	scale := math.Sqrt((1 - lambda) / tt)
+	w := lowRankWeight{d: make([]float64, n), u: make([][]float64, T), diag: make([]float64, n), coef: make([]float64, T)}
+	for t := range w.u {
+		w.u[t] = make([]float64, n)
+	}
+	for i, row := range mo.e {
+		var uu float64
+		for t, e := range row {
+			if !math.IsNaN(e) {
+				w.u[t][i] = scale * e
+				uu += w.u[t][i] * w.u[t][i]
+			}
+		}
+		w.d[i] = math.Max(mo.ms[i]-uu, varianceFloor*meanMS)
+		w.diag[i] = w.d[i] + uu
+	}
+	return w, lambda
 }

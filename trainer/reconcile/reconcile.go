@@ -45,8 +45,9 @@ const (
 	// scaling"): needs no residuals.
 	Structural Method = "StructuralScaling"
 	// VarianceScaling uses W = diag(σ̂²_i), the residual mean squares (FPP3 chapter 11,
-	// "WLS with variance scaling"). It is what MinTShrink falls back to above the dense node
-	// limit: the diagonal of the shrunk covariance, which shrinkage toward the diagonal keeps.
+	// "WLS with variance scaling"). It is what MinTSample falls back to above the dense node
+	// limit, and MinTShrink when its conjugate gradient does not converge: the diagonal of the
+	// shrunk covariance, which shrinkage toward the diagonal keeps.
 	VarianceScaling Method = "VarianceScaling"
 	// MinTShrink uses W = the residual covariance shrunk toward its diagonal (Wickramasuriya
 	// et al. 2019) with the Schäfer & Strimmer (2005, SAGMB 4(1)) intensity on the residual
@@ -117,9 +118,10 @@ type Options struct {
 	// min (ŷ − S b)' W⁻¹ (ŷ − S b) subject to b >= 0 (Wickramasuriya, Turlach & Hyndman 2020)
 	// by an active-set method, and aggregates are their sums; BottomUp clips at zero.
 	NonNegative bool
-	// MaxDenseNodes bounds the side of any dense matrix (0 = DefaultMaxDenseNodes): MinT runs
-	// only when n <= MaxDenseNodes, and the diagonal-weight methods solve their k × k C W C'
-	// densely when k <= MaxDenseNodes, by conjugate gradient above.
+	// MaxDenseNodes bounds the side of any dense matrix (0 = DefaultMaxDenseNodes): MinT's W is
+	// dense only when n <= MaxDenseNodes (above, MinTShrink keeps W as a diagonal plus low rank
+	// and MinTSample runs as VarianceScaling), and the diagonal-weight methods solve their k × k
+	// C W C' densely when k <= MaxDenseNodes, by conjugate gradient above.
 	MaxDenseNodes int
 }
 
@@ -143,8 +145,10 @@ type Result struct {
 //
 // Fallbacks, stated in Result.Method and Result.Note: MinTSample runs as MinTShrink when a node
 // has no more residuals than there are nodes or C W C' is not positive definite (or has a
-// condition number above 1e12); either MinT method runs as VarianceScaling above the dense node
-// limit or when the shrunk C W C' is not positive definite; every residual-based method runs as
+// condition number above 1e12); MinTShrink runs as VarianceScaling when the shrunk C W C' is not
+// positive definite or, above the dense node limit (where W is a diagonal plus low rank, solved
+// by conjugate gradient), when the conjugate gradient does not converge; MinTSample runs as
+// VarianceScaling above the dense node limit; every residual-based method runs as
 // Structural when no node has 2 residuals or all residuals are zero. A node with fewer than 2
 // residuals among nodes that have them is weighted as the least trusted node per bottom series
 // (see newMoments), stated in Result.Note.
@@ -200,14 +204,19 @@ func Reconcile(h Hierarchy, base [][]float64, m Method, residuals [][]float64, o
 		} else {
 			bottom, _, err = p.solve(nil, ys)
 		}
-		if errors.Is(err, errNotPositiveDefinite) && (res.Method == MinTSample || res.Method == MinTShrink) {
+		_, lowRank := w.(lowRankWeight)
+		if (errors.Is(err, errNotPositiveDefinite) || (lowRank && errors.Is(err, errNoConvergence))) && (res.Method == MinTSample || res.Method == MinTShrink) {
 			// A pairwise-complete covariance need not be positive semi-definite: step down
 			// MinTSample -> MinTShrink -> VarianceScaling, which is positive definite.
 			next := VarianceScaling
 			if res.Method == MinTSample {
 				next = MinTShrink
 			}
-			res.Note = joinNote(res.Note, fmt.Sprintf("C W C' is not positive definite with %s: %s instead", res.Method, next))
+			why := "is not positive definite"
+			if errors.Is(err, errNoConvergence) {
+				why = "did not converge"
+			}
+			res.Note = joinNote(res.Note, fmt.Sprintf("C W C' %s with %s: %s instead", why, res.Method, next))
 			res.Method = next
 			w, res.Lambda = mo.weight(next)
 			continue
@@ -344,6 +353,9 @@ func joinNote(a, b string) string {
 	}
 	return a + "; " + b
 }
+
+// errNoConvergence reports a conjugate gradient that did not reach its tolerance.
+var errNoConvergence = errors.New("reconcile: conjugate gradient did not converge")
 
 // errNotPositiveDefinite reports a failed Cholesky factorisation of C W C'.
 var errNotPositiveDefinite = errors.New("reconcile: C W C' is not positive definite")

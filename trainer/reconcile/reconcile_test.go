@@ -425,7 +425,7 @@ func TestFallbacks(t *testing.T) {
 		note  string
 	}{
 		{"sample with too few periods", MinTSample, short, Options{}, MinTShrink, "not more than the 12 nodes"},
-		{"MinT above the dense limit", MinTShrink, short, Options{MaxDenseNodes: 11}, VarianceScaling, "12 nodes, more than MaxDenseNodes 11"},
+		{"MinT above the dense limit", MinTShrink, short, Options{MaxDenseNodes: 11}, MinTShrink, "12 nodes, more than MaxDenseNodes 11: W as a diagonal plus rank 10"},
 		{"sample above the dense limit", MinTSample, short, Options{MaxDenseNodes: 11}, VarianceScaling, "more than MaxDenseNodes 11"},
 		{"a node with one residual", MinTShrink, withOne(short, 7), Options{}, MinTShrink, "1 nodes with fewer than 2 residuals (first node 7 (bottom series 1)) weighted as the least trusted"},
 		{"every node with one residual", MinTShrink, allOne(short), Options{}, Structural, "node 0 (aggregate 0) has 1 residuals, fewer than 2"},
@@ -566,4 +566,67 @@ func TestMaxDeviation(t *testing.T) {
 			t.Errorf("%s: MaxDeviation = %g, want +Inf", name, got)
 		}
 	}
+}
+
+// Above the dense limit MinTShrink runs with W as a diagonal plus low rank (shrunkLowRank),
+// solved by conjugate gradient: with every residual present it is the same W and λ as
+// shrunkCovariance (Schäfer & Strimmer 2005), so the forecasts equal the dense S G ŷ of the
+// shrunk covariance, with and without non-negativity (the latter against the dense solver).
+func TestLowRankShrinkEqualsDense(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 8))
+	h := itemDepot(6, 5) // 42 nodes
+	base := incoherentBase(h, 3, rng)
+	for i := range base[len(h.Sums):] {
+		if i%5 == 0 {
+			for p := range base[len(h.Sums)+i] {
+				base[len(h.Sums)+i][p] = -1 + rng.Float64()
+			}
+		}
+	}
+	resid := correlatedResiduals(h, 12, rng) // fewer periods than nodes, as in the trainer
+	mo, _, err := newMoments(h, resid)
+	if err != nil {
+		t.Fatal(err)
+	}
+	shrunk, lambda := mo.shrunkCovariance()
+	lr, lrLambda := mo.shrunkLowRank()
+	if math.Abs(lambda-lrLambda) > 1e-12 {
+		t.Fatalf("λ low rank %v, dense %v", lrLambda, lambda)
+	}
+	n := h.Nodes()
+	v, got := make([]float64, n), make([]float64, n)
+	for c := 0; c < n; c++ { // W column by column
+		clear(v)
+		v[c] = 1
+		lr.mulVec(got, v)
+		for i := range got {
+			if want := shrunk.At(i, c); math.Abs(got[i]-want) > 1e-12*math.Max(1, math.Abs(want)) {
+				t.Fatalf("W[%d][%d] low rank %v, dense %v", i, c, got[i], want)
+			}
+		}
+		if math.Abs(lr.diagonal(c)-shrunk.At(c, c)) > 1e-12*shrunk.At(c, c) {
+			t.Fatalf("diagonal %d: %v, want %v", c, lr.diagonal(c), shrunk.At(c, c))
+		}
+	}
+	got2, err := Reconcile(h, base, MinTShrink, resid, Options{MaxDenseNodes: 10})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got2.Method != MinTShrink || !strings.Contains(got2.Note, "diagonal plus rank 12") || !strings.Contains(got2.Note, "conjugate gradient") {
+		t.Fatalf("ran %s: %s", got2.Method, got2.Note)
+	}
+	wantClose(t, "low-rank MinTShrink", got2.Forecasts, referenceSG(h, shrunk, base), 1e-7)
+	if math.Abs(got2.Lambda-lambda) > 1e-12 {
+		t.Errorf("Result.Lambda %v, want %v", got2.Lambda, lambda)
+	}
+	dense, err := Reconcile(h, base, MinTShrink, resid, Options{NonNegative: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cg, err := Reconcile(h, base, MinTShrink, resid, Options{NonNegative: true, MaxDenseNodes: 10})
+	if err != nil {
+		t.Fatal(err)
+	}
+	wantClose(t, "low-rank MinTShrink, non-negative", cg.Forecasts, dense.Forecasts, 1e-7)
+	wantCoherent(t, "low-rank non-negative", h, cg.Forecasts)
 }

@@ -214,7 +214,7 @@ func (p *problem) applyCT(dst, mu []float64, zero []int) {
 // series b̃ (length m) and the multipliers μ = (C W C')⁻¹ C ŷ (length k + len(zero), the zero
 // rows last) per period. Bottom series in zero come back exactly 0. The system is solved by
 // Cholesky when W is dense or it has at most maxDense rows, by Jacobi-preconditioned conjugate
-// gradient otherwise.
+// gradient otherwise (always for a low-rank W, which is never formed).
 func (p *problem) solve(zero []int, ys [][]float64) (bottom, mus [][]float64, err error) {
 	rows := zero // constraint rows beyond the aggregates
 	if p.parents != nil && len(zero) > 0 {
@@ -229,11 +229,12 @@ func (p *problem) solve(zero []int, ys [][]float64) (bottom, mus [][]float64, er
 	bottom = make([][]float64, len(ys))
 	mus = make([][]float64, len(ys))
 	_, denseW := p.w.(denseWeight)
+	_, lowRank := p.w.(lowRankWeight) // never formed: conjugate gradient only
 	v := make([]float64, p.n)
 	u := make([]float64, p.n)
 	var chol *mat.Cholesky
 	var inv []float64
-	if r > 0 && (denseW || r <= p.maxDense) {
+	if r > 0 && !lowRank && (denseW || r <= p.maxDense) {
 		chol, err = p.factor(rows, r)
 		if err != nil {
 			return nil, nil, err
@@ -396,5 +397,5 @@ func (p *problem) conjugateGradient(mu, rhs []float64, zero []int, inv, v, u []f
 		floats.AddScaledTo(dir, z, rzNew/rz, dir)
 		rz = rzNew
 	}
-	return limit, fmt.Errorf("reconcile: conjugate gradient on the %d-row system C W C' did not reach relative residual %g in %d iterations", r, cgTol, limit)
+	return limit, fmt.Errorf("%w: the %d-row system C W C' did not reach relative residual %g in %d iterations", errNoConvergence, r, cgTol, limit)
 }
