@@ -6,6 +6,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"time"
 
 	. "github.com/onsi/ginkgo/v2"
@@ -212,6 +213,26 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		expectClean(run)
 		Expect(apimeta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunStalled)).To(BeNil())
 		Expect(d.latestRun()).To(Equal("fenwick-nosecret-1"))
+	}, SpecTimeout(3*time.Minute))
+
+	It("ends a plan pod stalled on its input with the trainer's own summary before the Job's deadline", func(ctx SpecContext) {
+		// Issue 18 case 2: the controller passes --step-deadline, the Job's deadline (100 s)
+		// from its creation less a quarter (25 s). The plan pod blocks in the kernel opening a
+		// named pipe nobody writes, gives up 10 s after that time, writes its summary and exits
+		// 4 before the Job controller's kill, so the run's reason is the trainer's own text,
+		// not DeadlineExceeded with no summary.
+		ns, d, fp := newPortfolio(ctx, c, "stall", "fenwick-stall", trainerImage, func(fp *forecastingv1alpha1.ForecastPortfolio) {
+			fp.Spec.Sharding.ActiveDeadlineSeconds = ptr.To[int64](100)
+			fp.Spec.Sharding.RetriesPerShard = ptr.To[int32](0)
+		})
+		Expect(syscall.Mkfifo(filepath.Join(d.data, "depot-zz-stalled.csv"), 0o644)).To(Succeed())
+		manualRun(ctx, c, fp, "fenwick-stall-1")
+		run := finishedRun(ctx, c, ns, "fenwick-stall-1")
+		cond := apimeta.FindStatusCondition(run.Status.Conditions, forecastingv1alpha1.RunSucceeded)
+		Expect(cond.Status).To(Equal(metav1.ConditionFalse))
+		Expect(cond.Reason).To(Equal(forecastingv1alpha1.ReasonPlanFailed), cond.Message)
+		Expect(cond.Message).To(ContainSubstring("plan failed: plan did not finish within --step-deadline "))
+		Expect(d.latestRun()).To(BeEmpty())
 	}, SpecTimeout(3*time.Minute))
 
 	It("shows training progress in kubectl get frun from the running pods' progress lines", func(ctx SpecContext) {
