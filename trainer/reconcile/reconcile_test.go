@@ -344,14 +344,7 @@ func TestConjugateGradientEqualsDense(t *testing.T) {
 	resid := correlatedResiduals(h, 30, rng)
 	for _, m := range []Method{OLS, Structural, VarianceScaling} {
 		for _, nonNeg := range []bool{false, true} {
-			dense, err := Reconcile(h, base, m, resid, Options{NonNegative: nonNeg})
-			if err != nil {
-				t.Fatal(err)
-			}
-			cg, err := Reconcile(h, base, m, resid, Options{NonNegative: nonNeg, MaxDenseNodes: 10})
-			if err != nil {
-				t.Fatal(err)
-			}
+			dense, cg := denseAndForced(t, h, base, m, resid, nonNeg)
 			if !strings.Contains(dense.Note, "Cholesky") || strings.Contains(dense.Note, "conjugate") ||
 				!strings.Contains(cg.Note, "conjugate gradient") || strings.Contains(cg.Note, "Cholesky") {
 				t.Fatalf("%s: solvers not as forced: dense %q, cg %q", m, dense.Note, cg.Note)
@@ -369,6 +362,20 @@ func TestConjugateGradientEqualsDense(t *testing.T) {
 			}
 		}
 	}
+}
+
+// denseAndForced reconciles base with the default dense limit and with MaxDenseNodes 10 (the
+// matrix-free path on these trees).
+func denseAndForced(t *testing.T, h Hierarchy, base [][]float64, m Method, resid [][]float64, nonNeg bool) (dense, forced Result) {
+	t.Helper()
+	var err error
+	if dense, err = Reconcile(h, base, m, resid, Options{NonNegative: nonNeg}); err != nil {
+		t.Fatal(err)
+	}
+	if forced, err = Reconcile(h, base, m, resid, Options{NonNegative: nonNeg, MaxDenseNodes: 10}); err != nil {
+		t.Fatal(err)
+	}
+	return dense, forced
 }
 
 // Bad input gets an error naming the node (issue 21; the brief's rule on bad input).
@@ -619,14 +626,7 @@ func TestLowRankShrinkEqualsDense(t *testing.T) {
 	if math.Abs(got2.Lambda-lambda) > 1e-12 {
 		t.Errorf("Result.Lambda %v, want %v", got2.Lambda, lambda)
 	}
-	dense, err := Reconcile(h, base, MinTShrink, resid, Options{NonNegative: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	cg, err := Reconcile(h, base, MinTShrink, resid, Options{NonNegative: true, MaxDenseNodes: 10})
-	if err != nil {
-		t.Fatal(err)
-	}
+	dense, cg := denseAndForced(t, h, base, MinTShrink, resid, true)
 	wantClose(t, "low-rank MinTShrink, non-negative", cg.Forecasts, dense.Forecasts, 1e-7)
 	wantCoherent(t, "low-rank non-negative", h, cg.Forecasts)
 }
