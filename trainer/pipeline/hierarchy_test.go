@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"math"
 	"strings"
 	"testing"
 	"time"
@@ -11,6 +12,7 @@ import (
 	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
+	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/summary"
 	"almanac.dev/almanac/trainer/synth"
 	"almanac.dev/almanac/trainer/tables"
@@ -81,6 +83,7 @@ func TestHierarchyAcrossShards(t *testing.T) {
 			if !c.Coherent() {
 				t.Errorf("largest relative deviation %g at %s, want <= %g", c.MaxDeviation, c.Worst, CoherenceTolerance)
 			}
+			wantOrderedBands(t, out, m, cfg.Source.Columns.Series)
 			var b strings.Builder
 			if err := Inspect(ctx, cfg.Output.URI, "", &b); err != nil {
 				t.Fatal(err)
@@ -89,6 +92,38 @@ func TestHierarchyAcrossShards(t *testing.T) {
 				t.Errorf("inspect does not report the coherence:\n%s", b.String())
 			}
 		})
+	}
+}
+
+// wantOrderedBands fails unless every published forecast row of every node (bottom series and
+// aggregates, their bands from reconciled backtest errors) has finite quantiles, non-decreasing
+// in the level and at or above zero (the runs are non-negative).
+func wantOrderedBands(t *testing.T, out *store.Store, m *Manifest, keys []string) {
+	t.Helper()
+	rows := 0
+	for _, u := range m.Units {
+		f, ok := u.file(TableForecasts)
+		if !ok {
+			continue
+		}
+		err := readTable(context.Background(), out, f, func(r io.Reader) error {
+			_, fc, err := tables.ReadForecasts(r, formatOf(f), keys)
+			for _, row := range fc {
+				rows++
+				for j, q := range row.Quantiles {
+					if math.IsNaN(q) || math.IsInf(q, 0) || q < 0 || (j > 0 && q < row.Quantiles[j-1]) {
+						t.Fatalf("%s %s step %d: quantiles %v", u.ID, row.Key, row.Step, row.Quantiles)
+					}
+				}
+			}
+			return err
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	if rows == 0 {
+		t.Fatal("no forecast rows published")
 	}
 }
 
@@ -112,6 +147,7 @@ func TestHierarchyWithinShards(t *testing.T) {
 	if c.Aggregates != 4 || !c.Coherent() {
 		t.Errorf("%d aggregates, largest deviation %g at %s; want 4 and <= %g", c.Aggregates, c.MaxDeviation, c.Worst, CoherenceTolerance)
 	}
+	wantOrderedBands(t, out, m, cfg.Source.Columns.Series)
 }
 
 // TestHierarchySecondRunEvaluatesEveryLevel: a second run evaluates the first run's published
