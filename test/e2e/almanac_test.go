@@ -48,6 +48,9 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		Expect(st.Series.Trained).To(Equal(int64(40)))
 		Expect(st.Series.Rejected).To(BeZero())
 		Expect(modelTotal(run)).To(Equal(int64(40)))
+		// spec.selection.design Auto (the default) over Naive, SeasonalNaive and Theta has one
+		// candidate, per-series: the plan decides it for every segment, no shard chooses.
+		Expect(st.Designs).To(Equal([]forecastingv1alpha1.DesignCount{{Design: "per-series", Series: 40}}))
 	}
 
 	It("runs on its schedule and publishes; suspend stops new runs; no trainer pod runs between runs", func(ctx SpecContext) {
