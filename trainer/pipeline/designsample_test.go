@@ -183,6 +183,13 @@ func TestUnseenSegmentIsChosenByTheShard(t *testing.T) {
 	if n != 16 {
 		t.Errorf("%d models rows, want 16", n)
 	}
+	var insp bytes.Buffer
+	if err := Inspect(ctx, cfg.Output.URI, "", &insp); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(insp.String(), "\ndesigns: per-series 16 (4 chosen by their shard)\n") {
+		t.Errorf("inspect:\n%s", insp.String())
+	}
 	// A plan.json whose design names a design this run does not have is refused at train, as
 	// any plan.json that does not validate.
 	p.Design.Segments[0].Design = "ets-theta"

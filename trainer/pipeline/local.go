@@ -115,6 +115,9 @@ func Inspect(ctx context.Context, outputURI, run string, w io.Writer) error {
 		}
 		fmt.Fprintf(w, "chosen models: %s\n", strings.Join(parts, ", "))
 	}
+	if len(t.Designs) > 0 {
+		fmt.Fprintf(w, "designs: %s\n", designsText(t.Designs, t.DesignsByShard))
+	}
 	if a := m.Totals.Accuracy; a != nil && a.Evaluated > 0 {
 		e, r := a.ExpectedSum/float64(a.Evaluated), a.RealizedSum/float64(a.Evaluated)
 		fmt.Fprintf(w, "accuracy of %s's forecasts: %d series, %d points; %s expected %.4f, realized %.4f (ratio %.2f); %d drifted\n",
@@ -142,4 +145,22 @@ func orNone(s string) string {
 		return "(none)"
 	}
 	return s
+}
+
+// designsText lists series per design, and how many of them had their design chosen by their
+// shard rather than once by the plan: "ets-theta 20, per-series 4 (3 chosen by their shard)".
+func designsText(designs, byShard map[string]int) string {
+	names := make([]string, 0, len(designs))
+	for d := range designs {
+		names = append(names, d)
+	}
+	sort.Strings(names)
+	parts := make([]string, len(names))
+	for i, d := range names {
+		parts[i] = fmt.Sprintf("%s %d", d, designs[d])
+		if n := byShard[d]; n > 0 {
+			parts[i] += fmt.Sprintf(" (%d chosen by their shard)", n)
+		}
+	}
+	return strings.Join(parts, ", ")
 }

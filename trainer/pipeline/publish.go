@@ -264,16 +264,23 @@ func (t *Totals) add(e ManifestUnit) {
 	t.Series.Rejected += e.Counts.Rejected
 	t.Series.Carried += e.Counts.Carried
 	t.Series.CarriedBroken += e.Counts.CarriedBroken
-	for f, n := range e.Counts.Models {
-		if t.Series.Models == nil {
-			t.Series.Models = map[string]int{}
-		}
-		t.Series.Models[f] += n
-	}
+	addCounts(&t.Series.Models, e.Counts.Models)
+	addCounts(&t.Series.Designs, e.Counts.Designs)
+	addCounts(&t.Series.DesignsByShard, e.Counts.DesignsByShard)
 	if e.Accuracy != nil {
 		if t.Accuracy == nil {
 			t.Accuracy = &summary.Accuracy{}
 		}
 		t.Accuracy.Add(*e.Accuracy)
+	}
+}
+
+// addCounts adds the counts of from into *to, creating it when needed.
+func addCounts(to *map[string]int, from map[string]int) {
+	for k, n := range from {
+		if *to == nil {
+			*to = map[string]int{}
+		}
+		(*to)[k] += n
 	}
 }
