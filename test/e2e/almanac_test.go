@@ -121,6 +121,13 @@ var _ = Describe("almanac end to end", Ordered, ContinueOnFailure, func() {
 		Expect(d.latestRun()).To(Equal("fenwick-retry-1"))
 
 		Expect(shardExitCodes(ctx, ns, run.Name, "1")).To(ConsistOf(int32(4), int32(0)), "shard 1: a transient failure, then a success")
+		if trainerEntrypoint != "" {
+			By("checking that the faulty image's pods, too, wrote as the image's user, 65532")
+			expectOwnedByImageUser(d.output)
+			st, err := os.Stat(filepath.Join(markerDir, run.Name+"-1"))
+			Expect(err).NotTo(HaveOccurred())
+			Expect(st.Sys().(*syscall.Stat_t).Uid).To(BeEquivalentTo(imageUID), "the flaky pod's marker")
+		}
 	}, SpecTimeout(3*time.Minute))
 
 	It("carries forward the previous forecasts of a shard that always fails and reports the run Degraded", func(ctx SpecContext) {

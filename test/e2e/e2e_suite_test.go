@@ -7,7 +7,6 @@ import (
 	"context"
 	"fmt"
 	"os"
-	"os/exec"
 	"path/filepath"
 	"testing"
 	"time"
@@ -52,12 +51,9 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 	suiteDir, err = os.MkdirTemp("", "almanac-e2e-")
 	Expect(err).NotTo(HaveOccurred())
 	prog := filepath.Join(suiteDir, "prog")
-	build := exec.CommandContext(ctx, "go", "build", "-o", prog, "../localnode/testdata/prog")
-	build.Env = append(os.Environ(), "CGO_ENABLED=0")
-	out, err := build.CombinedOutput()
-	Expect(err).NotTo(HaveOccurred(), "build test program: %s", out)
+	Expect(goBuild(ctx, prog, "../localnode/testdata/prog")).To(Succeed())
 
-	images, sandboxed, crds, err := almanacImages(ctx, suiteDir) // fixtures_test.go: trainer and its wrappers
+	images, sandboxed, crds, err := almanacImages(ctx, suiteDir) // fixtures_test.go: trainer and the faulty images
 	Expect(err).NotTo(HaveOccurred())
 	images[progImage] = prog
 
@@ -66,7 +62,7 @@ var _ = BeforeSuite(func(ctx SpecContext) {
 		Dir:        suiteDir,
 		Images:     images,
 		Sandboxed:  sandboxed,
-		SharedDirs: []string{storageDir},
+		SharedDirs: []string{storageDir, stateDir},
 		CRDDirs:    crds,
 	})
 	Expect(err).NotTo(HaveOccurred())

@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"time"
@@ -34,9 +35,9 @@ import (
 	"almanac.dev/almanac/trainer/synth"
 )
 
-// Trainer images of the almanac scenarios. localnode maps each to a host program: the real
-// trainer, or a small shell wrapper built by the suite that misbehaves for one shard and
-// otherwise execs the real trainer (no special case for almanac in localnode).
+// Trainer images of the almanac scenarios: the real trainer, or the fault program
+// (testdata/fault) that misbehaves for one shard and otherwise runs the real trainer (no special
+// case for almanac in localnode). See almanacImages for how localnode runs them.
 const (
 	trainerImage = "fenwick-lane/almanac-trainer:e2e"
 	// flakyImage fails the first attempt of train shard 1 with exit 4 (transient storage).
@@ -51,87 +52,101 @@ const (
 	lingeringImage = "fenwick-lane/almanac-trainer:lingering"
 )
 
-// trainerBinary is the trainer on the host (built, or the image's file); markerDir and gateDir
-// are the wrappers' state; storageDir holds every scenario's file:// input and output.
-var trainerBinary, markerDir, gateDir, storageDir string
+// trainerBinary is the trainer on the host (built, or the image's file); stateDir holds the
+// faulty images' markers/ (markerDir) and gates/ (gateDir); storageDir holds every scenario's
+// file:// input and output. Sandboxed pods see stateDir and storageDir at these same paths.
+var trainerBinary, stateDir, markerDir, gateDir, storageDir string
 
-// trainerEntrypoint is the trainer's path inside its image when trainerImage pods run in the
-// image's root (test/sandbox), "" when they run trainerBinary on the host.
+// trainerEntrypoint is the trainer's path inside its image when the trainer images' pods run in
+// the image's root (test/sandbox), "" when they run trainerBinary on the host.
 var trainerEntrypoint string
 
+// faultEntrypoint is the path of the fault program (testdata/fault) inside the faulty images.
+const faultEntrypoint = "/e2e-fault"
+
 // almanacImages builds the trainer into dir, or, with ALMANAC_IMAGES set, unpacks the trainer
-// image (bin/almanac-trainer.oci.tar) and takes its binary; as root, trainerImage pods then run
-// in that image's root as their security context says (localnode's Sandboxed images), the
-// wrappers below still on the host. It writes the wrappers and returns localnode's image map,
-// its sandboxed images, and the CRD directory for the suite's cluster.
+// image (bin/almanac-trainer.oci.tar) and takes its binary. It builds the fault program
+// (testdata/fault) that the faulty images run before the trainer. As root with ALMANAC_IMAGES,
+// every trainer image pod then runs in the image's root as its security context says
+// (localnode's Sandboxed images): trainerImage the image itself, the faulty images a tree of it
+// with the fault program added at /e2e-fault; otherwise they are host processes (a one-line
+// script execs the fault program). It returns localnode's image map, its sandboxed images, and
+// the CRD directory for the suite's cluster.
 func almanacImages(ctx context.Context, dir string) (map[string]string, map[string]*sandbox.Image, []string, error) {
 	trainerBinary = filepath.Join(dir, "almanac-trainer")
-	var sandboxed map[string]*sandbox.Image
+	var img *sandbox.Image
 	if images := os.Getenv("ALMANAC_IMAGES"); images != "" {
 		archive := filepath.Join(images, "almanac-trainer.oci.tar")
-		img, err := unpackImage(archive, filepath.Join(dir, "images", "almanac-trainer"))
-		if err != nil {
+		var err error
+		if img, err = unpackImage(archive, filepath.Join(dir, "images", "almanac-trainer")); err != nil {
 			return nil, nil, nil, fmt.Errorf("ALMANAC_IMAGES is set: %w", err)
 		}
 		trainerBinary = filepath.Join(img.Root, img.Entrypoint[0])
 		if err := sandbox.Available(); err != nil {
 			fmt.Fprintf(os.Stderr, "e2e: trainer binary %s from %s, run on the host: %v\n", img.Entrypoint[0], archive, err)
+			img = nil
 		} else {
-			sandboxed = map[string]*sandbox.Image{trainerImage: img}
 			trainerEntrypoint = img.Entrypoint[0]
-			fmt.Fprintf(os.Stderr, "e2e: %s pods run %s in the image's root from %s\n", trainerImage, img.Entrypoint[0], archive)
+			fmt.Fprintf(os.Stderr, "e2e: trainer image pods run %s in the image's root from %s\n", img.Entrypoint[0], archive)
 		}
-	} else {
-		build := exec.CommandContext(ctx, "go", "build", "-o", trainerBinary, "../../trainer/cmd/almanac-trainer")
-		build.Env = append(os.Environ(), "CGO_ENABLED=0")
-		if out, err := build.CombinedOutput(); err != nil {
-			return nil, nil, nil, fmt.Errorf("build almanac-trainer: %v: %s", err, out)
-		}
-	}
-	storageDir = filepath.Join(dir, "storage")
-	if err := os.MkdirAll(storageDir, 0o755); err != nil {
+	} else if err := goBuild(ctx, trainerBinary, "../../trainer/cmd/almanac-trainer"); err != nil {
 		return nil, nil, nil, err
 	}
-	markerDir, gateDir = filepath.Join(dir, "markers"), filepath.Join(dir, "gates")
-	for _, d := range []string{markerDir, gateDir} {
+	fault := filepath.Join(dir, "fault")
+	if err := goBuild(ctx, fault, "./testdata/fault"); err != nil {
+		return nil, nil, nil, err
+	}
+	storageDir, stateDir = filepath.Join(dir, "storage"), filepath.Join(dir, "state")
+	markerDir, gateDir = filepath.Join(stateDir, "markers"), filepath.Join(stateDir, "gates")
+	for _, d := range []string{storageDir, markerDir, gateDir} {
 		if err := os.MkdirAll(d, 0o755); err != nil {
 			return nil, nil, nil, err
 		}
 	}
-	wrappers := map[string]string{
-		// The marker is made atomically by mkdir, once per run and shard.
-		"flaky": fmt.Sprintf(`if [ "$1" = train ] && [ "$JOB_COMPLETION_INDEX" = 1 ] && mkdir %s/"$ALMANAC_RUN"-1 2>/dev/null; then
-  echo "flaky: first attempt of shard 1 fails (exit 4)" >&2; exit 4
-fi`, markerDir),
-		"broken": `if [ "$1" = train ] && [ "$JOB_COMPLETION_INDEX" = 1 ]; then
-  echo "broken: shard 1 always fails (exit 3)" >&2; exit 3
-fi`,
-		"gated": fmt.Sprintf(`if [ "$1" = train ] && [ "$JOB_COMPLETION_INDEX" != 0 ]; then
-  while [ ! -e %s/"$ALMANAC_PORTFOLIO" ]; do sleep 0.2; done
-fi`, gateDir),
+	if err := os.Chmod(markerDir, 0o777); err != nil { // the flaky image's pods make markers as 65532
+		return nil, nil, nil, err
+	}
+	faults := map[string]string{flakyImage: "flaky", brokenImage: "broken", gatedImage: "gated", lingeringImage: "lingering"}
+	if img != nil {
+		faultRoot := filepath.Join(dir, "images", "faults")
+		if err := os.MkdirAll(faultRoot, 0o755); err != nil {
+			return nil, nil, nil, err
+		}
+		root := filepath.Join(faultRoot, "rootfs")
+		if err := sandbox.Tree(img.Root, root, true); err != nil {
+			return nil, nil, nil, err
+		}
+		if err := os.Link(fault, filepath.Join(root, faultEntrypoint)); err != nil {
+			return nil, nil, nil, err
+		}
+		sandboxed := map[string]*sandbox.Image{trainerImage: img}
+		for image, mode := range faults {
+			f := &sandbox.Image{Root: root, ImageConfig: img.ImageConfig}
+			f.Entrypoint, f.Cmd = []string{faultEntrypoint, mode, img.Entrypoint[0], stateDir}, nil
+			sandboxed[image] = f
+		}
+		return map[string]string{}, sandboxed, []string{"../../config/crd/bases"}, nil
 	}
 	images := map[string]string{trainerImage: trainerBinary}
-	for name, body := range wrappers {
-		path := filepath.Join(dir, "almanac-trainer-"+name)
-		script := "#!/bin/sh\n" + body + "\nexec " + trainerBinary + " \"$@\"\n"
+	for image, mode := range faults {
+		path := filepath.Join(dir, "almanac-trainer-"+mode)
+		script := fmt.Sprintf("#!/bin/sh\nexec %s %s %s %s \"$@\"\n", fault, mode, trainerBinary, stateDir)
 		if err := os.WriteFile(path, []byte(script), 0o755); err != nil {
 			return nil, nil, nil, err
 		}
-		images[map[string]string{"flaky": flakyImage, "broken": brokenImage, "gated": gatedImage}[name]] = path
+		images[image] = path
 	}
-	lingering := filepath.Join(dir, "almanac-trainer-lingering")
-	script := fmt.Sprintf(`#!/bin/sh
-if [ "$1" != train ]; then exec %[1]s "$@"; fi
-%[1]s "$@"
-rc=$?
-while [ ! -e %[2]s/"$ALMANAC_PORTFOLIO" ]; do sleep 0.2; done
-exit $rc
-`, trainerBinary, gateDir)
-	if err := os.WriteFile(lingering, []byte(script), 0o755); err != nil {
-		return nil, nil, nil, err
+	return images, nil, []string{"../../config/crd/bases"}, nil
+}
+
+// goBuild builds a static binary of a package of this module.
+func goBuild(ctx context.Context, out, pkg string) error {
+	build := exec.CommandContext(ctx, "go", "build", "-o", out, pkg)
+	build.Env = append(os.Environ(), "CGO_ENABLED=0")
+	if b, err := build.CombinedOutput(); err != nil {
+		return fmt.Errorf("build %s: %v: %s", pkg, err, b)
 	}
-	images[lingeringImage] = lingering
-	return images, sandboxed, []string{"../../config/crd/bases"}, nil
+	return nil
 }
 
 // manager is the almanac manager of the scenarios, run in the test process so that a scenario
@@ -419,15 +434,16 @@ func podsRunning(ctx context.Context, ns, portfolio string) []string {
 }
 
 // trainerProcesses returns the command lines of live processes running the suite's trainer:
-// on the host (trainerBinary in the command line, wrappers included) or in the image's root
-// (argv[0] the image's entrypoint).
+// on the host (trainerBinary in the command line, the fault program's included) or in the
+// image's root (an argument that is the image's entrypoint; the sandbox's own unshare and sh
+// carry it only inside their script).
 func trainerProcesses() []string {
 	entries, _ := os.ReadDir("/proc")
 	var out []string
 	for _, e := range entries {
 		b, err := os.ReadFile(filepath.Join("/proc", e.Name(), "cmdline"))
-		argv0, _, _ := strings.Cut(string(b), "\x00")
-		if err != nil || !(strings.Contains(string(b), trainerBinary) || (trainerEntrypoint != "" && argv0 == trainerEntrypoint)) {
+		inImage := trainerEntrypoint != "" && slices.Contains(strings.Split(string(b), "\x00"), trainerEntrypoint)
+		if err != nil || !(strings.Contains(string(b), trainerBinary) || inImage) {
 			continue
 		}
 		if stat, err := os.ReadFile(filepath.Join("/proc", e.Name(), "stat")); err == nil {
