@@ -1,6 +1,7 @@
 package pipeline
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -90,7 +91,7 @@ func TestReconciledBandsCover(t *testing.T) {
 				ns[i].End = end
 				ns[i].Backtest = make([]OriginErrors, origins)
 				for o := range ns[i].Backtest {
-					ns[i].Backtest[o] = OriginErrors{Held: steps * (o + 1), Errors: make(floats, steps)}
+					ns[i].Backtest[o] = OriginErrors{Held: steps * (o + 1), Errors: make(errorFloats, steps)}
 				}
 				ns[i].Mean = make(floats, steps)
 			}
@@ -141,6 +142,27 @@ func TestReconciledBandsCover(t *testing.T) {
 			if math.Abs(cover-0.8) > tol {
 				t.Errorf("%s %s: 10-90 coverage %.3f, want 0.80 ± %.2f", method, l, cover, tol)
 			}
+		}
+	}
+}
+
+// Backtest errors travel in nodes.json with 7 significant digits, NaN as null.
+func TestErrorFloatsJSON(t *testing.T) {
+	in := errorFloats{1.23456789, math.NaN(), -1e-5, 123456789, 0}
+	b, err := json.Marshal(in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := `[1.234568,null,-1e-05,1.234568e+08,0]`; string(b) != want {
+		t.Fatalf("%s, want %s", b, want)
+	}
+	var out errorFloats
+	if err := json.Unmarshal(b, &out); err != nil {
+		t.Fatal(err)
+	}
+	for i, v := range in {
+		if math.IsNaN(v) != math.IsNaN(out[i]) || (!math.IsNaN(v) && math.Abs(out[i]-v) > 5e-7*math.Abs(v)) {
+			t.Errorf("value %d: %v back as %v", i, v, out[i])
 		}
 	}
 }
