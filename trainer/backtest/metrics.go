@@ -135,7 +135,9 @@ func MeanAbsPercentError(y, f []float64) float64 {
 //
 // (M4 Competitor's Guide 2018, equation for sMAPE; the absolute values in the denominator are
 // the M4 form and equal the M3 form 200|y−f|/(y+f) of Makridakis & Hibon 2000 for positive
-// data). A term with |y_t|+|f_t| = 0 makes the result NaN, as does empty input.
+// data). A term with y_t = f_t = 0 counts as 0: the forecast is exact, and the formula's 0/0
+// is otherwise undefined (our choice, common practice for data with zeros; the competitions'
+// data had none). Empty input gives NaN.
 func SymmetricMAPE(y, f []float64) float64 {
 	checkLen(y, f)
 	if len(y) == 0 {
@@ -145,7 +147,7 @@ func SymmetricMAPE(y, f []float64) float64 {
 	for i := range y {
 		d := math.Abs(y[i]) + math.Abs(f[i])
 		if d == 0 {
-			return math.NaN()
+			continue
 		}
 		s += 200 * math.Abs(y[i]-f[i]) / d
 	}

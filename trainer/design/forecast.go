@@ -726,17 +726,23 @@ func (out *Outcome) writeHead(w io.Writer) {
 	if out.SampleSeries > 0 {
 		fmt.Fprintf(w, ", chosen once on a sample of %d series", out.SampleSeries)
 	}
+	if out.InnerSeries == 0 {
+		// No series long enough for the inner holdout (n >= 2h + 2m + 2): nothing was
+		// measured, and every segment takes the first candidate.
+		fmt.Fprintf(w, "; no series long enough to choose on: the first candidate everywhere\n")
+		return
+	}
 	fmt.Fprintf(w, "; budget %.2f ms/series", out.BudgetMillis)
 	if len(out.DroppedMembers) > 0 {
 		fmt.Fprintf(w, "; over budget: %s", strings.Join(out.DroppedMembers, ", "))
 	}
 	fmt.Fprintln(w)
 	for i, c := range out.Candidates {
-		cost := math.NaN()
 		if i < len(out.CostMillis) {
-			cost = out.CostMillis[i]
+			fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, out.CostMillis[i])
+		} else {
+			fmt.Fprintf(w, "  candidate %-16s (cost not measured)\n", c)
 		}
-		fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, cost)
 	}
 }
 
