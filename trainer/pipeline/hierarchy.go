@@ -306,8 +306,8 @@ func (x *floats) UnmarshalJSON(b []byte) error {
 }
 
 // errorFloats are backtest errors in nodes.json: like floats, written with 7 significant digits
-// (a relative rounding of at most 5e-7, far below what a covariance estimated from a few dozen errors
-// can resolve), which makes them about half as long as Go's shortest round-trip form.
+// (a relative rounding of at most 5e-7, far below what a covariance estimated from a few dozen
+// errors can resolve), which makes them about half as long as Go's shortest round-trip form.
 type errorFloats []float64
 
 func (x errorFloats) MarshalJSON() ([]byte, error) {
