@@ -178,21 +178,29 @@ func TestWritableRoot(t *testing.T) {
 // runtime reports it); killing unshare leaves no process of the sandbox behind.
 func TestSignals(t *testing.T) {
 	image := probeRoot(t)
-	start := func() (*exec.Cmd, *bytes.Buffer, int) {
+	// start returns the running sandbox, a function reading its output so far, and the
+	// probe's PID.
+	start := func() (*exec.Cmd, func() string, int) {
 		cmd, err := Spec{Root: tree(t, image, true), ReadOnlyRoot: true, UID: 65532, GID: 65532, Env: []string{"PATH=/"},
 			Argv: []string{"/probe", "--sleep", "1m"}}.Command()
 		if err != nil {
 			t.Fatal(err)
 		}
-		var out bytes.Buffer
-		cmd.Stdout, cmd.Stderr = &out, &out
+		// A file, not a buffer: the test reads it while the processes write.
+		f, err := os.Create(filepath.Join(t.TempDir(), "out"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		out := func() string { b, _ := os.ReadFile(f.Name()); return string(b) }
+		cmd.Stdout, cmd.Stderr = f, f
 		cmd.SysProcAttr.Setpgid = true
 		if err := cmd.Start(); err != nil {
 			t.Fatal(err)
 		}
 		// The probe is unshare's grandchild (unshare → sh → probe) once it has printed.
 		deadline := time.Now().Add(30 * time.Second)
-		for !strings.Contains(out.String(), "pid: ") && time.Now().Before(deadline) {
+		for !strings.Contains(out(), "pid: ") && time.Now().Before(deadline) {
 			time.Sleep(20 * time.Millisecond)
 		}
 		probe := cmd.Process.Pid
@@ -200,11 +208,11 @@ func TestSignals(t *testing.T) {
 			b, err := os.ReadFile(fmt.Sprintf("/proc/%d/task/%d/children", probe, probe))
 			f := strings.Fields(string(b))
 			if err != nil || len(f) == 0 {
-				t.Fatalf("no child of %d: %v\n%s", probe, err, out.String())
+				t.Fatalf("no child of %d: %v\n%s", probe, err, out())
 			}
 			probe, _ = strconv.Atoi(f[0])
 		}
-		return cmd, &out, probe
+		return cmd, out, probe
 	}
 	alive := func(pid int) bool {
 		b, err := os.ReadFile(fmt.Sprintf("/proc/%d/stat", pid))
@@ -217,12 +225,12 @@ func TestSignals(t *testing.T) {
 	}
 	_ = cmd.Wait()
 	if code := cmd.ProcessState.ExitCode(); code != 128+int(syscall.SIGTERM) {
-		t.Errorf("SIGTERM to the group: exit %d, want %d\n%s", code, 128+int(syscall.SIGTERM), out)
+		t.Errorf("SIGTERM to the group: exit %d, want %d\n%s", code, 128+int(syscall.SIGTERM), out())
 	}
 
 	cmd, out, probe := start()
 	if !alive(probe) {
-		t.Fatalf("probe %d not running\n%s", probe, out)
+		t.Fatalf("probe %d not running\n%s", probe, out())
 	}
 	_ = cmd.Process.Kill()
 	_ = cmd.Wait()
