@@ -56,7 +56,9 @@ func TestQuantileMetricsByHand(t *testing.T) {
 }
 
 // Undefined cases return NaN: MASE with a constant history (scale 0, Hyndman & Koehler 2006
-// note the measure is undefined then), MAPE with a zero actual, sMAPE with y = f = 0.
+// note the measure is undefined then) and MAPE with a zero actual. sMAPE's 0/0 term (y = f =
+// 0) is defined as 0 by our choice (an exact forecast; backtest.SymmetricMAPE), so a series
+// of zeros forecast as zeros scores 0, not NaN.
 func TestMetricsUndefined(t *testing.T) {
 	if v := backtest.Score(backtest.MASE, []float64{1}, []float64{2}, []float64{5, 5, 5}, 1); !math.IsNaN(v) {
 		t.Errorf("MASE with zero scale: got %v, want NaN", v)
@@ -64,7 +66,7 @@ func TestMetricsUndefined(t *testing.T) {
 	if v := backtest.Score(backtest.MAPE, []float64{0, 1}, []float64{1, 1}, nil, 1); !math.IsNaN(v) {
 		t.Errorf("MAPE with zero actual: got %v, want NaN", v)
 	}
-	if v := backtest.Score(backtest.SMAPE, []float64{0}, []float64{0}, nil, 1); !math.IsNaN(v) {
-		t.Errorf("sMAPE 0/0: got %v, want NaN", v)
+	if v := backtest.Score(backtest.SMAPE, []float64{0}, []float64{0}, nil, 1); v != 0 {
+		t.Errorf("sMAPE 0/0: got %v, want 0", v)
 	}
 }
