@@ -42,8 +42,8 @@ func (m Metric) Scaled() bool { return m == MASE || m == RMSSE }
 // Score computes metric of forecast f against actual y (same length), using the in-sample
 // history insample and season length m for the scaled metrics (MASE, RMSSE; m < 1 is taken
 // as 1). It returns NaN when the metric is undefined: empty input, a zero scale (MASE, RMSSE,
-// WAPE), zero actuals (MAPE) or |y|+|f| = 0 (sMAPE). See each metric's function for its
-// formula and source. Score panics when len(y) != len(f) or the metric is unknown.
+// WAPE) or zero actuals (MAPE); sMAPE counts a term with y = f = 0 as 0. See each metric's
+// function for its formula and source. Score panics when len(y) != len(f) or the metric is unknown.
 func Score(metric Metric, y, f, insample []float64, m int) float64 {
 	checkLen(y, f)
 	switch metric {

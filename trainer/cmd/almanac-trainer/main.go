@@ -239,7 +239,8 @@ func usage(w io.Writer) {
 
 commands (the run's Jobs):
   plan      --config FILE [--termination-log FILE]
-            list the input, count series, cut units into shards, write runs/<run>/plan.json
+            list the input, count series, cut units into shards, (Auto design) decide the
+            design per segment on a sample, write runs/<run>/plan.json
   train     --config FILE [--shard N] [--termination-log FILE]
             forecast shard N (default $JOB_COMPLETION_INDEX) and write its units' tables
   reconcile --config FILE [--termination-log FILE]
@@ -278,7 +279,8 @@ exit codes (stable; the Jobs fail a step or shard at once on 2, 3 and 5 and retr
      refused credentials or permissions; also what the Go runtime exits with on a fatal error
      (out of memory), which the trainer cannot catch
   3  broken data: an input object that cannot be read as a table, changed or vanished after plan,
-     an input folder with no objects; or a damaged manifest of a run named as previousRun (a
+     an input folder with no objects, a hierarchy's input so old that its whole horizon has
+     ended at the run's cutoff (plan); or a damaged manifest of a run named as previousRun (a
      damaged latest.json is not an error: publish rebuilds it from the newest intact manifest)
   4  transient storage error: refused connections, server errors, a storage request with no
      answer within --request-timeout (default 2m) or a command past --step-timeout or
