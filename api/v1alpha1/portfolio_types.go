@@ -574,22 +574,24 @@ type SmoothingSettings struct {
 // SelectionSpec says how each series' model is chosen.
 // +kubebuilder:validation:XValidation:rule="!has(self.combine) || !has(self.design) || self.design != 'PerSeries'",message="selection.combine is not used with design PerSeries (use Fixed or Auto)"
 type SelectionSpec struct {
-	// design says how the forecasting design is decided. Auto (default): every trainer shard
-	// scores candidate designs built from models on each series' last horizon training
+	// design says how the forecasting design is decided. Auto (default): once per run the plan
+	// step takes a sample of at most 2000 of the portfolio's series (by a hash of their keys),
+	// scores candidate designs built from models on each sampled series' last horizon training
 	// points (fixed combinations such as the mean of ETS and Theta when both are listed, the
 	// mean and the median of each series' 3 best members, the declared combination, each
-	// series' best member), keeps per segment of its series (frequency x demand class x
-	// history length) the simplest design within one standard error of the best (Hastie,
-	// Tibshirani & Friedman 2009, 7.10), and runs it on the full history; designs over the
-	// designCostPercent budget are not weighed. PerSeries: each series gets its best member
-	// by backtest. Fixed: exactly models and combine as declared. The chosen design is in the
-	// models table's design column and in the run's status.
+	// series' best member) and keeps per segment (frequency x demand class x history length)
+	// the simplest design within one standard error of the best (Hastie, Tibshirani & Friedman
+	// 2009, 7.10); every trainer shard runs it on the full histories of its series and decides
+	// by the same rule on its own series only for a segment the sample did not hold; designs
+	// over the designCostPercent budget are not weighed. PerSeries: each series gets its best
+	// member by backtest. Fixed: exactly models and combine as declared. The chosen design is
+	// in the models table's design and design_chosen_by columns and in the run's status.
 	// +optional
 	// +kubebuilder:default=Auto
 	Design SelectionDesign `json:"design,omitempty"`
 
 	// designCostPercent is Auto's CPU budget per series, in percent of the simplest
-	// candidate design's CPU time (each member is timed alone on a few series of the shard;
+	// candidate design's CPU time (each member is timed alone on a few series of each segment;
 	// the most expensive members leave the candidates until every candidate fits). A ratio
 	// rather than milliseconds, so one value suits every machine and series length. Default
 	// 500.
