@@ -86,18 +86,23 @@ func TestSmallShardAppliesThePlanChoice(t *testing.T) {
 	}
 }
 
-// A segment the decision does not hold is chosen by the call on its own series (From
-// FromShard, Outcome.Fallback), the others keep the decision.
-func TestUnseenSegmentFallsBackToTheShard(t *testing.T) {
-	in := portfolio()
-	o := decideOpts()
+// onlyLines are the lines of in (a plan sample that missed the steps' segment).
+func onlyLines(in []series.Series) []series.Series {
 	var lines []series.Series
 	for _, s := range in {
 		if strings.HasPrefix(s.Key, "line") {
 			lines = append(lines, s)
 		}
 	}
-	dec, err := Decide(context.Background(), lines, o) // the plan saw only the lines
+	return lines
+}
+
+// A segment the decision does not hold is chosen by the call on its own series (From
+// FromShard, Outcome.Fallback), the others keep the decision.
+func TestUnseenSegmentFallsBackToTheShard(t *testing.T) {
+	in := portfolio()
+	o := decideOpts()
+	dec, err := Decide(context.Background(), onlyLines(in), o) // the plan saw only the lines
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -257,4 +262,57 @@ func fnv64a(s string) uint64 {
 		h *= 1099511628211
 	}
 	return h
+}
+
+// Standalone series forecast in small batches, and the rest (a segment the decision did not
+// hold) in one call of their own, get what one call over every series gives: the same design,
+// origin, segment and forecast per series.
+func TestStandaloneBatchesEqualOneCall(t *testing.T) {
+	in := portfolio()
+	o := decideOpts()
+	if o.Standalone() != nil {
+		t.Fatal("Auto without a decision: no series may stand alone")
+	}
+	dec, err := Decide(context.Background(), onlyLines(in), o) // the plan saw only the lines
+	if err != nil {
+		t.Fatal(err)
+	}
+	o.Decided = dec
+	_, want := run1(t, in, o)
+	alone := o.Standalone()
+	var batch, rest []series.Series
+	var got []Result
+	flush := func() {
+		_, rs := run1(t, batch, o)
+		got, batch = append(got, rs...), nil
+	}
+	for _, s := range in {
+		if !alone(s) {
+			rest = append(rest, s)
+			continue
+		}
+		if batch = append(batch, s); len(batch) == 7 {
+			flush()
+		}
+	}
+	flush()
+	if len(rest) != 25 || len(got) != 25 {
+		t.Fatalf("%d series stand alone and %d not; want the 25 lines and the 25 steps", len(got), len(rest))
+	}
+	_, rs := run1(t, rest, o)
+	got = append(got, rs...)
+	byKey := map[string]Result{}
+	for _, r := range got {
+		byKey[r.Key] = r
+	}
+	for i, w := range want {
+		g := byKey[in[i].Key]
+		if g.Design != w.Design || g.From != w.From || g.Segment != w.Segment || !reflect.DeepEqual(g.Mean, w.Mean) {
+			t.Errorf("%s: %s from %s %v, one call %s from %s %v", in[i].Key, g.Design, g.From, g.Mean, w.Design, w.From, w.Mean)
+		}
+	}
+	o.Mode, o.Decided = Fixed, nil
+	if f := o.Standalone(); f == nil || !f(in[0]) {
+		t.Error("Fixed: every series stands alone")
+	}
 }

@@ -897,3 +897,37 @@ func sumCost(c selection.Config, member map[string]float64) float64 {
 	}
 	return s
 }
+
+// Standalone returns a test of whether Forecast gives a series the same result whichever
+// other series the call holds, or nil when no series does. Under Fixed and PerSeries every
+// series stands alone; under Auto with Decided, a series whose segment the decision holds
+// (its design is the plan's) or that cannot be cleaned (the decided first candidate rejects
+// it). Nil: Auto without Decided (the call chooses on its own series), or a zoo member fitted
+// across the call's series (regression.acrossShard).
+//
+// A caller may forecast standalone series in batches of any size, and must give the others
+// (segments the decision did not hold) to one call of their own, in input order: Forecast
+// chooses their segments on their series only (Decided's segments draw no inner series), so
+// that call chooses what one call over every series would have.
+func (o Options) Standalone() func(series.Series) bool {
+	o = o.withDefaults()
+	for _, sp := range o.Base.Zoo {
+		if sp.Regression != nil && sp.Regression.AcrossShard {
+			return nil
+		}
+	}
+	if o.Mode != Auto {
+		return func(series.Series) bool { return true }
+	}
+	if o.Decided == nil {
+		return nil
+	}
+	held := map[string]bool{}
+	for _, ch := range o.Decided.Choices {
+		held[ch.Segment.String()] = true
+	}
+	return func(s series.Series) bool {
+		sg := segmentOf(s, o.Base)
+		return sg == Segment{} || held[sg.String()]
+	}
+}
