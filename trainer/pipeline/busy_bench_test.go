@@ -11,7 +11,6 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/design"
-	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/synth"
 )
@@ -55,22 +54,8 @@ func BenchmarkBusyCores(b *testing.B) {
 	if _, err := o.Write(ctx, mustOpen(b, "file://"+dir), "in/", synth.Parquet); err != nil {
 		b.Fatal(err)
 	}
-	cfg := &runconfig.Config{
-		APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
-		Portfolio: "flp-weekly", Namespace: "planning", Run: "flp-busy", Trigger: "Manual",
-		Source: runconfig.Source{URI: "file://" + dir + "/in/", Format: runconfig.FormatParquet, Frequency: "Weekly", WeekAnchor: "Monday",
-			NonNegative: true, Partitioning: runconfig.PartitionObjects,
-			Columns: runconfig.Columns{Series: []string{synth.ColItem, synth.ColDepot}, Date: o.DateColumn(), Value: synth.ColUnits}},
-		Output:           runconfig.Output{URI: "file://" + dir + "/out", Format: runconfig.FormatParquet},
-		Horizon:          13,
-		QuantilePercents: []int{10, 50, 90},
-		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive},
-			{Family: models.FamilyETS}, {Family: models.FamilyTheta}},
-		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce,
-			Design: runconfig.DesignAuto, DesignCostPercent: 500},
-		Sharding: runconfig.Sharding{TargetSeriesPerShard: n + 1},
-		Drift:    runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 3},
-	}
+	cfg := weeklyConfig(dir, o, "flp-busy", "out", runconfig.PartitionObjects)
+	cfg.Sharding.TargetSeriesPerShard = n + 1
 	ps, err := RunPlan(ctx, cfg, Env{})
 	if err != nil {
 		b.Fatal(err)

@@ -9,7 +9,6 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/design"
-	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/synth"
 )
@@ -39,22 +38,9 @@ func BenchmarkPlanDesignSample(b *testing.B) {
 		b.Fatal(err)
 	}
 	cfg := func(mode string) *runconfig.Config {
-		return &runconfig.Config{
-			APIVersion: runconfig.APIVersion, Kind: runconfig.Kind,
-			Portfolio: "flp-weekly", Namespace: "planning", Run: "flp-plan-" + strings.ToLower(mode), Trigger: "Manual",
-			Source: runconfig.Source{URI: "file://" + dir + "/in/", Format: runconfig.FormatParquet, Frequency: "Weekly", WeekAnchor: "Monday",
-				NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
-				Columns: runconfig.Columns{Series: []string{synth.ColItem, synth.ColDepot}, Date: o.DateColumn(), Value: synth.ColUnits}},
-			Output:           runconfig.Output{URI: "file://" + dir + "/out-" + strings.ToLower(mode), Format: runconfig.FormatParquet},
-			Horizon:          13,
-			QuantilePercents: []int{10, 50, 90},
-			Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive},
-				{Family: models.FamilyETS}, {Family: models.FamilyTheta}},
-			Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce,
-				Design: mode, DesignCostPercent: 500},
-			Sharding: runconfig.Sharding{TargetSeriesPerShard: 500},
-			Drift:    runconfig.Drift{Metric: "MASE", ThresholdPercent: 130, MinEvaluatedPoints: 3},
-		}
+		c := weeklyConfig(dir, o, "flp-plan-"+strings.ToLower(mode), "out-"+strings.ToLower(mode), runconfig.PartitionHashBuckets)
+		c.Selection.Design = mode
+		return c
 	}
 	var fixedWall, fixedCPU, fixedAlloc float64
 	for _, mode := range []string{runconfig.DesignFixed, runconfig.DesignAuto} {

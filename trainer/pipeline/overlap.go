@@ -54,39 +54,20 @@ func fitAndWrite(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 	left0 := slices.Clone(left)
 	results := make([]design.Result, len(all))
 	errs := make([]error, len(all))
-	res := fitted{dones: make([]UnitDone, len(units)), series: len(all)}
+	res := fitted{series: len(all)}
 
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	queue := make(chan int, len(units)) // each unit is queued once: sends never block
-	var (
-		wg      sync.WaitGroup
-		errOnce sync.Once
-		werr    error
-	)
-	for w := 0; w < min(unitWriters, max(len(units), 1)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for k := range queue {
-				if ctx.Err() != nil {
-					continue
-				}
-				u, lo, hi := units[k], offs[k], offs[k]+left0[k]
-				d, err := writeUnit(ctx, out, cfg, st, h, prev, u, results[lo:hi], errs[lo:hi])
-				if err != nil {
-					errOnce.Do(func() { werr = err; cancel() })
-					continue
-				}
-				res.dones[k] = d
-				clear(results[lo:hi])
-				tr.written()
-			}
-		}()
-	}
+	// each unit is queued once: sends never block
+	wr := startWriters(ctx, cancel, len(units), len(units), tr, func(k int) (UnitDone, error) {
+		lo, hi := offs[k], offs[k]+left0[k]
+		d, err := writeUnit(ctx, out, cfg, st, h, prev, units[k], results[lo:hi], errs[lo:hi])
+		clear(results[lo:hi])
+		return d, err
+	})
 	for k, u := range units {
 		if u.err == nil && u.skip == "" && left[k] == 0 {
-			queue <- k
+			wr.queue <- k
 		}
 	}
 	t0 := env.now()
@@ -104,15 +85,57 @@ func fitAndWrite(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		}
 		k := unitOf[i]
 		if left[k]--; left[k] == 0 {
-			queue <- k
+			wr.queue <- k
 		}
 	})
 	res.fitSeconds = env.now().Sub(t0).Seconds()
 	res.outcome = outcome
-	close(queue)
-	wg.Wait()
-	if werr != nil {
-		return res, werr
+	res.dones = wr.wait()
+	if wr.err != nil {
+		return res, wr.err
 	}
 	return res, ferr
+}
+
+// writers evaluate, encode and write finished units (their indices sent on queue) on
+// unitWriters goroutines. The first write error is kept and cancels the context; later units
+// are then taken off the queue and not written, so a send never waits on a stopped writer.
+type writers struct {
+	queue chan int
+	wg    sync.WaitGroup
+	once  sync.Once
+	err   error
+	dones []UnitDone // per unit index; zero for units not written
+}
+
+// startWriters starts the writers of units units with a queue of the given capacity; write
+// writes unit k.
+func startWriters(ctx context.Context, cancel context.CancelFunc, units, capacity int, tr *tracker, write func(k int) (UnitDone, error)) *writers {
+	w := &writers{queue: make(chan int, capacity), dones: make([]UnitDone, units)}
+	for i := 0; i < min(unitWriters, max(units, 1)); i++ {
+		w.wg.Add(1)
+		go func() {
+			defer w.wg.Done()
+			for k := range w.queue {
+				if ctx.Err() != nil {
+					continue
+				}
+				d, err := write(k)
+				if err != nil {
+					w.once.Do(func() { w.err = err; cancel() })
+					continue
+				}
+				w.dones[k] = d
+				tr.written()
+			}
+		}()
+	}
+	return w
+}
+
+// wait closes the queue, waits for the writers and returns what they wrote (see err).
+func (w *writers) wait() []UnitDone {
+	close(w.queue)
+	w.wg.Wait()
+	return w.dones
 }

@@ -44,6 +44,9 @@ type Env struct {
 	// DesignSample is the most series plan decides the run's design on (0:
 	// design.DefaultSampleSeries; see designSample).
 	DesignSample int
+	// wholeShard makes train read every unit before fitting even when it could stream
+	// (tests compare the two paths).
+	wholeShard bool
 }
 
 func (e Env) designSample() int {

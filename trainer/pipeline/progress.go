@@ -74,6 +74,10 @@ func (t *tracker) fitting(planned int) {
 	t.print()
 }
 
+// plan adds n series to the planned count: a unit's, when units are fitted as they are read
+// (streamShard), so Planned reaches the shard's count once every unit is read.
+func (t *tracker) plan(n int) { t.update(func(p *summary.Progress) { p.Planned += n }) }
+
 // done counts n series forecast or rejected.
 func (t *tracker) done(n int) { t.update(func(p *summary.Progress) { p.Done += n }) }
 

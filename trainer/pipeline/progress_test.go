@@ -49,7 +49,9 @@ func progressLines(t *testing.T, log string) []summary.Progress {
 
 // TestTrainPrintsProgress: one shard of three object units (7 series, one rejected when
 // collected) prints reading, fitting and done lines; the last has every unit read and written
-// and done = planned = 7.
+// and done = planned = 7. Reading the whole shard first, fitting starts with every unit read
+// and planned 7; streaming (the design is Fixed), it starts with the first unit read and
+// planned counts that unit's series (2 or 3), growing as the others are read.
 func TestTrainPrintsProgress(t *testing.T) {
 	_, cfg := objectRun(t)
 	cfg.Sharding.TargetSeriesPerShard = 100
@@ -57,28 +59,31 @@ func TestTrainPrintsProgress(t *testing.T) {
 	if ps, err := RunPlan(ctx, cfg, testEnv()); err != nil || ps.Shards != 1 {
 		t.Fatalf("plan: %+v %v, want one shard", ps, err)
 	}
-	var log lockedBuffer
-	env := testEnv()
-	env.Log, env.ProgressEvery = &log, -1
-	if _, err := RunTrain(ctx, cfg, 0, env); err != nil {
-		t.Fatal(err)
-	}
-	lines := progressLines(t, log.String())
-	if len(lines) != 3 {
-		t.Fatalf("%d progress lines, want 3 (reading, fitting, done):\n%s", len(lines), log.String())
-	}
-	first, fit, last := lines[0], lines[1], lines[2]
-	if first.Phase != summary.PhaseReading || first.Units != 3 || first.UnitsRead != 0 || first.Planned != 0 {
-		t.Errorf("first line %+v", first)
-	}
-	if fit.Phase != summary.PhaseFitting || fit.UnitsRead != 3 || fit.Planned != 7 {
-		t.Errorf("fitting line %+v", fit)
-	}
-	if last.Phase != summary.PhaseDone || last.Done != 7 || last.Planned != 7 || last.UnitsWritten != 3 || last.Shard != 0 {
-		t.Errorf("last line %+v", last)
-	}
-	if p, ok := summary.LastProgress([]byte(log.String())); !ok || p != last {
-		t.Errorf("LastProgress = %+v %v, want the done line", p, ok)
+	for _, whole := range []bool{true, false} {
+		var log lockedBuffer
+		env := testEnv()
+		env.Log, env.ProgressEvery, env.wholeShard = &log, -1, whole
+		if _, err := RunTrain(ctx, cfg, 0, env); err != nil {
+			t.Fatal(err)
+		}
+		lines := progressLines(t, log.String())
+		if len(lines) != 3 {
+			t.Fatalf("whole shard %v: %d progress lines, want 3 (reading, fitting, done):\n%s", whole, len(lines), log.String())
+		}
+		first, fit, last := lines[0], lines[1], lines[2]
+		if first.Phase != summary.PhaseReading || first.Units != 3 || first.UnitsRead != 0 || first.Planned != 0 {
+			t.Errorf("whole shard %v: first line %+v", whole, first)
+		}
+		if fit.Phase != summary.PhaseFitting || whole && (fit.UnitsRead != 3 || fit.Planned != 7) ||
+			!whole && (fit.UnitsRead < 1 || fit.Planned < 2 || fit.Planned > 3) {
+			t.Errorf("whole shard %v: fitting line %+v", whole, fit)
+		}
+		if last.Phase != summary.PhaseDone || last.Done != 7 || last.Planned != 7 || last.UnitsWritten != 3 || last.Shard != 0 {
+			t.Errorf("whole shard %v: last line %+v", whole, last)
+		}
+		if p, ok := summary.LastProgress([]byte(log.String())); !ok || p != last {
+			t.Errorf("whole shard %v: LastProgress = %+v %v, want the done line", whole, p, ok)
+		}
 	}
 }
 

@@ -95,9 +95,12 @@ func (l *loaded) seriesAt(i int) series.Series {
 // RunTrain is the train command for one shard. It reads the shard's units (an object unit
 // reads its object or row groups; bucket units share one pass over every input object that
 // keeps only their buckets' rows, so memory grows with the shard, not the input), collects
-// and cleans the series, forecasts them with one design.Forecast call and writes each unit's
-// tables (with the evaluation of the previous run's forecasts against the new actuals) and then
-// its unit.json as soon as the unit's series are done, while the rest are fitted (fitAndWrite).
+// and cleans the series, forecasts them and writes each unit's tables (with the evaluation of
+// the previous run's forecasts against the new actuals) and then its unit.json as soon as the
+// unit's series are done, while the rest are fitted. When no series' design depends on the
+// shard's other series (Fixed, PerSeries, or Auto with the plan's decision: design.Options.
+// Standalone) a unit is fitted as soon as it is read (streamShard); otherwise every unit is
+// read first and one design.Forecast call fits them all (trainWholeShard).
 // It prints a progress line (summary.Progress) at each phase and every Env.ProgressEvery. A
 // series that cannot be used goes to rejected.csv with the reason. A unit
 // whose input is broken or gone is not written; the others are, and RunTrain then returns
@@ -119,30 +122,20 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	}
 	tr := startTracker(env, shard, len(p.Shards[shard].Units))
 	defer tr.stopTicker()
-	units, err := loadShard(ctx, cfg, p, shard, p.Cutoff, env.Workers, tr)
-	if err != nil {
-		return sum, err
-	}
-	h := newHierarchy(cfg)
-	planned, rejected := 0, 0
-	for _, u := range units {
-		if h != nil && u.err == nil {
-			extendTo(u.series, p.HierarchyEnd)
-			u.nodes = h.aggregate(u.series, h.levelsWhere(true))
-			u.partials = h.aggregate(u.series, h.levelsWhere(false))
-		}
-		planned += len(u.series) + len(u.rejected)
-		rejected += len(u.rejected)
-	}
-	tr.fitting(planned)
-	tr.done(rejected)
 	opts, err := designOptions(st, p, env.Workers)
 	if err != nil {
 		return sum, err
 	}
-	fit, err := fitAndWrite(ctx, cfg, st, h, out, prev, units, opts, tr, env)
+	h := newHierarchy(cfg)
+	var units []*loaded
+	var fit fitted
+	if alone := opts.Standalone(); alone != nil && !env.wholeShard {
+		units, fit, err = streamShard(ctx, cfg, st, h, out, prev, p, shard, opts, alone, tr, env)
+	} else {
+		units, fit, err = trainWholeShard(ctx, cfg, st, h, out, prev, p, shard, opts, tr, env)
+	}
 	if err != nil {
-		return sum, err // the context ended or a write failed (cfg was validated above)
+		return sum, err // a read, the context or a write failed (cfg was validated above)
 	}
 	outcome := fit.outcome
 	env.logf("train: shard %d: design %s, %s, series per design %v",
@@ -233,6 +226,27 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	return sum, firstErr
 }
 
+// trainWholeShard reads every unit of the shard, then forecasts all their series with one
+// design.Forecast call (its automatic design is chosen on the whole shard) and writes each unit
+// as soon as its series are done (fitAndWrite).
+func trainWholeShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hierarchy, out *store.Store, prev *Manifest,
+	p *Plan, shard int, opts design.Options, tr *tracker, env Env) ([]*loaded, fitted, error) {
+	units, err := loadShard(ctx, cfg, p, shard, p.Cutoff, env.Workers, tr)
+	if err != nil {
+		return nil, fitted{}, err
+	}
+	planned, rejected := 0, 0
+	for _, u := range units {
+		u.withNodes(h, p)
+		planned += len(u.series) + len(u.rejected)
+		rejected += len(u.rejected)
+	}
+	tr.fitting(planned)
+	tr.done(rejected)
+	fit, err := fitAndWrite(ctx, cfg, st, h, out, prev, units, opts, tr, env)
+	return units, fit, err
+}
+
 // loadShard reads and collects the shard's units. A unit's broken input is kept in its err.
 // Configuration errors (frequency, layout) end the shard. Object units are read by up to
 // `workers` goroutines at once (each unit has its own collector, so every unit's series are
@@ -240,16 +254,40 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 // Memory: the shard's collected series, which the design needs all together anyway, plus one
 // object's decoding buffers per reader.
 func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, now time.Time, workers int, tr *tracker) ([]*loaded, error) {
-	h := newHierarchy(cfg)
 	src, err := openSource(ctx, cfg.Source)
 	if err != nil {
 		return nil, err
 	}
 	defer src.st.Close()
-	var units []*loaded
-	collectors := map[string]*ingest.Collector{}
-	byBucket := map[int]*loaded{}
-	var objectUnits []*loaded
+	sh, err := newShardUnits(cfg, p, shard, now, src, tr)
+	if err != nil {
+		return nil, err
+	}
+	if err := readObjectUnits(ctx, src, p, sh.objects, sh.collectors, workers, tr, nil); err != nil {
+		return nil, err
+	}
+	if err := sh.readBuckets(ctx, src, p, newHierarchy(cfg), tr); err != nil {
+		return nil, err
+	}
+	for _, l := range sh.units {
+		l.collect(sh.collectors[l.unit.ID])
+	}
+	return sh.units, nil
+}
+
+// shardUnits are a shard's units before reading: object units (read each on its own) and
+// bucket units (read together in one pass), each with its collector.
+type shardUnits struct {
+	units      []*loaded // every unit, in the shard's order
+	objects    []*loaded // object units to read (not those broken at plan)
+	byBucket   map[int]*loaded
+	collectors map[string]*ingest.Collector // by unit id; not changed while units are read
+}
+
+// newShardUnits sets up the shard's units and their collectors; a unit whose object was
+// broken at plan is marked skipped and counted as read.
+func newShardUnits(cfg *runconfig.Config, p *Plan, shard int, now time.Time, src *source, tr *tracker) (*shardUnits, error) {
+	sh := &shardUnits{byBucket: map[int]*loaded{}, collectors: map[string]*ingest.Collector{}}
 	for _, id := range p.Shards[shard].Units {
 		u, _ := p.unit(id)
 		c, err := ingest.NewCollector(cfg.Source, now)
@@ -260,10 +298,10 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 			c.KeepFuture(cfg.Horizon)
 		}
 		l := &loaded{unit: u, buckets: p.Buckets, cutoff: now}
-		units = append(units, l)
-		collectors[id] = c
+		sh.units = append(sh.units, l)
+		sh.collectors[id] = c
 		if u.Object == "" {
-			byBucket[u.Bucket] = l
+			sh.byBucket[u.Bucket] = l
 			continue
 		}
 		o, _ := p.object(u.Object)
@@ -272,32 +310,50 @@ func loadShard(ctx context.Context, cfg *runconfig.Config, p *Plan, shard int, n
 			tr.read() // nothing to read: counted as read, never written
 			continue
 		}
-		objectUnits = append(objectUnits, l)
+		sh.objects = append(sh.objects, l)
 	}
-	if err := readObjectUnits(ctx, src, p, objectUnits, collectors, workers, tr); err != nil {
-		return nil, err
+	return sh, nil
+}
+
+// readBuckets reads the bucket units in one pass (loadBuckets) and counts them read.
+func (sh *shardUnits) readBuckets(ctx context.Context, src *source, p *Plan, h *hierarchy, tr *tracker) error {
+	if len(sh.byBucket) == 0 {
+		return nil
 	}
-	if len(byBucket) > 0 {
-		if err := loadBuckets(ctx, src, p, h, byBucket, collectors); err != nil {
-			return nil, err
-		}
-		for range byBucket {
-			tr.read()
-		}
+	if err := loadBuckets(ctx, src, p, h, sh.byBucket, sh.collectors); err != nil {
+		return err
 	}
-	for _, l := range units {
-		if l.err == nil && l.skip == "" {
-			l.series, l.rejected = collectors[l.unit.ID].Finish()
-			l.dropBroken()
-		}
-		delete(collectors, l.unit.ID)
+	for range sh.byBucket {
+		tr.read()
 	}
-	return units, nil
+	return nil
+}
+
+// collect takes a read unit's series and rejections out of its collector (nothing for a unit
+// that failed or was skipped) and drops the series of objects that broke.
+func (l *loaded) collect(c *ingest.Collector) {
+	if l.err == nil && l.skip == "" {
+		l.series, l.rejected = c.Finish()
+		l.dropBroken()
+	}
+}
+
+// withNodes adds a hierarchy's within-unit aggregates and partial sums to a collected unit
+// (nothing without a hierarchy or for a unit that failed).
+func (l *loaded) withNodes(h *hierarchy, p *Plan) {
+	if h != nil && l.err == nil {
+		extendTo(l.series, p.HierarchyEnd)
+		l.nodes = h.aggregate(l.series, h.levelsWhere(true))
+		l.partials = h.aggregate(l.series, h.levelsWhere(false))
+	}
 }
 
 // readObjectUnits reads object units on up to workers goroutines. The first error that ends
 // the shard (see fatal) stops the others and is returned; broken input stays in the unit.
-func readObjectUnits(ctx context.Context, src *source, p *Plan, units []*loaded, collectors map[string]*ingest.Collector, workers int, tr *tracker) error {
+// onRead (nil: none) is called on the reader's goroutine with each unit read, broken or not,
+// and its collector; while it runs, that reader reads nothing else.
+func readObjectUnits(ctx context.Context, src *source, p *Plan, units []*loaded, collectors map[string]*ingest.Collector, workers int, tr *tracker,
+	onRead func(*loaded, *ingest.Collector)) error {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
@@ -329,6 +385,9 @@ func readObjectUnits(ctx context.Context, src *source, p *Plan, units []*loaded,
 					continue
 				}
 				tr.read()
+				if onRead != nil {
+					onRead(l, c)
+				}
 			}
 		}()
 	}

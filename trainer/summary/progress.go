@@ -19,7 +19,7 @@ const ProgressInterval = 30 * time.Second
 // Phases of a train pod, in order.
 const (
 	PhaseReading = "reading" // reading and collecting the shard's units
-	PhaseFitting = "fitting" // choosing the design and forecasting (units are written as they finish)
+	PhaseFitting = "fitting" // choosing the design and forecasting (units are written as they finish; when units are fitted as they are read, reading goes on)
 	PhaseDone    = "done"    // every unit written; the summary follows
 )
 
@@ -36,8 +36,9 @@ type Progress struct {
 	Units        int `json:"units"`
 	UnitsRead    int `json:"unitsRead"`
 	UnitsWritten int `json:"unitsWritten"`
-	// Planned is the shard's series count once read (series plus rejected at collection);
-	// Done the series forecast or rejected so far.
+	// Planned is the series count (series plus rejected at collection) of the units read
+	// so far, which is the shard's once every unit is read (when fitting waits for the whole
+	// shard, from the fitting line on); Done the series forecast or rejected so far.
 	Planned int `json:"planned"`
 	Done    int `json:"done"`
 	// FitSeconds is the wall time since fitting started (0 before).
