@@ -74,9 +74,22 @@ func (t *tracker) fitting(planned int) {
 	t.print()
 }
 
-// plan adds n series to the planned count: a unit's, when units are fitted as they are read
-// (streamShard), so Planned reaches the shard's count once every unit is read.
-func (t *tracker) plan(n int) { t.update(func(p *summary.Progress) { p.Planned += n }) }
+// collected adds a unit's series count (series plus rejected at collection) to the planned
+// count, when units are fitted as they are read (streamShard): Planned reaches the shard's
+// count once every unit is read. The first call starts the fitting phase and prints.
+func (t *tracker) collected(n int) {
+	t.mu.Lock()
+	t.p.Planned += n
+	t.moved = t.env.now()
+	first := t.p.Phase == summary.PhaseReading
+	if first {
+		t.p.Phase, t.fit = summary.PhaseFitting, t.moved
+	}
+	t.mu.Unlock()
+	if first {
+		t.print()
+	}
+}
 
 // done counts n series forecast or rejected.
 func (t *tracker) done(n int) { t.update(func(p *summary.Progress) { p.Done += n }) }

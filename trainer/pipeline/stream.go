@@ -70,9 +70,16 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 	var readErr error
 	go func() {
 		defer close(ready)
-		readErr = readObjectUnits(ctx, src, p, sh.objects, sh.collectors, env.Workers, tr, func(l *loaded, c *ingest.Collector) {
+		collect := func(l *loaded, c *ingest.Collector) {
 			l.collect(c)
 			l.withNodes(h, p)
+			if l.err == nil {
+				tr.collected(len(l.series) + len(l.rejected))
+				tr.done(len(l.rejected))
+			}
+		}
+		readErr = readObjectUnits(ctx, src, p, sh.objects, sh.collectors, env.Workers, tr, func(l *loaded, c *ingest.Collector) {
+			collect(l, c)
 			send([]*loaded{l})
 		})
 		if readErr != nil {
@@ -84,8 +91,7 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		var batch []*loaded
 		for _, l := range units {
 			if l.unit.Object == "" {
-				l.collect(sh.collectors[l.unit.ID])
-				l.withNodes(h, p)
+				collect(l, sh.collectors[l.unit.ID])
 				batch = append(batch, l)
 			}
 		}
@@ -131,7 +137,6 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 	aside := make([][]int, len(units)) // per unit, its series kept for the end
 	var parts []*design.Outcome
 	var ferr error
-	fitting := false
 	for batch := range ready {
 		if ferr != nil {
 			continue // drain: the readers stop at the cancelled context
@@ -143,13 +148,6 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 				continue // broken input: reported by the caller, not written
 			}
 			k, n := index[l], len(l.series)+len(l.nodes)
-			if planned := len(l.series) + len(l.rejected); fitting {
-				tr.plan(planned)
-			} else {
-				tr.fitting(planned) // the first unit read starts the fitting phase
-				fitting = true
-			}
-			tr.done(len(l.rejected))
 			fits[k] = unitFit{results: make([]design.Result, n), errs: make([]error, n), left: n}
 			for j := 0; j < n; j++ {
 				if s := l.seriesAt(j); alone(s) {
@@ -172,9 +170,7 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		parts = append(parts, o)
 	}
 	if ferr == nil && readErr == nil {
-		if !fitting {
-			tr.fitting(0) // nothing was read (every unit broken or skipped)
-		}
+		tr.collected(0) // the fitting phase, if no unit was collected (every one broken or skipped)
 		var in []series.Series
 		refs = refs[:0]
 		for k, js := range aside {
