@@ -22,6 +22,9 @@ type fitted struct {
 	outcome    *design.Outcome
 	series     int     // series passed to design.Forecast
 	fitSeconds float64 // wall time of design.Forecast
+	// maxHeld is the most units collected and not yet written at one time (streamShard;
+	// 0 in fitAndWrite, which holds every unit).
+	maxHeld int
 }
 
 // fitAndWrite forecasts the shard's series with one design.Forecast call over all of them (the

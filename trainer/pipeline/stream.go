@@ -3,6 +3,7 @@ package pipeline
 import (
 	"context"
 	"sort"
+	"sync/atomic"
 
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
@@ -68,12 +69,22 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		}
 	}
 	var readErr error
+	var held, maxHeld atomic.Int64 // units collected and not yet written
+	hold := func() {
+		n := held.Add(1)
+		for {
+			if m := maxHeld.Load(); n <= m || maxHeld.CompareAndSwap(m, n) {
+				return
+			}
+		}
+	}
 	go func() {
 		defer close(ready)
 		collect := func(l *loaded, c *ingest.Collector) {
 			l.collect(c)
 			l.withNodes(h, p)
 			if l.err == nil {
+				hold()
 				tr.collected(len(l.series) + len(l.rejected))
 				tr.done(len(l.rejected))
 			}
@@ -106,6 +117,7 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		d, err := writeUnit(ctx, out, cfg, st, h, prev, u, fits[k].results, fits[k].errs)
 		fits[k] = unitFit{}
 		u.series, u.nodes, u.partials, u.rejected = nil, nil, nil, nil
+		held.Add(-1)
 		return d, err
 	})
 	type ref struct{ unit, at int }
@@ -185,6 +197,7 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		}
 	}
 	res.dones = wr.wait()
+	res.maxHeld = int(maxHeld.Load())
 	// A write error cancels the fitting and the reading, a fitting error the reading: the
 	// first cause is reported, not the cancellation it caused.
 	switch {

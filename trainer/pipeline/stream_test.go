@@ -138,3 +138,52 @@ func designLine(log string) string {
 	}
 	return ""
 }
+
+// TestStreamingHoldsFewUnits: with one reader, a shard of 12 units never holds more than
+// readers + readAhead + 1 being fitted + 2 x unitWriters (queued and being written) units
+// collected and not yet written; reading the whole shard first holds all 12.
+func TestStreamingHoldsFewUnits(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	o := synth.Options{Items: 4, Depots: 12, Frequency: synth.Weekly, Seed: 3, Periods: 60, End: anchor.AddDate(0, 0, -7)}
+	if _, err := o.Write(ctx, mustOpen(t, "file://"+dir), "in/", synth.Parquet); err != nil {
+		t.Fatal(err)
+	}
+	cfg := weeklyConfig(dir, o, "flp-held", "out", runconfig.PartitionObjects)
+	cfg.Selection.Design = runconfig.DesignFixed
+	cfg.Sharding.TargetSeriesPerShard = 1000
+	env := testEnv()
+	env.Workers = 1
+	if _, err := RunPlan(ctx, cfg, env); err != nil {
+		t.Fatal(err)
+	}
+	st, err := Check(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out, p, prev, err := openRun(ctx, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer out.Close()
+	opts, err := designOptions(st, p, env.Workers)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tr := startTracker(Env{ProgressEvery: -1}, 0, len(p.Shards[0].Units))
+	defer tr.stopTicker()
+	units, fit, err := streamShard(ctx, cfg, st, nil, out, prev, p, 0, opts, opts.Standalone(), tr, env)
+	if err != nil {
+		t.Fatal(err)
+	}
+	bound := env.Workers + readAhead + 1 + 2*unitWriters
+	if len(units) != 12 || fit.maxHeld < 1 || fit.maxHeld > bound {
+		t.Fatalf("%d units, at most %d held at once; want 12 units and 1 to %d held", len(units), fit.maxHeld, bound)
+	}
+	t.Logf("at most %d of %d units held at once (bound %d)", fit.maxHeld, len(units), bound)
+	for k, d := range fit.dones {
+		if d.Unit != units[k].unit.ID || d.Counts.Trained != 4 {
+			t.Errorf("unit %s: written %q with %d trained, want 4", units[k].unit.ID, d.Unit, d.Counts.Trained)
+		}
+	}
+}
