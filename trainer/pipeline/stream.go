@@ -2,8 +2,11 @@ package pipeline
 
 import (
 	"context"
+	"runtime"
 	"sort"
+	"sync"
 	"sync/atomic"
+	"time"
 
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
@@ -12,9 +15,27 @@ import (
 	"almanac.dev/almanac/trainer/store"
 )
 
-// readAhead is how many read units wait for the fitter beyond those being read: one keeps
-// the fitter fed while the next is decoded, more would only hold memory.
+// readAhead is how many read units wait for a free fitting call beyond those being read: one
+// keeps the fitting fed while the next is decoded, more would only hold memory.
 const readAhead = 1
+
+// fitAhead is how many design.Forecast calls (one per unit read) run at once when the workers
+// are as many as the Go scheduler's processors (the default; fitCalls). Each call's pool of
+// workers ends with a partial wave (and one per design group); the next unit's call, already
+// running, takes the processors those leave idle. The scheduler runs at most GOMAXPROCS of the
+// 2 x workers goroutines at a time: the same work and parallelism, plus the working memory of
+// the fits it has paused.
+const fitAhead = 2
+
+// fitCalls is how many design.Forecast calls streamShard runs at once: fitAhead, or 1 when the
+// workers are fewer than GOMAXPROCS, so that a smaller --workers keeps its meaning (that many
+// forecasting goroutines running).
+func fitCalls(workers int) int {
+	if workers > 0 && workers < runtime.GOMAXPROCS(0) {
+		return 1
+	}
+	return fitAhead
+}
 
 // unitFit is one unit's forecasts while its series are fitted.
 type unitFit struct {
@@ -24,24 +45,25 @@ type unitFit struct {
 }
 
 // streamShard is train for a shard whose series' designs need none of the shard's other
-// series (alone, design.Options.Standalone): readers, one fitter and writers form a pipeline.
+// series (alone, design.Options.Standalone): readers, fitting calls and writers form a pipeline.
 // Object units are read by up to env.Workers goroutines; each unit read is collected on its
-// reader's goroutine and handed to the fitter (bucket units, which one pass over every object
-// fills together, are handed over together once the pass ends). The fitter forecasts a
-// unit's standalone series with one design.Forecast call as soon as it gets the unit, and
-// hands each unit whose series are all done to the writers (startWriters).
+// reader's goroutine and handed to the fitting (bucket units, which one pass over every object
+// fills together, are handed over together once the pass ends), which forecasts a unit's
+// standalone series with one design.Forecast call as soon as a call is free (fitCalls run at
+// once), and hands each unit whose series are all done to the writers (startWriters).
 //
 // Series that do not stand alone (segments the plan's decision did not hold: the shard chooses
 // their design on its own series) are kept aside and forecast with one design.Forecast call
 // after every unit was fitted, in the shard's order, so their choice is the one a single call
 // over the shard makes. A unit with such series is written only then.
 //
-// Memory: units being read (at most env.Workers, each with its decode buffers), readAhead
-// units waiting, one unit being fitted, and up to 2 x unitWriters units queued or being written
-// (the fitter waits when the writers are behind, and the readers when the fitter is). A
-// written unit's series and results are released. The fallback's cost: a unit with series
-// kept aside stays in memory with the results of its other series until the end, as every
-// unit did before; a shard whose every segment the plan decided holds none.
+// Memory: units being read (at most env.Workers, each with its decode buffers, and then one
+// collected unit each waiting to be handed over), readAhead units waiting, fitCalls units being
+// fitted, and up to 2 x unitWriters units queued or being written (the fitting waits when the
+// writers are behind, and the readers when the fitting is). A written unit's series and
+// results are released. The fallback's cost: a unit with series kept aside stays in memory
+// with the results of its other series until the end, as every unit did before; a shard whose
+// every segment the plan decided holds none.
 func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hierarchy, out *store.Store, prev *Manifest,
 	p *Plan, shard int, opts design.Options, alone func(series.Series) bool, tr *tracker, env Env) ([]*loaded, fitted, error) {
 	src, err := openSource(ctx, cfg.Source)
@@ -121,40 +143,67 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 		return d, err
 	})
 	type ref struct{ unit, at int }
-	var refs []ref
-	emit := func(i int, r design.Result, err error) {
-		// Keep only what the unit's tables and the hierarchy read (as fitAndWrite).
-		r.Residuals = nil
-		if h == nil {
-			r.BacktestErrors, r.BacktestHeld = nil, nil
-		}
-		k, j := refs[i].unit, refs[i].at
-		f := &fits[k]
-		f.results[j], f.errs[j] = r, err
-		if j < len(units[k].series) {
-			tr.done(1)
-		}
-		if f.left--; f.left == 0 {
-			wr.queue <- k
-		}
-	}
 	res := fitted{}
-	forecast := func(in []series.Series) (*design.Outcome, error) {
-		t0 := env.now()
-		o, err := design.Forecast(ctx, in, opts, emit)
-		res.fitSeconds += env.now().Sub(t0).Seconds()
+	var (
+		mu        sync.Mutex // guards what the fitting calls share: res, parts, ferr, busy
+		parts     []*design.Outcome
+		ferr      error
+		busy      int // calls in flight
+		busySince time.Time
+	)
+	// forecast fits in (refs: each series' unit and place there) with one design.Forecast
+	// call. fitSeconds adds the wall time during which at least one call runs.
+	forecast := func(in []series.Series, refs []ref) *design.Outcome {
+		emit := func(i int, r design.Result, err error) {
+			// Keep only what the unit's tables and the hierarchy read (as fitAndWrite).
+			r.Residuals = nil
+			if h == nil {
+				r.BacktestErrors, r.BacktestHeld = nil, nil
+			}
+			k, j := refs[i].unit, refs[i].at
+			f := &fits[k] // a unit's series are in one call at a time
+			f.results[j], f.errs[j] = r, err
+			if j < len(units[k].series) {
+				tr.done(1)
+			}
+			if f.left--; f.left == 0 {
+				wr.queue <- k
+			}
+		}
+		mu.Lock()
+		if busy++; busy == 1 {
+			busySince = env.now()
+		}
 		res.series += len(in)
-		return o, err
+		mu.Unlock()
+		o, err := design.Forecast(ctx, in, opts, emit)
+		mu.Lock()
+		defer mu.Unlock()
+		if busy--; busy == 0 {
+			res.fitSeconds += env.now().Sub(busySince).Seconds()
+		}
+		if err != nil && ferr == nil {
+			ferr = err
+			cancel()
+		}
+		return o
 	}
+	failed := func() bool { mu.Lock(); defer mu.Unlock(); return ferr != nil }
 	aside := make([][]int, len(units)) // per unit, its series kept for the end
-	var parts []*design.Outcome
-	var ferr error
-	for batch := range ready {
-		if ferr != nil {
+	slots := make(chan struct{}, fitCalls(env.Workers))
+	var fitting sync.WaitGroup
+	for {
+		slots <- struct{}{} // a free call first, so a unit taken is fitted at once
+		batch, ok := <-ready
+		if !ok || failed() {
+			<-slots
+			if !ok {
+				break
+			}
 			continue // drain: the readers stop at the cancelled context
 		}
 		var in []series.Series
-		refs = refs[:0]
+		var refs []ref
 		for _, l := range batch {
 			if l.err != nil {
 				continue // broken input: reported by the caller, not written
@@ -173,26 +222,29 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 				wr.queue <- k
 			}
 		}
-		o, err := forecast(in)
-		if err != nil {
-			ferr = err
-			cancel()
-			continue
-		}
-		parts = append(parts, o)
+		fitting.Add(1)
+		go func() {
+			defer fitting.Done()
+			if o := forecast(in, refs); o != nil {
+				mu.Lock()
+				parts = append(parts, o)
+				mu.Unlock()
+			}
+			<-slots
+		}()
 	}
+	fitting.Wait()
 	if ferr == nil && readErr == nil {
 		tr.collected(0) // the fitting phase, if no unit was collected (every one broken or skipped)
 		var in []series.Series
-		refs = refs[:0]
+		var refs []ref
 		for k, js := range aside {
 			for _, j := range js {
 				in = append(in, units[k].seriesAt(j))
 				refs = append(refs, ref{k, j})
 			}
 		}
-		var o *design.Outcome
-		if o, ferr = forecast(in); ferr == nil {
+		if o := forecast(in, refs); ferr == nil {
 			res.outcome = mergeOutcomes(o, parts)
 		}
 	}

@@ -5,6 +5,7 @@ import (
 	"context"
 	"fmt"
 	"os"
+	"runtime"
 	"testing"
 
 	"almanac.dev/almanac/trainer/models"
@@ -96,6 +97,7 @@ func TestStreamingWritesWhatTheWholeShardWrites(t *testing.T) {
 				var log bytes.Buffer
 				env := testEnv()
 				env.wholeShard, env.Log, env.ProgressEvery = whole, &log, -1
+				env.Workers = runtime.GOMAXPROCS(0) // streaming runs fitAhead calls at once
 				sum, err := RunTrain(ctx, cfg, 0, env)
 				if err != nil {
 					t.Fatal(err)
@@ -140,7 +142,7 @@ func designLine(log string) string {
 }
 
 // TestStreamingHoldsFewUnits: with one reader, a shard of 12 units never holds more than
-// readers + readAhead + 1 being fitted + 2 x unitWriters (queued and being written) units
+// readers + readAhead + fitCalls (being fitted) + 2 x unitWriters (queued and being written) units
 // collected and not yet written; reading the whole shard first holds all 12.
 func TestStreamingHoldsFewUnits(t *testing.T) {
 	ctx := context.Background()
@@ -176,7 +178,7 @@ func TestStreamingHoldsFewUnits(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	bound := env.Workers + readAhead + 1 + 2*unitWriters
+	bound := env.Workers + readAhead + fitCalls(env.Workers) + 2*unitWriters
 	if len(units) != 12 || fit.maxHeld < 1 || fit.maxHeld > bound {
 		t.Fatalf("%d units, at most %d held at once; want 12 units and 1 to %d held", len(units), fit.maxHeld, bound)
 	}
