@@ -592,9 +592,10 @@ type SelectionSpec struct {
 
 	// designCostPercent is Auto's CPU budget per series, in percent of the simplest
 	// candidate design's CPU time (each member is timed alone on a few series of each segment;
-	// the most expensive members leave the candidates until every candidate fits). A ratio
-	// rather than milliseconds, so one value suits every machine and series length. Default
-	// 500.
+	// the most expensive members leave the candidates until every candidate fits; Ridge, Lasso
+	// and GradientBoosting, the only members that read planned covariates and events, never
+	// leave and do not count against the budget). A ratio rather than milliseconds, so one
+	// value suits every machine and series length. Default 500.
 	// +optional
 	// +kubebuilder:default=500
 	// +kubebuilder:validation:Minimum=100

@@ -56,7 +56,7 @@ type Options struct {
 	MaxSeries, MinSeries, Pilot int
 	// InnerOrigins is the number of inner-holdout origins per series (0: DefaultInnerOrigins):
 	// origin k (0-based) holds out the h observations before the last k·h, where the series
-	// is long enough (n - k·h >= 2h + 2m + 2); a series' inner MASE is the mean over its
+	// is long enough (n - k·h >= 2h + m + 2, minHoldout); a series' inner MASE is the mean over its
 	// origins (a rolling origin inside the training data, Tashman 2000, section 3).
 	InnerOrigins int
 	// Workers for selection.ForecastMany (<= 0: GOMAXPROCS).
@@ -199,7 +199,7 @@ const (
 //     FromPlan: no inner holdout here). The other segments (all of them without o.Decided)
 //     are chosen here on their own series, steps 3 to 5 (From FromShard).
 //  3. Inner holdout (Tashman 2000, section 2: hold out the end of the in-sample data): a
-//     series with n >= 2h + 2m + 2 cleaned observations is eligible; of each segment's
+//     series with n >= 2h + m + 2 cleaned observations is eligible (minHoldout); of each segment's
 //     eligible series at most MaxSeries are used (every k-th in input order). Each loses its
 //     last h observations, which the candidates forecast from the rest; forecasts are scored
 //     by MASE with the shortened history's seasonal-naive scale (Hyndman & Koehler 2006). A
@@ -436,7 +436,7 @@ func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outc
 		}
 		var elig []int
 		for _, i := range p.bySeg[sg] {
-			if len(p.cleaned[i].Values) >= minInner(h, seasonLength(o.Base, sg.Frequency)) {
+			if len(p.cleaned[i].Values) >= minHoldout(h, seasonLength(o.Base, sg.Frequency)) {
 				elig = append(elig, i)
 			}
 		}
@@ -444,7 +444,7 @@ func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outc
 		m := seasonLength(o.Base, sg.Frequency)
 		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
 			s := *p.cleaned[elig[j]]
-			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minInner(h, m); org++ {
+			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minHoldout(h, m); org++ {
 				cut := s
 				cut.Values = s.Values[:len(s.Values)-org*h]
 				is := holdOut(cut, h, m)
@@ -727,7 +727,7 @@ func (out *Outcome) writeHead(w io.Writer) {
 		fmt.Fprintf(w, ", chosen once on a sample of %d series", out.SampleSeries)
 	}
 	if out.InnerSeries == 0 {
-		// No series long enough for the inner holdout (n >= 2h + 2m + 2): nothing was
+		// No series long enough for the inner holdout (n >= 2h + m + 2): nothing was
 		// measured, and every segment takes the first candidate.
 		fmt.Fprintf(w, "; no series long enough to choose on: the first candidate everywhere\n")
 		return
@@ -770,13 +770,23 @@ func finite(xs []float64) bool {
 // o.Base with the dropped members taken out of the zoo. A member is dropped when its own cost
 // exceeds the budget (its run stops as soon as it has used the budget for every pilot series),
 // then, most expensive first (of equal costs the later in zoo order, the more complex), until the remaining members' costs sum to at most the budget;
-// first's members are never dropped. A candidate's cost is the sum of its members' (sumCost).
+// first's members and the members that read features (models.ReadsFeatures) are never dropped
+// and the latter do not count against the budget, so a candidate with them may cost more than
+// the budget. A candidate's cost is the sum of its members' (sumCost).
 func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, o Options, out *Outcome) (selection.Config, error) {
 	base := o.Base
 	out.MemberCostMillis = map[string]float64{}
 	protected := map[string]bool{}
 	for _, sp := range first.Config.Zoo {
 		protected[sp.DisplayName()] = true
+	}
+	for _, sp := range base.Zoo {
+		// Members that forecast from features are never dropped for cost: they are in the zoo
+		// only when the portfolio lists them, and they are the only members that read planned
+		// covariates and events, so no cheaper member can stand in for them.
+		if models.ReadsFeatures(sp.Family) {
+			protected[sp.DisplayName()] = true
+		}
 	}
 	measure := func(limit float64) func(i int) error {
 		return func(i int) error {
@@ -815,7 +825,7 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 	}
 	for {
 		c := base
-		c.Zoo = keep
+		c.Zoo = slices.DeleteFunc(slices.Clone(keep), func(sp models.Spec) bool { return models.ReadsFeatures(sp.Family) })
 		if sumCost(c, out.MemberCostMillis) <= out.BudgetMillis {
 			break
 		}

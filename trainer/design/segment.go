@@ -50,8 +50,20 @@ func (s Segment) coarser() (Segment, bool) {
 	return s, true
 }
 
-// minInner is T = 2h + 2m + 2, the shortest history with an inner holdout.
+// minInner is T = 2h + 2m + 2, the history length that separates the short band from the
+// medium one (BandOf).
 func minInner(h, m int) int { return 2*h + 2*max(m, 1) + 2 }
+
+// minHoldout is 2h + m + 2, the shortest history that takes part in the inner holdout: with
+// its last h points held out, the rest holds one horizon for the candidates' own backtest, one
+// full season for the seasonal-naive MASE scale (Hyndman & Koehler 2006) and two more points.
+// Members that need two seasons (seasonal decomposition, seasonal ETS) fit their non-seasonal
+// forms there, as they do on any history that short. Why not 2h + 2m + 2 (minInner, the
+// rule before): with weekly data (m = 52) that asks for 2h + 106 weeks, more than the two
+// years of history most weekly demand portfolios keep, so such a portfolio never chose a design
+// and took the first candidate everywhere, its regression members with their planned
+// promotions included.
+func minHoldout(h, m int) int { return 2*h + max(m, 1) + 2 }
 
 // BandOf returns the band of a history of n observations for horizon h and season length m.
 func BandOf(n, h, m int) string {

@@ -35,6 +35,18 @@ const ridgeFallback = 0.1
 // for the backtest choice.
 const lassoFallback = 0.1
 
+// ReadsFeatures reports whether family forecasts from features (target lags, calendar, events
+// and the declared covariates, trainer/features) rather than from the series' history alone:
+// Ridge, Lasso and GradientBoosting. They are the only members that see planned values such as
+// a promotion calendar.
+func ReadsFeatures(family string) bool {
+	switch family {
+	case FamilyRidge, FamilyLasso, FamilyGradientBoosting:
+		return true
+	}
+	return false
+}
+
 func init() {
 	for _, f := range []string{FamilyRidge, FamilyLasso} {
 		Register(f, func(s Spec) (Model, error) { return newRegression(s) })

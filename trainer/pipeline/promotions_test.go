@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/models"
@@ -279,4 +280,46 @@ type logWriter struct{ b *testing.B }
 func (w logWriter) Write(p []byte) (int, error) {
 	w.b.Log(strings.TrimSpace(string(p)))
 	return len(p), nil
+}
+
+// On two years of weekly history (104 weeks, the history many demand portfolios keep) the
+// automatic design must reach the feature members: the inner holdout takes series of at least
+// 2h + m + 2 = 70 weeks (it asked for 2h + 2m + 2 = 122 before, so every segment took the
+// first candidate, ETS+Theta, and the promotion plan was never read), and members that read
+// features are never dropped for cost. Auto must forecast the held-out 8 weeks with at most
+// 75% of the MASE of that first candidate alone (measured: see the log), choosing a design
+// with a feature member for every segment.
+func TestAutoReachesFeatureMembersOnTwoYears(t *testing.T) {
+	if testing.Short() {
+		t.Skip("fits the feature zoo on 36 series")
+	}
+	const h = 8
+	in, actual := promoData(t, 20, 2, 104, h)
+	base := selection.Config{Horizon: h, Zoo: featureZoo(), Features: promoFeatures(), NonNegative: true,
+		Clean: series.CleanRules{NonNegative: true}}
+	score := func(mode design.Mode, cfg selection.Config) (float64, map[string]int) {
+		mase, designs := 0.0, map[string]int{}
+		_, err := design.Forecast(context.Background(), in, design.Options{Mode: mode, Base: cfg, Workers: 1},
+			func(i int, r design.Result, err error) {
+				if err != nil {
+					t.Fatalf("%s: %v", in[i].Key, err)
+				}
+				mase += backtest.MeanAbsScaledError(actual[in[i].Key], r.Mean, in[i].Values, 52) / float64(len(in))
+				designs[r.Design]++
+			})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return mase, designs
+	}
+	first := design.Candidates(base, design.Combinations)[0]
+	fixed, _ := score(design.Fixed, first.Config)
+	auto, designs := score(design.Auto, base)
+	t.Logf("MASE: Auto %.3f (designs %v), its first candidate %s alone %.3f, ratio %.3f", auto, designs, first.Name, fixed, auto/fixed)
+	if !(auto < 0.75*fixed) {
+		t.Errorf("Auto MASE %.3f is not below 75%% of the first candidate's %.3f (designs %v)", auto, fixed, designs)
+	}
+	if designs[first.Name] > 0 {
+		t.Errorf("%d series took the first candidate %s, which reads no features", designs[first.Name], first.Name)
+	}
 }
