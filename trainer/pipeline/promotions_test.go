@@ -172,16 +172,36 @@ func promoData(tb testing.TB, items, depots, periods, h int) ([]series.Series, m
 // seasonal naive scale (m = 52; Hyndman & Koehler 2006), sMAPE (Makridakis 1993, the M3
 // definition), WAPE = sum|y-f| / sum|y| pooled over every series and step (common practice).
 func comparePromotions(tb testing.TB, in []series.Series, actual map[string][]float64, h int, zoo []models.Spec, feats *features.Config) promoScore {
+	return scorePromotions(tb, in, actual, h, zoo, feats, false)
+}
+
+// scorePromotions is comparePromotions with each series' best member by backtest (auto
+// false, selection.ForecastMany) or with the automatic design (auto true, design.Forecast,
+// the portfolio default: decided on the series' last h training weeks, then applied); Chosen
+// then counts designs, not families.
+func scorePromotions(tb testing.TB, in []series.Series, actual map[string][]float64, h int, zoo []models.Spec, feats *features.Config, auto bool) promoScore {
 	tb.Helper()
 	cfg := selection.Config{Horizon: h, Zoo: zoo, Features: feats, NonNegative: true, Clean: series.CleanRules{NonNegative: true}}
 	res := make([]selection.Result, len(in))
+	designs := make([]string, len(in))
 	cpu0 := cpuTime()
-	err := selection.ForecastMany(context.Background(), in, cfg, 1, func(i int, r selection.Result, err error) {
-		if err != nil {
-			tb.Fatalf("%s: %v", in[i].Key, err)
-		}
-		res[i] = r
-	})
+	var err error
+	if auto {
+		_, err = design.Forecast(context.Background(), in, design.Options{Mode: design.Auto, Base: cfg, Workers: 1},
+			func(i int, r design.Result, err error) {
+				if err != nil {
+					tb.Fatalf("%s: %v", in[i].Key, err)
+				}
+				res[i], designs[i] = r.Result, r.Design
+			})
+	} else {
+		err = selection.ForecastMany(context.Background(), in, cfg, 1, func(i int, r selection.Result, err error) {
+			if err != nil {
+				tb.Fatalf("%s: %v", in[i].Key, err)
+			}
+			res[i] = r
+		})
+	}
 	if err != nil {
 		tb.Fatal(err)
 	}
@@ -196,7 +216,11 @@ func comparePromotions(tb testing.TB, in []series.Series, actual map[string][]fl
 			absErr += math.Abs(y[k] - r.Mean[k])
 			absY += math.Abs(y[k])
 		}
-		sc.Chosen[r.Family]++
+		if auto {
+			sc.Chosen[designs[i]]++
+		} else {
+			sc.Chosen[r.Family]++
+		}
 		for _, kept := range r.Features {
 			for _, f := range kept {
 				sc.Kept[f]++
@@ -254,11 +278,15 @@ func (s promoScore) String() string {
 func BenchmarkPromotionFeatures(b *testing.B) {
 	const h = 8
 	in, actual := promoData(b, 20, 2, 156, h)
-	var ts, fz promoScore
+	var ts, fz, tsAuto, fzAuto promoScore
 	for b.Loop() {
 		ts = comparePromotions(b, in, actual, h, timeSeriesZoo(), nil)
 		fz = comparePromotions(b, in, actual, h, featureZoo(), promoFeatures())
+		tsAuto = scorePromotions(b, in, actual, h, timeSeriesZoo(), nil, true)
+		fzAuto = scorePromotions(b, in, actual, h, featureZoo(), promoFeatures(), true)
 	}
+	b.ReportMetric(tsAuto.MASE, "MASE-ts-auto")
+	b.ReportMetric(fzAuto.MASE, "MASE-feat-auto")
 	b.ReportMetric(ts.MASE, "MASE-ts")
 	b.ReportMetric(fz.MASE, "MASE-feat")
 	b.ReportMetric(fz.MASE/ts.MASE, "MASE-ratio")
@@ -270,6 +298,7 @@ func BenchmarkPromotionFeatures(b *testing.B) {
 	b.ReportMetric(fz.CPUms, "cpu-ms/series-feat")
 	b.ReportMetric(fz.CPUms/ts.CPUms, "cpu-ratio")
 	fmt.Fprintf(benchOut(b), "time series:   %s\nwith features: %s\nkept features (count of series): %v\n", ts, fz, fz.Kept)
+	fmt.Fprintf(benchOut(b), "automatic design (the portfolio default), time series:   %s\nautomatic design (the portfolio default), with features: %s\n", tsAuto, fzAuto)
 }
 
 // benchOut is where the benchmark's table goes: the benchmark log (shown with -v or on failure).
