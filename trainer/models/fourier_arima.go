@@ -96,33 +96,14 @@ func (m *fourierARIMAModel) fit(y []float64, periods []float64) (Fitted, error) 
 			kept = append(kept, p)
 		}
 	}
-	out := &fourierARIMAFit{periods: kept, K: make([]int, len(kept)), n: n}
-	e := y
+	K := make([]int, len(kept))
 	if len(kept) > 0 {
-		K, err := chooseHarmonics(y, kept)
-		if err != nil {
+		var err error
+		if K, err = chooseHarmonics(y, kept); err != nil {
 			return nil, fmt.Errorf("models: %s: %w", m.spec.DisplayName(), err)
 		}
-		out.K = K
-		out.terms, _ = fourier.Terms(kept, K)
-		if len(out.terms) > 0 {
-			coef, _, err := harmonicOLS(y, out.terms)
-			if err != nil {
-				return nil, fmt.Errorf("models: %s: %w", m.spec.DisplayName(), err)
-			}
-			out.coef = coef[1:]
-			e = out.remainder(y)
-		}
 	}
-	a, err := m.arima.Fit(e, 1)
-	if err != nil {
-		return nil, fmt.Errorf("models: %s: errors: %w", m.spec.DisplayName(), err)
-	}
-	out.arima = a
-	if af, ok := a.(*ARIMAFit); ok && len(out.terms) > 0 {
-		out.coef, out.arima = refineJoint(y, out.terms, out.coef, af)
-	}
-	return out, nil
+	return estimateFourierARIMA(m.spec.DisplayName(), y, kept, K, func(e []float64) (Fitted, error) { return m.arima.Fit(e, 1) })
 }
 
 // FitFourierARIMA fits the dynamic harmonic regression with the given periods, pairs per
@@ -133,31 +114,38 @@ func FitFourierARIMA(y []float64, periods []float64, K []int, o ARIMAOrder) (Fit
 	if len(periods) != len(K) {
 		return nil, fmt.Errorf("models: %s: %d periods but %d pair counts", FamilyFourierARIMA, len(periods), len(K))
 	}
+	return estimateFourierARIMA(FamilyFourierARIMA, y, periods, K, func(e []float64) (Fitted, error) { return FitARIMA(e, 1, o) })
+}
+
+// estimateFourierARIMA is stages 2 and 3 of the family comment for pairs K of periods: the
+// least-squares Fourier coefficients, errors (the ARIMA fit of the remainder: the order search,
+// or one given order), then refineJoint when errors returned an *ARIMAFit.
+func estimateFourierARIMA(name string, y []float64, periods []float64, K []int, errors func([]float64) (Fitted, error)) (Fitted, error) {
 	out := &fourierARIMAFit{periods: periods, K: K, n: len(y)}
 	terms, err := fourier.Terms(periods, K)
 	if err != nil {
-		return nil, fmt.Errorf("models: %s: %w", FamilyFourierARIMA, err)
+		return nil, fmt.Errorf("models: %s: %w", name, err)
 	}
 	out.terms = terms
 	e := y
 	if len(terms) > 0 {
 		coef, _, err := harmonicOLS(y, terms)
 		if err != nil {
-			return nil, fmt.Errorf("models: %s: %w", FamilyFourierARIMA, err)
+			return nil, fmt.Errorf("models: %s: %w", name, err)
 		}
 		if coef == nil {
-			return nil, fmt.Errorf("models: %s: %d observations for %d regressors: %w", FamilyFourierARIMA, len(y), len(terms)+1, ErrTooShort)
+			return nil, fmt.Errorf("models: %s: %d observations for %d regressors: %w", name, len(y), len(terms)+1, ErrTooShort)
 		}
 		out.coef = coef[1:]
 		e = out.remainder(y)
 	}
-	a, err := FitARIMA(e, 1, o)
+	a, err := errors(e)
 	if err != nil {
-		return nil, fmt.Errorf("models: %s: errors: %w", FamilyFourierARIMA, err)
+		return nil, fmt.Errorf("models: %s: errors: %w", name, err)
 	}
 	out.arima = a
-	if len(terms) > 0 {
-		out.coef, out.arima = refineJoint(y, terms, out.coef, a)
+	if af, ok := a.(*ARIMAFit); ok && len(terms) > 0 {
+		out.coef, out.arima = refineJoint(y, terms, out.coef, af)
 	}
 	return out, nil
 }

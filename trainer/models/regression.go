@@ -35,17 +35,13 @@ const ridgeFallback = 0.1
 // for the backtest choice.
 const lassoFallback = 0.1
 
-// ReadsFeatures reports whether family forecasts from features (target lags, calendar, events
-// and the declared covariates, trainer/features) rather than from the series' history alone:
-// Ridge, Lasso and GradientBoosting. They are the only members that see planned values such as
-// a promotion calendar.
-func ReadsFeatures(family string) bool {
-	switch family {
-	case FamilyRidge, FamilyLasso, FamilyGradientBoosting:
-		return true
-	}
-	return false
-}
+// RegressionFamilies are the members that forecast from features (target lags, calendar,
+// events and the declared covariates, trainer/features) rather than from the series' history
+// alone; they are the only members that see planned values such as a promotion calendar.
+var RegressionFamilies = []string{FamilyRidge, FamilyLasso, FamilyGradientBoosting}
+
+// ReadsFeatures reports whether family is in RegressionFamilies.
+func ReadsFeatures(family string) bool { return slices.Contains(RegressionFamilies, family) }
 
 func init() {
 	for _, f := range []string{FamilyRidge, FamilyLasso} {

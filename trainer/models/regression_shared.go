@@ -8,8 +8,8 @@ import (
 	"almanac.dev/almanac/trainer/features"
 )
 
-// SharedFamilies lists the families FitShared can fit across series.
-var SharedFamilies = []string{FamilyRidge, FamilyLasso, FamilyGradientBoosting}
+// SharedFamilies lists the families FitShared can fit across series: every regression family.
+var SharedFamilies = RegressionFamilies
 
 // CanShare reports whether family is in SharedFamilies.
 func CanShare(family string) bool { return slices.Contains(SharedFamilies, family) }
