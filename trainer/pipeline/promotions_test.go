@@ -172,22 +172,27 @@ func promoData(tb testing.TB, items, depots, periods, h int) ([]series.Series, m
 // seasonal naive scale (m = 52; Hyndman & Koehler 2006), sMAPE (Makridakis 1993, the M3
 // definition), WAPE = sum|y-f| / sum|y| pooled over every series and step (common practice).
 func comparePromotions(tb testing.TB, in []series.Series, actual map[string][]float64, h int, zoo []models.Spec, feats *features.Config) promoScore {
-	return scorePromotions(tb, in, actual, h, zoo, feats, false)
+	return scorePromotions(tb, in, actual, promoConfig(h, zoo, feats), "")
 }
 
-// scorePromotions is comparePromotions with each series' best member by backtest (auto
-// false, selection.ForecastMany) or with the automatic design (auto true, design.Forecast,
-// the portfolio default: decided on the series' last h training weeks, then applied); Chosen
-// then counts designs, not families.
-func scorePromotions(tb testing.TB, in []series.Series, actual map[string][]float64, h int, zoo []models.Spec, feats *features.Config, auto bool) promoScore {
+// promoConfig is the scenario's selection configuration for zoo and feats.
+func promoConfig(h int, zoo []models.Spec, feats *features.Config) selection.Config {
+	return selection.Config{Horizon: h, Zoo: zoo, Features: feats, NonNegative: true, Clean: series.CleanRules{NonNegative: true}}
+}
+
+// scorePromotions is comparePromotions for cfg with each series' best member by backtest
+// (mode "", selection.ForecastMany) or through design.Forecast in mode (Auto: the portfolio
+// default, decided on the series' last h training weeks, then applied); Chosen then counts
+// designs, not families.
+func scorePromotions(tb testing.TB, in []series.Series, actual map[string][]float64, cfg selection.Config, mode design.Mode) promoScore {
 	tb.Helper()
-	cfg := selection.Config{Horizon: h, Zoo: zoo, Features: feats, NonNegative: true, Clean: series.CleanRules{NonNegative: true}}
+	auto := mode != ""
 	res := make([]selection.Result, len(in))
 	designs := make([]string, len(in))
 	cpu0 := cpuTime()
 	var err error
 	if auto {
-		_, err = design.Forecast(context.Background(), in, design.Options{Mode: design.Auto, Base: cfg, Workers: 1},
+		_, err = design.Forecast(context.Background(), in, design.Options{Mode: mode, Base: cfg, Workers: 1},
 			func(i int, r design.Result, err error) {
 				if err != nil {
 					tb.Fatalf("%s: %v", in[i].Key, err)
@@ -282,8 +287,8 @@ func BenchmarkPromotionFeatures(b *testing.B) {
 	for b.Loop() {
 		ts = comparePromotions(b, in, actual, h, timeSeriesZoo(), nil)
 		fz = comparePromotions(b, in, actual, h, featureZoo(), promoFeatures())
-		tsAuto = scorePromotions(b, in, actual, h, timeSeriesZoo(), nil, true)
-		fzAuto = scorePromotions(b, in, actual, h, featureZoo(), promoFeatures(), true)
+		tsAuto = scorePromotions(b, in, actual, promoConfig(h, timeSeriesZoo(), nil), design.Auto)
+		fzAuto = scorePromotions(b, in, actual, promoConfig(h, featureZoo(), promoFeatures()), design.Auto)
 	}
 	b.ReportMetric(tsAuto.MASE, "MASE-ts-auto")
 	b.ReportMetric(fzAuto.MASE, "MASE-feat-auto")
@@ -324,26 +329,11 @@ func TestAutoReachesFeatureMembersOnTwoYears(t *testing.T) {
 	}
 	const h = 8
 	in, actual := promoData(t, 20, 2, 104, h)
-	base := selection.Config{Horizon: h, Zoo: featureZoo(), Features: promoFeatures(), NonNegative: true,
-		Clean: series.CleanRules{NonNegative: true}}
-	score := func(mode design.Mode, cfg selection.Config) (float64, map[string]int) {
-		mase, designs := 0.0, map[string]int{}
-		_, err := design.Forecast(context.Background(), in, design.Options{Mode: mode, Base: cfg, Workers: 1},
-			func(i int, r design.Result, err error) {
-				if err != nil {
-					t.Fatalf("%s: %v", in[i].Key, err)
-				}
-				mase += backtest.MeanAbsScaledError(actual[in[i].Key], r.Mean, in[i].Values, 52) / float64(len(in))
-				designs[r.Design]++
-			})
-		if err != nil {
-			t.Fatal(err)
-		}
-		return mase, designs
-	}
+	base := promoConfig(h, featureZoo(), promoFeatures())
 	first := design.Candidates(base, design.Combinations)[0]
-	fixed, _ := score(design.Fixed, first.Config)
-	auto, designs := score(design.Auto, base)
+	fixedScore := scorePromotions(t, in, actual, first.Config, design.Fixed)
+	autoScore := scorePromotions(t, in, actual, base, design.Auto)
+	fixed, auto, designs := fixedScore.MASE, autoScore.MASE, autoScore.Chosen
 	t.Logf("MASE: Auto %.3f (designs %v), its first candidate %s alone %.3f, ratio %.3f", auto, designs, first.Name, fixed, auto/fixed)
 	if !(auto < 0.75*fixed) {
 		t.Errorf("Auto MASE %.3f is not below 75%% of the first candidate's %.3f (designs %v)", auto, fixed, designs)
