@@ -33,7 +33,8 @@ import (
 // (design.Decide) and writes it into plan.json (Plan.Design); the shards apply it.
 func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summary, error) {
 	sum := summary.Summary{Kind: summary.KindPlan}
-	if _, err := Check(cfg); err != nil {
+	st, err := Check(cfg)
+	if err != nil {
 		return sum, err // before any input or output is touched
 	}
 	out, err := openOutput(ctx, cfg)
@@ -41,7 +42,7 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 		return sum, err
 	}
 	defer out.Close()
-	p, err := buildPlan(ctx, cfg, out, env)
+	p, err := buildPlan(ctx, cfg, st, out, env)
 	if err != nil {
 		return sum, err
 	}
@@ -68,8 +69,8 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 	return sum, nil
 }
 
-// buildPlan does RunPlan's work short of writing.
-func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env Env) (*Plan, error) {
+// buildPlan does RunPlan's work short of writing; st is Check(cfg).
+func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *store.Store, env Env) (*Plan, error) {
 	src, err := openSource(ctx, cfg.Source)
 	if err != nil {
 		return nil, err
@@ -83,13 +84,14 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	if cutoff.IsZero() {
 		cutoff = env.now()
 	}
+	cutoff = cutoff.UTC().Truncate(time.Second)
 	var firstBroken error
 	h := newHierarchy(cfg)
-	smp, err := planSample(cfg, cutoff.UTC().Truncate(time.Second), env)
+	smp, err := planSample(cfg, st, cutoff, env)
 	if err != nil {
 		return nil, err
 	}
-	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff.UTC().Truncate(time.Second),
+	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff,
 		Reconcile: h != nil && h.spanning}
 	// latest records the newest history row's date (not after the cutoff) for a hierarchy.
 	// (and every row goes to the design sample, when there is one).
@@ -217,7 +219,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, out *store.Store, env
 	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
 	if smp != nil {
-		if err := decidePlanDesign(ctx, cfg, p, smp, env); err != nil {
+		if err := decidePlanDesign(ctx, st, h != nil, p, smp, env); err != nil {
 			return nil, err
 		}
 	}
@@ -264,10 +266,9 @@ func countKeys(ctx context.Context, src *source, key string, groups *ingest.Grou
 }
 
 // planSample returns the design sample plan draws (nil unless selection.design is Auto).
-func planSample(cfg *runconfig.Config, cutoff time.Time, env Env) (*designSample, error) {
-	st, err := Check(cfg)
-	if err != nil || st.DesignMode != design.Auto {
-		return nil, err
+func planSample(cfg *runconfig.Config, st Settings, cutoff time.Time, env Env) (*designSample, error) {
+	if st.DesignMode != design.Auto {
+		return nil, nil
 	}
 	s, err := newDesignSample(cfg, cutoff, env.designSample())
 	if err != nil {
@@ -277,15 +278,11 @@ func planSample(cfg *runconfig.Config, cutoff time.Time, env Env) (*designSample
 }
 
 // decidePlanDesign chooses the run's design per segment on the plan's design sample (after
-// the same extension to the hierarchy's last period train gives bottom series) and records it
-// in p.Design.
-func decidePlanDesign(ctx context.Context, cfg *runconfig.Config, p *Plan, smp *designSample, env Env) error {
-	st, err := Check(cfg)
-	if err != nil {
-		return err
-	}
+// the same extension to the hierarchy's last period train gives bottom series, when the run
+// has a hierarchy) and records it in p.Design.
+func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Plan, smp *designSample, env Env) error {
 	in := smp.finish()
-	if newHierarchy(cfg) != nil {
+	if hierarchical {
 		extendTo(in, p.HierarchyEnd)
 	}
 	opts := st.Design(env.Workers)
