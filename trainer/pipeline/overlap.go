@@ -75,14 +75,7 @@ func fitAndWrite(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 	}
 	t0 := env.now()
 	outcome, ferr := design.Forecast(ctx, all, opts, func(i int, r design.Result, err error) {
-		// Keep only what the unit's tables and the hierarchy read: nothing reads the one-step
-		// residuals (a series' whole history long), and the per-origin backtest errors only
-		// feed a hierarchy's weights and bands.
-		r.Residuals = nil
-		if h == nil {
-			r.BacktestErrors, r.BacktestHeld = nil, nil
-		}
-		results[i], errs[i] = r, err
+		results[i], errs[i] = forWriting(r, h), err
 		if !node[i] {
 			tr.done(1)
 		}
@@ -141,4 +134,15 @@ func (w *writers) wait() []UnitDone {
 	close(w.queue)
 	w.wg.Wait()
 	return w.dones
+}
+
+// forWriting keeps of a forecast result what a unit's tables and the hierarchy read: nothing
+// reads the one-step residuals (a series' whole history long), and the per-origin backtest
+// errors only feed a hierarchy's weights and bands (h nil: none).
+func forWriting(r design.Result, h *hierarchy) design.Result {
+	r.Residuals = nil
+	if h == nil {
+		r.BacktestErrors, r.BacktestHeld = nil, nil
+	}
+	return r
 }

@@ -155,14 +155,9 @@ func streamShard(ctx context.Context, cfg *runconfig.Config, st Settings, h *hie
 	// call. fitSeconds adds the wall time during which at least one call runs.
 	forecast := func(in []series.Series, refs []ref) *design.Outcome {
 		emit := func(i int, r design.Result, err error) {
-			// Keep only what the unit's tables and the hierarchy read (as fitAndWrite).
-			r.Residuals = nil
-			if h == nil {
-				r.BacktestErrors, r.BacktestHeld = nil, nil
-			}
 			k, j := refs[i].unit, refs[i].at
 			f := &fits[k] // a unit's series are in one call at a time
-			f.results[j], f.errs[j] = r, err
+			f.results[j], f.errs[j] = forWriting(r, h), err
 			if j < len(units[k].series) {
 				tr.done(1)
 			}
