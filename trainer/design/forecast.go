@@ -359,18 +359,14 @@ type prepared struct {
 }
 
 func prepare(in []series.Series, o Options) *prepared {
-	h := o.Base.Horizon
 	p := &prepared{segs: make([]Segment, len(in)), cleaned: make([]*series.Series, len(in)), bySeg: map[Segment][]int{}}
 	for i, s := range in {
-		cp := s
-		cp.Values = append([]float64(nil), s.Values...)
-		cp.Notes = nil
-		if err := series.Clean(&cp, o.Base.Clean); err != nil {
+		cp, sg := cleanSegment(s, o.Base)
+		if cp == nil {
 			continue // the final run rejects it with the same reason
 		}
-		p.cleaned[i] = &cp
-		p.segs[i] = SegmentOf(cp, h, seasonLength(o.Base, cp.Freq))
-		p.bySeg[p.segs[i]] = append(p.bySeg[p.segs[i]], i)
+		p.cleaned[i], p.segs[i] = cp, sg
+		p.bySeg[sg] = append(p.bySeg[sg], i)
 	}
 	for sg := range p.bySeg {
 		p.order = append(p.order, sg)
@@ -512,13 +508,20 @@ func seasonLength(c selection.Config, f series.Frequency) int {
 
 // segmentOf is the segment of a raw series under c (zero when it cannot be cleaned).
 func segmentOf(s series.Series, c selection.Config) Segment {
+	_, sg := cleanSegment(s, c)
+	return sg
+}
+
+// cleanSegment returns a cleaned copy of a raw series under c and its segment (nil and zero
+// when it cannot be cleaned).
+func cleanSegment(s series.Series, c selection.Config) (*series.Series, Segment) {
 	cp := s
 	cp.Values = append([]float64(nil), s.Values...)
 	cp.Notes = nil
 	if err := series.Clean(&cp, c.Clean); err != nil {
-		return Segment{}
+		return nil, Segment{}
 	}
-	return SegmentOf(cp, c.Horizon, seasonLength(c, cp.Freq))
+	return &cp, SegmentOf(cp, c.Horizon, seasonLength(c, cp.Freq))
 }
 
 // run forecasts the series in[idx] with candidate c and emits their results; from is where
