@@ -288,22 +288,15 @@ func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Co
 		return
 	}
 	p.Update = cfg.BacktestUpdate
-	fcs := make([][][]float64, len(members))
-	for i, c := range members {
-		if fcs[i], err = safeForecasts(c, y, p); err != nil {
+	fcs := make(map[*candidate][][]float64, len(members))
+	for _, c := range members {
+		if fcs[c], err = safeForecasts(c, y, p); err != nil {
 			return
 		}
 	}
-	out := fcs[0]
+	out := fcs[members[0]]
 	if len(members) > 1 {
-		out = make([][]float64, len(p.Origins))
-		for o := range out {
-			paths := make([][]float64, len(members))
-			for i := range members {
-				paths[i] = fcs[i][o]
-			}
-			out[o] = combine(cfg.CombineMethod, paths)
-		}
+		out = combineAll(cfg.CombineMethod, members, func(c *candidate) [][]float64 { return fcs[c] })
 	}
 	a := backtest.Assess(backtest.MAE, y, m, p, out)
 	res.BacktestErrors, res.BacktestHeld = a.Errors, a.Held
