@@ -2,6 +2,7 @@ package localnode
 
 import (
 	"bufio"
+	"cmp"
 	"context"
 	"fmt"
 	"os"
@@ -32,7 +33,7 @@ func (r *podRun) prepareSandbox(ctx context.Context, pod *corev1.Pod, c *corev1.
 	if err != nil {
 		return process{}, err
 	}
-	if wd := firstNonEmpty(c.WorkingDir, img.WorkingDir); wd != "" && wd != "/" {
+	if wd := cmp.Or(c.WorkingDir, img.WorkingDir); wd != "" && wd != "/" {
 		return process{}, fmt.Errorf("%w: workingDir %s: localnode's sandbox starts programs in / (chroot)", errStart, wd)
 	}
 	vals := map[string]string{}
@@ -117,9 +118,10 @@ func runAs(pod *corev1.Pod, c *corev1.Container, img *sandbox.Image) (identity, 
 	if csc == nil {
 		csc = &corev1.SecurityContext{}
 	}
-	runAsUser := first(csc.RunAsUser, psc.RunAsUser)
-	runAsGroup := first(csc.RunAsGroup, psc.RunAsGroup)
-	nonRoot := first(csc.RunAsNonRoot, psc.RunAsNonRoot)
+	// The container's settings before the pod's (cmp.Or: the first non-nil pointer).
+	runAsUser := cmp.Or(csc.RunAsUser, psc.RunAsUser)
+	runAsGroup := cmp.Or(csc.RunAsGroup, psc.RunAsGroup)
+	nonRoot := cmp.Or(csc.RunAsNonRoot, psc.RunAsNonRoot)
 	who := fmt.Sprintf("(pod: %q, container: %s)", pod.Name+"_"+pod.Namespace+"("+string(pod.UID)+")", c.Name)
 	users := readPasswd(filepath.Join(img.Root, "etc", "passwd"))
 
@@ -228,24 +230,4 @@ func (p passwd) byUID(uid int) (passwdEntry, bool) {
 		}
 	}
 	return passwdEntry{}, false
-}
-
-// first returns the first non-nil pointer (container settings before the pod's).
-func first[T any](ps ...*T) *T {
-	for _, p := range ps {
-		if p != nil {
-			return p
-		}
-	}
-	return nil
-}
-
-// firstNonEmpty returns the first non-empty string.
-func firstNonEmpty(ss ...string) string {
-	for _, s := range ss {
-		if s != "" {
-			return s
-		}
-	}
-	return ""
 }
