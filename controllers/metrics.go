@@ -204,9 +204,7 @@ func (m *Metrics) runSeries(run *forecastingv1alpha1.ForecastRun, p *forecasting
 	m.seriesDone.WithLabelValues(lv...).Set(float64(p.SeriesDone))
 	m.seriesPlanned.WithLabelValues(lv...).Set(float64(p.SeriesPlanned))
 	m.stalled.WithLabelValues(lv...).Set(float64(stalled))
-	if v, err := strconv.ParseFloat(p.SeriesPerSecond, 64); err == nil {
-		m.seriesRate.WithLabelValues(lv...).Set(v)
-	}
+	setParsed(m.seriesRate, p.SeriesPerSecond, lv...)
 	m.remaining.DeleteLabelValues(lv...)
 	if p.EstimatedEnd != nil && p.ObservedTime != nil {
 		m.remaining.WithLabelValues(lv...).Set(max(p.EstimatedEnd.Sub(p.ObservedTime.Time).Seconds(), 0))
@@ -231,31 +229,23 @@ func (m *Metrics) accuracy(namespace, portfolio string, acc *forecastingv1alpha1
 		return
 	}
 	metric := string(acc.Metric)
-	if v, err := strconv.ParseFloat(acc.Expected, 64); err == nil {
-		m.expected.WithLabelValues(namespace, portfolio, metric).Set(v)
-	}
-	if v, err := strconv.ParseFloat(acc.Realized, 64); err == nil {
-		m.realized.WithLabelValues(namespace, portfolio, metric).Set(v)
-	}
-	if v, err := strconv.ParseFloat(acc.ExpectedGeometric, 64); err == nil {
-		m.expectedGeo.WithLabelValues(namespace, portfolio, metric).Set(v)
-	}
-	if v, err := strconv.ParseFloat(acc.RealizedGeometric, 64); err == nil {
-		m.realizedGeo.WithLabelValues(namespace, portfolio, metric).Set(v)
-	}
+	setParsed(m.expected, acc.Expected, namespace, portfolio, metric)
+	setParsed(m.realized, acc.Realized, namespace, portfolio, metric)
+	setParsed(m.expectedGeo, acc.ExpectedGeometric, namespace, portfolio, metric)
+	setParsed(m.realizedGeo, acc.RealizedGeometric, namespace, portfolio, metric)
 	for _, q := range acc.Calibration {
-		if v, err := strconv.ParseFloat(q.Realized, 64); err == nil {
-			m.coverage.WithLabelValues(namespace, portfolio, q.Level).Set(v)
-		}
-		if v, err := strconv.ParseFloat(q.Expected, 64); err == nil {
-			m.promised.WithLabelValues(namespace, portfolio, q.Level).Set(v)
-		}
+		setParsed(m.coverage, q.Realized, namespace, portfolio, q.Level)
+		setParsed(m.promised, q.Expected, namespace, portfolio, q.Level)
 	}
-	if v, err := strconv.ParseFloat(acc.Bias, 64); err == nil {
-		m.bias.WithLabelValues(namespace, portfolio).Set(v)
-	}
-	if v, err := strconv.ParseFloat(acc.Movement, 64); err == nil {
-		m.movement.WithLabelValues(namespace, portfolio).Set(v)
+	setParsed(m.bias, acc.Bias, namespace, portfolio)
+	setParsed(m.movement, acc.Movement, namespace, portfolio)
+}
+
+// setParsed sets g's series of the label values lv to the decimal string v; an empty or
+// unparsable v (a status field not filled) sets nothing.
+func setParsed(g *prometheus.GaugeVec, v string, lv ...string) {
+	if f, err := strconv.ParseFloat(v, 64); err == nil {
+		g.WithLabelValues(lv...).Set(f)
 	}
 }
 
@@ -285,11 +275,10 @@ func (m *Metrics) levels(namespace, portfolio string, levels []forecastingv1alph
 			continue
 		}
 		lv := []string{namespace, portfolio, l.Name, string(acc.Metric)}
-		for g, v := range map[*prometheus.GaugeVec]string{m.levelExp: acc.Expected, m.levelReal: acc.Realized, m.levelExpGeo: acc.ExpectedGeometric, m.levelRealGeo: acc.RealizedGeometric} {
-			if f, err := strconv.ParseFloat(v, 64); err == nil {
-				g.WithLabelValues(lv...).Set(f)
-			}
-		}
+		setParsed(m.levelExp, acc.Expected, lv...)
+		setParsed(m.levelReal, acc.Realized, lv...)
+		setParsed(m.levelExpGeo, acc.ExpectedGeometric, lv...)
+		setParsed(m.levelRealGeo, acc.RealizedGeometric, lv...)
 	}
 }
 
