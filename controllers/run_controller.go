@@ -258,7 +258,7 @@ func (r *RunReconciler) start(ctx context.Context, run *forecastingv1alpha1.Fore
 	}
 	st.ConfigMapName = configMapName(run.Name)
 	st.Output = strings.TrimSuffix(fp.Spec.Output.URI, "/") + "/runs/" + run.Name + "/"
-	if err := r.createOwned(ctx, run, buildJob(fp, run, stepPlan, jobParams{Created: r.Clock.Now()})); err != nil {
+	if err := r.createStep(ctx, run, fp, stepPlan, jobParams{}); err != nil {
 		return err
 	}
 	r.progress(run, w, forecastingv1alpha1.ReasonPlanning, "planning: cutting the input into shards")
@@ -299,7 +299,7 @@ func (r *RunReconciler) plan(ctx context.Context, run *forecastingv1alpha1.Forec
 		return err
 	}
 	st.Parallelism = share
-	if err := r.createOwned(ctx, run, buildJob(fp, run, stepTrain, jobParams{Shards: int32(s.Shards), Parallelism: share, Created: r.Clock.Now()})); err != nil {
+	if err := r.createStep(ctx, run, fp, stepTrain, jobParams{Shards: int32(s.Shards), Parallelism: share}); err != nil {
 		return err
 	}
 	r.progress(run, w, forecastingv1alpha1.ReasonTraining, fmt.Sprintf("training %d shards (%d units)", s.Shards, s.Units))
@@ -352,7 +352,7 @@ func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.Fore
 			fmt.Sprintf("all %d shards trained", st.Shards.Total), r.Clock.Now())
 	}
 	if st.Hierarchy != nil && st.Hierarchy.ReconcileStep {
-		if err := r.createOwned(ctx, run, buildJob(fp, run, stepReconcile, jobParams{Created: r.Clock.Now()})); err != nil {
+		if err := r.createStep(ctx, run, fp, stepReconcile, jobParams{}); err != nil {
 			return err
 		}
 		r.progress(run, w, forecastingv1alpha1.ReasonReconciling,
@@ -364,7 +364,7 @@ func (r *RunReconciler) train(ctx context.Context, run *forecastingv1alpha1.Fore
 
 // startPublish creates the publish Job and marks the run Publishing.
 func (r *RunReconciler) startPublish(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, w *runWork) error {
-	if err := r.createOwned(ctx, run, buildJob(fp, run, stepPublish, jobParams{Created: r.Clock.Now()})); err != nil {
+	if err := r.createStep(ctx, run, fp, stepPublish, jobParams{}); err != nil {
 		return err
 	}
 	r.progress(run, w, forecastingv1alpha1.ReasonPublishing, "publishing: checking every unit and moving the latest pointer")
@@ -519,8 +519,7 @@ func (r *RunReconciler) stepJob(ctx context.Context, run *forecastingv1alpha1.Fo
 	var job batchv1.Job
 	err := r.Get(ctx, types.NamespacedName{Namespace: run.Namespace, Name: jobName(run.Name, s)}, &job)
 	if apierrors.IsNotFound(err) {
-		p.Created = r.Clock.Now()
-		return nil, r.createOwned(ctx, run, buildJob(fp, run, s, p))
+		return nil, r.createStep(ctx, run, fp, s, p)
 	}
 	if err != nil {
 		return nil, err
@@ -529,6 +528,13 @@ func (r *RunReconciler) stepJob(ctx context.Context, run *forecastingv1alpha1.Fo
 		return nil, fmt.Errorf("job %s/%s exists but is not controlled by run %s", job.Namespace, job.Name, run.Name)
 	}
 	return &job, nil
+}
+
+// createStep creates the Job of step s (buildJob with p), created at the reconciler's clock
+// (jobParams.Created, whence the trainer's --step-deadline).
+func (r *RunReconciler) createStep(ctx context.Context, run *forecastingv1alpha1.ForecastRun, fp *forecastingv1alpha1.ForecastPortfolio, s step, p jobParams) error {
+	p.Created = r.Clock.Now()
+	return r.createOwned(ctx, run, buildJob(fp, run, s, p))
 }
 
 // createOwned creates obj with run as its controller owner; AlreadyExists counts as done.
