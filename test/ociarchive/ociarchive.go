@@ -121,14 +121,16 @@ func (a *Archive) Layer(l Descriptor) (*tar.Reader, error) {
 	return tar.NewReader(zr), nil
 }
 
-// ImageConfig is the part of an image configuration a runtime reads to start the image (OCI
-// image-spec v1.1, config.md: config.User, Entrypoint, Cmd, Env, WorkingDir).
+// ImageConfig is the part of an image configuration a runtime reads to start the image, and
+// the image's labels (OCI image-spec v1.1, config.md: config.User, Entrypoint, Cmd, Env,
+// WorkingDir, Labels).
 type ImageConfig struct {
-	User       string   `json:"User"`
-	Entrypoint []string `json:"Entrypoint"`
-	Cmd        []string `json:"Cmd"`
-	Env        []string `json:"Env"`
-	WorkingDir string   `json:"WorkingDir"`
+	User       string            `json:"User"`
+	Entrypoint []string          `json:"Entrypoint"`
+	Cmd        []string          `json:"Cmd"`
+	Env        []string          `json:"Env"`
+	WorkingDir string            `json:"WorkingDir"`
+	Labels     map[string]string `json:"Labels"`
 }
 
 // RuntimeConfig returns the image's runtime configuration.

@@ -54,13 +54,7 @@ func imagesDir(t *testing.T) string {
 
 // imageConfig is the part of an OCI image configuration the tests read (OCI image spec, config.md).
 type imageConfig struct {
-	Config struct {
-		User       string            `json:"User"`
-		Entrypoint []string          `json:"Entrypoint"`
-		Cmd        []string          `json:"Cmd"`
-		Env        []string          `json:"Env"`
-		Labels     map[string]string `json:"Labels"`
-	} `json:"config"`
+	Config ociarchive.ImageConfig `json:"config"`
 	RootFS struct {
 		DiffIDs []string `json:"diff_ids"`
 	} `json:"rootfs"`
@@ -450,7 +444,7 @@ func TestTrainerImageRuns(t *testing.T) {
 		return out
 	}
 
-	labels := readImage(t, dir, "almanac-trainer").config.Config.Labels
+	labels := img.Labels
 	if got, want := strings.TrimSpace(mustRun("version")), "almanac-trainer "+labels["org.opencontainers.image.version"]+" ("+labels["org.opencontainers.image.revision"]+")"; got != want {
 		t.Errorf("version in the image: %q, want %q (the labels)", got, want)
 	}
