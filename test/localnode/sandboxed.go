@@ -57,7 +57,7 @@ func (r *podRun) prepareSandbox(ctx context.Context, pod *corev1.Pod, c *corev1.
 	for i := 1; i < len(argv); i++ {
 		argv[i] = expand(argv[i], vals)
 	}
-	readOnly := c.SecurityContext != nil && c.SecurityContext.ReadOnlyRootFilesystem != nil && *c.SecurityContext.ReadOnlyRootFilesystem
+	readOnly := c.SecurityContext != nil && isTrue(c.SecurityContext.ReadOnlyRootFilesystem)
 	root := filepath.Join(r.dir, "rootfs")
 	if err := os.RemoveAll(root); err != nil { // a restarted container gets a fresh root
 		return process{}, err
@@ -144,7 +144,7 @@ func runAs(pod *corev1.Pod, c *corev1.Container, img *sandbox.Image) (identity, 
 		}
 		id.uid = n
 	}
-	if nonRoot != nil && *nonRoot {
+	if isTrue(nonRoot) {
 		switch {
 		case runAsUser != nil && *runAsUser == 0:
 			return identity{}, fmt.Errorf("container's runAsUser breaks non-root policy %s", who)
