@@ -1,8 +1,6 @@
 package main
 
 import (
-	"bytes"
-	"context"
 	"os"
 	"path/filepath"
 	"regexp"
@@ -61,32 +59,22 @@ spec:
 // segment's series are spread over several shards.
 func TestLocalShardsApplyThePlanDesign(t *testing.T) {
 	dir := t.TempDir()
-	ctx := context.Background()
 	file := filepath.Join(dir, "portfolio.yaml")
 	if err := os.WriteFile(file, []byte(designPortfolio), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	var out, errb bytes.Buffer
-	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--frequency", "Weekly", "--items", "6", "--depots", "4", "--periods", "160"}, &out, &errb, noenv); code != 0 {
-		t.Fatalf("generate: exit %d: %s", code, errb.String())
-	}
-	out.Reset()
-	errb.Reset()
-	if code := run(ctx, []string{"local", "-f", file, "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--run", "flp-design-1"},
-		&out, &errb, noenv); code != 0 {
-		t.Fatalf("local -f: exit %d: %s", code, errb.String())
-	}
-	m := regexp.MustCompile(`(\d+) shards`).FindStringSubmatch(out.String())
+	stdout, stderr := generateAndRunLocal(t, dir, file, "flp-design-1", "--frequency", "Weekly", "--items", "6", "--depots", "4", "--periods", "160")
+	m := regexp.MustCompile(`(\d+) shards`).FindStringSubmatch(stdout)
 	if m == nil {
-		t.Fatalf("local -f stdout: %s", out.String())
+		t.Fatalf("local -f stdout: %s", stdout)
 	}
 	shards, _ := strconv.Atoi(m[1])
 	if shards < 3 {
-		t.Fatalf("%d shards, want several: %s", shards, out.String())
+		t.Fatalf("%d shards, want several: %s", shards, stdout)
 	}
-	if !strings.Contains(errb.String(), "plan: design chosen once for the run on a sample of 24 series") ||
-		strings.Count(errb.String(), " by this shard") != shards || strings.Contains(errb.String(), "segments chosen by the plan, 1 by this shard") {
-		t.Errorf("local -f stderr: %s", errb.String())
+	if !strings.Contains(stderr, "plan: design chosen once for the run on a sample of 24 series") ||
+		strings.Count(stderr, " by this shard") != shards || strings.Contains(stderr, "segments chosen by the plan, 1 by this shard") {
+		t.Errorf("local -f stderr: %s", stderr)
 	}
 
 	b, err := os.ReadFile(filepath.Join(dir, "out", "runs", "flp-design-1", "plan.json"))
@@ -97,7 +85,7 @@ func TestLocalShardsApplyThePlanDesign(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// 160 weeks are enough for the inner holdout (2h + 2m + 2 = 122): every series scores.
+	// 160 weeks are enough for the inner holdout (2h + m + 2 = 70, minHoldout): every series scores.
 	if p.Design == nil || p.Design.SampleSeries != 24 || p.Design.InnerSeries != 24 || len(p.Design.Segments) == 0 || len(p.Design.Candidates) < 2 {
 		t.Fatalf("plan.json design: %+v", p.Design)
 	}

@@ -18,6 +18,25 @@ import (
 
 func noenv(string) string { return "" }
 
+// generateAndRunLocal writes `generate`'s data (with genArgs) under dir/in/, runs `local -f
+// portfolio` on it as run runName with output under dir/out/, and returns local's stdout and
+// stderr; a command that exits non-zero ends the test.
+func generateAndRunLocal(t *testing.T, dir, portfolio, runName string, genArgs ...string) (stdout, stderr string) {
+	t.Helper()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, append([]string{"generate", "--output", "file://" + dir + "/in/"}, genArgs...), &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: exit %d: %s", code, errb.String())
+	}
+	out.Reset()
+	errb.Reset()
+	if code := run(ctx, []string{"local", "-f", portfolio, "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--run", runName},
+		&out, &errb, noenv); code != 0 {
+		t.Fatalf("local -f: exit %d: %s", code, errb.String())
+	}
+	return out.String(), errb.String()
+}
+
 func TestRunExitCodes(t *testing.T) {
 	ctx := context.Background()
 	var out, errb bytes.Buffer
@@ -203,23 +222,14 @@ func TestLocalRunsTheHierarchySample(t *testing.T) {
 	dir := t.TempDir()
 	ctx := context.Background()
 	sample := filepath.Join("..", "..", "..", "config", "samples", "forecasting_v1alpha1_forecastportfolio_hierarchy.yaml")
+	stdout, stderr := generateAndRunLocal(t, dir, sample, "flp-hier-1", "--frequency", "Weekly", "--items", "6", "--depots", "4")
+	if !strings.Contains(stdout, "24 series forecast") || !strings.Contains(stderr, "reconcile: flp-hier-1: 35 nodes (7 spanning)") {
+		t.Fatalf("local -f stdout: %s\nstderr: %s", stdout, stderr)
+	}
+	if m := regexp.MustCompile(`(\d+) shards`).FindStringSubmatch(stdout); m == nil || len(m[1]) == 1 && m[1] < "2" {
+		t.Errorf("local -f ran %v shards, want several: %s", m, stdout)
+	}
 	var out, errb bytes.Buffer
-	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--frequency", "Weekly", "--items", "6", "--depots", "4"}, &out, &errb, noenv); code != 0 {
-		t.Fatalf("generate: exit %d: %s", code, errb.String())
-	}
-	out.Reset()
-	errb.Reset()
-	if code := run(ctx, []string{"local", "-f", sample, "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--run", "flp-hier-1"},
-		&out, &errb, noenv); code != 0 {
-		t.Fatalf("local -f: exit %d: %s", code, errb.String())
-	}
-	if !strings.Contains(out.String(), "24 series forecast") || !strings.Contains(errb.String(), "reconcile: flp-hier-1: 35 nodes (7 spanning)") {
-		t.Fatalf("local -f stdout: %s\nstderr: %s", out.String(), errb.String())
-	}
-	if m := regexp.MustCompile(`(\d+) shards`).FindStringSubmatch(out.String()); m == nil || len(m[1]) == 1 && m[1] < "2" {
-		t.Errorf("local -f ran %v shards, want several: %s", m, out.String())
-	}
-	out.Reset()
 	if code := run(ctx, []string{"inspect", "--output", "file://" + dir + "/out/"}, &out, &errb, noenv); code != 0 {
 		t.Fatalf("inspect: exit %d: %s", code, errb.String())
 	}
