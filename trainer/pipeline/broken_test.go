@@ -5,7 +5,6 @@ import (
 	"context"
 	"encoding/binary"
 	"errors"
-	"io"
 	"os"
 	"path/filepath"
 	"strings"
@@ -146,12 +145,7 @@ func TestObjectBrokenAfterPlanFailsNoHashShard(t *testing.T) {
 func TestDamagedParquetAtPlan(t *testing.T) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-damaged-pq-in/")
-	o := synth.Options{Items: 4, Depots: 2, Periods: 60, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}
-	for d := 0; d < 2; d++ {
-		if err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*60) }); err != nil {
-			t.Fatal(err)
-		}
-	}
+	putParquet(t, in, synth.Options{Items: 4, Depots: 2, Periods: 60, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}, 4*60)
 	cfg := func(run string) *runconfig.Config {
 		c := testConfig(run, "mem://flp-damaged-pq-in/", "mem://flp-damaged-pq-out/")
 		c.Source.Format, c.Source.Partitioning, c.Output.Format = "parquet", runconfig.PartitionObjects, "parquet"
@@ -195,12 +189,7 @@ func TestDamagedParquetAtPlan(t *testing.T) {
 func TestDamagedParquetAtPlanRowGroups(t *testing.T) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-damaged-rg-in/")
-	o := synth.Options{Items: 8, Depots: 2, Periods: 60, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}
-	for d := 0; d < 2; d++ {
-		if err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*60) }); err != nil {
-			t.Fatal(err)
-		}
-	}
+	putParquet(t, in, synth.Options{Items: 8, Depots: 2, Periods: 60, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}, 4*60)
 	cfg := func(run string) *runconfig.Config {
 		c := testConfig(run, "mem://flp-damaged-rg-in/", "mem://flp-damaged-rg-out/")
 		c.Source.Format, c.Source.Partitioning, c.Output.Format = "parquet", runconfig.PartitionRowGroups, "parquet"

@@ -94,6 +94,17 @@ func unitModels(t *testing.T, out *store.Store, u ManifestUnit, format string) [
 	return rows
 }
 
+// putParquet writes o's depot objects into st as Parquet (synth.Options.WriteParquet), with
+// rowsPerGroup rows in each row group.
+func putParquet(t *testing.T, st *store.Store, o synth.Options, rowsPerGroup int) {
+	t.Helper()
+	for d := 0; d < o.Depots; d++ {
+		if err := st.Write(context.Background(), synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, rowsPerGroup) }); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
 // putInput writes three depot objects (7 series, one of them bad) through st.
 func putInput(t *testing.T, st *store.Store) {
 	t.Helper()
@@ -611,13 +622,7 @@ func TestScoreMetricFollowsSelection(t *testing.T) {
 func TestEndToEndRowGroupsOnMem(t *testing.T) {
 	ctx := context.Background()
 	in := mustOpen(t, "mem://flp-rowgroups-in/")
-	o := synth.Options{Items: 10, Depots: 2, Periods: 90, SpareShare: 0.2, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}
-	for d := 0; d < 2; d++ {
-		err := in.Write(ctx, synth.ObjectKey(d, synth.Parquet), func(w io.Writer) error { return o.WriteParquet(w, d, 4*90) })
-		if err != nil {
-			t.Fatal(err)
-		}
-	}
+	putParquet(t, in, synth.Options{Items: 10, Depots: 2, Periods: 90, SpareShare: 0.2, End: anchor.Truncate(24*time.Hour).AddDate(0, 0, -1)}, 4*90)
 	cfg := testConfig("flp-0001", "mem://flp-rowgroups-in/", "mem://flp-rowgroups-out/")
 	cfg.Source.Format, cfg.Source.Partitioning = "parquet", runconfig.PartitionRowGroups
 	cfg.Output.Format = "parquet"
