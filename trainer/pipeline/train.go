@@ -166,24 +166,9 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		sum.Series += done.Counts.Series
 		sum.Trained += done.Counts.Trained
 		sum.Rejected += done.Counts.Rejected
-		for f, c := range done.Counts.Models {
-			if sum.Models == nil {
-				sum.Models = map[string]int{}
-			}
-			sum.Models[f] += c
-		}
-		for d, c := range done.Counts.Designs {
-			if sum.Designs == nil {
-				sum.Designs = map[string]int{}
-			}
-			sum.Designs[d] += c
-		}
-		for d, c := range done.Counts.DesignsByShard {
-			if sum.DesignsByShard == nil {
-				sum.DesignsByShard = map[string]int{}
-			}
-			sum.DesignsByShard[d] += c
-		}
+		addCounts(&sum.Models, done.Counts.Models)
+		addCounts(&sum.Designs, done.Counts.Designs)
+		addCounts(&sum.DesignsByShard, done.Counts.DesignsByShard)
 		if done.Accuracy != nil {
 			acc.Add(*done.Accuracy)
 		}
