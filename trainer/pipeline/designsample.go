@@ -30,8 +30,6 @@ type designSample struct {
 	excluded map[string]bool
 	// touched are the kept keys with rows in the current read (commit drops them if it broke).
 	touched map[string]bool
-	// peak is the most series held at once (for tests of the bound).
-	peak int
 }
 
 type sampleKey struct {
@@ -98,7 +96,6 @@ func (s *designSample) add(r ingest.Row) {
 	}
 	s.touched[k.key] = true
 	s.c.Add(r)
-	s.peak = max(s.peak, len(s.kept))
 }
 
 // commit ends one read (an object or a row-group range): when it broke, the kept keys it

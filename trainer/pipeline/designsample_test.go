@@ -37,14 +37,17 @@ func TestDesignSampleIsBoundedAndDeterministic(t *testing.T) {
 			}
 		}
 	}
-	draw := func(order []int, broken int) ([]series.Series, *designSample) {
+	// draw also returns the most series the sample held at once.
+	draw := func(order []int, broken int) ([]series.Series, *designSample, int) {
 		s, err := newDesignSample(cfg, anchor, limit)
 		if err != nil {
 			t.Fatal(err)
 		}
+		peak := 0
 		for _, o := range order {
 			for i, r := range rows[o] {
 				s.add(r)
+				peak = max(peak, len(s.kept))
 				if s.c.Len() > limit || len(s.kept) > limit {
 					t.Fatalf("holds %d series (%d kept) after %d rows of object %d, limit %d", s.c.Len(), len(s.kept), i+1, o, limit)
 				}
@@ -54,9 +57,9 @@ func TestDesignSampleIsBoundedAndDeterministic(t *testing.T) {
 			}
 			s.commit(o == broken)
 		}
-		return s.finish(), s
+		return s.finish(), s, peak
 	}
-	got, s := draw([]int{0, 1, 2}, -1)
+	got, _, peak := draw([]int{0, 1, 2}, -1)
 	var all []series.Series
 	for k := 0; k < keys; k++ {
 		all = append(all, series.Series{Key: ingest.JoinKey(fmt.Sprintf("FLP-ITEM-%04d", k), "ashby")})
@@ -66,22 +69,22 @@ func TestDesignSampleIsBoundedAndDeterministic(t *testing.T) {
 		want = append(want, all[i].Key)
 	}
 	sort.Strings(want)
-	if len(got) != limit || s.peak != limit {
-		t.Fatalf("%d series, peak %d; want %d", len(got), s.peak, limit)
+	if len(got) != limit || peak != limit {
+		t.Fatalf("%d series, peak %d; want %d", len(got), peak, limit)
 	}
 	for i, sr := range got {
 		if sr.Key != want[i] || sr.Len() != days {
 			t.Errorf("series %d: %s with %d days; want %s with all %d", i, sr.Key, sr.Len(), want[i], days)
 		}
 	}
-	again, _ := draw([]int{2, 0, 1}, -1)
+	again, _, _ := draw([]int{2, 0, 1}, -1)
 	for i := range again {
 		if again[i].Key != got[i].Key || !slices.Equal(again[i].Values, got[i].Values) {
 			t.Errorf("objects in another order: series %d is %s, was %s", i, again[i].Key, got[i].Key)
 		}
 	}
 	// Object 1 breaks halfway: the kept keys it had rows of leave; the others stay whole.
-	part, s := draw([]int{0, 1, 2}, 1)
+	part, s, _ := draw([]int{0, 1, 2}, 1)
 	if len(s.excluded) == 0 || len(part) >= limit {
 		t.Fatalf("after a broken object: %d series, %d excluded", len(part), len(s.excluded))
 	}
