@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"hash/fnv"
 	"reflect"
 	"slices"
 	"strings"
@@ -255,13 +256,12 @@ func TestSampleIsDeterministicAndBounded(t *testing.T) {
 	}
 }
 
+// fnv64a is pipeline.KeyHash (64-bit FNV-1a of the key's bytes), which this package cannot
+// import.
 func fnv64a(s string) uint64 {
-	h := uint64(14695981039346656037)
-	for i := 0; i < len(s); i++ {
-		h ^= uint64(s[i])
-		h *= 1099511628211
-	}
-	return h
+	h := fnv.New64a()
+	h.Write([]byte(s))
+	return h.Sum64()
 }
 
 // Standalone series forecast in small batches, and the rest (a segment the decision did not
