@@ -844,11 +844,7 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 		}
 		drop(worst)
 	}
-	base.Zoo = keep
-	if base.CombineTop > len(keep) {
-		base.CombineTop = len(keep)
-	}
-	return base, nil
+	return withoutMembers(base, out.DroppedMembers), nil
 }
 
 // pilotCost runs c on the pilot inner series and returns its CPU milliseconds per series;
