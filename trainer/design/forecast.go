@@ -808,7 +808,7 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 			}
 		}
 	}
-	out.BudgetMillis = o.CostLimit * sumCost(first.Config, out.MemberCostMillis)
+	out.BudgetMillis = max(o.CostLimit*sumCost(first.Config, out.MemberCostMillis), minBudgetMillis)
 	for i, sp := range base.Zoo {
 		if !protected[sp.DisplayName()] {
 			if err := measure(out.BudgetMillis)(i); err != nil {
@@ -846,6 +846,13 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 	}
 	return withoutMembers(base, out.DroppedMembers), nil
 }
+
+// minBudgetMillis is the least budget withinBudget sets, in CPU milliseconds per series. Below
+// it the pilot's CPU clock cannot rank members (a naive or drift fit takes microseconds, and a
+// loaded machine moves such timings by more than the CostLimit ratio), and nothing worth saving
+// is at stake; so members that cheap are never dropped. Every measured budget of the
+// benchmarks is above it (M3 Yearly 2.6 ms, the smallest).
+const minBudgetMillis = 1.0
 
 // pilotCost runs c on the pilot inner series and returns its CPU milliseconds per series;
 // the run stops early once it has used limit milliseconds per pilot series (the result is
