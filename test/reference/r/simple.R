@@ -24,17 +24,7 @@ band <- function(fc) {
           num(fc$mean), num(lo[, 1]), num(hi[, 1]), num(lo[, 2]), num(hi[, 2]))
 }
 
-# thetaf's own seasonality decision (forecast 8.20: n > 2m, qnorm(0.95), acf of the data).
-thetaf_seasonal <- function(x) {
-  m <- frequency(x)
-  n <- length(x)
-  if (m > 1 && !is.constant(x) && n > 2 * m) {
-    r <- as.numeric(acf(x, lag.max = m, plot = FALSE)$acf)[-1]
-    stat <- sqrt((1 + 2 * sum(r[-m]^2)) / n)
-    return(abs(r[m]) / stat > qnorm(0.95))
-  }
-  FALSE
-}
+source("test/reference/r/thetaf_seasonal.R") # thetaf_seasonal(x): thetaf's seasonality decision
 
 # Naive2 (M3 benchmark) composed from R pieces: naive() on seasadj(decompose(x,
 # "multiplicative")), mean and bounds multiplied by the seasonal index of each future period.
