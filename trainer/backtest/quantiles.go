@@ -27,7 +27,7 @@ type QuantileRecord struct {
 //	BiasSum       += −u_ik                       ((forecast − actual) / scale)
 //
 // with s the in-sample mean absolute seasonal-naive error (NaiveScale, power 1; Hyndman &
-// Koehler 2006's MASE scale), so the record is in the units pipeline.Calibrate measures new
+// Koehler 2006's MASE scale) at lag ScaleLag(len(y), m) for s_n and every s_i, so the record is in the units pipeline.Calibrate measures new
 // actuals in. Taking the band in scale units carries its width from the end of the history
 // to each origin in proportion to the series' typical naive step there (our own choice; the
 // published model is not refitted at each origin for its quantiles, which would cost another
@@ -47,6 +47,7 @@ func QuantilesOnBacktest(y []float64, m int, origins []int, errs [][]float64, le
 			return rec, false
 		}
 	}
+	m = ScaleLag(len(y), m)
 	sn := NaiveScale(y, m, 1)
 	if !(sn > 0) || math.IsInf(sn, 0) {
 		return rec, false

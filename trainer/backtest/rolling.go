@@ -127,7 +127,8 @@ type Assessment struct {
 }
 
 // Assess scores the forecasts of one plan against y. At origin i the in-sample history for
-// the scaled metrics is y[:Origins[i]]. Steps[k] pools the step-(k+1) points of every origin
+// the scaled metrics is y[:Origins[i]], differenced at lag ScaleLag(len(y), m) for every
+// origin. Steps[k] pools the step-(k+1) points of every origin
 // under the metric's own aggregation: a mean of |e|/scale_i for MASE, sqrt of the mean of
 // e²/scale²_i for RMSSE, 100 Σ|e|/Σ|y| for WAPE, and the metric's formula for the others.
 // Assess panics when forecasts does not match the plan.
@@ -135,6 +136,7 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 	if len(forecasts) != len(p.Origins) {
 		panic("backtest: Assess needs one forecast per origin")
 	}
+	m = ScaleLag(len(y), m)
 	a := Assessment{Steps: make([]float64, p.Horizon), Errors: make([][]float64, len(p.Origins)), Held: make([]int, len(p.Origins))}
 	sum, cnt := 0.0, 0
 	scale1 := make([]float64, len(p.Origins))

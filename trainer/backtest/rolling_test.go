@@ -42,6 +42,29 @@ func TestAssess(t *testing.T) {
 	}
 }
 
+// The scale's lag follows the length of the whole history (ScaleLag), by hand with m = 4.
+// n = 7 < 2m: origin 6 of [10 20 11 22 12 23 14], forecast 12, error 2; lag-1 scale of the
+// first six points (10+9+11+10+11)/5 = 10.2, MASE 2/10.2. The lag-4 scale would be
+// (|12−10| + |23−20|)/2 = 2.5 from two of the four positions of the season (MASE 0.8).
+// n = 8 = 2m: one more point, 24; origin 6, forecasts 12 and 22, errors 2 and 2: the lag-4
+// scale 2.5 of the same six points, MASE 0.8.
+func TestAssessScaleLagFollowsTheHistory(t *testing.T) {
+	y := []float64{10, 20, 11, 22, 12, 23, 14, 24}
+	short := Assess(MASE, y[:7], 4, Plan{Origins: []int{6}, Horizon: 1}, [][]float64{{12}})
+	if math.Abs(short.Overall-2/10.2) > 1e-12 {
+		t.Errorf("n = 7, m = 4: MASE %v, want 2/10.2 (lag 1)", short.Overall)
+	}
+	full := Assess(MASE, y, 4, Plan{Origins: []int{6}, Horizon: 2}, [][]float64{{12, 22}})
+	if math.Abs(full.Overall-0.8) > 1e-12 {
+		t.Errorf("n = 8, m = 4: MASE %v, want 0.8 (lag 4)", full.Overall)
+	}
+	for _, c := range []struct{ n, m, want int }{{7, 4, 1}, {8, 4, 4}, {103, 52, 1}, {104, 52, 52}, {50, 1, 1}, {50, 0, 1}} {
+		if got := ScaleLag(c.n, c.m); got != c.want {
+			t.Errorf("ScaleLag(%d, %d) = %d, want %d", c.n, c.m, got, c.want)
+		}
+	}
+}
+
 func TestScorePanicsOnMisuse(t *testing.T) {
 	defer func() {
 		if r := recover(); r == nil {

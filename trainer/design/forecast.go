@@ -543,7 +543,7 @@ type innerSeries struct {
 	seg    Segment
 	unit   int  // the sampled series it was cut from
 	scaled bool // the MASE scale of train is defined (non-zero)
-	m      int
+	m      int  // the lag of that scale (backtest.ScaleLag of train's length)
 }
 
 // collapse averages each sampled series' inner MASE over its origins (those with a defined
@@ -587,8 +587,8 @@ func holdOut(s series.Series, h, m int) innerSeries {
 			tr.Covariates[k] = v[:min(len(v), n)]
 		}
 	}
-	is := innerSeries{train: tr, test: s.Values[n-h:], m: m}
-	is.scaled = !math.IsNaN(backtest.Score(backtest.MASE, is.test, is.test, tr.Values, m))
+	is := innerSeries{train: tr, test: s.Values[n-h:], m: backtest.ScaleLag(n-h, m)}
+	is.scaled = !math.IsNaN(backtest.Score(backtest.MASE, is.test, is.test, tr.Values, is.m))
 	return is
 }
 

@@ -41,7 +41,7 @@ func Evaluate(actual series.Series, prev []tables.ForecastRow, expected float64,
 	for i, r := range matched {
 		f[i] = r.Mean
 	}
-	realized := backtest.Score(metric, y, f, hist, actual.Freq.SeasonLength())
+	realized := backtest.Score(metric, y, f, hist, backtest.ScaleLag(len(hist), actual.Freq.SeasonLength()))
 	if metric == backtest.Bias {
 		realized = math.Abs(realized)
 	}
@@ -119,7 +119,7 @@ func Calibrate(actual series.Series, prev []tables.ForecastRow, levels []float64
 	if !ok {
 		return c, false
 	}
-	scale := backtest.NaiveScale(hist, actual.Freq.SeasonLength(), 1)
+	scale := backtest.NaiveScale(hist, backtest.ScaleLag(len(hist), actual.Freq.SeasonLength()), 1)
 	if !(scale > 0) || math.IsInf(scale, 0) {
 		return c, false
 	}
@@ -200,7 +200,7 @@ func Movement(s series.Series, next, prev []tables.ForecastRow) (summary.Stabili
 	if len(next) == 0 || len(prev) == 0 {
 		return st, false
 	}
-	scale := backtest.NaiveScale(s.Values, s.Freq.SeasonLength(), 1)
+	scale := backtest.NaiveScale(s.Values, backtest.ScaleLag(len(s.Values), s.Freq.SeasonLength()), 1)
 	if !(scale > 0) || math.IsInf(scale, 0) {
 		return st, false
 	}

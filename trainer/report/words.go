@@ -59,7 +59,8 @@ func historyWindow(f series.Frequency, horizon int) int {
 
 // yardstick names what the scaled metrics divide by, for season length m of frequency f: the
 // history's in-sample mean absolute change from one season (or, for m = 1, one period)
-// earlier, the seasonal-naive scale of Hyndman & Koehler (2006), section 4.
+// earlier, the seasonal-naive scale of Hyndman & Koehler (2006), section 4, or from one period
+// to the next for histories shorter than two seasons (backtest.ScaleLag).
 func yardstick(f series.Frequency, m int) string {
 	noun := periodNoun(f)
 	if m <= 1 {
@@ -70,7 +71,7 @@ func yardstick(f series.Frequency, m int) string {
 	if f.SeasonLength() != m || season == "" {
 		season = "one season (" + plural(m, noun) + ")"
 	}
-	return fmt.Sprintf("the history's typical change from the same %s %s earlier", noun, season)
+	return fmt.Sprintf("the history's typical change from the same %s %s earlier (from one %s to the next for histories shorter than two seasons)", noun, season, noun)
 }
 
 // MetricSentence explains a backtest metric in one plain sentence for a planner. unit is the
