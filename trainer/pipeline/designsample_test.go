@@ -10,6 +10,8 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/trainer/exitcode"
+
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/models"
@@ -202,5 +204,12 @@ func TestUnseenSegmentIsChosenByTheShard(t *testing.T) {
 	}
 	if _, err := RunTrain(ctx, cfg, 0, env); err == nil || !strings.Contains(err.Error(), `plan.json: design: segments[0].design: "ets-theta" is not one of the candidates`) {
 		t.Errorf("train with a damaged plan design: %v", err)
+	}
+	// A plan.json that does not parse is damaged run state: permanent (exit 3), not retried.
+	if err := out.Put(ctx, store.RunKey(cfg.Run, store.PlanName), b[:len(b)/2]); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := RunTrain(ctx, cfg, 0, env); ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "plan.json") {
+		t.Errorf("train with a truncated plan.json: exit %d, %v; want exit %d naming plan.json", ExitCode(err), err, exitcode.Data)
 	}
 }

@@ -204,15 +204,18 @@ func EncodePlan(p *Plan) ([]byte, error) {
 }
 
 // DecodePlan parses plan.json and validates it (see Plan.Validate); name is used in errors.
+// Its errors wrap store.ErrDamaged: plan.json is run state the plan step wrote, so one that
+// does not parse or validate is damaged state, a permanent failure for every shard (exit 3),
+// not an internal error the Job would retry.
 func DecodePlan(b []byte, name string) (*Plan, error) {
 	var p Plan
 	dec := json.NewDecoder(strings.NewReader(string(b)))
 	dec.DisallowUnknownFields()
 	if err := dec.Decode(&p); err != nil {
-		return nil, fmt.Errorf("%s: %w", name, err)
+		return nil, fmt.Errorf("%s: %w: %w", name, err, store.ErrDamaged)
 	}
 	if err := p.Validate(); err != nil {
-		return nil, fmt.Errorf("%s: %w", name, err)
+		return nil, fmt.Errorf("%s: %w: %w", name, err, store.ErrDamaged)
 	}
 	return &p, nil
 }
