@@ -603,6 +603,8 @@ type SelectionSpec struct {
 	DesignCostPercent int32 `json:"designCostPercent,omitempty"`
 
 	// metric ranks the zoo members by backtest error. Default MASE (Hyndman & Koehler 2006).
+	// MASE and RMSSE scale by the history's mean naive change at the season length, or at one
+	// period when the history holds fewer than two seasons.
 	// +optional
 	// +kubebuilder:default=MASE
 	Metric ErrorMetric `json:"metric,omitempty"`
