@@ -195,7 +195,9 @@ func etsK(trend, season int8, m int) int {
 }
 
 // etsMaxSeason is the longest season the search models (common practice: R's forecast::ets
-// ignores seasonality above 24; the seeds and the search grow with m).
+// ignores seasonality above 24; the seeds and the search grow with m). Weekly data (m = 52)
+// therefore gets non-seasonal forms only, as from R's ets on ts(y, frequency = 52) (checked
+// in test/reference/weekly_test.go); its yearly cycle is for the MSTL and Fourier members.
 const etsMaxSeason = 24
 
 // etsFormFits reports why a form cannot be fitted to y with season length m, or nil. The
