@@ -103,33 +103,40 @@ func TestARIMALikelihoodAtRCoefficients(t *testing.T) {
 	ref := loadARIMARef(t)
 	for _, r := range ref.Fits {
 		s := ref.Series[r.Data]
-		fit, err := models.ARIMAAt(s.Y, seasonOf(s.M), r.order(), r.coef())
-		if err != nil {
-			t.Errorf("%s: %v", r.Call, err)
-			continue
-		}
-		differenced := r.Order[1]+r.Seasonal[1] > 0
-		llTol, boundTol, s2Tol, meanTol := 1e-8*math.Abs(r.LogLik), 1e-8, 1e-8, 1e-8
-		if differenced {
-			llTol, boundTol, s2Tol, meanTol = 0.02, 1e-3, 5e-4, 1e-5
-		}
-		if d := math.Abs(fit.LogLik() - r.LogLik); d > llTol {
-			t.Errorf("%s: loglik %.10g, R %.10g (diff %.2g)", r.Call, fit.LogLik(), r.LogLik, d)
-		}
-		if d := math.Abs(fit.AICc() - r.AICc); d > 2*llTol+1e-8*math.Abs(r.AICc) {
-			t.Errorf("%s: AICc %.10g, R %.10g", r.Call, fit.AICc(), r.AICc)
-		}
-		if d := etsRel(fit.Sigma2(), r.Sigma2Core); d > s2Tol {
-			t.Errorf("%s: sigma2 %.10g, R without the diffuse residuals %.10g (rel %.2g)", r.Call, fit.Sigma2(), r.Sigma2Core, d)
-		}
-		fc := fit.Forecast(len(r.Mean), arimaLevels)
-		if d := etsMaxRel(fc.Mean, r.Mean); d > meanTol {
-			t.Errorf("%s: forecasts differ by %.2g relative\n got %v\nwant %v", r.Call, d, fc.Mean, r.Mean)
-		}
-		for j, want := range r.bounds() {
-			if d := etsMaxRel(fc.Quantiles[j], want); d > boundTol {
-				t.Errorf("%s: level %.3f bound differs by %.2g relative", r.Call, arimaLevels[j], d)
-			}
+		checkARIMAAtR(t, s.Y, seasonOf(s.M), r)
+	}
+}
+
+// checkARIMAAtR evaluates R's fit r at R's coefficients on y with season length m and
+// compares as TestARIMALikelihoodAtRCoefficients says.
+func checkARIMAAtR(t *testing.T, y []float64, m int, r arimaRefFit) {
+	t.Helper()
+	fit, err := models.ARIMAAt(y, m, r.order(), r.coef())
+	if err != nil {
+		t.Errorf("%s: %v", r.Call, err)
+		return
+	}
+	differenced := r.Order[1]+r.Seasonal[1] > 0
+	llTol, boundTol, s2Tol, meanTol := 1e-8*math.Abs(r.LogLik), 1e-8, 1e-8, 1e-8
+	if differenced {
+		llTol, boundTol, s2Tol, meanTol = 0.02, 1e-3, 5e-4, 1e-5
+	}
+	if d := math.Abs(fit.LogLik() - r.LogLik); d > llTol {
+		t.Errorf("%s: loglik %.10g, R %.10g (diff %.2g)", r.Call, fit.LogLik(), r.LogLik, d)
+	}
+	if d := math.Abs(fit.AICc() - r.AICc); d > 2*llTol+1e-8*math.Abs(r.AICc) {
+		t.Errorf("%s: AICc %.10g, R %.10g", r.Call, fit.AICc(), r.AICc)
+	}
+	if d := etsRel(fit.Sigma2(), r.Sigma2Core); d > s2Tol {
+		t.Errorf("%s: sigma2 %.10g, R without the diffuse residuals %.10g (rel %.2g)", r.Call, fit.Sigma2(), r.Sigma2Core, d)
+	}
+	fc := fit.Forecast(len(r.Mean), arimaLevels)
+	if d := etsMaxRel(fc.Mean, r.Mean); d > meanTol {
+		t.Errorf("%s: forecasts differ by %.2g relative\n got %v\nwant %v", r.Call, d, fc.Mean, r.Mean)
+	}
+	for j, want := range r.bounds() {
+		if d := etsMaxRel(fc.Quantiles[j], want); d > boundTol {
+			t.Errorf("%s: level %.3f bound differs by %.2g relative", r.Call, arimaLevels[j], d)
 		}
 	}
 }

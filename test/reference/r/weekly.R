@@ -1,8 +1,9 @@
 #!/usr/bin/env Rscript
 # Writes test/reference/testdata/weekly_r.json: references for weekly (frequency 52, yearly
 # cycle 52.18) and daily (frequency 7, cycles 7 and 365.25) series, the data of demand
-# portfolios, from R forecast 8.20: thetaf, ets, snaive on ts(y, frequency = m), and mstl /
-# forecast.mstl (stlf's engine) on msts(y, seasonal.periods = periods).
+# portfolios, from R forecast 8.20: thetaf, ets, snaive on ts(y, frequency = m), auto.arima
+# on the daily ones, and mstl / forecast.mstl (stlf's engine) on msts(y, seasonal.periods =
+# periods).
 #
 #   Rscript test/reference/r/weekly.R > test/reference/testdata/weekly_r.json
 #
@@ -68,6 +69,27 @@ etsRef <- function(x, h) {
     loglik = fit$loglik, aicc = fit$aicc, sigma2 = fit$sigma2), band(fc))
 }
 
+# auto.arima(ts(y, frequency = m)) for the daily series (m = 7) in the shape of arima_r.json's
+# fits. Not for the weekly ones: our ARIMA has no seasonal terms above 24 (R's auto.arima
+# picks D = 1 at lag 52 on all but the 104-week series, and takes 91 s on teaLeeds).
+arimaRef <- function(x, h) {
+  fit <- auto.arima(x)
+  fc <- forecast(fit, h = h, level = c(80, 95))
+  a <- fit$arma # p, q, P, Q, m, d, D
+  cf <- fit$coef
+  get <- function(prefix, k) if (k == 0) numeric(0) else unname(cf[paste0(prefix, seq_len(k))])
+  cst <- if ("intercept" %in% names(cf)) cf[["intercept"]] else if ("drift" %in% names(cf)) cf[["drift"]] else NULL
+  list(call = "auto.arima(ts(y, frequency = m)); forecast(fit, h, level = c(80, 95))",
+       order = I(c(a[1], a[6], a[2])), seasonal = I(c(a[3], a[7], a[4])), constant = !is.null(cst),
+       ar = I(get("ar", a[1])), ma = I(get("ma", a[2])), sar = I(get("sar", a[3])), sma = I(get("sma", a[4])),
+       const = if (is.null(cst)) 0 else cst,
+       loglik = fit$loglik, aicc = fit$aicc, sigma2 = fit$sigma2,
+       sigma2core = if (a[6] + a[7] == 0) fit$sigma2 else
+         sum(residuals(fit)[-seq_len(a[6] + a[5] * a[7])]^2) / (fit$nobs - length(fit$coef[fit$mask])),
+       mean = num(fc$mean), lo80 = num(fc$lower[, 1]), hi80 = num(fc$upper[, 1]),
+       lo95 = num(fc$lower[, 2]), hi95 = num(fc$upper[, 2]))
+}
+
 out <- lapply(cases, function(cs) {
   x <- ts(cs$y, frequency = cs$m)
   n <- length(cs$y)
@@ -90,6 +112,7 @@ out <- lapply(cases, function(cs) {
     figure = if (n >= 2 * cs$m) num(decompose(x, type = "multiplicative")$figure) else NULL,
     snaive = c(list(call = "snaive(ts(y, frequency = m), h, level = c(80, 95))"), band(snaive(x, h = cs$h, level = c(80, 95)))),
     ets = c(list(call = "ets(ts(y, frequency = m)); forecast(fit, h, level = c(80, 95))"), etsRef(x, cs$h)),
+    arima = if (cs$m <= 24) arimaRef(x, cs$h) else NULL,
     mstl = if (is.null(fit)) NULL else list(
       name = cs$name, y = cs$y, periods = I(cs$periods), h = cs$h,
       call = "stlf(msts(y, seasonal.periods = periods), h) = forecast(mstl(x), method = \"ets\"); forecast(mstl(x), method = \"arima\"); thetaf(ts(seasadj(fit)), h) + seasonal part",
