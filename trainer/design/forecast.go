@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"reflect"
 	"slices"
 	"sort"
 	"strings"
@@ -593,43 +594,41 @@ func holdOut(s series.Series, h, m int) innerSeries {
 }
 
 // scoreInner runs the candidates (without quantiles) on every inner series and sets scores[c]
-// to their MASE. Candidates with the same zoo share one backtest per series
-// (selection.ForecastManyVariants), so the per-series and top-k designs cost about one run.
+// to their MASE (a failed forecast is scored as the naive forecast's, the last value
+// repeated). Every candidate is a selection.Variant over one shared zoo, the union of the
+// candidates' members (sharedGroups), so each member is backtested and refitted once per
+// inner series (selection.ForecastManyVariants) however many candidates weigh it: the fixed
+// combinations (ets-theta is ETS and Theta again) cost no fits beside the full zoo that
+// top-k and per-series select from, except on series too short for the full zoo's backtest
+// plan. A candidate's score is exactly what a run of its own configuration gives
+// (TestScoreInnerSharedEqualsOwnRuns).
 func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, workers int, scores [][]float64) error {
 	sub := make([]series.Series, len(inner))
 	for j, is := range inner {
 		sub[j] = is.train
 	}
-	byZoo := map[string][]int{}
-	var zoos []string
-	for ci, c := range cands {
-		k := signature(selection.Config{Zoo: c.Config.Zoo})
-		if _, ok := byZoo[k]; !ok {
-			zoos = append(zoos, k)
-		}
-		byZoo[k] = append(byZoo[k], ci)
+	for ci := range cands {
 		scores[ci] = make([]float64, len(inner))
 		for j := range scores[ci] {
 			scores[ci][j] = math.NaN()
 		}
 	}
-	for _, k := range zoos {
-		idx := byZoo[k]
-		cfg := cands[idx[0]].Config
+	for _, g := range sharedGroups(cands) {
+		cfg := g.cfg
 		cfg.Levels = nil
 		cfg.ErrorOrigins = 0 // the inner holdout scores means only
 		cfg.Horizon = len(inner[0].test)
-		variants := make([]selection.Variant, len(idx))
-		for v, ci := range idx {
+		variants := make([]selection.Variant, len(g.cands))
+		for v, ci := range g.cands {
 			c := cands[ci].Config
-			variants[v] = selection.Variant{CombineTop: c.CombineTop, CombineMethod: c.CombineMethod, CombineMargin: c.CombineMargin}
+			variants[v] = selection.Variant{Members: members(cands[ci]), CombineTop: c.CombineTop, CombineMethod: c.CombineMethod, CombineMargin: c.CombineMargin}
 		}
 		err := selection.ForecastManyVariants(ctx, sub, cfg, variants, workers, func(j int, rs []selection.Result, errs []error) {
 			is := inner[j]
 			if !is.scaled {
 				return
 			}
-			for v, ci := range idx {
+			for v, ci := range g.cands {
 				f := rs[v].Mean
 				if errs[v] != nil || len(f) != len(is.test) || !finite(f) {
 					last := is.train.Values[len(is.train.Values)-1]
@@ -646,6 +645,56 @@ func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, wor
 		}
 	}
 	return nil
+}
+
+// sharedGroup is candidates that one selection run can serve: cfg holds their common
+// settings and the union of their zoos (first appearance order).
+type sharedGroup struct {
+	cfg   selection.Config
+	cands []int
+}
+
+// sharedGroups puts the candidates into groups that share one run: the same settings other
+// than zoo and combination, and no member name standing for two different specs. Candidates
+// keeps every setting but those, and takes every member from the declared zoo, so its
+// candidates form one group.
+func sharedGroups(cands []Candidate) []sharedGroup {
+	settings := func(c selection.Config) selection.Config {
+		c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = nil, 0, "", 0
+		return c
+	}
+	var out []sharedGroup
+	for ci, c := range cands {
+		joined := false
+		for g := range out {
+			if !reflect.DeepEqual(settings(out[g].cfg), settings(c.Config)) {
+				continue
+			}
+			fits := true
+			var add []models.Spec
+			for _, sp := range c.Config.Zoo {
+				i := slices.IndexFunc(out[g].cfg.Zoo, func(u models.Spec) bool { return u.DisplayName() == sp.DisplayName() })
+				switch {
+				case i < 0:
+					add = append(add, sp)
+				case !reflect.DeepEqual(out[g].cfg.Zoo[i], sp):
+					fits = false
+				}
+			}
+			if fits {
+				out[g].cfg.Zoo = append(out[g].cfg.Zoo, add...)
+				out[g].cands = append(out[g].cands, ci)
+				joined = true
+				break
+			}
+		}
+		if !joined {
+			cfg := c.Config
+			cfg.Zoo = slices.Clone(c.Config.Zoo)
+			out = append(out, sharedGroup{cfg: cfg, cands: []int{ci}})
+		}
+	}
+	return out
 }
 
 // choose finds the basis of segment sg (itself or coarser, the first with MinSeries scored

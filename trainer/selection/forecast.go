@@ -22,21 +22,39 @@ var FallbackOrder = []string{models.FamilyETS, models.FamilyTheta, models.Family
 // constantOrder is the fallback order for a constant series, whose backtest is uninformative.
 var constantOrder = []string{models.FamilyNaive, models.FamilyMean}
 
-// candidate is one zoo member during selection.
-type candidate struct {
-	idx   int // position in the zoo (simplicity rank)
+// member is one zoo member's work on one series, shared by every view of the zoo that
+// forecastVariants finishes (see Variant.Members): the model, its backtest forecasts by plan
+// and its refit on the whole series. A member's backtest on a plan and its refit depend on the
+// member, the series and the plan only, never on which other members are weighed beside it,
+// so each is computed once and reused by every view that needs it.
+type member struct {
 	spec  models.Spec
 	model models.Model
 	m     int            // season length the member uses
 	in    *models.Inputs // dates and covariates for members that use them (nil: none)
-	fcs   [][]float64
-	a     backtest.Assessment
-	score float64 // ranking score (|Bias| for Bias); NaN if not backtested
-	// the refit on the whole series, kept for the other variants (forecastVariants)
+	// backtests done so far, one per distinct plan (forecasts)
+	backtests []memberBacktest
+	// the refit on the whole series, kept for the other variants and views
 	refitted bool
 	refitFit models.Fitted
 	refitFC  models.Forecast
 	refitErr error
+}
+
+// memberBacktest is a member's backtest on one plan.
+type memberBacktest struct {
+	plan backtest.Plan
+	fcs  [][]float64
+	err  error
+}
+
+// candidate is one zoo member during the selection of one view.
+type candidate struct {
+	*member
+	idx   int // position in the view's zoo (simplicity rank)
+	fcs   [][]float64
+	a     backtest.Assessment
+	score float64 // ranking score (|Bias| for Bias); NaN if not backtested
 }
 
 // Forecast cleans s with cfg.Clean, backtests every zoo member on a common rolling-origin plan,
@@ -68,50 +86,33 @@ func forecast(s series.Series, cfg Config) (Result, error) {
 	return rs[0], errs[0]
 }
 
-// forecastVariants runs forecast once up to the ranking of the backtested members, then
-// finishes it once per variant (cfg's own combination when variants is empty), with refits on
-// the whole series shared between variants. Result v equals forecast with cfg's combination
-// set to variants[v].
+// forecastVariants runs forecast once up to the ranking of the backtested members per view
+// (the zoo, or the subset a variant names in Variant.Members), then finishes it once per
+// variant (cfg's own combination when variants is empty). Cleaning is shared by every view,
+// and each member's backtest on a plan and its refit on the whole series by every view and
+// variant (member). Result v equals forecast with cfg's zoo set to variants[v]'s members
+// and cfg's combination to variants[v]'s.
 func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result, []error) {
 	if len(variants) == 0 {
 		variants = []Variant{{CombineTop: cfg.CombineTop, CombineMethod: cfg.CombineMethod, CombineMargin: cfg.CombineMargin}}
 	}
-	// same gives every variant the result of a path taken before the variants part.
-	same := func(r Result, err error) ([]Result, []error) {
-		rs, errs := make([]Result, len(variants)), make([]error, len(variants))
-		for i := range rs {
-			rs[i], errs[i] = r, err
-			rs[i].Scores = maps.Clone(r.Scores)
-		}
-		return rs, errs
-	}
+	rs, errs := make([]Result, len(variants)), make([]error, len(variants))
 	orig := s
 	s.Values = append([]float64(nil), s.Values...)
 	s.Notes = append([]string(nil), s.Notes...)
-	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric}
 	if err := series.Clean(&s, cfg.Clean); err != nil {
-		res.Notes = s.Notes
-		return same(res, err)
+		for v := range variants {
+			rs[v] = Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric, Notes: s.Notes}
+			errs[v] = err
+		}
+		return rs, errs
 	}
-	y := s.Values
-	n := len(y)
 	m := cfg.SeasonLength
 	if m == 0 {
 		m = s.Freq.SeasonLength()
 	}
-	notes := s.Notes
-	note := func(format string, a ...any) { notes = append(notes, fmt.Sprintf(format, a...)) }
-	// noted returns r with the notes taken so far (read after the call that produced r).
-	noted := func(r Result, err error) (Result, error) {
-		r.Notes = notes
-		return r, err
-	}
-
-	class, _, _ := Classify(y)
-	res.Class = class
 	in := models.InputsOf(s)
-
-	var cands []*candidate
+	members := make([]*member, len(cfg.Zoo))
 	for i, sp := range cfg.Zoo {
 		if sp.Features == nil {
 			sp.Features = cfg.Features
@@ -130,15 +131,87 @@ func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result
 		if sp.SeasonLength > 0 {
 			mm = sp.SeasonLength
 		}
-		cands = append(cands, &candidate{idx: i, spec: sp, model: mod, m: mm, in: &in, score: math.NaN()})
-		res.Scores[sp.DisplayName()] = math.NaN()
+		members[i] = &member{spec: sp, model: mod, m: mm, in: &in}
+	}
+	// Views in the order of their first variant; each is selected once for its variants.
+	var views [][]int
+	byView := map[string][]int{}
+	for v, vr := range variants {
+		zoo := viewOf(cfg, vr)
+		k := fmt.Sprint(zoo)
+		if _, ok := byView[k]; !ok {
+			views = append(views, zoo)
+		}
+		byView[k] = append(byView[k], v)
+	}
+	for _, zoo := range views {
+		idx := byView[fmt.Sprint(zoo)]
+		vs := make([]Variant, len(idx))
+		for j, v := range idx {
+			vs[j] = variants[v]
+		}
+		cands := make([]*candidate, len(zoo))
+		for j, i := range zoo {
+			cands[j] = &candidate{member: members[i], idx: j, score: math.NaN()}
+		}
+		vrs, verrs := forecastView(s, cfg, m, cands, vs)
+		for j, v := range idx {
+			rs[v], errs[v] = vrs[j], verrs[j]
+		}
+	}
+	return rs, errs
+}
+
+// viewOf returns the zoo positions of the members variant v selects among, in its order:
+// v.Members by name (validated by ForecastManyVariants), or the whole zoo.
+func viewOf(cfg Config, v Variant) []int {
+	if v.Members == nil {
+		out := make([]int, len(cfg.Zoo))
+		for i := range out {
+			out[i] = i
+		}
+		return out
+	}
+	out := make([]int, len(v.Members))
+	for j, name := range v.Members {
+		out[j] = slices.IndexFunc(cfg.Zoo, func(sp models.Spec) bool { return sp.DisplayName() == name })
+	}
+	return out
+}
+
+// forecastView is forecast on the cleaned series s for the zoo view cands (in its simplicity
+// order) up to the ranking of the backtested members, then finishes it once per variant.
+func forecastView(s series.Series, cfg Config, m int, cands []*candidate, variants []Variant) ([]Result, []error) {
+	// same gives every variant the result of a path taken before the variants part.
+	same := func(r Result, err error) ([]Result, []error) {
+		rs, errs := make([]Result, len(variants)), make([]error, len(variants))
+		for i := range rs {
+			rs[i], errs[i] = r, err
+			rs[i].Scores = maps.Clone(r.Scores)
+		}
+		return rs, errs
+	}
+	res := Result{Key: s.Key, Levels: cfg.Levels, Scores: map[string]float64{}, Expected: math.NaN(), Metric: cfg.Metric}
+	y := s.Values
+	n := len(y)
+	notes := slices.Clone(s.Notes)
+	note := func(format string, a ...any) { notes = append(notes, fmt.Sprintf(format, a...)) }
+	// noted returns r with the notes taken so far (read after the call that produced r).
+	noted := func(r Result, err error) (Result, error) {
+		r.Notes = notes
+		return r, err
+	}
+
+	class, _, _ := Classify(y)
+	res.Class = class
+	for _, c := range cands {
+		res.Scores[c.spec.DisplayName()] = math.NaN()
 	}
 
 	if _, isConst := constantValue(y); isConst {
 		note("constant series: backtest skipped")
 		return same(noted(finishFallback(&res, cands, y, cfg, constantOrder, note)))
 	}
-
 	if cfg.RouteIntermittent && (class == ClassIntermittent || class == ClassLumpy) {
 		var keep []*candidate
 		for _, c := range cands {
@@ -192,7 +265,7 @@ func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result
 
 	var ok []*candidate
 	for _, c := range bt {
-		fcs, err := safeForecasts(c, y, plan)
+		fcs, err := c.forecasts(y, plan)
 		if err != nil {
 			note("%s: backtest failed: %v", c.spec.DisplayName(), err)
 			continue
@@ -290,7 +363,7 @@ func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Co
 	p.Update = cfg.BacktestUpdate
 	fcs := make(map[*candidate][][]float64, len(members))
 	for _, c := range members {
-		if fcs[c], err = safeForecasts(c, y, p); err != nil {
+		if fcs[c], err = c.forecasts(y, p); err != nil {
 			return
 		}
 	}
@@ -350,9 +423,25 @@ func rank(cs []*candidate) []*candidate {
 	return out
 }
 
+// forecasts returns the member's backtest forecasts on plan p of y (the series the member was
+// built for), running the backtest on the first call for a plan and reusing it after: every
+// view that backtests the member on the same plan gets the same forecasts (or error). Plans
+// differ between views only on series too short for the most demanding member's origins
+// (NewPlan's floor), where a view without that member keeps more origins or a longer horizon.
+func (mb *member) forecasts(y []float64, p backtest.Plan) ([][]float64, error) {
+	for _, b := range mb.backtests {
+		if b.plan.Horizon == p.Horizon && b.plan.Update == p.Update && slices.Equal(b.plan.Origins, p.Origins) {
+			return b.fcs, b.err
+		}
+	}
+	fcs, err := safeForecasts(mb, y, p)
+	mb.backtests = append(mb.backtests, memberBacktest{plan: p, fcs: fcs, err: err})
+	return fcs, err
+}
+
 // safeForecasts runs the backtest of one member, turning a model panic into an error so one
 // faulty family cannot sink the series.
-func safeForecasts(c *candidate, y []float64, p backtest.Plan) (f [][]float64, err error) {
+func safeForecasts(c *member, y []float64, p backtest.Plan) (f [][]float64, err error) {
 	defer func() {
 		if r := recover(); r != nil {
 			err = fmt.Errorf("model panicked: %v", r)
@@ -524,7 +613,7 @@ func finishFallback(res *Result, zoo []*candidate, y []float64, cfg Config, orde
 		if known[fam] {
 			if mod, err := models.New(models.Spec{Family: fam}); err == nil {
 				mm := cfg.SeasonLength
-				tries = append(tries, &candidate{spec: models.Spec{Family: fam}, model: mod, m: fallbackSeason(mm, zoo)})
+				tries = append(tries, &candidate{member: &member{spec: models.Spec{Family: fam}, model: mod, m: fallbackSeason(mm, zoo)}})
 			}
 		}
 	}

@@ -4,8 +4,10 @@ import (
 	"context"
 	"fmt"
 	"runtime"
+	"slices"
 	"sync"
 
+	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/series"
 )
 
@@ -19,18 +21,27 @@ func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers i
 	return forecastPool(ctx, in, cfg, nil, workers, func(i int, rs []Result, errs []error) { emit(i, rs[0], errs[0]) })
 }
 
-// Variant is one combination setting of Config (CombineTop, CombineMethod, CombineMargin).
+// Variant is one design over Config's zoo: the members it selects among and its combination
+// setting (CombineTop, CombineMethod, CombineMargin).
 type Variant struct {
+	// Members names (models.Spec.DisplayName) the zoo members this variant selects among, in
+	// its own simplicity order (the earlier of two equal backtest scores wins, and a
+	// combination's members are named in this order); nil is the whole zoo in zoo order.
+	Members       []string
 	CombineTop    int
 	CombineMethod string
 	CombineMargin float64
 }
 
-// ForecastManyVariants is ForecastMany for several combination settings at once: each series
-// is cleaned, backtested and ranked once, then finished once per variant, with each member's
-// refit on the whole series shared between variants. rs[v] and errs[v] equal what
-// ForecastMany returns with cfg's combination settings replaced by variants[v]; cfg's own
-// combination settings are not used. It costs about one ForecastMany, not one per variant.
+// ForecastManyVariants is ForecastMany for several designs at once: each series is cleaned
+// once, backtested and ranked once per distinct member set, then finished once per variant,
+// and each member's backtest on a plan and its refit on the whole series are computed once
+// per series and shared by every variant that weighs the member. rs[v] and errs[v] equal what
+// ForecastMany returns with cfg's zoo replaced by variants[v]'s members and its combination
+// settings by variants[v]'s; cfg's own combination settings are not used. It costs about one
+// ForecastMany over the members the variants name, not one per variant: a variant whose
+// members are a subset of another's adds no fits, except on series too short for the larger
+// set's backtest plan (member.forecasts).
 func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, variants []Variant, workers int, emit func(i int, rs []Result, errs []error)) error {
 	if len(variants) == 0 {
 		return fmt.Errorf("selection: no variants")
@@ -38,6 +49,16 @@ func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, v
 	for j, v := range variants {
 		c := cfg
 		c.CombineTop, c.CombineMethod, c.CombineMargin = v.CombineTop, v.CombineMethod, v.CombineMargin
+		if v.Members != nil {
+			c.Zoo = nil
+			for _, name := range v.Members {
+				i := slices.IndexFunc(cfg.Zoo, func(sp models.Spec) bool { return sp.DisplayName() == name })
+				if i < 0 {
+					return fmt.Errorf("variants[%d]: member %q is not in the zoo", j, name)
+				}
+				c.Zoo = append(c.Zoo, cfg.Zoo[i])
+			}
+		}
 		if err := c.Validate(); err != nil {
 			return fmt.Errorf("variants[%d]: %w", j, err)
 		}

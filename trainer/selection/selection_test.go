@@ -285,6 +285,40 @@ func TestCombineMargin(t *testing.T) {
 	}
 }
 
+// variantsAgainstAlone runs ForecastManyVariants on in and, for each variant, ForecastMany
+// with cfg's zoo cut to the variant's members (in its order) and its combination setting,
+// reports every result or error that differs, and returns the ForecastMany results by variant
+// and series.
+func variantsAgainstAlone(t *testing.T, in []series.Series, cfg Config, variants []Variant) [][]Result {
+	t.Helper()
+	got := make([][]Result, len(in))
+	gotErr := make([][]error, len(in))
+	if err := ForecastManyVariants(context.Background(), in, cfg, variants, 2, func(i int, rs []Result, errs []error) {
+		got[i], gotErr[i] = rs, errs
+	}); err != nil {
+		t.Fatal(err)
+	}
+	alone := make([][]Result, len(variants))
+	for v, vr := range variants {
+		c := cfg
+		c.CombineTop, c.CombineMethod, c.CombineMargin = vr.CombineTop, vr.CombineMethod, vr.CombineMargin
+		if vr.Members != nil {
+			c.Zoo = specs(vr.Members...)
+		}
+		alone[v] = make([]Result, len(in))
+		if err := ForecastMany(context.Background(), in, c, 1, func(i int, r Result, err error) {
+			g := got[i][v]
+			if fmt.Sprint(err) != fmt.Sprint(gotErr[i][v]) || fmt.Sprintf("%+v", r) != fmt.Sprintf("%+v", g) {
+				t.Errorf("variant %d, %s:\n variants %+v (%v)\n alone    %+v (%v)", v, in[i].Key, g, gotErr[i][v], r, err)
+			}
+			alone[v][i] = r
+		}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return alone
+}
+
 // ForecastManyVariants finishes one backtest per series several ways; each variant's result
 // must be exactly ForecastMany's with that combination setting (refits shared, never mutated
 // across variants: NonNegative clipping and quantiles included). Invented monthly demand of
@@ -305,27 +339,12 @@ func TestForecastManyVariantsEqualsForecastMany(t *testing.T) {
 		Zoo: specs(models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyTheta, models.FamilyETS)}
 	variants := []Variant{{}, {CombineTop: 3, CombineMethod: CombineMean, CombineMargin: 1000},
 		{CombineTop: 3, CombineMethod: CombineMedian, CombineMargin: 1000}, {CombineTop: 2, CombineMargin: 0.05}}
-	got := make([][]Result, len(in))
-	gotErr := make([][]error, len(in))
-	if err := ForecastManyVariants(context.Background(), in, cfg, variants, 2, func(i int, rs []Result, errs []error) {
-		got[i], gotErr[i] = rs, errs
-	}); err != nil {
-		t.Fatal(err)
-	}
 	combined := 0
-	for v, vr := range variants {
-		c := cfg
-		c.CombineTop, c.CombineMethod, c.CombineMargin = vr.CombineTop, vr.CombineMethod, vr.CombineMargin
-		if err := ForecastMany(context.Background(), in, c, 1, func(i int, r Result, err error) {
-			g := got[i][v]
-			if fmt.Sprint(err) != fmt.Sprint(gotErr[i][v]) || fmt.Sprintf("%+v", r) != fmt.Sprintf("%+v", g) {
-				t.Errorf("variant %d, %s:\n variants %+v (%v)\n alone    %+v (%v)", v, in[i].Key, g, gotErr[i][v], r, err)
-			}
+	for _, rs := range variantsAgainstAlone(t, in, cfg, variants) {
+		for _, r := range rs {
 			if r.Family == FamilyCombination {
 				combined++
 			}
-		}); err != nil {
-			t.Fatal(err)
 		}
 	}
 	if combined == 0 {
@@ -333,5 +352,71 @@ func TestForecastManyVariantsEqualsForecastMany(t *testing.T) {
 	}
 	if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{CombineMethod: "mode"}}, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[0]") {
 		t.Errorf("bad variant: error %v, want one naming variants[0]", err)
+	}
+}
+
+// Variants that name member subsets share each member's backtest and refit across subsets;
+// each variant's result must still be exactly ForecastMany's with the zoo cut to its members,
+// in its own order (ties and combination names follow it: ETS and the line member both
+// backtest the exact line perfectly, and the variant that lists the line member first must
+// publish it where the zoo's order would publish ETS). The series are Fenwick Lane
+// Provisions' invented monthly items again, some so short that the whole zoo's backtest plan
+// (its floor is the most demanding member's MinLength) has fewer origins or a shorter horizon
+// than a subset's, so the per-plan backtests are exercised; an exact line, which the line
+// member backtests perfectly (score 0: no combination can be within a margin of it, see
+// Config.CombineMargin); a constant series and one too short for any backtest (fallbacks);
+// and members that always fail and always panic.
+func TestForecastManyVariantsMemberSubsets(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 5))
+	start := time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC)
+	var in []series.Series
+	for _, n := range []int{9, 14, 16, 20, 25, 27, 30, 36, 48} {
+		y := make([]float64, n)
+		for i := range y {
+			y[i] = 40 + 0.3*float64(i) + 6*math.Sin(2*math.Pi*float64(i)/12) + rng.NormFloat64()*2
+		}
+		in = append(in, series.Series{Key: fmt.Sprintf("item-%d", n), Start: start, Freq: series.Monthly, Values: y})
+	}
+	line := make([]float64, 30)
+	for i := range line {
+		line[i] = 10 + 2*float64(i)
+	}
+	in = append(in, series.Series{Key: "line", Start: start, Freq: series.Monthly, Values: line},
+		yearly("flat", 4, 4, 4, 4, 4, 4), yearly("short", 1, 2))
+	zoo := specs(models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyTheta, models.FamilyETS, famLine, famFail, famPanic)
+	cfg := Config{Horizon: 6, Levels: []float64{0.1, 0.9}, ErrorOrigins: 2, Zoo: zoo}
+	all := Variant{CombineTop: 3, CombineMethod: CombineMean, CombineMargin: 1000}
+	variants := []Variant{
+		{Members: []string{models.FamilyETS, models.FamilyTheta}, CombineTop: 2, CombineMethod: CombineMean, CombineMargin: 1000},
+		{Members: []string{models.FamilyTheta, famLine, models.FamilyETS}, CombineTop: 3, CombineMethod: CombineMean, CombineMargin: 1000},
+		{Members: []string{famUp, famDown}, CombineTop: 2, CombineMethod: CombineMedian},
+		{Members: []string{famFail, models.FamilyNaive, famPanic}},
+		{Members: []string{models.FamilyETS, models.FamilyTheta}},
+		all, {},
+	}
+	cfg.Zoo = append(cfg.Zoo, specs(famUp, famDown)...)
+	alone := variantsAgainstAlone(t, in, cfg, variants)
+	var shortened, perfect, combined int
+	for i := range in {
+		for v := range variants {
+			if alone[v][i].Family == FamilyCombination {
+				combined++
+			}
+		}
+		whole := alone[len(variants)-1][i]
+		if len(whole.StepErrors) > 0 && len(alone[0][i].StepErrors) > len(whole.StepErrors) {
+			shortened++ // the subset backtests a longer horizon than the whole zoo
+		}
+		if r := alone[1][i]; r.Expected == 0 && r.Chosen == famLine {
+			perfect++
+		}
+	}
+	if combined == 0 || shortened == 0 || perfect == 0 {
+		t.Errorf("combined %d, subset plans longer than the zoo's %d, perfect line kept %d: each must be > 0 for the test to cover them", combined, shortened, perfect)
+	}
+	for _, bad := range []Variant{{Members: []string{"nope"}}, {Members: []string{}}, {Members: []string{famUp, famUp}}} {
+		if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{}, bad}, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[1]") {
+			t.Errorf("members %q: error %v, want one naming variants[1]", bad.Members, err)
+		}
 	}
 }
