@@ -130,12 +130,7 @@ func checkMSTLMembers(t *testing.T, c mstlCase, families ...string) {
 		}
 		spec := models.Spec{Family: m.family, SeasonalPeriods: c.Periods}
 		if m.family == models.FamilyMSTLETS {
-			form := strings.TrimSuffix(strings.TrimPrefix(m.ref.Method, "STL +  ETS("), ")")
-			parts := strings.Split(form, ",")
-			if len(parts) != 3 {
-				t.Fatalf("%s: cannot read R's ETS form from %q", c.Name, m.ref.Method)
-			}
-			spec.ETS = &models.ETSOptions{Errors: parts[:1], Trends: parts[1:2], Seasons: parts[2:]}
+			spec.ETS = stlfETSOptions(t, c)
 		}
 		mod, err := models.New(spec)
 		if err != nil {
@@ -158,4 +153,22 @@ func checkMSTLMembers(t *testing.T, c mstlCase, families ...string) {
 		}
 		closeAll(t, c.Name+" "+fit.Name(), got, m.ref.Mean, tol)
 	}
+}
+
+// stlfETSForm reads the ETS form R's stlf chose on c from its method name ("STL +  ETS(A,Ad,N)").
+func stlfETSForm(t *testing.T, c mstlCase) models.ETSForm {
+	t.Helper()
+	form := strings.TrimSuffix(strings.TrimPrefix(c.ETS.Method, "STL +  ETS("), ")")
+	parts := strings.Split(form, ",")
+	if len(parts) != 3 {
+		t.Fatalf("%s: cannot read R's ETS form from %q", c.Name, c.ETS.Method)
+	}
+	return models.ETSForm{Error: parts[0], Trend: parts[1], Season: parts[2]}
+}
+
+// stlfETSOptions restricts the ETS search to the form R's stlf chose on c (stlfETSForm).
+func stlfETSOptions(t *testing.T, c mstlCase) *models.ETSOptions {
+	t.Helper()
+	f := stlfETSForm(t, c)
+	return &models.ETSOptions{Errors: []string{f.Error}, Trends: []string{f.Trend}, Seasons: []string{f.Season}}
 }

@@ -297,18 +297,12 @@ func TestWeeklyMSTLAgainstR(t *testing.T) {
 // agree with stlf's to 1e-3 relative; where ours is clearly higher they are only logged.
 func checkMSTLETSByLikelihood(t *testing.T, c mstlCase) {
 	t.Helper()
-	form := strings.TrimSuffix(strings.TrimPrefix(c.ETS.Method, "STL +  ETS("), ")")
-	parts := strings.Split(form, ",")
-	if len(parts) != 3 {
-		t.Fatalf("%s: cannot read R's ETS form from %q", c.Name, c.ETS.Method)
-	}
-	fit, err := models.FitETS(c.Adjusted, 1, models.ETSForm{Error: parts[0], Trend: parts[1], Season: parts[2]})
+	fit, err := models.FitETS(c.Adjusted, 1, stlfETSForm(t, c))
 	if err != nil {
 		t.Fatal(err)
 	}
 	want, got := etsRLogLik(c.ETS.LogLik, len(c.Adjusted)), fit.LogLik()
-	mod, err := models.New(models.Spec{Family: models.FamilyMSTLETS, SeasonalPeriods: c.Periods,
-		ETS: &models.ETSOptions{Errors: parts[:1], Trends: parts[1:2], Seasons: parts[2:]}})
+	mod, err := models.New(models.Spec{Family: models.FamilyMSTLETS, SeasonalPeriods: c.Periods, ETS: stlfETSOptions(t, c)})
 	if err != nil {
 		t.Fatal(err)
 	}
