@@ -17,6 +17,8 @@ import (
 	metav1 "k8s.io/apimachinery/pkg/apis/meta/v1"
 	"k8s.io/apimachinery/pkg/types"
 	"k8s.io/client-go/util/retry"
+
+	"almanac.dev/almanac/test/sandbox"
 )
 
 // podRun runs one pod's container as a host process and reports its status.
@@ -261,33 +263,32 @@ func (r *podRun) exec(ctx context.Context, pod *corev1.Pod, cr *containerRun, p 
 		return failed(err)
 	}
 	pgid := cmd.Process.Pid
-	exited := make(chan error, 1)
-	go func() { exited <- cmd.Wait() }()
+	exited := make(chan struct{}) // closed when the process has ended; its status is cmd.ProcessState
+	go func() { _ = cmd.Wait(); close(exited) }()
 	cr.started, cr.waiting, cr.waitingMessage = started, "", ""
 	if err := r.writeStatus(ctx, *cr, false, start); err != nil && ctx.Err() == nil {
 		r.a.log.Error(err, "write status", "pod", pod.Namespace+"/"+pod.Name)
 	}
 	r.a.log.V(1).Info("started", "pod", pod.Namespace+"/"+pod.Name, "pid", pgid, "argv", p.argv)
-	var werr error
 	select {
-	case werr = <-exited:
+	case <-exited:
 	case <-ctx.Done():
 		_ = syscall.Kill(-pgid, syscall.SIGKILL)
-		werr = <-exited
+		<-exited
 	case <-r.stopCh:
 		_ = syscall.Kill(-pgid, syscall.SIGTERM)
 		select {
-		case werr = <-exited:
+		case <-exited:
 		case <-time.After(r.grace):
 			_ = syscall.Kill(-pgid, syscall.SIGKILL)
-			werr = <-exited
+			<-exited
 		case <-ctx.Done():
 			_ = syscall.Kill(-pgid, syscall.SIGKILL)
-			werr = <-exited
+			<-exited
 		}
 	}
 	_ = syscall.Kill(-pgid, syscall.SIGKILL) // whatever the process left behind in its group
-	code := exitCode(cmd.ProcessState, werr)
+	code := int32(sandbox.ExitStatus(cmd.ProcessState))
 	t := &corev1.ContainerStateTerminated{ExitCode: code, Reason: "Completed", StartedAt: started, FinishedAt: metav1.Now(), ContainerID: fmt.Sprintf("localnode://%d", pgid)}
 	if code != 0 {
 		t.Reason = "Error"
@@ -295,18 +296,6 @@ func (r *podRun) exec(ctx context.Context, pod *corev1.Pod, cr *containerRun, p 
 	t.Message = terminationMessage(p.messageFile, p.logFile, c.TerminationMessagePolicy, code)
 	r.a.log.V(1).Info("exited", "pod", pod.Namespace+"/"+pod.Name, "pid", pgid, "exitCode", code)
 	return t
-}
-
-// exitCode returns the process's exit status, or 128 plus the signal number when a signal
-// ended it (the convention container runtimes report).
-func exitCode(st *os.ProcessState, err error) int32 {
-	if st == nil {
-		return 128
-	}
-	if ws, ok := st.Sys().(syscall.WaitStatus); ok && ws.Signaled() {
-		return 128 + int32(ws.Signal())
-	}
-	return int32(st.ExitCode())
 }
 
 // writeStatus writes the pod status for the container state, re-reading the pod on conflict.

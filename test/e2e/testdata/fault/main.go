@@ -26,6 +26,8 @@ import (
 	"path/filepath"
 	"syscall"
 	"time"
+
+	"almanac.dev/almanac/test/sandbox"
 )
 
 func main() {
@@ -63,10 +65,7 @@ func main() {
 				os.Exit(128)
 			}
 			waitFor(gate)
-			if ws, ok := cmd.ProcessState.Sys().(syscall.WaitStatus); ok && ws.Signaled() {
-				os.Exit(128 + int(ws.Signal()))
-			}
-			os.Exit(cmd.ProcessState.ExitCode())
+			os.Exit(sandbox.ExitStatus(cmd.ProcessState))
 		}
 	default:
 		fmt.Fprintf(os.Stderr, "fault: unknown mode %q\n", mode)
