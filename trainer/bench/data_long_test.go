@@ -2,6 +2,7 @@ package bench
 
 import (
 	"bytes"
+	"fmt"
 	"strings"
 	"testing"
 	"time"
@@ -131,5 +132,33 @@ func TestParseFrequency(t *testing.T) {
 		if M4Period(f) != m {
 			t.Errorf("M4Period(%s) = %d, want %d", f, M4Period(f), m)
 		}
+	}
+}
+
+// R's snaive on weekly and daily data runs at ts frequency 1 (M4Period), where it is the naive
+// forecast: its report says so; hourly (24), the M3 layout's yearly (1, a season of one) and
+// the long layout's yearly keep the plain name.
+func TestRReportNameAtFrequencyOne(t *testing.T) {
+	long := func(f series.Frequency) Entry { return Entry{Frequency: M4Period(f), Freq: f} }
+	m3Yearly := Entry{Frequency: 1}
+	for _, c := range []struct {
+		entries []Entry
+		want    string
+		seasons string
+	}{
+		{[]Entry{long(series.Weekly)}, "R snaive at m = 1 (naive)", "[Weekly]"},
+		{[]Entry{long(series.Daily), long(series.Daily), long(series.Weekly)}, "R snaive at m = 1 (naive)", "[Daily Weekly]"},
+		{[]Entry{long(series.Hourly)}, "R forecast::snaive", "[]"},
+		{[]Entry{long(series.Yearly), m3Yearly}, "R forecast::snaive", "[]"},
+	} {
+		if got := rReportName("snaive", c.entries); got != c.want {
+			t.Errorf("snaive on %+v: %q, want %q", c.entries, got, c.want)
+		}
+		if got := fmt.Sprint(seasonsAtOne(c.entries)); got != c.seasons {
+			t.Errorf("seasonsAtOne(%+v) = %s, want %s", c.entries, got, c.seasons)
+		}
+	}
+	if got := rReportName("ets", []Entry{long(series.Weekly)}); got != "R forecast::ets" {
+		t.Errorf("ets on weekly data: %q", got)
 	}
 }

@@ -10,6 +10,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"syscall"
@@ -148,6 +149,9 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		return nil, err
 	}
 	fmt.Fprintf(w, "reference-r: R start-up and input parsing %.0f ms CPU (subtracted)\n", float64(base.Microseconds())/1000)
+	if fs := seasonsAtOne(entries); len(fs) > 0 && slices.Contains(methods, "snaive") {
+		fmt.Fprintf(w, "reference-r: snaive runs at ts frequency 1 on the %s series (the M4 convention, M4Period), where it is the naive forecast\n", strings.Join(fs, " and "))
+	}
 	byID := map[string]int{}
 	for i, e := range entries {
 		byID[e.ID] = i
@@ -162,11 +166,7 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		if err != nil {
 			return nil, err
 		}
-		name := "R forecast::" + method
-		if method == "naive2" {
-			name = "R naive2 (M4 definition)"
-		}
-		r := newReport(name)
+		r := newReport(rReportName(method, entries))
 		for i, e := range entries {
 			if len(fcs[i]) != e.Horizon {
 				return nil, fmt.Errorf("R %s: series %s has %d steps, want %d", method, e.ID, len(fcs[i]), e.Horizon)
@@ -181,6 +181,31 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		reps = append(reps, r)
 	}
 	return reps, nil
+}
+
+// rReportName names R's report of method on entries. snaive runs at the entry's Frequency,
+// 1 for weekly and daily data (M4Period), where the seasonal naive forecast is the naive one,
+// and is named so when any entry is such (seasonsAtOne).
+func rReportName(method string, entries []Entry) string {
+	switch {
+	case method == "naive2":
+		return "R naive2 (M4 definition)"
+	case method == "snaive" && len(seasonsAtOne(entries)) > 0:
+		return "R snaive at m = 1 (naive)"
+	}
+	return "R forecast::" + method
+}
+
+// seasonsAtOne lists, in first appearance order, the frequencies of the entries that R gets
+// as a ts of frequency 1 although the engine's season is longer (Weekly, Daily: M4Period).
+func seasonsAtOne(entries []Entry) []string {
+	var out []string
+	for _, e := range entries {
+		if e.Frequency == 1 && e.Freq != "" && e.Freq.SeasonLength() > 1 && !slices.Contains(out, string(e.Freq)) {
+			out = append(out, string(e.Freq))
+		}
+	}
+	return out
 }
 
 // readRForecasts reads series,step,value lines into one path per entry.
