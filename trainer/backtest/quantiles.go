@@ -27,13 +27,14 @@ type QuantileRecord struct {
 //	BiasSum       += −u_ik                       ((forecast − actual) / scale)
 //
 // with s the in-sample mean absolute seasonal-naive error (NaiveScale, power 1; Hyndman &
-// Koehler 2006's MASE scale) at lag ScaleLag(len(y), m) for s_n and every s_i, so the record is in the units pipeline.Calibrate measures new
-// actuals in. Taking the band in scale units carries its width from the end of the history
-// to each origin in proportion to the series' typical naive step there (our own choice; the
-// published model is not refitted at each origin for its quantiles, which would cost another
-// backtest of the chosen members). Quantiles built from the same backtest errors
-// (selection's empirical quantiles) score close to their nominal levels here by construction;
-// model quantiles (ETS, ARIMA) get a real out-of-sample check.
+// Koehler 2006's MASE scale) at lag ScaleLag(len(y), m) for s_n and every s_i, so the record
+// is in the units pipeline.Calibrate measures new actuals in. Taking the band in scale units
+// carries its width from the end of the history to each origin in proportion to the series'
+// typical naive step there (our own choice; the published model is not refitted at each
+// origin for its quantiles, which would cost another backtest of the chosen members).
+// Quantiles built from the same backtest errors (selection's empirical quantiles) score close
+// to their nominal levels here by construction; model quantiles (ETS, ARIMA) get a real
+// out-of-sample check.
 //
 // ok is false when no point has a positive finite scale at its origin or the whole series'
 // scale is not positive and finite, or q does not have one row per level of len(mean) steps.

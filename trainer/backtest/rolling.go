@@ -128,10 +128,10 @@ type Assessment struct {
 
 // Assess scores the forecasts of one plan against y. At origin i the in-sample history for
 // the scaled metrics is y[:Origins[i]], differenced at lag ScaleLag(len(y), m) for every
-// origin. Steps[k] pools the step-(k+1) points of every origin
-// under the metric's own aggregation: a mean of |e|/scale_i for MASE, sqrt of the mean of
-// e²/scale²_i for RMSSE, 100 Σ|e|/Σ|y| for WAPE, and the metric's formula for the others.
-// Assess panics when forecasts does not match the plan.
+// origin. Steps[k] pools the step-(k+1) points of every origin under the metric's own
+// aggregation: a mean of |e|/scale_i for MASE, sqrt of the mean of e²/scale²_i for RMSSE,
+// 100 Σ|e|/Σ|y| for WAPE, and the metric's formula for the others. Assess panics when
+// forecasts does not match the plan.
 func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) Assessment {
 	if len(forecasts) != len(p.Origins) {
 		panic("backtest: Assess needs one forecast per origin")
