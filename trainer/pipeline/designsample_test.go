@@ -10,9 +10,8 @@ import (
 	"testing"
 	"time"
 
-	"almanac.dev/almanac/trainer/exitcode"
-
 	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/exitcode"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
