@@ -209,7 +209,10 @@ const (
 //     segment); the budget is CostLimit times the summed cost of the first candidate's
 //     members, and members are taken out of the zoo until the rest fit it (withinBudget).
 //     The candidates are then built from that zoo, so every candidate costs at most the
-//     budget (a candidate's cost is the sum of its members').
+//     budget (a candidate's cost is the sum of its members'). The candidates are then
+//     scored together: each member is backtested and refitted once per inner series for
+//     every candidate that weighs it, reusing the pilot's fits on the pilot series
+//     (scoreInner); the scores are those of each candidate run on its own.
 //  5. Per segment, o.Rule picks among the candidates kept, on the segment's inner series or,
 //     below MinSeries, on those of the next coarser segment (band pooled, then class);
 //     without MinSeries anywhere, the first (simplest) candidate is used.
@@ -448,6 +451,7 @@ func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outc
 				is.seg, is.unit = sg, out.InnerSeries
 				if n < o.Pilot && org == 0 {
 					pilot = append(pilot, len(inner))
+					is.fits = new(selection.Fits)
 				}
 				inner = append(inner, is)
 			}
@@ -545,6 +549,10 @@ type innerSeries struct {
 	unit   int  // the sampled series it was cut from
 	scaled bool // the MASE scale of train is defined (non-zero)
 	m      int  // the lag of that scale (backtest.ScaleLag of train's length)
+	// fits keeps a pilot series' member fits from the pilot (pilotCost) for the inner
+	// scoring (scoreInner), which would otherwise fit every kept member on it again; nil
+	// for the other inner series, whose members are fitted once, in the scoring.
+	fits *selection.Fits
 }
 
 // collapse averages each sampled series' inner MASE over its origins (those with a defined
@@ -600,12 +608,14 @@ func holdOut(s series.Series, h, m int) innerSeries {
 // inner series (selection.ForecastManyVariants) however many candidates weigh it: the fixed
 // combinations (ets-theta is ETS and Theta again) cost no fits beside the full zoo that
 // top-k and per-series select from, except on series too short for the full zoo's backtest
-// plan. A candidate's score is exactly what a run of its own configuration gives
+// plan. On the pilot series the members' fits from the pilot are reused (innerSeries.fits):
+// their refits always, their backtests where the member's own plan is the full zoo's. A candidate's score is exactly what a run of its own configuration gives
 // (TestScoreInnerSharedEqualsOwnRuns).
 func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, workers int, scores [][]float64) error {
 	sub := make([]series.Series, len(inner))
+	fits := make([]*selection.Fits, len(inner))
 	for j, is := range inner {
-		sub[j] = is.train
+		sub[j], fits[j] = is.train, is.fits
 	}
 	for ci := range cands {
 		scores[ci] = make([]float64, len(inner))
@@ -623,7 +633,7 @@ func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, wor
 			c := cands[ci].Config
 			variants[v] = selection.Variant{Members: members(cands[ci]), CombineTop: c.CombineTop, CombineMethod: c.CombineMethod, CombineMargin: c.CombineMargin}
 		}
-		err := selection.ForecastManyVariants(ctx, sub, cfg, variants, workers, func(j int, rs []selection.Result, errs []error) {
+		err := selection.ForecastManyVariants(ctx, sub, cfg, variants, fits, workers, func(j int, rs []selection.Result, errs []error) {
 			is := inner[j]
 			if !is.scaled {
 				return
@@ -905,7 +915,8 @@ const minBudgetMillis = 1.0
 
 // pilotCost runs c on the pilot inner series and returns its CPU milliseconds per series;
 // the run stops early once it has used limit milliseconds per pilot series (the result is
-// then a lower bound above limit).
+// then a lower bound above limit). The fits are kept in the pilot series' innerSeries.fits,
+// for scoreInner.
 func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selection.Config, o Options, limit float64) (float64, error) {
 	if len(pilot) == 0 {
 		return math.NaN(), nil
@@ -914,8 +925,9 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 	c.ErrorOrigins = 0
 	c.Horizon = len(inner[pilot[0]].test)
 	sub := make([]series.Series, len(pilot))
+	fits := make([]*selection.Fits, len(pilot))
 	for j, i := range pilot {
-		sub[j] = inner[i].train
+		sub[j], fits[j] = inner[i].train, inner[i].fits
 	}
 	rctx, cancel := context.WithCancel(ctx)
 	defer cancel()
@@ -939,7 +951,7 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 			}
 		}()
 	}
-	err := selection.ForecastMany(rctx, sub, c, o.Workers, func(int, selection.Result, error) {})
+	err := selection.ForecastManyVariants(rctx, sub, c, []selection.Variant{{}}, fits, o.Workers, func(int, []selection.Result, []error) {})
 	close(done)
 	if err != nil && ctx.Err() != nil {
 		return math.NaN(), ctx.Err()

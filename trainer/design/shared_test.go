@@ -79,7 +79,8 @@ func ownScores(t *testing.T, inner []innerSeries, cands []Candidate) ([][]float6
 // so short that the full zoo's backtest plan (its floor is its most demanding member's
 // MinLength) is shorter than ets-theta's; exact lines, which Drift backtests perfectly (score
 // 0, so the top-k candidates keep the single best member: alwaysCombine); a member that fails
-// on odd lengths; and a combination that lists its families against the zoo's order.
+// on odd lengths; and a combination that lists its families against the zoo's order. A third
+// of the series carry the member fits of the cost pilot into the scoring (innerSeries.fits).
 func TestScoreInnerSharedEqualsOwnRuns(t *testing.T) {
 	rng := rand.New(rand.NewPCG(16, 4))
 	const h, m = 6, 12
@@ -107,6 +108,22 @@ func TestScoreInnerSharedEqualsOwnRuns(t *testing.T) {
 	}
 	if g := sharedGroups(cands); len(g) != 1 || len(g[0].cfg.Zoo) != len(base.Zoo) {
 		t.Fatalf("groups %+v: want one over the declared zoo", g)
+	}
+	// The cost pilot runs every member alone on a third of the series first, as withinBudget
+	// does, and keeps their fits there for the scoring.
+	var pilot []int
+	for j := range inner {
+		if j%3 == 0 {
+			inner[j].fits = new(selection.Fits)
+			pilot = append(pilot, j)
+		}
+	}
+	for i := range base.Zoo {
+		c := base
+		c.Zoo = base.Zoo[i : i+1]
+		if _, err := pilotCost(context.Background(), inner, pilot, c, Options{CPU: fakeCPU, Workers: 1}, math.Inf(1)); err != nil {
+			t.Fatal(err)
+		}
 	}
 	shared := make([][]float64, len(cands))
 	if err := scoreInner(context.Background(), inner, cands, 2, shared); err != nil {

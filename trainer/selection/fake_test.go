@@ -2,6 +2,7 @@ package selection
 
 import (
 	"errors"
+	"sync/atomic"
 
 	"almanac.dev/almanac/trainer/models"
 )
@@ -19,6 +20,7 @@ const (
 
 func init() {
 	reg := func(fam string, min int, fc func(y []float64, h int) ([]float64, error)) {
+		fitCalls[fam] = new(atomic.Int64)
 		models.Register(fam, func(s models.Spec) (models.Model, error) { return fake{fam, min, fc}, nil })
 	}
 	shift := func(d float64) func([]float64, int) ([]float64, error) {
@@ -53,6 +55,9 @@ func init() {
 	reg(famLong, 1000, shift(0))
 }
 
+// fitCalls counts the fits of each test family (Fit calls, by family).
+var fitCalls = map[string]*atomic.Int64{}
+
 type fake struct {
 	fam string
 	min int
@@ -62,6 +67,7 @@ type fake struct {
 func (f fake) Family() string    { return f.fam }
 func (f fake) MinLength(int) int { return f.min }
 func (f fake) Fit(y []float64, m int) (models.Fitted, error) {
+	fitCalls[f.fam].Add(1)
 	if len(y) < f.min {
 		return nil, models.ErrTooShort
 	}

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"maps"
 	"math"
+	"reflect"
 	"slices"
 	"sort"
 	"strings"
@@ -82,7 +83,7 @@ func Forecast(s series.Series, cfg Config) (Result, error) {
 }
 
 func forecast(s series.Series, cfg Config) (Result, error) {
-	rs, errs := forecastVariants(s, cfg, nil)
+	rs, errs := forecastVariants(s, cfg, nil, nil)
 	return rs[0], errs[0]
 }
 
@@ -92,7 +93,7 @@ func forecast(s series.Series, cfg Config) (Result, error) {
 // and each member's backtest on a plan and its refit on the whole series by every view and
 // variant (member). Result v equals forecast with cfg's zoo set to variants[v]'s members
 // and cfg's combination to variants[v]'s.
-func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result, []error) {
+func forecastVariants(s series.Series, cfg Config, variants []Variant, fits *Fits) ([]Result, []error) {
 	if len(variants) == 0 {
 		variants = []Variant{{CombineTop: cfg.CombineTop, CombineMethod: cfg.CombineMethod, CombineMargin: cfg.CombineMargin}}
 	}
@@ -112,10 +113,16 @@ func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result
 		m = s.Freq.SeasonLength()
 	}
 	in := models.InputsOf(s)
+	kept := fits.open(s, cfg)
+	defer fits.close()
 	members := make([]*member, len(cfg.Zoo))
 	for i, sp := range cfg.Zoo {
 		if sp.Features == nil {
 			sp.Features = cfg.Features
+		}
+		if mb, ok := kept[sp.DisplayName()]; ok && reflect.DeepEqual(mb.spec, sp) {
+			members[i] = mb
+			continue
 		}
 		mod, err := models.New(sp)
 		if err != nil { // Validate built it once; a constructor that now fails is a bug
@@ -132,6 +139,9 @@ func forecastVariants(s series.Series, cfg Config, variants []Variant) ([]Result
 			mm = sp.SeasonLength
 		}
 		members[i] = &member{spec: sp, model: mod, m: mm, in: &in}
+		if kept != nil && !acrossShard(sp) {
+			kept[sp.DisplayName()] = members[i]
+		}
 	}
 	// Views in the order of their first variant; each is selected once for its variants.
 	var views [][]int

@@ -3,6 +3,7 @@ package selection
 import (
 	"context"
 	"fmt"
+	"reflect"
 	"runtime"
 	"slices"
 	"sync"
@@ -18,7 +19,7 @@ import (
 // its own error and the others carry on. ForecastMany returns an invalid cfg's error before
 // starting, or ctx.Err() when the context ends first (series not yet emitted are dropped).
 func ForecastMany(ctx context.Context, in []series.Series, cfg Config, workers int, emit func(i int, r Result, err error)) error {
-	return forecastPool(ctx, in, cfg, nil, workers, func(i int, rs []Result, errs []error) { emit(i, rs[0], errs[0]) })
+	return forecastPool(ctx, in, cfg, nil, nil, workers, func(i int, rs []Result, errs []error) { emit(i, rs[0], errs[0]) })
 }
 
 // Variant is one design over Config's zoo: the members it selects among and its combination
@@ -42,7 +43,28 @@ type Variant struct {
 // ForecastMany over the members the variants name, not one per variant: a variant whose
 // members are a subset of another's adds no fits, except on series too short for the larger
 // set's backtest plan (member.forecasts).
-func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, variants []Variant, workers int, emit func(i int, rs []Result, errs []error)) error {
+//
+// fits, when not nil, has one entry per series: fits[i] (nil: none) keeps in[i]'s member
+// fits after the call and offers those an earlier call kept there, the backtests by plan and
+// the refit of every member with the same spec, when the cleaned series (key, start,
+// frequency, values, covariates) and cfg's settings other than zoo and combination are that
+// call's; otherwise fits[i] is emptied and filled anew. A member's fits depend on the member,
+// the series, the plan and those settings only, so the results are the same with or without
+// fits. Members fitted across the call's series (regression.acrossShard) are never kept. One
+// Fits must not serve two series of one call, and a series' data must not change between the
+// calls that share its Fits.
+func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, variants []Variant, fits []*Fits, workers int, emit func(i int, rs []Result, errs []error)) error {
+	if fits != nil && len(fits) != len(in) {
+		return fmt.Errorf("selection: %d fits for %d series", len(fits), len(in))
+	}
+	if err := validVariants(cfg, variants); err != nil {
+		return err
+	}
+	return forecastPool(ctx, in, cfg, variants, fits, workers, emit)
+}
+
+// validVariants reports the first variant that does not make a valid Config with cfg, by index.
+func validVariants(cfg Config, variants []Variant) error {
 	if len(variants) == 0 {
 		return fmt.Errorf("selection: no variants")
 	}
@@ -63,11 +85,43 @@ func ForecastManyVariants(ctx context.Context, in []series.Series, cfg Config, v
 			return fmt.Errorf("variants[%d]: %w", j, err)
 		}
 	}
-	return forecastPool(ctx, in, cfg, variants, workers, emit)
+	return nil
+}
+
+// Fits is one series' member fits kept between calls of ForecastManyVariants (the zero value
+// is empty and ready to use).
+type Fits struct {
+	mu       sync.Mutex
+	series   series.Series // the cleaned series the fits are of
+	settings Config        // the call's settings other than zoo and combination
+	members  map[string]*member
+}
+
+// open locks f and returns its members by name for the cleaned series s under cfg, emptied
+// first when f held another series' or other settings' fits; nil (and no lock) for a nil f.
+func (f *Fits) open(s series.Series, cfg Config) map[string]*member {
+	if f == nil {
+		return nil
+	}
+	f.mu.Lock()
+	set := cfg
+	set.Zoo, set.CombineTop, set.CombineMethod, set.CombineMargin, set.shard = nil, 0, "", 0, nil
+	if f.members == nil || !reflect.DeepEqual(f.series, s) || !reflect.DeepEqual(f.settings, set) {
+		f.series, f.settings, f.members = s, set, map[string]*member{}
+	}
+	return f.members
+}
+
+// close unlocks f (after open).
+func (f *Fits) close() {
+	if f != nil {
+		f.mu.Unlock()
+	}
 }
 
 // forecastPool runs forecastVariants on every series with a pool of workers and emits in input order.
-func forecastPool(ctx context.Context, in []series.Series, cfg Config, variants []Variant, workers int, emit func(i int, rs []Result, errs []error)) error {
+// fits (nil, or one per series) keeps member fits between calls (ForecastManyVariants).
+func forecastPool(ctx context.Context, in []series.Series, cfg Config, variants []Variant, fits []*Fits, workers int, emit func(i int, rs []Result, errs []error)) error {
 	if err := cfg.Validate(); err != nil {
 		return err
 	}
@@ -94,7 +148,11 @@ func forecastPool(ctx context.Context, in []series.Series, cfg Config, variants 
 		go func() {
 			defer wg.Done()
 			for i := range jobs {
-				rs, errs := protect(in[i], cfg, variants)
+				var f *Fits
+				if fits != nil {
+					f = fits[i]
+				}
+				rs, errs := protect(in[i], cfg, variants, f)
 				select {
 				case done <- outcome{i, rs, errs}:
 				case <-stop:
@@ -143,7 +201,7 @@ func forecastPool(ctx context.Context, in []series.Series, cfg Config, variants 
 }
 
 // protect runs forecastVariants and turns a panic into that series' error for every variant.
-func protect(s series.Series, cfg Config, variants []Variant) (rs []Result, errs []error) {
+func protect(s series.Series, cfg Config, variants []Variant, fits *Fits) (rs []Result, errs []error) {
 	defer func() {
 		if p := recover(); p != nil {
 			n := max(len(variants), 1)
@@ -154,5 +212,5 @@ func protect(s series.Series, cfg Config, variants []Variant) (rs []Result, errs
 			}
 		}
 	}()
-	return forecastVariants(s, cfg, variants)
+	return forecastVariants(s, cfg, variants, fits)
 }

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -293,7 +294,7 @@ func variantsAgainstAlone(t *testing.T, in []series.Series, cfg Config, variants
 	t.Helper()
 	got := make([][]Result, len(in))
 	gotErr := make([][]error, len(in))
-	if err := ForecastManyVariants(context.Background(), in, cfg, variants, 2, func(i int, rs []Result, errs []error) {
+	if err := ForecastManyVariants(context.Background(), in, cfg, variants, nil, 2, func(i int, rs []Result, errs []error) {
 		got[i], gotErr[i] = rs, errs
 	}); err != nil {
 		t.Fatal(err)
@@ -350,7 +351,7 @@ func TestForecastManyVariantsEqualsForecastMany(t *testing.T) {
 	if combined == 0 {
 		t.Error("no variant published a combination: the test does not exercise the shared refits")
 	}
-	if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{CombineMethod: "mode"}}, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[0]") {
+	if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{CombineMethod: "mode"}}, nil, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[0]") {
 		t.Errorf("bad variant: error %v, want one naming variants[0]", err)
 	}
 }
@@ -415,8 +416,67 @@ func TestForecastManyVariantsMemberSubsets(t *testing.T) {
 		t.Errorf("combined %d, subset plans longer than the zoo's %d, perfect line kept %d: each must be > 0 for the test to cover them", combined, shortened, perfect)
 	}
 	for _, bad := range []Variant{{Members: []string{"nope"}}, {Members: []string{}}, {Members: []string{famUp, famUp}}} {
-		if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{}, bad}, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[1]") {
+		if err := ForecastManyVariants(context.Background(), in, cfg, []Variant{{}, bad}, nil, 1, func(int, []Result, []error) {}); err == nil || !strings.Contains(err.Error(), "variants[1]") {
 			t.Errorf("members %q: error %v, want one naming variants[1]", bad.Members, err)
 		}
+	}
+}
+
+// Fits kept by one call serve the next: members run alone first (as the design's cost pilot
+// runs them), then every variant over the whole zoo on the same series must give exactly the
+// results of runs without kept fits, and must not fit the kept members again where the plans
+// agree (the line and last-value members here, both MinLength 2 or less, on series long
+// enough for the zoo's plan). A Fits that held another series or other settings starts anew.
+func TestFitsKeptBetweenCalls(t *testing.T) {
+	var in []series.Series
+	for k := 0; k < 5; k++ {
+		y := make([]float64, 30+k)
+		for i := range y {
+			y[i] = 20 + float64(k) + 0.5*float64(i) + float64((i*7+k)%5)
+		}
+		in = append(in, series.Series{Key: fmt.Sprintf("item-%d", k), Start: time.Date(2020, 1, 1, 0, 0, 0, 0, time.UTC), Freq: series.Monthly, Values: y})
+	}
+	cfg := Config{Horizon: 4, Zoo: specs(famLast, famLine, models.FamilyTheta, famFail)}
+	variants := []Variant{{Members: []string{models.FamilyTheta, famLine}, CombineTop: 2, CombineMargin: 1000}, {CombineTop: 3, CombineMethod: CombineMedian, CombineMargin: 1000}, {}}
+	fits := make([]*Fits, len(in))
+	for i := range fits {
+		fits[i] = new(Fits)
+	}
+	ctx := context.Background()
+	for _, alone := range []string{famLast, famLine} {
+		if err := ForecastManyVariants(ctx, in, cfg, []Variant{{Members: []string{alone}}}, fits, 1, func(int, []Result, []error) {}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want := variantsAgainstAlone(t, in, cfg, variants)
+	last, line := fitCalls[famLast].Load(), fitCalls[famLine].Load()
+	check := func(what string, in []series.Series, cfg Config, want [][]Result) {
+		t.Helper()
+		if err := ForecastManyVariants(ctx, in, cfg, variants, fits, 2, func(i int, rs []Result, errs []error) {
+			for v := range variants {
+				if errs[v] != nil || fmt.Sprintf("%+v", rs[v]) != fmt.Sprintf("%+v", want[v][i]) {
+					t.Errorf("%s, variant %d, %s:\n kept %+v (%v)\n want %+v", what, v, in[i].Key, rs[v], errs[v], want[v][i])
+				}
+			}
+		}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	check("kept fits", in, cfg, want)
+	if d1, d2 := fitCalls[famLast].Load()-last, fitCalls[famLine].Load()-line; d1 != 0 || d2 != 0 {
+		t.Errorf("the kept members were fitted again: %d and %d fits", d1, d2)
+	}
+	// Other values under the same keys, then another horizon: the kept fits must not be used.
+	changed := slices.Clone(in)
+	for i := range changed {
+		changed[i].Values = slices.Clone(in[i].Values)
+		changed[i].Values[len(changed[i].Values)-1] += 10
+	}
+	check("changed values", changed, cfg, variantsAgainstAlone(t, changed, cfg, variants))
+	longer := cfg
+	longer.Horizon = 6
+	check("changed horizon", changed, longer, variantsAgainstAlone(t, changed, longer, variants))
+	if err := ForecastManyVariants(ctx, in, cfg, variants, fits[:2], 1, func(int, []Result, []error) {}); err == nil {
+		t.Error("fits for 2 of 5 series: no error")
 	}
 }
