@@ -669,21 +669,17 @@ type sharedGroup struct {
 // keeps every setting but those, and takes every member from the declared zoo, so its
 // candidates form one group.
 func sharedGroups(cands []Candidate) []sharedGroup {
-	settings := func(c selection.Config) selection.Config {
-		c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = nil, 0, "", 0
-		return c
-	}
 	var out []sharedGroup
 	for ci, c := range cands {
 		joined := false
 		for g := range out {
-			if !reflect.DeepEqual(settings(out[g].cfg), settings(c.Config)) {
+			if !reflect.DeepEqual(out[g].cfg.Settings(), c.Config.Settings()) {
 				continue
 			}
 			fits := true
 			var add []models.Spec
 			for _, sp := range c.Config.Zoo {
-				i := slices.IndexFunc(out[g].cfg.Zoo, func(u models.Spec) bool { return u.DisplayName() == sp.DisplayName() })
+				i := selection.MemberIndex(out[g].cfg.Zoo, sp.DisplayName())
 				switch {
 				case i < 0:
 					add = append(add, sp)

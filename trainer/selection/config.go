@@ -99,6 +99,14 @@ func (c Config) withDefaults() Config {
 	return c
 }
 
+// Settings returns c without its zoo and combination (Zoo, CombineTop, CombineMethod,
+// CombineMargin): the settings the designs of one run share, and on which, besides the
+// member and the series, a member's backtests and refit depend (Fits).
+func (c Config) Settings() Config {
+	c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin, c.shard = nil, 0, "", 0, nil
+	return c
+}
+
 // Validate reports the first invalid field, by name.
 func (c Config) Validate() error {
 	c = c.withDefaults()

@@ -184,7 +184,7 @@ func viewOf(cfg Config, v Variant) []int {
 	}
 	out := make([]int, len(v.Members))
 	for j, name := range v.Members {
-		out[j] = slices.IndexFunc(cfg.Zoo, func(sp models.Spec) bool { return sp.DisplayName() == name })
+		out[j] = MemberIndex(cfg.Zoo, name)
 	}
 	return out
 }

@@ -5,10 +5,8 @@ import (
 	"fmt"
 	"reflect"
 	"runtime"
-	"slices"
 	"sync"
 
-	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/series"
 )
 
@@ -74,7 +72,7 @@ func validVariants(cfg Config, variants []Variant) error {
 		if v.Members != nil {
 			c.Zoo = nil
 			for _, name := range v.Members {
-				i := slices.IndexFunc(cfg.Zoo, func(sp models.Spec) bool { return sp.DisplayName() == name })
+				i := MemberIndex(cfg.Zoo, name)
 				if i < 0 {
 					return fmt.Errorf("variants[%d]: member %q is not in the zoo", j, name)
 				}
@@ -104,8 +102,7 @@ func (f *Fits) open(s series.Series, cfg Config) map[string]*member {
 		return nil
 	}
 	f.mu.Lock()
-	set := cfg
-	set.Zoo, set.CombineTop, set.CombineMethod, set.CombineMargin, set.shard = nil, 0, "", 0, nil
+	set := cfg.Settings()
 	if f.members == nil || !reflect.DeepEqual(f.series, s) || !reflect.DeepEqual(f.settings, set) {
 		f.series, f.settings, f.members = s, set, map[string]*member{}
 	}

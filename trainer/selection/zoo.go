@@ -62,3 +62,9 @@ func Zoo(families ...string) ([]models.Spec, error) {
 	}
 	return out, nil
 }
+
+// MemberIndex returns the position in zoo of the member named name (models.Spec.DisplayName,
+// unique in a valid zoo), or -1 when there is none.
+func MemberIndex(zoo []models.Spec, name string) int {
+	return slices.IndexFunc(zoo, func(sp models.Spec) bool { return sp.DisplayName() == name })
+}
