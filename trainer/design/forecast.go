@@ -609,7 +609,8 @@ func holdOut(s series.Series, h, m int) innerSeries {
 // combinations (ets-theta is ETS and Theta again) cost no fits beside the full zoo that
 // top-k and per-series select from, except on series too short for the full zoo's backtest
 // plan. On the pilot series the members' fits from the pilot are reused (innerSeries.fits):
-// their refits always, their backtests where the member's own plan is the full zoo's. A candidate's score is exactly what a run of its own configuration gives
+// their refits always, their backtests where the member's own plan is the full zoo's. A
+// candidate's score is exactly what a run of its own configuration gives
 // (TestScoreInnerSharedEqualsOwnRuns).
 func scoreInner(ctx context.Context, inner []innerSeries, cands []Candidate, workers int, scores [][]float64) error {
 	sub := make([]series.Series, len(inner))
