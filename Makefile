@@ -41,7 +41,7 @@ images: build debian-tools ## Build both images without a daemon (buildah) into 
 DEBIAN_TOOLS ?= buildah:buildah promtool:prometheus
 
 .PHONY: debian-tools
-debian-tools: ## Install with apt-get what images and test-monitoring need and this machine lacks.
+debian-tools: ## Install with apt-get what images and the monitoring rule tests (promtool) need and this machine lacks.
 	@missing=""; \
 	for p in $(DEBIAN_TOOLS); do command -v "$${p%%:*}" >/dev/null || missing="$$missing $${p#*:}"; done; \
 	[ -e /etc/ssl/certs/ca-certificates.crt ] || missing="$$missing ca-certificates"; \
