@@ -31,14 +31,17 @@ package offline
 
 import (
 	"bytes"
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
 	"io/fs"
 	"os"
+	"strconv"
 	"strings"
 	"sync"
 
+	yamlv3 "go.yaml.in/yaml/v3"
 	apiextensionsinternal "k8s.io/apiextensions-apiserver/pkg/apis/apiextensions"
 	apiextensionsv1 "k8s.io/apiextensions-apiserver/pkg/apis/apiextensions/v1"
 	structuralschema "k8s.io/apiextensions-apiserver/pkg/apiserver/schema"
@@ -97,24 +100,36 @@ type DocumentError struct {
 	Kind, Name string
 	// Fields lists every refused field, each with its path.
 	Fields field.ErrorList
+	// FieldLines[i] is the file line of Fields[i]: the line of the deepest node of its path
+	// that the document has (the field itself, or the object it is missing from); 0 where
+	// unknown, which the message shows as Line.
+	FieldLines []int
 	// Err is set instead of Fields when the document could not be decoded at all.
 	Err error
 }
 
-// Error gives one line per refused field: FILE:LINE: KIND "NAME": PATH: REASON.
+// Error gives one line per refused field: FILE:LINE: KIND "NAME": PATH: REASON, with LINE the
+// field's own line where it is known (FieldLines), else the document's.
 func (e *DocumentError) Error() string {
-	prefix := fmt.Sprintf("%s:%d: ", e.File, e.Line)
-	if e.Kind != "" {
-		prefix += e.Kind + " "
+	at := func(line int) string {
+		prefix := fmt.Sprintf("%s:%d: ", e.File, cmp.Or(line, e.Line))
+		if e.Kind != "" {
+			prefix += e.Kind + " "
+		}
+		if e.Name != "" {
+			prefix += fmt.Sprintf("%q ", e.Name)
+		}
+		return prefix
 	}
-	if e.Name != "" {
-		prefix += fmt.Sprintf("%q ", e.Name)
-	}
+	prefix := at(0)
 	if e.Err != nil {
 		return prefix + e.Err.Error()
 	}
 	lines := make([]string, len(e.Fields))
 	for i, f := range e.Fields {
+		if i < len(e.FieldLines) {
+			prefix = at(e.FieldLines[i])
+		}
 		if f.Field == "" || f.Field == "<nil>" {
 			// An error about the whole object (the CEL rules left unchecked) has no path.
 			lines[i] = prefix + f.Detail
@@ -198,6 +213,7 @@ func Load(file string, data []byte) ([]Object, error) {
 		obj, derr := kinds.check(doc.text)
 		if derr != nil {
 			derr.File, derr.Document, derr.Line = file, i+1, doc.line
+			derr.FieldLines = fieldLines(doc, derr.Fields)
 			refused.Documents = append(refused.Documents, derr)
 			continue
 		}
@@ -215,14 +231,15 @@ func Load(file string, data []byte) ([]Object, error) {
 
 type document struct {
 	text []byte
-	line int
+	line int // first line that is neither blank nor a comment
+	from int // file line of text's first line
 }
 
 // splitDocuments cuts YAML at lines that start a new document ("---", optionally followed by a
 // space and a comment). A document's line is its first line that is neither blank nor a comment.
 func splitDocuments(data []byte) []document {
 	var docs []document
-	var cur document
+	cur := document{from: 1}
 	lineNo := 0
 	for len(data) > 0 {
 		var line []byte
@@ -235,7 +252,7 @@ func splitDocuments(data []byte) []document {
 		trimmed := bytes.TrimRight(line, " \t\r\n")
 		if bytes.Equal(trimmed, []byte("---")) || bytes.HasPrefix(trimmed, []byte("--- ")) {
 			docs = append(docs, cur)
-			cur = document{}
+			cur = document{from: lineNo + 1}
 			continue
 		}
 		if content := bytes.TrimLeft(trimmed, " \t"); cur.line == 0 && len(content) > 0 && content[0] != '#' {
@@ -244,6 +261,96 @@ func splitDocuments(data []byte) []document {
 		cur.text = append(cur.text, line...)
 	}
 	return append(docs, cur)
+}
+
+// fieldLines finds the file line of each refused field in the document's YAML: the line of the
+// deepest node along the field's path ("spec.models[2].seasonalPeriods[0]") that the document
+// has, so a missing required field points at the object it is missing from. 0 where the path
+// is empty or the document does not parse as YAML nodes.
+func fieldLines(doc document, errs field.ErrorList) []int {
+	var root yamlv3.Node
+	if len(errs) == 0 || yamlv3.Unmarshal(doc.text, &root) != nil || len(root.Content) == 0 {
+		return nil
+	}
+	out := make([]int, len(errs))
+	for i, e := range errs {
+		if e.Field == "" || e.Field == "<nil>" {
+			continue
+		}
+		out[i] = doc.from + deepestLine(root.Content[0], pathSteps(e.Field)) - 1
+	}
+	return out
+}
+
+// pathSteps splits a field path into map keys and list indices: "a.b[2].c" gives a, b, [2], c;
+// a bracketed step that is not a number is a map key (field.Path writes map keys so).
+func pathSteps(p string) []string {
+	var steps []string
+	for _, part := range strings.Split(p, ".") {
+		for part != "" {
+			i := strings.IndexByte(part, '[')
+			if i < 0 {
+				steps = append(steps, part)
+				break
+			}
+			if i > 0 {
+				steps = append(steps, part[:i])
+			}
+			j := strings.IndexByte(part[i:], ']')
+			if j < 0 {
+				steps = append(steps, part[i:])
+				break
+			}
+			steps = append(steps, part[i:i+j+1])
+			part = part[i+j+1:]
+		}
+	}
+	return steps
+}
+
+// deepestLine walks steps from n and returns the line of the last step it reaches: a map key's
+// own line (for a nested object, the line of "key:", not of its first field), a list element's
+// line, or n's line when the first step is missing.
+func deepestLine(n *yamlv3.Node, steps []string) int {
+	line := n.Line
+	for _, st := range steps {
+		key, next := child(n, st)
+		if next == nil {
+			break
+		}
+		line, n = next.Line, next
+		if key != nil {
+			line = key.Line
+		}
+	}
+	return line
+}
+
+// child is n's value under map key st (with the key node), or its element st = "[i]" (key nil);
+// nil when there is none.
+func child(n *yamlv3.Node, st string) (key, value *yamlv3.Node) {
+	if n.Kind == yamlv3.AliasNode {
+		n = n.Alias
+	}
+	name := st
+	if strings.HasPrefix(st, "[") && strings.HasSuffix(st, "]") {
+		name = strings.Trim(st[1:len(st)-1], `"`)
+		if i, err := strconv.Atoi(name); err == nil && n.Kind == yamlv3.SequenceNode {
+			if i >= 0 && i < len(n.Content) {
+				return nil, n.Content[i]
+			}
+			return nil, nil
+		}
+	}
+	if n.Kind != yamlv3.MappingNode {
+		return nil, nil
+	}
+	for k := 0; k+1 < len(n.Content); k += 2 {
+		if n.Content[k].Value == name {
+			return n.Content[k], n.Content[k+1]
+		}
+	}
+	return nil, nil
 }
 
 // kindSchema is what the apiserver builds for one served version of a CRD.

@@ -33,6 +33,16 @@ func wantPaths(t *testing.T, data []byte) []string {
 	return want
 }
 
+// refusedName is the metadata.name a test file gives its object.
+func refusedName(lines []string) string {
+	for _, l := range lines {
+		if n, ok := strings.CutPrefix(strings.TrimSpace(l), "name: "); ok {
+			return n
+		}
+	}
+	return ""
+}
+
 func paths(errs field.ErrorList) []string {
 	out := make([]string, len(errs))
 	for i, e := range errs {
@@ -132,9 +142,21 @@ func TestRefusesNamingTheField(t *testing.T) {
 					t.Errorf("message does not name %s:\n%v", p, err)
 				}
 			}
-			line := 1 + slices.IndexFunc(strings.Split(string(data), "\n"), func(l string) bool { return strings.HasPrefix(l, "apiVersion:") })
-			if !strings.Contains(err.Error(), fmt.Sprintf("%s:%d: ForecastPortfolio ", f, line)) {
-				t.Errorf("message does not name file, line and kind:\n%v", err)
+			// Each field is reported at the line of its own key (the last name of its path, the
+			// first such key after the document starts); a refusal without a path at the
+			// document's first line.
+			lines := strings.Split(string(data), "\n")
+			start := slices.IndexFunc(lines, func(l string) bool { return strings.HasPrefix(l, "apiVersion:") })
+			for _, p := range wantPaths(t, data) {
+				line, what := start+1, "ForecastPortfolio "
+				if p != "<nil>" {
+					key := p[strings.LastIndexByte(p, '.')+1:] + ":"
+					line = start + 1 + slices.IndexFunc(lines[start:], func(l string) bool { return strings.HasPrefix(strings.TrimSpace(l), key) })
+					what = fmt.Sprintf("ForecastPortfolio %q %s: ", refusedName(lines), p)
+				}
+				if !strings.Contains(err.Error(), fmt.Sprintf("%s:%d: %s", f, line, what)) {
+					t.Errorf("message does not name file, line %d and kind for %s:\n%v", line, p, err)
+				}
 			}
 		})
 	}
@@ -161,7 +183,9 @@ func TestMultiDocumentFiles(t *testing.T) {
 	if len(e.Documents) != 1 || e.Documents[0].Document != 3 || e.Documents[0].Line != 13 {
 		t.Fatalf("refused documents: %+v", e.Documents)
 	}
-	if got := e.Error(); !strings.HasPrefix(got, `runs.yaml:13: ForecastRun "fenwick-daily-manual-1" spec.trigger: Unsupported value: "Cron"`) {
+	// The field at its own line (20: "trigger: Cron"), the pathless refusal at the document's.
+	if got := e.Error(); !strings.HasPrefix(got, `runs.yaml:20: ForecastRun "fenwick-daily-manual-1" spec.trigger: Unsupported value: "Cron"`) ||
+		!strings.Contains(got, "\nruns.yaml:13: ForecastRun \"fenwick-daily-manual-1\" some validation rules were not checked") {
 		t.Errorf("message %q", got)
 	}
 }
@@ -231,5 +255,31 @@ func TestLoadPortfolio(t *testing.T) {
 	}
 	if _, err := LoadPortfolio(filepath.Join("testdata", "bad-cron.yaml")); err == nil || !strings.Contains(err.Error(), "spec.schedule") {
 		t.Errorf("an invalid portfolio: %v", err)
+	}
+}
+
+// A field inside a list element is reported at the element's line, and a field missing from an
+// object at the line of that object's key.
+func TestFieldLines(t *testing.T) {
+	data, err := os.ReadFile(filepath.Join("testdata", "wrong-enum.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	valid := strings.Replace(string(data), "Fortnightly", "Weekly", 1)
+	for _, c := range []struct{ name, doc, path, at string }{
+		{"CEL rule on a list element",
+			strings.Replace(valid, "    - family: ETS\n", "    - family: ETS\n      seasonalPeriods: [\"52.18\"]\n", 1),
+			"spec.models[1]", "    - family: ETS"},
+		{"required field missing",
+			strings.Replace(valid, "    uri: file:///data/fenwick/daily/\n", "", 1),
+			"spec.source.uri", "  source:"},
+	} {
+		_, err := Load("p.yaml", []byte(c.doc))
+		e := refused(t, err)
+		lines := strings.Split(c.doc, "\n")
+		line := 1 + slices.IndexFunc(lines, func(l string) bool { return strings.HasPrefix(l, c.at) })
+		if want := fmt.Sprintf("p.yaml:%d: ForecastPortfolio \"fenwick-daily-enum\" %s: ", line, c.path); !strings.Contains(e.Error(), want) {
+			t.Errorf("%s: no %q in:\n%v", c.name, want, e)
+		}
 	}
 }
