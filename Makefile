@@ -162,6 +162,7 @@ fixtures: ## Regenerate the reference fixtures (Debian's r-cran-forecast 8.20 an
 	Rscript test/reference/r/mstl.R > test/reference/testdata/mstl_r.json
 	Rscript test/reference/r/fourier_arima.R > test/reference/testdata/fourier_arima_r.json
 	Rscript test/reference/r/weekly.R > test/reference/testdata/weekly_r.json
+	Rscript test/reference/r/seasonstrength.R > test/reference/testdata/seasonstrength_r.json
 	@if /usr/bin/python3 -c 'import sklearn' 2>/dev/null; then \
 	  /usr/bin/python3 test/reference/sklearn/linear.py > test/reference/sklearn/linear.json; \
 	else echo "fixtures: Debian's python3-sklearn not importable; sklearn/linear.json kept"; fi

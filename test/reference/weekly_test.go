@@ -87,12 +87,13 @@ func TestWeeklySeasonalNaiveAgainstR(t *testing.T) {
 // TestWeeklyThetaAgainstR: our Theta with m = 52 and m = 7 against R forecast 8.20's
 // thetaf(ts(y, frequency = m), h, level = c(80, 95)). The decomposition figure agrees with R's
 // decompose to 1e-12 wherever n >= 2m. The seasonality decision agrees with thetaf's wherever
-// n >= 3m; below that our SeasonalityTest never finds a season (n >= 3m, the M4 benchmark
-// code's rule) where thetaf tests from n > 2m: on cardsHarrogate (120 weeks with a year-end
-// peak) thetaf adjusts and we do not, a documented difference whose forecasts are logged.
-// Where the decisions agree, the forecasts, bounds and fitted values agree to 2e-4 and α to
-// 1e-3, as in TestThetaAgainstRForecast (R's Nelder-Mead stops slightly short of the SSE
-// optimum ours finds, checked there).
+// n >= 3m. Below that SeasonalityTest (the M4 benchmark code's rule, kept for Naive2) never
+// finds a season, and our Theta decides 2m < n < 3m by the STL seasonal strength (R's nsdiffs
+// test = "seas", checked in seasonstrength_test.go) where thetaf runs its autocorrelation test:
+// where the two decisions differ (honeyBath, 130 weeks: ours adjusts, thetaf does not) the
+// forecasts are logged, not compared. Where the decisions agree, the forecasts, bounds and
+// fitted values agree to 2e-4 and α to 1e-3, as in TestThetaAgainstRForecast (R's Nelder-Mead
+// stops slightly short of the SSE optimum ours finds, checked there).
 func TestWeeklyThetaAgainstR(t *testing.T) {
 	sawBelow3m := false
 	for _, c := range loadWeekly(t) {
@@ -109,7 +110,7 @@ func TestWeeklyThetaAgainstR(t *testing.T) {
 			if seasonal {
 				t.Errorf("%s: SeasonalityTest found a season with n = %d < 3m = %d", c.Name, n, 3*c.M)
 			}
-			if c.Theta.Seasonal {
+			if n > 2*c.M {
 				sawBelow3m = true
 				mod, err := models.New(models.Spec{Family: models.FamilyTheta})
 				if err != nil {
@@ -119,9 +120,12 @@ func TestWeeklyThetaAgainstR(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				d, at := maxRel(f.Forecast(c.H, nil).Mean, c.Theta.Mean)
-				t.Logf("%s (n = %d, 2m < n < 3m): thetaf adjusts, ours does not; forecasts differ by up to %.3f relative (step %d)", c.Name, n, d, at+1)
-				continue
+				if ours := f.Params()["seasonal"] == 1; ours != c.Theta.Seasonal {
+					d, at := maxRel(f.Forecast(c.H, nil).Mean, c.Theta.Mean)
+					t.Logf("%s (n = %d, 2m < n < 3m): seasonal by strength %v, by thetaf's test %v; forecasts differ by up to %.3f relative (step %d)",
+						c.Name, n, ours, c.Theta.Seasonal, d, at+1)
+					continue
+				}
 			}
 		} else if seasonal != c.Theta.Seasonal {
 			t.Errorf("%s: SeasonalityTest = %v, R thetaf decided %v", c.Name, seasonal, c.Theta.Seasonal)
@@ -139,7 +143,7 @@ func TestWeeklyThetaAgainstR(t *testing.T) {
 			c.Name, n, c.M, c.Theta.Seasonal, p["alpha"], c.Theta.Alpha, worst, fit)
 	}
 	if !sawBelow3m {
-		t.Error("no case with 2m < n < 3m that thetaf finds seasonal: the fixture no longer tests both sides of the rule")
+		t.Error("no case with 2m < n < 3m: the fixture no longer tests both sides of the rule")
 	}
 }
 

@@ -37,17 +37,14 @@ const (
 // 24-point grid followed by golden-section search in the best bracket; R uses Nelder-Mead on both,
 // so α can differ slightly where the SSE is flat.
 //
-// The seasonal test requires n >= 3m (see SeasonalityTest) where thetaf asks n > 2m; shorter or
-// non-seasonal series are fitted unadjusted and Params()["seasonal"] is 0. Needs n >= 3.
-// The rule is kept because Naive2 (the M4 definition, the bench's OWA) shares the test. The
-// final fits of M3 and the M4 hourly dev half all have n >= 3m (only their backtests and
-// inner holdouts fit shorter histories: M3's default scores 12.486 / 1.3454 under either
-// rule), so it matters for short weekly and daily histories. Measured against R forecast
-// 8.20's thetaf on ts(y, frequency = 52) (test/reference/weekly_test.go): on 120 weeks with a
-// year-end peak thetaf adjusts and we do not, forecasts up to 30% apart; on 200 generated
-// Fenwick Lane weekly series of 130 weeks (h = 13), thetaf's rule would give 39.388 sMAPE /
-// 1.1980 MASE against 39.426 / 1.1986 with ours (PROJECT-NOTES.md, ninth session). With
-// n >= 3m the two agree (weekly and daily series to 2e-4).
+// The seasonal decision is seasonIndices: for n >= 3m the 90% autocorrelation test, as thetaf
+// and the M4 benchmark code; for 2m < n < 3m the STL seasonal strength above 0.64 (R forecast
+// 8.20's nsdiffs(x, test = "seas")) where thetaf runs the autocorrelation test from n > 2m,
+// which a trend defeats; shorter or non-seasonal series are fitted unadjusted and
+// Params()["seasonal"] is 0. Needs n >= 3. With n >= 3m the decision and forecasts agree with
+// thetaf (weekly and daily series to 2e-4, test/reference/weekly_test.go); for 2m < n < 3m
+// they agree with thetaf composed on R's strength decision (test/reference/seasonstrength_test.go).
+// The final fits of M3 and the M4 hourly dev half all have n >= 3m.
 type thetaModel struct{ spec Spec }
 
 func newTheta(s Spec) (Model, error) { return thetaModel{spec: s}, nil }
@@ -65,7 +62,7 @@ func (tm thetaModel) Fit(y []float64, m int) (Fitted, error) {
 		return nil, err
 	}
 	m = seasonFor(tm.spec, m)
-	idx, seasonal := classical.SeasonalIndices(y, m)
+	idx, seasonal := seasonIndices(y, m)
 	f := &thetaFit{name: tm.spec.DisplayName(), n: n, idx: idx, fitted: make([]float64, n)}
 	x := y
 	if seasonal {

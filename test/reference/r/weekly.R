@@ -16,20 +16,12 @@ if (as.character(packageVersion("forecast")) != "8.20") {
 
 # Our own invented scenario (Fenwick Lane Provisions): weekly case counts of items at depots
 # with a trend, a yearly cycle and noise, at lengths on both sides of the Theta seasonality
-# test's minimum (R's thetaf: n > 2m; ours n >= 3m; cardsHarrogate, 120 weeks with a
+# test's minimum (R's thetaf: n > 2m; ours: the autocorrelation test from n >= 3m, the STL seasonal strength for 2m < n < 3m; cardsHarrogate, 120 weeks with a
 # four-week peak before the year end, is seasonal by thetaf's test), and daily till receipts with a week cycle
 # (one also with a year cycle). Generated here with a fixed seed; the series are written into
 # the fixture.
 set.seed(20261204)
-weekly <- function(n, level, slope, amp, sd) {
-  t <- 0:(n - 1)
-  round((level + slope * t) * (1 + amp * sin(2 * pi * t / 52.18) + 0.4 * amp * cos(4 * pi * t / 52.18)) +
-    rnorm(n, sd = sd), 2)
-}
-peaked <- function(n, level, slope, peak, sd) {
-  t <- 0:(n - 1)
-  round(level + slope * t + peak * ((t %% 52) %in% 47:50) + rnorm(n, sd = sd), 2)
-}
+source("test/reference/r/weekly_series.R") # weekly(), peaked()
 daily <- function(n, level, slope, weekend, yearAmp, sd) {
   t <- 0:(n - 1)
   round(level + slope * t + weekend * (t %% 7 %in% c(5, 6)) - 0.3 * weekend * (t %% 7 == 0) +

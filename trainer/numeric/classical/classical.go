@@ -138,6 +138,13 @@ func SeasonalIndices(y []float64, m int) (idx []float64, seasonal bool) {
 	if !SeasonalityTest(y, m) {
 		return nil, false
 	}
+	return UsableIndices(y, m)
+}
+
+// UsableIndices returns the MultiplicativeIndices of y and true when they can adjust y: false
+// and nil when n < 2m, a trend value is not positive or an index has |S_j| < 1e-4 (R forecast
+// 8.20's thetaf guard). It does not test for seasonality; SeasonalIndices does.
+func UsableIndices(y []float64, m int) (idx []float64, ok bool) {
 	idx, err := MultiplicativeIndices(y, m)
 	if err != nil {
 		return nil, false

@@ -145,7 +145,8 @@ func variance(x []float64) float64 {
 }
 
 // SeasonalStrengthThreshold is the strength above which one seasonal difference is taken
-// (0.64, the threshold of R forecast 8.20's nsdiffs seasonal-strength test, from memory).
+// (0.64: R forecast 8.20's nsdiffs(x, test = "seas") takes a difference when
+// seas.heuristic(x) > 0.64, strictly; read from the installed package's R source).
 const SeasonalStrengthThreshold = 0.64
 
 // SeasonalDiffs returns 1 when SeasonalStrength(y, m) exceeds SeasonalStrengthThreshold,
