@@ -27,7 +27,7 @@ const (
 
 // cesModel is non-seasonal complex exponential smoothing on the seasonally adjusted series, as
 // the Theta and DOTM families adjust it (x_t = y_t / S_{t mod m}, adjustSeason; S ≡ 1 when
-// the 90% test fails or n < 3m). This is not the papers' seasonal CES, which carries a second
+// seasonIndices finds no season). This is not the papers' seasonal CES, which carries a second
 // complex state for the seasonal lag.
 //
 // The method smooths the complex number x_t + i e_t (the observation and its one-step error,

@@ -33,8 +33,8 @@ const (
 
 // optThetaModel is the optimised Theta model (OTM) or, with dynamic, the dynamic optimised
 // Theta model (DOTM) of Fiorucci et al. (2016), on the seasonally adjusted series as the Theta
-// family does (x_t = y_t / S_{t mod m}, adjustSeason; S ≡ 1 when the 90% test fails or
-// n < 3m). With t = 1..n (the paper's indexing) and w = 1 − 1/θ:
+// family does (x_t = y_t / S_{t mod m}, adjustSeason; S ≡ 1 when seasonIndices finds no
+// season). With t = 1..n (the paper's indexing) and w = 1 − 1/θ:
 //
 //	x_t = μ_t + ε_t
 //	μ_t = ℓ_{t−1} + w [ (1−α)^{t−1} A_{t−1} + (1 − (1−α)^t)/α · B_{t−1} ]
