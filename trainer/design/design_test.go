@@ -116,6 +116,22 @@ func TestCandidatesFromTheZoo(t *testing.T) {
 	if got := names(Candidates(one, []Combination{{Name: "last", Families: []string{famLast}}})); !reflect.DeepEqual(got, []string{"last"}) {
 		t.Errorf("one member: candidates %v", got)
 	}
+	// With DOTM in the zoo the mean of ETS, Theta and DOTM comes first, and ets-theta, whose
+	// families are all in it, is left out (it stands in for zoos without DOTM).
+	withDOTM := specs(models.FamilyNaive, models.FamilyTheta, models.FamilyDOTM, models.FamilyETS)
+	if got, want := names(Candidates(selection.Config{Horizon: 3, Zoo: withDOTM}, Combinations)), []string{"ets-theta-dotm", "top3-mean", "top3-median", NamePerSeries}; !reflect.DeepEqual(got, want) {
+		t.Errorf("with DOTM: candidates %v, want %v", got, want)
+	}
+	if c := Candidates(selection.Config{Horizon: 3, Zoo: withDOTM}, Combinations)[0].Config; len(c.Zoo) != 3 || c.CombineTop != 3 || c.CombineMethod != selection.CombineMean {
+		t.Errorf("ets-theta-dotm config %+v", c)
+	}
+	sub := []Combination{{Name: "ab", Families: []string{famLast, famLine}}, {Name: "a", Families: []string{famLast}}, {Name: "b-first", Families: []string{famLine}}}
+	if got := names(Candidates(selection.Config{Horizon: 3, Zoo: specs(famLast)}, sub)); !reflect.DeepEqual(got, []string{"a"}) {
+		t.Errorf("subset without the larger entry's members: candidates %v, want [a]", got)
+	}
+	if got := names(Candidates(selection.Config{Horizon: 3, Zoo: specs(famLast, famLine)}, sub)); !reflect.DeepEqual(got, []string{"ab", NamePerSeries}) {
+		t.Errorf("subsets of a kept entry: candidates %v, want [ab per-series]", got)
+	}
 	// The zoo's own member settings are kept.
 	named := []models.Spec{{Family: models.FamilyETS, Name: "ets-additive", ETS: &models.ETSOptions{Errors: []string{"A"}}}, {Family: models.FamilyTheta}}
 	if c := Candidates(selection.Config{Horizon: 1, Zoo: named}, Combinations)[0]; c.Config.Zoo[0].Name != "ets-additive" {

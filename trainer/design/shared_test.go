@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"almanac.dev/almanac/trainer/backtest"
@@ -99,7 +100,7 @@ func TestScoreInnerSharedEqualsOwnRuns(t *testing.T) {
 	}
 	base := selection.Config{Horizon: h, Zoo: specs(models.FamilyNaive, models.FamilySeasonalNaive, models.FamilyDrift,
 		models.FamilyTheta, models.FamilyETS, famFlaky)}
-	combos := append(append([]Combination(nil), Combinations[0]), // ets-theta
+	combos := append(append([]Combination(nil), Combinations[slices.IndexFunc(Combinations, func(c Combination) bool { return c.Name == "ets-theta" })]),
 		Combination{Name: "flaky-ets", Families: []string{famFlaky, models.FamilyETS}, Method: selection.CombineMean},
 		Combination{Name: "theta-drift-naive-median", Families: []string{models.FamilyTheta, models.FamilyDrift, models.FamilyNaive}, Method: selection.CombineMedian})
 	cands := Candidates(base, combos)
