@@ -144,17 +144,10 @@ type seasonAdjustment struct{ idx []float64 }
 // keeps classical.SeasonalIndices alone: it is the M3/M4 Naive2 benchmark the bench's OWA is
 // defined against.
 func seasonIndices(y []float64, m int) ([]float64, bool) {
-	n := len(y)
-	if m >= 2 && n > 2*m && n < 3*m {
-		if stationarity.SeasonalDiffs(y, m) == 0 {
-			return nil, false
-		}
-		return classical.UsableIndices(y, m)
+	if idx, ok := classical.SeasonalIndices(y, m); ok { // false below 3m
+		return idx, true
 	}
-	if idx, ok := classical.SeasonalIndices(y, m); ok || m < 2 || n <= 2*m {
-		return idx, ok
-	}
-	if stationarity.SeasonalDiffs(y, m) == 0 {
+	if m < 2 || len(y) <= 2*m || stationarity.SeasonalDiffs(y, m) == 0 {
 		return nil, false
 	}
 	return classical.UsableIndices(y, m)
