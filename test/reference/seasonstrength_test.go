@@ -9,15 +9,6 @@ import (
 	"almanac.dev/almanac/trainer/numeric/stationarity"
 )
 
-// seasonStrengthRef is testdata/seasonstrength_r.json, made by r/seasonstrength.R with R
-// forecast 8.20 (Debian r-cran-forecast, R 4.2.2): invented weekly series of 105 to 155
-// weeks (2m < n < 3m with m = 52), R's seasonal strength and nsdiffs(test = "seas") decision,
-// and thetaf's seasonal adjustment composed on that decision.
-type seasonStrengthRef struct {
-	Source string
-	Cases  []seasonStrengthCase
-}
-
 type seasonStrengthCase struct {
 	Name string
 	Y    []float64
@@ -37,14 +28,12 @@ type seasonStrengthCase struct {
 	}
 }
 
+// loadSeasonStrength reads testdata/seasonstrength_r.json, made by r/seasonstrength.R with R
+// forecast 8.20 (Debian r-cran-forecast, R 4.2.2): invented weekly series of 105 to 155
+// weeks (2m < n < 3m with m = 52), R's seasonal strength and nsdiffs(test = "seas") decision,
+// and thetaf's seasonal adjustment composed on that decision.
 func loadSeasonStrength(t *testing.T) []seasonStrengthCase {
-	t.Helper()
-	var r seasonStrengthRef
-	loadFixture(t, "seasonstrength_r.json", &r)
-	if len(r.Cases) == 0 {
-		t.Fatal("no seasonal-strength cases")
-	}
-	return r.Cases
+	return loadCases[seasonStrengthCase](t, "seasonstrength_r.json")
 }
 
 // TestSeasonStrengthAgainstR: for weekly histories of 2m < n < 3m our STL seasonal strength
