@@ -74,6 +74,8 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
 	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
+	originBack := fs.Int("origin-back", 0, "move every forecast origin this many horizons back: the test becomes the last h training points (1) or the h before them (2), and the competition's test data is not read; a check that a figure holds at an origin it was not tuned on")
+	keepLast := fs.Int("keep-last", 0, "shorten every training history to its last N horizons (N*h points, at least one season and two): the short histories of older competitions built from longer ones (0: whole histories)")
 	limit := fs.Int("limit", 0, "use only the first N series (0: all)")
 	every := fs.Int("every", 1, "use every K-th series, in the order of series.csv (M3 layout) or of train.csv (long layout): a spread sample")
 	workers := fs.Int("workers", 0, "parallel workers (0: GOMAXPROCS)")
@@ -106,6 +108,14 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	if *every < 1 {
 		fmt.Fprintln(stderr, "bench: --every must be >= 1")
+		return 2
+	}
+	switch {
+	case *originBack < 0 || *keepLast < 0:
+		fmt.Fprintln(stderr, "bench: --origin-back and --keep-last must be >= 0")
+		return 2
+	case *published && (*originBack > 0 || *keepLast > 0):
+		fmt.Fprintln(stderr, "bench: --score-published scores the competition's forecasts of its own test data: not with --origin-back or --keep-last")
 		return 2
 	}
 	var freq series.Frequency
@@ -164,6 +174,21 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		return 1
 	}
 	entries = sample(entries, *every, *limit)
+	if *originBack > 0 {
+		var dropped int
+		if entries, dropped, err = EarlierOrigin(entries, *originBack); err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 2
+		}
+		fmt.Fprintf(stdout, "origin %d horizons back: %d series, %d too short left out\n", *originBack, len(entries), dropped)
+	}
+	if *keepLast > 0 {
+		if entries, err = KeepLast(entries, *keepLast); err != nil {
+			fmt.Fprintf(stderr, "bench: %v\n", err)
+			return 2
+		}
+		fmt.Fprintf(stdout, "histories shortened to their last %d horizons\n", *keepLast)
+	}
 	naive2, err := Naive2Report(entries)
 	if err != nil {
 		fmt.Fprintf(stderr, "bench: %v\n", err)
