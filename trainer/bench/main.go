@@ -220,6 +220,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	writeTable(stdout, rep, naive2)
 	writeChoices(stdout, results)
 	fmt.Fprintf(stdout, "  failed=%d cpu_ms_per_series=%.2f workers=%d\n", rep.All.Failed, rep.All.CPUMilliseconds, effectiveWorkers(*workers))
+	if lo, hi, ok := OWAInterval(rep, naive2, 0.9, owaResamples, 1); ok {
+		fmt.Fprintf(stdout, "  OWA over the series, 90%% bootstrap interval (%d resamples): %.3f to %.3f\n", owaResamples, lo, hi)
+	}
 	if rep.All.ExpectedN > 0 {
 		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
 			o.Metric, rep.All.Expected/float64(rep.All.ExpectedN), rep.All.ExpectedN)
@@ -256,6 +259,10 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	fmt.Fprintln(stdout, SummaryLine(rep, naive2))
 	return 0
 }
+
+// owaResamples is the number of bootstrap resamples of OWAInterval's line (1000: the size
+// Efron & Tibshirani 1993, ch. 13, advise for percentile intervals).
+const owaResamples = 1000
 
 func effectiveWorkers(w int) int {
 	if w <= 0 {

@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"math/rand/v2"
+	"sort"
 
 	"almanac.dev/almanac/trainer/models"
 )
@@ -146,4 +148,59 @@ func writeSideBySide(w io.Writer, ours *Report, refs []*Report, n2 *Report) {
 			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(),
 			ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
 	}
+}
+
+// OWAInterval returns the central interval of the given level (0.9: from the 5th to the 95th
+// percentile) of report r's all-series OWA against Naive2's report n2 over resamples bootstrap
+// resamples of the series (Efron & Tibshirani 1993, "An Introduction to the Bootstrap", ch. 13,
+// the percentile interval): each resample draws N of the N series with replacement and
+// computes OWA on that draw, with ours and Naive2 on the same series. It says how far the OWA
+// of another sample of the same size from the same kind of data may lie: a fresh sample's OWA
+// differs from this one's by about sqrt(2) times the interval's half-width (both vary). The
+// draws come from a PCG generator with the given seed, so the interval repeats. A draw whose
+// Naive2 sMAPE or MASE sums to zero (every MASE undefined, say) has no OWA and is left out. ok is
+// false when the two reports do not score the same series or no draw has an OWA.
+func OWAInterval(r, n2 *Report, level float64, resamples int, seed uint64) (lo, hi float64, ok bool) {
+	base := make(map[string]SeriesScore, len(n2.Scores))
+	for _, s := range n2.Scores {
+		base[s.ID] = s
+	}
+	type pair struct{ s, m, s2, m2 float64 }
+	ps := make([]pair, len(r.Scores))
+	for i, s := range r.Scores {
+		b, found := base[s.ID]
+		if !found || math.IsNaN(s.MASE) != math.IsNaN(b.MASE) {
+			return 0, 0, false
+		}
+		ps[i] = pair{s.SMAPE, s.MASE, b.SMAPE, b.MASE}
+	}
+	if len(ps) == 0 || len(ps) != len(n2.Scores) || resamples < 1 || !(level > 0 && level < 1) {
+		return 0, 0, false
+	}
+	rng := rand.New(rand.NewPCG(seed, 0))
+	owas := make([]float64, 0, resamples)
+	for range resamples {
+		var s, s2, m, m2 float64
+		for range ps {
+			p := ps[rng.IntN(len(ps))]
+			s += p.s
+			s2 += p.s2
+			if !math.IsNaN(p.m) {
+				m += p.m
+				m2 += p.m2
+			}
+		}
+		if s2 > 0 && m2 > 0 {
+			owas = append(owas, (s/s2+m/m2)/2)
+		}
+	}
+	if len(owas) == 0 {
+		return 0, 0, false
+	}
+	sort.Float64s(owas)
+	n := float64(len(owas))
+	tail := (1 - level) / 2
+	lo = owas[int(math.Floor(tail*n))]
+	hi = owas[max(int(math.Ceil((1-tail)*n))-1, 0)]
+	return lo, hi, true
 }

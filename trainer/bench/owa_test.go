@@ -225,3 +225,31 @@ func TestM4HourlyDevAgainstR(t *testing.T) {
 		t.Errorf("Naive2 seasonally adjusted only %d of 207 hourly series; the check would not exercise the decomposition", seasonal)
 	}
 }
+
+// With two series the bootstrap has three outcomes (both draws the first series, one of each,
+// both the second), so with 1000 resamples the 90% percentile interval runs exactly from the
+// lower to the higher of the two one-series OWAs; with identical series it is a point; reports
+// of different series give no interval.
+func TestOWAInterval(t *testing.T) {
+	ours := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 10, MASE: 1}, {ID: "b", SMAPE: 30, MASE: math.NaN()}}}
+	n2 := &Report{Scores: []SeriesScore{{ID: "b", SMAPE: 20, MASE: math.NaN()}, {ID: "a", SMAPE: 20, MASE: 2}}}
+	// Series a alone: (10/20 + 1/2)/2 = 0.5. Series b alone: its MASE is undefined, so that draw
+	// has no OWA and is left out; draw {a, b}: ((10+30)/(20+20) + 1/2)/2 = 0.75.
+	lo, hi, ok := OWAInterval(ours, n2, 0.9, 1000, 7)
+	if !ok || lo != 0.5 || hi != 0.75 {
+		t.Errorf("interval %v to %v (ok %v), want 0.5 to 0.75", lo, hi, ok)
+	}
+	ours.Scores[1].MASE, n2.Scores[0].MASE = 3, 2
+	// b alone: (30/20 + 3/2)/2 = 1.5; a alone 0.5.
+	if lo, hi, ok = OWAInterval(ours, n2, 0.9, 1000, 7); !ok || lo != 0.5 || hi != 1.5 {
+		t.Errorf("interval %v to %v (ok %v), want 0.5 to 1.5", lo, hi, ok)
+	}
+	same := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 10, MASE: 1}, {ID: "b", SMAPE: 10, MASE: 1}}}
+	if lo, hi, ok = OWAInterval(same, n2, 0.9, 200, 1); !ok || lo != hi {
+		t.Errorf("identical series: %v to %v", lo, hi)
+	}
+	other := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 10, MASE: 1}, {ID: "c", SMAPE: 10, MASE: 1}}}
+	if _, _, ok = OWAInterval(other, n2, 0.9, 200, 1); ok {
+		t.Error("different series: want no interval")
+	}
+}

@@ -60,6 +60,15 @@ type Report struct {
 	// Forecasts holds each entry's forecast, in entry order, for the reports of R references
 	// (ReferenceR); nil otherwise.
 	Forecasts [][]float64
+	// Scores holds every scored series' sMAPE and MASE, in the order they were added (for
+	// OWAInterval).
+	Scores []SeriesScore
+}
+
+// SeriesScore is one series' accuracy in a Report; MASE is NaN where its scale is undefined.
+type SeriesScore struct {
+	ID          string
+	SMAPE, MASE float64
 }
 
 func newReport(method string) *Report { return &Report{Method: method, By: map[string]*Tally{}} }
@@ -86,6 +95,7 @@ func (r *Report) add(e Entry, f []float64) {
 	s, m := Accuracy(e, f)
 	r.tally(e.Category).add(s, m)
 	r.All.add(s, m)
+	r.Scores = append(r.Scores, SeriesScore{ID: e.ID, SMAPE: s, MASE: m})
 }
 
 // ScorePublished scores every method in dir/published_forecasts.csv on the given entries with
