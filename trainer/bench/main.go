@@ -220,8 +220,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	writeTable(stdout, rep, naive2)
 	writeChoices(stdout, results)
 	fmt.Fprintf(stdout, "  failed=%d cpu_ms_per_series=%.2f workers=%d\n", rep.All.Failed, rep.All.CPUMilliseconds, effectiveWorkers(*workers))
-	if lo, hi, ok := OWAInterval(rep, naive2, 0.9, owaResamples, 1); ok {
-		fmt.Fprintf(stdout, "  OWA over the series, 90%% bootstrap interval (%d resamples): %.3f to %.3f\n", owaResamples, lo, hi)
+	owaLo, owaHi, owaOK := OWAInterval(rep, naive2, 0.9, owaResamples, 1)
+	if owaOK {
+		fmt.Fprintf(stdout, "  OWA over the series, 90%% bootstrap interval (%d resamples): %.3f to %.3f\n", owaResamples, owaLo, owaHi)
 	}
 	if rep.All.ExpectedN > 0 {
 		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
@@ -243,6 +244,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	if *asJSON {
 		doc := map[string]any{"ours": jsonReport(rep), "naive2": jsonReport(naive2)}
+		if owaOK {
+			doc["owaInterval90"] = []float64{owaLo, owaHi}
+		}
 		if pubs != nil {
 			doc["published"] = jsonReports(pubs)
 		}

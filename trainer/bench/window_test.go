@@ -2,6 +2,7 @@ package bench
 
 import (
 	"bytes"
+	"encoding/json"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -118,8 +119,24 @@ func TestMainReshapingFlags(t *testing.T) {
 	// One horizon back the test is weeks 57 to 60 (values 57..60), which the naive forecast
 	// from 56 misses by 1, 2, 3, 4: sMAPE = mean of 200|e|/(|y|+|f|) over the four weeks.
 	var out, errb bytes.Buffer
-	if code := Main([]string{"--data", dir, "--frequency", "weekly", "--origin-back", "1", "--design", "fixed", "--zoo", "Naive", "--workers", "1"}, &out, &errb); code != 0 {
+	if code := Main([]string{"--data", dir, "--frequency", "weekly", "--origin-back", "1", "--design", "fixed", "--zoo", "Naive", "--workers", "1", "--json"}, &out, &errb); code != 0 {
 		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	// One series: every bootstrap draw is that series, so the OWA interval is the point OWA
+	// (naive against Naive2 at m = 1, which is naive: 1).
+	for _, line := range strings.Split(out.String(), "\n") {
+		if strings.HasPrefix(line, "{") {
+			var doc struct{ OWAInterval90 []float64 }
+			if err := json.Unmarshal([]byte(line), &doc); err != nil {
+				t.Fatal(err)
+			}
+			if len(doc.OWAInterval90) != 2 || doc.OWAInterval90[0] != 1 || doc.OWAInterval90[1] != 1 {
+				t.Errorf("owaInterval90 %v, want [1 1]", doc.OWAInterval90)
+			}
+		}
+	}
+	if !strings.Contains(out.String(), "OWA over the series, 90% bootstrap interval (1000 resamples): 1.000 to 1.000") {
+		t.Errorf("no interval line:\n%s", out.String())
 	}
 	want := 0.0
 	for k := 1; k <= 4; k++ {
