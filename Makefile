@@ -163,6 +163,9 @@ fixtures: ## Regenerate the reference fixtures (Debian's r-cran-forecast 8.20 an
 	Rscript test/reference/r/fourier_arima.R > test/reference/testdata/fourier_arima_r.json
 	Rscript test/reference/r/weekly.R > test/reference/testdata/weekly_r.json
 	Rscript test/reference/r/seasonstrength.R > test/reference/testdata/seasonstrength_r.json
+	@if [ -f "$${ALMANAC_M3_DIR:-../shared/datasets/m3}/train.csv" ]; then \
+	  Rscript test/reference/r/ets_m3.R > test/reference/testdata/ets_m3_r.csv; \
+	else echo "fixtures: M3 data not found (ALMANAC_M3_DIR); ets_m3_r.csv kept"; fi
 	@if /usr/bin/python3 -c 'import sklearn' 2>/dev/null; then \
 	  /usr/bin/python3 test/reference/sklearn/linear.py > test/reference/sklearn/linear.json; \
 	else echo "fixtures: Debian's python3-sklearn not importable; sklearn/linear.json kept"; fi
