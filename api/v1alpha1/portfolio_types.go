@@ -577,9 +577,9 @@ type SelectionSpec struct {
 	// design says how the forecasting design is decided. Auto (default): once per run the plan
 	// step takes a sample of at most 2000 of the portfolio's series (by a hash of their keys),
 	// scores candidate designs built from models on each sampled series' last horizon training
-	// points (fixed combinations such as the mean of ETS and Theta when both are listed, the
-	// mean and the median of each series' 3 best members, the declared combination, each
-	// series' best member) and keeps per segment (frequency x demand class x history length)
+	// points (fixed combinations: the mean of ETS, Theta and DOTM when all three are listed,
+	// else the mean of ETS and Theta when both are; the mean and the median of each series' 3
+	// best members, the declared combination, each series' best member) and keeps per segment (frequency x demand class x history length)
 	// the simplest design within one standard error of the best (Hastie, Tibshirani & Friedman
 	// 2009, 7.10); every trainer shard runs it on the full histories of its series and decides
 	// by the same rule on its own series only for a segment the sample did not hold; designs
