@@ -207,11 +207,26 @@ func ScaleLag(n, m int) int {
 // and (6); m = 1 for non-seasonal data; the M4 Competitor's Guide uses the same seasonal
 // scale). NaN when the scale is 0 or undefined (n <= m).
 func MeanAbsScaledError(y, f, insample []float64, m int) float64 {
-	sc := NaiveScale(insample, m, 1)
-	if !(sc > 0) {
-		return math.NaN()
+	return scaledScore(MASE, y, f, NaiveScale(insample, m, 1), math.NaN())
+}
+
+// scaledScore is Score with the in-sample scales given instead of the history: scale1 =
+// NaiveScale(x, m, 1) for MASE, scale2 = NaiveScale(x, m, 2) for RMSSE (NaN when the scale is
+// not positive); the other metrics ignore them.
+func scaledScore(metric Metric, y, f []float64, scale1, scale2 float64) float64 {
+	switch metric {
+	case MASE:
+		if !(scale1 > 0) {
+			return math.NaN()
+		}
+		return MeanAbsError(y, f) / scale1
+	case RMSSE:
+		if !(scale2 > 0) {
+			return math.NaN()
+		}
+		return RootMeanSquaredError(y, f) / math.Sqrt(scale2)
 	}
-	return MeanAbsError(y, f) / sc
+	return Score(metric, y, f, nil, 1)
 }
 
 // RootMeanSquaredScaledError is the root mean squared scaled error of the M5 competition
@@ -221,12 +236,7 @@ func MeanAbsScaledError(y, f, insample []float64, m int) float64 {
 // (M5 Competitor's Guide 2020, equation (1), which uses m = 1; a season length m > 1 gives the
 // seasonal-naive scale in the manner of MASE). NaN when the scale is 0 or undefined.
 func RootMeanSquaredScaledError(y, f, insample []float64, m int) float64 {
-	sc := NaiveScale(insample, m, 2)
-	if !(sc > 0) {
-		return math.NaN()
-	}
-	r := RootMeanSquaredError(y, f)
-	return r / math.Sqrt(sc)
+	return scaledScore(RMSSE, y, f, math.NaN(), NaiveScale(insample, m, 2))
 }
 
 // WeightedAbsPercentError is the weighted absolute percentage error (also called the MAD/mean

@@ -137,8 +137,8 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 		panic("backtest: Assess needs one forecast per origin")
 	}
 	m = ScaleLag(len(y), m)
-	a := Assessment{Steps: make([]float64, p.Horizon), Errors: make([][]float64, len(p.Origins)), Held: make([]int, len(p.Origins))}
-	sum, cnt := 0.0, 0
+	a := Assessment{Errors: make([][]float64, len(p.Origins)), Held: make([]int, len(p.Origins))}
+	acts := make([][]float64, len(p.Origins))
 	scale1 := make([]float64, len(p.Origins))
 	scale2 := make([]float64, len(p.Origins))
 	for i, t := range p.Origins {
@@ -146,11 +146,7 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 			panic("backtest: Assess forecast length differs from the plan horizon")
 		}
 		act := y[t : t+p.Horizon]
-		s := Score(metric, act, forecasts[i], y[:t], m)
-		if !math.IsNaN(s) {
-			sum += s
-			cnt++
-		}
+		acts[i] = act
 		e := make([]float64, p.Horizon)
 		for k := range e {
 			e[k] = act[k] - forecasts[i][k]
@@ -160,20 +156,98 @@ func Assess(metric Metric, y []float64, m int, p Plan, forecasts [][]float64) As
 		scale1[i] = NaiveScale(y[:t], m, 1)
 		scale2[i] = NaiveScale(y[:t], m, 2)
 	}
-	a.Overall = math.NaN()
-	if cnt > 0 {
-		a.Overall = sum / float64(cnt)
-	}
-	ys := make([]float64, len(p.Origins))
-	fs := make([]float64, len(p.Origins))
-	for k := 0; k < p.Horizon; k++ {
-		for i, t := range p.Origins {
-			ys[i] = y[t+k]
-			fs[i] = forecasts[i][k]
-		}
-		a.Steps[k] = pooled(metric, ys, fs, scale1, scale2)
-	}
+	a.Overall, a.Steps = scoreOrigins(metric, acts, forecasts, scale1, scale2, p.Horizon)
 	return a
+}
+
+// scoreOrigins is Assess's scoring of the forecasts fcs[i] of actuals acts[i] (h steps each)
+// at origins whose in-sample scales are scale1[i] (MASE) and scale2[i] (RMSSE): Overall is the
+// mean over origins of each origin's score (NaN ones left out), Steps[k] pools step k+1 of
+// every origin (see Assess).
+func scoreOrigins(metric Metric, acts, fcs [][]float64, scale1, scale2 []float64, h int) (float64, []float64) {
+	sum, cnt := 0.0, 0
+	for i := range acts {
+		if s := scaledScore(metric, acts[i], fcs[i], scale1[i], scale2[i]); !math.IsNaN(s) {
+			sum += s
+			cnt++
+		}
+	}
+	overall := math.NaN()
+	if cnt > 0 {
+		overall = sum / float64(cnt)
+	}
+	steps := make([]float64, h)
+	ys := make([]float64, len(acts))
+	fs := make([]float64, len(acts))
+	for k := 0; k < h; k++ {
+		for i := range acts {
+			ys[i] = acts[i][k]
+			fs[i] = fcs[i][k]
+		}
+		steps[k] = pooled(metric, ys, fs, scale1, scale2)
+	}
+	return overall, steps
+}
+
+// OriginRecord is one origin of a scored rolling-origin run, kept so that another forecast of
+// the same targets can be scored exactly as Assess scored the first: hierarchy reconciliation
+// scores its reconciled forecast, actual − ẽ, this way (trainer/pipeline).
+type OriginRecord struct {
+	// Held is the number of observations after the origin (Assessment.Held).
+	Held int
+	// Actuals are the observations the origin forecast, by step; Errors actual − forecast.
+	Actuals, Errors []float64
+	// Scale is the metric's in-sample scale at the origin, NaiveScale(y[:t], ScaleLag(len(y),
+	// m), p) with p = 1 for MASE and 2 for RMSSE; NaN for the other metrics.
+	Scale float64
+}
+
+// Records returns the origins of an Assessment a that Assess(metric, y, m, ...) made, for
+// AssessRecords.
+func Records(metric Metric, y []float64, m int, a Assessment) []OriginRecord {
+	m = ScaleLag(len(y), m)
+	out := make([]OriginRecord, len(a.Errors))
+	for i, e := range a.Errors {
+		t := len(y) - a.Held[i]
+		r := OriginRecord{Held: a.Held[i], Actuals: y[t : t+len(e)], Errors: e, Scale: math.NaN()}
+		switch metric {
+		case MASE:
+			r.Scale = NaiveScale(y[:t], m, 1)
+		case RMSSE:
+			r.Scale = NaiveScale(y[:t], m, 2)
+		}
+		out[i] = r
+	}
+	return out
+}
+
+// AssessRecords scores, as Assess does (Overall and Steps), the forecasts actual − errs[i][k]
+// of the recorded origins; errs nil scores the records' own errors, which gives back Assess's
+// figures (to rounding: the forecast is rebuilt as actual − error). Every origin must have as
+// many steps as the first; AssessRecords panics otherwise.
+func AssessRecords(metric Metric, recs []OriginRecord, errs [][]float64) (float64, []float64) {
+	if len(recs) == 0 {
+		return math.NaN(), nil
+	}
+	h := len(recs[0].Actuals)
+	acts := make([][]float64, len(recs))
+	fcs := make([][]float64, len(recs))
+	scales := make([]float64, len(recs))
+	for i, r := range recs {
+		e := r.Errors
+		if errs != nil {
+			e = errs[i]
+		}
+		if len(r.Actuals) != h || len(e) != h {
+			panic("backtest: AssessRecords needs the same steps at every origin")
+		}
+		acts[i], scales[i] = r.Actuals, r.Scale
+		fcs[i] = make([]float64, h)
+		for k := range e {
+			fcs[i][k] = r.Actuals[k] - e[k]
+		}
+	}
+	return scoreOrigins(metric, acts, fcs, scales, scales, h)
 }
 
 // pooled scores points that come from different origins, each with its own in-sample scales.

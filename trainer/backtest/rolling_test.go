@@ -120,3 +120,63 @@ func TestForecastsUpdate(t *testing.T) {
 		}
 	}
 }
+
+// TestAssessRecordsGivesBackAssess: the recorded origins of an Assess run, scored again with
+// their own errors, give Assess's Overall and Steps for every metric (to 1e-12 relative: the
+// forecast is rebuilt as actual − error); scored with other errors they give what Assess gives
+// for the forecasts actual − those errors, and the MASE of one origin is mean|e| over the
+// recorded scale (Hyndman & Koehler 2006, equation (6)).
+func TestAssessRecordsGivesBackAssess(t *testing.T) {
+	y := []float64{12, 15, 11, 18, 13, 16, 12, 19, 14, 17, 13, 21, 15, 18, 14, 22}
+	p, err := NewPlan(len(y), 3, 3, 1, 6)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fcs := make([][]float64, len(p.Origins))
+	other := make([][]float64, len(p.Origins))
+	for i, o := range p.Origins {
+		fcs[i] = []float64{y[o-1] + 0.5, y[o-2] - 1, y[o-1] + 2}
+		other[i] = []float64{y[o] - 1.5, y[o+1] + 0.25, y[o+2] - 3}
+	}
+	near := func(a, b float64) bool {
+		return a == b || math.IsNaN(a) && math.IsNaN(b) || math.Abs(a-b) <= 1e-12*math.Max(1, math.Abs(b))
+	}
+	for _, metric := range Metrics() {
+		a := Assess(metric, y, 4, p, fcs)
+		recs := Records(metric, y, 4, a)
+		overall, steps := AssessRecords(metric, recs, nil)
+		if !near(overall, a.Overall) || len(steps) != len(a.Steps) {
+			t.Fatalf("%s: overall %v (%d steps), Assess %v (%d)", metric, overall, len(steps), a.Overall, len(a.Steps))
+		}
+		for k := range steps {
+			if !near(steps[k], a.Steps[k]) {
+				t.Errorf("%s step %d: %v, Assess %v", metric, k+1, steps[k], a.Steps[k])
+			}
+		}
+		errs := make([][]float64, len(p.Origins))
+		for i, o := range p.Origins {
+			errs[i] = make([]float64, 3)
+			for k := range errs[i] {
+				errs[i][k] = y[o+k] - other[i][k]
+			}
+		}
+		b := Assess(metric, y, 4, p, other)
+		if overall, _ := AssessRecords(metric, recs, errs); !near(overall, b.Overall) {
+			t.Errorf("%s, other errors: %v, Assess %v", metric, overall, b.Overall)
+		}
+	}
+	// By hand: 16 points with m = 4 hold two seasons, so the scale differences at lag 4.
+	a := Assess(MASE, y, 4, p, fcs)
+	recs := Records(MASE, y, 4, a)
+	t0 := p.Origins[0]
+	want := NaiveScale(y[:t0], 4, 1)
+	if recs[0].Scale != want || recs[0].Held != len(y)-t0 {
+		t.Fatalf("origin 0: scale %v held %d, want %v %d", recs[0].Scale, recs[0].Held, want, len(y)-t0)
+	}
+	e := [][]float64{{1, -2, 3}, {0, 0, 0}, {2, 2, 2}}
+	got, _ := AssessRecords(MASE, recs, e)
+	hand := (2/recs[0].Scale + 0 + 2/recs[2].Scale) / 3
+	if !near(got, hand) {
+		t.Errorf("MASE by hand %v, got %v", hand, got)
+	}
+}

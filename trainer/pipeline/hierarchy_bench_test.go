@@ -187,6 +187,10 @@ func BenchmarkHierarchy(b *testing.B) {
 				}
 			}
 			b.Logf("%-18s %-11s %8.3f %8.3f %8.3f %8.3f", m, "cover 10-90", sc.cover(0), sc.cover(1), sc.cover(2), sc.cover(3))
+			b.Logf("%-18s %-11s %8.3f %8.3f %8.3f %8.3f", m, "prom./real.", sc.promiseRatio(0), sc.promiseRatio(1), sc.promiseRatio(2), sc.promiseRatio(3))
+			if m != "base" {
+				b.Logf("%-18s %-11s %8.3f %8.3f %8.3f %8.3f", m, "base prom.", sc.basePromiseRatio(0), sc.basePromiseRatio(1), sc.basePromiseRatio(2), sc.basePromiseRatio(3))
+			}
 		}
 	}
 }
@@ -196,11 +200,27 @@ func BenchmarkHierarchy(b *testing.B) {
 type levelScore struct {
 	sum           []float64
 	n, in, points []int
+	// promised and realized sum, per level, each node's promised MASE (the base forecast's
+	// selection backtest, or the reconciled forecast's: treeResult.promise) and its realized
+	// MASE on the same scale (backtest.ScaleLag of its history), over pn nodes and origins.
+	promised, realized []float64
+	pn                 []int
+	// basePromised sums the base promise of the same nodes (what a hierarchical run promised
+	// before the promise followed the reconciliation).
+	basePromised []float64
 }
 
 func newLevelScore(levels int) *levelScore {
-	return &levelScore{sum: make([]float64, levels), n: make([]int, levels), in: make([]int, levels), points: make([]int, levels)}
+	return &levelScore{sum: make([]float64, levels), n: make([]int, levels), in: make([]int, levels), points: make([]int, levels),
+		promised: make([]float64, levels), realized: make([]float64, levels), pn: make([]int, levels),
+		basePromised: make([]float64, levels)}
 }
+
+// promiseRatio is the mean promised over the mean realized MASE of level j.
+func (ls *levelScore) promiseRatio(j int) float64 { return ls.promised[j] / ls.realized[j] }
+
+// basePromiseRatio is promiseRatio with the base promises.
+func (ls *levelScore) basePromiseRatio(j int) float64 { return ls.basePromised[j] / ls.realized[j] }
 
 func (ls *levelScore) mase(j int) float64  { return ls.sum[j] / float64(ls.n[j]) }
 func (ls *levelScore) cover(j int) float64 { return float64(ls.in[j]) / float64(ls.points[j]) }
@@ -219,6 +239,27 @@ func (ls *levelScore) add(h *hierarchy, nodes []NodeBase, tr *treeResult, actual
 		if e := backtest.MeanAbsScaledError(y, mean, history[nd.Key], 1); !math.IsNaN(e) && !math.IsInf(e, 0) {
 			ls.sum[j] += e
 			ls.n[j]++
+		}
+		promised := math.NaN()
+		if len(nd.Promise) > 0 {
+			recs := make([]backtest.OriginRecord, len(nd.Promise))
+			for o, po := range nd.Promise {
+				recs[o] = po.record()
+			}
+			promised, _ = backtest.AssessRecords(backtest.Metric(nd.Metric), recs, nil)
+		}
+		base := promised
+		if tr != nil {
+			if p, ok := tr.promise[nd.Key]; ok {
+				promised = p.score
+			}
+		}
+		h := history[nd.Key]
+		if e := backtest.MeanAbsScaledError(y, mean, h, backtest.ScaleLag(len(h), 52)); !math.IsNaN(promised) && !math.IsNaN(e) && !math.IsInf(e, 0) {
+			ls.promised[j] += promised
+			ls.basePromised[j] += base
+			ls.realized[j] += e
+			ls.pn[j]++
 		}
 		for t := range y {
 			ls.points[j]++

@@ -41,6 +41,10 @@ type Reconciled struct {
 	// Forecasts maps each input unit to its reconciled forecasts table, which replaces the
 	// unit's own in the manifest.
 	Forecasts map[string]File `json:"forecasts"`
+	// Models maps each input unit with a reconciled promise to its models table with those
+	// promises (score and step errors), which replaces the unit's own in the manifest; a unit
+	// none of whose nodes has one (nodes.json version 2) keeps its own.
+	Models map[string]File `json:"models,omitempty"`
 	// Files are the spanning nodes' tables (forecasts, models, evaluation, rejected).
 	Files []File `json:"files"`
 	// Levels counts the spanning nodes per level, with their evaluation's accuracy.
@@ -82,7 +86,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 	}
 	var nodes []NodeBase
 	partials := map[string][]*series.Series{}
-	unitFc := map[string]File{}
+	unitFc, unitMf := map[string]File{}, map[string]File{}
 	for _, u := range p.Units {
 		done, reason, err := verifyUnit(ctx, out, cfg.Run, u.ID)
 		if err != nil {
@@ -97,11 +101,14 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			return sum, fmt.Errorf("unit %s: unit.json lists no %s or %s table (trained without the hierarchy?): %w", u.ID, NodesName, TableForecasts, ErrConfig)
 		}
 		unitFc[u.ID] = fcf
+		if mf, ok := unitFile(done.Files, TableModels); ok {
+			unitMf[u.ID] = mf
+		}
 		var doc NodesFile
 		if err := readTable(ctx, out, nf, func(r io.Reader) error { return json.NewDecoder(r).Decode(&doc) }); err != nil {
 			return sum, err
 		}
-		if doc.Version != NodesVersion || doc.Run != cfg.Run || doc.Unit != u.ID {
+		if !nodesVersionRead(doc.Version) || doc.Run != cfg.Run || doc.Unit != u.ID {
 			return sum, fmt.Errorf("%s: version %d run %q unit %q, want %d %q %q: %w", nf.Key, doc.Version, doc.Run, doc.Unit, NodesVersion, cfg.Run, u.ID, store.ErrDamaged)
 		}
 		nodes = append(nodes, doc.Nodes...)
@@ -150,7 +157,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		return sum, err
 	}
 	rec := Reconciled{Version: ManifestVersion, Run: cfg.Run, Method: string(tr.method), Note: tr.note, MaxDeviation: tr.deviation,
-		Forecasts: map[string]File{}}
+		Forecasts: map[string]File{}, Models: map[string]File{}}
 	if tr.method == "MinTShrink" {
 		rec.Lambda = tr.lambda
 	}
@@ -162,6 +169,18 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			return sum, err
 		}
 		rec.Forecasts[u.ID] = f
+		if len(tr.promise) == 0 {
+			continue
+		}
+		mf, ok := unitMf[u.ID]
+		if !ok {
+			continue
+		}
+		if f, changed, err := promiseUnitTable(ctx, out, cfg.Run, u.ID, mf, format, keyCols, tr); err != nil {
+			return sum, err
+		} else if changed {
+			rec.Models[u.ID] = f
+		}
 	}
 
 	// The spanning nodes' own tables.
@@ -181,6 +200,9 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		}
 		r := results[i]
 		r.Mean, r.Quantiles = tr.mean[s.Key], tr.quantiles[s.Key]
+		if p, ok := tr.promise[s.Key]; ok {
+			r.Expected, r.StepErrors = p.score, p.steps
+		}
 		r.Notes = append(r.Notes, note)
 		level := h.levelOf(s.Key)
 		last := s.Len() - 1
@@ -233,8 +255,8 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 	sum.Levels = rec.Levels
 	sum.MaxDeviation = tr.deviation
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
-	env.logf("reconcile: %s: %d nodes (%d spanning) reconciled by %s, largest deviation %.3g%s%s",
-		cfg.Run, len(nodes), len(mr), tr.method, tr.deviation, noteText(tr.note), noteText(tr.bands))
+	env.logf("reconcile: %s: %d nodes (%d spanning) reconciled by %s, largest deviation %.3g%s%s%s",
+		cfg.Run, len(nodes), len(mr), tr.method, tr.deviation, noteText(tr.note), noteText(tr.bands), noteText(tr.promises))
 	return sum, nil
 }
 
@@ -265,6 +287,30 @@ func reconcileUnitTable(ctx context.Context, out *store.Store, run, unit string,
 	}
 	return putTable(ctx, out, store.UnitKey(run, unit, "reconciled-"+TableForecasts+"."+format), TableForecasts,
 		func(w io.Writer) error { return tables.WriteForecasts(w, format, hdr, rows) })
+}
+
+// promiseUnitTable rewrites one unit's models table with the reconciled promises of its nodes
+// (score and per-step backtest errors; a node without one keeps its row) and writes it as
+// units/<unit>/reconciled-models.<format>; changed is false, and nothing is written, when no row
+// changed.
+func promiseUnitTable(ctx context.Context, out *store.Store, run, unit string, f File, format string, keys []string, tr treeResult) (File, bool, error) {
+	var rows []tables.ModelRow
+	if err := readTable(ctx, out, f, func(r io.Reader) (err error) { rows, err = tables.ReadModels(r, formatOf(f), keys); return }); err != nil {
+		return File{}, false, err
+	}
+	changed := false
+	for i, r := range rows {
+		if p, ok := tr.promise[r.Key]; ok {
+			rows[i].Score, rows[i].BacktestErrors = p.score, p.steps
+			changed = true
+		}
+	}
+	if !changed {
+		return File{}, false, nil
+	}
+	g, err := putTable(ctx, out, store.UnitKey(run, unit, "reconciled-"+TableModels+"."+format), TableModels,
+		func(w io.Writer) error { return tables.WriteModels(w, format, keys, rows) })
+	return g, err == nil, err
 }
 
 // putTable encodes and writes one table and returns its File record.
@@ -308,6 +354,9 @@ func readReconciled(ctx context.Context, out *store.Store, run string) (*Reconci
 	for _, f := range rec.Forecasts {
 		files = append(files, f)
 	}
+	for _, f := range rec.Models {
+		files = append(files, f)
+	}
 	bad, err := verifyFiles(ctx, out, files)
 	if bad != "" {
 		bad = "the reconcile step's output is unusable: " + bad
@@ -334,10 +383,14 @@ func reconciledUnits(ctx context.Context, out *store.Store, run string, p *Plan,
 		if e.State != StateTrained || !ok {
 			return nil, fmt.Sprintf("unit %s (%s) has no reconciled forecasts; a hierarchy that spans units is published only whole", e.ID, e.State), nil
 		}
+		mf, okm := rec.Models[e.ID]
 		files := make([]File, 0, len(e.Files))
 		for _, g := range e.Files {
 			if g.Table == TableForecasts {
 				g = f
+			}
+			if g.Table == TableModels && okm {
+				g = mf
 			}
 			files = append(files, g)
 		}

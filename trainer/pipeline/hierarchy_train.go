@@ -23,7 +23,7 @@ type unitHierarchy struct {
 // records every publishable node's base forecast (for nodes.json), reconciles the unit's
 // sub-trees when the run has within-unit levels only (with spanning levels the reconcile step
 // reconciles the whole tree from the base forecasts and replaces the unit's forecasts table),
-// replacing the means and quantiles in results, and
+// replacing the means, quantiles and promises (Expected, StepErrors) in results, and
 // rejects an aggregate whose own forecast failed (its reason says so; the aggregate is not
 // published, its bottom series are).
 func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, results []design.Result, errs []error) (unitHierarchy, error) {
@@ -66,6 +66,9 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 				continue
 			}
 			results[i].Mean, results[i].Quantiles = m, tr.quantiles[s.Key]
+			if p, ok := tr.promise[s.Key]; ok {
+				results[i].Expected, results[i].StepErrors = p.score, p.steps
+			}
 			results[i].Notes = append(results[i].Notes, note)
 		}
 	}

@@ -647,15 +647,7 @@ func TestTamperedUnitIsNotTrusted(t *testing.T) {
 	cfg2 := testConfig("flp-0002", cfg.Source.URI, cfg.Output.URI)
 	cfg2.Source.Partitioning = runconfig.PartitionObjects
 	ctx := context.Background()
-	ps, err := RunPlan(ctx, cfg2, testEnv())
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i := 0; i < ps.Shards; i++ {
-		if _, err := RunTrain(ctx, cfg2, i, testEnv()); err != nil {
-			t.Fatal(err)
-		}
-	}
+	planAndTrain(t, cfg2)
 	unit := ObjectID("depot-ashby.csv", nil)
 	f := filepath.Join(dir, "out", store.UnitKey("flp-0002", unit, "forecasts.csv"))
 	b, _ := os.ReadFile(f)

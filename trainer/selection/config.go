@@ -221,6 +221,11 @@ type Result struct {
 	// bands from them, aligned across nodes by origin and step.
 	BacktestErrors [][]float64
 	BacktestHeld   []int
+	// Promise holds the selection backtest's origins behind Expected and StepErrors (actuals,
+	// errors of the published forecast and metric scales, backtest.Records), kept only with
+	// Config.ErrorOrigins (hierarchical runs), so that the reconciled forecast can be scored
+	// exactly as Expected scores the published one; nil otherwise and without backtest.
+	Promise []backtest.OriginRecord
 }
 
 // FamilyCombination is Result.Family for a combination of members.

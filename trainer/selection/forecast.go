@@ -357,11 +357,13 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 // errorBacktest replaces res's backtest errors by those of the published forecast (members,
 // combined by cfg.CombineMethod when more than one) at up to cfg.ErrorOrigins origins one
 // horizon apart (see Config.ErrorOrigins); it leaves them when that is off, the series holds
-// fewer than 2 such origins, or a member fails at one.
+// fewer than 2 such origins, or a member fails at one. When cfg.ErrorOrigins is on it first
+// keeps the selection backtest behind res.Expected in res.Promise.
 func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Config) {
 	if cfg.ErrorOrigins <= 0 {
 		return
 	}
+	res.Promise = backtest.Records(res.Metric, y, m, backtest.Assessment{Errors: res.BacktestErrors, Held: res.BacktestHeld})
 	floor := 0
 	for _, c := range members {
 		floor = max(floor, c.model.MinLength(c.m))
