@@ -120,7 +120,6 @@ func calibrationPlot(ls []calib.Level) (*plot.Plot, error) {
 	s.GlyphStyle.Color, s.GlyphStyle.Radius, s.GlyphStyle.Shape = colOrigin, vg.Points(3), draw.CircleGlyph{}
 	p.Add(s)
 	p.Legend.Add("realized", s)
-	p.Legend.Top, p.Legend.Left = true, true
 	p.X.Min, p.Y.Min, p.X.Max, p.Y.Max = 0, 0, 1, 1
 	return p, nil
 }

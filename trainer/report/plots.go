@@ -52,17 +52,36 @@ func newPlot(title, xLabel, yLabel string) *plot.Plot {
 		a.Tick.Marker = numTicks{}
 	}
 	p.Legend.TextStyle.Font = font.From(sans, 10)
+	p.Legend.Padding = vg.Points(2)
 	g := plotter.NewGrid()
 	g.Vertical.Color, g.Horizontal.Color = colGrid, colGrid
 	p.Add(g)
 	return p
 }
 
+// legendPad is the space above and below the legend strip of writeSVG, and its left margin.
+const legendPad = vg.Length(6)
+
 // writeSVG renders p as dir/name with an SVG <title> element (the accessible name, W3C SVG 1.1
-// section 5.4) and a font list that falls back to any sans-serif face.
+// section 5.4) and a font list that falls back to any sans-serif face. The plot takes w x h;
+// its legend, if it has entries, goes in a strip of its own below it (the image grows by the
+// strip's height), so it never covers data: gonum/plot draws legends inside the data area.
 func writeSVG(dir, name, title string, p *plot.Plot, w, h vg.Length) error {
-	c := vgsvg.NewWith(vgsvg.UseWH(w, h))
-	p.Draw(draw.New(c))
+	leg := p.Legend
+	var strip vg.Length
+	if r := leg.Rectangle(draw.Canvas{}); r.Size().Y > 0 {
+		strip = r.Size().Y + 2*legendPad
+	}
+	c := vgsvg.NewWith(vgsvg.UseWH(w, h+strip))
+	full := draw.New(c)
+	p.Legend = plot.NewLegend() // no entries: nothing drawn over the data
+	p.Legend.TextStyle = leg.TextStyle
+	p.Draw(draw.Crop(full, 0, 0, strip, 0))
+	p.Legend = leg
+	if strip > 0 {
+		leg.Top, leg.Left, leg.XOffs, leg.YOffs = true, true, 0, 0
+		leg.Draw(draw.Crop(full, legendPad, 0, legendPad, -(h + legendPad)))
+	}
 	var b bytes.Buffer
 	if _, err := c.WriteTo(&b); err != nil {
 		return fmt.Errorf("report: %s: %w", name, err)
@@ -207,9 +226,6 @@ func trimFloat(v float64) string { return fmt.Sprintf("%.4g", v) }
 func seriesPlot(title, yLabel string, hist *series.Series, fc Forecast, window int) (*plot.Plot, error) {
 	p := newPlot(title, "", yLabel)
 	p.X.Tick.Marker = dateTicks{}
-	p.Legend.Top, p.Legend.Left = true, true
-	p.Legend.YOffs = vg.Points(-2)
-	p.Legend.XOffs = vg.Points(6)
 	b := bandOf(fc.Levels)
 	// band adds the filled area between levels lo and hi.
 	band := func(lo, hi int, c color.Color) error {
@@ -287,8 +303,7 @@ func seriesPlot(title, yLabel string, hist *series.Series, fc Forecast, window i
 	if ymax <= 0 {
 		ymax = 1
 	}
-	// Headroom for the legend in the top-left corner: the data use the lower two thirds.
-	p.Y.Max = ymax * 1.5
+	p.Y.Max = ymax * 1.05
 	if !origin.IsZero() {
 		l, err := plotter.NewLine(plotter.XYs{{X: unix(origin), Y: 0}, {X: unix(origin), Y: p.Y.Max}})
 		if err != nil {
@@ -433,9 +448,6 @@ func evaluationPlot(metric string, rows []tables.EvaluationRow, threshold float6
 		p.Add(s)
 		p.Legend.Add(set.label, s)
 	}
-	// Bottom right: a series that expected a large error and realized a small one is rare.
-	p.Legend.Top, p.Legend.Left = false, false
-	p.Legend.YOffs = vg.Points(8)
 	p.X.Min, p.Y.Min, p.X.Max, p.Y.Max = 0, 0, top, top
 	return p, nil
 }
