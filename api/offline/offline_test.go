@@ -266,13 +266,16 @@ func TestFieldLines(t *testing.T) {
 		t.Fatal(err)
 	}
 	valid := strings.Replace(string(data), "Fortnightly", "Weekly", 1)
-	for _, c := range []struct{ name, doc, path, at string }{
+	for _, c := range []struct{ name, doc, path, at, msg string }{
 		{"CEL rule on a list element",
 			strings.Replace(valid, "    - family: ETS\n", "    - family: ETS\n      seasonalPeriods: [\"52.18\"]\n", 1),
-			"spec.models[1]", "    - family: ETS"},
+			"spec.models[1]", "    - family: ETS", "seasonalPeriods are only for"},
+		{"CEL rule on a list element's nested block",
+			strings.Replace(valid, "    - family: ETS\n", "    - family: Ridge\n      regression:\n        boosting:\n          rounds: 50\n", 1),
+			"spec.models[1]", "    - family: Ridge", "regression.boosting is only for family GradientBoosting"},
 		{"required field missing",
 			strings.Replace(valid, "    uri: file:///data/fenwick/daily/\n", "", 1),
-			"spec.source.uri", "  source:"},
+			"spec.source.uri", "  source:", ""},
 	} {
 		_, err := Load("p.yaml", []byte(c.doc))
 		e := refused(t, err)
@@ -280,6 +283,9 @@ func TestFieldLines(t *testing.T) {
 		line := 1 + slices.IndexFunc(lines, func(l string) bool { return strings.HasPrefix(l, c.at) })
 		if want := fmt.Sprintf("p.yaml:%d: ForecastPortfolio \"fenwick-daily-enum\" %s: ", line, c.path); !strings.Contains(e.Error(), want) {
 			t.Errorf("%s: no %q in:\n%v", c.name, want, e)
+		}
+		if !strings.Contains(e.Error(), c.msg) {
+			t.Errorf("%s: no %q in:\n%v", c.name, c.msg, e)
 		}
 	}
 }

@@ -163,6 +163,17 @@ func Missing(spec *forecastingv1alpha1.ForecastPortfolioSpec) []string {
 	check(spec.SuccessfulRunsHistoryLimit == nil, "successfulRunsHistoryLimit")
 	check(spec.FailedRunsHistoryLimit == nil, "failedRunsHistoryLimit")
 	check(spec.Hierarchy != nil && spec.Hierarchy.Method == "", "hierarchy.method")
+	for i, m := range spec.Models {
+		if m.Regression == nil || m.Regression.Boosting == nil {
+			continue
+		}
+		b, at := m.Regression.Boosting, fmt.Sprintf("models[%d].regression.boosting.", i)
+		check(b.Rounds == 0, at+"rounds")
+		check(b.Shrinkage == "", at+"shrinkage")
+		check(b.TreeDepth == 0, at+"treeDepth")
+		check(b.MinLeafRows == 0, at+"minLeafRows")
+		check(b.RowSamplePercent == 0, at+"rowSamplePercent")
+	}
 	return out
 }
 
@@ -181,6 +192,10 @@ func model(m forecastingv1alpha1.ModelSpec) runconfig.Model {
 	}
 	if r := m.Regression; r != nil {
 		out.Regression = &runconfig.Regression{Penalty: r.Penalty, Pooled: r.Pooled != nil && *r.Pooled}
+		if b := r.Boosting; b != nil {
+			out.Regression.Boosting = &runconfig.Boosting{Rounds: int(b.Rounds), Shrinkage: b.Shrinkage,
+				TreeDepth: int(b.TreeDepth), MinLeafRows: int(b.MinLeafRows), RowSamplePercent: int(b.RowSamplePercent)}
+		}
 	}
 	return out
 }

@@ -1,6 +1,7 @@
 package render
 
 import (
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -72,6 +73,22 @@ func TestRunConfigNeedsDefaults(t *testing.T) {
 	}
 	if m := Missing(&fenwickPortfolio().Spec); len(m) != 0 {
 		t.Errorf("a defaulted portfolio misses %v", m)
+	}
+	// A boosting block names each of its fields the defaulting would have filled.
+	trees := rendertest.FenwickWeekly()
+	trees.Spec.Models = append(trees.Spec.Models, forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyGradientBoosting,
+		Regression: &forecastingv1alpha1.RegressionSettings{Boosting: &forecastingv1alpha1.BoostingSettings{Rounds: 50}}})
+	m := Missing(&trees.Spec)
+	for _, field := range []string{"shrinkage", "treeDepth", "minLeafRows", "rowSamplePercent"} {
+		if !slices.Contains(m, "models[3].regression.boosting."+field) {
+			t.Errorf("Missing = %v, want models[3].regression.boosting.%s named", m, field)
+		}
+	}
+	if slices.Contains(m, "models[3].regression.boosting.rounds") {
+		t.Errorf("Missing = %v names the rounds the portfolio sets", m)
+	}
+	if m := Missing(&rendertest.Default(trees).Spec); len(m) != 0 {
+		t.Errorf("a defaulted portfolio with a boosting block misses %v", m)
 	}
 }
 
@@ -213,7 +230,9 @@ func TestRunConfigFeatures(t *testing.T) {
 	fp.Spec.Features = promotionFeatures()
 	fp.Spec.Models = append(fp.Spec.Models,
 		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyRidge, Regression: &forecastingv1alpha1.RegressionSettings{Penalty: "0.25", Pooled: ptr.To(true)}},
-		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyGradientBoosting})
+		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyGradientBoosting},
+		forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyGradientBoosting, Name: "trees", Regression: &forecastingv1alpha1.RegressionSettings{
+			Boosting: &forecastingv1alpha1.BoostingSettings{Rounds: 200, Shrinkage: "0.05", TreeDepth: 3, MinLeafRows: 8, RowSamplePercent: 80}}})
 	got, err := RunConfig(fp, fenwickRun("r"), "")
 	if err != nil {
 		t.Fatal(err)
@@ -237,6 +256,10 @@ func TestRunConfigFeatures(t *testing.T) {
 	}
 	if got.Models[4].Regression != nil {
 		t.Errorf("GradientBoosting member got settings it did not declare: %+v", got.Models[4])
+	}
+	wantTrees := &runconfig.Regression{Boosting: &runconfig.Boosting{Rounds: 200, Shrinkage: "0.05", TreeDepth: 3, MinLeafRows: 8, RowSamplePercent: 80}}
+	if diff := cmp.Diff(wantTrees, got.Models[5].Regression); diff != "" {
+		t.Errorf("boosting settings (-want,+got):\n%s", diff)
 	}
 	fp.Spec.Features = nil
 	if got, err = RunConfig(fp, fenwickRun("r"), ""); err != nil || got.Features != nil {

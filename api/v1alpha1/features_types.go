@@ -231,4 +231,62 @@ type RegressionSettings struct {
 	// others; the member is still scored and chosen per series. Default false.
 	// +optional
 	Pooled *bool `json:"pooled,omitempty"`
+
+	// boosting tunes the trees of GradientBoosting (only for that family). Unset: the same
+	// values as an empty boosting block, i.e. every field's default.
+	// +optional
+	Boosting *BoostingSettings `json:"boosting,omitempty"`
+}
+
+// BoostingSettings tunes the gradient-boosted trees of a GradientBoosting member (Friedman 2001;
+// second-order leaf values w = -G/(H+1), Chen & Guestrin 2016). Each step model adds trees
+// stage by stage, F_m = F_(m-1) + shrinkage * T_m, each tree fitted to the residuals of the
+// stages before it. The number of trees is chosen per series: up to rounds trees are fitted on
+// the training rows with the latest rows held out, fitting stops after 20 rounds in which the
+// held-out error did not fall, and the model is refitted on all rows with the number of trees
+// that had the lowest held-out error. A series too short for that holdout gets
+// min(rounds, 100) trees.
+type BoostingSettings struct {
+	// rounds is the most trees (boosting rounds) of each step model. Default 500.
+	// +optional
+	// +kubebuilder:default=500
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=5000
+	Rounds int32 `json:"rounds,omitempty"`
+
+	// shrinkage is the weight of each new tree (the learning rate), a decimal string above 0
+	// and at most 1, e.g. "0.05": smaller values need more rounds and usually generalise
+	// better. Default "0.1".
+	// +optional
+	// +kubebuilder:default="0.1"
+	// +kubebuilder:validation:MaxLength=8
+	// +kubebuilder:validation:Pattern=`^[01](\.[0-9]{1,6})?$`
+	// +kubebuilder:validation:XValidation:rule="double(self) > 0.0 && double(self) <= 1.0",message="shrinkage must be greater than 0 and at most 1"
+	Shrinkage string `json:"shrinkage,omitempty"`
+
+	// treeDepth is the depth of each tree, 1 (one split, two leaves) to 12 (at most 4096
+	// leaves). Default 4.
+	// +optional
+	// +kubebuilder:default=4
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=12
+	TreeDepth int32 `json:"treeDepth,omitempty"`
+
+	// minLeafRows is the fewest training rows a leaf holds; a split that would leave fewer on
+	// either side is not made. Default 5.
+	// +optional
+	// +kubebuilder:default=5
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=1000
+	MinLeafRows int32 `json:"minLeafRows,omitempty"`
+
+	// rowSamplePercent is the percent of the training rows drawn, without replacement and
+	// afresh for every tree, to fit that tree (Friedman 2002, stochastic gradient boosting);
+	// 100 fits every tree on every row. The draws are seeded, so a run is repeatable.
+	// Default 100.
+	// +optional
+	// +kubebuilder:default=100
+	// +kubebuilder:validation:Minimum=1
+	// +kubebuilder:validation:Maximum=100
+	RowSamplePercent int32 `json:"rowSamplePercent,omitempty"`
 }

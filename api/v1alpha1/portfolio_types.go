@@ -484,6 +484,7 @@ type DataOutput struct {
 // +kubebuilder:validation:XValidation:rule="!has(self.regression) || self.family in ['Ridge', 'Lasso', 'GradientBoosting']",message="regression settings are only for families Ridge, Lasso and GradientBoosting"
 // +kubebuilder:validation:XValidation:rule="!has(self.seasonalPeriods) || self.family in ['MSTLETS', 'MSTLTheta', 'MSTLARIMA', 'FourierARIMA']",message="seasonalPeriods are only for families MSTLETS, MSTLTheta, MSTLARIMA and FourierARIMA"
 // +kubebuilder:validation:XValidation:rule="!has(self.regression) || !has(self.regression.penalty) || self.family in ['Ridge', 'Lasso']",message="regression.penalty is only for families Ridge and Lasso"
+// +kubebuilder:validation:XValidation:rule="!has(self.regression) || !has(self.regression.boosting) || self.family == 'GradientBoosting'",message="regression.boosting is only for family GradientBoosting"
 type ModelSpec struct {
 	// family of the model.
 	// +required
@@ -522,7 +523,7 @@ type ModelSpec struct {
 	Smoothing *SmoothingSettings `json:"smoothing,omitempty"`
 
 	// regression tunes the learner of the regression families. Default: penalty chosen per
-	// series, one model per series.
+	// series, one model per series, the trees of GradientBoosting as documented under boosting.
 	// +optional
 	Regression *RegressionSettings `json:"regression,omitempty"`
 }

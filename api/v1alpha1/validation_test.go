@@ -136,6 +136,31 @@ var _ = Describe("CRD validation", func() {
 		Expect(fp.Spec.Models[1].Regression.Penalty).To(Equal("0.25"))
 	})
 
+	It("defaults an empty boosting block to the documented values and keeps set ones", func() {
+		u := validPortfolio("with-boosting")
+		withFeatures(map[string]any{"lags": []any{int64(1)}})(u)
+		set(u, []any{
+			map[string]any{"family": "GradientBoosting", "name": "trees-default", "regression": map[string]any{"boosting": map[string]any{}}},
+			map[string]any{"family": "GradientBoosting", "name": "trees-low", "regression": map[string]any{"pooled": true,
+				"boosting": map[string]any{"rounds": int64(1), "shrinkage": "1", "treeDepth": int64(1), "minLeafRows": int64(1), "rowSamplePercent": int64(1)}}},
+			map[string]any{"family": "GradientBoosting", "name": "trees-high",
+				"regression": map[string]any{"boosting": map[string]any{"rounds": int64(5000), "shrinkage": "0.000001", "treeDepth": int64(12), "minLeafRows": int64(1000), "rowSamplePercent": int64(100)}}},
+			map[string]any{"family": "GradientBoosting", "name": "trees-unset"},
+		}, "spec", "models")
+		offline := u.DeepCopy()
+		offline.SetName("with-boosting-offline")
+		expectSameAsApiserver(offline) // offline_test.go: the same defaults without a cluster
+		Expect(k8sClient.Create(ctx, u)).To(Succeed())
+		var fp forecastingv1alpha1.ForecastPortfolio
+		Expect(k8sClient.Get(ctx, client.ObjectKeyFromObject(u), &fp)).To(Succeed())
+		Expect(*fp.Spec.Models[0].Regression.Boosting).To(Equal(forecastingv1alpha1.BoostingSettings{
+			Rounds: 500, Shrinkage: "0.1", TreeDepth: 4, MinLeafRows: 5, RowSamplePercent: 100}))
+		Expect(*fp.Spec.Models[1].Regression.Boosting).To(Equal(forecastingv1alpha1.BoostingSettings{
+			Rounds: 1, Shrinkage: "1", TreeDepth: 1, MinLeafRows: 1, RowSamplePercent: 1}))
+		Expect(fp.Spec.Models[2].Regression.Boosting.Shrinkage).To(Equal("0.000001"))
+		Expect(fp.Spec.Models[3].Regression).To(BeNil())
+	})
+
 	It("accepts a hierarchy over the key columns and defaults its method", func() {
 		u := validPortfolio("with-hierarchy")
 		set(u, map[string]any{"levels": []any{[]any{"depot"}, []any{"item"}, []any{}}}, "spec", "hierarchy")
@@ -534,6 +559,18 @@ var _ = Describe("CRD validation", func() {
 				set(u, []any{map[string]any{"family": "Lasso", "regression": map[string]any{"penalty": "-1"}}}, "spec", "models")
 			},
 			want: []string{"spec.models[0].regression.penalty", "should match"}}),
+		Entry("boosting settings on Ridge", invalidCase{mutate: withTrees("Ridge", map[string]any{"rounds": int64(50)}), want: []string{"spec.models[0]", "regression.boosting is only for family GradientBoosting"}}),
+		Entry("empty boosting settings on Lasso", invalidCase{mutate: withTrees("Lasso", map[string]any{}), want: []string{"spec.models[0]", "regression.boosting is only for family GradientBoosting"}}),
+		Entry("zero rounds", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"rounds": int64(0)}), want: []string{"spec.models[0].regression.boosting.rounds", "greater than or equal to 1"}}),
+		Entry("too many rounds", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"rounds": int64(5001)}), want: []string{"spec.models[0].regression.boosting.rounds", "less than or equal to 5000"}}),
+		Entry("zero shrinkage", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"shrinkage": "0.0"}), want: []string{"spec.models[0].regression.boosting.shrinkage", "shrinkage must be greater than 0 and at most 1"}}),
+		Entry("shrinkage above 1", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"shrinkage": "1.5"}), want: []string{"spec.models[0].regression.boosting.shrinkage", "shrinkage must be greater than 0 and at most 1"}}),
+		Entry("shrinkage not a decimal", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"shrinkage": "1e-2"}), want: []string{"spec.models[0].regression.boosting.shrinkage", "should match"}}),
+		Entry("tree depth of zero", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"treeDepth": int64(0)}), want: []string{"spec.models[0].regression.boosting.treeDepth", "greater than or equal to 1"}}),
+		Entry("tree depth above 12", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"treeDepth": int64(13)}), want: []string{"spec.models[0].regression.boosting.treeDepth", "less than or equal to 12"}}),
+		Entry("leaf of no rows", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"minLeafRows": int64(0)}), want: []string{"spec.models[0].regression.boosting.minLeafRows", "greater than or equal to 1"}}),
+		Entry("row sample above 100 percent", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"rowSamplePercent": int64(101)}), want: []string{"spec.models[0].regression.boosting.rowSamplePercent", "less than or equal to 100"}}),
+		Entry("row sample of 0 percent", invalidCase{mutate: withTrees("GradientBoosting", map[string]any{"rowSamplePercent": int64(0)}), want: []string{"spec.models[0].regression.boosting.rowSamplePercent", "greater than or equal to 1"}}),
 		Entry("run without portfolio", invalidCase{run: true,
 			mutate: func(u *unstructured.Unstructured) { del(u, "spec", "portfolioName") },
 			want:   []string{"spec.portfolioName", "Required"}}),
@@ -618,5 +655,12 @@ func withLevels(levels ...[]any) func(u *unstructured.Unstructured) {
 			ls = append(ls, l)
 		}
 		set(u, map[string]any{"levels": ls}, "spec", "hierarchy")
+	}
+}
+
+// withTrees makes the zoo one member of family with regression.boosting set to boosting.
+func withTrees(family string, boosting map[string]any) func(*unstructured.Unstructured) {
+	return func(u *unstructured.Unstructured) {
+		set(u, []any{map[string]any{"family": family, "regression": map[string]any{"boosting": boosting}}}, "spec", "models")
 	}
 }

@@ -55,6 +55,9 @@ type RegressionOptions struct {
 	// AcrossShard fits one model on every series of the shard together (targets scaled per
 	// series) instead of one model per series; it is still scored and chosen per series.
 	AcrossShard bool `json:"acrossShard,omitempty"`
+	// Boosting sets the trees of GradientBoosting (nil: DefaultBoosting); other families
+	// refuse it.
+	Boosting *BoostingOptions `json:"boosting,omitempty"`
 }
 
 // ETSOptions restricts which ETS(error, trend, season) forms the automatic search considers.

@@ -69,14 +69,24 @@ type regression struct {
 	family  string
 	cfg     *features.Config // nil: features.Defaults for the series' frequency
 	penalty float64
+	boost   BoostingOptions // GradientBoosting's trees
 }
 
 func newRegression(s Spec) (Model, error) {
-	r := &regression{family: s.Family, cfg: s.Features}
+	r := &regression{family: s.Family, cfg: s.Features, boost: DefaultBoosting()}
 	if s.Regression != nil {
 		r.penalty = s.Regression.Penalty
 		if r.penalty < 0 || math.IsNaN(r.penalty) || math.IsInf(r.penalty, 0) {
 			return nil, fmt.Errorf("models: %s: regression.penalty must be >= 0, got %v", s.DisplayName(), r.penalty)
+		}
+		if b := s.Regression.Boosting; b != nil {
+			if s.Family != FamilyGradientBoosting {
+				return nil, fmt.Errorf("models: %s: regression.boosting is only for family %s", s.DisplayName(), FamilyGradientBoosting)
+			}
+			if err := b.params().Validate(); err != nil {
+				return nil, fmt.Errorf("models: %s: regression.boosting: %w", s.DisplayName(), err)
+			}
+			r.boost = *b
 		}
 	}
 	if s.Features != nil {
@@ -247,7 +257,7 @@ func fitDirectStep(r *regression, sel features.Selection, ref *features.Set, ys 
 	}
 	sub := features.Columns(X, ch.Keep)
 	if r.family == FamilyGradientBoosting {
-		return fitBoostStep(st, sub, target, split, cols, ch.Keep)
+		return fitBoostStep(r.boost, st, sub, target, split, cols, ch.Keep)
 	}
 	sc := learn.FitScaler(sub)
 	subS := sc.Transform(sub)

@@ -164,6 +164,17 @@ func modelSpec(m runconfig.Model) (models.Spec, error) {
 			return sp, fmt.Errorf("regression.penalty: %w", err)
 		}
 		sp.Regression = &models.RegressionOptions{Penalty: p, AcrossShard: r.Pooled}
+		if b := r.Boosting; b != nil {
+			if m.Family != models.FamilyGradientBoosting {
+				return sp, fmt.Errorf("regression.boosting: only for family %s", models.FamilyGradientBoosting)
+			}
+			nu, err := runconfig.Decimal(b.Shrinkage, 0, 1, true)
+			if err != nil {
+				return sp, fmt.Errorf("regression.boosting.shrinkage: %w", err)
+			}
+			sp.Regression.Boosting = &models.BoostingOptions{Rounds: b.Rounds, Shrinkage: nu, TreeDepth: b.TreeDepth,
+				MinLeafRows: b.MinLeafRows, RowFraction: float64(b.RowSamplePercent) / 100}
+		}
 	}
 	return sp, nil
 }

@@ -18,6 +18,7 @@ import (
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
@@ -44,6 +45,14 @@ func TestCheckNamesTheField(t *testing.T) {
 		"pooled on a family that cannot": {func(c *runconfig.Config) {
 			c.Models[1] = runconfig.Model{Family: "ETS", Regression: &runconfig.Regression{Pooled: true}}
 		}, "models[1]"},
+		"boosting on a family without trees": {func(c *runconfig.Config) {
+			c.Models[1] = runconfig.Model{Family: "Ridge", Regression: &runconfig.Regression{
+				Boosting: &runconfig.Boosting{Rounds: 50, Shrinkage: "0.1", TreeDepth: 4, MinLeafRows: 5, RowSamplePercent: 100}}}
+		}, "models[1].regression.boosting: only for family GradientBoosting"},
+		"boosting out of the contract's range": {func(c *runconfig.Config) {
+			c.Models[1] = runconfig.Model{Family: "GradientBoosting", Regression: &runconfig.Regression{
+				Boosting: &runconfig.Boosting{Rounds: 50, Shrinkage: "0.1", TreeDepth: 13, MinLeafRows: 5, RowSamplePercent: 100}}}
+		}, "models[1].regression.boosting.treeDepth"},
 		"calendar name": {func(c *runconfig.Config) {
 			c.Features = &runconfig.Features{Calendar: []string{"WeekOfYear", "dayOfWeek"}}
 		}, "features.calendar[1]"},
@@ -165,25 +174,7 @@ func TestEveryAPIEnumValueIsKnown(t *testing.T) {
 // own fallbacks for zero settings (selection.DefaultOrigins, DefaultStep, DefaultMetric, used
 // by the benchmark and the engine's tests) must agree with them.
 func TestDefaultsAreTheCRDs(t *testing.T) {
-	fp := rendertest.Default(&forecastingv1alpha1.ForecastPortfolio{
-		ObjectMeta: metav1.ObjectMeta{Name: "fenwick-minimal", Namespace: "planning"},
-		Spec: forecastingv1alpha1.ForecastPortfolioSpec{
-			Schedule: "@daily",
-			Source:   forecastingv1alpha1.DataSource{URI: "mem://flp-in/", Frequency: forecastingv1alpha1.Daily},
-			Output:   forecastingv1alpha1.DataOutput{URI: "mem://flp-out/"},
-			Horizon:  14,
-			Models:   []forecastingv1alpha1.ModelSpec{{Family: forecastingv1alpha1.FamilyNaive}, {Family: forecastingv1alpha1.FamilyETS}},
-			Trainer:  forecastingv1alpha1.TrainerSpec{Image: "registry.example/almanac-trainer:test"},
-		},
-	})
-	cfg, err := render.RunConfig(fp, &forecastingv1alpha1.ForecastRun{ObjectMeta: metav1.ObjectMeta{Name: "fenwick-minimal-1"}}, "")
-	if err != nil {
-		t.Fatal(err)
-	}
-	st, err := Check(&cfg)
-	if err != nil {
-		t.Fatal(err)
-	}
+	cfg, st := minimalSettings(t, "fenwick-minimal", forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyNaive}, forecastingv1alpha1.ModelSpec{Family: forecastingv1alpha1.FamilyETS})
 	schema, err := rendertest.Schema()
 	if err != nil {
 		t.Fatal(err)
@@ -259,4 +250,95 @@ func stringKeys[V any](m map[string]V) map[string]string {
 		out[k] = k
 	}
 	return out
+}
+
+// TestBoostingDefaultsAreTheCRDs: the settings of GradientBoosting's trees are declared in the
+// markers of spec.models[].regression.boosting; a member without the block runs with
+// models.DefaultBoosting (boost.DefaultParams), which must equal them, and a member with an
+// empty block, defaulted by the CRD, reaches the engine with exactly those values.
+func TestBoostingDefaultsAreTheCRDs(t *testing.T) {
+	schema, err := rendertest.Schema()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := schema.Properties["spec"].Properties["models"].Items
+	if s == nil {
+		t.Fatal("spec.models has no items schema")
+	}
+	b := s.Properties["regression"].Properties["boosting"]
+	def := func(field string) float64 {
+		v := b.Properties[field].Default.Object
+		switch x := v.(type) {
+		case int64:
+			return float64(x)
+		case string:
+			f, err := runconfig.Decimal(x, 0, 1, true)
+			if err != nil {
+				t.Fatalf("boosting.%s: %v", field, err)
+			}
+			return f
+		}
+		t.Fatalf("spec.models[].regression.boosting.%s has no default in the CRD (%v)", field, v)
+		return 0
+	}
+	engine := models.DefaultBoosting()
+	for _, c := range []struct {
+		field string
+		got   float64
+		scale float64
+	}{
+		{"rounds", float64(engine.Rounds), 1},
+		{"shrinkage", engine.Shrinkage, 1},
+		{"treeDepth", float64(engine.TreeDepth), 1},
+		{"minLeafRows", float64(engine.MinLeafRows), 1},
+		{"rowSamplePercent", engine.RowFraction, 100},
+	} {
+		if want := def(c.field) / c.scale; c.got != want {
+			t.Errorf("boosting.%s: the engine's default is %v, the CRD's %v", c.field, c.got, want)
+		}
+	}
+
+	gb := forecastingv1alpha1.FamilyGradientBoosting
+	_, st := minimalSettings(t, "fenwick-trees",
+		forecastingv1alpha1.ModelSpec{Family: gb, Name: "trees-empty", Regression: &forecastingv1alpha1.RegressionSettings{Boosting: &forecastingv1alpha1.BoostingSettings{}}},
+		forecastingv1alpha1.ModelSpec{Family: gb, Name: "trees-set", Regression: &forecastingv1alpha1.RegressionSettings{Boosting: &forecastingv1alpha1.BoostingSettings{Rounds: 1, Shrinkage: "1", RowSamplePercent: 50}}},
+		forecastingv1alpha1.ModelSpec{Family: gb, Name: "trees-unset"})
+	zoo := st.Selection.Zoo
+	if got := *zoo[0].Regression.Boosting; got != engine {
+		t.Errorf("an empty boosting block reaches the engine as %+v, want %+v", got, engine)
+	}
+	want := engine
+	want.Rounds, want.Shrinkage, want.RowFraction = 1, 1, 0.5
+	if got := *zoo[1].Regression.Boosting; got != want {
+		t.Errorf("set values reach the engine as %+v, want %+v", got, want)
+	}
+	if zoo[2].Regression != nil {
+		t.Errorf("a member without settings reaches the engine with %+v", zoo[2].Regression)
+	}
+}
+
+// minimalSettings renders a portfolio with only its required fields and the given zoo, defaulted
+// from the CRD file as the apiserver does, and checks it into the engine's settings.
+func minimalSettings(t *testing.T, name string, zoo ...forecastingv1alpha1.ModelSpec) (runconfig.Config, Settings) {
+	t.Helper()
+	fp := rendertest.Default(&forecastingv1alpha1.ForecastPortfolio{
+		ObjectMeta: metav1.ObjectMeta{Name: name, Namespace: "planning"},
+		Spec: forecastingv1alpha1.ForecastPortfolioSpec{
+			Schedule: "@daily",
+			Source:   forecastingv1alpha1.DataSource{URI: "mem://flp-in/", Frequency: forecastingv1alpha1.Daily},
+			Output:   forecastingv1alpha1.DataOutput{URI: "mem://flp-out/"},
+			Horizon:  14,
+			Models:   zoo,
+			Trainer:  forecastingv1alpha1.TrainerSpec{Image: "registry.example/almanac-trainer:test"},
+		},
+	})
+	cfg, err := render.RunConfig(fp, &forecastingv1alpha1.ForecastRun{ObjectMeta: metav1.ObjectMeta{Name: name + "-1"}}, "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := Check(&cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return cfg, st
 }

@@ -225,6 +225,23 @@ type Regression struct {
 	Penalty string `json:"penalty,omitempty"`
 	// Pooled fits one model on all series of a shard together.
 	Pooled bool `json:"pooled,omitempty"`
+	// Boosting tunes the trees of GradientBoosting; nil means the API's defaults.
+	Boosting *Boosting `json:"boosting,omitempty"`
+}
+
+// Boosting is models[].regression.boosting, resolved (render writes every field of a block
+// the portfolio has).
+type Boosting struct {
+	// Rounds is the most trees of a step model, 1 to 5000.
+	Rounds int `json:"rounds"`
+	// Shrinkage is the weight of each tree as a decimal string in (0, 1].
+	Shrinkage string `json:"shrinkage"`
+	// TreeDepth is the depth of each tree, 1 to 12.
+	TreeDepth int `json:"treeDepth"`
+	// MinLeafRows is the fewest rows of a leaf, 1 to 1000.
+	MinLeafRows int `json:"minLeafRows"`
+	// RowSamplePercent is the percent of rows each tree is fitted on, 1 to 100.
+	RowSamplePercent int `json:"rowSamplePercent"`
 }
 
 // Features is spec.features: what the regression members learn from.
@@ -550,6 +567,35 @@ func (m Model) validate() error {
 		if _, err := Decimal(r.Penalty, 0, math.Inf(1), false); err != nil {
 			return fmt.Errorf("regression.penalty: %w", err)
 		}
+		if b := r.Boosting; b != nil {
+			if err := b.validate(); err != nil {
+				return fmt.Errorf("regression.boosting.%w", err)
+			}
+		}
+	}
+	return nil
+}
+
+// validate checks the ranges of the API's markers; errors start with the field below boosting.
+func (b *Boosting) validate() error {
+	for _, f := range []struct {
+		name      string
+		v, lo, hi int
+	}{
+		{"rounds", b.Rounds, 1, 5000},
+		{"treeDepth", b.TreeDepth, 1, 12},
+		{"minLeafRows", b.MinLeafRows, 1, 1000},
+		{"rowSamplePercent", b.RowSamplePercent, 1, 100},
+	} {
+		if f.v < f.lo || f.v > f.hi {
+			return fmt.Errorf("%s: %d is not in %d..%d", f.name, f.v, f.lo, f.hi)
+		}
+	}
+	if b.Shrinkage == "" {
+		return fmt.Errorf("shrinkage: must be set")
+	}
+	if _, err := Decimal(b.Shrinkage, 0, 1, true); err != nil {
+		return fmt.Errorf("shrinkage: %w", err)
 	}
 	return nil
 }

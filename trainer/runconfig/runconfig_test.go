@@ -71,6 +71,15 @@ func TestValidate(t *testing.T) {
 		"penalty": {func(c *Config) {
 			c.Models[0] = Model{Family: "Lasso", Regression: &Regression{Penalty: "-2"}}
 		}, "models[0].regression.penalty"},
+		"boosting settings at the limits": {trees(func(b *Boosting) {
+			*b = Boosting{Rounds: 1, Shrinkage: "1", TreeDepth: 12, MinLeafRows: 1000, RowSamplePercent: 1}
+		}), ""},
+		"boosting rounds above 5000":    {trees(func(b *Boosting) { b.Rounds = 5001 }), "models[0].regression.boosting.rounds"},
+		"boosting depth unset":          {trees(func(b *Boosting) { b.TreeDepth = 0 }), "models[0].regression.boosting.treeDepth"},
+		"boosting leaf rows above 1000": {trees(func(b *Boosting) { b.MinLeafRows = 1001 }), "models[0].regression.boosting.minLeafRows"},
+		"boosting row sample above 100": {trees(func(b *Boosting) { b.RowSamplePercent = 101 }), "models[0].regression.boosting.rowSamplePercent"},
+		"boosting shrinkage above 1":    {trees(func(b *Boosting) { b.Shrinkage = "1.5" }), "models[0].regression.boosting.shrinkage"},
+		"boosting shrinkage unset":      {trees(func(b *Boosting) { b.Shrinkage = "" }), "models[0].regression.boosting.shrinkage"},
 		"features with a known covariate": {func(c *Config) {
 			c.Source.Columns.Covariates = []string{"promo_flag", "price"}
 			c.Features = &Features{Lags: []int{1, 52}, Covariates: []string{"price"}}
@@ -140,7 +149,8 @@ func TestParseIsStrict(t *testing.T) {
 func TestEncodeRoundTrips(t *testing.T) {
 	c := valid()
 	c.Source.Columns.Covariates = []string{"promo_flag", "price"}
-	c.Models = append(c.Models, Model{Family: "Ridge", Regression: &Regression{Penalty: "0.25", Pooled: true}})
+	c.Models = append(c.Models, Model{Family: "Ridge", Regression: &Regression{Penalty: "0.25", Pooled: true}},
+		Model{Family: "GradientBoosting", Regression: &Regression{Boosting: &Boosting{Rounds: 200, Shrinkage: "0.05", TreeDepth: 3, MinLeafRows: 8, RowSamplePercent: 80}}})
 	c.Features = &Features{Calendar: []string{"WeekOfYear"}, Events: []Event{{Name: "harvest-fair", Dates: []string{"2026-09-05"}, PeriodsBefore: 1}},
 		Fourier: []Fourier{{Period: "52.18", Order: 3}}, Lags: []int{1, 52}, Windows: []int{4}, WindowStatistics: []string{"Mean"},
 		Covariates: []string{"promo_flag"}, Selection: &FeatureSelection{Filter: "MutualInformation", FilterKeep: 12, MaxFeatures: 6}}
@@ -195,5 +205,15 @@ func TestOverlap(t *testing.T) {
 		if got := Overlap(c.source, c.output); got != c.want {
 			t.Errorf("Overlap(%q, %q) = %v, want %v", c.source, c.output, got, c.want)
 		}
+	}
+}
+
+// trees returns an edit that makes models[0] a GradientBoosting member with the API's default
+// boosting settings changed by edit.
+func trees(edit func(*Boosting)) func(*Config) {
+	return func(c *Config) {
+		b := Boosting{Rounds: 500, Shrinkage: "0.1", TreeDepth: 4, MinLeafRows: 5, RowSamplePercent: 100}
+		edit(&b)
+		c.Models[0] = Model{Family: "GradientBoosting", Regression: &Regression{Boosting: &b}}
 	}
 }

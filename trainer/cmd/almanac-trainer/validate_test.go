@@ -40,6 +40,7 @@ func TestValidateRefusesNamingEveryField(t *testing.T) {
 		"wrong-enum.yaml":               `spec.source.frequency: Unsupported value: "Fortnightly"`,
 		"bad-cron.yaml":                 `spec.schedule: Invalid value: "15 2 * *"`,
 		"non-increasing-quantiles.yaml": "spec.quantilePercents: Invalid value: quantilePercents must be strictly increasing",
+		"boosting-shrinkage.yaml":       `boosting-shrinkage.yaml:30: ForecastPortfolio "fenwick-daily-trees" spec.models[1].regression.boosting.shrinkage: Invalid value: "1.5": shrinkage must be greater than 0 and at most 1`,
 	}
 	args := []string{"validate"}
 	for f := range want {

@@ -85,6 +85,9 @@ func DefaultParams() Params {
 // maxDepthLimit bounds MaxDepth so node indices and the recursion stay small.
 const maxDepthLimit = 30
 
+// Validate returns an error naming the first field out of range (Fit checks the same first).
+func (p Params) Validate() error { return p.check() }
+
 // check returns an error naming the first field out of range.
 func (p Params) check() error {
 	switch {
