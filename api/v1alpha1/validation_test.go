@@ -625,6 +625,8 @@ var _ = Describe("CRD validation", func() {
 			To(ContainSubstring("regression members"))
 		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.features.selection.maxFeatures")).
 			To(ContainSubstring("caps how many features"))
+		Expect(explain(kubectl, kubeconfig, "forecastportfolio.spec.models.regression.boosting.shrinkage")).
+			To(ContainSubstring("the learning rate"))
 	})
 })
 
