@@ -25,8 +25,8 @@ var SimplicityOrder = []string{
 // joined the default zoo when per-series selection with it gained on that half at two origins
 // (OWA 0.509 -> 0.504 and 0.500 -> 0.487, paired 90% bootstrap intervals -0.012 to 0.002 and
 // -0.021 to -0.005), M3 and generated weekly data unchanged (the automatic design's CPU budget
-// leaves it out there), for 1.5x the CPU on hourly data and 1.1x elsewhere (PROJECT-NOTES.md,
-// tenth session).
+// leaves it out or the design chosen does not use it), for 1.5x the CPU on hourly data and about
+// 1.1x elsewhere (PROJECT-NOTES.md, tenth session).
 var ByNameOnly = []string{models.FamilyRidge, models.FamilyLasso, models.FamilyGradientBoosting,
 	models.FamilyETSARIMADOTMCESMedian, models.FamilyETSARIMADOTMCESMean}
 
