@@ -2,9 +2,11 @@ package v1alpha1_test
 
 import (
 	"bytes"
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"time"
 
 	. "github.com/onsi/ginkgo/v2"
 	. "github.com/onsi/gomega"
@@ -613,7 +615,18 @@ var _ = Describe("CRD validation", func() {
 			Skip("kubectl not built in KUBEBUILDER_ASSETS")
 		}
 		kubeconfig := writeKubeconfig()
-		out := explain(kubectl, kubeconfig, "forecastportfolio.spec")
+		// The apiserver publishes a new CRD's schema to discovery and OpenAPI a little after
+		// the CRD is established; run first (focused alone, or its container shuffled first),
+		// kubectl explain can ask before that and answer "couldn't find resource".
+		var out string
+		Eventually(func() error {
+			b, err := exec.Command(kubectl, "--kubeconfig", kubeconfig, "explain", "forecastportfolio.spec").CombinedOutput()
+			out = string(b)
+			if err != nil {
+				return fmt.Errorf("kubectl explain forecastportfolio.spec: %v: %s", err, b)
+			}
+			return nil
+		}).WithTimeout(60 * time.Second).WithPolling(time.Second).Should(Succeed())
 		for _, field := range []string{"schedule", "timeZone", "concurrencyPolicy", "source", "models", "selection", "sharding", "drift", "quantilePercents", "horizon"} {
 			Expect(out).To(ContainSubstring(field + "\t"))
 		}
