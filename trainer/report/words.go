@@ -189,7 +189,7 @@ var familyWords = map[string]string{
 	models.FamilyDrift:                 "extends the straight line from the first to the last actual",
 	models.FamilySeasonalAdjustedNaive: "repeats the last actual with the seasonal pattern put back",
 	models.FamilyETS:                   "exponential smoothing: level, trend and season, weighted towards recent periods",
-	models.FamilyTheta:                 "the Theta method: a smoothed level with a damped long-run trend",
+	models.FamilyTheta:                 "the Theta method: a smoothed level plus half the slope of the straight line through the history",
 	models.FamilyCroston:               "for intermittent demand: forecasts demand size and the interval between demands separately",
 	models.FamilySBA:                   "Croston's method with the Syntetos–Boylan bias correction, for intermittent demand",
 	models.FamilyTSB:                   "for intermittent demand: tracks the chance of a demand, so the forecast can fade for dying items",
