@@ -1,10 +1,8 @@
 package reference
 
 import (
-	"bufio"
 	"errors"
 	"fmt"
-	"os"
 	"slices"
 	"strconv"
 	"strings"
@@ -37,47 +35,24 @@ func etsFormOf(s string) (models.ETSForm, error) {
 	return f, nil
 }
 
-// readETSM3Fixture reads testdata/ets_m3_r.csv; lines starting with # are comments, and errors
+// readETSM3Fixture reads testdata/ets_m3_r.csv (readCSV: its # lines name the source); errors
 // name the line.
 func readETSM3Fixture(t *testing.T) []etsM3Fit {
 	t.Helper()
-	const path = "testdata/ets_m3_r.csv"
-	const header = "series,form,loglik,alpha,beta,gamma,phi,l0,b0,seeds,cpu_ms"
-	fh, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer fh.Close()
-	var out []etsM3Fit
-	sc := bufio.NewScanner(fh)
-	sc.Buffer(make([]byte, 0, 1<<16), 1<<20)
-	line, seenHeader := 0, false
 	num := func(s string) (float64, error) {
 		if s == "" {
 			return 0, nil
 		}
 		return strconv.ParseFloat(s, 64)
 	}
-	for sc.Scan() {
-		line++
-		text := sc.Text()
-		if strings.HasPrefix(text, "#") {
-			continue
-		}
-		if !seenHeader {
-			if text != header {
-				t.Fatalf("%s:%d: header %q, want %q", path, line, text, header)
-			}
-			seenHeader = true
-			continue
-		}
-		f := strings.Split(text, ",")
+	var out []etsM3Fit
+	err := readCSV("testdata/ets_m3_r.csv", "series,form,loglik,alpha,beta,gamma,phi,l0,b0,seeds,cpu_ms", func(line int, f []string) error {
 		if len(f) != 11 {
-			t.Fatalf("%s:%d: %d fields, want 11", path, line, len(f))
+			return fmt.Errorf("%d fields, want 11", len(f))
 		}
 		form, err := etsFormOf(f[1])
 		if err != nil {
-			t.Fatalf("%s:%d: %v", path, line, err)
+			return err
 		}
 		v := make([]float64, 11)
 		var errs []error
@@ -97,12 +72,13 @@ func readETSM3Fixture(t *testing.T) []etsM3Fit {
 			r.Params.Seasonal = append(r.Params.Seasonal, x)
 		}
 		if err := errors.Join(errs...); err != nil {
-			t.Fatalf("%s:%d: %v", path, line, err)
+			return err
 		}
 		out = append(out, r)
-	}
-	if err := sc.Err(); err != nil {
-		t.Fatalf("%s: %v", path, err)
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
 	}
 	return out
 }

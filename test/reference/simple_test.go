@@ -250,7 +250,8 @@ func m3Dir() string {
 }
 
 // readCSV calls row for every data line of a headered CSV file (no quoting, per the README),
-// after checking the header; errors name the file and line.
+// after checking the header; lines starting with # (a fixture's note of its source) are
+// skipped; errors name the file and line.
 func readCSV(path string, header string, row func(line int, f []string) error) error {
 	fh, err := os.Open(path)
 	if err != nil {
@@ -258,13 +259,17 @@ func readCSV(path string, header string, row func(line int, f []string) error) e
 	}
 	defer fh.Close()
 	sc := bufio.NewScanner(fh)
-	line := 0
+	line, seenHeader := 0, false
 	for sc.Scan() {
 		line++
-		if line == 1 {
+		if strings.HasPrefix(sc.Text(), "#") {
+			continue
+		}
+		if !seenHeader {
 			if sc.Text() != header {
-				return fmt.Errorf("%s:1: header %q, want %q", path, sc.Text(), header)
+				return fmt.Errorf("%s:%d: header %q, want %q", path, line, sc.Text(), header)
 			}
+			seenHeader = true
 			continue
 		}
 		if err := row(line, strings.Split(sc.Text(), ",")); err != nil {

@@ -4,8 +4,6 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
-	"os"
-	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -105,11 +103,8 @@ func TestMainReshapingFlags(t *testing.T) {
 	for i := range 4 {
 		fmt.Fprintf(&test, "A,%s,%d\n", t0.AddDate(0, 0, 7*(60+i)).Format(time.RFC3339), 1000)
 	}
-	for name, body := range map[string]string{"train.csv": train.String(), "test.csv": test.String()} {
-		if err := os.WriteFile(filepath.Join(dir, name), []byte(body), 0o600); err != nil {
-			t.Fatal(err)
-		}
-	}
+	writeFile(t, dir, "train.csv", train.String())
+	writeFile(t, dir, "test.csv", test.String())
 	for _, args := range [][]string{{"--keep-last", "-1"}, {"--origin-back", "-1"}, {"--score-published", "--origin-back", "1"}, {"--score-published", "--keep-last", "2"}} {
 		var out, errb bytes.Buffer
 		if code := Main(append([]string{"--data", dir, "--frequency", "weekly"}, args...), &out, &errb); code != 2 {
