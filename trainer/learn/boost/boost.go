@@ -27,7 +27,7 @@ type Model struct {
 // rows, mismatched lengths and out-of-range Params are errors that name the row, column or
 // field.
 func Fit(X *mat.Dense, y []float64, valX *mat.Dense, valY []float64, p Params) (*Model, error) {
-	if err := p.check(); err != nil {
+	if err := p.Validate(); err != nil {
 		return nil, err
 	}
 	if X == nil || X.IsEmpty() {

@@ -85,11 +85,8 @@ func DefaultParams() Params {
 // maxDepthLimit bounds MaxDepth so node indices and the recursion stay small.
 const maxDepthLimit = 30
 
-// Validate returns an error naming the first field out of range (Fit checks the same first).
-func (p Params) Validate() error { return p.check() }
-
-// check returns an error naming the first field out of range.
-func (p Params) check() error {
+// Validate returns an error naming the first field out of range (Fit calls it first).
+func (p Params) Validate() error {
 	switch {
 	case p.Rounds < 1:
 		return fmt.Errorf("boost: Params.Rounds is %d, want at least 1", p.Rounds)
