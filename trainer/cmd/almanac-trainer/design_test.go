@@ -1,6 +1,8 @@
 package main
 
 import (
+	"bytes"
+	"context"
 	"os"
 	"path/filepath"
 	"regexp"
@@ -131,5 +133,33 @@ func TestLocalShardsApplyThePlanDesign(t *testing.T) {
 	}
 	if rows != 24 || spread == 0 {
 		t.Errorf("%d models rows; %d segments spread over more than one shard (%v), want 24 rows and at least one", rows, spread, shardsOfSegment)
+	}
+}
+
+// TestLocalDefaultZooLeadsWithTheBenchmarkedDesign runs local without --models: the plan's
+// first candidate design is the ETS, Theta and DOTM mean, the default README's M3 and M4
+// hourly figures measure (before the eleventh session local's zoo had no DOTM, so its runs
+// fell back to the ETS and Theta mean).
+func TestLocalDefaultZooLeadsWithTheBenchmarkedDesign(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"generate", "--output", "file://" + dir + "/in/", "--frequency", "Weekly", "--items", "4", "--depots", "2", "--periods", "120"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("generate: exit %d: %s", code, errb.String())
+	}
+	if code := run(ctx, []string{"local", "--input", "file://" + dir + "/in/", "--output", "file://" + dir + "/out/", "--series", "item,depot",
+		"--date", "week_start", "--value", "units", "--frequency", "Weekly", "--horizon", "8", "--run", "flp-default-zoo"}, &out, &errb, noenv); code != 0 {
+		t.Fatalf("local: exit %d: %s", code, errb.String())
+	}
+	b, err := os.ReadFile(filepath.Join(dir, "out", "runs", "flp-default-zoo", "plan.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := pipeline.DecodePlan(b, "plan.json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Design == nil || len(p.Design.Candidates) == 0 || p.Design.Candidates[0].Name != design.Combinations[0].Name {
+		t.Fatalf("plan.json design %+v: want the first candidate %q", p.Design, design.Combinations[0].Name)
 	}
 }
