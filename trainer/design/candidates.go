@@ -10,6 +10,7 @@ package design
 import (
 	"fmt"
 	"slices"
+	"strconv"
 	"strings"
 
 	"almanac.dev/almanac/trainer/models"
@@ -158,7 +159,7 @@ func Candidates(base selection.Config, combos []Combination) []Candidate {
 		for _, method := range []string{selection.CombineMean, selection.CombineMedian} {
 			c := per
 			c.CombineTop, c.CombineMethod, c.CombineMargin = topK, method, alwaysCombine
-			add(fmt.Sprintf("top%d-%s", topK, method), c)
+			add(topName(topK, method), c)
 		}
 	}
 	if base.CombineTop > 1 {
@@ -166,6 +167,23 @@ func Candidates(base selection.Config, combos []Combination) []Candidate {
 	}
 	add(NamePerSeries, per)
 	return out
+}
+
+// topName names the candidate "the method of each series' best k members" (top3-mean).
+func topName(k int, method string) string { return fmt.Sprintf("top%d-%s", k, method) }
+
+// TopK reads a name topName gives back into its k and method; ok is false for other names.
+func TopK(name string) (k int, method string, ok bool) {
+	rest, found := strings.CutPrefix(name, "top")
+	if !found {
+		return 0, "", false
+	}
+	num, method, found := strings.Cut(rest, "-")
+	k, err := strconv.Atoi(num)
+	if !found || err != nil || k < 2 || method == "" || topName(k, method) != name {
+		return 0, "", false
+	}
+	return k, method, true
 }
 
 // subset reports whether every element of a is in b.

@@ -10,6 +10,7 @@ import (
 	"strings"
 	"testing"
 
+	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 )
@@ -314,5 +315,29 @@ func TestStandaloneBatchesEqualOneCall(t *testing.T) {
 	o.Mode, o.Decided = Fixed, nil
 	if f := o.Standalone(); f == nil || !f(in[0]) {
 		t.Error("Fixed: every series stands alone")
+	}
+}
+
+// TestTopKNames: the names of the top-k candidates read back into k and method; other
+// candidate names do not.
+func TestTopKNames(t *testing.T) {
+	names := map[string]bool{}
+	for _, c := range Candidates(selection.Config{Horizon: 3, Zoo: specs(models.FamilyNaive, models.FamilyTheta, models.FamilyDOTM, models.FamilyETS)}, Combinations) {
+		names[c.Name] = true
+		k, method, ok := TopK(c.Name)
+		if want := strings.HasPrefix(c.Name, "top"); ok != want {
+			t.Errorf("TopK(%q) ok = %v", c.Name, ok)
+		}
+		if ok && (k != topK || (method != selection.CombineMean && method != selection.CombineMedian)) {
+			t.Errorf("TopK(%q) = %d, %q", c.Name, k, method)
+		}
+	}
+	if !names["top3-mean"] || !names["top3-median"] {
+		t.Fatalf("candidates %v lack the top-3 designs", names)
+	}
+	for _, bad := range []string{"top", "top1-mean", "topx-mean", "top3", "top03-mean", "ets-theta"} {
+		if _, _, ok := TopK(bad); ok {
+			t.Errorf("TopK(%q) read a name Candidates never gives", bad)
+		}
 	}
 }

@@ -40,8 +40,10 @@ type page struct {
 	Overview       Overview
 	Metric         string
 	MetricSentence string
-	BandIntro      string
-	ModelRows      []modelRow
+	// ChoiceLine and ChoiceIntro say how models were chosen (ChoiceSummary).
+	ChoiceLine, ChoiceIntro string
+	BandIntro               string
+	ModelRows               []modelRow
 	// FeatureUse lists, per feature-built member, the features it kept (see featureUse).
 	FeatureUse               []FeatureUse
 	Unit, Noun               string
@@ -99,8 +101,10 @@ type shownSeries struct {
 	Why                             []string
 	Model, Params                   string
 	Family, FamilyWords             string
-	Score                           float64
-	ScoreWords                      string
+	// Choice says how the model was chosen (ChoiceWords).
+	Choice     string
+	Score      float64
+	ScoreWords string
 	// Ratio is realized / expected error of the previous forecast ("" without evaluation).
 	Ratio string
 	Band  string
@@ -152,6 +156,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 	for _, q := range levels {
 		pg.Quantiles = append(pg.Quantiles, tables.QuantileColumn(q))
 	}
+	pg.ChoiceLine, pg.ChoiceIntro = ChoiceSummary(cfg.Selection.Design, string(metric))
 	if !cfg.ScheduledTime.IsZero() {
 		pg.Scheduled = cfg.ScheduledTime.UTC().Format("Mon 2 Jan 2006 15:04 MST")
 	}
@@ -172,7 +177,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 
 	for _, c := range pg.Overview.Models {
 		f := familyOf(cfg.Models, c.Name)
-		pg.ModelRows = append(pg.ModelRows, modelRow{Name: c.Name, Family: f, Words: FamilyWords(f), Count: c.Count,
+		pg.ModelRows = append(pg.ModelRows, modelRow{Name: c.Name, Family: f, Words: ModelWords(c.Name, f), Count: c.Count,
 			Share: fmt.Sprintf("%.0f%%", 100*float64(c.Count)/float64(pg.Overview.Trained))})
 	}
 	if len(pg.Overview.Models) > 0 {
@@ -240,7 +245,8 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 			Model: m.Model, Params: m.Params, Score: m.Score, ScoreWords: ScoreWords(metric, m.Score, unit, freq, freq.SeasonLength()),
 			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
 		s.Family = familyOf(cfg.Models, m.Model)
-		s.FamilyWords = FamilyWords(s.Family)
+		s.FamilyWords = ModelWords(m.Model, s.Family)
+		s.Choice = ChoiceWords(m.Design, m.Segment, string(metric))
 		if e := s.Eval; e != nil && e.Expected > 0 && finite(e.Realized) {
 			s.Ratio = fmt.Sprintf("%.1f", e.Realized/e.Expected)
 		}

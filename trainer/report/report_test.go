@@ -524,6 +524,12 @@ func TestReportOfPublishedRun(t *testing.T) {
 		"misses about 26% smaller than the history's typical change from the same week a year earlier", // oat-flakes-1kg/harrow, MASE 0.74
 		"no backtest score", // earl-grey-tea-250g/kelso, NaN
 		"ETS (exponential smoothing: level, trend and season", "(2.6× expected): drifted", "Fitted parameters (for analysts): ETS alpha=0.3",
+		// How each drawn series' model was chosen, by its models row's design: unit b-0000's
+		// rows say ets-theta (one design for the group), the others per-series.
+		"the same models for every series of its group (weekly/smooth/long): the way (ets-theta) chosen for the group",
+		"chosen for the lowest backtest MASE of the models tried",
+		// The run declares its design Fixed.
+		"as the portfolio declares its models and combination, per series by the lowest backtest MASE",
 	} {
 		if !strings.Contains(page, s) {
 			t.Errorf("page lacks %q", s)

@@ -6,7 +6,9 @@ import (
 	"strings"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/models"
+	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/tables"
@@ -200,7 +202,7 @@ var familyWords = map[string]string{
 	models.FamilyCES:                   "complex exponential smoothing: one smoothing rule that follows a level or a trend as the data show",
 	models.FamilyETSARIMADOTMCESMedian: "the middle of the ETS, ARIMA, DOTM and CES forecasts (the median of the four)",
 	models.FamilyETSARIMADOTMCESMean:   "the equal-weight mean of the ETS, ARIMA, DOTM and CES forecasts",
-	selection.FamilyCombination:        "the mean or median (as the portfolio sets) of the best few models' forecasts",
+	selection.FamilyCombination:        "the mean or median of several models' forecasts",
 	models.FamilyRidge:                 "a regression on the portfolio's features (promotions, prices, events, recent demand), with all coefficients shrunk a little",
 	models.FamilyLasso:                 "a regression on the portfolio's features that keeps only those that help, with the rest set to zero",
 	models.FamilyGradientBoosting:      "many small decision trees on the portfolio's features, each correcting the ones before",
@@ -212,3 +214,56 @@ var familyWords = map[string]string{
 
 // FamilyWords describes a model family for a planner ("" when unknown).
 func FamilyWords(family string) string { return familyWords[family] }
+
+// ModelWords describes a chosen model for a planner: a combination by its method and members
+// as its name gives them (selection.CombinationMembers: "Combination(mean: ETS, Theta)" is
+// "the mean of the ETS and Theta forecasts"), any other model by its family (FamilyWords).
+func ModelWords(model, family string) string {
+	if family == selection.FamilyCombination {
+		if method, members, ok := selection.CombinationMembers(model); ok {
+			return fmt.Sprintf("the %s of the %s forecasts", method, andList(members))
+		}
+	}
+	return FamilyWords(family)
+}
+
+// andList joins items as English does: "a", "a and b", "a, b and c".
+func andList(items []string) string {
+	if len(items) < 2 {
+		return strings.Join(items, "")
+	}
+	return strings.Join(items[:len(items)-1], ", ") + " and " + items[len(items)-1]
+}
+
+// ChoiceSummary says how the run chose its models, for the overview (line) and the top of the
+// chosen-models section (intro), by spec.selection.design (runconfig.Design*; "" is Auto,
+// the API's default).
+func ChoiceSummary(mode, metric string) (line, intro string) {
+	const backtest = "the backtest (the model is fitted on older data and tested on the periods that followed, several times)"
+	switch mode {
+	case runconfig.DesignPerSeries:
+		return "per series, by the lowest backtest " + metric,
+			"Every series gets the model that did best on its own history in " + backtest + ". Simple models win ties."
+	case runconfig.DesignFixed:
+		return "as the portfolio declares its models and combination, per series by the lowest backtest " + metric,
+			"Every series gets what the portfolio declares: the model that did best on its own history in " + backtest + ", or the declared combination of its best models where that did better. Simple models win ties."
+	}
+	return "per group of similar series, the way of forecasting chosen for the group (below); within it, per series by the lowest backtest " + metric,
+		"Each group of similar series is forecast the way chosen for it (see \"How each group of series was forecast\"): the mean of a few fixed models for every series of the group, or each series' own best model or the mean or median of its best few by " + backtest + ". Simple models win ties."
+}
+
+// ChoiceWords says, under a series' plot, how its model was chosen. designName and segment are
+// the models table's design and segment columns (designName "" for runs with a declared
+// design and for tables older than the column).
+func ChoiceWords(designName, segment, metric string) string {
+	switch designName {
+	case "", design.NamePerSeries:
+		return "chosen for the lowest backtest " + metric + " of the models tried"
+	case design.NameDeclared:
+		return "the combination the portfolio declares, where it backtests better than the best single model"
+	}
+	if k, method, ok := design.TopK(designName); ok {
+		return fmt.Sprintf("the %s of its %d models with the lowest backtest %s, the way chosen for its group (%s)", method, k, metric, segment)
+	}
+	return fmt.Sprintf("the same models for every series of its group (%s): the way (%s) chosen for the group on the latest periods of its series' histories", segment, designName)
+}

@@ -716,6 +716,20 @@ func comboName(method string, top []*candidate) string {
 	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", "))
 }
 
+// CombinationMembers splits the name comboName gives a combination, "Combination(mean: ETS,
+// Theta)", into its method and member names; ok is false for any other name.
+func CombinationMembers(name string) (method string, members []string, ok bool) {
+	rest, found := strings.CutPrefix(name, FamilyCombination+"(")
+	if !found || !strings.HasSuffix(rest, ")") {
+		return "", nil, false
+	}
+	method, list, found := strings.Cut(strings.TrimSuffix(rest, ")"), ": ")
+	if !found || method == "" || list == "" {
+		return "", nil, false
+	}
+	return method, strings.Split(list, ", "), true
+}
+
 // combineAll combines per-origin forecasts of the members.
 func combineAll(method string, top []*candidate, get func(*candidate) [][]float64) [][]float64 {
 	no := len(get(top[0]))

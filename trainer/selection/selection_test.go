@@ -480,3 +480,21 @@ func TestFitsKeptBetweenCalls(t *testing.T) {
 		t.Error("fits for 2 of 5 series: no error")
 	}
 }
+
+// TestCombinationMembers reads back the names comboName gives, and nothing else.
+func TestCombinationMembers(t *testing.T) {
+	top := []*candidate{
+		{member: &member{spec: models.Spec{Family: models.FamilyTheta}}, idx: 1},
+		{member: &member{spec: models.Spec{Family: models.FamilyETS, Name: "ets-damped"}}, idx: 0},
+	}
+	name := comboName(CombineMedian, top)
+	method, members, ok := CombinationMembers(name)
+	if !ok || method != CombineMedian || len(members) != 2 || members[0] != "ets-damped" || members[1] != models.FamilyTheta {
+		t.Fatalf("CombinationMembers(%q) = %q, %q, %v", name, method, members, ok)
+	}
+	for _, bad := range []string{"ETS(A,N,N)", "Combination(mean)", "Combination(: ETS)", "Combination(mean: ETS", "Combination(mean: )"} {
+		if _, _, ok := CombinationMembers(bad); ok {
+			t.Errorf("CombinationMembers(%q) read a name comboName never gives", bad)
+		}
+	}
+}
