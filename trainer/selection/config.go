@@ -176,8 +176,11 @@ type Result struct {
 	Chosen string
 	// Family is the chosen member's family, or FamilyCombination.
 	Family string
-	// Model is the fitted model's own name with its configuration, e.g. "ETS(M,Ad,N)".
-	Model  string
+	// Model is the fitted model's own name with its configuration, e.g. "ETS(M,Ad,N)"; for a
+	// combination its members' fitted names, "Combination(mean: ETS(M,Ad,N), Theta)".
+	Model string
+	// Params are the fitted parameters by name; a combination's are its members', each under
+	// "<member>." ("ETS.alpha").
 	Params map[string]float64
 	// Mean is the point forecast, Horizon steps.
 	Mean []float64

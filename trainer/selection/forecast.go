@@ -576,7 +576,8 @@ func finishCombination(res *Result, name string, top []*candidate, a backtest.As
 		means[i] = fcs[i].Mean
 		allQ = allQ && fcs[i].Quantiles != nil
 	}
-	res.Chosen, res.Family, res.Model, res.Params = name, FamilyCombination, name, nil
+	res.Chosen, res.Family = name, FamilyCombination
+	res.Model, res.Params = combinedFits(cfg.CombineMethod, top, fitted)
 	res.Mean = combine(cfg.CombineMethod, means)
 	res.Expected, res.StepErrors = a.Overall, a.Steps
 	res.BacktestErrors, res.BacktestHeld = a.Errors, a.Held
@@ -714,6 +715,26 @@ func comboName(method string, top []*candidate) string {
 		names[i] = c.spec.DisplayName()
 	}
 	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", "))
+}
+
+// combinedFits names a combination by its members' fitted models, in zoo order
+// ("Combination(mean: ETS(M,Ad,N), Theta, DOTM)"), and gathers their parameters under the
+// member's zoo name ("ETS.alpha"), so the models table shows what was combined.
+func combinedFits(method string, top []*candidate, fitted []models.Fitted) (string, map[string]float64) {
+	order := make([]int, len(top))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortFunc(order, func(a, b int) int { return top[a].idx - top[b].idx })
+	names := make([]string, len(order))
+	params := map[string]float64{}
+	for j, i := range order {
+		names[j] = fitted[i].Name()
+		for k, v := range fitted[i].Params() {
+			params[top[i].spec.DisplayName()+"."+k] = v
+		}
+	}
+	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", ")), params
 }
 
 // CombinationMembers splits the name comboName gives a combination, "Combination(mean: ETS,

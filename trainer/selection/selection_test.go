@@ -498,3 +498,35 @@ func TestCombinationMembers(t *testing.T) {
 		}
 	}
 }
+
+// TestCombinationNamesItsFits: a combination's Model names each member's fitted model in zoo
+// order and its Params carry every member's parameters under the member's name, so the
+// models table's params column shows what was combined (before, only the combination's name).
+func TestCombinationNamesItsFits(t *testing.T) {
+	var y []float64
+	for i := 0; i < 30; i++ {
+		y = append(y, 50+float64(i)+3*math.Sin(float64(i)))
+	}
+	cfg := Config{Horizon: 3, Zoo: []models.Spec{{Family: models.FamilyTheta}, {Family: models.FamilyETS, Name: "ets"}}, CombineTop: 2, CombineMargin: 1000}
+	r, err := Forecast(yearly("trend", y...), cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Chosen != "Combination(mean: Theta, ets)" || !strings.HasPrefix(r.Model, "Combination(mean: Theta, ETS(") {
+		t.Fatalf("chosen %q, model %q", r.Chosen, r.Model)
+	}
+	var theta, ets int
+	for k := range r.Params {
+		switch {
+		case strings.HasPrefix(k, "Theta."):
+			theta++
+		case strings.HasPrefix(k, "ets."):
+			ets++
+		default:
+			t.Errorf("param %q is not under a member's name", k)
+		}
+	}
+	if theta == 0 || ets == 0 || r.Params["ets.alpha"] <= 0 {
+		t.Errorf("params %v: want both members' parameters, ets.alpha among them", r.Params)
+	}
+}
