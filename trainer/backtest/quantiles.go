@@ -39,8 +39,27 @@ type QuantileRecord struct {
 // ok is false when no point has a positive finite scale at its origin or the whole series'
 // scale is not positive and finite, or q does not have one row per level of len(mean) steps.
 func QuantilesOnBacktest(y []float64, m int, origins []int, errs [][]float64, levels []float64, mean []float64, q [][]float64) (QuantileRecord, bool) {
+	if len(origins) != len(errs) {
+		return QuantileRecord{Below: make([]int, len(levels)), PinballSum: make([]float64, len(levels))}, false
+	}
+	m = ScaleLag(len(y), m)
+	scales := make([]float64, len(origins))
+	for i, t := range origins {
+		scales[i] = math.NaN()
+		if t <= len(y) {
+			scales[i] = NaiveScale(y[:t], m, 1)
+		}
+	}
+	return QuantilesOnScales(NaiveScale(y, m, 1), scales, errs, levels, mean, q)
+}
+
+// QuantilesOnScales is QuantilesOnBacktest with the scales given: sn the whole series' and
+// scales[i] origin i's (an origin whose scale is not positive and finite is skipped). The
+// hierarchy's reconcile step scores reconciled bands with it on the reconciled backtest
+// errors, from the scales the train step recorded.
+func QuantilesOnScales(sn float64, scales []float64, errs [][]float64, levels []float64, mean []float64, q [][]float64) (QuantileRecord, bool) {
 	rec := QuantileRecord{Below: make([]int, len(levels)), PinballSum: make([]float64, len(levels))}
-	if len(levels) == 0 || len(q) != len(levels) || len(origins) != len(errs) {
+	if len(levels) == 0 || len(q) != len(levels) || len(scales) != len(errs) {
 		return rec, false
 	}
 	for j := range q {
@@ -48,16 +67,10 @@ func QuantilesOnBacktest(y []float64, m int, origins []int, errs [][]float64, le
 			return rec, false
 		}
 	}
-	m = ScaleLag(len(y), m)
-	sn := NaiveScale(y, m, 1)
 	if !(sn > 0) || math.IsInf(sn, 0) {
 		return rec, false
 	}
-	for i, t := range origins {
-		if t > len(y) {
-			continue
-		}
-		si := NaiveScale(y[:t], m, 1)
+	for i, si := range scales {
 		if !(si > 0) || math.IsInf(si, 0) {
 			continue
 		}

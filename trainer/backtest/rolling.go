@@ -200,6 +200,9 @@ type OriginRecord struct {
 	// Scale is the metric's in-sample scale at the origin, NaiveScale(y[:t], ScaleLag(len(y),
 	// m), p) with p = 1 for MASE and 2 for RMSSE; NaN for the other metrics.
 	Scale float64
+	// BandScale is NaiveScale(y[:t], ScaleLag(len(y), m), 1) whatever the metric: the origin's
+	// scale in QuantilesOnBacktest.
+	BandScale float64
 }
 
 // Records returns the origins of an Assessment a that Assess(metric, y, m, ...) made, for
@@ -209,10 +212,10 @@ func Records(metric Metric, y []float64, m int, a Assessment) []OriginRecord {
 	out := make([]OriginRecord, len(a.Errors))
 	for i, e := range a.Errors {
 		t := len(y) - a.Held[i]
-		r := OriginRecord{Held: a.Held[i], Actuals: y[t : t+len(e)], Errors: e, Scale: math.NaN()}
+		r := OriginRecord{Held: a.Held[i], Actuals: y[t : t+len(e)], Errors: e, Scale: math.NaN(), BandScale: NaiveScale(y[:t], m, 1)}
 		switch metric {
 		case MASE:
-			r.Scale = NaiveScale(y[:t], m, 1)
+			r.Scale = r.BandScale
 		case RMSSE:
 			r.Scale = NaiveScale(y[:t], m, 2)
 		}

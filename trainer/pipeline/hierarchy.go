@@ -345,13 +345,14 @@ func (x errorFloats) MarshalJSON() ([]byte, error) {
 
 func (x *errorFloats) UnmarshalJSON(b []byte) error { return (*floats)(x).UnmarshalJSON(b) }
 
-// NodesVersion is the version of nodes.json. Version 3 added NodeBase.Metric and Promise; the
-// reconcile step still reads version 2 (a run trained before the upgrade), whose nodes keep
-// their base promise.
-const NodesVersion = 3
+// NodesVersion is the version of nodes.json. Version 3 added NodeBase.Metric and Promise,
+// version 4 the band scales (NodeBase.BandScale, PromiseOrigin.BandScale); the reconcile step
+// still reads versions 2 and 3 (a run trained before the upgrade), whose nodes keep their base
+// promise (2) or have no band record (2 and 3).
+const NodesVersion = 4
 
 // nodesVersionRead reports whether the reconcile step reads nodes.json of version v.
-func nodesVersionRead(v int) bool { return v == 2 || v == NodesVersion }
+func nodesVersionRead(v int) bool { return v >= 2 && v <= NodesVersion }
 
 // NodesFile is nodes.json, what a unit of a hierarchical run leaves for the reconcile step:
 // the base (unreconciled) forecasts and backtest errors of every node train forecast, and the
@@ -385,6 +386,10 @@ type NodeBase struct {
 	// scores the reconciled forecast's promise; both empty without backtest (and in version 2).
 	Metric  string          `json:"metric,omitempty"`
 	Promise []PromiseOrigin `json:"promise,omitempty"`
+	// BandScale is the whole history's scale the band record takes the bands in
+	// (selection.Result.BandScale); with PromiseOrigin.BandScale it lets the reconcile step
+	// score the reconciled bands (bandRecord). Null without Promise.
+	BandScale *float64 `json:"bandScale,omitempty"`
 }
 
 // PromiseOrigin is one origin of a node's selection backtest (backtest.OriginRecord): Held as in
@@ -396,6 +401,8 @@ type PromiseOrigin struct {
 	Actuals floats   `json:"actuals"`
 	Errors  floats   `json:"errors"`
 	Scale   *float64 `json:"scale,omitempty"`
+	// BandScale is the origin's scale in the band record (backtest.OriginRecord.BandScale).
+	BandScale *float64 `json:"bandScale,omitempty"`
 }
 
 // record is the origin as backtest.AssessRecords takes it.
@@ -437,15 +444,22 @@ func (h *hierarchy) baseOf(s series.Series, level string, r design.Result) NodeB
 	}
 	if len(r.Promise) > 0 {
 		nb.Metric = string(r.Metric)
+		nb.BandScale = finitePtr(r.BandScale)
 		for _, o := range r.Promise {
-			po := PromiseOrigin{Held: o.Held, Actuals: slices.Clone(o.Actuals), Errors: slices.Clone(o.Errors)}
-			if sc := o.Scale; !math.IsNaN(sc) && !math.IsInf(sc, 0) {
-				po.Scale = &sc
-			}
+			po := PromiseOrigin{Held: o.Held, Actuals: slices.Clone(o.Actuals), Errors: slices.Clone(o.Errors),
+				Scale: finitePtr(o.Scale), BandScale: finitePtr(o.BandScale)}
 			nb.Promise = append(nb.Promise, po)
 		}
 	}
 	return nb
+}
+
+// finitePtr is a pointer to v, or nil when v is not finite (JSON has no NaN).
+func finitePtr(v float64) *float64 {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return nil
+	}
+	return &v
 }
 
 // usesErrors reports whether the run's method estimates W from the backtest errors.
@@ -474,6 +488,13 @@ type treeResult struct {
 	// nodePromises); promises says how many nodes kept their base promise.
 	promise  map[string]promise
 	promises string
+	// band holds, for every node whose bands were rebuilt from reconciled errors, how those
+	// bands fare on its reconciled selection backtest (bandRecord). Nodes not in it keep their
+	// base record: those whose bands are their base bands re-centred, and those whose record
+	// cannot be scored (no selection backtest; nodes.json before version 4).
+	band map[string]backtest.QuantileRecord
+	// levels are the quantile levels of the bands and records.
+	levels []float64
 }
 
 // promise is a node's promised error: Expected and StepErrors in selection's terms.
@@ -564,7 +585,7 @@ func (h *hierarchy) reconcileTree(nodes []NodeBase, freq series.Frequency) (tree
 			return treeResult{}, fmt.Errorf("hierarchy: reconciling the backtest errors: %w", err)
 		}
 	}
-	tr.method, tr.lambda, tr.note = res.Method, res.Lambda, res.Note
+	tr.method, tr.lambda, tr.note, tr.levels = res.Method, res.Lambda, res.Note, h.quantileLevels
 	tr.deviation = reconcile.MaxDeviation(hs, fc)
 	tr.mean = make(map[string][]float64, len(order))
 	tr.quantiles = make(map[string][][]float64, len(order))
@@ -575,6 +596,14 @@ func (h *hierarchy) reconcileTree(nodes []NodeBase, freq series.Frequency) (tree
 		var qs [][]float64
 		if bands {
 			qs = h.errorBands(fc[k], cols.own(k, recErr[k]))
+		}
+		if qs != nil {
+			if b := h.bandRecord(n, fc[k], qs, pcols.of(k, recProm, len(n.Promise))); b.Points > 0 {
+				if tr.band == nil {
+					tr.band = map[string]backtest.QuantileRecord{}
+				}
+				tr.band[n.Key] = b
+			}
 		}
 		if qs == nil && len(n.Quantiles) > 0 {
 			qs = h.recentred(n, fc[k])
@@ -619,14 +648,10 @@ func nodePromises(nodes []NodeBase, order []int, pc errorCols, rec [][]float64) 
 			continue
 		}
 		recs := make([]backtest.OriginRecord, len(n.Promise))
-		errs := make([][]float64, len(n.Promise))
 		for o, po := range n.Promise {
 			recs[o] = po.record()
-			errs[o] = make([]float64, len(pc.origin[k][o]))
-			for s, j := range pc.origin[k][o] {
-				errs[o][s] = rec[k][j]
-			}
 		}
+		errs := pc.of(k, rec, len(n.Promise))
 		score, steps := backtest.AssessRecords(backtest.Metric(n.Metric), recs, errs)
 		if math.IsNaN(score) {
 			kept++
@@ -646,6 +671,49 @@ type errorCols struct {
 	origin [][][]int
 	// at[c] is column c's origin position p (periods before the tree's last period).
 	at []int
+}
+
+// of returns node k's reconciled errors rec[k] by origin and step, as its origins lie in the
+// columns (origin[k]); nil when the node does not have exactly want origins there or rec has
+// no row for it.
+func (ec errorCols) of(k int, rec [][]float64, want int) [][]float64 {
+	if ec.n == 0 || k >= len(rec) || len(ec.origin[k]) != want || want == 0 {
+		return nil
+	}
+	out := make([][]float64, want)
+	for o, cols := range ec.origin[k] {
+		out[o] = make([]float64, len(cols))
+		for s, j := range cols {
+			out[o][s] = rec[k][j]
+		}
+	}
+	return out
+}
+
+// bandRecord scores node n's reconciled bands qs around its reconciled mean on its reconciled
+// selection backtest errs (ẽ = P e by origin and step, see nodePromises) exactly as selection
+// scored the base bands on the base errors (backtest.QuantilesOnScales with the scales the
+// train step recorded, BandScale): so the models table's band record, the promise the
+// calibration of new actuals is judged against, describes the bands published. The bands are
+// built from the error backtest's reconciled errors at other origins than the selection's, so
+// this is not the bands scored on their own errors. Points 0 when the node has no selection
+// backtest or scales (nodes.json before version 4).
+func (h *hierarchy) bandRecord(n NodeBase, mean []float64, qs [][]float64, errs [][]float64) backtest.QuantileRecord {
+	if errs == nil || n.BandScale == nil {
+		return backtest.QuantileRecord{}
+	}
+	scales := make([]float64, len(n.Promise))
+	for o, po := range n.Promise {
+		scales[o] = math.NaN()
+		if po.BandScale != nil {
+			scales[o] = *po.BandScale
+		}
+	}
+	rec, ok := backtest.QuantilesOnScales(*n.BandScale, scales, errs, h.quantileLevels, mean, qs)
+	if !ok {
+		return backtest.QuantileRecord{}
+	}
+	return rec
 }
 
 // errorColumns aligns the backtest errors of nodes (in order), those that of returns (the error

@@ -94,6 +94,64 @@ func TestReconciledPromiseByHand(t *testing.T) {
 	}
 }
 
+// TestReconciledBandRecordByHand scores the rebuilt bands of the tree of
+// TestReconciledPromiseByHand on its reconciled selection errors ẽ (worked out there). Its
+// error backtest is zero at both origins, so every rebuilt band lies on the reconciled mean
+// (spread 0, errorBands) and the record counts ẽ against 0 in units of each origin's band
+// scale s_i (backtest.QuantilesOnBacktest): u = ẽ / s_i, Below[j] = #{u <= 0}, BiasSum = −Σu,
+// PinballSum[j] = Σ ρ_τj(u) with ρ_τ(r) = τr for r >= 0, (τ − 1)r otherwise (Koenker & Bassett
+// 1978). With s_i T 2 and 4, A 1 and 2, B 3 and 3:
+//
+//	T u = 5/2, 1, −1/4, 1:   Below 1, 1; BiasSum −4.25;  PinballSum 0.675, 4.075
+//	A u = 4, −2, −1, 5/2:    Below 2, 2; BiasSum −3.5;   PinballSum 3.35, 6.15
+//	B u = 1/3, 4/3, 1/3, −1/3: Below 1, 1; BiasSum −5/3; PinballSum 0.5, 11/6
+//
+// A node without band scales (nodes.json before version 4) gets no record, so its models row
+// keeps the one train wrote.
+func TestReconciledBandRecordByHand(t *testing.T) {
+	h := newHierarchy(&runconfig.Config{QuantilePercents: []int{10, 90},
+		Source:    runconfig.Source{Columns: runconfig.Columns{Series: []string{"item"}}},
+		Hierarchy: &runconfig.Hierarchy{Levels: [][]string{{}}, Method: "OLS"}})
+	end := time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
+	node := func(key string, e1, e2 []float64, s1, s2 float64) NodeBase {
+		sc1, sc2, sn := s1, s2, 7.0
+		return NodeBase{Key: key, Level: h.levelOf(key), Mean: []float64{10, 10}, End: end, Metric: "MASE", BandScale: &sn,
+			Backtest: []OriginErrors{{Held: 4, Errors: errorFloats{0, 0}}, {Held: 6, Errors: errorFloats{0, 0}}},
+			Promise: []PromiseOrigin{
+				{Held: 3, Actuals: floats{20, 20}, Errors: e1, Scale: &sc1, BandScale: &sc1},
+				{Held: 2, Actuals: floats{20, 20}, Errors: e2, Scale: &sc2, BandScale: &sc2}}}
+	}
+	total := ingest.JoinKey("")
+	nodes := []NodeBase{
+		node("I0", []float64{3, -3}, []float64{0, 6}, 1, 2),
+		node("I1", []float64{0, 3}, []float64{3, 0}, 3, 3),
+		node(total, []float64{6, 3}, []float64{-3, 3}, 2, 4),
+	}
+	tr, err := h.reconcileTree(nodes, series.Weekly)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := map[string]backtest.QuantileRecord{
+		total: {Points: 4, Below: []int{1, 1}, BiasSum: -4.25, PinballSum: []float64{0.675, 4.075}},
+		"I0":  {Points: 4, Below: []int{2, 2}, BiasSum: -3.5, PinballSum: []float64{3.35, 6.15}},
+		"I1":  {Points: 4, Below: []int{1, 1}, BiasSum: -5.0 / 3, PinballSum: []float64{0.5, 11.0 / 6}},
+	}
+	for key, w := range want {
+		got, ok := tr.band[key]
+		if !ok || got.Points != w.Points || len(got.Below) != 2 || got.Below[0] != w.Below[0] || got.Below[1] != w.Below[1] ||
+			!close12(got.BiasSum, w.BiasSum) || !close12(got.PinballSum[0], w.PinballSum[0]) || !close12(got.PinballSum[1], w.PinballSum[1]) {
+			t.Errorf("%q: band record %+v (present %v), want %+v", key, got, ok, w)
+		}
+	}
+	nodes[1].BandScale = nil
+	if tr, err = h.reconcileTree(nodes, series.Weekly); err != nil {
+		t.Fatal(err)
+	}
+	if b, ok := tr.band["I1"]; ok {
+		t.Errorf("I1 without band scales has a band record %+v", b)
+	}
+}
+
 // TestReconciledPromiseOfAnUnchangedForecast: the reconciled promise of a forecast the
 // reconciliation leaves unchanged is the base promise. Three series are forecast by selection
 // with the error backtest on (as in a hierarchical run), their base forecasts go through

@@ -169,7 +169,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			return sum, err
 		}
 		rec.Forecasts[u.ID] = f
-		if len(tr.promise) == 0 {
+		if len(tr.promise) == 0 && len(tr.band) == 0 {
 			continue
 		}
 		mf, ok := unitMf[u.ID]
@@ -203,6 +203,9 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		if p, ok := tr.promise[s.Key]; ok {
 			r.Expected, r.StepErrors = p.score, p.steps
 		}
+		if b, ok := tr.band[s.Key]; ok {
+			r.Backtest = b
+		}
 		r.Notes = append(r.Notes, note)
 		level := h.levelOf(s.Key)
 		last := s.Len() - 1
@@ -214,7 +217,7 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 			fc = append(fc, row)
 		}
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
-			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Design: r.Design, Segment: r.Segment.String(), DesignBy: r.From, Level: level})
+			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Design: r.Design, Segment: r.Segment.String(), DesignBy: r.From, Backtest: backtestRecord(r.Levels, r.Backtest), Level: level})
 	}
 	evals, _, _, _, _, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, keyCols, prev, &loaded{unit: Unit{ID: SpanningUnit}, series: spanning})
 	if err != nil {
@@ -290,7 +293,8 @@ func reconcileUnitTable(ctx context.Context, out *store.Store, run, unit string,
 }
 
 // promiseUnitTable rewrites one unit's models table with the reconciled promises of its nodes
-// (score and per-step backtest errors; a node without one keeps its row) and writes it as
+// (score and per-step backtest errors, and the band record of nodes whose bands were rebuilt;
+// a node without them keeps its row) and writes it as
 // units/<unit>/reconciled-models.<format>; changed is false, and nothing is written, when no row
 // changed.
 func promiseUnitTable(ctx context.Context, out *store.Store, run, unit string, f File, format string, keys []string, tr treeResult) (File, bool, error) {
@@ -302,6 +306,10 @@ func promiseUnitTable(ctx context.Context, out *store.Store, run, unit string, f
 	for i, r := range rows {
 		if p, ok := tr.promise[r.Key]; ok {
 			rows[i].Score, rows[i].BacktestErrors = p.score, p.steps
+			changed = true
+		}
+		if b, ok := tr.band[r.Key]; ok {
+			rows[i].Backtest = backtestRecord(tr.levels, b)
 			changed = true
 		}
 	}

@@ -84,6 +84,7 @@ func TestHierarchyAcrossShards(t *testing.T) {
 				t.Errorf("largest relative deviation %g at %s, want <= %g", c.MaxDeviation, c.Worst, CoherenceTolerance)
 			}
 			wantOrderedBands(t, out, m, cfg.Source.Columns.Series)
+			wantBandRecords(t, out, m, cfg.Source.Columns.Series)
 			var b strings.Builder
 			if err := Inspect(ctx, cfg.Output.URI, "", &b); err != nil {
 				t.Fatal(err)
@@ -124,6 +125,40 @@ func wantOrderedBands(t *testing.T, out *store.Store, m *Manifest, keys []string
 	}
 	if rows == 0 {
 		t.Fatal("no forecast rows published")
+	}
+}
+
+// wantBandRecords fails unless every published models row (bottom series and aggregates,
+// within shards and spanning them) carries a band record, the promise of its bands' coverage
+// (tables.ModelRow.Backtest): the reconcile step scores the rebuilt bands of every node whose
+// selection backtest came through nodes.json, and writes it into the spanning rows and the
+// rewritten unit tables.
+func wantBandRecords(t *testing.T, out *store.Store, m *Manifest, keys []string) {
+	t.Helper()
+	rows, with := 0, 0
+	for _, u := range m.Units {
+		f, ok := u.file(TableModels)
+		if !ok {
+			continue
+		}
+		err := readTable(context.Background(), out, f, func(r io.Reader) error {
+			mr, err := tables.ReadModels(r, formatOf(f), keys)
+			for _, row := range mr {
+				rows++
+				if row.Backtest != nil && row.Backtest.Points > 0 && len(row.Backtest.Below) == len(row.Backtest.Levels) {
+					with++
+				} else {
+					t.Errorf("%s %s (level %q): no band record", u.ID, row.Key, row.Level)
+				}
+			}
+			return err
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	if rows == 0 || with != rows {
+		t.Errorf("%d of %d models rows carry a band record", with, rows)
 	}
 }
 

@@ -69,6 +69,9 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 			if p, ok := tr.promise[s.Key]; ok {
 				results[i].Expected, results[i].StepErrors = p.score, p.steps
 			}
+			if b, ok := tr.band[s.Key]; ok {
+				results[i].Backtest = b
+			}
 			results[i].Notes = append(results[i].Notes, note)
 		}
 	}

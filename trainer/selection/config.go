@@ -229,6 +229,10 @@ type Result struct {
 	// Config.ErrorOrigins (hierarchical runs), so that the reconciled forecast can be scored
 	// exactly as Expected scores the published one; nil otherwise and without backtest.
 	Promise []backtest.OriginRecord
+	// BandScale is the whole series' NaiveScale at lag backtest.ScaleLag, power 1, the scale
+	// Backtest's record takes the bands in (backtest.QuantilesOnBacktest's s_n), kept with
+	// Promise so that reconciled bands can be scored the same way; 0 without Promise.
+	BandScale float64
 }
 
 // FamilyCombination is Result.Family for a combination of members.

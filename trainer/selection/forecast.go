@@ -364,6 +364,7 @@ func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Co
 		return
 	}
 	res.Promise = backtest.Records(res.Metric, y, m, backtest.Assessment{Errors: res.BacktestErrors, Held: res.BacktestHeld})
+	res.BandScale = backtest.NaiveScale(y, backtest.ScaleLag(len(y), m), 1)
 	floor := 0
 	for _, c := range members {
 		floor = max(floor, c.model.MinLength(c.m))
