@@ -246,7 +246,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
 		s.Family = familyOf(cfg.Models, m.Model)
 		s.FamilyWords = ModelWords(m.Model, s.Family)
-		s.Choice = ChoiceWords(m.Design, m.Segment, string(metric))
+		s.Choice = ChoiceWords(m.Design, m.Segment, string(metric), isCombination(s.Family))
 		if e := s.Eval; e != nil && e.Expected > 0 && finite(e.Realized) {
 			s.Ratio = fmt.Sprintf("%.1f", e.Realized/e.Expected)
 		}

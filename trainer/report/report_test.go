@@ -525,8 +525,9 @@ func TestReportOfPublishedRun(t *testing.T) {
 		"no backtest score", // earl-grey-tea-250g/kelso, NaN
 		"ETS (exponential smoothing: level, trend and season", "(2.6× expected): drifted", "Fitted parameters (for analysts): ETS alpha=0.3",
 		// How each drawn series' model was chosen, by its models row's design: unit b-0000's
-		// rows say ets-theta (one design for the group), the others per-series.
-		"the same models for every series of its group (weekly/smooth/long): the way (ets-theta) chosen for the group",
+		// rows say ets-theta (one combination for the group) but hold single models, the
+		// others per-series.
+		"a single model in place of the combination chosen for its group (weekly/smooth/long: ets-theta)",
 		"chosen for the lowest backtest MASE of the models tried",
 		// The run declares its design Fixed.
 		"as the portfolio declares its models and combination, per series by the lowest backtest MASE",

@@ -254,16 +254,29 @@ func ChoiceSummary(mode, metric string) (line, intro string) {
 
 // ChoiceWords says, under a series' plot, how its model was chosen. designName and segment are
 // the models table's design and segment columns (designName "" for runs with a declared
-// design and for tables older than the column).
-func ChoiceWords(designName, segment, metric string) string {
-	switch designName {
-	case "", design.NamePerSeries:
+// design and for tables older than the column); combined says whether the model is a
+// combination (a design of several members can still leave a series one model: a member that
+// failed, a fallback, notes say which).
+func ChoiceWords(designName, segment, metric string, combined bool) string {
+	switch {
+	case designName == "" || designName == design.NamePerSeries:
+		if combined {
+			return "the declared combination of its best models, which backtested well enough against the best single model (" + metric + ")"
+		}
 		return "chosen for the lowest backtest " + metric + " of the models tried"
-	case design.NameDeclared:
-		return "the combination the portfolio declares, where it backtests better than the best single model"
+	case designName == design.NameDeclared:
+		if combined {
+			return "the combination the portfolio declares, which backtested well enough against the best single model (" + metric + ")"
+		}
+		return "chosen for the lowest backtest " + metric + " of the declared models (the declared combination did not backtest well enough)"
+	case !combined:
+		return fmt.Sprintf("a single model in place of the combination chosen for its group (%s: %s); the notes say why", segment, designName)
 	}
 	if k, method, ok := design.TopK(designName); ok {
 		return fmt.Sprintf("the %s of its %d models with the lowest backtest %s, the way chosen for its group (%s)", method, k, metric, segment)
 	}
 	return fmt.Sprintf("the same models for every series of its group (%s): the way (%s) chosen for the group on the latest periods of its series' histories", segment, designName)
 }
+
+// isCombination reports whether family is that of a combination of members.
+func isCombination(family string) bool { return family == selection.FamilyCombination }

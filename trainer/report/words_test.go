@@ -28,15 +28,22 @@ func TestModelWords(t *testing.T) {
 // TestChoiceWords: the caption under a series says how its model was chosen, by the models
 // table's design column.
 func TestChoiceWords(t *testing.T) {
-	for _, c := range []struct{ design, want string }{
-		{"", "chosen for the lowest backtest MASE of the models tried"},
-		{design.NamePerSeries, "chosen for the lowest backtest MASE of the models tried"},
-		{design.NameDeclared, "the combination the portfolio declares"},
-		{"top3-median", "the median of its 3 models with the lowest backtest MASE, the way chosen for its group (daily/smooth/long)"},
-		{"ets-theta-dotm", "the same models for every series of its group (daily/smooth/long): the way (ets-theta-dotm)"},
+	for _, c := range []struct {
+		design   string
+		combined bool
+		want     string
+	}{
+		{"", false, "chosen for the lowest backtest MASE of the models tried"},
+		{"", true, "the declared combination of its best models"},
+		{design.NamePerSeries, false, "chosen for the lowest backtest MASE of the models tried"},
+		{design.NameDeclared, true, "the combination the portfolio declares"},
+		{design.NameDeclared, false, "chosen for the lowest backtest MASE of the declared models"},
+		{"top3-median", true, "the median of its 3 models with the lowest backtest MASE, the way chosen for its group (daily/smooth/long)"},
+		{"ets-theta-dotm", true, "the same models for every series of its group (daily/smooth/long): the way (ets-theta-dotm)"},
+		{"ets-theta-dotm", false, "a single model in place of the combination chosen for its group (daily/smooth/long: ets-theta-dotm)"},
 	} {
-		if got := ChoiceWords(c.design, "daily/smooth/long", "MASE"); !strings.HasPrefix(got, c.want) {
-			t.Errorf("ChoiceWords(%q) = %q, want it to start %q", c.design, got, c.want)
+		if got := ChoiceWords(c.design, "daily/smooth/long", "MASE", c.combined); !strings.HasPrefix(got, c.want) {
+			t.Errorf("ChoiceWords(%q, combined %v) = %q, want it to start %q", c.design, c.combined, got, c.want)
 		}
 	}
 	seen := map[string]string{}
