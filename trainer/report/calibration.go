@@ -202,6 +202,16 @@ type segmentRow struct {
 // segments whose widest band (lowest to highest quantile) covered the new actuals furthest
 // from its promise, largest gap first.
 func worstSegments(rows []tables.EvaluationRow, segment map[string]string, n int) []segmentRow {
+	out := bandHold(rows, segment)
+	sort.SliceStable(out, func(i, j int) bool { return out[i].gap > out[j].gap })
+	return out[:min(n, len(out))]
+}
+
+// bandHold groups the evaluation records by group[key] ("(none)" without one) and returns, per
+// group in name order, the share of the new actuals inside the widest published band (lowest to
+// highest quantile) against the share the bands promised (their backtest's, else the levels'
+// width), pooled over the group's series.
+func bandHold(rows []tables.EvaluationRow, group map[string]string) []segmentRow {
 	type acc struct {
 		series, points int
 		in, promised   float64
@@ -217,7 +227,7 @@ func worstSegments(rows []tables.EvaluationRow, segment map[string]string, n int
 		if len(rc.Promised) == len(rc.Levels) {
 			lo, hi = rc.Promised[0], rc.Promised[k]
 		}
-		s := segment[r.Key]
+		s := group[r.Key]
 		if s == "" {
 			s = "(none)"
 		}
@@ -236,11 +246,6 @@ func worstSegments(rows []tables.EvaluationRow, segment map[string]string, n int
 		re, pr := a.in/float64(a.points), a.promised/float64(a.points)
 		out = append(out, segmentRow{Segment: s, Series: a.series, Points: a.points, Realized: fmt.Sprintf("%.3f", re), Promised: fmt.Sprintf("%.3f", pr), gap: math.Abs(re - pr)})
 	}
-	sort.Slice(out, func(i, j int) bool {
-		if out[i].gap != out[j].gap {
-			return out[i].gap > out[j].gap
-		}
-		return out[i].Segment < out[j].Segment
-	})
-	return out[:min(n, len(out))]
+	sort.Slice(out, func(i, j int) bool { return out[i].Segment < out[j].Segment })
+	return out
 }

@@ -7,6 +7,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 
@@ -69,6 +70,10 @@ type page struct {
 	CalBacktest int
 	CalSkipped  int
 	CalSegments []segmentRow
+	// LevelBands is, by hierarchy level, how the widest band of the previous run's forecasts
+	// held on the new actuals against its promise (bandHold; empty without hierarchy or
+	// evaluated bands).
+	LevelBands map[string]*segmentRow
 	// Moved lists the series whose forecast moved most against the previous run's.
 	Moved []movedRow
 	Shown []shownSeries
@@ -226,6 +231,16 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 			segments[m.Key] = m.Segment
 		}
 		pg.CalSegments = worstSegments(r.Evaluation, segments, 5)
+		if len(r.Levels) > 0 {
+			levels := map[string]string{}
+			for _, m := range append(slices.Clip(r.Models), r.Nodes...) {
+				levels[m.Key] = m.Level
+			}
+			pg.LevelBands = map[string]*segmentRow{}
+			for _, b := range bandHold(append(slices.Clip(r.Evaluation), r.NodeEvaluation...), levels) {
+				pg.LevelBands[b.Segment] = &b
+			}
+		}
 	}
 
 	models := map[string]tables.ModelRow{}
