@@ -695,9 +695,11 @@ func (ec errorCols) of(k int, rec [][]float64, want int) [][]float64 {
 // scored the base bands on the base errors (backtest.QuantilesOnScales with the scales the
 // train step recorded, BandScale): so the models table's band record, the promise the
 // calibration of new actuals is judged against, describes the bands published. The bands are
-// built from the error backtest's reconciled errors at other origins than the selection's, so
-// this is not the bands scored on their own errors. Points 0 when the node has no selection
-// backtest or scales (nodes.json before version 4).
+// built from the error backtest's reconciled errors, whose origins lie a horizon apart; the
+// selection's lie a step apart, and only their latest (holding out the last h periods) is also
+// an error-backtest origin, so the record rests mostly, not wholly, on errors the bands were
+// not built from (with the default 3 selection origins, one in three is shared). Points 0 when
+// the node has no selection backtest or scales (nodes.json before version 4).
 func (h *hierarchy) bandRecord(n NodeBase, mean []float64, qs [][]float64, errs [][]float64) backtest.QuantileRecord {
 	if errs == nil || n.BandScale == nil {
 		return backtest.QuantileRecord{}
