@@ -709,27 +709,30 @@ func constantValue(x []float64) (float64, bool) {
 // comboName names a combination by its members in zoo order, so the same set always has the
 // same name.
 func comboName(method string, top []*candidate) string {
-	byZoo := slices.Clone(top)
-	slices.SortFunc(byZoo, func(a, b *candidate) int { return a.idx - b.idx })
-	names := make([]string, len(byZoo))
-	for i, c := range byZoo {
-		names[i] = c.spec.DisplayName()
+	names := make([]string, len(top))
+	for j, i := range zooOrder(top) {
+		names[j] = top[i].spec.DisplayName()
 	}
 	return fmt.Sprintf("%s(%s: %s)", FamilyCombination, method, strings.Join(names, ", "))
+}
+
+// zooOrder lists the positions of top in zoo order (the order combinations name members in).
+func zooOrder(top []*candidate) []int {
+	order := make([]int, len(top))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortFunc(order, func(a, b int) int { return top[a].idx - top[b].idx })
+	return order
 }
 
 // combinedFits names a combination by its members' fitted models, in zoo order
 // ("Combination(mean: ETS(M,Ad,N), Theta, DOTM)"), and gathers their parameters under the
 // member's zoo name ("ETS.alpha"), so the models table shows what was combined.
 func combinedFits(method string, top []*candidate, fitted []models.Fitted) (string, map[string]float64) {
-	order := make([]int, len(top))
-	for i := range order {
-		order[i] = i
-	}
-	slices.SortFunc(order, func(a, b int) int { return top[a].idx - top[b].idx })
-	names := make([]string, len(order))
+	names := make([]string, len(top))
 	params := map[string]float64{}
-	for j, i := range order {
+	for j, i := range zooOrder(top) {
 		names[j] = fitted[i].Name()
 		for k, v := range fitted[i].Params() {
 			params[top[i].spec.DisplayName()+"."+k] = v
