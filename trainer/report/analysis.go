@@ -1,10 +1,12 @@
 package report
 
 import (
+	"fmt"
 	"math"
 	"sort"
 	"strings"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
@@ -85,6 +87,7 @@ func overview(r *Run) Overview {
 	}
 	o.Models = sortCounts(byModel)
 	o.Designs = designRows(r.Models)
+	withPlanScores(o.Designs, r.Design)
 	for _, c := range sortCounts(famSeries) {
 		fs := FamilyScore{Family: c.Name, Series: c.Count, Median: math.NaN()}
 		scores := byFamily[c.Name]
@@ -257,6 +260,38 @@ func choose(r *Run, lim Limits, classes map[string]string) []Pick {
 type DesignRow struct {
 	Segment, Design, ChosenBy string
 	Series                    int
+	// Inner and Simplest are, for a design the run's plan chose, the mean inner-holdout MASE
+	// of the chosen design and of the simplest candidate on the series the choice rested on
+	// (plan.json's scores; "" when not known).
+	Inner, Simplest string
+}
+
+// withPlanScores fills Inner and Simplest of the rows the plan chose from its record: only
+// where the record's segment chose the row's design (a carried-forward unit may come from a
+// run whose plan chose otherwise).
+func withPlanScores(rows []DesignRow, rec *design.Record) {
+	if rec == nil || len(rec.Candidates) == 0 {
+		return
+	}
+	simplest := rec.Candidates[0].Name
+	for i, row := range rows {
+		if row.ChosenBy != design.FromPlan {
+			continue
+		}
+		for _, sg := range rec.Segments {
+			if sg.Segment != row.Segment || sg.Design != row.Design {
+				continue
+			}
+			for _, sc := range sg.Scores {
+				if sc.Design == row.Design {
+					rows[i].Inner = fmt.Sprintf("%.3f", sc.MeanMASE)
+				}
+				if sc.Design == simplest {
+					rows[i].Simplest = fmt.Sprintf("%.3f", sc.MeanMASE)
+				}
+			}
+		}
+	}
 }
 
 // designRows counts the models rows by segment, design and where the design was chosen.

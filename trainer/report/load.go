@@ -14,6 +14,7 @@ import (
 	"strings"
 	"time"
 
+	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/ingest"
 	"almanac.dev/almanac/trainer/pipeline"
 	"almanac.dev/almanac/trainer/runconfig"
@@ -67,7 +68,10 @@ type Run struct {
 	NodeEvaluation []tables.EvaluationRow
 	Levels         []LevelRow
 	Coherence      *pipeline.Coherence
-	units          []unitFiles
+	// Design is the run's design decision from plan.json (selection.design Auto; nil
+	// otherwise or when plan.json is gone).
+	Design *design.Record
+	units  []unitFiles
 }
 
 // unitFiles is one unit's table files: table name -> key and expected SHA-256 ("" unknown).
@@ -104,6 +108,9 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 	if r.units, err = r.listUnits(ctx, st); err != nil {
 		return nil, err
 	}
+	if r.Design, err = planDesign(ctx, st, run); err != nil {
+		return nil, err
+	}
 	for _, u := range r.units {
 		if err := r.readUnit(ctx, st, u); err != nil {
 			return nil, err
@@ -116,6 +123,24 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 		return nil, err
 	}
 	return r, nil
+}
+
+// planDesign reads the design decision of the run's plan.json; nil when the run has none
+// (a declared design, or plan.json pruned).
+func planDesign(ctx context.Context, st *store.Store, run string) (*design.Record, error) {
+	key := store.RunKey(run, store.PlanName)
+	b, err := st.Get(ctx, key)
+	if errors.Is(err, store.ErrNotFound) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("run %s: %w", run, err)
+	}
+	p, err := pipeline.DecodePlan(b, st.Describe(key))
+	if err != nil {
+		return nil, err
+	}
+	return p.Design, nil
 }
 
 // listUnits returns the units to read: the manifest's entries when MANIFEST.json exists (so
