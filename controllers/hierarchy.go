@@ -62,6 +62,13 @@ func addLevels(h *forecastingv1alpha1.HierarchyStatus, levels []summary.Level) (
 			}
 			lv.AccuracySums = sums
 		}
+		if l.Calibration != nil {
+			sums, err := addCalibration(lv.CalibrationSums, *l.Calibration)
+			if err != nil {
+				return h, fmt.Errorf("hierarchy level %q: %w", l.Name, err)
+			}
+			lv.CalibrationSums = sums
+		}
 	}
 	if len(out.Levels) > maxHierarchyLevels {
 		return h, fmt.Errorf("%d hierarchy levels, more than the %d a hierarchy has at most (spec.hierarchy.levels and the bottom level)", len(out.Levels), maxHierarchyLevels)
@@ -76,13 +83,16 @@ func addLevels(h *forecastingv1alpha1.HierarchyStatus, levels []summary.Level) (
 }
 
 // showLevels sets each level's displayed accuracy from its sums (accuracyStatus: expected and
-// realized means, their ratio and the geometric means), for the run that measured them.
+// realized means, their ratio and the geometric means; withCalibration: each quantile's share
+// of the new actuals against its promise, the band's coverage, the bias), for the run that
+// measured them.
 func showLevels(h *forecastingv1alpha1.HierarchyStatus, run string) {
 	if h == nil {
 		return
 	}
 	for k := range h.Levels {
 		h.Levels[k].Accuracy = accuracyStatus(h.Levels[k].AccuracySums, run)
+		withCalibration(h.Levels[k].Accuracy, h.Levels[k].CalibrationSums)
 	}
 }
 

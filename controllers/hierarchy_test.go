@@ -22,9 +22,14 @@ func hierarchySources() [][]summary.Level {
 		return &summary.Accuracy{Metric: "MASE", Evaluated: n, EvaluatedPoints: 7 * n, ExpectedSum: exp, RealizedSum: real,
 			LogEvaluated: n, ExpectedLogSum: float64(n) * math.Log(exp/float64(n)), RealizedLogSum: float64(n) * math.Log(real/float64(n))}
 	}
+	// q10 and q90 of the previous forecasts on 7 new actuals per node: each shard's bottom level.
+	cal := func(n, below10, below90 int, pinball float64) *summary.Calibration {
+		return &summary.Calibration{Levels: []float64{0.1, 0.9}, Series: n, Points: 7 * n, Below: []int{below10, below90},
+			PinballSum: []float64{pinball, 2 * pinball}, BiasSum: pinball}
+	}
 	return [][]summary.Level{
-		{{Name: "item+depot", Nodes: 3, Accuracy: mase(3, 0.3, 0.6)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
-		{{Name: "item+depot", Nodes: 2, Accuracy: mase(2, 0.2, 0.4)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
+		{{Name: "item+depot", Nodes: 3, Accuracy: mase(3, 0.3, 0.6), Calibration: cal(3, 2, 19, 0.3)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
+		{{Name: "item+depot", Nodes: 2, Accuracy: mase(2, 0.2, 0.4), Calibration: cal(2, 1, 13, 0.2)}, {Name: "depot", Nodes: 1, Accuracy: mase(1, 0.1, 0.2)}},
 		{{Name: "total", Nodes: 1, Accuracy: mase(1, 0.5, 0.5)}, {Name: "item", Nodes: 3}},
 	}
 }
@@ -70,6 +75,19 @@ func TestAddLevelsIsExactAndOrderFree(t *testing.T) {
 	if acc := bottom.Accuracy; acc.Expected != "0.1000" || acc.Realized != "0.2000" || acc.Ratio != "2.000" || acc.Run != "fenwick-daily-1" {
 		t.Errorf("bottom accuracy = %+v", acc)
 	}
+	// Calibration per level, folded as the run's (addCalibration, withCalibration): 35 actuals,
+	// 3 at or below q10 and 32 at or below q90, so shares 3/35 and 32/35, the 80% band held
+	// 29/35; pinball and bias sums 0.3 + 0.2 = 0.5 exactly (above), over 35.
+	if cs := bottom.CalibrationSums; cs == nil || cs.Points != 35 || cs.Series != 5 || !cmp.Equal(cs.Below, []int64{3, 32}) || cs.PinballSums[0] != "0.5" {
+		t.Errorf("bottom calibration sums = %+v", cs)
+	}
+	if acc := bottom.Accuracy; len(acc.Calibration) != 2 || acc.Calibration[0].Realized != "0.086" || acc.Calibration[1].Realized != "0.914" ||
+		acc.BandCoverage != "0.829" || acc.Calibration[0].PinballLoss != "0.0143" || acc.Bias != "0.0143" || acc.CalibrationPoints != 35 {
+		t.Errorf("bottom calibration = %+v, band %s, bias %s", acc.Calibration, acc.BandCoverage, acc.Bias)
+	}
+	if a.Levels[0].CalibrationSums != nil || a.Levels[0].Accuracy.Calibration != nil {
+		t.Errorf("the total shows a calibration it was not sent: %+v", a.Levels[0])
+	}
 	if a.Levels[2].Accuracy != nil || a.Levels[2].AccuracySums != nil {
 		t.Errorf("a level without evaluation shows accuracy: %+v", a.Levels[2])
 	}
@@ -90,6 +108,8 @@ func TestAddLevelsIsAllOrNothing(t *testing.T) {
 		"negative":     {{Name: "depot", Nodes: -1}},
 		"other metric": {{Name: "item+depot", Nodes: 1}, {Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "RMSSE", Evaluated: 1}}},
 		"not finite":   {{Name: "depot", Nodes: 1, Accuracy: &summary.Accuracy{Metric: "MASE", Evaluated: 1, ExpectedSum: math.Inf(1)}}},
+		"other quantiles": {{Name: "depot", Nodes: 1}, {Name: "item+depot", Nodes: 1, Calibration: &summary.Calibration{Levels: []float64{0.2, 0.8}, Series: 1, Points: 7,
+			Below: []int{1, 6}, PinballSum: []float64{0.1, 0.1}}}},
 		// start holds 2 levels; 8 more names make 10, above maxHierarchyLevels.
 		"too many levels": {{Name: "l1"}, {Name: "l2"}, {Name: "l3"}, {Name: "l4"}, {Name: "l5"}, {Name: "l6"}, {Name: "l7"}, {Name: "l8"}},
 	}

@@ -281,6 +281,11 @@ type HierarchyLevelStatus struct {
 	// accuracySums holds the exact sums the accuracy is computed from.
 	// +optional
 	AccuracySums *AccuracySums `json:"accuracySums,omitempty"`
+	// calibrationSums holds the exact counts and sums of the level's quantiles on the new
+	// actuals, from which accuracy's calibration, band coverage and bias are computed (as the
+	// run's calibrationSums, for this level's nodes).
+	// +optional
+	CalibrationSums *CalibrationSums `json:"calibrationSums,omitempty"`
 }
 
 // ShardCounts counts shards of a run.

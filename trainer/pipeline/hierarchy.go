@@ -18,6 +18,7 @@ import (
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/summary"
+	"almanac.dev/almanac/trainer/tables"
 )
 
 // Hierarchies (spec.hierarchy) in the trainer.
@@ -1000,8 +1001,53 @@ func (h *hierarchy) recentred(n NodeBase, mean []float64) [][]float64 {
 	return qs
 }
 
-// levelSummaries turns per-level node counts and accuracy into summary levels, sorted by name.
-func levelSummaries(nodes map[string]int, acc map[string]*summary.Accuracy) []summary.Level {
+// levelSums gathers, by level name, the accuracy and calibration sums of evaluated nodes.
+type levelSums struct {
+	acc map[string]*summary.Accuracy
+	cal map[string]*summary.Calibration
+}
+
+// addAccuracy adds a's sums to level l (nothing when a evaluated no node).
+func (s *levelSums) addAccuracy(l string, a summary.Accuracy) {
+	if a.Evaluated == 0 {
+		return
+	}
+	if s.acc == nil {
+		s.acc = map[string]*summary.Accuracy{}
+	}
+	if s.acc[l] == nil {
+		s.acc[l] = &summary.Accuracy{}
+	}
+	s.acc[l].Add(a)
+}
+
+// addCalibration adds c's sums to level l; c is left out when its quantile levels differ from
+// those already added (summary.Calibration.Add), as a unit's are.
+func (s *levelSums) addCalibration(l string, c summary.Calibration) {
+	if c.Series == 0 {
+		return
+	}
+	if s.cal == nil {
+		s.cal = map[string]*summary.Calibration{}
+	}
+	if s.cal[l] == nil {
+		s.cal[l] = &summary.Calibration{}
+	}
+	s.cal[l].Add(c)
+}
+
+// add adds one evaluation row's accuracy and its series' calibration (cals, by key) to level l.
+func (s *levelSums) add(l string, r tables.EvaluationRow, cals map[string]summary.Calibration) {
+	var a summary.Accuracy
+	accumulate(&a, r)
+	s.addAccuracy(l, a)
+	if c, ok := cals[r.Key]; ok {
+		s.addCalibration(l, c)
+	}
+}
+
+// summaries turns per-level node counts and the sums into summary levels, sorted by name.
+func (s levelSums) summaries(nodes map[string]int) []summary.Level {
 	names := make([]string, 0, len(nodes))
 	for n := range nodes {
 		names = append(names, n)
@@ -1010,8 +1056,11 @@ func levelSummaries(nodes map[string]int, acc map[string]*summary.Accuracy) []su
 	out := make([]summary.Level, 0, len(names))
 	for _, n := range names {
 		l := summary.Level{Name: n, Nodes: nodes[n]}
-		if a := acc[n]; a != nil && a.Evaluated > 0 {
+		if a := s.acc[n]; a != nil && a.Evaluated > 0 {
 			l.Accuracy = a
+		}
+		if c := s.cal[n]; c != nil && c.Series > 0 {
+			l.Calibration = c
 		}
 		out = append(out, l)
 	}

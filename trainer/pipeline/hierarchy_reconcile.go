@@ -219,20 +219,18 @@ func RunReconcile(ctx context.Context, cfg *runconfig.Config, env Env) (summary.
 		mr = append(mr, tables.ModelRow{Key: s.Key, Model: r.Chosen, Params: paramsText(r.Result), BacktestErrors: r.StepErrors,
 			Metric: string(r.Metric), Score: r.Expected, Notes: strings.Join(r.Notes, "; "), Design: r.Design, Segment: r.Segment.String(), DesignBy: r.From, Backtest: backtestRecord(r.Levels, r.Backtest), Level: level})
 	}
-	evals, _, _, _, _, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, keyCols, prev, &loaded{unit: Unit{ID: SpanningUnit}, series: spanning})
+	ev, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, keyCols, prev, &loaded{unit: Unit{ID: SpanningUnit}, series: spanning})
 	if err != nil {
 		return sum, err
 	}
-	levelAcc := map[string]*summary.Accuracy{}
+	evals := ev.rows
+	var lv levelSums
 	for i, r := range evals {
 		l := h.levelOf(r.Key)
 		evals[i].Level = l
-		if levelAcc[l] == nil {
-			levelAcc[l] = &summary.Accuracy{}
-		}
-		accumulate(levelAcc[l], r)
+		lv.add(l, r, ev.cals)
 	}
-	rec.Levels = levelSummaries(levelNodes, levelAcc)
+	rec.Levels = lv.summaries(levelNodes)
 	hdr := tables.Header{Keys: keyCols, Quantiles: st.Selection.Levels}
 	for _, wr := range []struct {
 		table, name string

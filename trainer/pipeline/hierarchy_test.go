@@ -205,11 +205,19 @@ func TestHierarchySecondRunEvaluatesEveryLevel(t *testing.T) {
 	}
 	nodes := map[string]int{}
 	evaluated := map[string]int{}
+	calibrated := map[string]summary.Calibration{}
 	add := func(levels []summary.Level) {
 		for _, l := range levels {
 			nodes[l.Name] += l.Nodes
 			if l.Accuracy != nil {
 				evaluated[l.Name] += l.Accuracy.Evaluated
+			}
+			if l.Calibration != nil {
+				c := calibrated[l.Name]
+				if !c.Add(*l.Calibration) {
+					t.Errorf("level %s: calibrations with different quantile levels", l.Name)
+				}
+				calibrated[l.Name] = c
 			}
 		}
 	}
@@ -248,12 +256,22 @@ func TestHierarchySecondRunEvaluatesEveryLevel(t *testing.T) {
 		t.Errorf("second run: %+v %v", c, err)
 	}
 	levels := map[string]int{}
+	points, below := map[string]int{}, map[string][]int{}
 	for _, u := range m.Units {
 		f, _ := u.file(TableEvaluation)
 		err := readTable(ctx, out, f, func(r io.Reader) error {
 			rows, err := tables.ReadEvaluation(r, formatOf(f), second.Source.Columns.Series)
 			for _, row := range rows {
 				levels[row.Level]++
+				if c := row.Calibration; c != nil {
+					points[row.Level] += c.Points
+					if below[row.Level] == nil {
+						below[row.Level] = make([]int, len(c.Below))
+					}
+					for j, b := range c.Below {
+						below[row.Level][j] += b
+					}
+				}
 			}
 			return err
 		})
@@ -263,6 +281,15 @@ func TestHierarchySecondRunEvaluatesEveryLevel(t *testing.T) {
 	}
 	if diff := cmp.Diff(want, levels); diff != "" {
 		t.Errorf("evaluation rows by hierarchy_level (-want,+got):\n%s", diff)
+	}
+	// Each level's calibration in the summaries (train's and reconcile's, what the controller
+	// folds into status.hierarchy.levels) adds up the evaluation rows of its nodes.
+	for l, n := range want {
+		c := calibrated[l]
+		if c.Series != n || c.Points != points[l] || points[l] == 0 || !cmp.Equal(c.Below, below[l]) {
+			t.Errorf("level %s: summary calibration of %d series, %d points, below %v; the evaluation rows: %d series, %d points, below %v",
+				l, c.Series, c.Points, c.Below, n, points[l], below[l])
+		}
 	}
 }
 

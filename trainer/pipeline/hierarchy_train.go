@@ -6,7 +6,6 @@ import (
 
 	"almanac.dev/almanac/trainer/design"
 	"almanac.dev/almanac/trainer/store"
-	"almanac.dev/almanac/trainer/summary"
 	"almanac.dev/almanac/trainer/tables"
 )
 
@@ -85,10 +84,6 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 }
 
 // levels returns the unit's level counts with the accuracy of its evaluated nodes.
-func (uh unitHierarchy) levels(acc map[string]*summary.Accuracy) []summary.Level {
-	return levelSummaries(uh.levelNodes, acc)
-}
-
 func indexes(n int) []int {
 	out := make([]int, n)
 	for i := range out {
@@ -105,23 +100,20 @@ const (
 
 // evaluateNodes evaluates the previous run's forecasts of the unit's within-unit aggregates
 // against their summed histories, as evaluateUnit does for the bottom series, and sums the
-// accuracy by level.
+// accuracy and calibration by level.
 func evaluateNodes(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded, h *hierarchy) (
-	[]tables.EvaluationRow, map[string]*summary.Accuracy, error) {
-	acc := map[string]*summary.Accuracy{}
+	[]tables.EvaluationRow, levelSums, error) {
+	var lv levelSums
 	if prev == nil || len(u.nodes) == 0 {
-		return nil, acc, nil
+		return nil, lv, nil
 	}
 	ua := *u
 	ua.series = u.nodes
-	rows, _, _, _, _, err := evaluateUnit(ctx, out, d, nonNegative, keys, prev, &ua)
-	for i, r := range rows {
+	ev, err := evaluateUnit(ctx, out, d, nonNegative, keys, prev, &ua)
+	for i, r := range ev.rows {
 		l := h.levelOf(r.Key)
-		rows[i].Level = l
-		if acc[l] == nil {
-			acc[l] = &summary.Accuracy{}
-		}
-		accumulate(acc[l], r)
+		ev.rows[i].Level = l
+		lv.add(l, r, ev.cals)
 	}
-	return rows, acc, err
+	return ev.rows, lv, err
 }

@@ -147,7 +147,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 	var cal summary.Calibration
 	var stab summary.Stability
 	acc := summary.Accuracy{Metric: string(st.Drift.Metric)}
-	levelNodes, levelAcc := map[string]int{}, map[string]*summary.Accuracy{}
+	levelNodes, lv := map[string]int{}, levelSums{}
 	for k, u := range units {
 		if u.skip != "" {
 			env.logf("train: shard %d unit %s: not trained: %s", shard, u.unit.ID, u.skip)
@@ -175,10 +175,10 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		for _, l := range done.Levels {
 			levelNodes[l.Name] += l.Nodes
 			if l.Accuracy != nil {
-				if levelAcc[l.Name] == nil {
-					levelAcc[l.Name] = &summary.Accuracy{}
-				}
-				levelAcc[l.Name].Add(*l.Accuracy)
+				lv.addAccuracy(l.Name, *l.Accuracy)
+			}
+			if l.Calibration != nil {
+				lv.addCalibration(l.Name, *l.Calibration)
 			}
 		}
 		if done.Stability != nil {
@@ -200,7 +200,7 @@ func RunTrain(ctx context.Context, cfg *runconfig.Config, shard int, env Env) (s
 		sum.Stability = &stab
 	}
 	if h != nil {
-		sum.Levels = levelSummaries(levelNodes, levelAcc)
+		sum.Levels = lv.summaries(levelNodes)
 	}
 	sum.DurationSeconds = env.now().Sub(start).Seconds()
 	if fitSeconds > 0 {
@@ -473,10 +473,11 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	}
 	sort.Slice(rejected, func(i, j int) bool { return rejected[i].Key < rejected[j].Key })
 
-	evals, acc, cal, prevFc, prevRun, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
+	ev, err := evaluateUnit(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u)
 	if err != nil {
 		return done, err
 	}
+	evals, acc, cal, prevFc, prevRun := ev.rows, ev.acc, ev.cal, ev.prevFc, ev.prevRun
 	var stab summary.Stability
 	newFc := map[string][]tables.ForecastRow{}
 	for _, r := range fc {
@@ -514,7 +515,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	}
 	fc = append(fc, carried...)
 	if h != nil {
-		aggRows, levelAcc, err := evaluateNodes(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u, h)
+		aggRows, lv, err := evaluateNodes(ctx, out, st.Drift, cfg.Source.NonNegative, cfg.Source.Columns.Series, prev, u, h)
 		if err != nil {
 			return done, err
 		}
@@ -522,11 +523,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 			evals[i].Level = h.bottom
 		}
 		evals = append(evals, aggRows...)
-		if acc.Evaluated > 0 {
-			a := acc
-			levelAcc[h.bottom] = &a
-		}
-		done.Levels = uh.levels(levelAcc)
+		lv.addAccuracy(h.bottom, acc)
+		lv.addCalibration(h.bottom, cal)
+		done.Levels = lv.summaries(uh.levelNodes)
 	}
 	done.Broken = u.broken
 	done.Counts = Counts{Series: len(u.series) + len(u.rejected) + len(rejected) - found, Trained: trained, Rejected: len(rejected), Carried: nCarried, CarriedBroken: nBroken}
@@ -628,14 +627,14 @@ func paramsText(r selection.Result) string {
 // previous manifest's entries for the unit (previousUnits; an entry may itself be carried
 // forward from an older run). A unit the previous run did not have is not evaluated, nor are
 // units whose previous files were pruned.
-func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded) (
-	[]tables.EvaluationRow, summary.Accuracy, summary.Calibration, map[string][]tables.ForecastRow, string, error) {
+func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegative bool, keys []string, prev *Manifest, u *loaded) (unitEvaluation, error) {
 	metric := d.Metric
 	acc := summary.Accuracy{Metric: string(metric)}
 	var cal summary.Calibration
 	if prev == nil {
-		return nil, acc, cal, nil, "", nil
+		return unitEvaluation{acc: acc}, nil
 	}
+	cals := map[string]summary.Calibration{}
 	ours := make(map[string]bool, len(u.series))
 	for _, s := range u.series {
 		ours[s.Key] = true
@@ -663,7 +662,7 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 			continue // pruned: nothing to evaluate, which is not a failure
 		}
 		if err != nil {
-			return nil, acc, cal, nil, "", err
+			return unitEvaluation{}, err
 		}
 		for _, r := range fcs {
 			if ours[r.Key] {
@@ -693,13 +692,27 @@ func evaluateUnit(ctx context.Context, out *store.Store, d DriftRule, nonNegativ
 				row.Calibration = EvaluationRecord(c)
 				if !cal.Add(c) { // a unit whose previous entries used other levels keeps the first's
 					row.Calibration = nil // one set of calibration columns per table
+				} else {
+					cals[s.Key] = c
 				}
 			}
 		}
 		rows = append(rows, row)
 		accumulate(&acc, row)
 	}
-	return rows, acc, cal, bySeries, prev.Run, nil
+	return unitEvaluation{rows: rows, acc: acc, cal: cal, cals: cals, prevFc: bySeries, prevRun: prev.Run}, nil
+}
+
+// unitEvaluation is evaluateUnit's result: the evaluation rows, their accuracy and
+// calibration sums, each evaluated series' calibration (cals, by key: what per-level sums are
+// folded from), the previous forecasts by series and the run they came from.
+type unitEvaluation struct {
+	rows    []tables.EvaluationRow
+	acc     summary.Accuracy
+	cal     summary.Calibration
+	cals    map[string]summary.Calibration
+	prevFc  map[string][]tables.ForecastRow
+	prevRun string
 }
 
 // previousUnits returns the previous manifest's entries that hold the previous forecasts of

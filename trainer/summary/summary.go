@@ -94,6 +94,10 @@ type Level struct {
 	// Accuracy holds the error sums of those nodes' evaluation of the previous run's
 	// forecasts (absent when none had new actuals).
 	Accuracy *Accuracy `json:"accuracy,omitempty"`
+	// Calibration holds the counts and sums of the same nodes' previous quantiles on their new
+	// actuals, as the summary's own Calibration does for the input series (absent when none
+	// had any).
+	Calibration *Calibration `json:"calibration,omitempty"`
 }
 
 // Accuracy carries sums so that means aggregate exactly: expected = ExpectedSum/Evaluated,
@@ -239,9 +243,10 @@ func (a *Accuracy) Add(b Accuracy) {
 	a.RealizedLogSum += b.RealizedLogSum
 }
 
-// Encode marshals s, trimming the error text, then dropping the model counts and then the
+// Encode marshals s, trimming the error text, then dropping the model counts, then the
+// hierarchy levels' calibration expectations, then the levels' calibrations, and then the
 // calibration's expectation if needed to stay within MaxBytes (the design counts, a few short
-// names, are kept).
+// names, and the levels' accuracy are kept).
 func Encode(s Summary) ([]byte, error) {
 	b, err := json.Marshal(s)
 	if err != nil {
@@ -260,13 +265,26 @@ func Encode(s Summary) ([]byte, error) {
 	if b, err = json.Marshal(s); err != nil {
 		return nil, err
 	}
+	for _, drop := range []func(*Calibration) *Calibration{withoutExpectation, func(*Calibration) *Calibration { return nil }} {
+		if len(b) <= MaxBytes || !levelsCalibrated(s.Levels) {
+			break
+		}
+		levels := make([]Level, len(s.Levels))
+		for i, l := range s.Levels {
+			levels[i] = l
+			if l.Calibration != nil {
+				levels[i].Calibration = drop(l.Calibration)
+			}
+		}
+		s.Levels = levels
+		if b, err = json.Marshal(s); err != nil {
+			return nil, err
+		}
+	}
 	if len(b) > MaxBytes && s.Calibration != nil && s.Calibration.HasExpectation() {
 		// last resort: the calibration without its expectation (judged against the nominal
 		// levels, with the binomial tolerance) rather than no summary
-		c := *s.Calibration
-		c.Pairs, c.BelowPairs, c.Expected, c.ExpectedVar, c.ExpectedPinballSum = 0, nil, nil, nil, nil
-		c.BacktestSeries, c.BacktestPoints, c.BacktestActuals, c.ExpectedBiasSum = 0, 0, 0, 0
-		s.Calibration = &c
+		s.Calibration = withoutExpectation(s.Calibration)
 		if b, err = json.Marshal(s); err != nil {
 			return nil, err
 		}
@@ -275,6 +293,25 @@ func Encode(s Summary) ([]byte, error) {
 		return nil, fmt.Errorf("summary: %d bytes after trimming, limit %d", len(b), MaxBytes)
 	}
 	return b, nil
+}
+
+// withoutExpectation is c without its expectation fields (judged against the nominal levels,
+// with the binomial tolerance).
+func withoutExpectation(c *Calibration) *Calibration {
+	d := *c
+	d.Pairs, d.BelowPairs, d.Expected, d.ExpectedVar, d.ExpectedPinballSum = 0, nil, nil, nil, nil
+	d.BacktestSeries, d.BacktestPoints, d.BacktestActuals, d.ExpectedBiasSum = 0, 0, 0, 0
+	return &d
+}
+
+// levelsCalibrated reports whether any level carries a calibration.
+func levelsCalibrated(levels []Level) bool {
+	for _, l := range levels {
+		if l.Calibration != nil {
+			return true
+		}
+	}
+	return false
 }
 
 // Decode parses a termination message.

@@ -61,18 +61,7 @@ func TestAccuracyAdd(t *testing.T) {
 // their calibration sums (full-precision floats), a long model list and a long error still
 // encodes within MaxBytes and keeps every calibration count.
 func TestCalibrationFitsAtTheLevelLimit(t *testing.T) {
-	c := Calibration{Series: 123456, Points: 987654}
-	for i := 1; i <= 19; i++ {
-		c.Levels = append(c.Levels, float64(5*i)/100)
-		c.Below = append(c.Below, 50000*i)
-		c.PinballSum = append(c.PinballSum, 1234567.0/3*float64(i))
-		c.BelowPairs = append(c.BelowPairs, 5000000*i)
-		c.Expected = append(c.Expected, 987654.0/7*float64(i))
-		c.ExpectedVar = append(c.ExpectedVar, 4321.0/9*float64(i))
-		c.ExpectedPinballSum = append(c.ExpectedPinballSum, 1234567.0/11*float64(i))
-	}
-	c.BiasSum, c.ExpectedBiasSum = -98765.0/7, 98765.0/13
-	c.Pairs, c.BacktestSeries, c.BacktestPoints, c.BacktestActuals = 9876543, 123456, 2222222, 987654
+	c := *fullCalibration(19)
 	s := Summary{Kind: KindTrain, Trained: 9, Error: strings.Repeat("x", 10000), Models: map[string]int{}, Calibration: &c,
 		Accuracy: &Accuracy{Metric: "MASE", Evaluated: 5, ExpectedSum: 1.0 / 3, RealizedSum: 2.0 / 3, LogEvaluated: 5, ExpectedLogSum: -1.0 / 3, RealizedLogSum: 1.0 / 7}}
 	for i := 0; i < 400; i++ {
@@ -135,4 +124,63 @@ func TestLevelsRoundTrip(t *testing.T) {
 	if err != nil || !plan.Reconcile {
 		t.Fatalf("plan with reconcile = %+v, %v", plan, err)
 	}
+}
+
+// TestLevelCalibrationsGiveWayFirst: the levels' calibrations are what Encode drops first to
+// stay within MaxBytes (their expectations, then the whole records), before the run-wide
+// calibration's expectation; a small hierarchy keeps them whole.
+func TestLevelCalibrationsGiveWayFirst(t *testing.T) {
+	cal := fullCalibration
+	tree := func(levels, k int) Summary {
+		s := Summary{Kind: KindTrain, Trained: 9, Calibration: cal(k)}
+		for i := range levels {
+			s.Levels = append(s.Levels, Level{Name: strings.Repeat("l", 20) + string(rune('a'+i)), Nodes: 1000003,
+				Accuracy:    &Accuracy{Metric: "MASE", Evaluated: 99991, ExpectedSum: 1.0 / 3, RealizedSum: 2.0 / 3},
+				Calibration: cal(k)})
+		}
+		return s
+	}
+	small := tree(4, 3)
+	b, err := Encode(small)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := Decode(b)
+	if err != nil || len(got.Levels) != 4 || got.Levels[3].Calibration == nil || !got.Levels[3].Calibration.HasExpectation() ||
+		got.Levels[3].Calibration.PinballSum[1] != small.Levels[3].Calibration.PinballSum[1] {
+		t.Fatalf("small hierarchy after the round trip: %+v, %v", got.Levels, err)
+	}
+	big := tree(9, 19)
+	if b, err = Encode(big); err != nil || len(b) > MaxBytes {
+		t.Fatalf("encode of 9 levels x 19 quantiles: %d bytes, %v", len(b), err)
+	}
+	if got, err = Decode(b); err != nil {
+		t.Fatal(err)
+	}
+	if got.Calibration == nil || len(got.Calibration.Below) != 19 || len(got.Levels) != 9 || got.Levels[8].Accuracy == nil ||
+		*got.Levels[8].Accuracy != *big.Levels[8].Accuracy {
+		t.Fatalf("big hierarchy lost more than the level calibrations: %+v", got)
+	}
+	for _, l := range got.Levels {
+		if l.Calibration != nil && l.Calibration.HasExpectation() {
+			t.Errorf("level %s kept its calibration's expectation while the summary was over the limit", l.Name)
+		}
+	}
+}
+
+// fullCalibration is a calibration of k quantile levels (i/(k+1)) with its expectation, every
+// sum a full-precision float.
+func fullCalibration(k int) *Calibration {
+	c := &Calibration{Series: 123456, Points: 987654, Pairs: 9876543, BacktestSeries: 123456, BacktestPoints: 2222222, BacktestActuals: 987654,
+		BiasSum: -98765.0 / 7, ExpectedBiasSum: 98765.0 / 13}
+	for i := 1; i <= k; i++ {
+		c.Levels = append(c.Levels, float64(i)/float64(k+1))
+		c.Below = append(c.Below, 50000*i)
+		c.PinballSum = append(c.PinballSum, 1234567.0/3*float64(i))
+		c.BelowPairs = append(c.BelowPairs, 5000000*i)
+		c.Expected = append(c.Expected, 987654.0/7*float64(i))
+		c.ExpectedVar = append(c.ExpectedVar, 4321.0/9*float64(i))
+		c.ExpectedPinballSum = append(c.ExpectedPinballSum, 1234567.0/11*float64(i))
+	}
+	return c
 }
