@@ -187,6 +187,9 @@ func TestDriftVerdict(t *testing.T) {
 //   - item: 30 nodes, 240 points, every node 1.2 times its promise 1: WithinThreshold;
 //   - item+depot (the input series): 120 nodes, 960 points, as promised: WithinThreshold;
 //   - category: nodes but no evaluation (first run of the level): NotEvaluated.
+//
+// The depot level also sent its calibration: of its 160 new actuals 20 at or below q10 and 132
+// at or below q90 (its 80% band held 112/160 = 0.700), promised 16 and 144 (0.800).
 func driftedTree(t *testing.T) *forecastingv1alpha1.HierarchyStatus {
 	t.Helper()
 	acc := func(n, points int, exp, real, expLog, realLog float64) *summary.Accuracy {
@@ -195,7 +198,10 @@ func driftedTree(t *testing.T) *forecastingv1alpha1.HierarchyStatus {
 	}
 	h, err := addLevels(nil, []summary.Level{
 		{Name: "total", Nodes: 1, Accuracy: acc(1, 12, 1, 3, 0, math.Log(3))},
-		{Name: "depot", Nodes: 20, Accuracy: acc(20, 160, 50, 60, 10*math.Log(4), 20*math.Log(3))},
+		{Name: "depot", Nodes: 20, Accuracy: acc(20, 160, 50, 60, 10*math.Log(4), 20*math.Log(3)),
+			Calibration: &summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 20, Points: 160, Below: []int{20, 132}, PinballSum: []float64{8, 8},
+				Pairs: 640, BelowPairs: []int{40, 520}, Expected: []float64{16, 144}, ExpectedVar: []float64{14.4, 14.4}, ExpectedPinballSum: []float64{10, 10},
+				BacktestSeries: 20, BacktestPoints: 400, BacktestActuals: 400}},
 		{Name: "item", Nodes: 30, Accuracy: acc(30, 240, 30, 36, 0, 30*math.Log(1.2))},
 		{Name: "item+depot", Nodes: 120, Accuracy: acc(120, 960, 120, 120, 0, 0)},
 		{Name: "category", Nodes: 5},

@@ -32,6 +32,8 @@ type Metrics struct {
 	levelExpGeo   *prometheus.GaugeVec
 	levelRealGeo  *prometheus.GaugeVec
 	levelDrift    *prometheus.GaugeVec
+	levelBand     *prometheus.GaugeVec
+	levelBandExp  *prometheus.GaugeVec
 	conditions    *prometheus.GaugeVec
 	missed        *prometheus.CounterVec
 	seriesDone    *prometheus.GaugeVec
@@ -122,6 +124,14 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 			Name: "almanac_hierarchy_accuracy_drift",
 			Help: "spec.drift's rule on one hierarchy level's nodes alone: 1 above the threshold, 0 within; absent while the level is not judged (too few new actuals, none evaluated).",
 		}, []string{"namespace", "portfolio", "hierarchy_level"}),
+		levelBand: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_band_coverage",
+			Help: "Share of one hierarchy level's new actuals inside the widest published band (lowest to highest quantile) of the portfolio's last evaluated run (status.hierarchyLevels[].accuracy.bandCoverage).",
+		}, []string{"namespace", "portfolio", "hierarchy_level"}),
+		levelBandExp: prometheus.NewGaugeVec(prometheus.GaugeOpts{
+			Name: "almanac_hierarchy_band_coverage_expected",
+			Help: "Share of the same actuals the level's bands promised: per node its band's share on its own (reconciled) backtest.",
+		}, []string{"namespace", "portfolio", "hierarchy_level"}),
 		conditions: prometheus.NewGaugeVec(prometheus.GaugeOpts{
 			Name: "almanac_portfolio_condition",
 			Help: "A portfolio condition (Ready, Reconciling, Stalled, AccuracyDrift) with its reason: 1 when True, 0 when False; absent while Unknown.",
@@ -152,7 +162,7 @@ func NewMetrics(reg prometheus.Registerer) (*Metrics, error) {
 		}, []string{"namespace", "portfolio", "run"}),
 	}
 	for _, c := range []prometheus.Collector{m.runs, m.duration, m.shardsPending, m.parallelism, m.expected, m.realized, m.expectedGeo, m.realizedGeo, m.coverage, m.promised, m.bias, m.movement,
-		m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift, m.conditions, m.missed,
+		m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift, m.levelBand, m.levelBandExp, m.conditions, m.missed,
 		m.seriesDone, m.seriesPlanned, m.seriesRate, m.remaining, m.stalled} {
 		if err := reg.Register(c); err != nil {
 			return nil, err
@@ -249,8 +259,8 @@ func setParsed(g *prometheus.GaugeVec, v string, lv ...string) {
 	}
 }
 
-// levels sets a portfolio's per-level accuracy gauges from status.hierarchyLevels (nil: drop
-// them). The series are apart from the run-level almanac_accuracy_* ones, not those with a
+// levels sets a portfolio's per-level accuracy and band-coverage gauges from
+// status.hierarchyLevels (nil: drop them). The series are apart from the run-level almanac_accuracy_* ones, not those with a
 // level label, so that a selector of one portfolio's run-level accuracy keeps matching one
 // series; their label is hierarchy_level (the tables' column) because level already means a
 // quantile's probability on almanac_quantile_coverage. At most maxHierarchyLevels levels
@@ -260,7 +270,7 @@ func (m *Metrics) levels(namespace, portfolio string, levels []forecastingv1alph
 		return
 	}
 	labels := prometheus.Labels{"namespace": namespace, "portfolio": portfolio}
-	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift} {
+	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift, m.levelBand, m.levelBandExp} {
 		g.DeletePartialMatch(labels)
 	}
 	for _, l := range levels[:min(len(levels), maxHierarchyLevels)] {
@@ -279,6 +289,8 @@ func (m *Metrics) levels(namespace, portfolio string, levels []forecastingv1alph
 		setParsed(m.levelReal, acc.Realized, lv...)
 		setParsed(m.levelExpGeo, acc.ExpectedGeometric, lv...)
 		setParsed(m.levelRealGeo, acc.RealizedGeometric, lv...)
+		setParsed(m.levelBand, acc.BandCoverage, namespace, portfolio, l.Name)
+		setParsed(m.levelBandExp, acc.ExpectedBandCoverage, namespace, portfolio, l.Name)
 	}
 }
 

@@ -152,13 +152,23 @@ func TestLevelMetrics(t *testing.T) {
 	if n := testutil.CollectAndCount(m.levelExp); n != 4 {
 		t.Errorf("%d level expected series, want 4", n)
 	}
+	// Only the depot level sent a calibration (driftedTree): its band held 0.700, promised 0.800.
+	if got, want := testutil.ToFloat64(m.levelBand.WithLabelValues("planning", "fenwick-weekly", "depot")), 0.7; got != want {
+		t.Errorf("band coverage of depot = %v, want %v", got, want)
+	}
+	if got, want := testutil.ToFloat64(m.levelBandExp.WithLabelValues("planning", "fenwick-weekly", "depot")), 0.8; got != want {
+		t.Errorf("promised band coverage of depot = %v, want %v", got, want)
+	}
+	if n := testutil.CollectAndCount(m.levelBand) + testutil.CollectAndCount(m.levelBandExp); n != 2 {
+		t.Errorf("%d band series, want 2 (depot only)", n)
+	}
 	// A later status with fewer levels replaces the series.
 	m.levels("planning", "fenwick-weekly", levels[2:3])
 	if n := testutil.CollectAndCount(m.levelExp) + testutil.CollectAndCount(m.levelDrift); n != 2 {
 		t.Errorf("%d series after one level remained, want 2", n)
 	}
 	m.levels("planning", "fenwick-weekly", nil)
-	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift} {
+	for _, g := range []*prometheus.GaugeVec{m.levelExp, m.levelReal, m.levelExpGeo, m.levelRealGeo, m.levelDrift, m.levelBand, m.levelBandExp} {
 		if n := testutil.CollectAndCount(g); n != 0 {
 			t.Errorf("%s: %d series after the portfolio went away", describe(g), n)
 		}
