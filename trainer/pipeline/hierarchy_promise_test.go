@@ -333,7 +333,7 @@ func TestHierarchyReadsNodesVersion2(t *testing.T) {
 	ctx := context.Background()
 	planAndTrain(t, cfg)
 	out := mustOpen(t, cfg.Output.URI)
-	p, err := readPlan(ctx, out, cfg.Run)
+	p, err := ReadPlan(ctx, out, cfg.Run)
 	if err != nil {
 		t.Fatal(err)
 	}

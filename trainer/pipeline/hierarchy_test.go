@@ -63,7 +63,7 @@ func TestHierarchyAcrossShards(t *testing.T) {
 			}
 			out := mustOpen(t, cfg.Output.URI)
 			m := checkPublished(t, out, cfg.Run)
-			p, err := readPlan(ctx, out, cfg.Run)
+			p, err := ReadPlan(ctx, out, cfg.Run)
 			if err != nil || !p.Reconcile {
 				t.Fatalf("plan.reconcile = false (%v), want true: item totals and the grand total span shards", err)
 			}
@@ -172,7 +172,7 @@ func TestHierarchyWithinShards(t *testing.T) {
 	}
 	out := mustOpen(t, cfg.Output.URI)
 	m := checkPublished(t, out, cfg.Run)
-	if p, _ := readPlan(ctx, out, cfg.Run); p == nil || p.Reconcile {
+	if p, _ := ReadPlan(ctx, out, cfg.Run); p == nil || p.Reconcile {
 		t.Fatal("plan.reconcile is true for levels within shards")
 	}
 	c, err := CheckCoherence(ctx, out, m, cfg)

@@ -72,7 +72,7 @@ func TestStreamingWritesWhatTheWholeShardWrites(t *testing.T) {
 				t.Fatal(err)
 			}
 			out := mustOpen(t, cfg.Output.URI)
-			p, err := readPlan(ctx, out, cfg.Run)
+			p, err := ReadPlan(ctx, out, cfg.Run)
 			if err != nil {
 				t.Fatal(err)
 			}

@@ -34,8 +34,8 @@ const (
 	TableRejected   = "rejected"
 )
 
-// readPlan reads runs/<run>/plan.json.
-func readPlan(ctx context.Context, out *store.Store, run string) (*Plan, error) {
+// ReadPlan reads runs/<run>/plan.json (a missing one is ErrConfig wrapping store.ErrNotFound).
+func ReadPlan(ctx context.Context, out *store.Store, run string) (*Plan, error) {
 	key := store.RunKey(run, store.PlanName)
 	b, err := out.Get(ctx, key)
 	if err != nil {
@@ -53,7 +53,7 @@ func openRun(ctx context.Context, cfg *runconfig.Config) (out *store.Store, p *P
 	if out, err = openOutput(ctx, cfg); err != nil {
 		return nil, nil, nil, err
 	}
-	if p, err = readPlan(ctx, out, cfg.Run); err == nil {
+	if p, err = ReadPlan(ctx, out, cfg.Run); err == nil {
 		prev, err = previous(ctx, out, cfg)
 	}
 	if err != nil {

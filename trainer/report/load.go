@@ -128,15 +128,10 @@ func LoadRun(ctx context.Context, st *store.Store, run string) (*Run, error) {
 // planDesign reads the design decision of the run's plan.json; nil when the run has none
 // (a declared design, or plan.json pruned).
 func planDesign(ctx context.Context, st *store.Store, run string) (*design.Record, error) {
-	key := store.RunKey(run, store.PlanName)
-	b, err := st.Get(ctx, key)
+	p, err := pipeline.ReadPlan(ctx, st, run)
 	if errors.Is(err, store.ErrNotFound) {
 		return nil, nil
 	}
-	if err != nil {
-		return nil, fmt.Errorf("run %s: %w", run, err)
-	}
-	p, err := pipeline.DecodePlan(b, st.Describe(key))
 	if err != nil {
 		return nil, err
 	}
