@@ -79,14 +79,7 @@ func TestLocalShardsApplyThePlanDesign(t *testing.T) {
 		t.Errorf("local -f stderr: %s", stderr)
 	}
 
-	b, err := os.ReadFile(filepath.Join(dir, "out", "runs", "flp-design-1", "plan.json"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := pipeline.DecodePlan(b, "plan.json")
-	if err != nil {
-		t.Fatal(err)
-	}
+	p := planOf(t, dir, "flp-design-1")
 	// 160 weeks are enough for the inner holdout (2h + m + 2 = 70, minHoldout): every series scores.
 	if p.Design == nil || p.Design.SampleSeries != 24 || p.Design.InnerSeries != 24 || len(p.Design.Segments) == 0 || len(p.Design.Candidates) < 2 {
 		t.Fatalf("plan.json design: %+v", p.Design)
@@ -151,7 +144,15 @@ func TestLocalDefaultZooLeadsWithTheBenchmarkedDesign(t *testing.T) {
 		"--date", "week_start", "--value", "units", "--frequency", "Weekly", "--horizon", "8", "--run", "flp-default-zoo"}, &out, &errb, noenv); code != 0 {
 		t.Fatalf("local: exit %d: %s", code, errb.String())
 	}
-	b, err := os.ReadFile(filepath.Join(dir, "out", "runs", "flp-default-zoo", "plan.json"))
+	if p := planOf(t, dir, "flp-default-zoo"); p.Design == nil || len(p.Design.Candidates) == 0 || p.Design.Candidates[0].Name != design.Combinations[0].Name {
+		t.Fatalf("plan.json design %+v: want the first candidate %q", p.Design, design.Combinations[0].Name)
+	}
+}
+
+// planOf reads the plan.json that local wrote for run under dir/out.
+func planOf(t *testing.T, dir, run string) *pipeline.Plan {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join(dir, "out", "runs", run, "plan.json"))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -159,7 +160,5 @@ func TestLocalDefaultZooLeadsWithTheBenchmarkedDesign(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if p.Design == nil || len(p.Design.Candidates) == 0 || p.Design.Candidates[0].Name != design.Combinations[0].Name {
-		t.Fatalf("plan.json design %+v: want the first candidate %q", p.Design, design.Combinations[0].Name)
-	}
+	return p
 }
