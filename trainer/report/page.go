@@ -17,6 +17,7 @@ import (
 	"almanac.dev/almanac/trainer/backtest"
 	calib "almanac.dev/almanac/trainer/coverage"
 	"almanac.dev/almanac/trainer/ingest"
+	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
 	"almanac.dev/almanac/trainer/tables"
@@ -261,7 +262,7 @@ func render(dir string, r *Run, picks []Pick, hist map[string]series.Series, his
 			Band: BandShort(fc.Levels), Carried: r.Carried[pk.Key], Eval: evals[pk.Key]}
 		s.Family = familyOf(cfg.Models, m.Model)
 		s.FamilyWords = ModelWords(m.Model, s.Family)
-		s.Choice = ChoiceWords(m.Design, m.Segment, string(metric), isCombination(s.Family))
+		s.Choice = ChoiceWords(m.Design, m.Segment, string(metric), s.Family == selection.FamilyCombination)
 		if e := s.Eval; e != nil && e.Expected > 0 && finite(e.Realized) {
 			s.Ratio = fmt.Sprintf("%.1f", e.Realized/e.Expected)
 		}

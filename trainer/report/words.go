@@ -277,6 +277,3 @@ func ChoiceWords(designName, segment, metric string, combined bool) string {
 	}
 	return fmt.Sprintf("the same models for every series of its group (%s): the way (%s) chosen for the group on the latest periods of its series' histories", segment, designName)
 }
-
-// isCombination reports whether family is that of a combination of members.
-func isCombination(family string) bool { return family == selection.FamilyCombination }
