@@ -83,7 +83,6 @@ func (h *hierarchy) reconcileUnit(runName string, freq string, u *loaded, result
 	return uh, nil
 }
 
-// levels returns the unit's level counts with the accuracy of its evaluated nodes.
 func indexes(n int) []int {
 	out := make([]int, n)
 	for i := range out {
