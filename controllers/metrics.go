@@ -259,12 +259,12 @@ func setParsed(g *prometheus.GaugeVec, v string, lv ...string) {
 	}
 }
 
-// levels sets a portfolio's per-level accuracy and band-coverage gauges from
-// status.hierarchyLevels (nil: drop them). The series are apart from the run-level almanac_accuracy_* ones, not those with a
-// level label, so that a selector of one portfolio's run-level accuracy keeps matching one
+// levels sets a portfolio's per-level accuracy and band-coverage gauges from status.hierarchyLevels
+// (nil: drop them). The series are apart from the run-level almanac_accuracy_* ones, not those with
+// a level label, so that a selector of one portfolio's run-level accuracy keeps matching one
 // series; their label is hierarchy_level (the tables' column) because level already means a
-// quantile's probability on almanac_quantile_coverage. At most maxHierarchyLevels levels
-// (addLevels refuses more), so at most 9 series of each name per portfolio.
+// quantile's probability on almanac_quantile_coverage. At most maxHierarchyLevels levels (addLevels
+// refuses more), so at most 9 series of each name per portfolio.
 func (m *Metrics) levels(namespace, portfolio string, levels []forecastingv1alpha1.LevelAccuracy) {
 	if m == nil {
 		return
