@@ -223,7 +223,12 @@ func withCalibration(acc *forecastingv1alpha1.AccuracyStatus, sums *forecastingv
 // calibrationExpectation, the design effect, the backtest's own sampling error) and
 // maxBiasPercent, each only when set. fired is true with the reason CalibrationOff or Biased
 // and a message naming the levels or the bias.
-func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecastingv1alpha1.DriftSpec) (fired bool, reason, message string) {
+//
+// shared is how many such judgements share the false-alarm rate α = percent/100: each is made
+// at α/shared (Bonferroni), so that a forecast as good as promised trips any of them with at
+// most α; 1 for the input series, the number of hierarchy levels judged for those (levelCalibration).
+// The bias bound is a fixed share of the scale, not a test, and is not split.
+func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecastingv1alpha1.DriftSpec, shared int) (fired bool, reason, message string) {
 	if sums == nil || sums.Points == 0 {
 		return false, "", ""
 	}
@@ -231,7 +236,7 @@ func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecast
 		nominal := spec.CalibrationExpectation == forecastingv1alpha1.ExpectationNominal
 		c, err := calibrationOf(sums, nominal)
 		if err == nil {
-			alpha := float64(spec.CalibrationFalseAlarmPercent) / 100
+			alpha := float64(spec.CalibrationFalseAlarmPercent) / 100 / float64(max(shared, 1))
 			var off []string
 			for j, l := range coverage.Judge(c, alpha) {
 				if !l.Off {
@@ -245,8 +250,12 @@ func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecast
 					sums.Below[j], sums.Points, sums.Levels[j], l.Realized, what, l.Expected, l.Tolerance, l.DesignEffect))
 			}
 			if len(off) > 0 {
+				rate := fmt.Sprintf("%d%%", spec.CalibrationFalseAlarmPercent)
+				if shared > 1 {
+					rate += fmt.Sprintf(" shared by %d levels", shared)
+				}
 				return true, forecastingv1alpha1.ReasonCalibrationOff,
-					fmt.Sprintf("calibration off (false-alarm rate %d%%, z = %.2f): %s", spec.CalibrationFalseAlarmPercent,
+					fmt.Sprintf("calibration off (false-alarm rate %s, z = %.2f): %s", rate,
 						coverage.Z(alpha, len(sums.Levels)), strings.Join(off, "; "))
 			}
 		}
@@ -262,6 +271,46 @@ func calibrationVerdict(sums *forecastingv1alpha1.CalibrationSums, spec forecast
 		}
 	}
 	return false, "", ""
+}
+
+// levelCalibration applies calibrationVerdict to each hierarchy level's calibration sums on
+// its own and records each verdict in the level's CalibrationDrift (levels as levelDrift
+// returned them, in h's order): CalibrationOff or Biased when it fires, CalibrationHeld when
+// it does not; nothing when spec.drift sets neither rule or the level has no calibrated new
+// actuals. The false-alarm rate is shared by the levels that have such actuals. It returns
+// the AccuracyDrift reason for the levels, LevelCalibrationOff when some level's quantiles
+// are off (else LevelBiased when some level is biased, else ""), and a message naming each
+// level that fired with its verdict.
+func levelCalibration(h *forecastingv1alpha1.HierarchyStatus, spec forecastingv1alpha1.DriftSpec, levels []forecastingv1alpha1.LevelAccuracy) (reason, message string) {
+	if h == nil || (spec.CalibrationFalseAlarmPercent == 0 && spec.MaxBiasPercent == 0) {
+		return "", ""
+	}
+	judged := 0
+	for _, l := range h.Levels {
+		if l.CalibrationSums != nil && l.CalibrationSums.Points > 0 {
+			judged++
+		}
+	}
+	var fired []string
+	for i, l := range h.Levels {
+		if i >= len(levels) || l.CalibrationSums == nil || l.CalibrationSums.Points == 0 {
+			continue
+		}
+		off, why, msg := calibrationVerdict(l.CalibrationSums, spec, judged)
+		if !off {
+			levels[i].CalibrationDrift = forecastingv1alpha1.ReasonCalibrationHeld
+			continue
+		}
+		levels[i].CalibrationDrift = why
+		fired = append(fired, fmt.Sprintf("level %s: %s", l.Name, msg))
+		switch {
+		case why == forecastingv1alpha1.ReasonCalibrationOff:
+			reason = forecastingv1alpha1.ReasonLevelCalibrationOff
+		case reason == "":
+			reason = forecastingv1alpha1.ReasonLevelBiased
+		}
+	}
+	return reason, strings.Join(fired, "; ")
 }
 
 // addStability folds one shard's movement sums into the run's (exact, as addAccuracy).

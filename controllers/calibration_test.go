@@ -5,6 +5,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"strconv"
+	"strings"
 	"testing"
 	"time"
 
@@ -125,16 +126,16 @@ func TestGaussianBandCoverage(t *testing.T) {
 		t.Errorf("coverage %.3f is outside 0.8 ± %.4f", cov, tol)
 	}
 	spec := forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1, MaxBiasPercent: 50}
-	if fired, reason, msg := calibrationVerdict(sums, spec); fired {
+	if fired, reason, msg := calibrationVerdict(sums, spec, 1); fired {
 		t.Errorf("calibrated forecasts drift: %s %s", reason, msg)
 	}
 
 	over := foldCalibration(t, gaussianShards(t, 4, 100, 1.0/3, 0, 12), []int{0, 1, 2, 3})
-	fired, reason, msg := calibrationVerdict(over, spec)
+	fired, reason, msg := calibrationVerdict(over, spec, 1)
 	if !fired || reason != forecastingv1alpha1.ReasonCalibrationOff {
 		t.Errorf("overconfident member: fired %v reason %q (%s)", fired, reason, msg)
 	}
-	if fired, _, _ := calibrationVerdict(over, forecastingv1alpha1.DriftSpec{}); fired {
+	if fired, _, _ := calibrationVerdict(over, forecastingv1alpha1.DriftSpec{}, 1); fired {
 		t.Errorf("calibration judged although spec.drift does not ask for it")
 	}
 
@@ -145,7 +146,7 @@ func TestGaussianBandCoverage(t *testing.T) {
 	if math.Abs(bias-math.Sqrt(math.Pi)/2) > 0.1 {
 		t.Errorf("bias %.4f, want about sqrt(π)/2 = 0.886", bias)
 	}
-	fired, reason, msg = calibrationVerdict(high, forecastingv1alpha1.DriftSpec{MaxBiasPercent: 50})
+	fired, reason, msg = calibrationVerdict(high, forecastingv1alpha1.DriftSpec{MaxBiasPercent: 50}, 1)
 	if !fired || reason != forecastingv1alpha1.ReasonBiased {
 		t.Errorf("biased member: fired %v reason %q (%s)", fired, reason, msg)
 	}
@@ -216,12 +217,12 @@ func TestBacktestExpectation(t *testing.T) {
 		t.Fatalf("backtest sums %d series, %d points, %d actuals, %d pairs", sums.BacktestSeries, sums.BacktestPoints, sums.BacktestActuals, sums.Pairs)
 	}
 	backtest := forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1}
-	if fired, reason, msg := calibrationVerdict(sums, backtest); fired {
+	if fired, reason, msg := calibrationVerdict(sums, backtest, 1); fired {
 		t.Errorf("judged against its backtest: %s %s", reason, msg)
 	}
 	nominal := backtest
 	nominal.CalibrationExpectation = forecastingv1alpha1.ExpectationNominal
-	if fired, reason, msg := calibrationVerdict(sums, nominal); !fired || reason != forecastingv1alpha1.ReasonCalibrationOff {
+	if fired, reason, msg := calibrationVerdict(sums, nominal, 1); !fired || reason != forecastingv1alpha1.ReasonCalibrationOff {
 		t.Errorf("judged against the levels: fired %v %q %s", fired, reason, msg)
 	} else {
 		t.Log(msg)
@@ -240,7 +241,7 @@ func TestBacktestExpectation(t *testing.T) {
 	}
 	// A calibrated member judged against the same (wrong) promise is off: it covers 80%, the
 	// backtest promised 33%.
-	if fired, _, msg := calibrationVerdict(foldCalibration(t, promisedShards(t, 4, 100, 1, 0, 22, promised), []int{0, 1, 2, 3}), backtest); !fired {
+	if fired, _, msg := calibrationVerdict(foldCalibration(t, promisedShards(t, 4, 100, 1, 0, 22, promised), []int{0, 1, 2, 3}), backtest, 1); !fired {
 		t.Errorf("coverage moved from the backtest's 0.33 to 0.8 without drift (%s)", msg)
 	}
 	old := shards[2]
@@ -248,5 +249,90 @@ func TestBacktestExpectation(t *testing.T) {
 	mixed := foldCalibration(t, []summary.Calibration{shards[0], shards[1], old, shards[3]}, []int{0, 1, 2, 3})
 	if mixed.Expected != nil || mixed.BacktestSeries != 0 || mixed.Points != sums.Points {
 		t.Errorf("a shard without expectation: sums %+v", mixed)
+	}
+}
+
+// calibratedTree is a hierarchy whose item+depot nodes publish quantiles as good as promised
+// (gaussianShards, width 1), whose item nodes publish bands a third as wide (overconfident) and
+// whose depot nodes forecast one σ high; the total has no calibration. Every level's accuracy
+// is as promised.
+func calibratedTree(t *testing.T) *forecastingv1alpha1.HierarchyStatus {
+	t.Helper()
+	acc := &summary.Accuracy{Metric: "MASE", Evaluated: 100, EvaluatedPoints: 600, ExpectedSum: 100, RealizedSum: 100, LogEvaluated: 100}
+	cal := func(width, shift float64, seed uint64) *summary.Calibration {
+		c := gaussianShards(t, 1, 100, width, shift, seed)[0]
+		return &c
+	}
+	h, err := addLevels(nil, []summary.Level{
+		{Name: "total", Nodes: 1},
+		{Name: "depot", Nodes: 100, Accuracy: acc, Calibration: cal(1, 10, 41)},
+		{Name: "item", Nodes: 100, Accuracy: acc, Calibration: cal(1.0/3, 0, 42)},
+		{Name: "item+depot", Nodes: 100, Accuracy: acc, Calibration: cal(1, 0, 43)},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	showLevels(h, "fenwick-weekly-3")
+	return h
+}
+
+// TestLevelCalibration: spec.drift's calibration and bias rules per hierarchy level, each level
+// in its CalibrationDrift, the reason LevelCalibrationOff before LevelBiased, and nothing
+// judged when spec.drift sets neither rule.
+func TestLevelCalibration(t *testing.T) {
+	h := calibratedTree(t)
+	verdicts := func(spec forecastingv1alpha1.DriftSpec) (map[string]string, string, string) {
+		levels, _ := levelDrift(h, spec)
+		reason, message := levelCalibration(h, spec, levels)
+		got := map[string]string{}
+		for _, l := range levels {
+			got[l.Name] = l.CalibrationDrift
+		}
+		return got, reason, message
+	}
+	got, reason, msg := verdicts(forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1, MaxBiasPercent: 50})
+	want := map[string]string{"total": "", "depot": forecastingv1alpha1.ReasonCalibrationOff,
+		"item": forecastingv1alpha1.ReasonCalibrationOff, "item+depot": forecastingv1alpha1.ReasonCalibrationHeld}
+	if diff := cmp.Diff(want, got); diff != "" || reason != forecastingv1alpha1.ReasonLevelCalibrationOff {
+		t.Errorf("both rules: reason %s, verdicts (-want,+got):\n%s", reason, diff)
+	}
+	if !strings.HasPrefix(msg, "level depot: calibration off (false-alarm rate 1% shared by 3 levels, z = 3.26): ") ||
+		!strings.Contains(msg, "; level item: calibration off") {
+		t.Errorf("message %q", msg)
+	}
+
+	// Bias alone: the one σ high depot nodes only.
+	got, reason, msg = verdicts(forecastingv1alpha1.DriftSpec{MaxBiasPercent: 50})
+	want = map[string]string{"total": "", "depot": forecastingv1alpha1.ReasonBiased,
+		"item": forecastingv1alpha1.ReasonCalibrationHeld, "item+depot": forecastingv1alpha1.ReasonCalibrationHeld}
+	if diff := cmp.Diff(want, got); diff != "" || reason != forecastingv1alpha1.ReasonLevelBiased || !strings.HasPrefix(msg, "level depot: mean scaled error") {
+		t.Errorf("bias only: reason %s, message %q, verdicts (-want,+got):\n%s", reason, msg, diff)
+	}
+
+	got, reason, msg = verdicts(forecastingv1alpha1.DriftSpec{ThresholdPercent: 130})
+	if diff := cmp.Diff(map[string]string{"total": "", "depot": "", "item": "", "item+depot": ""}, got); diff != "" || reason != "" || msg != "" {
+		t.Errorf("neither rule set: reason %q, message %q, verdicts (-want,+got):\n%s", reason, msg, diff)
+	}
+	if reason, msg := levelCalibration(nil, forecastingv1alpha1.DriftSpec{MaxBiasPercent: 50}, nil); reason != "" || msg != "" {
+		t.Errorf("no hierarchy: %q %q", reason, msg)
+	}
+}
+
+// TestCalibrationVerdictSharesTheRate: the false-alarm rate is split among the judgements that
+// share it (Bonferroni). 58 of 400 actuals at or below a nominal 0.1 quantile (no design
+// effect, no promise: a binomial with mean 40 and standard deviation 6) is 3.0 standard
+// deviations off: beyond z = Φ⁻¹(1 − 0.01/4) = 2.807 for one judgement at 1% over two quantile
+// levels, within z = Φ⁻¹(1 − 0.01/12) = 3.144 when three levels share the 1%.
+func TestCalibrationVerdictSharesTheRate(t *testing.T) {
+	sums, err := addCalibration(nil, summary.Calibration{Levels: []float64{0.1, 0.9}, Series: 400, Points: 400, Below: []int{58, 360}, PinballSum: []float64{1, 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	spec := forecastingv1alpha1.DriftSpec{CalibrationFalseAlarmPercent: 1}
+	if fired, reason, msg := calibrationVerdict(sums, spec, 1); !fired || reason != forecastingv1alpha1.ReasonCalibrationOff || !strings.Contains(msg, "(false-alarm rate 1%, z = 2.81)") {
+		t.Errorf("alone: fired %v %s %q", fired, reason, msg)
+	}
+	if fired, _, msg := calibrationVerdict(sums, spec, 3); fired {
+		t.Errorf("shared by 3: fired (%s)", msg)
 	}
 }

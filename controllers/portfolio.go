@@ -54,7 +54,9 @@ type stallCause struct{ Reason, Message string }
 //     successful run, accuracy of the newest run that evaluated any (per hierarchy level too,
 //     each judged by levelDrift), and the conditions Ready, Reconciling, Stalled and
 //     AccuracyDrift, each with observedGeneration; AccuracyDrift is judged on the input series
-//     first, then on each hierarchy level (LevelAboveThreshold), then on calibration and bias;
+//     first, then on each hierarchy level (LevelAboveThreshold), then on the input series'
+//     calibration and bias, then on each level's (levelCalibration: LevelCalibrationOff,
+//     LevelBiased);
 //   - Create: a scheduled run when the most recent schedule time since the last one is due,
 //     within startingDeadlineSeconds, the portfolio is not suspended and no run is active
 //     (at most one catch-up run, however many times were missed); else a drift run when the
@@ -111,9 +113,14 @@ func planPortfolio(fp *forecastingv1alpha1.ForecastPortfolio, runs []forecasting
 				fmt.Sprintf("%s; input series: %s", levelsAbove, driftMessage)
 		}
 		if driftStatus != metav1.ConditionTrue {
-			if fired, reason, message := calibrationVerdict(evaluated.Status.CalibrationSums, fp.Spec.Drift); fired {
+			if fired, reason, message := calibrationVerdict(evaluated.Status.CalibrationSums, fp.Spec.Drift, 1); fired {
 				driftStatus, driftReason, driftMessage = metav1.ConditionTrue, reason, message
 			}
+		}
+		levelReason, levelsOff := levelCalibration(evaluated.Status.Hierarchy, fp.Spec.Drift, st.HierarchyLevels)
+		if driftStatus != metav1.ConditionTrue && levelReason != "" {
+			driftStatus, driftReason, driftMessage = metav1.ConditionTrue, levelReason,
+				fmt.Sprintf("%s; input series: %s", levelsOff, driftMessage)
 		}
 		driftMessage = fmt.Sprintf("run %s: %s", evaluated.Name, driftMessage)
 	}

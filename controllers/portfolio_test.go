@@ -392,3 +392,53 @@ func TestPlanPortfolioLevelDrift(t *testing.T) {
 		t.Errorf("after a run without levels: %+v", p.Status.HierarchyLevels)
 	}
 }
+
+// TestPlanPortfolioLevelCalibration: a run whose input series cover their new actuals as
+// promised and whose levels' accuracy is within the threshold, but whose depot and item
+// quantiles are off (calibratedTree), makes AccuracyDrift True with LevelCalibrationOff,
+// names both levels, starts a drift run under Retrain and shows each level's calibrationDrift;
+// the input series' own calibration verdict comes first.
+func TestPlanPortfolioLevelCalibration(t *testing.T) {
+	t0 := time.Date(2026, 12, 1, 6, 0, 0, 0, time.UTC)
+	run := runAt("fenwick-weekly-29933550", t0.Add(-time.Hour), "ok", t0)
+	run.Status.Hierarchy = calibratedTree(t)
+	bottom := run.Status.Hierarchy.Levels[len(run.Status.Hierarchy.Levels)-1]
+	run.Status.AccuracySums = bottom.AccuracySums.DeepCopy()
+	run.Status.CalibrationSums = bottom.CalibrationSums.DeepCopy()
+	run.Status.Accuracy = accuracyStatus(run.Status.AccuracySums, run.Name)
+	fp := fenwickPortfolio()
+	fp.Spec.Source.CredentialsSecretRef = nil
+	fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, CalibrationFalseAlarmPercent: 1,
+		Action: forecastingv1alpha1.DriftRetrain}
+	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+
+	p := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run}, t0.Add(time.Minute), stallCause{})
+	c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
+	if c == nil || c.Status != metav1.ConditionTrue || c.Reason != forecastingv1alpha1.ReasonLevelCalibrationOff {
+		t.Fatalf("AccuracyDrift = %+v, want True/LevelCalibrationOff", c)
+	}
+	if !strings.HasPrefix(c.Message, "run fenwick-weekly-29933550: level depot: calibration off") ||
+		!strings.Contains(c.Message, "; level item: calibration off") || !strings.Contains(c.Message, "; input series: realized MASE") {
+		t.Errorf("message %q", c.Message)
+	}
+	if got := eventReasons(p); !slices.Contains(got, forecastingv1alpha1.ReasonLevelCalibrationOff) || p.Create == nil || p.Create.Spec.Trigger != forecastingv1alpha1.TriggerDrift {
+		t.Errorf("events %v, run %+v; want LevelCalibrationOff and a drift run", got, p.Create)
+	}
+	var verdicts []string
+	for _, l := range p.Status.HierarchyLevels {
+		verdicts = append(verdicts, l.Name+"="+l.Drift+"/"+l.CalibrationDrift)
+	}
+	want := []string{"total=NotEvaluated/", "depot=WithinThreshold/CalibrationOff", "item=WithinThreshold/CalibrationOff", "item+depot=WithinThreshold/CalibrationHeld"}
+	if diff := cmp.Diff(want, verdicts); diff != "" {
+		t.Errorf("hierarchyLevels (-want,+got):\n%s", diff)
+	}
+
+	// The input series' quantiles off too: their verdict wins.
+	off := run.DeepCopy()
+	off.Status.CalibrationSums = run.Status.Hierarchy.Levels[2].CalibrationSums.DeepCopy()
+	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+	p = planPortfolio(fp, []forecastingv1alpha1.ForecastRun{*off}, t0.Add(time.Minute), stallCause{})
+	if c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift); c.Reason != forecastingv1alpha1.ReasonCalibrationOff {
+		t.Errorf("input series off: reason %s", c.Reason)
+	}
+}

@@ -914,7 +914,16 @@ const (
 	// often than their levels by more than the binomial tolerance.
 	ReasonCalibrationOff = "CalibrationOff"
 	// ReasonBiased: the mean scaled error is beyond spec.drift.maxBiasPercent.
-	ReasonBiased           = "Biased"
+	ReasonBiased = "Biased"
+	// ReasonCalibrationHeld: a hierarchy level's quantiles covered its new actuals as
+	// promised and its bias is within spec.drift.maxBiasPercent (the rules that are set).
+	ReasonCalibrationHeld = "CalibrationHeld"
+	// ReasonLevelCalibrationOff: the input series' accuracy and calibration and every level's
+	// accuracy are within spec.drift, but some hierarchy level's quantiles are not
+	// (status.hierarchyLevels[].calibrationDrift).
+	ReasonLevelCalibrationOff = "LevelCalibrationOff"
+	// ReasonLevelBiased: as ReasonLevelCalibrationOff, for a level's bias alone.
+	ReasonLevelBiased      = "LevelBiased"
 	ReasonNotEvaluated     = "NotEvaluated"
 	ReasonSpecValid        = "SpecValid"
 	ReasonMissedSchedule   = "MissedSchedule"
@@ -1000,6 +1009,14 @@ type LevelAccuracy struct {
 	// unless the run as a whole already is above it.
 	// +optional
 	Drift string `json:"drift,omitempty"`
+	// calibrationDrift is spec.drift's calibration and bias rules (calibrationFalseAlarmPercent,
+	// maxBiasPercent) applied to this level's nodes alone: CalibrationOff, Biased, or
+	// CalibrationHeld when neither fires; absent when neither rule is set or the level's
+	// nodes have no calibration on new actuals. The false-alarm rate is shared among the levels
+	// judged (Bonferroni). A level off while the input series and every level's accuracy are
+	// not makes AccuracyDrift True with reason LevelCalibrationOff or LevelBiased.
+	// +optional
+	CalibrationDrift string `json:"calibrationDrift,omitempty"`
 }
 
 // Backlog is the work still to do.
