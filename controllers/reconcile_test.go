@@ -149,8 +149,10 @@ var _ = Describe("ForecastRun reconcile step", func() {
 		ns := newNamespace()
 		createSecret(ns)
 		// minEvaluatedPoints 10: the grand total (1 node, 7 new actuals) is not judged.
+		// maxBiasPercent 1: the item+depot nodes' mean scaled bias, 0.5 over 35 actuals (0.0143,
+		// hierarchySources), is beyond it; the input series' (shardSummary: 0) is not.
 		testPortfolio(ns, "fenwick-levels", yearly, func(fp *forecastingv1alpha1.ForecastPortfolio) {
-			fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 10}
+			fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 10, MaxBiasPercent: 1}
 		})
 		manualRun(ns, "fenwick-levels-1", "fenwick-levels")
 		trainHierarchy(ns, "fenwick-levels-1")
@@ -172,9 +174,10 @@ var _ = Describe("ForecastRun reconcile step", func() {
 		levels := getPortfolio(ns, "fenwick-levels").Status.HierarchyLevels
 		verdicts := map[string]string{}
 		for _, l := range levels {
-			verdicts[l.Name] = fmt.Sprintf("%d %s", l.Nodes, l.Drift)
+			verdicts[l.Name] = fmt.Sprintf("%d %s %s", l.Nodes, l.Drift, l.CalibrationDrift)
 		}
-		Expect(verdicts).To(Equal(map[string]string{"total": "1 TooFewPoints", "depot": "3 AboveThreshold", "item": "3 NotEvaluated", "item+depot": "9 AboveThreshold"}))
+		// calibrationDrift came back through the apiserver (the CRD's schema keeps the field).
+		Expect(verdicts).To(Equal(map[string]string{"total": "1 TooFewPoints ", "depot": "3 AboveThreshold ", "item": "3 NotEvaluated ", "item+depot": "9 AboveThreshold Biased"}))
 		Expect(levels[0].Name).To(Equal("total"))
 		Expect(levels[0].Accuracy.Run).To(Equal("fenwick-levels-1"))
 
