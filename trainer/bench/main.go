@@ -195,6 +195,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		return 1
 	}
 	writeTable(stdout, naive2, naive2)
+	if note := zeroActualsNote(entries); note != "" {
+		fmt.Fprintln(stdout, note)
+	}
 	if *zooFlag != "" {
 		for _, f := range strings.Split(*zooFlag, ",") {
 			o.Families = append(o.Families, strings.TrimSpace(f))

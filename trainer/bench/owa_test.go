@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/series"
 )
 
@@ -251,5 +252,22 @@ func TestOWAInterval(t *testing.T) {
 	other := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 10, MASE: 1}, {ID: "c", SMAPE: 10, MASE: 1}}}
 	if _, _, ok = OWAInterval(other, n2, 0.9, 200, 1); ok {
 		t.Error("different series: want no interval")
+	}
+}
+
+// TestZeroActualsNote: the bench warns when test actuals are zero, with the counts, and the
+// claim it makes holds for backtest.SymmetricMAPE: a zero actual costs 200 against a forecast
+// of 1e-100 and 0 against an exact 0 (the M4 formula, 2|y − f| / (|y| + |f|) in percent).
+func TestZeroActualsNote(t *testing.T) {
+	entries := []Entry{{ID: "a", Test: []float64{3, 0, 0}}, {ID: "b", Test: []float64{1, 2}}, {ID: "c", Test: []float64{0}}}
+	want := "note: 2 of 3 series have zero actuals in their test data (3 of 6 points): sMAPE counts each such point as 200% unless the forecast is exactly 0, so sMAPE and OWA rank those series by exact zeros; compare MASE there (Hyndman & Koehler 2006)"
+	if got := zeroActualsNote(entries); got != want {
+		t.Errorf("note\n got %s\nwant %s", got, want)
+	}
+	if got := zeroActualsNote(entries[1:2]); got != "" {
+		t.Errorf("no zero actuals: %q", got)
+	}
+	if tiny, exact := backtest.SymmetricMAPE([]float64{0}, []float64{1e-100}), backtest.SymmetricMAPE([]float64{0}, []float64{0}); math.Abs(tiny-200) > 1e-9 || exact != 0 {
+		t.Errorf("sMAPE of a zero actual: %v against 1e-100, %v against 0; want 200 and 0", tiny, exact)
 	}
 }

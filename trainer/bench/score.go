@@ -148,3 +148,32 @@ func ScorePublished(dir string, entries []Entry) ([]*Report, error) {
 	sort.Slice(out, func(i, j int) bool { return out[i].Method < out[j].Method })
 	return out, nil
 }
+
+// zeroActualsNote warns, when some series have zero actuals in their test data, that sMAPE
+// (and so OWA) judges those points by whether a forecast is exactly zero: a term
+// 2|y − f| / (|y| + |f|) with y = 0 is 2 (200%) for any f ≠ 0, however small, and 0 for
+// f = 0 (backtest.SymmetricMAPE's convention), so a method that repeats a last value of 0 wins
+// them outright over one forecasting 1e-100 (sMAPE's trouble near zero: Hyndman & Koehler
+// 2006, "Another look at measures of forecast accuracy", IJF 22, section 3.2; the remedy they
+// give is a scaled error, MASE). Empty when no test actual is zero (the M3 and M4 data).
+func zeroActualsNote(entries []Entry) string {
+	series, points, total := 0, 0, 0
+	for _, e := range entries {
+		zeros := 0
+		for _, y := range e.Test {
+			if y == 0 {
+				zeros++
+			}
+		}
+		total += len(e.Test)
+		if zeros > 0 {
+			series++
+			points += zeros
+		}
+	}
+	if series == 0 {
+		return ""
+	}
+	return fmt.Sprintf("note: %d of %d series have zero actuals in their test data (%d of %d points): sMAPE counts each such point as 200%% unless the forecast is exactly 0, so sMAPE and OWA rank those series by exact zeros; compare MASE there (Hyndman & Koehler 2006)",
+		series, len(entries), points, total)
+}
