@@ -144,9 +144,12 @@ func writeSideBySide(w io.Writer, ours *Report, refs []*Report, n2 *Report) {
 	}
 	fmt.Fprintln(w)
 	for _, r := range refs {
-		fmt.Fprintf(w, "  ratio ours/%s: sMAPE %.4f MASE %.4f cpu %.4f (R %.3gx ours)\n", r.Method,
-			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(),
-			ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
+		cpu := "cpu n/a (R's CPU is within its start-up's)"
+		if r.All.CPUMilliseconds > 0 {
+			cpu = fmt.Sprintf("cpu %.4f (R %.3gx ours)", ours.All.CPUMilliseconds/r.All.CPUMilliseconds, r.All.CPUMilliseconds/ours.All.CPUMilliseconds)
+		}
+		fmt.Fprintf(w, "  ratio ours/%s: sMAPE %.4f MASE %.4f %s\n", r.Method,
+			ours.All.MeanSMAPE()/r.All.MeanSMAPE(), ours.All.MeanMASE()/r.All.MeanMASE(), cpu)
 	}
 }
 

@@ -271,3 +271,27 @@ func TestZeroActualsNote(t *testing.T) {
 		t.Errorf("sMAPE of a zero actual: %v against 1e-100, %v against 0; want 200 and 0", tiny, exact)
 	}
 }
+
+// TestSideBySideCPURatio: the ratio line gives ours/R's CPU and its inverse, and no ratio for a
+// reference whose CPU reads 0 (ReferenceR: not above R's start-up run), where a division would
+// print +Inf or a negative figure.
+func TestSideBySideCPURatio(t *testing.T) {
+	rep := func(name string, cpu float64) *Report {
+		r := newReport(name)
+		r.add(Entry{ID: "s", Category: "Weekly", Frequency: 1, Horizon: 2, Train: []float64{1, 2, 3, 4}, Test: []float64{5, 6}}, []float64{5, 5})
+		r.All.CPUMilliseconds = cpu
+		return r
+	}
+	ours := rep("almanac", 4)
+	var b bytes.Buffer
+	writeSideBySide(&b, ours, []*Report{rep("R forecast::ets", 8), rep("R forecast::thetaf", 0)}, ours)
+	out := b.String()
+	for _, want := range []string{
+		"ratio ours/R forecast::ets: sMAPE 1.0000 MASE 1.0000 cpu 0.5000 (R 2x ours)\n",
+		"ratio ours/R forecast::thetaf: sMAPE 1.0000 MASE 1.0000 cpu n/a (R's CPU is within its start-up's)\n",
+	} {
+		if !strings.Contains(out, want) {
+			t.Errorf("missing %q in\n%s", want, out)
+		}
+	}
+}

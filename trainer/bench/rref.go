@@ -92,8 +92,9 @@ func HaveR(ctx context.Context) bool {
 // scores the forecasts with Accuracy, so the figures compare with ours one to one. A report's
 // CPUMilliseconds is the child's user + system CPU time (rusage of the finished process, R is
 // single-threaded; BLAS threads are pinned to 1) minus that of a start-up-only child (method
-// "none": loads forecast and parses the input), divided by the number of series. It writes a
-// note to w and returns ErrNoR when R is not available.
+// "none": loads forecast and parses the input), divided by the number of series; 0, with a
+// note to w, when it is not above the start-up's (the variation of that subtraction). It writes
+// a note to w and returns ErrNoR when R is not available.
 func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Writer) ([]*Report, error) {
 	if methods == nil {
 		methods = RMethods
@@ -175,6 +176,12 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		}
 		r.All.Failed = failed
 		r.Forecasts = fcs
+		if cpu <= base {
+			// A method cheaper than the start-up's run-to-run variation (a few series, a
+			// naive forecast) would read negative; it reads 0 and its CPU ratio is not given.
+			fmt.Fprintf(w, "reference-r: %s took %.0f ms CPU, no more than the start-up run: its CPU per series reads 0\n", method, float64(cpu.Microseconds())/1000)
+			cpu = base
+		}
 		if len(entries) > 0 {
 			r.All.CPUMilliseconds = float64((cpu - base).Microseconds()) / 1000 / float64(len(entries))
 		}
