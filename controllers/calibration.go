@@ -293,7 +293,7 @@ func levelCalibration(h *forecastingv1alpha1.HierarchyStatus, spec forecastingv1
 	}
 	var fired []string
 	for i, l := range h.Levels {
-		if i >= len(levels) || l.CalibrationSums == nil || l.CalibrationSums.Points == 0 {
+		if i >= len(levels) || levels[i].Name != l.Name || l.CalibrationSums == nil || l.CalibrationSums.Points == 0 {
 			continue
 		}
 		off, why, msg := calibrationVerdict(l.CalibrationSums, spec, judged)
