@@ -7,6 +7,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"os/signal"
 	"path/filepath"
@@ -316,8 +317,33 @@ func jsonReport(r *Report) map[string]any {
 	for c, t := range r.By {
 		cats[c] = jsonTally{Series: t.N, SMAPE: t.MeanSMAPE(), MASE: t.MeanMASE(), Failed: t.Failed}
 	}
-	return map[string]any{"method": r.Method, "categories": cats,
+	doc := map[string]any{"method": r.Method, "categories": cats,
 		"all": jsonTally{Series: r.All.N, SMAPE: r.All.MeanSMAPE(), MASE: r.All.MeanMASE(), Failed: r.All.Failed, CPUMsPer: r.All.CPUMilliseconds}}
+	if len(r.Scores) > 0 {
+		doc["series"] = jsonScores(r.Scores)
+	}
+	return doc
+}
+
+// jsonSeriesScore is one series' scores in the JSON report, so that two runs on the same
+// series can be compared series by series (a paired bootstrap, say); mase is null where the
+// series' MASE scale is undefined.
+type jsonSeriesScore struct {
+	ID    string   `json:"id"`
+	SMAPE float64  `json:"smape"`
+	MASE  *float64 `json:"mase"`
+}
+
+func jsonScores(ss []SeriesScore) []jsonSeriesScore {
+	out := make([]jsonSeriesScore, len(ss))
+	for i, s := range ss {
+		out[i] = jsonSeriesScore{ID: s.ID, SMAPE: s.SMAPE}
+		if !math.IsNaN(s.MASE) {
+			m := s.MASE
+			out[i].MASE = &m
+		}
+	}
+	return out
 }
 
 func jsonReports(rs []*Report) []map[string]any {

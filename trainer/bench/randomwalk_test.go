@@ -56,25 +56,7 @@ func TestDefaultDesignNearNaiveOnRandomWalks(t *testing.T) {
 				es = append(es, Entry{ID: fmt.Sprintf("walk-%02d", k), Category: string(c.freq), Frequency: M4Period(c.freq), Freq: c.freq,
 					Horizon: c.h, Start: time.Date(2010, 1, 4, 0, 0, 0, 0, time.UTC), Train: y[:c.n], Test: y[c.n:]})
 			}
-			_, results, err := Run(context.Background(), es, Options{Workers: 2})
-			if err != nil {
-				t.Fatal(err)
-			}
-			var ours, naive float64
-			chosen := map[string]int{}
-			for i, e := range es {
-				r := results[i]
-				if len(r.Mean) != c.h {
-					t.Fatalf("%s: %d forecast steps, want %d (%v)", e.ID, len(r.Mean), c.h, r.Notes)
-				}
-				chosen[r.Chosen]++
-				last := e.Train[len(e.Train)-1]
-				for k, a := range e.Test {
-					ours += (a - r.Mean[k]) * (a - r.Mean[k])
-					naive += (a - last) * (a - last)
-				}
-			}
-			ratio := ours / naive
+			ratio, chosen := defaultDesignSquaredErrorRatio(t, es, func(e Entry, _ int) float64 { return e.Train[len(e.Train)-1] })
 			t.Logf("%s: squared error %.4g of naive's; chosen %v", c.freq, ratio, chosen)
 			if math.IsNaN(ratio) || ratio > c.maxRatio {
 				t.Errorf("%s random walks: the default design's squared error is %.3f of the naive forecast's, want at most %.2f (chosen %v)",
@@ -82,4 +64,31 @@ func TestDefaultDesignNearNaiveOnRandomWalks(t *testing.T) {
 			}
 		})
 	}
+}
+
+// defaultDesignSquaredErrorRatio runs the default design (Auto over the whole zoo, as a portfolio
+// runs it) on es and returns its squared error summed over every test point as a share of the
+// baseline forecast's (baseline(e, k): entry e's forecast k+1 steps ahead), and how often each
+// member or combination was chosen.
+func defaultDesignSquaredErrorRatio(t *testing.T, es []Entry, baseline func(e Entry, k int) float64) (float64, map[string]int) {
+	t.Helper()
+	_, results, err := Run(context.Background(), es, Options{Workers: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ours, base float64
+	chosen := map[string]int{}
+	for i, e := range es {
+		r := results[i]
+		if len(r.Mean) != e.Horizon {
+			t.Fatalf("%s: %d forecast steps, want %d (%v)", e.ID, len(r.Mean), e.Horizon, r.Notes)
+		}
+		chosen[r.Chosen]++
+		for k, a := range e.Test {
+			b := baseline(e, k)
+			ours += (a - r.Mean[k]) * (a - r.Mean[k])
+			base += (a - b) * (a - b)
+		}
+	}
+	return ours / base, chosen
 }

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"math"
 	"slices"
 	"strings"
 	"testing"
@@ -121,24 +122,47 @@ func TestMainReshapingFlags(t *testing.T) {
 	// (naive against Naive2 at m = 1, which is naive: 1).
 	for _, line := range strings.Split(out.String(), "\n") {
 		if strings.HasPrefix(line, "{") {
-			var doc struct{ OWAInterval90 []float64 }
+			type scores struct {
+				Series []struct {
+					ID    string
+					SMAPE float64
+					MASE  *float64
+				}
+			}
+			var doc struct {
+				OWAInterval90 []float64
+				Ours, Naive2  scores
+			}
 			if err := json.Unmarshal([]byte(line), &doc); err != nil {
 				t.Fatal(err)
 			}
 			if len(doc.OWAInterval90) != 2 || doc.OWAInterval90[0] != 1 || doc.OWAInterval90[1] != 1 {
 				t.Errorf("owaInterval90 %v, want [1 1]", doc.OWAInterval90)
 			}
+			// The per-series scores, for paired comparisons of two runs: naive and Naive2
+			// agree here (no seasonality at m = 1).
+			for name, r := range map[string]scores{"ours": doc.Ours, "naive2": doc.Naive2} {
+				if len(r.Series) != 1 || r.Series[0].ID != "A" || math.Abs(r.Series[0].SMAPE-sMAPEOneBack()) > 1e-9 || r.Series[0].MASE == nil {
+					t.Errorf("%s series %+v, want one entry A with sMAPE %.6f and a MASE", name, r.Series, sMAPEOneBack())
+				}
+			}
 		}
 	}
 	if !strings.Contains(out.String(), "OWA over the series, 90% bootstrap interval (1000 resamples): 1.000 to 1.000") {
 		t.Errorf("no interval line:\n%s", out.String())
 	}
-	want := 0.0
-	for k := 1; k <= 4; k++ {
-		want += 200 * float64(k) / float64(56+k+56) / 4
-	}
+	want := sMAPEOneBack()
 	if !strings.Contains(out.String(), "origin 1 horizons back: 1 series, 0 too short left out") ||
 		!strings.Contains(out.String(), fmt.Sprintf("smape=%.3f", want)) {
 		t.Errorf("want the origin line and smape=%.3f in:\n%s", want, out.String())
 	}
+}
+
+// sMAPEOneBack is the naive forecast's sMAPE on weeks 57 to 60 of the window test's series.
+func sMAPEOneBack() float64 {
+	want := 0.0
+	for k := 1; k <= 4; k++ {
+		want += 200 * float64(k) / float64(56+k+56) / 4
+	}
+	return want
 }
