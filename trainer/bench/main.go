@@ -72,6 +72,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	update := fs.Bool("backtest-update", true, "fit once at the earliest backtest origin and carry ETS, ARIMA and ETS+ARIMA+Theta fits forward (selection.Config.BacktestUpdate)")
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
+	against := fs.String("against", "", "the output of an earlier --json run on the same series and window: print this run's OWA minus that run's with a paired 90% bootstrap interval (2000 resamples)")
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
 	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
@@ -228,6 +229,20 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	if owaOK {
 		fmt.Fprintf(stdout, "  OWA over the series, 90%% bootstrap interval (%d resamples): %.3f to %.3f\n", owaResamples, owaLo, owaHi)
 	}
+	if *against != "" {
+		earlier, err := readAgainst(*against, naive2)
+		if err != nil {
+			fmt.Fprintf(stderr, "bench: --against: %v\n", err)
+			return 1
+		}
+		diff, lo, hi, gain, ok := PairedOWADifference(rep, earlier, naive2, 0.9, pairedResamples, 1)
+		if !ok {
+			fmt.Fprintf(stderr, "bench: --against %s: no OWA difference (not the same series, or a MASE defined in one run only)\n", *against)
+			return 1
+		}
+		fmt.Fprintf(stdout, "  OWA against %s (%s): %+.4f, paired 90%% bootstrap interval (%d resamples) %+.4f to %+.4f; this run lower in %.0f%% of draws\n",
+			*against, earlier.Method, diff, pairedResamples, lo, hi, 100*gain)
+	}
 	if rep.All.ExpectedN > 0 {
 		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
 			o.Metric, rep.All.Expected/float64(rep.All.ExpectedN), rep.All.ExpectedN)
@@ -266,6 +281,65 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	fmt.Fprintln(stdout, SummaryLine(rep, naive2))
 	return 0
+}
+
+// pairedResamples is the number of bootstrap resamples of --against's difference (2000: the
+// count the design decisions of PROJECT-NOTES were taken with).
+const pairedResamples = 2000
+
+// readAgainst reads the JSON line of an earlier bench --json run from path and returns its own
+// report (method and per-series scores). Its Naive2 scores must be naive2's, series by series
+// (the same series at the same window: --origin-back or --keep-last change them), or the
+// comparison would pair different test data.
+func readAgainst(path string, naive2 *Report) (*Report, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	type doc struct {
+		Method string            `json:"method"`
+		Series []jsonSeriesScore `json:"series"`
+	}
+	var d struct{ Ours, Naive2 *doc }
+	found := false
+	for i, line := range strings.Split(string(b), "\n") {
+		if !strings.HasPrefix(line, "{") {
+			continue
+		}
+		if err := json.Unmarshal([]byte(line), &d); err != nil {
+			return nil, fmt.Errorf("%s:%d: %v", path, i+1, err)
+		}
+		found = true
+		break
+	}
+	if !found || d.Ours == nil || d.Naive2 == nil || len(d.Ours.Series) == 0 {
+		return nil, fmt.Errorf("%s: no JSON line with per-series scores (the output of bench --json)", path)
+	}
+	mine := make(map[string]SeriesScore, len(naive2.Scores))
+	for _, s := range naive2.Scores {
+		mine[s.ID] = s
+	}
+	if len(d.Naive2.Series) != len(mine) {
+		return nil, fmt.Errorf("%s: %d series, this run %d", path, len(d.Naive2.Series), len(mine))
+	}
+	for _, s := range d.Naive2.Series {
+		m, ok := mine[s.ID]
+		if !ok {
+			return nil, fmt.Errorf("%s: series %q is not in this run", path, s.ID)
+		}
+		if math.Abs(m.SMAPE-s.SMAPE) > 1e-9*math.Max(1, math.Abs(m.SMAPE)) {
+			return nil, fmt.Errorf("%s: series %q: Naive2 sMAPE %.6g there, %.6g here (another window?)", path, s.ID, s.SMAPE, m.SMAPE)
+		}
+	}
+	r := &Report{Method: d.Ours.Method}
+	for _, s := range d.Ours.Series {
+		sc := SeriesScore{ID: s.ID, SMAPE: s.SMAPE, MASE: math.NaN()}
+		if s.MASE != nil {
+			sc.MASE = *s.MASE
+		}
+		r.Scores = append(r.Scores, sc)
+	}
+	return r, nil
 }
 
 // owaResamples is the number of bootstrap resamples of OWAInterval's line (1000: the size

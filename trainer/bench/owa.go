@@ -164,46 +164,139 @@ func writeSideBySide(w io.Writer, ours *Report, refs []*Report, n2 *Report) {
 // Naive2 sMAPE or MASE sums to zero (every MASE undefined, say) has no OWA and is left out. ok is
 // false when the two reports do not score the same series or no draw has an OWA.
 func OWAInterval(r, n2 *Report, level float64, resamples int, seed uint64) (lo, hi float64, ok bool) {
+	rows, ok := owaRows(n2, r)
+	if !ok || resamples < 1 || !(level > 0 && level < 1) {
+		return 0, 0, false
+	}
+	owas := bootstrapOWA(rows, resamples, seed, func(t []float64) float64 { return owaOfSums(t, 0) })
+	if len(owas) == 0 {
+		return 0, 0, false
+	}
+	lo, hi = percentileInterval(owas, level)
+	return lo, hi, true
+}
+
+// PairedOWADifference compares report r with report other on the same series and the same
+// Naive2 (n2): diff is OWA(r) - OWA(other) on all series, and lo, hi the central interval of the
+// given level of that difference over resamples bootstrap resamples of the series, each drawing
+// N of the N series with replacement and scoring both reports on the same draw (a paired
+// bootstrap; Efron & Tibshirani 1993, ch. 13, percentile interval, as OWAInterval). gain is the
+// share of draws in which r's OWA is the lower. The pairing removes what the series themselves
+// contribute to both runs' errors, so the interval of a difference is far narrower than the
+// two OWA intervals side by side. ok is false when the reports do not score the same series
+// (other may list them in another order), a series' MASE is defined in one and not the other,
+// or no draw has an OWA.
+func PairedOWADifference(r, other, n2 *Report, level float64, resamples int, seed uint64) (diff, lo, hi, gain float64, ok bool) {
+	rows, ok := owaRows(n2, r, other)
+	if !ok || resamples < 1 || !(level > 0 && level < 1) {
+		return 0, 0, 0, 0, false
+	}
+	d := func(t []float64) float64 { return owaOfSums(t, 0) - owaOfSums(t, 1) }
+	all := make([]float64, len(rows[0]))
+	for _, row := range rows {
+		for k, v := range row {
+			all[k] += v
+		}
+	}
+	diff = d(all)
+	diffs := bootstrapOWA(rows, resamples, seed, d)
+	if len(diffs) == 0 || math.IsNaN(diff) {
+		return 0, 0, 0, 0, false
+	}
+	for _, v := range diffs {
+		if v < 0 {
+			gain++
+		}
+	}
+	gain /= float64(len(diffs))
+	lo, hi = percentileInterval(diffs, level)
+	return diff, lo, hi, gain, true
+}
+
+// owaRows lines up the reports' series by ID, in the first report's order (so OWAInterval's
+// draws repeat whatever order Naive2 scored them in): row i holds Naive2's sMAPE and MASE, then
+// each report's (a MASE that is undefined counts as 0: it must be undefined in Naive2 and every
+// report alike, or the rows are refused). ok is false when a report does not score exactly
+// Naive2's series.
+func owaRows(n2 *Report, rs ...*Report) ([][]float64, bool) {
 	base := make(map[string]SeriesScore, len(n2.Scores))
 	for _, s := range n2.Scores {
 		base[s.ID] = s
 	}
-	type pair struct{ s, m, s2, m2 float64 }
-	ps := make([]pair, len(r.Scores))
-	for i, s := range r.Scores {
+	first := rs[0].Scores
+	if len(first) == 0 || len(first) != len(n2.Scores) || len(base) != len(n2.Scores) {
+		return nil, false
+	}
+	index := make(map[string]int, len(first))
+	rows := make([][]float64, len(first))
+	for i, s := range first {
 		b, found := base[s.ID]
-		if !found || math.IsNaN(s.MASE) != math.IsNaN(b.MASE) {
-			return 0, 0, false
+		if _, dup := index[s.ID]; !found || dup {
+			return nil, false
 		}
-		ps[i] = pair{s.SMAPE, s.MASE, b.SMAPE, b.MASE}
+		index[s.ID] = i
+		rows[i] = make([]float64, 2+2*len(rs))
+		rows[i][0], rows[i][1] = b.SMAPE, zeroNaN(b.MASE)
 	}
-	if len(ps) == 0 || len(ps) != len(n2.Scores) || resamples < 1 || !(level > 0 && level < 1) {
-		return 0, 0, false
+	for k, r := range rs {
+		if len(r.Scores) != len(rows) {
+			return nil, false
+		}
+		seen := make([]bool, len(rows))
+		for _, s := range r.Scores {
+			i, found := index[s.ID]
+			if !found || seen[i] || math.IsNaN(s.MASE) != math.IsNaN(base[s.ID].MASE) {
+				return nil, false
+			}
+			seen[i] = true
+			rows[i][2+2*k], rows[i][3+2*k] = s.SMAPE, zeroNaN(s.MASE)
+		}
 	}
+	return rows, true
+}
+
+func zeroNaN(v float64) float64 {
+	if math.IsNaN(v) {
+		return 0
+	}
+	return v
+}
+
+// owaOfSums is report k's OWA from the column sums t of owaRows' rows: the mean of its sMAPE and
+// MASE sums relative to Naive2's; NaN when Naive2's sums are not positive.
+func owaOfSums(t []float64, k int) float64 {
+	if !(t[0] > 0 && t[1] > 0) {
+		return math.NaN()
+	}
+	return (t[2+2*k]/t[0] + t[3+2*k]/t[1]) / 2
+}
+
+// bootstrapOWA draws resamples resamples of the rows with replacement (a PCG generator with the
+// given seed, so the draws repeat) and returns stat of each draw's column sums, sorted, leaving
+// out draws where stat is NaN.
+func bootstrapOWA(rows [][]float64, resamples int, seed uint64, stat func([]float64) float64) []float64 {
 	rng := rand.New(rand.NewPCG(seed, 0))
-	owas := make([]float64, 0, resamples)
+	out := make([]float64, 0, resamples)
+	t := make([]float64, len(rows[0]))
 	for range resamples {
-		var s, s2, m, m2 float64
-		for range ps {
-			p := ps[rng.IntN(len(ps))]
-			s += p.s
-			s2 += p.s2
-			if !math.IsNaN(p.m) {
-				m += p.m
-				m2 += p.m2
+		clear(t)
+		for range rows {
+			for k, v := range rows[rng.IntN(len(rows))] {
+				t[k] += v
 			}
 		}
-		if s2 > 0 && m2 > 0 {
-			owas = append(owas, (s/s2+m/m2)/2)
+		if v := stat(t); !math.IsNaN(v) {
+			out = append(out, v)
 		}
 	}
-	if len(owas) == 0 {
-		return 0, 0, false
-	}
-	sort.Float64s(owas)
-	n := float64(len(owas))
+	sort.Float64s(out)
+	return out
+}
+
+// percentileInterval is the central interval of the given level of sorted draws (0.9: from the
+// 5th to the 95th percentile).
+func percentileInterval(sorted []float64, level float64) (lo, hi float64) {
+	n := float64(len(sorted))
 	tail := (1 - level) / 2
-	lo = owas[int(math.Floor(tail*n))]
-	hi = owas[max(int(math.Ceil((1-tail)*n))-1, 0)]
-	return lo, hi, true
+	return sorted[int(math.Floor(tail*n))], sorted[max(int(math.Ceil((1-tail)*n))-1, 0)]
 }

@@ -255,6 +255,36 @@ func TestOWAInterval(t *testing.T) {
 	}
 }
 
+// Two series again: Naive2 scores 20 sMAPE and MASE 2 on both. Report r scores a at 10 / 1
+// and b at 30 / 3, report other 20 / 2 on both (OWA 1 on every draw). Whole sample: OWA(r) =
+// ((10+30)/40 + (1+3)/4)/2 = 1, difference 0. Draw {a, a}: 0.5 - 1 = -0.5; {a, b}: 0;
+// {b, b}: 1.5 - 1 = +0.5, with chances 1/4, 1/2, 1/4, so with 1000 resamples the 90% interval
+// runs from -0.5 to +0.5 and r wins about a quarter of the draws (hand-computed).
+func TestPairedOWADifference(t *testing.T) {
+	n2 := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 20, MASE: 2}, {ID: "b", SMAPE: 20, MASE: 2}}}
+	r := &Report{Scores: []SeriesScore{{ID: "a", SMAPE: 10, MASE: 1}, {ID: "b", SMAPE: 30, MASE: 3}}}
+	other := &Report{Scores: []SeriesScore{{ID: "b", SMAPE: 20, MASE: 2}, {ID: "a", SMAPE: 20, MASE: 2}}}
+	diff, lo, hi, gain, ok := PairedOWADifference(r, other, n2, 0.9, 1000, 3)
+	if !ok || diff != 0 || lo != -0.5 || hi != 0.5 || math.Abs(gain-0.25) > 0.05 {
+		t.Errorf("diff %v, interval %v to %v, gain %v (ok %v); want 0, -0.5 to 0.5, about 0.25", diff, lo, hi, gain, ok)
+	}
+	// A report against itself: every draw's difference is 0.
+	if diff, lo, hi, gain, ok = PairedOWADifference(r, r, n2, 0.9, 200, 1); !ok || diff != 0 || lo != 0 || hi != 0 || gain != 0 {
+		t.Errorf("r against r: %v, %v to %v, gain %v (ok %v)", diff, lo, hi, gain, ok)
+	}
+	// Other series, or a MASE defined in one report and not in the other: no comparison.
+	for name, o := range map[string]*Report{
+		"other series": {Scores: []SeriesScore{{ID: "a", SMAPE: 1, MASE: 1}, {ID: "c", SMAPE: 1, MASE: 1}}},
+		"one series":   {Scores: []SeriesScore{{ID: "a", SMAPE: 1, MASE: 1}}},
+		"twice a":      {Scores: []SeriesScore{{ID: "a", SMAPE: 1, MASE: 1}, {ID: "a", SMAPE: 1, MASE: 1}}},
+		"NaN MASE":     {Scores: []SeriesScore{{ID: "a", SMAPE: 1, MASE: math.NaN()}, {ID: "b", SMAPE: 1, MASE: 1}}},
+	} {
+		if _, _, _, _, ok := PairedOWADifference(r, o, n2, 0.9, 200, 1); ok {
+			t.Errorf("%s: want no comparison", name)
+		}
+	}
+}
+
 // TestZeroActualsNote: the bench warns when test actuals are zero, with the counts, and the
 // claim it makes holds for backtest.SymmetricMAPE: a zero actual costs 200 against a forecast
 // of 1e-100 and 0 against an exact 0 (the M4 formula, 2|y − f| / (|y| + |f|) in percent).

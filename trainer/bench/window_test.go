@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
@@ -155,6 +156,28 @@ func TestMainReshapingFlags(t *testing.T) {
 	if !strings.Contains(out.String(), "origin 1 horizons back: 1 series, 0 too short left out") ||
 		!strings.Contains(out.String(), fmt.Sprintf("smape=%.3f", want)) {
 		t.Errorf("want the origin line and smape=%.3f in:\n%s", want, out.String())
+	}
+
+	// --against: the drift method is exact on this straight line (OWA 0) and naive is Naive2
+	// (OWA 1), so against the naive run the difference is -1 on every bootstrap draw of the one
+	// series. Against a run at another window, or a file without a JSON line, it refuses.
+	earlier := filepath.Join(dir, "naive.out")
+	writeFile(t, dir, "naive.out", out.String())
+	out.Reset()
+	base := []string{"--data", dir, "--frequency", "weekly", "--design", "fixed", "--zoo", "Drift", "--workers", "1", "--against"}
+	if code := Main(append(base, earlier, "--origin-back", "1"), &out, &errb); code != 0 {
+		t.Fatalf("--against: exit %d: %s", code, errb.String())
+	}
+	if line := "OWA against " + earlier + " (almanac design=fixed zoo=Naive"; !strings.Contains(out.String(), line) ||
+		!strings.Contains(out.String(), "): -1.0000, paired 90% bootstrap interval (2000 resamples) -1.0000 to -1.0000; this run lower in 100% of draws") {
+		t.Errorf("no difference line of -1 in:\n%s", out.String())
+	}
+	writeFile(t, dir, "empty.out", "all: smape=1\n")
+	for _, c := range []struct{ file, msg string }{{earlier, "another window?"}, {filepath.Join(dir, "empty.out"), "no JSON line"}} {
+		errb.Reset()
+		if code := Main(append(base, c.file), &out, &errb); code != 1 || !strings.Contains(errb.String(), c.msg) {
+			t.Errorf("--against %s: exit %d, %q; want 1 and %q", c.file, code, errb.String(), c.msg)
+		}
 	}
 }
 
