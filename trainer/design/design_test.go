@@ -399,7 +399,20 @@ func TestAutoCostBudget(t *testing.T) {
 		out.Choices[0].Design != "last" || got[0].Design != "last" {
 		t.Errorf("default budget: dropped %v, candidates %v, choice %+v", out.DroppedMembers, out.Candidates, out.Choices[0])
 	}
+	// The outcome text lists the member costs, the costliest first; a cost above the budget is
+	// where its run stopped, a lower bound.
+	var b strings.Builder
+	out.Write(&b)
+	if want := "  member cost, ms/series, most first: " + famCostly + " at least "; !strings.Contains(b.String(), want) ||
+		!strings.Contains(b.String(), " (dropped), "+famLast+" 4.00\n") {
+		t.Errorf("outcome text has no member-cost line %q...%q:\n%s", want, " (dropped), "+famLast+" 4.00", b.String())
+	}
 	out, got = run1(t, in, Options{Base: base, Combinations: cc, CPU: fakeCPU, CostLimit: 200})
+	b.Reset()
+	out.Write(&b)
+	if want := "  member cost, ms/series, most first: " + famCostly + " 400.00, " + famLast + " 4.00\n"; !strings.Contains(b.String(), want) {
+		t.Errorf("budget 200x: outcome text has no line %q:\n%s", want, b.String())
+	}
 	if len(out.DroppedMembers) != 0 || out.Choices[0].Design != "costly" || got[5].Design != "costly" {
 		t.Errorf("budget 200x: dropped %v, choice %+v", out.DroppedMembers, out.Choices[0])
 	}

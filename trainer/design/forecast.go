@@ -750,6 +750,10 @@ func within(s, b Segment) bool {
 func (out *Outcome) Write(w io.Writer) {
 	if out.Mode != Auto || len(out.Candidates) < 2 && out.Fallback == nil {
 		fmt.Fprintf(w, "design %s: %s for every series\n", out.Mode, strings.Join(out.Candidates, ", "))
+		if out.Mode == Auto {
+			// One candidate left: the budget may have dropped the others' members.
+			out.writeMemberCosts(w)
+		}
 		return
 	}
 	out.writeHead(w)
@@ -779,6 +783,47 @@ func orShard(from string) string {
 	return from
 }
 
+// writeMemberCosts prints memberCosts' line, if any member was measured.
+func (out *Outcome) writeMemberCosts(w io.Writer) {
+	if line := out.memberCosts(); line != "" {
+		fmt.Fprintf(w, "  member cost, ms/series, most first: %s\n", line)
+	}
+}
+
+// memberCosts lists MemberCostMillis, most costly first (ties by name), so a reader sees how
+// near the budget each member came: a member measured at CPU time close to the budget may be
+// kept by one run and dropped by the next (PROJECT-NOTES, thirteenth session). A cost above the
+// budget is a lower bound (the member's run stopped there) and reads "at least"; a dropped
+// member is marked so.
+func (out *Outcome) memberCosts() string {
+	names := make([]string, 0, len(out.MemberCostMillis))
+	for n, c := range out.MemberCostMillis {
+		if !math.IsNaN(c) {
+			names = append(names, n)
+		}
+	}
+	sort.Slice(names, func(i, j int) bool {
+		a, b := out.MemberCostMillis[names[i]], out.MemberCostMillis[names[j]]
+		if a != b {
+			return a > b
+		}
+		return names[i] < names[j]
+	})
+	parts := make([]string, len(names))
+	for i, n := range names {
+		c := out.MemberCostMillis[n]
+		p := fmt.Sprintf("%s %.2f", n, c)
+		if c > out.BudgetMillis {
+			p = fmt.Sprintf("%s at least %.2f", n, c)
+		}
+		if slices.Contains(out.DroppedMembers, n) {
+			p += " (dropped)"
+		}
+		parts[i] = p
+	}
+	return strings.Join(parts, ", ")
+}
+
 // writeHead prints the inner holdout's size and cost and the candidates with their cost.
 func (out *Outcome) writeHead(w io.Writer) {
 	fmt.Fprintf(w, "design auto: %d inner-holdout series, %.2f s CPU", out.InnerSeries, out.InnerCPU.Seconds())
@@ -796,6 +841,7 @@ func (out *Outcome) writeHead(w io.Writer) {
 		fmt.Fprintf(w, "; over budget: %s", strings.Join(out.DroppedMembers, ", "))
 	}
 	fmt.Fprintln(w)
+	out.writeMemberCosts(w)
 	for i, c := range out.Candidates {
 		if i < len(out.CostMillis) {
 			fmt.Fprintf(w, "  candidate %-16s %8.2f ms/series\n", c, out.CostMillis[i])
