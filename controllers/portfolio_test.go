@@ -332,15 +332,7 @@ func TestPlanPortfolioDriftRun(t *testing.T) {
 // level's verdict in status.hierarchyLevels; the run's own drift still wins.
 func TestPlanPortfolioLevelDrift(t *testing.T) {
 	t0 := time.Date(2026, 12, 1, 6, 0, 0, 0, time.UTC)
-	run := runAt("fenwick-weekly-29933550", t0.Add(-time.Hour), "ok", t0)
-	run.Status.Hierarchy = driftedTree(t)
-	// The input series are the bottom level: the run's sums are that level's.
-	run.Status.AccuracySums = run.Status.Hierarchy.Levels[4].AccuracySums.DeepCopy()
-	run.Status.Accuracy = accuracyStatus(run.Status.AccuracySums, run.Name)
-	fp := fenwickPortfolio()
-	fp.Spec.Source.CredentialsSecretRef = nil
-	fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, Action: forecastingv1alpha1.DriftRetrain}
-	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+	run, fp := hierarchyDriftCase(t0, driftedTree(t), forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, Action: forecastingv1alpha1.DriftRetrain})
 
 	p := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run}, t0.Add(time.Minute), stallCause{})
 	c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
@@ -400,17 +392,8 @@ func TestPlanPortfolioLevelDrift(t *testing.T) {
 // the input series' own calibration verdict comes first.
 func TestPlanPortfolioLevelCalibration(t *testing.T) {
 	t0 := time.Date(2026, 12, 1, 6, 0, 0, 0, time.UTC)
-	run := runAt("fenwick-weekly-29933550", t0.Add(-time.Hour), "ok", t0)
-	run.Status.Hierarchy = calibratedTree(t)
-	bottom := run.Status.Hierarchy.Levels[len(run.Status.Hierarchy.Levels)-1]
-	run.Status.AccuracySums = bottom.AccuracySums.DeepCopy()
-	run.Status.CalibrationSums = bottom.CalibrationSums.DeepCopy()
-	run.Status.Accuracy = accuracyStatus(run.Status.AccuracySums, run.Name)
-	fp := fenwickPortfolio()
-	fp.Spec.Source.CredentialsSecretRef = nil
-	fp.Spec.Drift = forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100, CalibrationFalseAlarmPercent: 1,
-		Action: forecastingv1alpha1.DriftRetrain}
-	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+	run, fp := hierarchyDriftCase(t0, calibratedTree(t), forecastingv1alpha1.DriftSpec{ThresholdPercent: 130, MinEvaluatedPoints: 100,
+		CalibrationFalseAlarmPercent: 1, Action: forecastingv1alpha1.DriftRetrain})
 
 	p := planPortfolio(fp, []forecastingv1alpha1.ForecastRun{run}, t0.Add(time.Minute), stallCause{})
 	c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift)
@@ -441,4 +424,21 @@ func TestPlanPortfolioLevelCalibration(t *testing.T) {
 	if c := meta.FindStatusCondition(p.Status.Conditions, forecastingv1alpha1.PortfolioAccuracyDrift); c.Reason != forecastingv1alpha1.ReasonCalibrationOff {
 		t.Errorf("input series off: reason %s", c.Reason)
 	}
+}
+
+// hierarchyDriftCase is a finished run at t0 that evaluated tree, with the input series as
+// its bottom level (the run's accuracy and calibration sums are that level's), and the Fenwick
+// portfolio with the given drift rules, last scheduled at t0.
+func hierarchyDriftCase(t0 time.Time, tree *forecastingv1alpha1.HierarchyStatus, drift forecastingv1alpha1.DriftSpec) (forecastingv1alpha1.ForecastRun, *forecastingv1alpha1.ForecastPortfolio) {
+	run := runAt("fenwick-weekly-29933550", t0.Add(-time.Hour), "ok", t0)
+	run.Status.Hierarchy = tree
+	bottom := tree.Levels[len(tree.Levels)-1]
+	run.Status.AccuracySums = bottom.AccuracySums.DeepCopy()
+	run.Status.CalibrationSums = bottom.CalibrationSums.DeepCopy()
+	run.Status.Accuracy = accuracyStatus(run.Status.AccuracySums, run.Name)
+	fp := fenwickPortfolio()
+	fp.Spec.Source.CredentialsSecretRef = nil
+	fp.Spec.Drift = drift
+	fp.Status = forecastingv1alpha1.ForecastPortfolioStatus{LastScheduleTime: &metav1.Time{Time: t0}}
+	return run, fp
 }

@@ -47,8 +47,7 @@ func TestDefaultDesignModelsBothHourlyCycles(t *testing.T) {
 		for i := range y {
 			y[i] = 300 + day[i%24] + week[(i/24)%7] + sd*rng.NormFloat64()
 		}
-		es = append(es, Entry{ID: fmt.Sprintf("oven-%02d", k), Category: string(series.Hourly), Frequency: M4Period(series.Hourly), Freq: series.Hourly,
-			Horizon: h, Start: time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC), Train: y[:n], Test: y[n:]})
+		es = append(es, heldOutEntry(fmt.Sprintf("oven-%02d", k), series.Hourly, time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC), y, h))
 	}
 	ratio, chosen := defaultDesignSquaredErrorRatio(t, es, func(e Entry, k int) float64 { return e.Train[n-168+k%168] })
 	t.Logf("squared error %.3f of the one-week seasonal naive's; chosen %v", ratio, chosen)

@@ -53,8 +53,7 @@ func TestDefaultDesignNearNaiveOnRandomWalks(t *testing.T) {
 					x += sd * rng.NormFloat64()
 					y[i] = x
 				}
-				es = append(es, Entry{ID: fmt.Sprintf("walk-%02d", k), Category: string(c.freq), Frequency: M4Period(c.freq), Freq: c.freq,
-					Horizon: c.h, Start: time.Date(2010, 1, 4, 0, 0, 0, 0, time.UTC), Train: y[:c.n], Test: y[c.n:]})
+				es = append(es, heldOutEntry(fmt.Sprintf("walk-%02d", k), c.freq, time.Date(2010, 1, 4, 0, 0, 0, 0, time.UTC), y, c.h))
 			}
 			ratio, chosen := defaultDesignSquaredErrorRatio(t, es, func(e Entry, _ int) float64 { return e.Train[len(e.Train)-1] })
 			t.Logf("%s: squared error %.4g of naive's; chosen %v", c.freq, ratio, chosen)
@@ -91,4 +90,11 @@ func defaultDesignSquaredErrorRatio(t *testing.T, es []Entry, baseline func(e En
 		}
 	}
 	return ours / base, chosen
+}
+
+// heldOutEntry is a bench entry of frequency freq starting at start whose last h values of y are
+// the test data and the rest the training history.
+func heldOutEntry(id string, freq series.Frequency, start time.Time, y []float64, h int) Entry {
+	n := len(y) - h
+	return Entry{ID: id, Category: string(freq), Frequency: M4Period(freq), Freq: freq, Horizon: h, Start: start, Train: y[:n], Test: y[n:]}
 }
