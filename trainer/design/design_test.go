@@ -440,6 +440,41 @@ func TestWithinBudgetDropsTheMostExpensiveFirst(t *testing.T) {
 	}
 }
 
+// A load that begins halfway through the pilot must not change which members stay: the
+// pilot interleaves the members' runs (pilotCosts), so the load falls on every member alike
+// and the ratio of their costs, which is all the budget reads, stays as on a quiet machine.
+// Measured one member after the other (the pilot before the fourteenth session), the line
+// member ran wholly under the load, read three times its cost (12 ms against a budget of
+// 2.5 x 4 = 10) and was dropped.
+func TestPilotCostsHoldUnderALoadThatComesMidway(t *testing.T) {
+	var in []series.Series
+	for i := 0; i < 30; i++ {
+		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
+	}
+	cc := []Combination{{Name: "last", Families: []string{famLast}}}
+	base := selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}
+	// The pilot is 8 series; each member costs 4 units per series, 64 units in all. The
+	// loaded clock charges every unit after the pilot's first 32 three times.
+	loaded := func() func() time.Duration {
+		w0 := work.Load()
+		return func() time.Duration {
+			w := work.Load() - w0
+			return time.Duration(w+2*max(w-32, 0)) * time.Millisecond
+		}
+	}
+	for _, c := range []struct {
+		name string
+		cpu  func() func() time.Duration
+	}{{"quiet", func() func() time.Duration { return fakeCPU }}, {"load from halfway", loaded}} {
+		out, _ := run1(t, in, Options{Base: base, Combinations: cc, CPU: c.cpu(), Workers: 1, CostLimit: 2.5})
+		last, line := out.MemberCostMillis[famLast], out.MemberCostMillis[famLine]
+		if len(out.DroppedMembers) != 0 || last != line || out.BudgetMillis != 2.5*last {
+			t.Errorf("%s: costs %v, budget %v, dropped %v; want equal costs, the budget 2.5 times them, nothing dropped",
+				c.name, out.MemberCostMillis, out.BudgetMillis, out.DroppedMembers)
+		}
+	}
+}
+
 func TestFixedAndPerSeriesRunTheDeclaration(t *testing.T) {
 	in := []series.Series{line("a", 20, 1), step("b", 20)}
 	base := selection.Config{Horizon: 2, Zoo: specs(famLast, famLine), CombineTop: 2, CombineMargin: 10}

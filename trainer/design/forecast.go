@@ -6,6 +6,7 @@ import (
 	"io"
 	"math"
 	"reflect"
+	"runtime"
 	"slices"
 	"sort"
 	"strings"
@@ -206,7 +207,8 @@ const (
 //     by MASE with the shortened history's seasonal-naive scale (Hyndman & Koehler 2006). A
 //     candidate that fails on a series is scored with the naive forecast (last value).
 //  4. Cost: every zoo member runs alone on a pilot (the first Pilot inner series of each
-//     segment); the budget is CostLimit times the summed cost of the first candidate's
+//     segment), the members' runs interleaved so that the machine's load falls on all alike
+//     (pilotCosts); the budget is CostLimit times the summed cost of the first candidate's
 //     members, and members are taken out of the zoo until the rest fit it (withinBudget).
 //     The candidates are then built from that zoo, so every candidate costs at most the
 //     budget (a candidate's cost is the sum of its members'). The candidates are then
@@ -426,37 +428,10 @@ func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outc
 		out.Candidates = append(out.Candidates, c.Name)
 		out.Members = append(out.Members, members(c))
 	}
-	h := o.Base.Horizon
-	// The inner-holdout sample, segment by segment; the first Pilot of each are the pilot.
 	var inner []innerSeries
 	var pilot []int
-	for _, sg := range order {
-		if len(cands) < 2 {
-			break // nothing to choose between
-		}
-		var elig []int
-		for _, i := range p.bySeg[sg] {
-			if len(p.cleaned[i].Values) >= minHoldout(h, seasonLength(o.Base, sg.Frequency)) {
-				elig = append(elig, i)
-			}
-		}
-		k := (len(elig) + o.MaxSeries - 1) / o.MaxSeries
-		m := seasonLength(o.Base, sg.Frequency)
-		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
-			s := *p.cleaned[elig[j]]
-			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minHoldout(h, m); org++ {
-				cut := s
-				cut.Values = s.Values[:len(s.Values)-org*h]
-				is := holdOut(cut, h, m)
-				is.seg, is.unit = sg, out.InnerSeries
-				if n < o.Pilot && org == 0 {
-					pilot = append(pilot, len(inner))
-					is.fits = new(selection.Fits)
-				}
-				inner = append(inner, is)
-			}
-			out.InnerSeries++
-		}
+	if len(cands) > 1 { // else nothing to choose between
+		inner, pilot, out.InnerSeries = innerSample(p, order, o)
 	}
 	var scores [][]float64 // [candidate][inner series] MASE, NaN: not scored
 	if len(inner) > 0 {
@@ -500,6 +475,39 @@ func decide(ctx context.Context, p *prepared, order []Segment, o Options) (*Outc
 		out.Choices = append(out.Choices, ch)
 	}
 	return out, cands, chosen, nil
+}
+
+// innerSample is Forecast's step 3 for the segments in order: the inner-holdout series
+// (several per series with InnerOrigins > 1), the indices of the pilot among them (the first
+// Pilot series of each segment, latest origin) and the number of series they come from.
+func innerSample(p *prepared, order []Segment, o Options) (inner []innerSeries, pilot []int, units int) {
+	h := o.Base.Horizon
+	for _, sg := range order {
+		var elig []int
+		for _, i := range p.bySeg[sg] {
+			if len(p.cleaned[i].Values) >= minHoldout(h, seasonLength(o.Base, sg.Frequency)) {
+				elig = append(elig, i)
+			}
+		}
+		k := (len(elig) + o.MaxSeries - 1) / o.MaxSeries
+		m := seasonLength(o.Base, sg.Frequency)
+		for j, n := 0, 0; j < len(elig); j, n = j+max(k, 1), n+1 {
+			s := *p.cleaned[elig[j]]
+			for org := 0; org < o.InnerOrigins && len(s.Values)-org*h >= minHoldout(h, m); org++ {
+				cut := s
+				cut.Values = s.Values[:len(s.Values)-org*h]
+				is := holdOut(cut, h, m)
+				is.seg, is.unit = sg, units
+				if n < o.Pilot && org == 0 {
+					pilot = append(pilot, len(inner))
+					is.fits = new(selection.Fits)
+				}
+				inner = append(inner, is)
+			}
+			units++
+		}
+	}
+	return inner, pilot, units
 }
 
 // seasonLength is the season length of the bands and of the inner MASE scale: the declared
@@ -870,17 +878,17 @@ func finite(xs []float64) bool {
 }
 
 // withinBudget measures every zoo member's CPU time per series on the pilot, each member alone
-// (its backtest and its fit, as selection runs it), sets out.MemberCostMillis, out.BudgetMillis
-// (CostLimit times the summed cost of first's members) and out.DroppedMembers, and returns
-// o.Base with the dropped members taken out of the zoo. A member is dropped when its own cost
-// exceeds the budget (its run stops as soon as it has used the budget for every pilot series),
-// then, most expensive first (of equal costs the later in zoo order, the more complex), until the remaining members' costs sum to at most the budget;
-// first's members and the members that read features (models.ReadsFeatures) are never dropped
-// and the latter do not count against the budget, so a candidate with them may cost more than
-// the budget. A candidate's cost is the sum of its members' (sumCost).
+// (its backtest and its fit, as selection runs it; pilotCosts), sets out.MemberCostMillis,
+// out.BudgetMillis (CostLimit times the summed cost of first's members) and
+// out.DroppedMembers, and returns o.Base with the dropped members taken out of the zoo. A
+// member is dropped when its run stopped at the budget or its cost exceeds it, then, most
+// expensive first (of equal costs the later in zoo order, the more complex), until the
+// remaining members' costs sum to at most the budget; first's members and the members that
+// read features (models.ReadsFeatures) are never dropped and the latter do not count against
+// the budget, so a candidate with them may cost more than the budget. A candidate's cost is
+// the sum of its members' (sumCost).
 func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, o Options, out *Outcome) (selection.Config, error) {
 	base := o.Base
-	out.MemberCostMillis = map[string]float64{}
 	protected := map[string]bool{}
 	for _, sp := range first.Config.Zoo {
 		protected[sp.DisplayName()] = true
@@ -893,51 +901,31 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 			protected[sp.DisplayName()] = true
 		}
 	}
-	measure := func(limit float64) func(i int) error {
-		return func(i int) error {
-			sp := base.Zoo[i]
-			c := base
-			c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = base.Zoo[i:i+1], 0, "", 0
-			ms, err := pilotCost(ctx, inner, pilot, c, o, limit)
-			out.MemberCostMillis[sp.DisplayName()] = ms
-			return err
-		}
+	cost, budget, stopped, err := pilotCosts(ctx, inner, pilot, first, protected, o)
+	if err != nil {
+		return base, err
 	}
-	for i, sp := range base.Zoo {
-		if protected[sp.DisplayName()] {
-			if err := measure(math.Inf(1))(i); err != nil {
-				return base, err
-			}
-		}
-	}
-	out.BudgetMillis = max(o.CostLimit*sumCost(first.Config, out.MemberCostMillis), minBudgetMillis)
-	for i, sp := range base.Zoo {
-		if !protected[sp.DisplayName()] {
-			if err := measure(out.BudgetMillis)(i); err != nil {
-				return base, err
-			}
-		}
-	}
+	out.MemberCostMillis, out.BudgetMillis = cost, budget
 	keep := slices.Clone(base.Zoo)
 	drop := func(name string) {
 		out.DroppedMembers = append(out.DroppedMembers, name)
 		keep = slices.DeleteFunc(keep, func(sp models.Spec) bool { return sp.DisplayName() == name })
 	}
 	for _, sp := range base.Zoo {
-		if n := sp.DisplayName(); !protected[n] && out.MemberCostMillis[n] > out.BudgetMillis {
+		if n := sp.DisplayName(); !protected[n] && (stopped[n] || cost[n] > budget) {
 			drop(n)
 		}
 	}
 	for {
 		c := base
 		c.Zoo = slices.DeleteFunc(slices.Clone(keep), func(sp models.Spec) bool { return models.ReadsFeatures(sp.Family) })
-		if sumCost(c, out.MemberCostMillis) <= out.BudgetMillis {
+		if sumCost(c, cost) <= budget {
 			break
 		}
 		worst := ""
 		for _, sp := range keep {
 			n := sp.DisplayName()
-			if !protected[n] && (worst == "" || out.MemberCostMillis[n] >= out.MemberCostMillis[worst]) {
+			if !protected[n] && (worst == "" || cost[n] >= cost[worst]) {
 				worst = n
 			}
 		}
@@ -949,6 +937,98 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 	return withoutMembers(base, out.DroppedMembers), nil
 }
 
+// pilotCosts runs every member of o.Base.Zoo alone on the pilot inner series and returns each
+// member's CPU milliseconds per pilot series (by DisplayName), the budget (CostLimit times the
+// summed cost of first's members, at least minBudgetMillis) and the members whose run stopped
+// at the budget.
+//
+// The runs are interleaved: the pilot goes in rounds of w series (w the workers, so that a
+// round keeps them busy), and in every round each member still running takes that round's
+// series alone, the protected members (first's and those withinBudget never drops) before the
+// others, each group starting one member further on in every round. Load that comes and goes on
+// the node, and the garbage collector's work, which the process clock charges to whatever
+// runs while it lasts, then fall on every member alike, and the ratios of the costs, which are
+// all the budget reads, hold still. Measured one member after the other, on the whole pilot
+// each, the same hourly pilot gave ETS 70 to 115 ms per series from run to run, and the budget
+// moved with it (PROJECT-NOTES, fourteenth session).
+//
+// A member that is not protected stops once it has used, over the rounds so far, the budget
+// (as the rounds so far estimate it) for every pilot series: its cost is then a lower bound,
+// above the budget.
+func pilotCosts(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, protected map[string]bool, o Options) (cost map[string]float64, budget float64, stopped map[string]bool, err error) {
+	zoo := o.Base.Zoo
+	used := make([]float64, len(zoo)) // CPU milliseconds over the rounds so far
+	at := map[string]int{}
+	var prot, rest []int
+	for i, sp := range zoo {
+		at[sp.DisplayName()] = i
+		if protected[sp.DisplayName()] {
+			prot = append(prot, i)
+		} else {
+			rest = append(rest, i)
+		}
+	}
+	budgetAfter := func(done int) float64 {
+		s := 0.0
+		for _, sp := range first.Config.Zoo {
+			s += used[at[sp.DisplayName()]]
+		}
+		return max(o.CostLimit*s/float64(done), minBudgetMillis)
+	}
+	alone := func(i int) selection.Config {
+		c := o.Base
+		c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = zoo[i:i+1], 0, "", 0
+		return c
+	}
+	w := o.Workers
+	if w <= 0 {
+		w = runtime.GOMAXPROCS(0)
+	}
+	stopped = map[string]bool{}
+	n := len(pilot)
+	budget = minBudgetMillis
+	for r, start := 0, 0; start < n; r, start = r+1, start+w {
+		round := pilot[start:min(start+w, n)]
+		for _, i := range rotated(prot, r) {
+			ms, _, err := pilotCost(ctx, inner, round, alone(i), o, math.Inf(1))
+			if err != nil {
+				return nil, 0, nil, err
+			}
+			used[i] += ms
+		}
+		budget = budgetAfter(start + len(round))
+		for _, i := range rotated(rest, r) {
+			name := zoo[i].DisplayName()
+			if stopped[name] {
+				continue
+			}
+			ms, cut, err := pilotCost(ctx, inner, round, alone(i), o, budget*float64(n)-used[i])
+			if err != nil {
+				return nil, 0, nil, err
+			}
+			used[i] += ms
+			stopped[name] = cut || used[i] > budget*float64(n)
+		}
+	}
+	cost = map[string]float64{}
+	for i, sp := range zoo {
+		cost[sp.DisplayName()] = used[i] / float64(n)
+		if n == 0 {
+			cost[sp.DisplayName()] = math.NaN()
+		}
+	}
+	return cost, budget, stopped, nil
+}
+
+// rotated returns xs starting at element r modulo its length, the elements before it last.
+func rotated(xs []int, r int) []int {
+	if len(xs) == 0 {
+		return nil
+	}
+	k := r % len(xs)
+	return append(slices.Clone(xs[k:]), xs[:k]...)
+}
+
 // minBudgetMillis is the least budget withinBudget sets, in CPU milliseconds per series. Below
 // it the pilot's CPU clock cannot rank members (a naive or drift fit takes microseconds, and a
 // loaded machine moves such timings by more than the CostLimit ratio), and nothing worth saving
@@ -956,13 +1036,16 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 // benchmarks is above it (M3 Yearly 2.6 ms, the smallest).
 const minBudgetMillis = 1.0
 
-// pilotCost runs c on the pilot inner series and returns its CPU milliseconds per series;
-// the run stops early once it has used limit milliseconds per pilot series (the result is
-// then a lower bound above limit). The fits are kept in the pilot series' innerSeries.fits,
-// for scoreInner.
-func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selection.Config, o Options, limit float64) (float64, error) {
+// pilotCost runs c on the given pilot inner series and returns the CPU milliseconds it used
+// in all; the run stops early (cut) once it has used more than limit milliseconds, and the
+// result is then a lower bound above limit. The fits are kept in the pilot series'
+// innerSeries.fits, for scoreInner.
+func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selection.Config, o Options, limit float64) (ms float64, cut bool, err error) {
 	if len(pilot) == 0 {
-		return math.NaN(), nil
+		return 0, false, nil
+	}
+	if limit <= 0 {
+		return 0, true, nil
 	}
 	c.Levels = nil
 	c.ErrorOrigins = 0
@@ -975,7 +1058,7 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 	rctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	t0 := o.CPU()
-	perSeries := func() float64 { return float64((o.CPU() - t0).Microseconds()) / 1000 / float64(len(pilot)) }
+	spent := func() float64 { return float64((o.CPU() - t0).Microseconds()) / 1000 }
 	done := make(chan struct{})
 	if !math.IsInf(limit, 1) {
 		go func() {
@@ -986,7 +1069,7 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 				case <-done:
 					return
 				case <-tick.C:
-					if perSeries() > limit {
+					if spent() > limit {
 						cancel()
 						return
 					}
@@ -994,15 +1077,15 @@ func pilotCost(ctx context.Context, inner []innerSeries, pilot []int, c selectio
 			}
 		}()
 	}
-	err := selection.ForecastManyVariants(rctx, sub, c, []selection.Variant{{}}, fits, o.Workers, func(int, []selection.Result, []error) {})
+	err = selection.ForecastManyVariants(rctx, sub, c, []selection.Variant{{}}, fits, o.Workers, func(int, []selection.Result, []error) {})
 	close(done)
 	if err != nil && ctx.Err() != nil {
-		return math.NaN(), ctx.Err()
+		return 0, false, ctx.Err()
 	}
 	if err != nil && rctx.Err() == nil {
-		return math.NaN(), err
+		return 0, false, err
 	}
-	return perSeries(), nil
+	return spent(), rctx.Err() != nil, nil
 }
 
 // sumCost is the summed cost of c's zoo members (NaN for an unmeasured one).

@@ -122,7 +122,7 @@ func TestScoreInnerSharedEqualsOwnRuns(t *testing.T) {
 	for i := range base.Zoo {
 		c := base
 		c.Zoo = base.Zoo[i : i+1]
-		if _, err := pilotCost(context.Background(), inner, pilot, c, Options{CPU: fakeCPU, Workers: 1}, math.Inf(1)); err != nil {
+		if _, _, err := pilotCost(context.Background(), inner, pilot, c, Options{CPU: fakeCPU, Workers: 1}, math.Inf(1)); err != nil {
 			t.Fatal(err)
 		}
 	}
