@@ -561,3 +561,81 @@ func TestAutoInnerOrigins(t *testing.T) {
 		t.Errorf("inner series %d, choice %+v", out.InnerSeries, out.Choices[0])
 	}
 }
+
+// The cost verdict holds on to the previous run's within CostMargin (10%) of the budget, and
+// follows the costs beyond it; with no previous run it is the plain rule. Hand-computed: A is
+// protected (cost 10), B and C may go; the budget is 50.
+func TestOverBudgetHoldsThePreviousVerdict(t *testing.T) {
+	zoo := specs("A", "B", "C")
+	protected := map[string]bool{"A": true}
+	for _, c := range []struct {
+		name   string
+		b, c   float64 // costs of B and C
+		before *Before
+		want   []string
+	}{
+		// Sum 52 > 50: the plain rule drops B, the costlier.
+		{"no previous run, over", 22, 20, nil, []string{"B"}},
+		// The previous run kept both: they stay while the sum fits 55.
+		{"kept before, 4% over", 22, 20, &Before{Kept: []string{"A", "B", "C"}}, nil},
+		{"kept before, 12% over", 22, 24, &Before{Kept: []string{"A", "B", "C"}}, []string{"C"}},
+		// The previous run dropped B: it comes back only when the sum fits 45.
+		{"dropped before, 4% under", 20, 18, &Before{Kept: []string{"A", "C"}, Dropped: []string{"B"}}, []string{"B"}},
+		{"dropped before, 12% under", 16, 18, &Before{Kept: []string{"A", "C"}, Dropped: []string{"B"}}, nil},
+		// A member the previous run did not measure (C) is judged by the plain rule, and so is
+		// any sum it is part of.
+		{"new member", 22, 20, &Before{Kept: []string{"A", "B"}}, []string{"B"}},
+		// The protected member counts in the sum: B alone fits 55, but not beside A.
+		{"kept before, B within 55 alone, 28% over with A", 54, 0, &Before{Kept: []string{"A", "B", "C"}}, []string{"B"}},
+		// A run stopped at the budget is over it whatever the previous run did.
+		{"stopped", 10, 5, &Before{Kept: []string{"A", "B", "C"}}, []string{"C"}},
+	} {
+		cost := map[string]float64{"A": 10, "B": c.b, "C": c.c}
+		var stopped map[string]bool
+		if c.name == "stopped" {
+			stopped = map[string]bool{"C": true}
+		}
+		got := overBudget(zoo, cost, 50, stopped, protected, Options{Before: c.before}.margin)
+		if !reflect.DeepEqual(got, c.want) {
+			t.Errorf("%s: dropped %v, want %v", c.name, got, c.want)
+		}
+	}
+}
+
+// Options.Before reaches the verdict through Forecast, the outcome says which member it held,
+// and the record gives the next run its Before. The line member costs as much as the
+// last-value member (4 per series); at 1.9 times the latter the budget is 7.6, so the two
+// (8) do not fit and the plain rule drops the line; a previous run that kept it holds it (8
+// fits 1.1 x 7.6).
+func TestAutoCostBudgetHoldsThePreviousVerdict(t *testing.T) {
+	var in []series.Series
+	for i := 0; i < 30; i++ {
+		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
+	}
+	cc := []Combination{{Name: "last", Families: []string{famLast}}, {Name: "line", Families: []string{famLine}}}
+	o := Options{Base: selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}, Combinations: cc, CPU: fakeCPU, Workers: 1, CostLimit: 1.9}
+	out, _ := run1(t, in, o)
+	if !reflect.DeepEqual(out.DroppedMembers, []string{famLine}) || out.HeldMembers != nil {
+		t.Fatalf("no previous run: dropped %v, held %v; want the line dropped", out.DroppedMembers, out.HeldMembers)
+	}
+	if b := NewRecord(out, OneSE, 0).Before(); !reflect.DeepEqual(b, &Before{Kept: []string{famLast}, Dropped: []string{famLine}}) {
+		t.Errorf("record's verdict %+v", b)
+	}
+	o.Before = &Before{Kept: []string{famLast, famLine}}
+	out, got := run1(t, in, o)
+	if out.DroppedMembers != nil || !reflect.DeepEqual(out.HeldMembers, []string{famLine}) || got[0].Design != "line" {
+		t.Errorf("kept before: dropped %v, held %v, design %s; want the line held and chosen", out.DroppedMembers, out.HeldMembers, got[0].Design)
+	}
+	var b strings.Builder
+	out.Write(&b)
+	if want := famLine + " 4.00 (kept, as by the previous run)"; !strings.Contains(b.String(), want) {
+		t.Errorf("outcome text has no %q:\n%s", want, b.String())
+	}
+	r := NewRecord(out, OneSE, 0)
+	if back, err := r.Outcome(); err != nil || !reflect.DeepEqual(back.HeldMembers, []string{famLine}) {
+		t.Errorf("record round trip: held %v, %v", back.HeldMembers, err)
+	}
+	if b := r.Before(); !reflect.DeepEqual(b, &Before{Kept: []string{famLast, famLine}}) {
+		t.Errorf("next run's verdict %+v", b)
+	}
+}

@@ -70,6 +70,41 @@ type Options struct {
 	// here; the others are chosen on this call's series. Its candidates must be this run's
 	// (the same Base and Combinations), or Forecast fails.
 	Decided *Outcome
+	// Before (Auto) is the cost verdict of the run this one follows (nil: none, as in a
+	// benchmark or a portfolio's first run): a member whose cost lies within CostMargin of the
+	// budget keeps the verdict it had there (withinBudget).
+	Before *Before
+}
+
+// Before is a previous run's verdict on its zoo members' cost, by DisplayName: Kept were
+// measured and stayed, Dropped left the zoo for cost (Record.Before reads it from that run's
+// plan record).
+type Before struct {
+	Kept, Dropped []string
+}
+
+// CostMargin is how far the cost verdict holds on to the previous run's: a member the
+// previous run kept stays while the costs fit (1 + CostMargin) times the budget, and one it
+// dropped comes back only when they fit (1 - CostMargin) times it. A cost measured on a
+// pilot moves from run to run, so a member near the budget would otherwise be kept by one
+// run and dropped by the next, and the portfolio's design with it. Measured on the hourly
+// pilot of the M4 dev half, interleaved (pilotCosts): the summed cost of the members kept
+// read 0.95 to 1.04 times the budget over nine runs, quiet and beside a compiler loop, within
+// 5% of its mean; the margin is twice that (PROJECT-NOTES, fourteenth session).
+const CostMargin = 0.10
+
+// margin is the factor of the budget that member name's verdict is judged against: 1 +
+// CostMargin if o.Before kept it, 1 - CostMargin if it dropped it, else 1.
+func (o Options) margin(name string) float64 {
+	switch {
+	case o.Before == nil:
+		return 1
+	case slices.Contains(o.Before.Kept, name):
+		return 1 + CostMargin
+	case slices.Contains(o.Before.Dropped, name):
+		return 1 - CostMargin
+	}
+	return 1
 }
 
 func (o Options) withDefaults() Options {
@@ -141,6 +176,10 @@ type Outcome struct {
 	MemberCostMillis map[string]float64
 	BudgetMillis     float64
 	DroppedMembers   []string
+	// HeldMembers are the members whose verdict the previous run's decided (Options.Before):
+	// without it they would have been kept where they were dropped, or the other way round.
+	// (A member whose run stopped at the budget counts as over it either way.)
+	HeldMembers []string
 	// CostMillis is each candidate's cost: the sum of its members' MemberCostMillis.
 	CostMillis []float64
 	// Members are each candidate's zoo members (DisplayName), in zoo order.
@@ -791,19 +830,20 @@ func orShard(from string) string {
 	return from
 }
 
-// writeMemberCosts prints memberCosts' line, if any member was measured.
+// writeMemberCosts prints MemberCosts' line, if any member was measured.
 func (out *Outcome) writeMemberCosts(w io.Writer) {
-	if line := out.memberCosts(); line != "" {
+	if line := out.MemberCosts(); line != "" {
 		fmt.Fprintf(w, "  member cost, ms/series, most first: %s\n", line)
 	}
 }
 
-// memberCosts lists MemberCostMillis, most costly first (ties by name), so a reader sees how
+// MemberCosts lists MemberCostMillis, most costly first (ties by name), so a reader sees how
 // near the budget each member came: a member measured at CPU time close to the budget may be
-// kept by one run and dropped by the next (PROJECT-NOTES, thirteenth session). A cost above the
-// budget is a lower bound (the member's run stopped there) and reads "at least"; a dropped
-// member is marked so.
-func (out *Outcome) memberCosts() string {
+// kept by one run and dropped by the next (PROJECT-NOTES, thirteenth session). A dropped
+// member's cost above the budget is a lower bound (its run may have stopped there) and reads
+// "at least"; a dropped member is marked so, and a member whose verdict the previous run's
+// decided (HeldMembers) says so.
+func (out *Outcome) MemberCosts() string {
 	names := make([]string, 0, len(out.MemberCostMillis))
 	for n, c := range out.MemberCostMillis {
 		if !math.IsNaN(c) {
@@ -821,11 +861,17 @@ func (out *Outcome) memberCosts() string {
 	for i, n := range names {
 		c := out.MemberCostMillis[n]
 		p := fmt.Sprintf("%s %.2f", n, c)
-		if c > out.BudgetMillis {
+		dropped := slices.Contains(out.DroppedMembers, n)
+		if dropped && c > out.BudgetMillis {
 			p = fmt.Sprintf("%s at least %.2f", n, c)
 		}
-		if slices.Contains(out.DroppedMembers, n) {
+		switch {
+		case dropped && slices.Contains(out.HeldMembers, n):
+			p += " (dropped, as by the previous run)"
+		case dropped:
 			p += " (dropped)"
+		case slices.Contains(out.HeldMembers, n):
+			p += " (kept, as by the previous run)"
 		}
 		parts[i] = p
 	}
@@ -879,14 +925,15 @@ func finite(xs []float64) bool {
 
 // withinBudget measures every zoo member's CPU time per series on the pilot, each member alone
 // (its backtest and its fit, as selection runs it; pilotCosts), sets out.MemberCostMillis,
-// out.BudgetMillis (CostLimit times the summed cost of first's members) and
-// out.DroppedMembers, and returns o.Base with the dropped members taken out of the zoo. A
+// out.BudgetMillis (CostLimit times the summed cost of first's members), out.DroppedMembers
+// and out.HeldMembers, and returns o.Base with the dropped members taken out of the zoo. A
 // member is dropped when its run stopped at the budget or its cost exceeds it, then, most
 // expensive first (of equal costs the later in zoo order, the more complex), until the
-// remaining members' costs sum to at most the budget; first's members and the members that
-// read features (models.ReadsFeatures) are never dropped and the latter do not count against
-// the budget, so a candidate with them may cost more than the budget. A candidate's cost is
-// the sum of its members' (sumCost).
+// remaining members' costs sum to at most the budget (overBudget); first's members and the
+// members that read features (models.ReadsFeatures) are never dropped and the latter do not
+// count against the budget, so a candidate with them may cost more than the budget. A
+// candidate's cost is the sum of its members' (sumCost). With o.Before, "the budget" is the
+// budget times o.margin: within CostMargin of it a member keeps the previous run's verdict.
 func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, o Options, out *Outcome) (selection.Config, error) {
 	base := o.Base
 	protected := map[string]bool{}
@@ -906,35 +953,56 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 		return base, err
 	}
 	out.MemberCostMillis, out.BudgetMillis = cost, budget
-	keep := slices.Clone(base.Zoo)
+	out.DroppedMembers = overBudget(base.Zoo, cost, budget, stopped, protected, o.margin)
+	if o.Before != nil {
+		plain := overBudget(base.Zoo, cost, budget, stopped, protected, Options{}.margin)
+		for _, sp := range base.Zoo {
+			if n := sp.DisplayName(); slices.Contains(plain, n) != slices.Contains(out.DroppedMembers, n) {
+				out.HeldMembers = append(out.HeldMembers, n)
+			}
+		}
+	}
+	return withoutMembers(base, out.DroppedMembers), nil
+}
+
+// overBudget returns the members of zoo that leave it for cost, in the order they go: first
+// each whose run stopped at the budget or whose cost exceeds margin(its name) times the budget,
+// then, most expensive first (of equal costs the later in zoo order, the more complex), until
+// the remaining members' costs sum to at most the budget times the least margin of those of
+// them that may go. Protected members never go, and the members that read features
+// (models.ReadsFeatures) do not count in the sum. With margin 1 throughout this is the plain
+// rule; with Options.margin a member near the budget keeps the previous run's verdict.
+func overBudget(zoo []models.Spec, cost map[string]float64, budget float64, stopped, protected map[string]bool, margin func(string) float64) []string {
+	var dropped []string
+	keep := slices.Clone(zoo)
 	drop := func(name string) {
-		out.DroppedMembers = append(out.DroppedMembers, name)
+		dropped = append(dropped, name)
 		keep = slices.DeleteFunc(keep, func(sp models.Spec) bool { return sp.DisplayName() == name })
 	}
-	for _, sp := range base.Zoo {
-		if n := sp.DisplayName(); !protected[n] && (stopped[n] || cost[n] > budget) {
+	for _, sp := range zoo {
+		if n := sp.DisplayName(); !protected[n] && (stopped[n] || cost[n] > margin(n)*budget) {
 			drop(n)
 		}
 	}
 	for {
-		c := base
-		c.Zoo = slices.DeleteFunc(slices.Clone(keep), func(sp models.Spec) bool { return models.ReadsFeatures(sp.Family) })
-		if sumCost(c, cost) <= budget {
-			break
-		}
-		worst := ""
+		sum, limit, worst := 0.0, math.Inf(1), ""
 		for _, sp := range keep {
 			n := sp.DisplayName()
-			if !protected[n] && (worst == "" || cost[n] >= cost[worst]) {
-				worst = n
+			if !models.ReadsFeatures(sp.Family) {
+				sum += cost[n]
+			}
+			if !protected[n] {
+				limit = min(limit, margin(n))
+				if worst == "" || cost[n] >= cost[worst] {
+					worst = n
+				}
 			}
 		}
-		if worst == "" {
-			break
+		if worst == "" || sum <= limit*budget {
+			return dropped
 		}
 		drop(worst)
 	}
-	return withoutMembers(base, out.DroppedMembers), nil
 }
 
 // pilotCosts runs every member of o.Base.Zoo alone on the pilot inner series and returns each
@@ -953,8 +1021,8 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 // moved with it (PROJECT-NOTES, fourteenth session).
 //
 // A member that is not protected stops once it has used, over the rounds so far, the budget
-// (as the rounds so far estimate it) for every pilot series: its cost is then a lower bound,
-// above the budget.
+// (as the rounds so far estimate it; times o.margin for a member the previous run kept) for
+// every pilot series: its cost is then a lower bound, above the budget.
 func pilotCosts(ctx context.Context, inner []innerSeries, pilot []int, first Candidate, protected map[string]bool, o Options) (cost map[string]float64, budget float64, stopped map[string]bool, err error) {
 	zoo := o.Base.Zoo
 	used := make([]float64, len(zoo)) // CPU milliseconds over the rounds so far
@@ -1002,12 +1070,13 @@ func pilotCosts(ctx context.Context, inner []innerSeries, pilot []int, first Can
 			if stopped[name] {
 				continue
 			}
-			ms, cut, err := pilotCost(ctx, inner, round, alone(i), o, budget*float64(n)-used[i])
+			limit := max(o.margin(name), 1) * budget * float64(n)
+			ms, cut, err := pilotCost(ctx, inner, round, alone(i), o, limit-used[i])
 			if err != nil {
 				return nil, 0, nil, err
 			}
 			used[i] += ms
-			stopped[name] = cut || used[i] > budget*float64(n)
+			stopped[name] = cut || used[i] > limit
 		}
 	}
 	cost = map[string]float64{}

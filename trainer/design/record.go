@@ -30,6 +30,8 @@ type Record struct {
 	BudgetMillis     float64            `json:"budgetMillis,omitempty"`
 	MemberCostMillis map[string]float64 `json:"memberCostMillis,omitempty"`
 	DroppedMembers   []string           `json:"droppedMembers,omitempty"`
+	// HeldMembers kept the previous run's verdict on their cost (Outcome.HeldMembers).
+	HeldMembers []string `json:"heldMembers,omitempty"`
 	// Candidates are the designs weighed, simplest first.
 	Candidates []RecordCandidate `json:"candidates"`
 	// Segments hold one entry per segment the sample had, by name.
@@ -81,7 +83,8 @@ func NewRecord(out *Outcome, rule Rule, sampleLimit int) *Record {
 		rule = OneSE
 	}
 	r := &Record{Rule: rule, SampleSeries: out.SampleSeries, SampleLimit: sampleLimit, InnerSeries: out.InnerSeries,
-		InnerCPUSeconds: math.Round(out.InnerCPU.Seconds()*1000) / 1000, DroppedMembers: slices.Clone(out.DroppedMembers)}
+		InnerCPUSeconds: math.Round(out.InnerCPU.Seconds()*1000) / 1000, DroppedMembers: slices.Clone(out.DroppedMembers),
+		HeldMembers: slices.Clone(out.HeldMembers)}
 	if finitePtr(out.BudgetMillis) != nil {
 		r.BudgetMillis = out.BudgetMillis
 	}
@@ -115,11 +118,29 @@ func NewRecord(out *Outcome, rule Rule, sampleLimit int) *Record {
 	return r
 }
 
+// Before is the record's verdict on its members' cost, for the next run's Options.Before:
+// Kept the members measured and not dropped, Dropped those dropped (nil when no member was
+// measured: the run had nothing to choose between, or chose on no inner series).
+func (r *Record) Before() *Before {
+	if len(r.MemberCostMillis) == 0 {
+		return nil
+	}
+	b := &Before{Dropped: slices.Clone(r.DroppedMembers)}
+	for m := range r.MemberCostMillis {
+		if !slices.Contains(r.DroppedMembers, m) {
+			b.Kept = append(b.Kept, m)
+		}
+	}
+	slices.Sort(b.Kept)
+	return b
+}
+
 // Outcome turns the record back into the Outcome Forecast takes as Options.Decided; errors
 // name the field.
 func (r *Record) Outcome() (*Outcome, error) {
 	out := &Outcome{Mode: Auto, SampleSeries: r.SampleSeries, InnerSeries: r.InnerSeries, BudgetMillis: r.BudgetMillis,
-		InnerCPU: time.Duration(r.InnerCPUSeconds * float64(time.Second)), MemberCostMillis: r.MemberCostMillis, DroppedMembers: r.DroppedMembers}
+		InnerCPU: time.Duration(r.InnerCPUSeconds * float64(time.Second)), MemberCostMillis: r.MemberCostMillis, DroppedMembers: r.DroppedMembers,
+		HeldMembers: r.HeldMembers}
 	if !r.Rule.Valid() {
 		return nil, fmt.Errorf("rule %q is not %q, %q or %q", r.Rule, OneSE, Lowest, RelativeSE)
 	}

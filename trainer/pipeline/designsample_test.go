@@ -4,6 +4,9 @@ import (
 	"bytes"
 	"context"
 	"fmt"
+	"os"
+	"path/filepath"
+	"reflect"
 	"slices"
 	"sort"
 	"strings"
@@ -210,5 +213,47 @@ func TestUnseenSegmentIsChosenByTheShard(t *testing.T) {
 	}
 	if _, err := RunTrain(ctx, cfg, 0, env); ExitCode(err) != exitcode.Data || !strings.Contains(err.Error(), "plan.json") {
 		t.Errorf("train with a truncated plan.json: exit %d, %v; want exit %d naming plan.json", ExitCode(err), err, exitcode.Data)
+	}
+}
+
+// A run's plan passes the previous published run's cost verdict to the design
+// (previousVerdict, design.Options.Before): the members that run measured and kept or
+// dropped. A first run has none, and a previous plan that cannot be read leaves the plain
+// rule with a line in the log, not a failed plan.
+func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
+	dir, cfg := objectRun(t)
+	ctx := context.Background()
+	cfg.Selection.Design = runconfig.DesignAuto
+	cfg.Models = []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilyETS}, {Family: models.FamilyTheta}, {Family: models.FamilyDOTM}}
+	out := mustOpen(t, cfg.Output.URI)
+	if b, err := previousVerdict(ctx, out, cfg, testEnv()); b != nil || err != nil {
+		t.Fatalf("first run: verdict %+v, %v; want none", b, err)
+	}
+	if _, errs := runAll(t, cfg); slices.ContainsFunc(errs, func(err error) bool { return err != nil }) {
+		t.Fatalf("first run: %v", errs)
+	}
+	first, err := ReadPlan(ctx, out, cfg.Run)
+	if err != nil || first.Design == nil || len(first.Design.MemberCostMillis) != len(cfg.Models) {
+		t.Fatalf("first run's plan: design %+v, %v; want every member measured", first.Design, err)
+	}
+	next := *cfg
+	next.Run = "flp-0002"
+	got, err := previousVerdict(ctx, out, &next, testEnv())
+	want := first.Design.Before()
+	if err != nil || got == nil || !reflect.DeepEqual(got, want) || len(got.Kept)+len(got.Dropped) != len(cfg.Models) {
+		t.Errorf("second run: verdict %+v, %v; want %+v from the first run's plan", got, err, want)
+	}
+	// A damaged plan of the previous run: no verdict, and the next plan goes on.
+	if err := os.WriteFile(filepath.Join(dir, "out", "runs", cfg.Run, "plan.json"), []byte("{"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	env := testEnv()
+	var log bytes.Buffer
+	env.Log = &log
+	if _, err := RunPlan(ctx, &next, env); err != nil {
+		t.Fatalf("second plan with the first's plan damaged: %v", err)
+	}
+	if want := "plan: the previous run " + cfg.Run + "'s plan cannot be read, so its cost verdict is not kept"; !strings.Contains(log.String(), want) {
+		t.Errorf("log has no %q:\n%s", want, log.String())
 	}
 }

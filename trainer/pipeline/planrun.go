@@ -219,7 +219,11 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *sto
 	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
 	if smp != nil {
-		if err := decidePlanDesign(ctx, st, h != nil, p, smp, env); err != nil {
+		before, err := previousVerdict(ctx, out, cfg, env)
+		if err != nil {
+			return nil, err
+		}
+		if err := decidePlanDesign(ctx, st, h != nil, p, smp, before, env); err != nil {
 			return nil, err
 		}
 	}
@@ -279,13 +283,15 @@ func planSample(cfg *runconfig.Config, st Settings, cutoff time.Time, env Env) (
 
 // decidePlanDesign chooses the run's design per segment on the plan's design sample (after
 // the same extension to the hierarchy's last period train gives bottom series, when the run
-// has a hierarchy) and records it in p.Design.
-func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Plan, smp *designSample, env Env) error {
+// has a hierarchy) and records it in p.Design; before is the previous run's cost verdict
+// (previousVerdict; nil: none).
+func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Plan, smp *designSample, before *design.Before, env Env) error {
 	in := smp.finish()
 	if hierarchical {
 		extendTo(in, p.HierarchyEnd)
 	}
 	opts := st.Design(env.Workers)
+	opts.Before = before
 	out, err := design.Decide(ctx, in, opts)
 	if err != nil {
 		return err
@@ -293,7 +299,32 @@ func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Pl
 	p.Design = design.NewRecord(out, opts.Rule, env.designSample())
 	env.logf("plan: design chosen once for the run on a sample of %d series (%d inner-holdout series, %.1fs CPU): %s",
 		len(in), out.InnerSeries, out.InnerCPU.Seconds(), choicesText(out))
+	if len(out.HeldMembers) > 0 {
+		env.logf("plan: within %.0f%% of the cost budget, %s kept the previous run's verdict (member costs, ms/series: %s)",
+			100*design.CostMargin, strings.Join(out.HeldMembers, ", "), out.MemberCosts())
+	}
 	return nil
+}
+
+// previousVerdict returns the cost verdict of the previous run's design (design.Record.Before),
+// so that a member whose cost lies near the budget does not leave the zoo in one run and come
+// back in the next (design.Options.Before). It is nil on a first run, when the previous run
+// decided no design, and when its plan is gone or damaged (said in the log): the verdict
+// only steadies the choice, and the plain rule stands without it.
+func previousVerdict(ctx context.Context, out *store.Store, cfg *runconfig.Config, env Env) (*design.Before, error) {
+	prev, err := previous(ctx, out, cfg)
+	if err != nil || prev == nil {
+		return nil, err
+	}
+	p, err := ReadPlan(ctx, out, prev.Run)
+	if err != nil {
+		env.logf("plan: the previous run %s's plan cannot be read, so its cost verdict is not kept: %v", prev.Run, err)
+		return nil, nil
+	}
+	if p.Design == nil {
+		return nil, nil
+	}
+	return p.Design.Before(), nil
 }
 
 // choicesText lists the decided design per segment: "monthly/smooth/long ets-theta, ...".
