@@ -615,8 +615,19 @@ func TestAutoCostBudgetHoldsThePreviousVerdict(t *testing.T) {
 	cc := []Combination{{Name: "last", Families: []string{famLast}}, {Name: "line", Families: []string{famLine}}}
 	o := Options{Base: selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}, Combinations: cc, CPU: fakeCPU, Workers: 1, CostLimit: 1.9}
 	out, _ := run1(t, in, o)
-	if !reflect.DeepEqual(out.DroppedMembers, []string{famLine}) || out.HeldMembers != nil {
-		t.Fatalf("no previous run: dropped %v, held %v; want the line dropped", out.DroppedMembers, out.HeldMembers)
+	if !reflect.DeepEqual(out.DroppedMembers, []string{famLine}) || out.HeldMembers != nil || !reflect.DeepEqual(out.NearBudget, []string{famLine}) {
+		t.Fatalf("no previous run: dropped %v, held %v, near the budget %v; want the line dropped and near the budget", out.DroppedMembers, out.HeldMembers, out.NearBudget)
+	}
+	var text strings.Builder
+	out.Write(&text)
+	if want := "  within 10% of the budget (a run keeps the previous run's verdict on them): " + famLine + "\n"; !strings.Contains(text.String(), want) {
+		t.Errorf("outcome text has no %q:\n%s", want, text.String())
+	}
+	// At 2.5 times (budget 10) the line is kept whatever the previous run did: not near.
+	o2 := o
+	o2.CostLimit = 2.5
+	if far, _ := run1(t, in, o2); far.NearBudget != nil || far.DroppedMembers != nil {
+		t.Errorf("budget 10: near %v, dropped %v; want neither", far.NearBudget, far.DroppedMembers)
 	}
 	if b := NewRecord(out, OneSE, 0).Before(); !reflect.DeepEqual(b, &Before{Kept: []string{famLast}, Dropped: []string{famLine}}) {
 		t.Errorf("record's verdict %+v", b)

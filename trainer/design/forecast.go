@@ -180,6 +180,10 @@ type Outcome struct {
 	// without it they would have been kept where they were dropped, or the other way round.
 	// (A member whose run stopped at the budget counts as over it either way.)
 	HeldMembers []string
+	// NearBudget are the members whose verdict depends on the previous run's (they go with
+	// the budget 1 - CostMargin times as large and stay with it 1 + CostMargin times as large),
+	// whether or not there was a previous run: the members a timing's noise could move.
+	NearBudget []string
 	// CostMillis is each candidate's cost: the sum of its members' MemberCostMillis.
 	CostMillis []float64
 	// Members are each candidate's zoo members (DisplayName), in zoo order.
@@ -830,10 +834,14 @@ func orShard(from string) string {
 	return from
 }
 
-// writeMemberCosts prints MemberCosts' line, if any member was measured.
+// writeMemberCosts prints MemberCosts' line, if any member was measured, and the members
+// near the budget (NearBudget).
 func (out *Outcome) writeMemberCosts(w io.Writer) {
 	if line := out.MemberCosts(); line != "" {
 		fmt.Fprintf(w, "  member cost, ms/series, most first: %s\n", line)
+	}
+	if len(out.NearBudget) > 0 {
+		fmt.Fprintf(w, "  within %.0f%% of the budget (a run keeps the previous run's verdict on them): %s\n", 100*CostMargin, strings.Join(out.NearBudget, ", "))
 	}
 }
 
@@ -954,12 +962,16 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 	}
 	out.MemberCostMillis, out.BudgetMillis = cost, budget
 	out.DroppedMembers = overBudget(base.Zoo, cost, budget, stopped, protected, o.margin)
-	if o.Before != nil {
-		plain := overBudget(base.Zoo, cost, budget, stopped, protected, Options{}.margin)
-		for _, sp := range base.Zoo {
-			if n := sp.DisplayName(); slices.Contains(plain, n) != slices.Contains(out.DroppedMembers, n) {
-				out.HeldMembers = append(out.HeldMembers, n)
-			}
+	plain := overBudget(base.Zoo, cost, budget, stopped, protected, Options{}.margin)
+	tight := overBudget(base.Zoo, cost, budget, stopped, protected, func(string) float64 { return 1 - CostMargin })
+	loose := overBudget(base.Zoo, cost, budget, stopped, protected, func(string) float64 { return 1 + CostMargin })
+	for _, sp := range base.Zoo {
+		n := sp.DisplayName()
+		if slices.Contains(plain, n) != slices.Contains(out.DroppedMembers, n) {
+			out.HeldMembers = append(out.HeldMembers, n)
+		}
+		if slices.Contains(tight, n) != slices.Contains(loose, n) {
+			out.NearBudget = append(out.NearBudget, n)
 		}
 	}
 	return withoutMembers(base, out.DroppedMembers), nil

@@ -299,9 +299,13 @@ func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Pl
 	p.Design = design.NewRecord(out, opts.Rule, env.designSample())
 	env.logf("plan: design chosen once for the run on a sample of %d series (%d inner-holdout series, %.1fs CPU): %s",
 		len(in), out.InnerSeries, out.InnerCPU.Seconds(), choicesText(out))
-	if len(out.HeldMembers) > 0 {
-		env.logf("plan: within %.0f%% of the cost budget, %s kept the previous run's verdict (member costs, ms/series: %s)",
-			100*design.CostMargin, strings.Join(out.HeldMembers, ", "), out.MemberCosts())
+	if len(out.NearBudget) > 0 || len(out.HeldMembers) > 0 {
+		held := "none"
+		if len(out.HeldMembers) > 0 {
+			held = strings.Join(out.HeldMembers, ", ")
+		}
+		env.logf("plan: within %.0f%% of the cost budget: %s; kept the previous run's verdict: %s (member costs, ms/series: %s)",
+			100*design.CostMargin, strings.Join(out.NearBudget, ", "), held, out.MemberCosts())
 	}
 	return nil
 }
