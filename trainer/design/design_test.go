@@ -462,15 +462,18 @@ func TestPilotCostsHoldUnderALoadThatComesMidway(t *testing.T) {
 			return time.Duration(w+2*max(w-32, 0)) * time.Millisecond
 		}
 	}
-	for _, c := range []struct {
-		name string
-		cpu  func() func() time.Duration
-	}{{"quiet", func() func() time.Duration { return fakeCPU }}, {"load from halfway", loaded}} {
-		out, _ := run1(t, in, Options{Base: base, Combinations: cc, CPU: c.cpu(), Workers: 1, CostLimit: 2.5})
-		last, line := out.MemberCostMillis[famLast], out.MemberCostMillis[famLine]
-		if len(out.DroppedMembers) != 0 || last != line || out.BudgetMillis != 2.5*last {
-			t.Errorf("%s: costs %v, budget %v, dropped %v; want equal costs, the budget 2.5 times them, nothing dropped",
-				c.name, out.MemberCostMillis, out.BudgetMillis, out.DroppedMembers)
+	// With as many workers as pilot series the pilot still goes in rounds (pilotRounds).
+	for _, workers := range []int{1, 8} {
+		for _, c := range []struct {
+			name string
+			cpu  func() func() time.Duration
+		}{{"quiet", func() func() time.Duration { return fakeCPU }}, {"load from halfway", loaded}} {
+			out, _ := run1(t, in, Options{Base: base, Combinations: cc, CPU: c.cpu(), Workers: workers, CostLimit: 2.5})
+			last, line := out.MemberCostMillis[famLast], out.MemberCostMillis[famLine]
+			if len(out.DroppedMembers) != 0 || last != line || out.BudgetMillis != 2.5*last {
+				t.Errorf("%d workers, %s: costs %v, budget %v, dropped %v; want equal costs, the budget 2.5 times them, nothing dropped",
+					workers, c.name, out.MemberCostMillis, out.BudgetMillis, out.DroppedMembers)
+			}
 		}
 	}
 }

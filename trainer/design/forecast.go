@@ -1023,7 +1023,7 @@ func overBudget(zoo []models.Spec, cost map[string]float64, budget float64, stop
 // at the budget.
 //
 // The runs are interleaved: the pilot goes in rounds of w series (w the workers, so that a
-// round keeps them busy), and in every round each member still running takes that round's
+// round keeps them busy, but at most a pilotRounds-th of the pilot), and in every round each member still running takes that round's
 // series alone, the protected members (first's and those withinBudget never drops) before the
 // others, each group starting one member further on in every round. Load that comes and goes on
 // the node, and the garbage collector's work, which the process clock charges to whatever
@@ -1060,12 +1060,13 @@ func pilotCosts(ctx context.Context, inner []innerSeries, pilot []int, first Can
 		c.Zoo, c.CombineTop, c.CombineMethod, c.CombineMargin = zoo[i:i+1], 0, "", 0
 		return c
 	}
+	n := len(pilot)
 	w := o.Workers
 	if w <= 0 {
 		w = runtime.GOMAXPROCS(0)
 	}
+	w = max(min(w, n/pilotRounds), 1)
 	stopped = map[string]bool{}
-	n := len(pilot)
 	budget = minBudgetMillis
 	for r, start := 0, 0; start < n; r, start = r+1, start+w {
 		round := pilot[start:min(start+w, n)]
@@ -1100,6 +1101,13 @@ func pilotCosts(ctx context.Context, inner []innerSeries, pilot []int, first Can
 	}
 	return cost, budget, stopped, nil
 }
+
+// pilotRounds is the fewest rounds pilotCosts takes the pilot in when it has that many series:
+// with as many workers as pilot series, one round would measure the members one after the
+// other again. The price is wall time, not CPU time: eight rounds of the 16-series hourly pilot
+// keep two of sixteen workers busy, so on such a node the pilot takes up to eight times as long
+// as one round would (about 25 CPU seconds there in all).
+const pilotRounds = 8
 
 // rotated returns xs starting at element r modulo its length, the elements before it last.
 func rotated(xs []int, r int) []int {
