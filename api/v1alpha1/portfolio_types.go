@@ -597,7 +597,7 @@ type SelectionSpec struct {
 	// and GradientBoosting, the only members that read planned covariates and events, never
 	// leave and do not count against the budget). A ratio rather than milliseconds, so one
 	// value suits every machine and series length. The members are timed interleaved, so that
-	// the node's load falls on all alike, and a member whose cost lies within 10% of the
+	// the node's load falls on all alike, and a member whose cost lies within 20% of the
 	// budget keeps the previous run's verdict, so that timing noise does not move it in and
 	// out of the zoo from run to run (plan.json's design.heldMembers names it). Default 500.
 	// +optional

@@ -89,10 +89,10 @@ type Before struct {
 // pilot moves from run to run, so a member near the budget would otherwise be kept by one
 // run and dropped by the next, and the portfolio's design with it. Measured on the hourly
 // pilot of the M4 dev half, interleaved (pilotCosts): the summed cost of the members kept
-// read 0.93 to 1.04 times the budget over twelve runs, quiet, beside a compiler loop and beside
-// a CI run, within 6% of its mean; the margin leaves room beyond that (PROJECT-NOTES,
-// fourteenth session).
-const CostMargin = 0.10
+// read 0.885 to 1.04 times the budget over fourteen runs (quiet, beside a compiler loop,
+// beside a CI run, and two bench runs in fresh processes), at most 9% from their mean; the
+// margin is about twice that (PROJECT-NOTES, fourteenth session).
+const CostMargin = 0.20
 
 // margin is the factor of the budget that member name's verdict is judged against: 1 +
 // CostMargin if o.Before kept it, 1 - CostMargin if it dropped it, else 1.
