@@ -217,14 +217,19 @@ func TestUnseenSegmentIsChosenByTheShard(t *testing.T) {
 }
 
 // A run's plan passes the previous published run's cost verdict to the design
-// (previousVerdict, design.Options.Before): the members that run measured and kept or
-// dropped. A first run has none, and a previous plan that cannot be read leaves the plain
-// rule with a line in the log, not a failed plan.
+// (previousVerdict, design.Options.Before), and the design holds it for a member near the
+// budget. At designCostPercent 100 the budget is the ETS, Theta and DOTM costs (about 6 ms per
+// series here), so Naive (0.2 to 0.4 ms) cannot fit beside them by the plain rule, which the
+// first run applies; told that the previous run kept Naive, the next run keeps it (the costs
+// fit 1.2 times the budget), says so in its log and records it in plan.json. A first run has
+// no verdict, and a previous plan that cannot be read leaves the plain rule with a line in the
+// log, not a failed plan.
 func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
 	dir, cfg := objectRun(t)
 	ctx := context.Background()
 	cfg.Selection.Design = runconfig.DesignAuto
 	cfg.Models = []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilyETS}, {Family: models.FamilyTheta}, {Family: models.FamilyDOTM}}
+	cfg.Selection.DesignCostPercent = 100
 	out := mustOpen(t, cfg.Output.URI)
 	if b, err := previousVerdict(ctx, out, cfg, testEnv()); b != nil || err != nil {
 		t.Fatalf("first run: verdict %+v, %v; want none", b, err)
@@ -233,27 +238,52 @@ func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
 		t.Fatalf("first run: %v", errs)
 	}
 	first, err := ReadPlan(ctx, out, cfg.Run)
-	if err != nil || first.Design == nil || len(first.Design.MemberCostMillis) != len(cfg.Models) {
-		t.Fatalf("first run's plan: design %+v, %v; want every member measured", first.Design, err)
+	if err != nil || first.Design == nil || len(first.Design.MemberCostMillis) != len(cfg.Models) ||
+		!slices.Equal(first.Design.DroppedMembers, []string{models.FamilyNaive}) {
+		t.Fatalf("first run's plan: design %+v, %v; want every member measured and Naive dropped", first.Design, err)
 	}
 	next := *cfg
 	next.Run = "flp-0002"
 	got, err := previousVerdict(ctx, out, &next, testEnv())
-	want := first.Design.Before()
-	if err != nil || got == nil || !reflect.DeepEqual(got, want) || len(got.Kept)+len(got.Dropped) != len(cfg.Models) {
+	if want := first.Design.Before(); err != nil || got == nil || !reflect.DeepEqual(got, want) {
 		t.Errorf("second run: verdict %+v, %v; want %+v from the first run's plan", got, err, want)
 	}
-	// A damaged plan of the previous run: no verdict, and the next plan goes on.
+	// The first run's plan, as if it had kept Naive.
+	first.Design.DroppedMembers = nil
+	b, err := EncodePlan(first)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := out.Put(ctx, store.RunKey(cfg.Run, store.PlanName), b); err != nil {
+		t.Fatal(err)
+	}
+	plan := func() (*Plan, string) {
+		t.Helper()
+		env := testEnv()
+		var log bytes.Buffer
+		env.Log = &log
+		if _, err := RunPlan(ctx, &next, env); err != nil {
+			t.Fatalf("second plan: %v", err)
+		}
+		p, err := ReadPlan(ctx, out, next.Run)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return p, log.String()
+	}
+	p, log := plan()
+	if !slices.Equal(p.Design.HeldMembers, []string{models.FamilyNaive}) || len(p.Design.DroppedMembers) != 0 ||
+		!strings.Contains(log, "; kept the previous run's verdict: "+models.FamilyNaive+" (member costs") {
+		t.Errorf("previous run kept Naive: held %v, dropped %v (costs %v, budget %v); log:\n%s",
+			p.Design.HeldMembers, p.Design.DroppedMembers, p.Design.MemberCostMillis, p.Design.BudgetMillis, log)
+	}
+	// A damaged plan of the previous run: no verdict, the plain rule, and the plan goes on.
 	if err := os.WriteFile(filepath.Join(dir, "out", "runs", cfg.Run, "plan.json"), []byte("{"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	env := testEnv()
-	var log bytes.Buffer
-	env.Log = &log
-	if _, err := RunPlan(ctx, &next, env); err != nil {
-		t.Fatalf("second plan with the first's plan damaged: %v", err)
-	}
-	if want := "plan: the previous run " + cfg.Run + "'s plan cannot be read, so its cost verdict is not kept"; !strings.Contains(log.String(), want) {
-		t.Errorf("log has no %q:\n%s", want, log.String())
+	p, log = plan()
+	if want := "plan: the previous run " + cfg.Run + "'s plan cannot be read, so its cost verdict is not kept"; !strings.Contains(log, want) ||
+		len(p.Design.HeldMembers) != 0 || !slices.Equal(p.Design.DroppedMembers, []string{models.FamilyNaive}) {
+		t.Errorf("previous plan damaged: held %v, dropped %v; log:\n%s", p.Design.HeldMembers, p.Design.DroppedMembers, log)
 	}
 }
