@@ -241,6 +241,15 @@ func line(key string, n int, slope float64) series.Series {
 	return series.Series{Key: key, Start: start(), Freq: series.Yearly, Values: y}
 }
 
+// lines30 is 30 straight lines of 20 points with slopes 1 to 30: the cost tests' portfolio.
+func lines30() []series.Series {
+	var in []series.Series
+	for i := 0; i < 30; i++ {
+		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
+	}
+	return in
+}
+
 // step alternates 1, 3 in its first half and stays at 20 in its second: erratic (CV² of the
 // values above 0.49). Its fourth-last value is 19, so the inner training data (all but the
 // last 2 points) ends 20, 19, 20: the last-value member forecasts the inner test (20, 20)
@@ -383,10 +392,7 @@ func TestAutoTooFewSeriesTakesTheSimplest(t *testing.T) {
 // design nor the per-series design over both members is weighed; with a budget of 200x it is
 // kept and wins.
 func TestAutoCostBudget(t *testing.T) {
-	var in []series.Series
-	for i := 0; i < 30; i++ {
-		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
-	}
+	in := lines30()
 	cc := []Combination{{Name: "last", Families: []string{famLast}}, {Name: "costly", Families: []string{famCostly}}}
 	base := selection.Config{Horizon: 2, Zoo: specs(famLast, famCostly)}
 	out, got := run1(t, in, Options{Base: base, Combinations: cc, CPU: fakeCPU, Workers: 1})
@@ -423,10 +429,7 @@ func TestAutoCostBudget(t *testing.T) {
 
 // Dropping for cost goes most expensive first, and never drops the simplest candidate's members.
 func TestWithinBudgetDropsTheMostExpensiveFirst(t *testing.T) {
-	var in []series.Series
-	for i := 0; i < 30; i++ {
-		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
-	}
+	in := lines30()
 	cc := []Combination{{Name: "costly", Families: []string{famCostly}}}
 	base := selection.Config{Horizon: 2, Zoo: specs(famLast, famLine, famCostly)}
 	// Budget 1.01 x 400 = 404: Last (4) and Line (4) cannot both stay beside Costly (400); of
@@ -447,10 +450,7 @@ func TestWithinBudgetDropsTheMostExpensiveFirst(t *testing.T) {
 // member ran wholly under the load, read three times its cost (12 ms against a budget of
 // 2.5 x 4 = 10) and was dropped.
 func TestPilotCostsHoldUnderALoadThatComesMidway(t *testing.T) {
-	var in []series.Series
-	for i := 0; i < 30; i++ {
-		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
-	}
+	in := lines30()
 	cc := []Combination{{Name: "last", Families: []string{famLast}}}
 	base := selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}
 	// The pilot is 8 series; each member costs 4 units per series, 64 units in all. The
@@ -611,10 +611,7 @@ func TestOverBudgetHoldsThePreviousVerdict(t *testing.T) {
 // (8) do not fit and the plain rule drops the line; a previous run that kept it holds it (8
 // fits 1.2 x 7.6).
 func TestAutoCostBudgetHoldsThePreviousVerdict(t *testing.T) {
-	var in []series.Series
-	for i := 0; i < 30; i++ {
-		in = append(in, line(fmt.Sprintf("line%d", i), 20, float64(i+1)))
-	}
+	in := lines30()
 	cc := []Combination{{Name: "last", Families: []string{famLast}}, {Name: "line", Families: []string{famLine}}}
 	o := Options{Base: selection.Config{Horizon: 2, Zoo: specs(famLast, famLine)}, Combinations: cc, CPU: fakeCPU, Workers: 1, CostLimit: 1.9}
 	out, _ := run1(t, in, o)
