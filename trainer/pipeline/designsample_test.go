@@ -231,8 +231,8 @@ func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
 	cfg.Models = []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilyETS}, {Family: models.FamilyTheta}, {Family: models.FamilyDOTM}}
 	cfg.Selection.DesignCostPercent = 100
 	out := mustOpen(t, cfg.Output.URI)
-	if b, err := previousVerdict(ctx, out, cfg, testEnv()); b != nil || err != nil {
-		t.Fatalf("first run: verdict %+v, %v; want none", b, err)
+	if prev, err := previous(ctx, out, cfg); prev != nil || err != nil || previousVerdict(ctx, out, prev, testEnv()) != nil {
+		t.Fatalf("first run: previous run %+v, %v; want none and no verdict", prev, err)
 	}
 	if _, errs := runAll(t, cfg); slices.ContainsFunc(errs, func(err error) bool { return err != nil }) {
 		t.Fatalf("first run: %v", errs)
@@ -244,9 +244,12 @@ func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
 	}
 	next := *cfg
 	next.Run = "flp-0002"
-	got, err := previousVerdict(ctx, out, &next, testEnv())
-	if want := first.Design.Before(); err != nil || got == nil || !reflect.DeepEqual(got, want) {
-		t.Errorf("second run: verdict %+v, %v; want %+v from the first run's plan", got, err, want)
+	prev, err := previous(ctx, out, &next)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got, want := previousVerdict(ctx, out, prev, testEnv()), first.Design.Before(); got == nil || !reflect.DeepEqual(got, want) {
+		t.Errorf("second run: verdict %+v; want %+v from the first run's plan", got, want)
 	}
 	// The first run's plan, as if it had kept Naive.
 	first.Design.DroppedMembers = nil

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"sort"
 	"strings"
+	"sync"
 	"time"
 
 	"almanac.dev/almanac/trainer/design"
@@ -93,6 +94,9 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *sto
 	}
 	p := &Plan{Version: PlanVersion, Run: cfg.Run, Partitioning: cfg.Source.Partitioning, Objects: objs, Cutoff: cutoff,
 		Reconcile: h != nil && h.spanning}
+	// prevRun is the previous run's manifest (nil on a first run), read once when first needed:
+	// by a broken object's row groups, the bucket count, and the design's cost verdict.
+	prevRun := sync.OnceValues(func() (*Manifest, error) { return previous(ctx, out, cfg) })
 	// latest records the newest history row's date (not after the cutoff) for a hierarchy.
 	// (and every row goes to the design sample, when there is one).
 	latest := func(r ingest.Row) {
@@ -143,7 +147,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *sto
 			}
 			// The row groups of a broken object cannot be read: its units are the previous
 			// run's for the object, kept empty so that publish carries them forward.
-			prev, err := previous(ctx, out, cfg)
+			prev, err := prevRun()
 			if err != nil {
 				return nil, err
 			}
@@ -180,7 +184,7 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *sto
 		prevBuckets := 0
 		var prev *Manifest
 		if cfg.Sharding.Buckets == 0 || firstBroken != nil {
-			if prev, err = previous(ctx, out, cfg); err != nil {
+			if prev, err = prevRun(); err != nil {
 				return nil, err
 			}
 			if prev != nil && hashedLayout(prev.Partitioning) {
@@ -219,10 +223,11 @@ func buildPlan(ctx context.Context, cfg *runconfig.Config, st Settings, out *sto
 	}
 	p.Shards = Cut(p.Units, cfg.Sharding.TargetSeriesPerShard)
 	if smp != nil {
-		before, err := previousVerdict(ctx, out, cfg, env)
+		prev, err := prevRun()
 		if err != nil {
 			return nil, err
 		}
+		before := previousVerdict(ctx, out, prev, env)
 		if err := decidePlanDesign(ctx, st, h != nil, p, smp, before, env); err != nil {
 			return nil, err
 		}
@@ -310,25 +315,24 @@ func decidePlanDesign(ctx context.Context, st Settings, hierarchical bool, p *Pl
 	return nil
 }
 
-// previousVerdict returns the cost verdict of the previous run's design (design.Record.Before),
-// so that a member whose cost lies near the budget does not leave the zoo in one run and come
-// back in the next (design.Options.Before). It is nil on a first run, when the previous run
-// decided no design, and when its plan is gone or damaged (said in the log): the verdict
-// only steadies the choice, and the plain rule stands without it.
-func previousVerdict(ctx context.Context, out *store.Store, cfg *runconfig.Config, env Env) (*design.Before, error) {
-	prev, err := previous(ctx, out, cfg)
-	if err != nil || prev == nil {
-		return nil, err
+// previousVerdict returns the cost verdict of the design of prev, the previous run's manifest
+// (design.Record.Before), so that a member whose cost lies near the budget does not leave the
+// zoo in one run and come back in the next (design.Options.Before). It is nil on a first run
+// (prev nil), when the previous run decided no design, and when its plan is gone or damaged
+// (said in the log): the verdict only steadies the choice, and the plain rule stands without it.
+func previousVerdict(ctx context.Context, out *store.Store, prev *Manifest, env Env) *design.Before {
+	if prev == nil {
+		return nil
 	}
 	p, err := ReadPlan(ctx, out, prev.Run)
 	if err != nil {
 		env.logf("plan: the previous run %s's plan cannot be read, so its cost verdict is not kept: %v", prev.Run, err)
-		return nil, nil
+		return nil
 	}
 	if p.Design == nil {
-		return nil, nil
+		return nil
 	}
-	return p.Design.Before(), nil
+	return p.Design.Before()
 }
 
 // choicesText lists the decided design per segment: "monthly/smooth/long ets-theta, ...".
