@@ -963,9 +963,10 @@ func withinBudget(ctx context.Context, inner []innerSeries, pilot []int, first C
 	}
 	out.MemberCostMillis, out.BudgetMillis = cost, budget
 	out.DroppedMembers = overBudget(base.Zoo, cost, budget, stopped, protected, o.margin)
-	plain := overBudget(base.Zoo, cost, budget, stopped, protected, Options{}.margin)
-	tight := overBudget(base.Zoo, cost, budget, stopped, protected, func(string) float64 { return 1 - CostMargin })
-	loose := overBudget(base.Zoo, cost, budget, stopped, protected, func(string) float64 { return 1 + CostMargin })
+	every := func(f float64) func(string) float64 { return func(string) float64 { return f } }
+	plain := overBudget(base.Zoo, cost, budget, stopped, protected, every(1))
+	tight := overBudget(base.Zoo, cost, budget, stopped, protected, every(1-CostMargin))
+	loose := overBudget(base.Zoo, cost, budget, stopped, protected, every(1+CostMargin))
 	for _, sp := range base.Zoo {
 		n := sp.DisplayName()
 		if slices.Contains(plain, n) != slices.Contains(out.DroppedMembers, n) {
