@@ -213,7 +213,8 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Eventually(phaseOf(ns, name)).Should(Equal(forecastingv1alpha1.PhasePlanning))
 		Expect(metav1.IsControlledBy(getRun(ns, name), getPortfolio(ns, "fenwick-daily"))).To(BeTrue())
 
-		succeedSingle(ns, name, stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 4, Units: 6, Series: 410})
+		succeedSingle(ns, name, stepPlan, summary.Summary{Kind: summary.KindPlan, Shards: 4, Units: 6, Series: 410,
+			DroppedMembers: []string{"ARIMA", "MSTLARIMA"}, HeldMembers: []string{"MSTLARIMA"}})
 		train := getJob(ns, name, stepTrain)
 		Expect(*train.Spec.Completions).To(Equal(int32(4)))
 		Expect(*train.Spec.CompletionMode).To(Equal(batchv1.IndexedCompletion))
@@ -221,6 +222,11 @@ var _ = Describe("ForecastRun life cycle", func() {
 		Expect(*train.Spec.Parallelism).To(Equal(int32(3)))
 		Eventually(phaseOf(ns, name)).Should(Equal(forecastingv1alpha1.PhaseTraining))
 		Eventually(func() int32 { return getPortfolio(ns, "fenwick-daily").Status.Backlog.Shards }).Should(BeEquivalentTo(4))
+		// The plan's cost verdict reaches the status and the Progressing message.
+		Expect(getRun(ns, name).Status.DroppedMembers).To(Equal([]string{"ARIMA", "MSTLARIMA"}))
+		Expect(getRun(ns, name).Status.HeldMembers).To(Equal([]string{"MSTLARIMA"}))
+		Expect(meta.FindStatusCondition(getRun(ns, name).Status.Conditions, forecastingv1alpha1.RunProgressing).Message).To(
+			Equal("training 4 shards (6 units); left out of the design for cost: ARIMA, MSTLARIMA"))
 
 		finishShards(train, []int{0, 1}, nil, shardSummary)
 		Eventually(func() string { return getRun(ns, name).Status.Shards.Folded }).Should(Equal("0-1"))

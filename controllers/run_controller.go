@@ -294,6 +294,7 @@ func (r *RunReconciler) plan(ctx context.Context, run *forecastingv1alpha1.Forec
 	if s.Reconcile {
 		st.Hierarchy = &forecastingv1alpha1.HierarchyStatus{ReconcileStep: true}
 	}
+	st.DroppedMembers, st.HeldMembers = s.DroppedMembers, s.HeldMembers
 	share, err := r.rebalance(ctx, run, int32(s.Shards), fp)
 	if err != nil {
 		return err
@@ -302,7 +303,7 @@ func (r *RunReconciler) plan(ctx context.Context, run *forecastingv1alpha1.Forec
 	if err := r.createStep(ctx, run, fp, stepTrain, jobParams{Shards: int32(s.Shards), Parallelism: share}); err != nil {
 		return err
 	}
-	r.progress(run, w, forecastingv1alpha1.ReasonTraining, fmt.Sprintf("training %d shards (%d units)", s.Shards, s.Units))
+	r.progress(run, w, forecastingv1alpha1.ReasonTraining, fmt.Sprintf("training %d shards (%d units)%s", s.Shards, s.Units, droppedText(s.DroppedMembers)))
 	r.Metrics.runProgress(run, st.Shards.Total, share)
 	return nil
 }
@@ -775,4 +776,13 @@ func joinLimited(lines []string, n int) string {
 		s = s[:n-3] + "..."
 	}
 	return s
+}
+
+// droppedText is the progress message's note of the members the plan's automatic design left
+// out for cost (status.droppedMembers), "" when none.
+func droppedText(members []string) string {
+	if len(members) == 0 {
+		return ""
+	}
+	return "; left out of the design for cost: " + strings.Join(members, ", ")
 }

@@ -599,7 +599,8 @@ type SelectionSpec struct {
 	// value suits every machine and series length. The members are timed interleaved, so that
 	// the node's load falls on all alike, and a member whose cost lies within 20% of the
 	// budget keeps the previous run's verdict, so that timing noise does not move it in and
-	// out of the zoo from run to run (plan.json's design.heldMembers names it). Default 500.
+	// out of the zoo from run to run. The run's status.droppedMembers and status.heldMembers
+	// name them; its plan.json (design) and report give each member's cost. Default 500.
 	// +optional
 	// +kubebuilder:default=500
 	// +kubebuilder:validation:Minimum=100

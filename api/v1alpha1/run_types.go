@@ -177,6 +177,22 @@ type ForecastRunStatus struct {
 	// +listMapKey=design
 	Designs []DesignCount `json:"designs,omitempty"`
 
+	// droppedMembers names the model families the plan's automatic design (spec.selection.design
+	// Auto) left out of every design for cost: on the plan's pilot they took more CPU time per
+	// series than the budget, spec.selection.designCostPercent of the cost of the first design
+	// weighed (for example the mean of ETS, Theta and DOTM). Empty when none was left out or the
+	// design is declared. The run's report and plan.json give each member's measured cost.
+	// +optional
+	// +listType=atomic
+	DroppedMembers []string `json:"droppedMembers,omitempty"`
+
+	// heldMembers names the members whose cost lay within 20% of that budget and which this run
+	// therefore kept in, or left out, as the previous run's plan had them, so that a member
+	// near the budget does not come and go from run to run.
+	// +optional
+	// +listType=atomic
+	HeldMembers []string `json:"heldMembers,omitempty"`
+
 	// accuracy compares the previous run's promised and realized accuracy on this run's new actuals.
 	// +optional
 	Accuracy *AccuracyStatus `json:"accuracy,omitempty"`

@@ -670,6 +670,16 @@ func (in *ForecastRunStatus) DeepCopyInto(out *ForecastRunStatus) {
 		*out = make([]DesignCount, len(*in))
 		copy(*out, *in)
 	}
+	if in.DroppedMembers != nil {
+		in, out := &in.DroppedMembers, &out.DroppedMembers
+		*out = make([]string, len(*in))
+		copy(*out, *in)
+	}
+	if in.HeldMembers != nil {
+		in, out := &in.HeldMembers, &out.HeldMembers
+		*out = make([]string, len(*in))
+		copy(*out, *in)
+	}
 	if in.Accuracy != nil {
 		in, out := &in.Accuracy, &out.Accuracy
 		*out = new(AccuracyStatus)

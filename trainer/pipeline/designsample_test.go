@@ -20,6 +20,7 @@ import (
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/series"
 	"almanac.dev/almanac/trainer/store"
+	"almanac.dev/almanac/trainer/summary"
 )
 
 // The plan's streaming sample keeps exactly the keys design.Sample draws from the whole set
@@ -260,33 +261,41 @@ func TestPlanTakesThePreviousCostVerdict(t *testing.T) {
 	if err := out.Put(ctx, store.RunKey(cfg.Run, store.PlanName), b); err != nil {
 		t.Fatal(err)
 	}
-	plan := func() (*Plan, string) {
+	plan := func() (*Plan, string, summary.Summary) {
 		t.Helper()
 		env := testEnv()
 		var log bytes.Buffer
 		env.Log = &log
-		if _, err := RunPlan(ctx, &next, env); err != nil {
+		sum, err := RunPlan(ctx, &next, env)
+		if err != nil {
 			t.Fatalf("second plan: %v", err)
 		}
 		p, err := ReadPlan(ctx, out, next.Run)
 		if err != nil {
 			t.Fatal(err)
 		}
-		return p, log.String()
+		return p, log.String(), sum
 	}
-	p, log := plan()
+	p, log, sum := plan()
 	if !slices.Equal(p.Design.HeldMembers, []string{models.FamilyNaive}) || len(p.Design.DroppedMembers) != 0 ||
 		!strings.Contains(log, "; kept the previous run's verdict: "+models.FamilyNaive+" (member costs") {
 		t.Errorf("previous run kept Naive: held %v, dropped %v (costs %v, budget %v); log:\n%s",
 			p.Design.HeldMembers, p.Design.DroppedMembers, p.Design.MemberCostMillis, p.Design.BudgetMillis, log)
 	}
+	// The summary carries the verdict to the controller (the run's status).
+	if !slices.Equal(sum.HeldMembers, p.Design.HeldMembers) || len(sum.DroppedMembers) != 0 {
+		t.Errorf("summary: held %v, dropped %v; want the plan's %v and none", sum.HeldMembers, sum.DroppedMembers, p.Design.HeldMembers)
+	}
 	// A damaged plan of the previous run: no verdict, the plain rule, and the plan goes on.
 	if err := os.WriteFile(filepath.Join(dir, "out", "runs", cfg.Run, "plan.json"), []byte("{"), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	p, log = plan()
+	p, log, sum = plan()
 	if want := "plan: the previous run " + cfg.Run + "'s plan cannot be read, so its cost verdict is not kept"; !strings.Contains(log, want) ||
 		len(p.Design.HeldMembers) != 0 || !slices.Equal(p.Design.DroppedMembers, []string{models.FamilyNaive}) {
 		t.Errorf("previous plan damaged: held %v, dropped %v; log:\n%s", p.Design.HeldMembers, p.Design.DroppedMembers, log)
+	}
+	if !slices.Equal(sum.DroppedMembers, []string{models.FamilyNaive}) || len(sum.HeldMembers) != 0 {
+		t.Errorf("summary: dropped %v, held %v; want Naive and none", sum.DroppedMembers, sum.HeldMembers)
 	}
 }

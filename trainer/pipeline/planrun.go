@@ -52,6 +52,9 @@ func RunPlan(ctx context.Context, cfg *runconfig.Config, env Env) (summary.Summa
 	}
 	sum.Units, sum.Shards, sum.Series, sum.Reconcile = len(p.Units), len(p.Shards), p.Series, p.Reconcile
 	sum.Broken = brokenText(p.brokenAtPlan())
+	if p.Design != nil {
+		sum.DroppedMembers, sum.HeldMembers = p.Design.DroppedMembers, p.Design.HeldMembers
+	}
 	cb, err := runconfig.Encode(cfg)
 	if err != nil {
 		return sum, err

@@ -41,6 +41,9 @@ type Overview struct {
 	// Designs counts series by segment and the design that forecast them (the models table's
 	// design and segment columns), by segment then design; nil for tables without them.
 	Designs []DesignRow
+	// Cost says which models the plan's design left out for cost (CostWords; "" without a
+	// timed plan).
+	Cost string
 	// Evaluated, Drifted and the means summarize the evaluation of the previous run's forecasts.
 	Evaluated, Drifted, EvaluatedPoints int
 	ExpectedMean, RealizedMean          float64
@@ -88,6 +91,7 @@ func overview(r *Run) Overview {
 	o.Models = sortCounts(byModel)
 	o.Designs = designRows(r.Models)
 	withPlanScores(o.Designs, r.Design)
+	o.Cost = CostWords(r.Design)
 	for _, c := range sortCounts(famSeries) {
 		fs := FamilyScore{Family: c.Name, Series: c.Count, Median: math.NaN()}
 		scores := byFamily[c.Name]

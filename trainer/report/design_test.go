@@ -86,6 +86,39 @@ func TestReportShowsThePlanScores(t *testing.T) {
 		}
 	}
 	t.Logf("design rows %v", rows)
+	// Below the table, the plan's cost verdict as plan.json records it (every member timed).
+	if len(rec.MemberCostMillis) != len(cfg.Models) {
+		t.Fatalf("plan.json timed %v; want all %d members", rec.MemberCostMillis, len(cfg.Models))
+	}
+	if got, want := text(byID(t, doc, "design-cost")), CostWords(rec); got != want || want == "" {
+		t.Errorf("cost paragraph %q; want %q", got, want)
+	}
+}
+
+// TestCostWords: the sentences below the design table, by hand from a record with one member
+// dropped and one held, with none dropped, and without a timed plan.
+func TestCostWords(t *testing.T) {
+	rec := &design.Record{BudgetMillis: 5.2391, DroppedMembers: []string{"ARIMA", "MSTLARIMA"}, HeldMembers: []string{"MSTLARIMA"},
+		MemberCostMillis: map[string]float64{"ETS": 0.71, "ARIMA": 41.37, "MSTLARIMA": 5.82}}
+	want := "Left out of every way for cost: ARIMA (41.4 ms) and MSTLARIMA (5.82 ms). The plan timed each model on a few series; " +
+		"these took more than the budget of 5.24 ms of CPU per series (spec.selection.designCostPercent of the simplest way's cost). " +
+		"The cost of MSTLARIMA lay within 20% of the budget, so the previous run's verdict stands (left out or kept as in that run): " +
+		"timing noise does not move a model in and out from run to run."
+	if got := CostWords(rec); got != want {
+		t.Errorf("dropped and held:\n got %q\nwant %q", got, want)
+	}
+	rec.DroppedMembers, rec.HeldMembers = nil, nil
+	want = "No model was left out for cost: each took less than the budget of 5.24 ms of CPU per series " +
+		"(spec.selection.designCostPercent of the simplest way's cost) when the plan timed it on a few series."
+	if got := CostWords(rec); got != want {
+		t.Errorf("none dropped:\n got %q\nwant %q", got, want)
+	}
+	if got := CostWords(&design.Record{BudgetMillis: 5}); got != "" {
+		t.Errorf("no member timed: %q; want nothing", got)
+	}
+	if got := CostWords(nil); got != "" {
+		t.Errorf("no record: %q; want nothing", got)
+	}
 }
 
 // TestWithPlanScores: a row the plan chose gets its design's and the simplest candidate's

@@ -277,3 +277,29 @@ func ChoiceWords(designName, segment, metric string, combined bool) string {
 	}
 	return fmt.Sprintf("the same models for every series of its group (%s): the way (%s) chosen for the group on the latest periods of its series' histories", segment, designName)
 }
+
+// CostWords says which models the plan's automatic design left out for cost and why, below the
+// design table ("" when the plan timed no member: a declared design, or nothing to choose
+// between). rec is plan.json's design record; costs are CPU milliseconds per series on the
+// plan's pilot (design.Record.MemberCostMillis), the budget BudgetMillis.
+func CostWords(rec *design.Record) string {
+	if rec == nil || len(rec.MemberCostMillis) == 0 {
+		return ""
+	}
+	var b strings.Builder
+	budget := fmt.Sprintf("%.3g ms of CPU per series", rec.BudgetMillis)
+	if len(rec.DroppedMembers) == 0 {
+		fmt.Fprintf(&b, "No model was left out for cost: each took less than the budget of %s (spec.selection.designCostPercent of the simplest way's cost) when the plan timed it on a few series.", budget)
+	} else {
+		dropped := make([]string, len(rec.DroppedMembers))
+		for i, m := range rec.DroppedMembers {
+			dropped[i] = fmt.Sprintf("%s (%.3g ms)", m, rec.MemberCostMillis[m])
+		}
+		fmt.Fprintf(&b, "Left out of every way for cost: %s. The plan timed each model on a few series; these took more than the budget of %s (spec.selection.designCostPercent of the simplest way's cost).", andList(dropped), budget)
+	}
+	if len(rec.HeldMembers) > 0 {
+		fmt.Fprintf(&b, " The cost of %s lay within %.0f%% of the budget, so the previous run's verdict stands (left out or kept as in that run): timing noise does not move a model in and out from run to run.",
+			andList(rec.HeldMembers), 100*design.CostMargin)
+	}
+	return b.String()
+}

@@ -35,6 +35,11 @@ type Summary struct {
 	// Reconcile (plan) is true when the run has hierarchy nodes that span shards: the
 	// controller then runs the reconcile step after train and before publish.
 	Reconcile bool `json:"reconcile,omitempty"`
+	// DroppedMembers and HeldMembers (plan, selection.design Auto) are the zoo members the
+	// design left out for cost and those that kept the previous run's cost verdict
+	// (design.Record's fields of the same names; a zoo's worth of short names at most).
+	DroppedMembers []string `json:"droppedMembers,omitempty"`
+	HeldMembers    []string `json:"heldMembers,omitempty"`
 
 	// Train: which shard, and its counts.
 	Shard    int `json:"shard,omitempty"`
