@@ -104,6 +104,11 @@ test-fuzz: ## Run every fuzz target briefly.
 test-crash: s3server ## The long crash proofs: 60 SIGKILLs per store (file://, S3 test server) over plan, train, publish and republish, and every crash point (test/crash; about 6.5 minutes on 2 cores).
 	ALMANAC_S3_SERVER=$(CURDIR)/bin/s3server ALMANAC_CRASH_KILLS=60 go test -count=1 -timeout 60m -v -run 'TestKillAndRerun|TestCrashPoints' ./test/crash/
 
+.PHONY: test-race
+test-race: controlplane ## The race detector over the trainer (-short) and the controllers' envtest suite (about 12 minutes on 2 cores; not in make test).
+	go test -race -short -count=1 -timeout 30m ./trainer/...
+	go test -race -count=1 -timeout 30m ./controllers/...
+
 .PHONY: test-e2e
 test-e2e: ## End-to-end tests with the real Job controller; under make test (or with ALMANAC_IMAGES set) the trainer binary comes from the image archive make images wrote.
 	@if [ -d test/e2e ]; then ALMANAC_IMAGES=$(ALMANAC_IMAGES) go test -count=1 -timeout 30m ./test/e2e/...; else echo "test/e2e: not present yet"; fi
