@@ -95,18 +95,7 @@ func TestLoadErrors(t *testing.T) {
 // so --reference-r must score them alike on the same series; R's ets must come back for every
 // series with a CPU time above zero. Skipped without Rscript + forecast or the M3 data.
 func TestReferenceRThetaMatches(t *testing.T) {
-	if testing.Short() {
-		t.Skip("runs R")
-	}
-	d := m3Dir(t)
-	if !HaveR(context.Background()) {
-		t.Skip("Rscript with the forecast package not installed")
-	}
-	all, err := Load(d, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
-	entries := sample(all, 300, 0) // 11 series over all categories
+	entries := m3SampleForR(t)
 	refs, err := ReferenceR(context.Background(), entries, nil, io.Discard)
 	if err != nil {
 		t.Fatal(err)
@@ -191,4 +180,22 @@ func TestParseModeTakesTheAPISpelling(t *testing.T) {
 	if m := parseMode("Best"); m.Valid() {
 		t.Errorf("parseMode(%q) = %q is valid, want refused", "Best", m)
 	}
+}
+
+// m3SampleForR returns every 300th M3 series (11 over all categories) for the tests that run
+// R, skipping under -short, without the M3 data, or without R's forecast package.
+func m3SampleForR(t *testing.T) []Entry {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("runs R")
+	}
+	d := m3Dir(t)
+	if !HaveR(context.Background()) {
+		t.Skip("Rscript with the forecast package not installed")
+	}
+	all, err := Load(d, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return sample(all, 300, 0)
 }

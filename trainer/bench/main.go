@@ -250,9 +250,16 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	if len(levels) > 0 {
 		writeCalibration(stdout, Calibration(entries, results, levels))
 	}
+	// With a central pair among the quantiles (2.5 and 97.5: M4's 95% interval), MSIS and
+	// coverage of ours and, with --reference-r, of R's intervals at the same level.
+	intervals := []*IntervalReport{OursIntervals(rep.Method, entries, results, levels)}
 	var refs []*Report
 	if *refR {
-		refs, err = ReferenceR(ctx, entries, rMethods, stdout)
+		level := 0.0
+		if intervals[0] != nil {
+			level = 100 * (1 - intervals[0].Alpha)
+		}
+		refs, err = ReferenceRIntervals(ctx, entries, rMethods, level, stdout)
 		if err != nil && !errors.Is(err, ErrNoR) {
 			fmt.Fprintf(stderr, "bench: reference-r: %v\n", err)
 			return 1
@@ -260,6 +267,16 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		if len(refs) > 0 {
 			writeSideBySide(stdout, rep, refs, naive2)
 		}
+	}
+	if intervals[0] != nil {
+		for _, r := range refs {
+			if ri := refIntervals(r, entries, intervals[0].Alpha); ri != nil {
+				intervals = append(intervals, ri)
+			}
+		}
+		writeIntervals(stdout, intervals)
+	} else {
+		intervals = nil
 	}
 	if *asJSON {
 		doc := map[string]any{"ours": jsonReport(rep), "naive2": jsonReport(naive2)}
@@ -271,6 +288,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		}
 		if refs != nil {
 			doc["referenceR"] = jsonReports(refs)
+		}
+		if intervals != nil {
+			doc["intervals"] = jsonIntervals(intervals)
 		}
 		b, err := json.Marshal(doc)
 		if err != nil {

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -37,7 +38,10 @@ var RMethodsAll = []string{"ets", "thetaf", "auto.arima", "snaive", "naive2"}
 // out. Method "none"
 // only loads the package and reads the input, so its CPU time is R's start-up cost. It writes
 // series,step,value lines, and the number of failed fits (forecast by the last value) on
-// stderr as "failed=N".
+// stderr as "failed=N". With a level above 0 (its fourth argument, percent) the lines are
+// series,step,value,lower,upper: the method's central prediction interval at that level
+// (forecast's level argument; NA for naive2, which has none, and for a failed fit); the seed
+// is fixed for the intervals forecast.ets simulates.
 var rScript = `
 suppressPackageStartupMessages(library(forecast))
 args <- commandArgs(trailingOnly = TRUE)
@@ -45,21 +49,30 @@ m <- args[1]
 inp <- readLines(args[2])
 fc <- file(args[3], "w")
 failed <- 0
+lev <- if (length(args) >= 4) as.numeric(args[4]) else 0
+set.seed(20261205)
 ` + rNaive2 + `
 for (line in inp) {
   f <- strsplit(line, ",")[[1]]
   id <- f[1]; fr <- as.integer(f[2]); h <- as.integer(f[3])
   x <- ts(as.numeric(strsplit(f[4], " ")[[1]]), frequency = fr)
   if (m == "none") next
+  L <- if (lev > 0) lev else 80
   y <- tryCatch(switch(m,
-                  ets = forecast(ets(x), h = h)$mean,
-                  thetaf = thetaf(x, h = h)$mean,
-                  auto.arima = forecast(auto.arima(x), h = h)$mean,
-                  snaive = snaive(x, h = h)$mean,
-                  naive2 = naive2(x, h),
+                  ets = forecast(ets(x), h = h, level = L),
+                  thetaf = thetaf(x, h = h, level = L),
+                  auto.arima = forecast(auto.arima(x), h = h, level = L),
+                  snaive = snaive(x, h = h, level = L),
+                  naive2 = list(mean = naive2(x, h)),
                   stop("unknown method ", m)),
-                error = function(e) { failed <<- failed + 1; rep(x[length(x)], h) })
-  writeLines(paste(id, seq_len(h), format(as.numeric(y), digits = 17), sep = ","), fc)
+                error = function(e) { failed <<- failed + 1; list(mean = rep(x[length(x)], h)) })
+  v <- format(as.numeric(y$mean), digits = 17)
+  if (lev > 0) {
+    lo <- if (is.null(y$lower)) rep(NA, h) else as.numeric(y$lower[, 1])
+    hi <- if (is.null(y$upper)) rep(NA, h) else as.numeric(y$upper[, 1])
+    v <- paste(v, format(lo, digits = 17), format(hi, digits = 17), sep = ",")
+  }
+  writeLines(paste(id, seq_len(h), v, sep = ","), fc)
 }
 close(fc)
 cat(sprintf("failed=%d\n", failed), file = stderr())
@@ -96,6 +109,13 @@ func HaveR(ctx context.Context) bool {
 // note to w, when it is not above the start-up's (the variation of that subtraction). It writes
 // a note to w and returns ErrNoR when R is not available.
 func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Writer) ([]*Report, error) {
+	return ReferenceRIntervals(ctx, entries, methods, 0, w)
+}
+
+// ReferenceRIntervals is ReferenceR that also asks each method for its central prediction
+// interval at level percent (0: none) and keeps the bounds in the reports' Lower and Upper
+// (nil for a method that gives none, naive2), for MSIS against ours on the same series.
+func ReferenceRIntervals(ctx context.Context, entries []Entry, methods []string, level float64, w io.Writer) ([]*Report, error) {
 	if methods == nil {
 		methods = RMethods
 	}
@@ -125,7 +145,7 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 	}
 	run := func(method string) (time.Duration, int, string, error) {
 		out := filepath.Join(tmp, method+".csv")
-		cmd := exec.CommandContext(ctx, "Rscript", "--vanilla", script, method, in, out)
+		cmd := exec.CommandContext(ctx, "Rscript", "--vanilla", script, method, in, out, strconv.FormatFloat(level, 'g', -1, 64))
 		cmd.Env = append(os.Environ(), "OMP_NUM_THREADS=1", "OPENBLAS_NUM_THREADS=1")
 		// Own process group, killed whole when ctx ends (Rscript may run R as a child).
 		cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
@@ -163,7 +183,7 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		if err != nil {
 			return nil, err
 		}
-		fcs, err := readRForecasts(path, byID, len(entries))
+		fcs, lower, upper, err := readRForecasts(path, byID, len(entries))
 		if err != nil {
 			return nil, err
 		}
@@ -176,6 +196,9 @@ func ReferenceR(ctx context.Context, entries []Entry, methods []string, w io.Wri
 		}
 		r.All.Failed = failed
 		r.Forecasts = fcs
+		if level > 0 && method != "naive2" {
+			r.Lower, r.Upper = lower, upper
+		}
 		if cpu <= base {
 			// A method cheaper than the start-up's run-to-run variation (a few series, a
 			// naive forecast) would read negative; it reads 0 and its CPU ratio is not given.
@@ -215,26 +238,48 @@ func seasonsAtOne(entries []Entry) []string {
 	return out
 }
 
-// readRForecasts reads series,step,value lines into one path per entry.
-func readRForecasts(path string, byID map[string]int, n int) ([][]float64, error) {
+// readRForecasts reads series,step,value lines into one path per entry, or
+// series,step,value,lower,upper lines into the paths and the interval's bounds (NA reads NaN:
+// no interval); every line of a file has the same fields.
+func readRForecasts(path string, byID map[string]int, n int) (mean, lower, upper [][]float64, err error) {
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, err
+		return nil, nil, nil, err
 	}
 	defer f.Close()
-	out := make([][]float64, n)
+	mean = make([][]float64, n)
 	sc := bufio.NewScanner(f)
+	fields := 0
 	for line := 1; sc.Scan(); line++ {
 		p := strings.Split(sc.Text(), ",")
-		if len(p) != 3 {
-			return nil, fmt.Errorf("%s:%d: %d fields, want 3", path, line, len(p))
+		if fields == 0 && (len(p) == 3 || len(p) == 5) {
+			fields = len(p)
+			if fields == 5 {
+				lower, upper = make([][]float64, n), make([][]float64, n)
+			}
 		}
+		if len(p) != fields {
+			return nil, nil, nil, fmt.Errorf("%s:%d: %d fields, want 3 (series,step,value) or 5 (and lower,upper) on every line", path, line, len(p))
+		}
+		var v [3]float64
 		i, ok := byID[p[0]]
-		v, err := strconv.ParseFloat(strings.TrimSpace(p[2]), 64)
-		if !ok || err != nil {
-			return nil, fmt.Errorf("%s:%d: bad series or value %q", path, line, sc.Text())
+		for k := 2; k < fields; k++ {
+			s := strings.TrimSpace(p[k])
+			if k > 2 && s == "NA" {
+				v[k-2] = math.NaN()
+				continue
+			}
+			if v[k-2], err = strconv.ParseFloat(s, 64); err != nil {
+				ok = false
+			}
 		}
-		out[i] = append(out[i], v)
+		if !ok {
+			return nil, nil, nil, fmt.Errorf("%s:%d: bad series or value %q", path, line, sc.Text())
+		}
+		mean[i] = append(mean[i], v[0])
+		if fields == 5 {
+			lower[i], upper[i] = append(lower[i], v[1]), append(upper[i], v[2])
+		}
 	}
-	return out, sc.Err()
+	return mean, lower, upper, sc.Err()
 }

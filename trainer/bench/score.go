@@ -60,6 +60,9 @@ type Report struct {
 	// Forecasts holds each entry's forecast, in entry order, for the reports of R references
 	// (ReferenceR); nil otherwise.
 	Forecasts [][]float64
+	// Lower and Upper hold each entry's central prediction interval for the reports of R
+	// references asked for one (ReferenceRIntervals); nil otherwise.
+	Lower, Upper [][]float64
 	// Scores holds every scored series' sMAPE and MASE, in the order they were added (for
 	// OWAInterval).
 	Scores []SeriesScore

@@ -94,19 +94,7 @@ func TestKeepLast(t *testing.T) {
 // the competition's own test data) and when negative; with a Naive member on the long layout
 // the run reports the series it kept and the test it scored.
 func TestMainReshapingFlags(t *testing.T) {
-	dir := t.TempDir()
-	var train, test strings.Builder
-	train.WriteString("series,date,value\n")
-	test.WriteString("series,date,value\n")
-	t0 := time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
-	for i := range 60 {
-		fmt.Fprintf(&train, "A,%s,%d\n", t0.AddDate(0, 0, 7*i).Format(time.RFC3339), i+1)
-	}
-	for i := range 4 {
-		fmt.Fprintf(&test, "A,%s,%d\n", t0.AddDate(0, 0, 7*(60+i)).Format(time.RFC3339), 1000)
-	}
-	writeFile(t, dir, "train.csv", train.String())
-	writeFile(t, dir, "test.csv", test.String())
+	dir := lineAndJump(t)
 	for _, args := range [][]string{{"--keep-last", "-1"}, {"--origin-back", "-1"}, {"--score-published", "--origin-back", "1"}, {"--score-published", "--keep-last", "2"}} {
 		var out, errb bytes.Buffer
 		if code := Main(append([]string{"--data", dir, "--frequency", "weekly"}, args...), &out, &errb); code != 2 {
@@ -188,4 +176,24 @@ func sMAPEOneBack() float64 {
 		want += 200 * float64(k) / float64(56+k+56) / 4
 	}
 	return want
+}
+
+// lineAndJump writes one weekly series in the long layout into a new directory: 60 training
+// weeks 1, 2, ..., 60 from 2026-01-05 and 4 test weeks of 1000.
+func lineAndJump(t *testing.T) string {
+	t.Helper()
+	dir := t.TempDir()
+	var train, test strings.Builder
+	train.WriteString("series,date,value\n")
+	test.WriteString("series,date,value\n")
+	t0 := time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
+	for i := range 60 {
+		fmt.Fprintf(&train, "A,%s,%d\n", t0.AddDate(0, 0, 7*i).Format(time.RFC3339), i+1)
+	}
+	for i := range 4 {
+		fmt.Fprintf(&test, "A,%s,%d\n", t0.AddDate(0, 0, 7*(60+i)).Format(time.RFC3339), 1000)
+	}
+	writeFile(t, dir, "train.csv", train.String())
+	writeFile(t, dir, "test.csv", test.String())
+	return dir
 }
