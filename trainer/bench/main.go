@@ -88,7 +88,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	marginPercent := fs.Int("combine-margin-percent", 0, "as a portfolio's spec.selection.combine.marginPercent: choose the combination unless the best member beats it by more than this percent of the best member's score")
 	mode := fs.String("design", "Auto", `as spec.selection.design, any case: "Auto": what a portfolio's default spec.selection.design Auto runs (design.Forecast: one design per segment, chosen on an inner holdout of training data from candidates built from --zoo); "PerSeries": each series' best --zoo member by backtest; "Fixed": exactly the zoo and combination the flags give`)
 	metric := fs.String("metric", string(selection.DefaultMetric), "selection metric")
-	quantiles := fs.String("quantiles", "", `also publish these quantiles (percents, "10,50,90") and measure their calibration on the test data against the nominal levels and each series' backtest promise`)
+	quantiles := fs.String("quantiles", "", `also publish these quantiles (percents, "10,50,90") and measure their calibration on the test data against the nominal levels and each series' backtest promise; with a symmetric pair (2.5,97.5: M4's 95% interval) also the central interval's MSIS and coverage, and with --reference-r R's interval at the same level`)
 	if code, ok := cli.Parse(fs, "usage: almanac-trainer bench (--data DIR | --m3) [flags]\nScores the model zoo on a dataset in the M3 or the long layout.", args, stdout, stderr); !ok {
 		return code
 	}
