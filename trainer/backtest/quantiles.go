@@ -42,15 +42,23 @@ func QuantilesOnBacktest(y []float64, m int, origins []int, errs [][]float64, le
 	if len(origins) != len(errs) {
 		return QuantileRecord{Below: make([]int, len(levels)), PinballSum: make([]float64, len(levels))}, false
 	}
+	sn, scales := BandScales(y, m, origins)
+	return QuantilesOnScales(sn, scales, errs, levels, mean, q)
+}
+
+// BandScales are the scales QuantilesOnBacktest takes a band and its backtest errors in: sn =
+// NaiveScale(y, ScaleLag(len(y), m), 1) for the whole series and scales[i] the same of y up to
+// origins[i] (NaN for an origin past the end).
+func BandScales(y []float64, m int, origins []int) (sn float64, scales []float64) {
 	m = ScaleLag(len(y), m)
-	scales := make([]float64, len(origins))
+	scales = make([]float64, len(origins))
 	for i, t := range origins {
 		scales[i] = math.NaN()
 		if t <= len(y) {
 			scales[i] = NaiveScale(y[:t], m, 1)
 		}
 	}
-	return QuantilesOnScales(NaiveScale(y, m, 1), scales, errs, levels, mean, q)
+	return NaiveScale(y, m, 1), scales
 }
 
 // QuantilesOnScales is QuantilesOnBacktest with the scales given: sn the whole series' and

@@ -6,6 +6,7 @@ import (
 	"io"
 	"math"
 	"sort"
+	"strings"
 
 	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
@@ -118,7 +119,19 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		if err != nil {
 			return nil, nil, err
 		}
+		// The bands are calibrated on the pooled backtest of the category's series, as a
+		// portfolio's train step pools a unit's (selection.CalibrateBands).
+		var pool []*selection.Result
+		for _, i := range idx {
+			if errs[i] == nil {
+				pool = append(pool, &results[i])
+			}
+		}
+		bandFactors := selection.CalibrateBands(pool, false)
 		if o.Log != nil {
+			if bandFactors != nil {
+				fmt.Fprintf(o.Log, "%s (h=%d): band factors by level %s (selection.CalibrateBands over %d series)\n", g.cat, g.h, factorsText(o.Levels, bandFactors), len(pool))
+			}
 			fmt.Fprintf(o.Log, "%s (h=%d): ", g.cat, g.h)
 			if dec != nil && out.Fallback == nil {
 				dec.Write(o.Log) // the decision, with its inner holdout and scores
@@ -158,4 +171,16 @@ func modeName(m design.Mode) string {
 		return string(design.Auto)
 	}
 	return string(m)
+}
+
+// factorsText prints band factors beside their levels: "0.025:1.53 0.975:1.98".
+func factorsText(levels, c []float64) string {
+	var b strings.Builder
+	for j, f := range c {
+		if j > 0 {
+			b.WriteByte(' ')
+		}
+		fmt.Fprintf(&b, "%g:%.3f", levels[j], f)
+	}
+	return b.String()
 }

@@ -412,6 +412,9 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	u *loaded, results []design.Result, errs []error) (UnitDone, error) {
 	format := tableFormat(cfg)
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
+	if h == nil {
+		calibrateUnitBands(results, errs, cfg.Source.NonNegative)
+	}
 	var uh unitHierarchy
 	if h != nil {
 		var err error
@@ -570,6 +573,20 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 		return done, storageErr(err)
 	}
 	return done, nil
+}
+
+// calibrateUnitBands scales the bands of the unit's forecast series by the factors their
+// pooled backtest asks for (selection.CalibrateBands; a unit of fewer than 30 such series
+// keeps its bands). Hierarchical runs keep the members' bands: their reconcile step builds
+// the aggregates' bands from the backtest errors and scores every level's itself.
+func calibrateUnitBands(results []design.Result, errs []error, nonNegative bool) {
+	var pool []*selection.Result
+	for i := range results {
+		if errs[i] == nil {
+			pool = append(pool, &results[i].Result)
+		}
+	}
+	selection.CalibrateBands(pool, nonNegative)
 }
 
 // backtestRecord is the models table's record of a forecast's quantiles on its own backtest

@@ -233,6 +233,9 @@ type Result struct {
 	// Backtest's record takes the bands in (backtest.QuantilesOnBacktest's s_n), kept with
 	// Promise so that reconciled bands can be scored the same way; 0 without Promise.
 	BandScale float64
+
+	// band keeps the backtest behind Backtest for CalibrateBands (errs nil without quantiles).
+	band bandBacktest
 }
 
 // FamilyCombination is Result.Family for a combination of members.

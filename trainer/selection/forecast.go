@@ -334,6 +334,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 		if better := cs < ranked[0].score; better || (cfg.CombineMargin > 0 && cs <= ranked[0].score*(1+cfg.CombineMargin)) {
 			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
 				res.Backtest = onBacktest(res, y, m, plan, ca)
+				withBand(&res, y, m, plan, ca)
 				errorBacktest(&res, top, y, m, cfg)
 				return res, nil
 			} else {
@@ -347,6 +348,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 			continue
 		}
 		res.Backtest = onBacktest(res, y, m, plan, c.a)
+		withBand(&res, y, m, plan, c.a)
 		errorBacktest(&res, []*candidate{c}, y, m, cfg)
 		return res, nil
 	}
