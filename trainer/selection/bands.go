@@ -18,17 +18,6 @@ type bandBacktest struct {
 	errs   [][]float64
 }
 
-// withBand records res's band backtest (plan's origins on y, season length m, errors a) for
-// CalibrateBands; nothing when res publishes no quantiles.
-func withBand(res *Result, y []float64, m int, plan backtest.Plan, a backtest.Assessment) {
-	res.band = bandBacktest{}
-	if len(res.Levels) == 0 || res.Quantiles == nil || len(a.Errors) != len(plan.Origins) {
-		return
-	}
-	sn, scales := backtest.BandScales(y, m, plan.Origins)
-	res.band = bandBacktest{scale: sn, scales: scales, errs: a.Errors}
-}
-
 // Pooled band calibration: the published band's offsets from the mean are too narrow or too
 // wide by about the same factor across similar series, and each series' rolling-origin
 // backtest shows by how much. Over a pool of results (a unit of a portfolio, a category of a
@@ -110,20 +99,9 @@ func BandFactors(pool []*Result) []float64 {
 		if !upper {
 			p = 1 - tau
 		}
-		c[j] = math.Min(math.Max(empiricalQuantile(ratios, p), 1/maxBandFactor), maxBandFactor)
+		c[j] = math.Min(math.Max(sampleQuantile(ratios, p), 1/maxBandFactor), maxBandFactor)
 	}
 	return c
-}
-
-// empiricalQuantile is the p-quantile of sorted xs by linear interpolation between order
-// statistics (Hyndman & Fan 1996, definition 7, R's default).
-func empiricalQuantile(xs []float64, p float64) float64 {
-	h := p * float64(len(xs)-1)
-	lo := int(math.Floor(h))
-	if lo >= len(xs)-1 {
-		return xs[len(xs)-1]
-	}
-	return xs[lo] + (h-float64(lo))*(xs[lo+1]-xs[lo])
 }
 
 // ScaleBands moves r's level-j quantiles to mean + c[j]·(q_j − mean) at every step, puts each

@@ -333,8 +333,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 		res.Scores[name] = cs
 		if better := cs < ranked[0].score; better || (cfg.CombineMargin > 0 && cs <= ranked[0].score*(1+cfg.CombineMargin)) {
 			if err := finishCombination(&res, name, top, ca, y, cfg); err == nil {
-				res.Backtest = onBacktest(res, y, m, plan, ca)
-				withBand(&res, y, m, plan, ca)
+				onBacktest(&res, y, m, plan, ca)
 				errorBacktest(&res, top, y, m, cfg)
 				return res, nil
 			} else {
@@ -347,8 +346,7 @@ func finishRanked(res Result, ranked, fit []*candidate, y []float64, m int, plan
 			note("%s: refit on the whole series failed: %v", c.spec.DisplayName(), err)
 			continue
 		}
-		res.Backtest = onBacktest(res, y, m, plan, c.a)
-		withBand(&res, y, m, plan, c.a)
+		onBacktest(&res, y, m, plan, c.a)
 		errorBacktest(&res, []*candidate{c}, y, m, cfg)
 		return res, nil
 	}
@@ -391,17 +389,19 @@ func errorBacktest(res *Result, members []*candidate, y []float64, m int, cfg Co
 }
 
 // onBacktest scores the published quantiles of res on the backtest a of its forecast (plan's
-// origins on y, season length m): see backtest.QuantilesOnBacktest. Empty when there is nothing
-// to score (Points 0).
-func onBacktest(res Result, y []float64, m int, plan backtest.Plan, a backtest.Assessment) backtest.QuantileRecord {
+// origins on y, season length m; see backtest.QuantilesOnBacktest) into res.Backtest, empty
+// when there is nothing to score (Points 0), and keeps that backtest in res.band for
+// CalibrateBands, which scores a scaled band on it again.
+func onBacktest(res *Result, y []float64, m int, plan backtest.Plan, a backtest.Assessment) {
+	res.Backtest, res.band = backtest.QuantileRecord{}, bandBacktest{}
 	if len(res.Levels) == 0 || res.Quantiles == nil || len(a.Errors) != len(plan.Origins) {
-		return backtest.QuantileRecord{}
+		return
 	}
-	rec, ok := backtest.QuantilesOnBacktest(y, m, plan.Origins, a.Errors, res.Levels, res.Mean, res.Quantiles)
-	if !ok {
-		return backtest.QuantileRecord{}
+	sn, scales := backtest.BandScales(y, m, plan.Origins)
+	res.band = bandBacktest{scale: sn, scales: scales, errs: a.Errors}
+	if rec, ok := backtest.QuantilesOnScales(sn, scales, a.Errors, res.Levels, res.Mean, res.Quantiles); ok {
+		res.Backtest = rec
 	}
-	return rec
 }
 
 // rankScore turns a metric value into a lower-is-better score.
