@@ -84,13 +84,7 @@ func (r *IntervalReport) add(e Entry, lower, upper []float64) {
 		r.Skipped++
 		return
 	}
-	t, seen := r.By[e.Category]
-	if !seen {
-		t = &IntervalTally{}
-		r.By[e.Category] = t
-		r.Categories = append(r.Categories, e.Category)
-	}
-	t.add(msis, covered, len(e.Test))
+	byCategory(r.By, &r.Categories, e.Category).add(msis, covered, len(e.Test))
 	r.All.add(msis, covered, len(e.Test))
 }
 

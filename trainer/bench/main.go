@@ -252,12 +252,12 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	}
 	// With a central pair among the quantiles (2.5 and 97.5: M4's 95% interval), MSIS and
 	// coverage of ours and, with --reference-r, of R's intervals at the same level.
-	intervals := []*IntervalReport{OursIntervals(rep.Method, entries, results, levels)}
+	ours := OursIntervals(rep.Method, entries, results, levels)
 	var refs []*Report
 	if *refR {
-		level := 0.0
-		if intervals[0] != nil {
-			level = 100 * (1 - intervals[0].Alpha)
+		level := 0.0 // no interval asked of R
+		if ours != nil {
+			level = 100 * (1 - ours.Alpha)
 		}
 		refs, err = ReferenceRIntervals(ctx, entries, rMethods, level, stdout)
 		if err != nil && !errors.Is(err, ErrNoR) {
@@ -268,15 +268,15 @@ func Main(args []string, stdout, stderr io.Writer) int {
 			writeSideBySide(stdout, rep, refs, naive2)
 		}
 	}
-	if intervals[0] != nil {
+	var intervals []*IntervalReport
+	if ours != nil {
+		intervals = append(intervals, ours)
 		for _, r := range refs {
-			if ri := refIntervals(r, entries, intervals[0].Alpha); ri != nil {
+			if ri := refIntervals(r, entries, ours.Alpha); ri != nil {
 				intervals = append(intervals, ri)
 			}
 		}
 		writeIntervals(stdout, intervals)
-	} else {
-		intervals = nil
 	}
 	if *asJSON {
 		doc := map[string]any{"ours": jsonReport(rep), "naive2": jsonReport(naive2)}

@@ -76,12 +76,16 @@ type SeriesScore struct {
 
 func newReport(method string) *Report { return &Report{Method: method, By: map[string]*Tally{}} }
 
-func (r *Report) tally(cat string) *Tally {
-	t, ok := r.By[cat]
+func (r *Report) tally(cat string) *Tally { return byCategory(r.By, &r.Categories, cat) }
+
+// byCategory returns by[cat], made when the category is first seen and then noted in order
+// (the reports' first-seen category order).
+func byCategory[T any](by map[string]*T, order *[]string, cat string) *T {
+	t, ok := by[cat]
 	if !ok {
-		t = &Tally{}
-		r.By[cat] = t
-		r.Categories = append(r.Categories, cat)
+		t = new(T)
+		by[cat] = t
+		*order = append(*order, cat)
 	}
 	return t
 }
