@@ -58,8 +58,9 @@ func RunConfig(fp *forecastingv1alpha1.ForecastPortfolio, run *forecastingv1alph
 			NonNegative:  *spec.Source.NonNegative,
 			Partitioning: string(spec.Source.Partitioning),
 		},
-		Output:  runconfig.Output{URI: spec.Output.URI, Format: string(spec.Output.Format)},
-		Horizon: int(spec.Horizon),
+		Output:        runconfig.Output{URI: spec.Output.URI, Format: string(spec.Output.Format)},
+		Horizon:       int(spec.Horizon),
+		QuantileWidth: string(spec.QuantileWidth),
 		Selection: runconfig.Selection{
 			Metric:            string(spec.Selection.Metric),
 			BacktestOrigins:   int(spec.Selection.BacktestOrigins),
@@ -137,6 +138,7 @@ func Missing(spec *forecastingv1alpha1.ForecastPortfolioSpec) []string {
 	check(spec.Source.Partitioning == "", "source.partitioning")
 	check(spec.Output.Format == "", "output.format")
 	check(spec.QuantilePercents == nil, "quantilePercents")
+	check(spec.QuantileWidth == "", "quantileWidth")
 	check(spec.Selection.Metric == "", "selection.metric")
 	check(spec.Selection.BacktestOrigins == 0, "selection.backtestOrigins")
 	check(spec.Selection.BacktestStep == 0, "selection.backtestStep")

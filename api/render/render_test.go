@@ -43,6 +43,7 @@ func TestRunConfig(t *testing.T) {
 		Output:           runconfig.Output{URI: "s3://fenwick-planning/forecasts/", Format: "parquet"},
 		Horizon:          12,
 		QuantilePercents: []int{5, 50, 95},
+		QuantileWidth:    "Backtest", // spec.quantileWidth left out: the API's default
 		Models: []runconfig.Model{
 			{Family: "Naive"},
 			{Family: "ETS", ETS: &runconfig.ETS{Trends: []string{"N", "Ad"}}},
@@ -153,6 +154,7 @@ func TestRunConfigResolves(t *testing.T) {
 	fp.Spec.Source.Frequency = forecastingv1alpha1.Daily
 	fp.Spec.Source.NonNegative = ptr.To(false)
 	fp.Spec.QuantilePercents = nil
+	fp.Spec.QuantileWidth = forecastingv1alpha1.QuantileWidthModel
 	fp.Spec.Selection = forecastingv1alpha1.SelectionSpec{Metric: forecastingv1alpha1.MetricRMSSE, BacktestRefit: forecastingv1alpha1.RefitEveryOrigin}
 	rendertest.Default(fp)
 	run := fenwickRun("r")
@@ -164,6 +166,7 @@ func TestRunConfigResolves(t *testing.T) {
 	checks := map[string]struct{ got, want any }{
 		"columns":        {got.Source.Columns, runconfig.Columns{Series: []string{"series"}, Date: "date", Value: "value"}},
 		"quantiles":      {got.QuantilePercents, []int{10, 50, 90}},
+		"quantile width": {got.QuantileWidth, runconfig.QuantileWidthModel},
 		"trigger":        {got.Trigger, "Manual"},
 		"scheduled time": {got.ScheduledTime, time.Time{}},
 		"week anchor":    {got.Source.WeekAnchor, ""}, // daily data has none

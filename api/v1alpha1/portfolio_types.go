@@ -144,6 +144,18 @@ const (
 	RefitEveryOrigin BacktestRefit = "EveryOrigin"
 )
 
+// QuantileWidth says how far the published quantiles lie from the mean: Backtest or Model.
+// +kubebuilder:validation:Enum=Backtest;Model
+type QuantileWidth string
+
+// The quantile width choices.
+const (
+	// QuantileWidthBacktest scales the chosen designs' quantiles by the unit's pooled backtest.
+	QuantileWidthBacktest QuantileWidth = "Backtest"
+	// QuantileWidthModel publishes the chosen designs' quantiles as they are.
+	QuantileWidthModel QuantileWidth = "Model"
+)
+
 // SelectionDesign says how a run decides its forecasting design: Auto, PerSeries or Fixed.
 // +kubebuilder:validation:Enum=Auto;PerSeries;Fixed
 type SelectionDesign string
@@ -252,6 +264,20 @@ type ForecastPortfolioSpec struct {
 	// +kubebuilder:validation:items:Maximum=99
 	// +kubebuilder:validation:XValidation:rule="self.all(i, self.exists_one(j, j == i)) && self.isSorted()",message="quantilePercents must be strictly increasing"
 	QuantilePercents []int32 `json:"quantilePercents,omitempty"`
+
+	// quantileWidth says how far the published quantiles lie from the mean. Each series first
+	// gets the quantiles of its chosen design: its members' predictive distributions, or their
+	// backtest errors for members without one. Backtest (default): then, in every trainer unit
+	// of at least 30 such series, each quantile level's distance from the mean is multiplied by
+	// one factor (0.33 to 3), the one that puts the level's share of the unit's pooled
+	// rolling-origin backtest errors at or below it (split-conformal calibration on the
+	// backtest; Lei et al. 2018, JASA 113), because the members' widths are too narrow or too
+	// wide by about the same factor across similar series. Model: the designs' quantiles as
+	// they are. A run with spec.hierarchy builds every node's quantiles from its reconciled
+	// backtest errors either way.
+	// +optional
+	// +kubebuilder:default=Backtest
+	QuantileWidth QuantileWidth `json:"quantileWidth,omitempty"`
 
 	// models is the zoo: every member is fitted to every series and backtested; the best per
 	// series (or a combination) is published. Listed from simplest to most complex: ties go to

@@ -62,7 +62,7 @@ func BenchmarkHierarchy(b *testing.B) {
 	cfg := &runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: "bench",
 		Source: runconfig.Source{URI: "mem://in/", Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true,
 			Partitioning: runconfig.PartitionHashBuckets, Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: "week_start", Value: "units"}},
-		Output: runconfig.Output{URI: "mem://out/", Format: "csv"}, Horizon: horizon, QuantilePercents: []int{10, 50, 90},
+		Output: runconfig.Output{URI: "mem://out/", Format: "csv"}, Horizon: horizon, QuantilePercents: []int{10, 50, 90}, QuantileWidth: runconfig.QuantileWidthBacktest,
 		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 2, BacktestRefit: runconfig.RefitOnce,
 			Design: runconfig.DesignFixed, DesignCostPercent: 500},

@@ -45,6 +45,7 @@ func testConfig(run, in, out string) *runconfig.Config {
 		Output:           runconfig.Output{URI: out, Format: "csv"},
 		Horizon:          7,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models:           []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 1, BacktestRefit: runconfig.RefitEveryOrigin,
 			Design: runconfig.DesignFixed, DesignCostPercent: 500},

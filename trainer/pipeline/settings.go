@@ -27,6 +27,9 @@ type Settings struct {
 	// DesignMode and DesignCostLimit are selection.design and designCostPercent / 100.
 	DesignMode      design.Mode
 	DesignCostLimit float64
+	// CalibrateBands is quantileWidth Backtest: the train step scales each unit's quantiles by
+	// its pooled backtest (selection.CalibrateBands).
+	CalibrateBands bool
 	// Drift is the per-series drift rule.
 	Drift DriftRule
 }
@@ -84,6 +87,11 @@ func settings(cfg *runconfig.Config) (Settings, error) {
 	for _, p := range cfg.QuantilePercents {
 		sc.Levels = append(sc.Levels, float64(p)/100)
 	}
+	calibrate, ok := QuantileWidths[cfg.QuantileWidth]
+	if !ok {
+		return s, fmt.Errorf("quantileWidth: %q is not one of %v", cfg.QuantileWidth, keys(QuantileWidths))
+	}
+	s.CalibrateBands = calibrate
 	mode, ok := DesignModes[cfg.Selection.Design]
 	if !ok {
 		return s, fmt.Errorf("selection.design: %q is not one of %v", cfg.Selection.Design, keys(DesignModes))
@@ -185,6 +193,8 @@ func modelSpec(m runconfig.Model) (models.Spec, error) {
 var (
 	// DesignModes maps spec.selection.design.
 	DesignModes = map[string]design.Mode{"Auto": design.Auto, "PerSeries": design.PerSeries, "Fixed": design.Fixed}
+	// QuantileWidths maps spec.quantileWidth to Settings.CalibrateBands.
+	QuantileWidths = map[string]bool{runconfig.QuantileWidthBacktest: true, runconfig.QuantileWidthModel: false}
 	// CombineMethods maps spec.selection.combine.method.
 	CombineMethods = map[string]string{"Mean": selection.CombineMean, "Median": selection.CombineMedian}
 	// CalendarFeatures maps spec.features.calendar.

@@ -139,6 +139,7 @@ func TestEveryAPIEnumValueIsKnown(t *testing.T) {
 	}{
 		{[]string{"selection", "combine", "method"}, CombineMethods},
 		{[]string{"selection", "design"}, stringKeys(DesignModes)},
+		{[]string{"quantileWidth"}, stringKeys(QuantileWidths)},
 		{[]string{"features", "calendar", "[]"}, CalendarFeatures},
 		{[]string{"features", "windowStatistics", "[]"}, WindowStatistics},
 		{[]string{"features", "selection", "filter"}, FeatureFilters},
@@ -212,6 +213,7 @@ func TestDefaultsAreTheCRDs(t *testing.T) {
 		{"selection.backtestOrigins", float64(st.Selection.Origins), num(crd("spec", "selection", "backtestOrigins"))},
 		{"selection.backtestStep", float64(st.Selection.Step), num(crd("spec", "selection", "backtestStep"))},
 		{"selection.design", st.DesignMode, DesignModes[crd("spec", "selection", "design").(string)]},
+		{"quantileWidth", st.CalibrateBands, QuantileWidths[crd("spec", "quantileWidth").(string)]},
 		{"selection.designCostPercent", st.DesignCostLimit, num(crd("spec", "selection", "designCostPercent")) / 100},
 		{"selection.backtestRefit", st.Selection.BacktestUpdate, crd("spec", "selection", "backtestRefit") == runconfig.RefitOnce},
 		{"engine DefaultOrigins", float64(selection.DefaultOrigins), num(crd("spec", "selection", "backtestOrigins"))},

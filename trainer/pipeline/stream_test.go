@@ -26,6 +26,7 @@ func weeklyConfig(dir string, o synth.Options, run, out, partitioning string) *r
 		Output:           runconfig.Output{URI: "file://" + dir + "/" + out, Format: runconfig.FormatParquet},
 		Horizon:          13,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive},
 			{Family: models.FamilyETS}, {Family: models.FamilyTheta}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce,

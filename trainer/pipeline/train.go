@@ -412,7 +412,7 @@ func writeUnit(ctx context.Context, out *store.Store, cfg *runconfig.Config, st 
 	u *loaded, results []design.Result, errs []error) (UnitDone, error) {
 	format := tableFormat(cfg)
 	done := UnitDone{Version: ManifestVersion, Run: cfg.Run, Unit: u.unit.ID}
-	if h == nil {
+	if h == nil && st.CalibrateBands {
 		calibrateUnitBands(results, errs, cfg.Source.NonNegative)
 	}
 	var uh unitHierarchy

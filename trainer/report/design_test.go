@@ -34,7 +34,7 @@ func TestReportShowsThePlanScores(t *testing.T) {
 	cfg := &runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: "flp-auto-1", Trigger: "Manual",
 		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: o.DateColumn(), Value: "units"}},
-		Output: runconfig.Output{URI: out, Format: "csv"}, Horizon: 8, QuantilePercents: []int{10, 90},
+		Output: runconfig.Output{URI: out, Format: "csv"}, Horizon: 8, QuantilePercents: []int{10, 90}, QuantileWidth: runconfig.QuantileWidthBacktest,
 		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta},
 			{Family: models.FamilyDOTM}, {Family: models.FamilyETS}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce,

@@ -38,6 +38,7 @@ func TestPromotionReportListsKeptFeatures(t *testing.T) {
 		Output:           runconfig.Output{URI: outURI, Format: "csv"},
 		Horizon:          8,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models:           []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyETS}, {Family: models.FamilyLasso}},
 		Features: &runconfig.Features{Covariates: []string{"promo_flag", "price"}, CovariateLags: []int{1}, Lags: []int{1},
 			Windows: []int{4}, WindowStatistics: []string{"Mean"},

@@ -137,7 +137,7 @@ func hierarchyReportRun(t *testing.T, dir string) (*runconfig.Config, pipeline.E
 	cfg := &runconfig.Config{APIVersion: runconfig.APIVersion, Kind: runconfig.Kind, Run: "flp-hier-1", Trigger: "Manual",
 		Source: runconfig.Source{URI: in, Format: "csv", Frequency: "Weekly", WeekAnchor: "Monday", NonNegative: true, Partitioning: runconfig.PartitionHashBuckets,
 			Columns: runconfig.Columns{Series: []string{"item", "depot"}, Date: o.DateColumn(), Value: "units"}},
-		Output: runconfig.Output{URI: out, Format: "csv"}, Horizon: 6, QuantilePercents: []int{10, 50, 90},
+		Output: runconfig.Output{URI: out, Format: "csv"}, Horizon: 6, QuantilePercents: []int{10, 50, 90}, QuantileWidth: runconfig.QuantileWidthBacktest,
 		Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilyTheta}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 1, BacktestRefit: runconfig.RefitOnce,
 			Design: runconfig.DesignFixed, DesignCostPercent: 500},

@@ -114,6 +114,7 @@ func testConfig(run, prev, sourceURI, outURI string) *runconfig.Config {
 		Output:           runconfig.Output{URI: outURI, Format: "csv"},
 		Horizon:          horizon,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models: []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
 			{Family: models.FamilyTheta}, {Family: models.FamilyETS}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 1, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},

@@ -46,6 +46,7 @@ func TestDemoScenario(t *testing.T) {
 			Output:           runconfig.Output{URI: outURI, Format: "csv"},
 			Horizon:          12,
 			QuantilePercents: []int{10, 25, 50, 75, 90},
+			QuantileWidth:    runconfig.QuantileWidthBacktest,
 			Models: []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyCroston},
 				{Family: models.FamilySBA}, {Family: models.FamilyTheta}, {Family: models.FamilyETS}},
 			Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 4, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},

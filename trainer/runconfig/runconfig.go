@@ -65,6 +65,9 @@ type Config struct {
 	Horizon int `json:"horizon"`
 	// QuantilePercents are the published quantiles as integer percents, strictly increasing in 1..99.
 	QuantilePercents []int `json:"quantilePercents"`
+	// QuantileWidth is QuantileWidthBacktest (the unit's pooled backtest scales the quantiles'
+	// distances from the mean) or QuantileWidthModel (the chosen designs' quantiles as they are).
+	QuantileWidth string `json:"quantileWidth"`
 	// Models is the zoo, simplest first (ties go to the earlier member).
 	Models []Model `json:"models"`
 	// Features declares what the regression members learn from (spec.features); nil leaves
@@ -311,6 +314,12 @@ const (
 	DesignFixed     = "Fixed"
 )
 
+// The values of Config.QuantileWidth.
+const (
+	QuantileWidthBacktest = "Backtest"
+	QuantileWidthModel    = "Model"
+)
+
 // Backtest refit choices for Selection.BacktestRefit.
 const (
 	RefitOnce        = "Once"
@@ -457,6 +466,8 @@ func (c *Config) Validate() error {
 		return fmt.Errorf("horizon: must be <= %d, got %d", MaxHorizon, c.Horizon)
 	case len(c.Models) == 0:
 		return fmt.Errorf("models: at least one model")
+	case c.QuantileWidth != QuantileWidthBacktest && c.QuantileWidth != QuantileWidthModel:
+		return fmt.Errorf("quantileWidth: %q is not %s or %s", c.QuantileWidth, QuantileWidthBacktest, QuantileWidthModel)
 	case c.Selection.Metric == "":
 		return fmt.Errorf("selection.metric: must be set")
 	case c.Selection.BacktestOrigins < 1:

@@ -38,6 +38,7 @@ func TestValidateRefusesNamingEveryField(t *testing.T) {
 	want := map[string]string{
 		"unknown-field.yaml":            "spec.quantilesPercent: Forbidden: unknown field",
 		"wrong-enum.yaml":               `spec.source.frequency: Unsupported value: "Fortnightly"`,
+		"quantile-width.yaml":           `quantile-width.yaml:23: ForecastPortfolio "fenwick-daily-width" spec.quantileWidth: Unsupported value: "Wide"`,
 		"bad-cron.yaml":                 `spec.schedule: Invalid value: "15 2 * *"`,
 		"non-increasing-quantiles.yaml": "spec.quantilePercents: Invalid value: quantilePercents must be strictly increasing",
 		"boosting-shrinkage.yaml":       `boosting-shrinkage.yaml:30: ForecastPortfolio "fenwick-daily-trees" spec.models[1].regression.boosting.shrinkage: Invalid value: "1.5": shrinkage must be greater than 0 and at most 1`,
