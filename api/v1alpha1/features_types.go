@@ -228,7 +228,10 @@ type RegressionSettings struct {
 
 	// pooled fits one model on all series of a shard together (each series' target scaled by
 	// its own level) instead of one per series, so short series borrow strength from the
-	// others; the member is still scored and chosen per series. Default false.
+	// others; the member is still scored and chosen per series. Without spec.features a pooled
+	// member on hourly data learns from lags 1-3, 23-25, 47, 48, 72, 96, 120, 144, 167-169 and
+	// 336 hours, Fourier terms of the daily and weekly cycles and their trailing means, every
+	// column kept (other frequencies: the usual defaults). Default false.
 	// +optional
 	Pooled *bool `json:"pooled,omitempty"`
 

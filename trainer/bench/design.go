@@ -10,6 +10,7 @@ import (
 
 	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
+	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/selection"
 	"almanac.dev/almanac/trainer/series"
 )
@@ -59,7 +60,16 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 	if err != nil {
 		return nil, nil, err
 	}
-	base := selection.Config{Zoo: zoo, Metric: o.Metric, Origins: o.Origins, Step: o.Step,
+	// Without named families each group runs its frequency's default zoo (selection.DefaultZoo:
+	// hourly data gains a pooled Ridge); the summary line names every member some group ran.
+	zooOf := func(f series.Frequency) []models.Spec {
+		if len(o.Families) > 0 {
+			return zoo
+		}
+		return selection.DefaultZoo(f)
+	}
+	described := zoo
+	base := selection.Config{Metric: o.Metric, Origins: o.Origins, Step: o.Step,
 		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin,
 		BacktestUpdate: o.BacktestUpdate, Levels: o.Levels}
 	type group struct {
@@ -92,6 +102,12 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		in := make([]series.Series, len(idx))
 		for j, i := range idx {
 			in[j] = entries[i].Series()
+		}
+		cfg.Zoo = zooOf(in[0].Freq)
+		for _, sp := range cfg.Zoo {
+			if selection.MemberIndex(described, sp.DisplayName()) < 0 {
+				described = append(described, sp)
+			}
 		}
 		do := design.Options{Mode: o.Mode, Base: cfg, Rule: o.Rule, CostLimit: o.CostLimit,
 			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations, InnerOrigins: o.InnerOrigins}
@@ -141,7 +157,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		}
 	}
 	cpu := cpuTime() - cpu0
-	rep := newReport(fmt.Sprintf("almanac design=%s %s designs=%v", modeName(o.Mode), describe(o, zoo), counts))
+	rep := newReport(fmt.Sprintf("almanac design=%s %s designs=%v", modeName(o.Mode), describe(o, described), counts))
 	for i, e := range entries {
 		f := results[i].Mean
 		t := rep.tally(e.Category)

@@ -62,7 +62,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	dataDir := fs.String("data", "", "directory in the M3 CSV layout (series.csv, train.csv, test.csv, published_forecasts.csv) or the long layout (train.csv, test.csv: series,date,value)")
 	freqFlag := fs.String("frequency", "", "frequency of every series of the long layout: "+strings.Join(FrequencyNames(), ", "))
 	m3 := fs.Bool("m3", false, "use $"+EnvM3Dir+", else ../shared/datasets/m3 relative to the repository root")
-	zooFlag := fs.String("zoo", "", "comma-separated families (default: every registered family except those taken only by name: Ridge, Lasso, GradientBoosting, the four-member combinations; selection.ByNameOnly)")
+	zooFlag := fs.String("zoo", "", "comma-separated families (default: selection.DefaultZoo, every registered family except those taken only by name: Ridge, Lasso, GradientBoosting, the four-member combinations (selection.ByNameOnly); for hourly data also a Ridge pooled across the series, PooledRidge)")
 	choice := fs.String("choice", string(design.OneSE), `with --design auto: "one-se" (the simplest design within one standard error of the lowest inner MASE), "lowest" or "relative-se" (one-se on each series' log ratio of inner MASE to the first candidate's)`)
 	costLimit := fs.Float64("cost-limit", design.DefaultCostLimit, "with --design auto: drop candidate designs costing more than this many times the simplest's CPU per series")
 	innerMax := fs.Int("inner-max", design.DefaultMaxSeries, "with --design auto: at most this many inner-holdout series per segment")

@@ -67,7 +67,8 @@ func init() {
 // units. Forecasts have no model distribution: selection fills quantiles from backtest errors.
 type regression struct {
 	family  string
-	cfg     *features.Config // nil: features.Defaults for the series' frequency
+	cfg     *features.Config // nil: features.Defaults (PooledDefaults when pooled) for the series' frequency
+	pooled  bool             // Spec.Regression.AcrossShard
 	penalty float64
 	boost   BoostingOptions // GradientBoosting's trees
 }
@@ -75,7 +76,7 @@ type regression struct {
 func newRegression(s Spec) (Model, error) {
 	r := &regression{family: s.Family, cfg: s.Features, boost: DefaultBoosting()}
 	if s.Regression != nil {
-		r.penalty = s.Regression.Penalty
+		r.penalty, r.pooled = s.Regression.Penalty, s.Regression.AcrossShard
 		if r.penalty < 0 || math.IsNaN(r.penalty) || math.IsInf(r.penalty, 0) {
 			return nil, fmt.Errorf("models: %s: regression.penalty must be >= 0, got %v", s.DisplayName(), r.penalty)
 		}
@@ -117,6 +118,9 @@ func (r *regression) MinLength(m int) int {
 func (r *regression) config(f series.Frequency) features.Config {
 	if r.cfg != nil {
 		return *r.cfg
+	}
+	if r.pooled {
+		return features.PooledDefaults(f)
 	}
 	return features.Defaults(f)
 }

@@ -150,6 +150,45 @@ func TestRegressionMinLength(t *testing.T) {
 	}
 }
 
+// A pooled member without declared features takes features.PooledDefaults (longest lag 336
+// hours for hourly data), a per-series one features.Defaults (longest reach the 168-hour
+// window); a declared set wins for both.
+func TestPooledMemberFeatures(t *testing.T) {
+	pooled, _ := New(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}})
+	single, _ := New(Spec{Family: FamilyRidge})
+	declared, _ := New(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}, Features: &features.Config{Lags: []int{1, 24}}})
+	for _, c := range []struct {
+		name string
+		mod  Model
+		want int
+	}{{"pooled", pooled, 336}, {"per series", single, 168}, {"declared", declared, 24}} {
+		if got := c.mod.MinLength(24); got != c.want+MinRegressionRows {
+			t.Errorf("%s: MinLength(24) = %d, want %d", c.name, got, c.want+MinRegressionRows)
+		}
+	}
+	rng := rand.New(rand.NewPCG(3, 9))
+	var ys [][]float64
+	var ins []Inputs
+	for k := range 4 {
+		y := make([]float64, 500)
+		for i := range y {
+			y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + 5*math.Sin(2*math.Pi*float64(i)/168) + rng.NormFloat64()
+		}
+		ys = append(ys, y)
+		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: 2})
+	}
+	sh, err := FitShared(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}}, 24, ys, ins, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	names := sh.Features()
+	for _, want := range []string{"lag47", "lag336"} {
+		if !slices.Contains(names, want) {
+			t.Errorf("pooled fit without declared features lacks %s: %v", want, names)
+		}
+	}
+}
+
 // Fit without Inputs keeps only target lags and rolling statistics (there is no calendar to
 // read): the weekly defaults' calendar and Fourier features are not generated.
 func TestRegressionFitWithoutInputs(t *testing.T) {

@@ -6,6 +6,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -18,6 +19,7 @@ import (
 	forecastingv1alpha1 "almanac.dev/almanac/api/v1alpha1"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/features"
 	"almanac.dev/almanac/trainer/models"
 	"almanac.dev/almanac/trainer/runconfig"
 	"almanac.dev/almanac/trainer/selection"
@@ -343,4 +345,35 @@ func minimalSettings(t *testing.T, name string, zoo ...forecastingv1alpha1.Model
 		t.Fatal(err)
 	}
 	return cfg, st
+}
+
+// TestPooledFeaturesAreDescribed: the description of spec.models[].regression.pooled lists the
+// lags a pooled member on hourly data takes without spec.features (features.PooledDefaults), so
+// what `kubectl explain` says is what the engine does. Runs of three or more lags read "a-b".
+func TestPooledFeaturesAreDescribed(t *testing.T) {
+	schema, err := rendertest.Schema()
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := schema.Properties["spec"].Properties["models"].Items.Properties["regression"].Properties["pooled"].Description
+	lags := features.PooledDefaults(series.Hourly).Lags
+	var parts []string
+	for i := 0; i < len(lags); {
+		j := i
+		for j+1 < len(lags) && lags[j+1] == lags[j]+1 {
+			j++
+		}
+		if j-i >= 2 {
+			parts = append(parts, fmt.Sprintf("%d-%d", lags[i], lags[j]))
+		} else {
+			for k := i; k <= j; k++ {
+				parts = append(parts, strconv.Itoa(lags[k]))
+			}
+		}
+		i = j + 1
+	}
+	want := strings.Join(parts[:len(parts)-1], ", ") + " and " + parts[len(parts)-1]
+	if !strings.Contains(strings.Join(strings.Fields(d), " "), want) {
+		t.Errorf("spec.models[].regression.pooled does not list the pooled hourly lags %q:\n%s", want, d)
+	}
 }
