@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"sort"
 	"strings"
 
@@ -68,7 +69,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 		}
 		return selection.DefaultZoo(f)
 	}
-	described := zoo
+	described := slices.Clone(zoo)
 	base := selection.Config{Metric: o.Metric, Origins: o.Origins, Step: o.Step,
 		CombineTop: o.CombineTop, CombineMethod: o.CombineMethod, CombineMargin: o.CombineMargin,
 		BacktestUpdate: o.BacktestUpdate, Levels: o.Levels}
