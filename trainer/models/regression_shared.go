@@ -30,7 +30,15 @@ type Shared struct {
 	ys     [][]float64 // scaled histories (nil for a series left out)
 	scales []float64
 	errs   []error // why a series was left out
+	// spread[i][k] is the RMS of series i's training residuals of the step-(k+1) model and
+	// shape[i] their standardized values (residual / spread) pooled over the steps, as sorted
+	// order statistics (at most shapePoints): the member's own error distribution (Quantiles).
+	spread [][]float64
+	shape  [][]float64
 }
+
+// shapePoints caps the order statistics kept per series for Shared.Quantiles.
+const shapePoints = 401
 
 // FitShared fits spec (a Ridge or Lasso member) on the histories ys with their Inputs, all of
 // one frequency, for steps 1..horizon. A series whose features cannot be generated (a declared
@@ -110,7 +118,82 @@ func FitShared(spec Spec, m int, ys [][]float64, ins []Inputs, horizon int) (*Sh
 		}
 		s.steps = append(s.steps, st)
 	}
+	s.residualSpread(ref)
 	return s, nil
+}
+
+// residualSpread fills spread and shape from every usable series' training rows: for each step
+// model, the residuals target − prediction (scaled units) at every origin where its kept
+// columns are defined. A model of a few dozen weights fitted on every series' rows barely
+// follows one series' noise, so these residuals stand for its forecast errors; they are the
+// direct strategy's own error estimate per step (common practice for direct multi-step
+// models). A series with fewer than two residuals at some step gets no spread (nil).
+func (s *Shared) residualSpread(ref *features.Set) {
+	s.spread, s.shape = make([][]float64, len(s.ys)), make([][]float64, len(s.ys))
+	for i, y := range s.ys {
+		if y == nil {
+			continue
+		}
+		sp := make([]float64, len(s.steps))
+		var pool []float64
+		ok := true
+		for k, st := range s.steps {
+			h := k + 1
+			from, to := ref.FirstOrigin(st.cols, h), len(y)-h
+			if to-from+1 < 2 {
+				ok = false
+				break
+			}
+			X, t, err := s.sets[i].Matrix(y, st.cols, h, from, to)
+			if err != nil {
+				ok = false
+				break
+			}
+			res := make([]float64, len(t))
+			ss := 0.0
+			for r := range t {
+				res[r] = t[r] - st.predict(X.RawRowView(r))
+				ss += res[r] * res[r]
+			}
+			sp[k] = math.Sqrt(ss / float64(len(t)))
+			if sp[k] > 0 {
+				for _, e := range res {
+					pool = append(pool, e/sp[k])
+				}
+			}
+		}
+		if !ok || len(pool) == 0 {
+			continue
+		}
+		slices.Sort(pool)
+		if len(pool) > shapePoints {
+			kept := make([]float64, shapePoints)
+			for j := range kept {
+				kept[j] = quantileSorted(pool, float64(j)/float64(shapePoints-1))
+			}
+			pool = kept
+		}
+		s.spread[i], s.shape[i] = sp, pool
+	}
+}
+
+// Quantiles returns series i's quantiles at levels for steps 1..h around mean (its Forecast):
+// q_jk = mean_k + scale_i · spread_ik · c_i(p_j), c_i the type-7 sample quantile (Hyndman & Fan
+// 1996) of the series' standardized training residuals pooled over the steps. Nil when the
+// series has no residual spread (too few rows) or there are no levels.
+func (s *Shared) Quantiles(i int, mean []float64, levels []float64) [][]float64 {
+	if len(levels) == 0 || i >= len(s.spread) || s.spread[i] == nil || len(mean) > len(s.spread[i]) {
+		return nil
+	}
+	out := make([][]float64, len(levels))
+	for j, p := range levels {
+		c := quantileSorted(s.shape[i], p)
+		out[j] = make([]float64, len(mean))
+		for k, m := range mean {
+			out[j][k] = m + s.scales[i]*s.spread[i][k]*c
+		}
+	}
+	return out
 }
 
 // fitDirectStepDropping is fitDirectStep that first drops the series whose rows cannot be built

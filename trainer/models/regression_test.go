@@ -213,3 +213,56 @@ func TestRegressionFitWithoutInputs(t *testing.T) {
 		}
 	}
 }
+
+// A pooled model's own step errors (Shared.Quantiles): eight hourly series of a daily wave plus
+// Gaussian noise of standard deviation 2 (invented). The lags and waves of features.PooledDefaults
+// describe the wave, so the best forecast errs by the noise alone, and the 2.5% and 97.5%
+// quantiles lie about 1.96 σ = 3.92 below and above the mean at every step (the normal
+// quantile; common practice); the estimate from the series' training residuals must be within
+// 15% of that, and the quantiles must be ordered.
+func TestSharedQuantilesFromStepResiduals(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 17))
+	const sigma, n, h = 2.0, 600, 6
+	var ys [][]float64
+	var ins []Inputs
+	for k := range 8 {
+		y := make([]float64, n)
+		for i := range y {
+			y[i] = 100 + float64(10*k) + 10*math.Sin(2*math.Pi*float64(i)/24) + sigma*rng.NormFloat64()
+		}
+		ys = append(ys, y)
+		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: h})
+	}
+	sh, err := FitShared(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}}, 24, ys, ins, h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	levels := []float64{0.025, 0.5, 0.975}
+	for i := range ys {
+		mean, err := sh.Forecast(i, h)
+		if err != nil {
+			t.Fatal(err)
+		}
+		q := sh.Quantiles(i, mean, levels)
+		if q == nil {
+			t.Fatalf("series %d: no quantiles", i)
+		}
+		for k := range mean {
+			lo, mid, hi := mean[k]-q[0][k], q[1][k]-mean[k], q[2][k]-mean[k]
+			if !(q[0][k] < q[1][k] && q[1][k] < q[2][k]) {
+				t.Errorf("series %d step %d: quantiles %v %v %v not increasing", i, k+1, q[0][k], q[1][k], q[2][k])
+			}
+			for _, d := range []float64{lo, hi} {
+				if math.Abs(d-1.96*sigma) > 0.15*1.96*sigma {
+					t.Errorf("series %d step %d: offset %.3f from the mean, want 1.96σ = %.2f within 15%%", i, k+1, d, 1.96*sigma)
+				}
+			}
+			if math.Abs(mid) > 0.5 {
+				t.Errorf("series %d step %d: median %.3f from the mean", i, k+1, mid)
+			}
+		}
+	}
+	if q := sh.Quantiles(0, make([]float64, h), nil); q != nil {
+		t.Error("quantiles without levels")
+	}
+}

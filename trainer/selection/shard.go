@@ -145,13 +145,14 @@ func (a *sharedMember) Fit(y []float64, m int) (models.Fitted, error) {
 	if err != nil {
 		return nil, err
 	}
-	return &sharedFitted{family: a.spec.Family, shared: f.shared, mean: mean, n: len(y)}, nil
+	return &sharedFitted{family: a.spec.Family, shared: f.shared, pos: pos, mean: mean, n: len(y)}, nil
 }
 
 // sharedFitted is one series' forecast from a shared fit.
 type sharedFitted struct {
 	family string
 	shared *models.Shared
+	pos    int // the series' position in the shared fit
 	mean   []float64
 	n      int
 }
@@ -162,8 +163,8 @@ func (f *sharedFitted) Name() string {
 func (f *sharedFitted) Params() map[string]float64 { return f.shared.Params() }
 func (f *sharedFitted) Features() []string         { return f.shared.Features() }
 
-// InSample is all NaN: a shared fit has no per-series one-step fitted values kept, so the
-// member's quantiles come from its backtest errors alone.
+// InSample is all NaN: a shared fit keeps no per-series one-step fitted values (its quantiles
+// come from its own step residuals, Forecast, or else from its backtest errors alone).
 func (f *sharedFitted) InSample() []float64 {
 	out := make([]float64, f.n)
 	for i := range out {
@@ -172,7 +173,9 @@ func (f *sharedFitted) InSample() []float64 {
 	return out
 }
 
-// Forecast returns the first h steps (NaN beyond the shard's fitted horizon).
+// Forecast returns the first h steps (NaN beyond the shard's fitted horizon), with the shared
+// model's own quantiles of the series' step errors (models.Shared.Quantiles) when it has them
+// for every step; otherwise none, and selection takes them from the backtest errors.
 func (f *sharedFitted) Forecast(h int, levels []float64) models.Forecast {
 	out := models.Forecast{Mean: make([]float64, h), Levels: levels}
 	for k := range out.Mean {
@@ -180,6 +183,9 @@ func (f *sharedFitted) Forecast(h int, levels []float64) models.Forecast {
 		if k < len(f.mean) {
 			out.Mean[k] = f.mean[k]
 		}
+	}
+	if h <= len(f.mean) {
+		out.Quantiles = f.shared.Quantiles(f.pos, out.Mean, levels)
 	}
 	return out
 }
