@@ -127,9 +127,17 @@ func FitShared(spec Spec, m int, ys [][]float64, ins []Inputs, horizon int) (*Sh
 // columns are defined. A model of a few dozen weights fitted on every series' rows barely
 // follows one series' noise, so these residuals stand for its forecast errors; they are the
 // direct strategy's own error estimate per step (common practice for direct multi-step
-// models). A series with fewer than two residuals at some step gets no spread (nil).
+// models). A series with fewer than two residuals at some step gets no spread (nil). Linear
+// learners only (Ridge, Lasso): boosted trees can follow their training rows far more closely
+// than a few dozen weights, so a pooled GradientBoosting member keeps the bands of its
+// backtest errors.
 func (s *Shared) residualSpread(ref *features.Set) {
 	s.spread, s.shape = make([][]float64, len(s.ys)), make([][]float64, len(s.ys))
+	for _, st := range s.steps {
+		if st.tree != nil {
+			return
+		}
+	}
 	for i, y := range s.ys {
 		if y == nil {
 			continue

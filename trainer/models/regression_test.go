@@ -266,3 +266,36 @@ func TestSharedQuantilesFromStepResiduals(t *testing.T) {
 		t.Error("quantiles without levels")
 	}
 }
+
+// A pooled GradientBoosting member has no residual quantiles (its trees may follow the training
+// rows closely); selection then takes its bands from the backtest errors.
+func TestSharedQuantilesLinearOnly(t *testing.T) {
+	rng := rand.New(rand.NewPCG(6, 1))
+	var ys [][]float64
+	var ins []Inputs
+	for k := range 3 {
+		y := make([]float64, 400)
+		for i := range y {
+			y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + rng.NormFloat64()
+		}
+		ys = append(ys, y)
+		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: 2})
+	}
+	fc := features.Config{Lags: []int{1, 24}}
+	sh, err := FitShared(Spec{Family: FamilyGradientBoosting, Features: &fc, Regression: &RegressionOptions{AcrossShard: true, Boosting: &BoostingOptions{Rounds: 20, Shrinkage: 0.3, TreeDepth: 3, MinLeafRows: 5, RowFraction: 1}}}, 24, ys, ins, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mean, _ := sh.Forecast(0, 2)
+	if q := sh.Quantiles(0, mean, []float64{0.1, 0.9}); q != nil {
+		t.Errorf("pooled GradientBoosting has residual quantiles %v", q)
+	}
+	lin, err := FitShared(Spec{Family: FamilyRidge, Features: &fc, Regression: &RegressionOptions{AcrossShard: true}}, 24, ys, ins, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mean, _ = lin.Forecast(0, 2)
+	if q := lin.Quantiles(0, mean, []float64{0.1, 0.9}); q == nil {
+		t.Error("pooled Ridge has no residual quantiles")
+	}
+}
