@@ -166,17 +166,9 @@ func TestPooledMemberFeatures(t *testing.T) {
 			t.Errorf("%s: MinLength(24) = %d, want %d", c.name, got, c.want+MinRegressionRows)
 		}
 	}
-	rng := rand.New(rand.NewPCG(3, 9))
-	var ys [][]float64
-	var ins []Inputs
-	for k := range 4 {
-		y := make([]float64, 500)
-		for i := range y {
-			y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + 5*math.Sin(2*math.Pi*float64(i)/168) + rng.NormFloat64()
-		}
-		ys = append(ys, y)
-		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: 2})
-	}
+	ys, ins := hourlyPool(rand.New(rand.NewPCG(3, 9)), 4, 500, 2, func(k, i int) float64 {
+		return 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + 5*math.Sin(2*math.Pi*float64(i)/168)
+	}, 1)
 	sh, err := FitShared(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}}, 24, ys, ins, 2)
 	if err != nil {
 		t.Fatal(err)
@@ -221,18 +213,10 @@ func TestRegressionFitWithoutInputs(t *testing.T) {
 // quantile; common practice); the estimate from the series' training residuals must be within
 // 15% of that, and the quantiles must be ordered.
 func TestSharedQuantilesFromStepResiduals(t *testing.T) {
-	rng := rand.New(rand.NewPCG(5, 17))
-	const sigma, n, h = 2.0, 600, 6
-	var ys [][]float64
-	var ins []Inputs
-	for k := range 8 {
-		y := make([]float64, n)
-		for i := range y {
-			y[i] = 100 + float64(10*k) + 10*math.Sin(2*math.Pi*float64(i)/24) + sigma*rng.NormFloat64()
-		}
-		ys = append(ys, y)
-		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: h})
-	}
+	const sigma, h = 2.0, 6
+	ys, ins := hourlyPool(rand.New(rand.NewPCG(5, 17)), 8, 600, h, func(k, i int) float64 {
+		return 100 + float64(10*k) + 10*math.Sin(2*math.Pi*float64(i)/24)
+	}, sigma)
 	sh, err := FitShared(Spec{Family: FamilyRidge, Regression: &RegressionOptions{AcrossShard: true}}, 24, ys, ins, h)
 	if err != nil {
 		t.Fatal(err)
@@ -270,17 +254,9 @@ func TestSharedQuantilesFromStepResiduals(t *testing.T) {
 // A pooled GradientBoosting member has no residual quantiles (its trees may follow the training
 // rows closely); selection then takes its bands from the backtest errors.
 func TestSharedQuantilesLinearOnly(t *testing.T) {
-	rng := rand.New(rand.NewPCG(6, 1))
-	var ys [][]float64
-	var ins []Inputs
-	for k := range 3 {
-		y := make([]float64, 400)
-		for i := range y {
-			y[i] = 50 + 10*math.Sin(2*math.Pi*float64(i)/24) + rng.NormFloat64()
-		}
-		ys = append(ys, y)
-		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: 2})
-	}
+	ys, ins := hourlyPool(rand.New(rand.NewPCG(6, 1)), 3, 400, 2, func(k, i int) float64 {
+		return 50 + 10*math.Sin(2*math.Pi*float64(i)/24)
+	}, 1)
 	fc := features.Config{Lags: []int{1, 24}}
 	sh, err := FitShared(Spec{Family: FamilyGradientBoosting, Features: &fc, Regression: &RegressionOptions{AcrossShard: true, Boosting: &BoostingOptions{Rounds: 20, Shrinkage: 0.3, TreeDepth: 3, MinLeafRows: 5, RowFraction: 1}}}, 24, ys, ins, 2)
 	if err != nil {
@@ -298,4 +274,20 @@ func TestSharedQuantilesLinearOnly(t *testing.T) {
 	if q := lin.Quantiles(0, mean, []float64{0.1, 0.9}); q == nil {
 		t.Error("pooled Ridge has no residual quantiles")
 	}
+}
+
+// hourlyPool returns count invented hourly series of n values, signal(k, i) plus Gaussian noise
+// of standard deviation sd, with their Inputs for horizon h.
+func hourlyPool(rng *rand.Rand, count, n, h int, signal func(k, i int) float64, sd float64) ([][]float64, []Inputs) {
+	var ys [][]float64
+	var ins []Inputs
+	for k := range count {
+		y := make([]float64, n)
+		for i := range y {
+			y[i] = signal(k, i) + sd*rng.NormFloat64()
+		}
+		ys = append(ys, y)
+		ins = append(ins, Inputs{Key: string(rune('a' + k)), Start: fenwickStart, Freq: series.Hourly, Horizon: h})
+	}
+	return ys, ins
 }
