@@ -87,6 +87,7 @@ func writeConfig(t *testing.T, dir, run, in, out string, extra int) string {
 		Output:           runconfig.Output{URI: out, Format: "parquet"},
 		Horizon:          14,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models:           []runconfig.Model{{Family: models.FamilyNaive}, {Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
 		Selection:        runconfig.Selection{Metric: "MASE", BacktestOrigins: 3, BacktestStep: 7, BacktestRefit: runconfig.RefitEveryOrigin, Design: runconfig.DesignFixed, DesignCostPercent: 500},
 		Sharding:         runconfig.Sharding{TargetSeriesPerShard: 150},

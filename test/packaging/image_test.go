@@ -462,6 +462,7 @@ func TestTrainerImageRuns(t *testing.T) {
 		Output:           runconfig.Output{URI: "file:///tmp/out", Format: "parquet"},
 		Horizon:          14,
 		QuantilePercents: []int{10, 50, 90},
+		QuantileWidth:    runconfig.QuantileWidthBacktest,
 		Models:           []runconfig.Model{{Family: models.FamilySeasonalNaive}, {Family: models.FamilyTheta}},
 		Selection: runconfig.Selection{Metric: "MASE", BacktestOrigins: 2, BacktestStep: 7, BacktestRefit: runconfig.RefitEveryOrigin,
 			Design: runconfig.DesignFixed, DesignCostPercent: 500},

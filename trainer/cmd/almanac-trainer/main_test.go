@@ -141,7 +141,7 @@ func TestJobSteps(t *testing.T) {
 		"run":"flp-job-1","trigger":"Manual","scheduledTime":"2026-11-02T00:00:00Z",
 		"source":{"uri":"mem://flp-job-in/","format":"csv","frequency":"Daily","nonNegative":true,"partitioning":"Objects",
 			"columns":{"series":["item","depot"],"date":"date","value":"units","covariates":["promo_flag"]}},
-		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantilePercents":[10,90],
+		"output":{"uri":"mem://flp-job-out/","format":"parquet"},"horizon":7,"quantilePercents":[10,90],"quantileWidth":"Backtest",
 		"models":[{"family":"Naive"},{"family":"SeasonalNaive"}],
 		"selection":{"metric":"MASE","backtestOrigins":2,"backtestStep":1,"backtestRefit":"Once","design":"Fixed","designCostPercent":500},
 		"sharding":{"targetSeriesPerShard":4},"drift":{"metric":"MASE","thresholdPercent":130,"minEvaluatedPoints":3}}`), 0o644)
@@ -260,7 +260,7 @@ func TestHierarchyStepsAsJobs(t *testing.T) {
 		"run":"flp-tree-1","trigger":"Manual",
 		"source":{"uri":"file://`+dir+`/in/","format":"csv","frequency":"Weekly","weekAnchor":"Monday","nonNegative":true,"partitioning":"HashBuckets",
 			"columns":{"series":["item","depot"],"date":"week_start","value":"units"}},
-		"output":{"uri":"file://`+dir+`/out/","format":"csv"},"horizon":6,"quantilePercents":[10,90],
+		"output":{"uri":"file://`+dir+`/out/","format":"csv"},"horizon":6,"quantilePercents":[10,90],"quantileWidth":"Backtest",
 		"models":[{"family":"Naive"},{"family":"Theta"}],
 		"selection":{"metric":"MASE","backtestOrigins":2,"backtestStep":1,"backtestRefit":"Once","design":"Fixed","designCostPercent":500},
 		"sharding":{"targetSeriesPerShard":5,"buckets":64},"drift":{"metric":"MASE","thresholdPercent":130,"minEvaluatedPoints":3},
