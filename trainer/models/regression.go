@@ -64,7 +64,9 @@ func init() {
 // training rows' own means and deviations (learn.Scaler): ridge with its penalty chosen on the
 // same holdout from ridgeGrid (or Spec.Regression.Penalty), or the lasso at the chosen penalty
 // (or at the fixed Penalty, after the filter). Coefficients are mapped back to the original
-// units. Forecasts have no model distribution: selection fills quantiles from backtest errors.
+// units. A per-series fit has no model distribution: selection fills its quantiles from
+// backtest errors. A pooled Ridge or Lasso gives its own from each series' training residuals
+// of the step models (Shared.Quantiles).
 type regression struct {
 	family  string
 	cfg     *features.Config // nil: features.Defaults (PooledDefaults when pooled) for the series' frequency
