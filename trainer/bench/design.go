@@ -8,6 +8,7 @@ import (
 	"slices"
 	"sort"
 	"strings"
+	"time"
 
 	"almanac.dev/almanac/trainer/backtest"
 	"almanac.dev/almanac/trainer/design"
@@ -45,6 +46,20 @@ type Options struct {
 	Log io.Writer
 	// Levels are the quantile levels to publish (selection.Config.Levels; nil: none).
 	Levels []float64
+	// Hold (Auto) is an earlier run's cost verdict per group (GroupKey), held as a
+	// portfolio's run holds its previous run's (design.Options.Before): a member within
+	// design.CostMargin of the budget keeps the verdict it had there. A group it lacks is
+	// judged by the plain rule, as a first run is.
+	Hold map[string]*design.Before
+	// CPU is the clock member costs are measured with (design.Options.CPU; nil: the process's
+	// CPU time).
+	CPU func() time.Duration
+}
+
+// GroupKey names a benchmark group (one category and horizon: one portfolio) in a report's
+// cost verdicts and in Options.Hold, e.g. "YEARLY h=6".
+func GroupKey(category string, horizon int) string {
+	return fmt.Sprintf("%s h=%d", category, horizon)
 }
 
 // Run forecasts every entry as a portfolio's run does, and scores it. Entries are grouped by
@@ -95,6 +110,7 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 	results := make([]selection.Result, len(entries))
 	errs := make([]error, len(entries))
 	counts := map[string]int{}
+	verdicts := map[string]*design.Before{}
 	cpu0 := cpuTime()
 	for _, g := range groups {
 		cfg := base
@@ -111,7 +127,8 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 			}
 		}
 		do := design.Options{Mode: o.Mode, Base: cfg, Rule: o.Rule, CostLimit: o.CostLimit,
-			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations, InnerOrigins: o.InnerOrigins}
+			MaxSeries: o.MaxSeries, MinSeries: o.MinSeries, Workers: o.Workers, Combinations: o.Combinations, InnerOrigins: o.InnerOrigins,
+			Before: o.Hold[GroupKey(g.cat, g.h)], CPU: o.CPU}
 		var dec *design.Outcome
 		if do.Mode == "" || do.Mode == design.Auto {
 			k := o.SampleSeries
@@ -128,6 +145,9 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 				return nil, nil, err
 			}
 			do.Decided = dec
+			if b := design.NewRecord(dec, do.Rule, k).Before(); b != nil {
+				verdicts[GroupKey(g.cat, g.h)] = b
+			}
 		}
 		out, err := design.Forecast(ctx, in, do, func(j int, r design.Result, err error) {
 			results[idx[j]], errs[idx[j]] = r.Result, err
@@ -159,6 +179,9 @@ func Run(ctx context.Context, entries []Entry, o Options) (*Report, []selection.
 	}
 	cpu := cpuTime() - cpu0
 	rep := newReport(fmt.Sprintf("almanac design=%s %s designs=%v", modeName(o.Mode), describe(o, described), counts))
+	if len(verdicts) > 0 {
+		rep.Verdicts = verdicts
+	}
 	for i, e := range entries {
 		f := results[i].Mean
 		t := rep.tally(e.Category)

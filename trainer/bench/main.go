@@ -73,6 +73,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
 	against := fs.String("against", "", "the output of an earlier --json run on the same series and window: print this run's OWA minus that run's with a paired 90% bootstrap interval (2000 resamples)")
+	hold := fs.String("hold", "", "with --design auto: the output of an earlier --json run on the same data: each group keeps that run's cost verdict on the members within 20% of the budget, as a portfolio's run keeps its previous run's (design.CostMargin); without it every group is judged as a portfolio's first run is, and a member near the budget may be kept by one run and dropped by the next")
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
 	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
@@ -153,6 +154,16 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	case !(*costLimit >= 1) || *innerMax < 1 || *innerMin < 1 || *innerOrigins < 1:
 		fmt.Fprintln(stderr, "bench: --cost-limit must be >= 1, --inner-max, --inner-min and --inner-origins >= 1")
 		return 2
+	}
+	if *hold != "" {
+		if o.Mode != design.Auto {
+			fmt.Fprintf(stderr, "bench: --hold: only with --design Auto (it holds the automatic design's cost verdict)\n")
+			return 2
+		}
+		if o.Hold, err = readHold(*hold); err != nil {
+			fmt.Fprintf(stderr, "bench: --hold: %v\n", err)
+			return 2
+		}
 	}
 	// SIGTERM or Ctrl-C cancels the run: the workers stop and any R child is killed.
 	ctx, stop := signal.NotifyContext(context.Background(), syscall.SIGTERM, os.Interrupt)
@@ -292,6 +303,9 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		if intervals != nil {
 			doc["intervals"] = jsonIntervals(intervals)
 		}
+		if rep.Verdicts != nil {
+			doc[holdField] = rep.Verdicts
+		}
 		b, err := json.Marshal(doc)
 		if err != nil {
 			fmt.Fprintf(stderr, "bench: %v\n", err)
@@ -360,6 +374,44 @@ func readAgainst(path string, naive2 *Report) (*Report, error) {
 		r.Scores = append(r.Scores, sc)
 	}
 	return r, nil
+}
+
+// holdField is the JSON report's field with each group's cost verdict (Report.Verdicts),
+// which --hold reads back.
+const holdField = "costVerdict"
+
+// readHold reads the cost verdicts (costVerdict, by GroupKey) from the JSON line of an
+// earlier bench --json run, for Options.Hold.
+func readHold(path string) (map[string]*design.Before, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	for i, line := range strings.Split(string(b), "\n") {
+		if !strings.HasPrefix(line, "{") {
+			continue
+		}
+		var doc map[string]json.RawMessage
+		if err := json.Unmarshal([]byte(line), &doc); err != nil {
+			return nil, fmt.Errorf("%s:%d: %v", path, i+1, err)
+		}
+		var v map[string]*design.Before
+		if raw, ok := doc[holdField]; ok {
+			if err := json.Unmarshal(raw, &v); err != nil {
+				return nil, fmt.Errorf("%s:%d: %s: %v", path, i+1, holdField, err)
+			}
+		}
+		if len(v) == 0 {
+			return nil, fmt.Errorf("%s:%d: no %s (the JSON line of a bench --json run with --design Auto that measured member costs)", path, i+1, holdField)
+		}
+		for k, b := range v {
+			if b == nil {
+				return nil, fmt.Errorf("%s:%d: %s %q: null", path, i+1, holdField, k)
+			}
+		}
+		return v, nil
+	}
+	return nil, fmt.Errorf("%s: no JSON line (the output of bench --json)", path)
 }
 
 // owaResamples is the number of bootstrap resamples of OWAInterval's line (1000: the size

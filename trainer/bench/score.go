@@ -8,6 +8,7 @@ import (
 	"strconv"
 
 	"almanac.dev/almanac/trainer/backtest"
+	"almanac.dev/almanac/trainer/design"
 )
 
 // Tally accumulates per-series accuracy: Mean returns the averages over series, the way the
@@ -66,6 +67,9 @@ type Report struct {
 	// Scores holds every scored series' sMAPE and MASE, in the order they were added (for
 	// OWAInterval).
 	Scores []SeriesScore
+	// Verdicts is each group's cost verdict (Run under Auto, by GroupKey; nil otherwise), for
+	// a later run's Options.Hold.
+	Verdicts map[string]*design.Before
 }
 
 // SeriesScore is one series' accuracy in a Report; MASE is NaN where its scale is undefined.

@@ -78,9 +78,10 @@ type Options struct {
 
 // Before is a previous run's verdict on its zoo members' cost, by DisplayName: Kept were
 // measured and stayed, Dropped left the zoo for cost (Record.Before reads it from that run's
-// plan record).
+// plan record; a bench --json run prints each group's as costVerdict).
 type Before struct {
-	Kept, Dropped []string
+	Kept    []string `json:"kept"`
+	Dropped []string `json:"dropped"`
 }
 
 // CostMargin is how far the cost verdict holds on to the previous run's: a member the
