@@ -130,16 +130,16 @@ bench-scale: ## almanac-trainer local on 100k generated daily series (peak RSS, 
 	go test -run '^$$' -bench BenchmarkLocalScale -benchtime 1x -timeout 60m ./trainer/cmd/almanac-trainer
 
 .PHONY: bench-m3
-bench-m3: build ## M3 accuracy and CPU per series, side by side with R forecast when Rscript is present.
-	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --workers 1 --score-published --reference-r; \
+bench-m3: build ## M3 accuracy, 95% interval MSIS and CPU per series, side by side with R forecast when Rscript is present.
+	@if [ -d ../shared/datasets/m3 ]; then bin/almanac-trainer bench --m3 --workers 1 --score-published --quantiles 2.5,97.5 --reference-r; \
 	else echo "bench-m3: ../shared/datasets/m3 not present, skipped"; fi
 	go test -run '^$$' -bench BenchmarkARIMASelectionVsR -benchtime 1x -timeout 60m ./test/reference/
 
 M4_HOURLY_DEV ?= ../shared/datasets/m4-hourly-dev
 
 .PHONY: bench-m4-hourly-dev
-bench-m4-hourly-dev: build ## M4 hourly dev half (207 series, long layout): sMAPE, MASE, OWA against the bench's Naive2, side by side with R forecast's ets, thetaf and snaive when Rscript is present.
-	@if [ -d $(M4_HOURLY_DEV) ]; then bin/almanac-trainer bench --data $(M4_HOURLY_DEV) --frequency Hourly --workers 1 --reference-r; \
+bench-m4-hourly-dev: build ## M4 hourly dev half (207 series, long layout): sMAPE, MASE, OWA against the bench's Naive2, side by side with R forecast's ets, thetaf and snaive when Rscript is present; the 95% interval's MSIS too.
+	@if [ -d $(M4_HOURLY_DEV) ]; then bin/almanac-trainer bench --data $(M4_HOURLY_DEV) --frequency Hourly --workers 1 --quantiles 2.5,97.5 --reference-r; \
 	else echo "bench-m4-hourly-dev: $(M4_HOURLY_DEV) not present, skipped"; fi
 
 .PHONY: bench-features
