@@ -162,3 +162,25 @@ func TestHoldRefusals(t *testing.T) {
 		}
 	}
 }
+
+// VerdictChanges names, per group both runs measured, the members one kept and the other
+// dropped; a group only one run has, or members both judged alike, say nothing.
+func TestVerdictChanges(t *testing.T) {
+	here := map[string]*design.Before{
+		"YEARLY h=6":    {Kept: []string{"ETS", "MSTLARIMA"}, Dropped: []string{"ARIMA"}},
+		"MONTHLY h=18":  {Kept: []string{"ETS"}, Dropped: []string{"ARIMA"}},
+		"QUARTERLY h=8": {Kept: []string{"ETS", "FourierARIMA"}},
+	}
+	there := map[string]*design.Before{
+		"YEARLY h=6":   {Kept: []string{"ETS", "ARIMA"}, Dropped: []string{"MSTLARIMA"}},
+		"MONTHLY h=18": {Kept: []string{"ETS"}, Dropped: []string{"ARIMA"}},
+		"OTHER h=8":    {Kept: []string{"ETS"}, Dropped: []string{"FourierARIMA"}},
+	}
+	want := []string{"YEARLY h=6: MSTLARIMA kept here, dropped there; ARIMA dropped here, kept there"}
+	if got := VerdictChanges(here, there); !reflect.DeepEqual(got, want) {
+		t.Errorf("got %q, want %q", got, want)
+	}
+	if got := VerdictChanges(here, nil); got != nil {
+		t.Errorf("no earlier verdicts: %q", got)
+	}
+}

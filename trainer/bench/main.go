@@ -7,12 +7,14 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"maps"
 	"math"
 	"os"
 	"os/signal"
 	"path/filepath"
 	"runtime"
 	"runtime/pprof"
+	"slices"
 	"sort"
 	"strings"
 	"syscall"
@@ -253,6 +255,11 @@ func Main(args []string, stdout, stderr io.Writer) int {
 		}
 		fmt.Fprintf(stdout, "  OWA against %s (%s): %+.4f, paired 90%% bootstrap interval (%d resamples) %+.4f to %+.4f; this run lower in %.0f%% of draws\n",
 			*against, earlier.Method, diff, pairedResamples, lo, hi, 100*gain)
+		if there, _, err := readVerdicts(*against); err == nil {
+			for _, c := range VerdictChanges(rep.Verdicts, there) {
+				fmt.Fprintf(stdout, "  cost verdict differs from %s's: %s (the difference includes those members; --hold %s holds its verdict on members within 20%% of the budget)\n", *against, c, *against)
+			}
+		}
 	}
 	if rep.All.ExpectedN > 0 {
 		fmt.Fprintf(stdout, "  backtest expectation (training data only): mean %s %.4f over %d series\n",
@@ -381,11 +388,21 @@ func readAgainst(path string, naive2 *Report) (*Report, error) {
 const holdField = "costVerdict"
 
 // readHold reads the cost verdicts (costVerdict, by GroupKey) from the JSON line of an
-// earlier bench --json run, for Options.Hold.
+// earlier bench --json run, for Options.Hold; a file without them is an error.
 func readHold(path string) (map[string]*design.Before, error) {
+	v, line, err := readVerdicts(path)
+	if err == nil && len(v) == 0 {
+		err = fmt.Errorf("%s:%d: no %s (the JSON line of a bench --json run with --design Auto that measured member costs)", path, line, holdField)
+	}
+	return v, err
+}
+
+// readVerdicts returns the cost verdicts of the first JSON line of path (nil when it has
+// none) and that line's number.
+func readVerdicts(path string) (map[string]*design.Before, int, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
-		return nil, err
+		return nil, 0, err
 	}
 	for i, line := range strings.Split(string(b), "\n") {
 		if !strings.HasPrefix(line, "{") {
@@ -393,25 +410,51 @@ func readHold(path string) (map[string]*design.Before, error) {
 		}
 		var doc map[string]json.RawMessage
 		if err := json.Unmarshal([]byte(line), &doc); err != nil {
-			return nil, fmt.Errorf("%s:%d: %v", path, i+1, err)
+			return nil, i + 1, fmt.Errorf("%s:%d: %v", path, i+1, err)
 		}
 		var v map[string]*design.Before
 		if raw, ok := doc[holdField]; ok {
 			if err := json.Unmarshal(raw, &v); err != nil {
-				return nil, fmt.Errorf("%s:%d: %s: %v", path, i+1, holdField, err)
+				return nil, i + 1, fmt.Errorf("%s:%d: %s: %v", path, i+1, holdField, err)
 			}
-		}
-		if len(v) == 0 {
-			return nil, fmt.Errorf("%s:%d: no %s (the JSON line of a bench --json run with --design Auto that measured member costs)", path, i+1, holdField)
 		}
 		for k, b := range v {
 			if b == nil {
-				return nil, fmt.Errorf("%s:%d: %s %q: null", path, i+1, holdField, k)
+				return nil, i + 1, fmt.Errorf("%s:%d: %s %q: null", path, i+1, holdField, k)
 			}
 		}
-		return v, nil
+		return v, i + 1, nil
 	}
-	return nil, fmt.Errorf("%s: no JSON line (the output of bench --json)", path)
+	return nil, 0, fmt.Errorf("%s: no JSON line (the output of bench --json)", path)
+}
+
+// VerdictChanges lists, per group that both runs measured (sorted by GroupKey), the members
+// one run kept and the other dropped for cost: "YEARLY h=6: MSTLARIMA kept here, dropped
+// there". A paired comparison across such a change measures that member as well as whatever
+// else differs between the runs.
+func VerdictChanges(here, there map[string]*design.Before) []string {
+	var out []string
+	for _, g := range slices.Sorted(maps.Keys(here)) {
+		a, b := here[g], there[g]
+		if a == nil || b == nil {
+			continue
+		}
+		var parts []string
+		for _, m := range a.Kept {
+			if slices.Contains(b.Dropped, m) {
+				parts = append(parts, m+" kept here, dropped there")
+			}
+		}
+		for _, m := range a.Dropped {
+			if slices.Contains(b.Kept, m) {
+				parts = append(parts, m+" dropped here, kept there")
+			}
+		}
+		if len(parts) > 0 {
+			out = append(out, g+": "+strings.Join(parts, "; "))
+		}
+	}
+	return out
 }
 
 // owaResamples is the number of bootstrap resamples of OWAInterval's line (1000: the size
