@@ -75,7 +75,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the run to this file")
 	asJSON := fs.Bool("json", false, "also print the report as one JSON line before the summary line")
 	against := fs.String("against", "", "the output of an earlier --json run on the same series and window: print this run's OWA minus that run's with a paired 90% bootstrap interval (2000 resamples)")
-	hold := fs.String("hold", "", "with --design auto: the output of an earlier --json run on the same data: each group keeps that run's cost verdict on the members within 20% of the budget, as a portfolio's run keeps its previous run's (design.CostMargin); without it every group is judged as a portfolio's first run is, and a member near the budget may be kept by one run and dropped by the next")
+	hold := fs.String("hold", "", fmt.Sprintf("with --design auto: the output of an earlier --json run on the same data: each group keeps that run's cost verdict on the members within %.0f%% of the budget, as a portfolio's run keeps its previous run's (design.CostMargin); without it every group is judged as a portfolio's first run is, and a member near the budget may be kept by one run and dropped by the next", 100*design.CostMargin))
 	published := fs.Bool("score-published", false, "score the competition forecasts in published_forecasts.csv")
 	refR := fs.Bool("reference-r", false, "run R forecast's methods (--reference-r-methods) on the same series and compare (needs Rscript)")
 	refRMethods := fs.String("reference-r-methods", "ets,thetaf,snaive", "with --reference-r: some of "+strings.Join(RMethodsAll, ",")+" (auto.arima is slow on long seasonal series; naive2 checks the bench's Naive2)")
@@ -257,7 +257,7 @@ func Main(args []string, stdout, stderr io.Writer) int {
 			*against, earlier.Method, diff, pairedResamples, lo, hi, 100*gain)
 		if there, _, err := readVerdicts(*against); err == nil {
 			for _, c := range VerdictChanges(rep.Verdicts, there) {
-				fmt.Fprintf(stdout, "  cost verdict differs from %s's: %s (the difference includes those members; --hold %s holds its verdict on members within 20%% of the budget)\n", *against, c, *against)
+				fmt.Fprintf(stdout, "  cost verdict differs from %s's: %s (the difference includes those members; --hold %s holds its verdict on members within %.0f%% of the budget)\n", *against, c, *against, 100*design.CostMargin)
 			}
 		}
 	}
