@@ -342,16 +342,11 @@ func readAgainst(path string, naive2 *Report) (*Report, error) {
 		Series []jsonSeriesScore `json:"series"`
 	}
 	var d struct{ Ours, Naive2 *doc }
-	found := false
-	for i, line := range strings.Split(string(b), "\n") {
-		if !strings.HasPrefix(line, "{") {
-			continue
+	line, n, found := firstJSONLine(b)
+	if found {
+		if err := json.Unmarshal(line, &d); err != nil {
+			return nil, fmt.Errorf("%s:%d: %v", path, n, err)
 		}
-		if err := json.Unmarshal([]byte(line), &d); err != nil {
-			return nil, fmt.Errorf("%s:%d: %v", path, i+1, err)
-		}
-		found = true
-		break
 	}
 	if !found || d.Ours == nil || d.Naive2 == nil || len(d.Ours.Series) == 0 {
 		return nil, fmt.Errorf("%s: no JSON line with per-series scores (the output of bench --json)", path)
@@ -404,28 +399,37 @@ func readVerdicts(path string) (map[string]*design.Before, int, error) {
 	if err != nil {
 		return nil, 0, err
 	}
-	for i, line := range strings.Split(string(b), "\n") {
-		if !strings.HasPrefix(line, "{") {
-			continue
-		}
-		var doc map[string]json.RawMessage
-		if err := json.Unmarshal([]byte(line), &doc); err != nil {
-			return nil, i + 1, fmt.Errorf("%s:%d: %v", path, i+1, err)
-		}
-		var v map[string]*design.Before
-		if raw, ok := doc[holdField]; ok {
-			if err := json.Unmarshal(raw, &v); err != nil {
-				return nil, i + 1, fmt.Errorf("%s:%d: %s: %v", path, i+1, holdField, err)
-			}
-		}
-		for k, b := range v {
-			if b == nil {
-				return nil, i + 1, fmt.Errorf("%s:%d: %s %q: null", path, i+1, holdField, k)
-			}
-		}
-		return v, i + 1, nil
+	line, n, found := firstJSONLine(b)
+	if !found {
+		return nil, 0, fmt.Errorf("%s: no JSON line (the output of bench --json)", path)
 	}
-	return nil, 0, fmt.Errorf("%s: no JSON line (the output of bench --json)", path)
+	var doc map[string]json.RawMessage
+	if err := json.Unmarshal(line, &doc); err != nil {
+		return nil, n, fmt.Errorf("%s:%d: %v", path, n, err)
+	}
+	var v map[string]*design.Before
+	if raw, ok := doc[holdField]; ok {
+		if err := json.Unmarshal(raw, &v); err != nil {
+			return nil, n, fmt.Errorf("%s:%d: %s: %v", path, n, holdField, err)
+		}
+	}
+	for k, b := range v {
+		if b == nil {
+			return nil, n, fmt.Errorf("%s:%d: %s %q: null", path, n, holdField, k)
+		}
+	}
+	return v, n, nil
+}
+
+// firstJSONLine returns the first line of a bench output that starts with "{" (the --json
+// report) and its 1-based number; found is false when there is none.
+func firstJSONLine(b []byte) (line []byte, n int, found bool) {
+	for i, l := range strings.Split(string(b), "\n") {
+		if strings.HasPrefix(l, "{") {
+			return []byte(l), i + 1, true
+		}
+	}
+	return nil, 0, false
 }
 
 // VerdictChanges lists, per group that both runs measured (sorted by GroupKey), the members
